@@ -1,0 +1,3 @@
+"""triage: weekly forecast review for demand planners."""
+
+__version__ = "0.1.0"

@@ -1,0 +1,153 @@
+"""Command line: ``triage rank``, ``triage check`` and friends.
+
+Every user-facing problem is a ``TriageError``: printed on stderr without a traceback, exit 2.
+Heavy modules (pandas, the review screens) are imported inside the commands that need them.
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from collections.abc import Sequence
+from pathlib import Path
+
+from triage import __version__
+from triage.core.errors import TriageError
+
+
+def _portfolio_args(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("portfolio", type=Path, help="portfolio file: .csv, .parquet or .xlsx")
+    parser.add_argument(
+        "--columns",
+        metavar="MAP",
+        help="map our column names to the file's headers, e.g. demand=qty_shipped,item=sku",
+    )
+    parser.add_argument("--sheet", help="xlsx sheet to read (default: the first visible sheet)")
+    parser.add_argument("--lag", type=int, help="forecast lag to score, when the file holds several")
+
+
+def _score_args(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "--window", type=int, default=13, help="latest periods with actual demand to score (default 13)"
+    )
+    parser.add_argument(
+        "--season", type=int, default=1, help="seasonal period of the naive baseline (default 1)"
+    )
+
+
+def build_parser() -> argparse.ArgumentParser:
+    """The argument parser for every subcommand."""
+    parser = argparse.ArgumentParser(
+        prog="triage",
+        description="Weekly forecast review: rank series by error contribution and persistent bias.",
+    )
+    parser.add_argument("--version", action="version", version=f"triage {__version__}")
+    sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
+
+    rank = sub.add_parser("rank", help="score every series and list the worst offenders first")
+    _portfolio_args(rank)
+    _score_args(rank)
+    rank.add_argument("--by", choices=("error", "bias"), default="error", help="order (default error)")
+    rank.add_argument(
+        "--format", choices=("table", "csv", "json"), default="table", help="output format (default table)"
+    )
+    limit = rank.add_mutually_exclusive_group()
+    limit.add_argument("--top", type=int, metavar="K", help="only the first K series")
+    limit.add_argument(
+        "--cover",
+        type=float,
+        metavar="F",
+        help="only the smallest leading set whose cumulative error share reaches F (e.g. 0.8)",
+    )
+    rank.add_argument("--output", type=Path, metavar="PATH", help="write to PATH instead of standard output")
+    rank.set_defaults(handler=_cmd_rank)
+
+    check = sub.add_parser("check", help="report on the data quality of a portfolio file")
+    _portfolio_args(check)
+    _score_args(check)
+    check.set_defaults(handler=_cmd_check)
+    return parser
+
+
+def main(argv: Sequence[str] | None = None) -> int:
+    """Entry point of the ``triage`` console script."""
+    parser = build_parser()
+    args = parser.parse_args(argv)
+    try:
+        return int(args.handler(args) or 0)
+    except TriageError as exc:
+        print(f"triage: {exc}", file=sys.stderr)
+        return exc.exit_code
+    except KeyboardInterrupt:
+        return 130
+    except BrokenPipeError:
+        # Output piped into `head` and closed early: not an error for the user.
+        sys.stderr.close()
+        return 0
+
+
+def _load(args: argparse.Namespace):  # noqa: ANN202 - Portfolio, imported lazily
+    from triage.core.load import parse_column_map
+    from triage.core.portfolio import read_portfolio
+
+    columns = parse_column_map(args.columns) if args.columns else None
+    return read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+
+
+def _check_score_args(args: argparse.Namespace) -> None:
+    if args.window < 1:
+        raise TriageError(f"--window must be at least 1, not {args.window}.")
+    if args.season < 1:
+        raise TriageError(f"--season must be at least 1, not {args.season}.")
+
+
+def _cmd_rank(args: argparse.Namespace) -> int:
+    from triage.core import output as report
+    from triage.core.ranking import leading_cover, scorecard
+
+    _check_score_args(args)
+    if args.top is not None and args.top < 1:
+        raise TriageError(f"--top must be at least 1, not {args.top}.")
+    if args.cover is not None and not 0 < args.cover <= 1:
+        raise TriageError(f"--cover must be a fraction in (0, 1], e.g. 0.8, not {args.cover}.")
+    portfolio = _load(args)
+    card = scorecard(portfolio, args.window, args.season, by=args.by)
+    shown = card
+    if args.cover is not None:
+        shown = leading_cover(card, args.cover)
+    elif args.top is not None:
+        shown = card.iloc[: args.top]
+    elif args.format == "table":
+        shown = card.iloc[: report.TABLE_DEFAULT_ROWS]
+
+    if args.format == "csv":
+        text = report.to_csv(shown)
+    elif args.format == "json":
+        text = report.to_json(portfolio, shown, args.window, args.season)
+    else:
+        text = report.rank_table(portfolio, card, shown, args.window, args.season, by=args.by)
+    _emit(text, args.output)
+    return 0
+
+
+def _cmd_check(args: argparse.Namespace) -> int:
+    from triage.core import output as report
+
+    _check_score_args(args)
+    portfolio = _load(args)
+    print(report.check_text(portfolio, args.window, args.season))
+    return 0
+
+
+def _emit(text: str, output: Path | None) -> None:
+    if output is None:
+        sys.stdout.write(text)
+        sys.stdout.flush()
+        return
+    from triage.core.files import write_text_atomic
+
+    write_text_atomic(output, text)
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

@@ -1,0 +1,41 @@
+"""Errors the core raises for the user to act on (never for programming mistakes)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+
+class TriageError(Exception):
+    """A problem the user can fix; the command line prints it without a traceback."""
+
+    exit_code = 2
+
+    def __init__(self, message: str, *, hint: str | None = None) -> None:
+        super().__init__(message)
+        self.message = message
+        self.hint = hint
+
+    def __str__(self) -> str:
+        if self.hint:
+            return f"{self.message}\n  What to do: {self.hint}"
+        return self.message
+
+
+class LoadError(TriageError):
+    """The portfolio file cannot be read or scored as it is.
+
+    Attributes:
+        path: The file that was being read.
+    """
+
+    def __init__(self, path: str | Path, message: str, *, hint: str | None = None) -> None:
+        self.path = Path(path)
+        super().__init__(f"{self.path}: {message}", hint=hint)
+
+
+def format_rows(rows: list[int] | tuple[int, ...], *, limit: int = 5) -> str:
+    """Render file line numbers for a message: ``rows 3, 9, 12 and 4 more``."""
+    shown = ", ".join(str(r) for r in rows[:limit])
+    more = len(rows) - limit
+    word = "row" if len(rows) == 1 else "rows"
+    return f"{word} {shown}" + (f" and {more} more" if more > 0 else "")

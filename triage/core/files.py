@@ -1,0 +1,79 @@
+"""Writing files so that a reader never sees half of one."""
+
+from __future__ import annotations
+
+import contextlib
+import os
+import stat
+import tempfile
+from collections.abc import Callable
+from pathlib import Path
+
+from triage.core.errors import TriageError
+
+
+def write_atomic(path: str | Path, write: Callable[[Path], None], *, force: bool = True) -> Path:
+    """Write ``path`` through a temporary file in the same folder, then rename it into place.
+
+    ``write`` receives the temporary path and fills it. On any failure the target is unchanged and
+    the temporary file is removed. A target that exists but is not a regular file (``/dev/null``,
+    a pipe) is written directly: renaming over it would replace the device.
+
+    Raises:
+        TriageError: The target exists and ``force`` is false, or the folder cannot be written.
+    """
+    target = Path(path)
+    if target.exists() and not stat.S_ISREG(target.stat().st_mode):
+        write(target)
+        return target
+    if target.exists() and not force:
+        raise TriageError(
+            f"{target} already exists; it was left unchanged.",
+            hint="Choose another file name, or pass --force to replace it.",
+        )
+    folder = target.parent if str(target.parent) else Path(".")
+    try:
+        handle, tmp_name = tempfile.mkstemp(prefix=f".{target.name}.", suffix=".tmp", dir=folder)
+    except OSError as exc:
+        raise TriageError(
+            f"cannot write to {folder}: {exc.strerror or exc}.", hint="Choose another folder."
+        ) from exc
+    os.close(handle)
+    tmp = Path(tmp_name)
+    try:
+        write(tmp)
+        with tmp.open("rb") as done:
+            os.fsync(done.fileno())
+        os.replace(tmp, target)
+    except OSError as exc:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+        raise TriageError(
+            f"could not write {target}: {exc.strerror or exc}; nothing was changed.",
+            hint="Check the free space and permissions of the folder, then try again.",
+        ) from exc
+    except BaseException:
+        with contextlib.suppress(OSError):
+            tmp.unlink()
+        raise
+    _fsync_dir(folder)
+    return target
+
+
+def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Path:
+    """Atomically write UTF-8 text (see ``write_atomic``)."""
+    return write_atomic(path, lambda p: p.write_text(text, encoding="utf-8", newline=""), force=force)
+
+
+def _fsync_dir(folder: Path) -> None:
+    """Make the rename itself durable (POSIX: fsync the containing directory)."""
+    try:
+        fd = os.open(folder, os.O_RDONLY)
+    except OSError:
+        return
+    try:
+        os.fsync(fd)
+    except OSError:
+        pass
+    finally:
+        os.close(fd)
