@@ -171,7 +171,7 @@ def build_portfolio(loaded: LoadedLike, *, lag: int | None = None) -> Portfolio:
     demand[cell[scored]] = demand_col[scored]
     forecast[cell[scored]] = forecast_col[scored]
     if has_lag and len(lags) > 1:
-        _merge_other_lag_demand(loaded, demand, cell, demand_col, history & ~scored)
+        _merge_other_lag_demand(loaded, demand, cell, demand_col, history)
 
     if forward.any():
         # Forward periods keep the most recent snapshot: the smallest lag per (series, period).
@@ -282,18 +282,19 @@ def _infer_freq(loaded: LoadedLike, stamps: pd.DatetimeIndex, uniques: pd.Dateti
     """Weekly when every period is the same weekday, monthly when every period is a month start."""
     path = loaded.path
     day_gaps = np.diff(uniques.to_numpy().astype("datetime64[D]").astype(np.int64))
-    if (day_gaps % 7 == 0).all():
-        return schema.WEEKLY
+    # Month starts first: February to March is 28 days, a multiple of 7.
     if (uniques.day == 1).all():
         return schema.MONTHLY
+    if (day_gaps % 7 == 0).all():
+        return schema.WEEKLY
     # Neither: report the periods that break the most common pattern.
-    weekday = pd.Series(uniques.weekday).mode().iloc[0]
+    weekday = pd.Series(uniques.day_of_week).mode().iloc[0]
     if (uniques.day == 1).mean() > 0.5:
         bad = stamps.day != 1
         expected = "the first day of a month (monthly periods)"
     else:
-        bad = stamps.weekday != weekday
-        name = pd.Timestamp(uniques[uniques.weekday == weekday][0]).day_name()
+        bad = stamps.day_of_week != weekday
+        name = pd.Timestamp(uniques[uniques.day_of_week == weekday][0]).day_name()
         expected = f"a {name} (weekly periods, 7 days apart)"
     positions = np.flatnonzero(np.asarray(bad))
     examples = ", ".join(
@@ -372,24 +373,27 @@ def _merge_other_lag_demand(
     demand: np.ndarray,
     cell: np.ndarray,
     demand_col: np.ndarray,
-    other: np.ndarray,
+    history: np.ndarray,
 ) -> None:
-    """Fill actuals that only other-lag rows carry, and refuse rows whose actuals disagree."""
-    positions = np.flatnonzero(other & ~np.isnan(demand_col))
-    if not len(positions):
-        return
-    have = demand[cell[positions]]
-    clash = ~np.isnan(have) & (have != demand_col[positions])
+    """Refuse history rows whose actuals disagree across lags; fill actuals only other lags carry."""
+    positions = np.flatnonzero(history & ~np.isnan(demand_col))
+    order = positions[np.argsort(cell[positions], kind="stable")]
+    cells = cell[order]
+    first = np.ones(len(order), dtype=bool)
+    first[1:] = cells[1:] != cells[:-1]
+    ref = order[np.maximum.accumulate(np.where(first, np.arange(len(order)), 0))]
+    clash = demand_col[order] != demand_col[ref]
     if clash.any():
-        bad = positions[clash]
+        bad = np.sort(np.concatenate([order[clash], ref[clash]]))
         raise LoadError(
             loaded.path,
-            f"{len(bad)} rows give a different demand for the same series and period at another lag, "
-            f"at {format_rows(loaded.rows(bad))}.",
+            f"{int(clash.sum())} rows give a different demand for the same series and period "
+            f"at another lag, at {format_rows(loaded.rows(np.unique(bad)))}.",
             hint="Demand is the actual; it must be the same on every lag row of a period.",
         )
-    missing = np.isnan(have)
-    demand[cell[positions[missing]]] = demand_col[positions[missing]]
+    heads = order[first]
+    missing = np.isnan(demand[cell[heads]])
+    demand[cell[heads[missing]]] = demand_col[heads[missing]]
 
 
 def _price_matrix(
