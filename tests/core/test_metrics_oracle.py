@@ -311,6 +311,13 @@ def oracle(
             flag = "over" if run > 0 else "under"
         else:
             flag = ""
+        # The flag stands only when the window bias agrees in sign and is material (>= 5% of
+        # demand, or any non-zero bias when demand <= 0).
+        bias_sign = (bias > 0) - (bias < 0)
+        if flag and bias_sign != (1 if flag == "over" else -1):
+            flag = ""
+        if flag and sum_d > 0 and abs(bias) < 0.05 * sum_d:
+            flag = ""
         row["bias_flag"] = flag
 
         # MASE (Hyndman & Koehler 2006): scale from all (t, t-m) actual pairs up to the window end.

@@ -340,15 +340,24 @@ def test_flag_false_alarm_rate_exact() -> None:
     positive = np.array([sum(s > 0 for s in seq) for seq in sequences])
     run = np.array([_latest_run(seq) for seq in sequences])
     nonzero = np.full(len(sequences), n)
-    ours = metrics.persistent_bias(positive, nonzero, run) != 0
+    bias = 2 * positive - n  # Σe of ±1 errors
+    # Demand 100 per period: a material bias is at least 5% of 1,300, i.e. |Σe| >= 65, which ±1
+    # errors never reach; so use demand 0 (materiality does not apply) for the sign logic alone.
+    ours = metrics.persistent_bias(positive, nonzero, run, bias, np.zeros(len(bias))) != 0
 
     # Independently: scipy.stats.binomtest p <= 0.05 (two-sided sign test) or a run of 6 or more
-    # (2·0.5⁶ = 3.1 % on its own, methods reference §2.3).
+    # (2·0.5⁶ = 3.1 % on its own, methods reference §2.3), and the window bias agrees in sign.
     test_p = {k: binomtest(k, n, 0.5).pvalue for k in range(n + 1)}
-    expected = sum(
-        1 for k, r in zip(positive, run, strict=True) if test_p[int(k)] <= 0.05 or abs(r) >= 6
-    )
-    assert int(ours.sum()) == expected == 382
+    expected = 0
+    for k, r, b in zip(positive, run, bias, strict=True):
+        if test_p[int(k)] <= 0.05:
+            direction = 1 if 2 * k > n else -1
+        elif abs(r) >= 6:
+            direction = 1 if r > 0 else -1
+        else:
+            continue
+        expected += int(np.sign(b)) == direction
+    assert int(ours.sum()) == expected
     assert ours.mean() < 0.08
     # The same rate through the vectorised window measures on ±1 errors.
     errors = np.array(sequences, dtype=float)

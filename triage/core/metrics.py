@@ -26,6 +26,9 @@ BIAS_ALPHA = 0.05
 #: Consecutive same-sign latest errors that count as persistent bias on their own.
 #: Under unbiased independent errors the chance is 2 * 0.5**6 = 3.1% (docs/metrics.md).
 BIAS_RUN = 6
+#: Smallest |Σe| / Σdemand a persistent bias must reach: below it the bias is immaterial, and
+#: on intermittent series many small over-forecasts against zero demand would trip the sign test.
+BIAS_MATERIAL = 0.05
 #: ADI and CV² cut-offs of Syntetos, Boylan & Croston (2005), non-smooth side inclusive.
 ADI_CUTOFF = 1.32
 CV2_CUTOFF = 0.49
@@ -106,9 +109,10 @@ class WindowMeasures:
         """Persistent bias: +1 over, −1 under, 0 none (int8).
 
         Flagged when the sign test gives p <= ``BIAS_ALPHA`` (direction: the majority sign) or
-        the latest ``BIAS_RUN`` or more errors share one sign (direction: that sign).
+        the latest ``BIAS_RUN`` or more errors share one sign (direction: that sign), and the
+        window bias Σe points the same way and is material (see ``persistent_bias``).
         """
-        return persistent_bias(self.positive, self.nonzero, self.bias_run)
+        return persistent_bias(self.positive, self.nonzero, self.bias_run, self.bias, self.demand)
 
 
 def window_columns(demand: np.ndarray, last_actual: int, window: int) -> np.ndarray:
@@ -201,13 +205,29 @@ def sign_test_pvalue(positive: np.ndarray, nonzero: np.ndarray) -> np.ndarray:
     return table[positive, nonzero]
 
 
-def persistent_bias(positive: np.ndarray, nonzero: np.ndarray, run: np.ndarray) -> np.ndarray:
-    """+1 / −1 / 0 persistent-bias flag (see ``WindowMeasures.bias_flag``)."""
+def persistent_bias(
+    positive: np.ndarray,
+    nonzero: np.ndarray,
+    run: np.ndarray,
+    bias: np.ndarray,
+    demand: np.ndarray,
+) -> np.ndarray:
+    """+1 / −1 / 0 persistent-bias flag.
+
+    Direction: the majority sign when the two-sided sign test gives p <= ``BIAS_ALPHA``, else the
+    run's sign when the latest ``BIAS_RUN`` or more errors share one sign. The flag stands only
+    when the window bias Σe has that same sign and is material: |Σe| >= ``BIAS_MATERIAL`` · Σdemand
+    (any non-zero Σe when Σdemand <= 0). A run of small over-forecasts inside a large
+    under-forecast is therefore not called "over".
+    """
     pvalue = sign_test_pvalue(positive, nonzero)
     majority = np.sign(2 * positive - nonzero)
     by_test = (pvalue <= BIAS_ALPHA) & (majority != 0)
     by_run = np.abs(run) >= BIAS_RUN
-    return np.where(by_test, majority, np.where(by_run, np.sign(run), 0)).astype(np.int8)
+    direction = np.where(by_test, majority, np.where(by_run, np.sign(run), 0))
+    agrees = np.sign(bias) == direction
+    material = (demand <= 0) | (np.abs(bias) >= BIAS_MATERIAL * demand)
+    return np.where(agrees & material, direction, 0).astype(np.int8)
 
 
 def naive_scale(demand: np.ndarray, season: int = 1) -> np.ndarray:

@@ -146,11 +146,19 @@ def rank_table(
         ("WAPE", "right"),
         ("TS", "right"),
         ("run", "right"),
-        ("flag", "left"),
+        ("persistent", "left"),
         ("pattern", "left"),
     ]:
-        table.add_column(name, justify=justify, no_wrap=name not in (schema.ITEM, schema.LOCATION),
-                         overflow="ellipsis", max_width=24 if name in (schema.ITEM, schema.LOCATION) else None)
+        key = name in (schema.ITEM, schema.LOCATION)
+        widest = max((len(str(v)) for v in shown[name]), default=0) if key else 0
+        table.add_column(
+            name,
+            justify=justify,
+            no_wrap=True,
+            overflow="ellipsis",
+            min_width=min(max(widest, len(name)), 24) if key else None,
+            max_width=24 if key else None,
+        )
     err_col = "abs_error_value" if priced else "abs_error"
     for row in shown.itertuples(index=False):
         rec = row._asdict()
@@ -165,7 +173,7 @@ def rank_table(
             _pct(rec["wape"]),
             _num(rec["tracking_signal"], "+.1f"),
             _run_text(rec["bias_run"]),
-            "PERSISTENT " + rec["bias_flag"] if rec["bias_flag"] else "",
+            rec["bias_flag"],
             rec["pattern"],
         ]
         table.add_row(*cells)
