@@ -66,7 +66,28 @@ def build_parser() -> argparse.ArgumentParser:
     _portfolio_args(check)
     _score_args(check)
     check.set_defaults(handler=_cmd_check)
+
+    review = sub.add_parser("review", help="open the review screens on a portfolio")
+    _portfolio_args(review)
+    _score_args(review)
+    _review_args(review)
+    review.set_defaults(handler=_cmd_review)
+
+    demo = sub.add_parser("demo", help="open the review screens on the bundled sample portfolio")
+    _review_args(demo, ledger=False)
+    demo.set_defaults(handler=_cmd_demo)
     return parser
+
+
+def _review_args(parser: argparse.ArgumentParser, *, ledger: bool = True) -> None:
+    if ledger:
+        parser.add_argument(
+            "--ledger",
+            type=Path,
+            help="decision ledger (default: <portfolio>.ledger.sqlite beside the portfolio)",
+        )
+    parser.add_argument("--reviewer", help="name stored with each decision (default: config or login name)")
+    parser.add_argument("--config", type=Path, help="configuration file (TOML)")
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -136,6 +157,60 @@ def _cmd_check(args: argparse.Namespace) -> int:
     _check_score_args(args)
     portfolio = _load(args)
     print(report.check_text(portfolio, args.window, args.season))
+    return 0
+
+
+def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | None):  # noqa: ANN202
+    from triage.core.config import default_reviewer, load_config
+    from triage.core.load import parse_column_map
+    from triage.tui.app import Options
+
+    config = load_config(args.config)
+    columns = parse_column_map(args.columns) if getattr(args, "columns", None) else None
+    return Options(
+        portfolio=portfolio,
+        ledger=ledger,
+        reviewer=args.reviewer or default_reviewer(config),
+        window=getattr(args, "window", 13),
+        season=getattr(args, "season", 1),
+        columns=columns,
+        sheet=getattr(args, "sheet", None),
+        lag=getattr(args, "lag", None),
+        target_share=config.target_share,
+        root_causes=config.root_causes,
+    )
+
+
+def _cmd_review(args: argparse.Namespace) -> int:
+    _check_score_args(args)
+    if not args.portfolio.exists():
+        raise TriageError(f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file.")
+    from triage.tui.app import TriageApp
+
+    TriageApp(_review_options(args, args.portfolio, args.ledger)).run()
+    return 0
+
+
+def sample_portfolio() -> Path:
+    """The bundled sample portfolio of a source checkout."""
+    path = Path(__file__).resolve().parents[1] / "sample" / "portfolio.csv"
+    if not path.exists():
+        raise TriageError(
+            f"the sample portfolio is not at {path}.",
+            hint="Run the demo from a source checkout (pip install -e .), or use triage review FILE.",
+        )
+    return path
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    from platformdirs import user_data_dir
+
+    from triage.tui.app import TriageApp
+
+    folder = Path(user_data_dir("triage")) / "demo"
+    folder.mkdir(parents=True, exist_ok=True)
+    options = _review_options(args, sample_portfolio(), folder / "sample.ledger.sqlite")
+    TriageApp(options).run()
     return 0
 
 

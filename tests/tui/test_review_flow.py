@@ -1,0 +1,224 @@
+"""The review screens driven as a reviewer would, with Textual's Pilot.
+
+Every flow asserts on what the app holds and on what the ledger file holds afterwards.
+"""
+
+from __future__ import annotations
+
+import shutil
+import sqlite3
+from pathlib import Path
+
+import numpy as np
+import pytest
+from textual.widgets import Input, TextArea
+
+from triage.core.ledger import Ledger
+from triage.tui.app import Options, TriageApp
+from triage.tui.screens.decision import DecisionScreen
+from triage.tui.screens.dialogs import HelpScreen, PromptScreen
+from triage.tui.widgets.series_list import SeriesList
+
+ROOT = Path(__file__).resolve().parents[2]
+SAMPLE = ROOT / "sample" / "portfolio.csv"
+
+
+@pytest.fixture
+def portfolio(tmp_path: Path) -> Path:
+    target = tmp_path / "week.csv"
+    shutil.copy(SAMPLE, target)
+    return target
+
+
+def make_app(portfolio: Path, **kw: object) -> TriageApp:
+    return TriageApp(Options(portfolio=portfolio, reviewer="ana", **kw))
+
+
+async def wait_loaded(app: TriageApp, pilot) -> None:  # noqa: ANN001
+    for _ in range(200):
+        await pilot.pause(0.05)
+        if app.session is not None:
+            await pilot.pause(0.05)
+            return
+    raise AssertionError(f"app did not load: {app.status_text}")
+
+
+async def wait_for(pilot, predicate, what: str) -> None:  # noqa: ANN001
+    for _ in range(200):
+        await pilot.pause(0.05)
+        if predicate():
+            return
+    raise AssertionError(f"timed out waiting for {what}")
+
+
+def ledger_rows(path: Path) -> list[tuple]:
+    con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
+    try:
+        return con.execute(
+            "SELECT kind, item, location, outcome, root_cause, note, adjustment, reviewer FROM event ORDER BY id"
+        ).fetchall()
+    finally:
+        con.close()
+
+
+async def test_open_move_and_quick_decision_is_in_the_ledger(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        series_list = app.query_one(SeriesList)
+        session = app.session
+        assert session is not None
+        # Worst offender first: the list order is the core's error order.
+        np.testing.assert_array_equal(series_list.order, session.error_order)
+        await pilot.press("j", "j", "down")
+        assert series_list.cursor == 3
+        series = series_list.current
+        await pilot.press("3", "c")  # root cause 3 (stock-out), then "no change"
+        await wait_for(pilot, lambda: session.outcome[series] != "", "the decision to be saved")
+        assert "saved" in app.status_text
+        item, location = session.key(series)
+    rows = ledger_rows(portfolio.with_name("week.ledger.sqlite"))
+    assert rows == [("decision", item, location, "no_change", "stock_out", "", None, "ana")]
+
+
+async def test_decide_with_note_and_adjustment_preview(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        session = app.session
+        series = app.query_one(SeriesList).current
+        await pilot.press("a")
+        await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the decision dialog")
+        dialog = app.screen
+        adjust = dialog.query_one("#decision-adjust", Input)
+        assert adjust.has_focus
+        await pilot.press(*"1-4: +10%")
+        preview = str(dialog.query_one("#decision-preview").render())
+        expected = session.preview(series, "1-4: +10%")
+        assert expected.description in preview  # the preview shows the core's impact text
+        note = dialog.query_one("#decision-note", TextArea)
+        note.text = "Promo in week 49 not in the model\nsecond line [/] =1+2"
+        await pilot.press("ctrl+s")
+        await wait_for(pilot, lambda: session.outcome[series] == "adjusted", "the adjusted decision")
+    with Ledger.open(portfolio.with_name("week.ledger.sqlite"), read_only=True) as ledger:
+        events = ledger.history()
+    assert len(events) == 1
+    event = events[0]
+    assert event.outcome == "adjusted" and event.adjustment == str(expected.adjustment)
+    assert event.note == "Promo in week 49 not in the model\nsecond line [/] =1+2"
+    assert [line.adjusted for line in event.lines] == pytest.approx(list(expected.adjusted[:4]))
+    assert event.reviewer == "ana"
+
+
+async def test_bad_adjustment_is_refused_in_the_dialog(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        await pilot.press("a")
+        await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the decision dialog")
+        await pilot.press(*"+ten")
+        await pilot.press("ctrl+s")
+        await pilot.pause(0.1)
+        assert isinstance(app.screen, DecisionScreen)  # still open: nothing saved
+        assert "expected" in str(app.screen.query_one("#decision-preview").render())
+        await pilot.press("escape")
+        await pilot.pause(0.1)
+        assert not isinstance(app.screen, DecisionScreen)
+    assert ledger_rows(portfolio.with_name("week.ledger.sqlite")) == []
+
+
+async def test_undo_and_next_unreviewed(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        session = app.session
+        series_list = app.query_one(SeriesList)
+        first = series_list.current
+        await pilot.press("c")
+        await wait_for(pilot, lambda: session.outcome[first] != "", "first decision")
+        await pilot.press("n")  # next unreviewed: the second-worst series
+        assert series_list.cursor == 1
+        await pilot.press("k")
+        await pilot.press("u")
+        await wait_for(pilot, lambda: session.outcome[first] == "", "the undo")
+        assert session.progress().reviewed == 0
+    kinds = [row[0] for row in ledger_rows(portfolio.with_name("week.ledger.sqlite"))]
+    assert kinds == ["decision", "undo"]  # append-only: the decision is still in the journal
+
+
+async def test_filter_by_text_and_clear(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        series_list = app.query_one(SeriesList)
+        await pilot.press("slash")
+        await wait_for(pilot, lambda: isinstance(app.screen, PromptScreen), "the filter prompt")
+        await pilot.press(*"lena", "enter")
+        await pilot.pause(0.1)
+        session = app.session
+        planners = session.portfolio.keys["planner"].to_numpy()[series_list.order]
+        assert len(series_list.order) > 0 and set(planners) == {"Lena"}
+        # Still in error order within the filter.
+        ranks = session.card["rank"].to_numpy()[series_list.order]
+        assert (np.diff(ranks) > 0).all()
+        await pilot.press("escape")
+        await pilot.pause(0.1)
+        assert len(series_list.order) == session.portfolio.n_series
+
+
+async def test_switch_to_bias_order(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        await pilot.press("b")
+        series_list = app.query_one(SeriesList)
+        np.testing.assert_array_equal(series_list.order, app.session.bias_order)
+        assert app.session.flag[series_list.order[0]] != 0  # persistent bias first
+
+
+async def test_reopen_resumes_where_the_reviewer_stopped(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        series = app.query_one(SeriesList).current
+        await pilot.press("l")  # put off to a later cycle
+        await wait_for(pilot, lambda: app.session.outcome[series] == "deferred", "deferral")
+    again = make_app(portfolio)
+    async with again.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(again, pilot)
+        assert again.session.outcome[series] == "deferred"
+        assert again.session.progress().reviewed == 1
+
+
+async def test_help_lists_every_binding(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_loaded(app, pilot)
+        await pilot.press("question_mark")
+        await wait_for(pilot, lambda: isinstance(app.screen, HelpScreen), "help")
+        keys = {row[0] for row in app.help_rows()}
+        for binding in app.BINDINGS:
+            assert binding.key in keys
+        await pilot.press("escape")
+
+
+async def test_small_terminal_80x24_shows_list_and_detail(portfolio: Path) -> None:
+    app = make_app(portfolio)
+    async with app.run_test(size=(80, 24)) as pilot:
+        await wait_loaded(app, pilot)
+        assert app.has_class("-narrow")
+        series_list = app.query_one(SeriesList)
+        assert series_list.size.height >= 5
+        assert app.query_one("#detail").size.height >= 5
+        await pilot.press("j")
+        assert series_list.cursor == 1
+
+
+async def test_load_error_is_shown_not_swallowed(tmp_path: Path) -> None:
+    bad = tmp_path / "bad.csv"
+    bad.write_text("item,period,demand\nA,2026-01-05,3\n", encoding="utf-8")
+    app = make_app(bad)
+    async with app.run_test(size=(100, 30)) as pilot:
+        await wait_for(pilot, lambda: "error" in app.status_text, "the load error")
+        assert "forecast" in app.status_text  # names the missing column
+        assert app.session is None

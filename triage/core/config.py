@@ -1,0 +1,214 @@
+"""The optional user configuration file and the vocabulary of root causes.
+
+The file is TOML, read from ``--config PATH`` or from ``config.toml`` in the user config folder
+(``platformdirs.user_config_dir("triage")``). Every key is optional::
+
+    reviewer = "Ana Ruiz"          # name stored with each decision (default: the login name)
+    target_share = 0.8             # share of total error the worst-offender list should cover
+
+    [root_causes]                  # replaces the whole default list, in this order
+    promo = "Promotion or event"
+    big_order = "One-off large order"
+
+Root causes are offered in list order; the first ten get the digit shortcuts 1-9 and 0.
+"""
+
+from __future__ import annotations
+
+import getpass
+import math
+import re
+import tomllib
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from triage.core.errors import TriageError
+
+CONFIG_NAME = "config.toml"
+
+#: Digits offered as shortcuts, in list order ("0" is the tenth entry, as on a keyboard row).
+SHORTCUT_DIGITS = "1234567890"
+
+_CODE = re.compile(r"[a-z][a-z0-9_]{0,31}")
+_LABEL_MAX = 60
+
+
+class ConfigError(TriageError):
+    """The configuration file cannot be used as written.
+
+    Attributes:
+        path: The configuration file.
+        key: The offending key (dotted for a table entry), or None for a file-level problem.
+    """
+
+    def __init__(self, path: Path, key: str | None, message: str, *, hint: str | None = None):
+        self.path = path
+        self.key = key
+        where = f"{path}: key '{key}'" if key else str(path)
+        super().__init__(f"{where}: {message}", hint=hint)
+
+
+@dataclass(frozen=True)
+class Choice:
+    """One entry of a fixed vocabulary (an outcome or a root cause)."""
+
+    code: str
+    """Stable identifier stored in the ledger (lower case, ``[a-z][a-z0-9_]*``)."""
+    label: str
+    """Words shown to the reviewer."""
+    key: str = ""
+    """Digit shortcut (``"1"``..``"9"``, ``"0"``), or empty when the list has more than ten."""
+
+
+def numbered(pairs: tuple[tuple[str, str], ...] | list[tuple[str, str]]) -> tuple[Choice, ...]:
+    """Build choices from ``(code, label)`` pairs, giving the first ten their digit shortcuts."""
+    return tuple(
+        Choice(code, label, SHORTCUT_DIGITS[i] if i < len(SHORTCUT_DIGITS) else "")
+        for i, (code, label) in enumerate(pairs)
+    )
+
+
+#: Root causes a planner recognises, most frequent first so the common ones sit on 1-4.
+DEFAULT_ROOT_CAUSES: tuple[Choice, ...] = numbered(
+    (
+        ("promotion", "Promotion or event"),
+        ("large_order", "One-off large order"),
+        ("stock_out", "Stock-out hid demand"),
+        ("new_item", "New item ramp-up"),
+        ("phase_out", "Phase-out"),
+        ("price_change", "Price change"),
+        ("season_trend", "Seasonality or trend shift"),
+        ("data_error", "Data error (returns, master data)"),
+        ("model_miss", "Model miss"),
+        ("unknown", "Unknown"),
+    )
+)
+
+DEFAULT_TARGET_SHARE = 0.8
+
+
+@dataclass(frozen=True)
+class Config:
+    """Settings after the file (if any) is applied over the defaults."""
+
+    reviewer: str | None = None
+    """Name recorded with each decision; None means the login name."""
+    root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
+    """Root causes offered, in shortcut order."""
+    target_share: float = DEFAULT_TARGET_SHARE
+    """Share of total error (0-1] the worst-offender list should cover."""
+    path: Path | None = None
+    """The file the settings came from, or None when none was read."""
+
+
+def default_config_path() -> Path:
+    """``config.toml`` in the user config folder (created by nobody; the user writes it)."""
+    from platformdirs import user_config_dir
+
+    return Path(user_config_dir("triage")) / CONFIG_NAME
+
+
+def load_config(path: str | Path | None = None) -> Config:
+    """Read the configuration.
+
+    Args:
+        path: A file named with ``--config``; it must exist. None reads the user config file when
+            there is one and otherwise returns the defaults.
+
+    Raises:
+        ConfigError: The file is missing (when named), unreadable, not TOML, or has an unknown
+            key or a value of the wrong kind; the message names the file and the key.
+    """
+    if path is None:
+        file = default_config_path()
+        if not file.is_file():
+            return Config()
+    else:
+        file = Path(path)
+        if not file.is_file():
+            raise ConfigError(
+                file, None, "no such configuration file", hint="Check the --config path."
+            )
+    try:
+        data = tomllib.loads(file.read_text(encoding="utf-8"))
+    except UnicodeDecodeError as exc:
+        raise ConfigError(file, None, f"is not UTF-8 text ({exc.reason})") from exc
+    except OSError as exc:
+        raise ConfigError(file, None, f"cannot be read ({exc.strerror})") from exc
+    except tomllib.TOMLDecodeError as exc:
+        raise ConfigError(
+            file, None, f"is not valid TOML: {exc}", hint="Fix the line named above."
+        ) from exc
+    return _parse(file, data)
+
+
+def _parse(file: Path, data: dict[str, Any]) -> Config:
+    known = {"reviewer", "root_causes", "target_share"}
+    for key in data:
+        if key not in known:
+            raise ConfigError(
+                file, key, "is not a known setting", hint=f"Use one of: {', '.join(sorted(known))}."
+            )
+    reviewer = data.get("reviewer")
+    if reviewer is not None and (not isinstance(reviewer, str) or not reviewer.strip()):
+        raise ConfigError(file, "reviewer", 'must be a non-empty text, e.g. reviewer = "Ana"')
+    share = data.get("target_share", DEFAULT_TARGET_SHARE)
+    if isinstance(share, bool) or not isinstance(share, int | float):
+        raise ConfigError(file, "target_share", f"must be a number, not {share!r}")
+    share = float(share)
+    if not (math.isfinite(share) and 0.0 < share <= 1.0):
+        raise ConfigError(
+            file, "target_share", f"must be above 0 and at most 1 (a share), not {share!r}"
+        )
+    causes = DEFAULT_ROOT_CAUSES
+    if "root_causes" in data:
+        causes = _parse_causes(file, data["root_causes"])
+    return Config(
+        reviewer=reviewer.strip() if reviewer else None,
+        root_causes=causes,
+        target_share=share,
+        path=file,
+    )
+
+
+def _parse_causes(file: Path, table: Any) -> tuple[Choice, ...]:
+    if not isinstance(table, dict):
+        raise ConfigError(
+            file,
+            "root_causes",
+            'must be a table of code = "label" lines under [root_causes]',
+        )
+    if not table:
+        raise ConfigError(file, "root_causes", "is empty; give at least one root cause")
+    pairs: list[tuple[str, str]] = []
+    for code, label in table.items():
+        if not _CODE.fullmatch(code):
+            raise ConfigError(
+                file,
+                f"root_causes.{code}",
+                "is not a usable code",
+                hint="Codes are lower case letters, digits and _, starting with a letter "
+                "(at most 32 characters).",
+            )
+        if not isinstance(label, str) or not label.strip():
+            raise ConfigError(file, f"root_causes.{code}", "needs a non-empty text label")
+        if len(label) > _LABEL_MAX or any(ch < " " for ch in label):
+            raise ConfigError(
+                file,
+                f"root_causes.{code}",
+                f"label must be one line of at most {_LABEL_MAX} characters",
+            )
+        pairs.append((code, label.strip()))
+    return numbered(pairs)
+
+
+def default_reviewer(config: Config | None = None) -> str:
+    """The reviewer name: the configured one, else the login name, else ``"unknown"``."""
+    if config is not None and config.reviewer:
+        return config.reviewer
+    try:
+        return getpass.getuser()
+    except (OSError, KeyError):
+        # No LOGNAME/USER and no passwd entry (some containers): a decision still needs a name.
+        return "unknown"

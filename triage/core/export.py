@@ -1,0 +1,977 @@
+"""Exports of a review cycle for upload: the decisions and the adjusted forward forecast.
+
+``export_review`` writes two tables, in the format named by the target's suffix:
+
+* **decisions**: one row per reviewed series (its effective decision in the cycle);
+* **forecast**: one row per series and forward period, for *every* series of the portfolio, so the
+  file is a complete forward forecast: the ledger's adjusted value where the series' decision
+  adjusted that period, the portfolio's forecast everywhere else.
+
+Every format carries the same caution (``CAUTION``) and the provenance: portfolio file name and
+fingerprint, cycle, ledger, when and by whom it was exported. docs/export.md describes the files.
+
+Safety rules (reliability.md §2, OWASP "CSV Injection",
+https://owasp.org/www-community/attacks/CSV_Injection):
+
+* Free-text cells (notes, codes, labels, reviewer, adjustment, portfolio name) that begin with a
+  formula trigger get a leading apostrophe in CSV and xlsx. Series keys are never changed: they
+  must join back in the planning system byte for byte. Numbers stay numbers.
+* CSV is written with ``csv.QUOTE_NONNUMERIC`` and notes have CR / CRLF turned into LF: CPython
+  before 3.11.9 writes a field holding a bare CR unquoted, which splits the row on reading
+  (reliability.md §2.3, measured on 3.11.7).
+* xlsx text is always a string cell, never a formula, error value or hyperlink; control
+  characters xlsx cannot store are replaced by visible symbols; the row and cell-length limits of
+  a sheet are checked here, never left to the library (reliability.md §2.4).
+* Files are written through a temporary file and renamed into place; an existing file is kept
+  unless ``force``; a failed export leaves no temporary file and no half of a file set.
+"""
+
+from __future__ import annotations
+
+import contextlib
+import csv
+import json
+import os
+import re
+import secrets
+import shutil
+from collections.abc import Callable, Iterable, Sequence
+from dataclasses import dataclass
+from datetime import UTC, datetime
+from pathlib import Path
+from typing import IO, Any
+
+import numpy as np
+import pandas as pd
+
+from triage import __version__
+from triage.core import schema
+from triage.core.config import Choice, default_reviewer
+from triage.core.errors import TriageError
+from triage.core.files import write_atomic
+from triage.core.ledger import OUTCOMES, Decision, Ledger, describe_series
+from triage.core.portfolio import Portfolio
+
+#: Shown in every export, in every format, and by the command line after writing one.
+CAUTION = (
+    "These decisions are advisory: they record a reviewer's judgement in triage, not an approved "
+    "plan. Check each one in the planning system before it is allowed to move stock or money."
+)
+
+#: First characters that make a spreadsheet read a cell as a formula. OWASP "CSV Injection"
+#: lists = + - @ Tab and CR, and Line Feed since August 2025 (OWASP/www-community PR #1116);
+#: OWASP ASVS 5.0 V1.2.10 adds NUL (reliability.md §2.1).
+FORMULA_TRIGGERS = "=+-@\t\r\n\0"
+_TRIGGER_START = re.compile(r"[=+\-@\t\r\n\x00]")
+
+#: Rows in an Excel sheet, header included (Excel specifications and limits; reliability.md
+#: §2.4: pandas + xlsxwriter silently dropped the last row at exactly this size, measured).
+XLSX_MAX_ROWS = 1_048_576
+#: Characters in one Excel cell (UTF-16 code units). openpyxl cuts longer text silently.
+XLSX_MAX_CELL = 32_767
+
+#: Strings openpyxl would store as error values rather than text (``openpyxl.cell.cell``).
+_XLSX_ERROR_CODES = frozenset(("#NULL!", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#N/A"))
+#: Characters an xlsx file cannot hold: openpyxl's ``ILLEGAL_CHARACTERS_RE`` (C0 controls but
+#: tab, LF and CR), plus U+FFFE and U+FFFF, which XML 1.0 does not allow either.
+_XLSX_ILLEGAL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ufffe\uffff]")
+
+SUFFIXES = (".csv", ".xlsx", ".json")
+
+ITEM = schema.ITEM
+LOCATION = schema.LOCATION
+
+#: Columns of the decisions table (``location`` only when the portfolio has locations).
+DECISION_COLUMNS: tuple[str, ...] = (
+    ITEM,
+    LOCATION,
+    "cycle",
+    "outcome",
+    "outcome_label",
+    "root_cause",
+    "root_cause_label",
+    "note",
+    "reviewer",
+    "recorded_at",
+    "adjustment",
+    "units_change",
+    "value_change",
+    "portfolio_name",
+    "portfolio_fingerprint",
+)
+#: Columns of the forecast table (``location`` only when the portfolio has locations).
+FORECAST_COLUMNS: tuple[str, ...] = (
+    ITEM,
+    LOCATION,
+    "period",
+    "forecast",
+    "adjusted_forecast",
+    "adjusted",
+    "outcome",
+)
+_KEYS = frozenset((ITEM, LOCATION))
+_NUMBERS = frozenset(("units_change", "value_change", "forecast", "adjusted_forecast"))
+_FLAGS = frozenset(("adjusted",))
+#: Text written by triage in a fixed format (ISO dates): never starts with a trigger.
+_FIXED = frozenset(("cycle", "period"))
+
+_EXAMPLES = 5
+_JSON_CHUNK = 20_000
+# DEL and C1 (0x80-0x9F, e.g. 0x9B = CSI) pass through json.dumps(ensure_ascii=False) raw and can
+# drive a terminal that shows the file; escaping them keeps the JSON identical in meaning.
+_JSON_ESCAPES = {code: f"\\u{code:04x}" for code in (0x7F, *range(0x80, 0xA0))}
+
+
+class ExportError(TriageError):
+    """An export cannot be written as asked; nothing was written or changed."""
+
+
+@dataclass(frozen=True)
+class ReviewTables:
+    """What an export holds before any file format is applied."""
+
+    decisions: pd.DataFrame
+    """One row per reviewed series, ``DECISION_COLUMNS``; text exactly as in the ledger."""
+    forecast: pd.DataFrame
+    """One row per series and forward period, ``FORECAST_COLUMNS``; NaN where no forecast."""
+    provenance: dict[str, str]
+    """Where the export comes from: portfolio, fingerprint, cycle, ledger, when, who, version."""
+    warnings: tuple[str, ...]
+    """Things the user must know about the content (skipped decisions, stale lines...)."""
+    adjusted_periods: int
+    """Forecast rows whose value comes from a ledger adjustment."""
+
+
+@dataclass(frozen=True)
+class ExportResult:
+    """What ``export_review`` wrote."""
+
+    paths: tuple[Path, ...]
+    """Files written, in the order they were written."""
+    format: str
+    """``"csv"``, ``"xlsx"`` or ``"json"``."""
+    cycle: str
+    """The review cycle exported."""
+    decisions: int
+    """Rows of the decisions table (reviewed series)."""
+    forecast_rows: int
+    """Rows of the forecast table (series x forward periods)."""
+    adjusted_periods: int
+    """Forecast rows whose value comes from an adjustment."""
+    warnings: tuple[str, ...]
+    """Everything the user should know: content and format warnings."""
+    caution: str = CAUTION
+    """The caution every export carries."""
+
+
+# --------------------------------------------------------------------------------------------
+# Text rules
+
+
+def neutralise(values: pd.Series | Sequence[str]) -> pd.Series:
+    """Free text made safe to open in a spreadsheet, as object Series of str.
+
+    CR LF and bare CR become LF (one line-break convention, and no bare CR for the CSV writer
+    of CPython < 3.11.9 to leave unquoted, reliability.md §2.3). Text starting with a formula
+    trigger (``FORMULA_TRIGGERS``) gets a leading apostrophe, the neutralisation OWASP "CSV
+    Injection" gives and Symfony uses since CVE-2021-41270; a tab or space prefix would not do.
+    Quotes and separators inside the text are left to the CSV writer's quoting.
+    """
+    series = pd.Series(values, dtype=object)
+    if series.empty:
+        return series
+    # Work on the distinct values: long columns (the forecast table's outcome) repeat a few.
+    codes, uniques = pd.factorize(series, use_na_sentinel=False)
+    text = pd.Series(uniques, dtype=object).map(str)
+    text = text.str.replace("\r\n", "\n", regex=False).str.replace("\r", "\n", regex=False)
+    lead = text.str.match(_TRIGGER_START).to_numpy(dtype=bool)
+    if lead.any():
+        text = text.where(~lead, "'" + text)
+    return pd.Series(text.to_numpy(dtype=object)[codes], index=series.index, dtype=object)
+
+
+def neutralise_one(value: str) -> str:
+    """``neutralise`` for a single text."""
+    return str(neutralise([value]).iat[0])
+
+
+def printable(text: str, *, one_line: bool = True) -> str:
+    """Text safe to print on a terminal: control characters shown as visible symbols.
+
+    Rich strips only BEL, BS, VT, FF and CR, so ESC, NUL, DEL and C1 reach the terminal raw and
+    can set titles or hyperlinks (reliability.md §3.2). C0 controls become the Unicode control
+    pictures U+2400-U+241F (as the file loader does), DEL ``␡``, C1 ``�``. With ``one_line``,
+    tab and line feed are replaced too (``␉``, ``␊``); otherwise they are kept.
+    """
+    out = []
+    for ch in text:
+        code = ord(ch)
+        if code < 0x20:
+            if not one_line and ch in "\t\n":
+                out.append(ch)
+            else:
+                out.append(chr(0x2400 + code))
+        elif code == 0x7F:
+            out.append("\u2421")
+        elif 0x80 <= code < 0xA0:
+            out.append("\ufffd")
+        else:
+            out.append(ch)
+    return "".join(out)
+
+
+def _utf16_len(text: str) -> int:
+    return len(text.encode("utf-16-le")) // 2
+
+
+def _cut(text: str, limit: int) -> str:
+    """``text`` cut to ``limit`` UTF-16 units, ending with a marker that says how much is gone."""
+    marker = f" [… cut: {len(text):,} characters in all; CSV and JSON keep the full text]"
+    room = limit - _utf16_len(marker)
+    if room <= 0:
+        return marker[:limit]
+    head = text[:room]
+    # Characters outside the BMP take two UTF-16 units: trim until the head fits.
+    while (excess := _utf16_len(head) - room) > 0:
+        head = head[: len(head) - max(1, excess // 2)]
+    return head + marker
+
+
+# --------------------------------------------------------------------------------------------
+# Building the tables
+
+
+def _check_cycle(cycle: str) -> str:
+    if not isinstance(cycle, str) or not re.fullmatch(r"\d{4}-\d{2}-\d{2}", cycle):
+        raise ExportError(
+            f"the cycle {cycle!r} is not an ISO date.",
+            hint="Give the cycle as YYYY-MM-DD, the date of the latest actual period.",
+        )
+    return cycle
+
+
+def _examples(names: Sequence[str], total: int) -> str:
+    shown = ", ".join(names[:_EXAMPLES])
+    return f"{shown} and {total - _EXAMPLES} more" if total > _EXAMPLES else shown
+
+
+def _labels(choices: Iterable[Choice]) -> dict[str, str]:
+    return {c.code: c.label for c in choices}
+
+
+def _floats(values: Iterable[float | None]) -> np.ndarray:
+    return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
+
+
+def review_tables(
+    portfolio: Portfolio,
+    ledger: Ledger,
+    *,
+    cycle: str | None = None,
+    exported_by: str | None = None,
+    exported_at: datetime | None = None,
+) -> ReviewTables:
+    """The decisions and forecast tables of a cycle, before any file format is applied.
+
+    Args:
+        portfolio: The portfolio whose forward forecast is exported.
+        ledger: The decision ledger (read-only is enough).
+        cycle: Review cycle; default the portfolio's cycle.
+        exported_by: Name recorded as the exporter; default the configured reviewer or login.
+        exported_at: Export time (UTC); default now.
+
+    Raises:
+        ExportError: ``cycle`` is not an ISO date.
+    """
+    cycle = _check_cycle(portfolio.cycle if cycle is None else cycle)
+    warnings: list[str] = []
+    has_location = LOCATION in portfolio.key_columns
+    keys = portfolio.keys
+    n_series = portfolio.n_series
+    first_fwd = portfolio.last_actual + 1
+    all_dates = pd.Index(portfolio.calendar.periods.strftime("%Y-%m-%d"))
+    fwd_dates = all_dates[first_fwd:]
+    n_fwd = len(fwd_dates)
+
+    if cycle != portfolio.cycle:
+        warnings.append(
+            f"Cycle {cycle} is not the cycle of {portfolio.path.name} ({portfolio.cycle}): the "
+            "forecast table is this portfolio's forward forecast, and only adjusted periods that "
+            "fall in it are applied."
+        )
+    if n_fwd == 0:
+        warnings.append(
+            f"{portfolio.path.name} has no forward periods after {portfolio.cycle}, so the "
+            "forecast table is empty."
+        )
+
+    # ---- decisions matched to the portfolio's series (vectorised lookup over the decisions)
+    decided = ledger.current(cycle)
+    items = keys[ITEM].to_numpy(dtype=object)
+    locations = keys[LOCATION].to_numpy(dtype=object) if has_location else None
+    decided_items = [d.item for d in decided]
+    decided_locations = [d.location for d in decided]
+    if not decided:
+        series = np.empty(0, dtype=np.int64)
+    elif has_location:
+        index = pd.MultiIndex.from_arrays([items, locations])
+        probe = pd.MultiIndex.from_arrays([decided_items, decided_locations])
+        series = np.asarray(index.get_indexer(probe), dtype=np.int64)
+    else:
+        series = np.asarray(pd.Index(items).get_indexer(decided_items), dtype=np.int64)
+        # Without a location column a series is found only by a decision without location.
+        series[np.array(decided_locations, dtype=object) != ""] = -1
+    unmatched = [d for d, s in zip(decided, series, strict=True) if s < 0]
+    if unmatched:
+        warnings.append(
+            f"{len(unmatched)} decision(s) of cycle {cycle} are for series that are not in "
+            f"{portfolio.path.name} and were left out: "
+            + _examples([describe_series(d.item, d.location) for d in unmatched], len(unmatched))
+            + "."
+        )
+    order = np.argsort(np.where(series < 0, n_series, series), kind="stable")
+    order = order[series[order] >= 0]
+    kept: list[Decision] = [decided[i] for i in order]
+    kept_series = series[order]
+    n_dec = len(kept)
+    if not decided:
+        cycles = ledger.cycles()
+        known = f"; the ledger has decisions for {', '.join(cycles[-5:])}" if cycles else ""
+        warnings.append(f"The ledger {ledger.path.name} has no decisions in cycle {cycle}{known}.")
+
+    stale = [d for d in kept if d.portfolio_fingerprint != portfolio.fingerprint]
+    if stale:
+        warnings.append(
+            f"{len(stale)} decision(s) were made on another version of the portfolio (its "
+            "fingerprint differs): "
+            + _examples([describe_series(d.item, d.location) for d in stale], len(stale))
+            + "."
+        )
+
+    # ---- adjustment lines, flattened so the rest is array work
+    line_dec = np.array([k for k, d in enumerate(kept) for _ in d.lines], dtype=np.int64)
+    line_period = pd.Index([ln.period for d in kept for ln in d.lines], dtype=object)
+    line_orig = _floats(ln.original for d in kept for ln in d.lines)
+    line_adj = _floats(ln.adjusted for d in kept for ln in d.lines)
+    line_series = kept_series[line_dec] if len(line_dec) else np.empty(0, dtype=np.int64)
+    # Missing counted as 0, as triage.core.adjust counts Σ adjusted − Σ original.
+    delta = np.nan_to_num(line_adj) - np.nan_to_num(line_orig)
+    units_change = np.bincount(line_dec, weights=delta, minlength=n_dec).astype(np.float64)
+
+    cal_col = all_dates.get_indexer(line_period) if len(line_dec) else np.empty(0, np.int64)
+    if portfolio.price is not None:
+        price = np.full(len(line_dec), np.nan)
+        inside = cal_col >= 0
+        price[inside] = portfolio.price[line_series[inside], cal_col[inside]]
+        value_change = np.bincount(line_dec, weights=delta * price, minlength=n_dec)
+        value_change = value_change.astype(np.float64)
+        if not inside.all():
+            warnings.append(
+                f"{int((~inside).sum())} adjusted period(s) are outside the calendar of "
+                f"{portfolio.path.name}, so the value change of their decisions is left empty."
+            )
+    else:
+        value_change = np.full(n_dec, np.nan)
+
+    fwd_col = fwd_dates.get_indexer(line_period) if len(line_dec) else np.empty(0, np.int64)
+    applies = fwd_col >= 0
+    if not applies.all():
+        outside = sorted({d_i for d_i in line_dec[~applies].tolist()})
+        names = [describe_series(kept[i].item, kept[i].location) for i in outside]
+        warnings.append(
+            f"{int((~applies).sum())} adjusted period(s) of {len(outside)} decision(s) are not "
+            f"forward periods of {portfolio.path.name} and are not in the forecast table: "
+            + _examples(names, len(names))
+            + "."
+        )
+
+    # ---- forecast table: the whole forward matrix, then the adjusted cells overwritten
+    forward = portfolio.forecast[:, first_fwd:]
+    adjusted_fc = forward.copy()
+    flag = np.zeros(forward.shape, dtype=bool)
+    rows, cols = line_series[applies], fwd_col[applies]
+    adjusted_fc[rows, cols] = line_adj[applies]
+    flag[rows, cols] = True
+    now = forward[rows, cols]
+    differs = ~(np.isnan(now) & np.isnan(line_orig[applies])) & (now != line_orig[applies])
+    if differs.any():
+        warnings.append(
+            f"{int(differs.sum())} adjusted period(s) started from a forecast that differs from "
+            f"the one in {portfolio.path.name}; the adjusted value decided in the ledger is "
+            "exported."
+        )
+
+    outcome_of = np.full(n_series, "", dtype=object)
+    if n_dec:
+        outcome_of[kept_series] = np.array([d.outcome for d in kept], dtype=object)
+
+    forecast_cols: dict[str, Any] = {ITEM: np.repeat(items, n_fwd)}
+    if has_location:
+        forecast_cols[LOCATION] = np.repeat(locations, n_fwd)
+    forecast_cols["period"] = np.tile(fwd_dates.to_numpy(dtype=object), n_series)
+    forecast_cols["forecast"] = forward.ravel()
+    forecast_cols["adjusted_forecast"] = adjusted_fc.ravel()
+    forecast_cols["adjusted"] = flag.ravel()
+    forecast_cols["outcome"] = np.repeat(outcome_of, n_fwd)
+    forecast = pd.DataFrame({k: pd.Series(v, dtype=v.dtype) for k, v in forecast_cols.items()})
+
+    # ---- decisions table
+    outcome_labels = _labels(OUTCOMES)
+    cause_labels = _labels(ledger.root_causes)
+    unknown_causes = sorted({d.root_cause for d in kept} - set(cause_labels))
+    if unknown_causes:
+        warnings.append(
+            "Root cause code(s) not in the current list, exported without a label: "
+            + ", ".join(repr(c) for c in unknown_causes)
+            + "."
+        )
+    decision_cols: dict[str, Any] = {ITEM: [d.item for d in kept]}
+    if has_location:
+        decision_cols[LOCATION] = [d.location for d in kept]
+    decision_cols.update(
+        {
+            "cycle": [d.cycle for d in kept],
+            "outcome": [d.outcome for d in kept],
+            "outcome_label": [outcome_labels.get(d.outcome, "") for d in kept],
+            "root_cause": [d.root_cause for d in kept],
+            "root_cause_label": [cause_labels.get(d.root_cause, "") for d in kept],
+            "note": [d.note for d in kept],
+            "reviewer": [d.reviewer for d in kept],
+            "recorded_at": [d.recorded_at for d in kept],
+            "adjustment": [d.adjustment or "" for d in kept],
+            "units_change": units_change,
+            "value_change": value_change,
+            "portfolio_name": [d.portfolio_name for d in kept],
+            "portfolio_fingerprint": [d.portfolio_fingerprint for d in kept],
+        }
+    )
+    decisions = pd.DataFrame(
+        {
+            k: pd.Series(v, dtype=np.float64 if k in _NUMBERS else object)
+            for k, v in decision_cols.items()
+        }
+    )
+
+    stamp = (exported_at or datetime.now(UTC)).astimezone(UTC)
+    provenance = {
+        "portfolio": portfolio.path.name,
+        "portfolio_fingerprint": portfolio.fingerprint,
+        "cycle": cycle,
+        "ledger": ledger.path.name,
+        "exported_at": stamp.isoformat(timespec="seconds").replace("+00:00", "Z"),
+        "exported_by": exported_by or default_reviewer(),
+        "triage_version": __version__,
+    }
+    return ReviewTables(
+        decisions=decisions,
+        forecast=forecast,
+        provenance=provenance,
+        warnings=tuple(warnings),
+        adjusted_periods=int(flag.sum()),
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# Exporting
+
+
+def export_paths(target: str | Path) -> tuple[str, tuple[Path, ...]]:
+    """The format of a target and the files it stands for.
+
+    ``x.xlsx`` and ``x.json`` are one file each. ``x.csv`` stands for three files beside it:
+    ``x-decisions.csv``, ``x-forecast.csv`` and ``x-README.txt`` (``x.csv`` itself is not
+    written).
+
+    Raises:
+        ExportError: The suffix is not one of ``SUFFIXES``.
+    """
+    path = Path(target)
+    suffix = path.suffix.lower()
+    if suffix not in SUFFIXES:
+        raise ExportError(
+            f"cannot export to {path}: unknown file type {suffix or '(no suffix)'!r}.",
+            hint="End the file name with .csv, .xlsx or .json.",
+        )
+    fmt = suffix[1:]
+    if fmt != "csv":
+        return fmt, (path,)
+    stem = path.with_suffix("")
+    return fmt, tuple(
+        stem.with_name(stem.name + tail)
+        for tail in ("-decisions.csv", "-forecast.csv", "-README.txt")
+    )
+
+
+def export_review(
+    portfolio: Portfolio,
+    ledger: Ledger,
+    target: str | Path,
+    *,
+    cycle: str | None = None,
+    force: bool = False,
+    exported_by: str | None = None,
+) -> ExportResult:
+    """Write the decisions and the adjusted forward forecast of a cycle for upload.
+
+    Args:
+        portfolio: The portfolio whose forward forecast is exported.
+        ledger: The decision ledger.
+        target: ``.csv`` (three files, see ``export_paths``), ``.xlsx`` or ``.json``.
+        cycle: Review cycle; default the portfolio's cycle.
+        force: Replace files that exist; otherwise an existing file stops the export.
+        exported_by: Name recorded as the exporter; default the configured reviewer or login.
+
+    Raises:
+        ExportError: Unknown suffix, a file exists (without ``force``), the tables do not fit
+            in an xlsx sheet, or the files cannot be written; nothing was left half-written.
+    """
+    fmt, paths = export_paths(target)
+    for path in paths:
+        if path.is_dir():
+            raise ExportError(f"{path} is a folder; give the name of a file to write.")
+    if not force:
+        existing = [p for p in paths if p.exists()]
+        if existing:
+            names = ", ".join(str(p) for p in existing)
+            raise ExportError(
+                f"{names} already exist{'s' if len(existing) == 1 else ''}; nothing was written "
+                "and the existing file(s) were left unchanged.",
+                hint="Choose another file name, or pass --force to replace them.",
+            )
+    tables = review_tables(portfolio, ledger, cycle=cycle, exported_by=exported_by)
+    warnings = list(tables.warnings)
+    if fmt == "xlsx":
+        _check_sheet_rows(tables, paths[0])
+        book_warnings: list[str] = []
+
+        def write_book(tmp: Path) -> None:
+            book_warnings.clear()  # one attempt's findings only
+            _write_xlsx(tmp, tables, book_warnings)
+
+        _write_one(paths[0], write_book, force)
+        warnings.extend(book_warnings)
+    elif fmt == "json":
+        _write_one(paths[0], lambda tmp: _write_json(tmp, tables), force)
+    else:
+        warnings.extend(_csv_key_warnings(tables))
+        readme = _readme_text(tables, paths, warnings)
+        _write_set(
+            [
+                (paths[0], lambda tmp: _write_csv(tmp, tables.decisions)),
+                (paths[1], lambda tmp: _write_csv(tmp, tables.forecast)),
+                (paths[2], lambda tmp: _write_text(tmp, readme)),
+            ],
+            force=force,
+        )
+    return ExportResult(
+        paths=paths,
+        format=fmt,
+        cycle=tables.provenance["cycle"],
+        decisions=len(tables.decisions),
+        forecast_rows=len(tables.forecast),
+        adjusted_periods=tables.adjusted_periods,
+        warnings=tuple(warnings),
+    )
+
+
+def _write_one(path: Path, write: Callable[[Path], None], force: bool) -> None:
+    try:
+        write_atomic(path, write, force=force)
+    except TriageError:
+        raise
+    except (ValueError, TypeError) as exc:
+        raise ExportError(f"could not write {path}: {exc}; nothing was changed.") from exc
+
+
+def _write_set(files: list[tuple[Path, Callable[[Path], None]]], *, force: bool) -> None:
+    """Write several files all or nothing: on any failure every target is as it was before.
+
+    Each file goes through ``write_atomic``. A file about to be replaced is first hard-linked
+    (or copied) to a hidden name beside it, so a later failure can put it back.
+    """
+    backups: dict[Path, Path] = {}
+    done: list[Path] = []
+    try:
+        for path, _ in files:
+            if path.exists() and force:
+                backups[path] = _backup(path)
+        for path, write in files:
+            _write_one(path, write, force)
+            done.append(path)
+    except BaseException:
+        for path in reversed(done):
+            with contextlib.suppress(OSError):
+                if path in backups:
+                    os.replace(backups.pop(path), path)
+                else:
+                    path.unlink()
+        raise
+    finally:
+        for spare in backups.values():
+            with contextlib.suppress(OSError):
+                spare.unlink()
+
+
+def _backup(path: Path) -> Path:
+    for _ in range(100):
+        spare = path.with_name(f".{path.name}.{secrets.token_hex(4)}.bak")
+        try:
+            os.link(path, spare)
+            return spare
+        except FileExistsError:
+            continue
+        except OSError:
+            # No hard links on this file system: copy instead.
+            try:
+                with spare.open("xb") as out, path.open("rb") as src:
+                    shutil.copyfileobj(src, out)
+                return spare
+            except FileExistsError:
+                continue
+            except OSError as exc:
+                with contextlib.suppress(OSError):
+                    spare.unlink()
+                raise ExportError(
+                    f"cannot keep a copy of {path} while replacing it: {exc.strerror or exc}; "
+                    "nothing was changed.",
+                    hint="Check the free space and permissions of the folder.",
+                ) from exc
+    raise ExportError(f"cannot find a free backup name beside {path}; nothing was changed.")
+
+
+# ---- CSV ------------------------------------------------------------------------------------
+
+
+def _number_cells(values: pd.Series) -> list[float | None]:
+    array = values.to_numpy(dtype=np.float64)
+    cells = array.astype(object)
+    cells[np.isnan(array)] = None
+    return cells.tolist()
+
+
+def _csv_columns(frame: pd.DataFrame) -> list[list[Any]]:
+    columns: list[list[Any]] = []
+    for name in frame.columns:
+        values = frame[name]
+        if name in _NUMBERS:
+            columns.append(_number_cells(values))
+        elif name in _FLAGS:
+            columns.append(np.where(values.to_numpy(dtype=bool), "true", "false").tolist())
+        elif name in _KEYS or name in _FIXED:
+            columns.append(values.tolist())
+        else:
+            columns.append(neutralise(values).tolist())
+    return columns
+
+
+def _write_csv(path: Path, frame: pd.DataFrame) -> None:
+    """One table as RFC 4180 CSV, UTF-8 without BOM, CRLF between records.
+
+    QUOTE_NONNUMERIC quotes every text field (so a bare CR or a separator inside one can never
+    split a row, reliability.md §2.3) and leaves floats unquoted, written with ``repr`` (the
+    shortest text that reads back as the same float); a missing number is ``""``.
+    """
+    with path.open("w", encoding="utf-8", newline="") as handle:
+        writer = csv.writer(handle, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\r\n")
+        writer.writerow(list(frame.columns))
+        writer.writerows(zip(*_csv_columns(frame), strict=True))
+
+
+def _write_text(path: Path, text: str) -> None:
+    with path.open("w", encoding="utf-8", newline="\n") as handle:
+        handle.write(text)
+
+
+def _csv_key_warnings(tables: ReviewTables) -> list[str]:
+    """Keys are written unchanged; say so when one would look like a formula to a spreadsheet."""
+    out = []
+    keys = tables.forecast if len(tables.forecast) else tables.decisions
+    for name in (ITEM, LOCATION):
+        if name not in keys:
+            continue
+        values = pd.Series(keys[name].unique(), dtype=object)
+        risky = values[values.str.match(_TRIGGER_START).to_numpy(dtype=bool)]
+        if len(risky):
+            out.append(
+                f"{len(risky)} {name} value(s) start with = + - @ or a control character "
+                f"(e.g. {_examples([repr(v) for v in risky.tolist()], len(risky))}). They are "
+                "written unchanged so they join back in the planning system; import the CSV as "
+                "text rather than opening it in a spreadsheet by double-click."
+            )
+    return out
+
+
+def _readme_text(tables: ReviewTables, paths: Sequence[Path], warnings: Sequence[str]) -> str:
+    prov = tables.provenance
+    lines = [
+        "Forecast review export (triage)",
+        "",
+        "CAUTION: " + CAUTION,
+        "",
+        *_provenance_lines(prov),
+        "",
+        "Files",
+        f"  {paths[0].name}: {len(tables.decisions):,} reviewed series, one row each",
+        f"  {paths[1].name}: {len(tables.forecast):,} rows, every series x forward period "
+        f"({tables.adjusted_periods:,} adjusted)",
+        "",
+        "Text safety",
+        *[f"  {line}" for line in _SAFETY_LINES],
+    ]
+    if warnings:
+        lines += ["", "Warnings", *[f"  - {w}" for w in warnings]]
+    lines += ["", "Columns", *[f"  {name}: {text}" for name, text in COLUMN_NOTES.items()]]
+    return "\n".join(printable(line) for line in lines) + "\n"
+
+
+# ---- xlsx -----------------------------------------------------------------------------------
+
+
+def _check_sheet_rows(tables: ReviewTables, path: Path) -> None:
+    for sheet, frame in (("Decisions", tables.decisions), ("Forecast", tables.forecast)):
+        rows = len(frame) + 1
+        if rows > XLSX_MAX_ROWS:
+            raise ExportError(
+                f"cannot write {path}: the {sheet} sheet would need {rows:,} rows (header "
+                f"included) and a sheet holds at most {XLSX_MAX_ROWS:,}; nothing was written.",
+                hint=f"Export to CSV instead (e.g. {path.with_suffix('.csv').name}), which has "
+                "no row limit.",
+            )
+
+
+@dataclass
+class _XlsxIssues:
+    """Per-sheet counts of cells the xlsx rules had to change."""
+
+    illegal: dict[str, int]
+    cut: dict[str, int]
+
+
+def _xlsx_text(values: Sequence[str], column: str, issues: _XlsxIssues) -> list[str]:
+    """Text cell values: illegal characters replaced, over-long text cut with a marker."""
+    out = list(values)
+    for i, value in enumerate(out):
+        # Most cells are short, plain text: the two checks below are skipped for them.
+        if _XLSX_ILLEGAL.search(value):
+            value = _XLSX_ILLEGAL.sub(
+                lambda m: chr(0x2400 + ord(m.group())) if m.group() < " " else "\ufffd", value
+            )
+            issues.illegal[column] = issues.illegal.get(column, 0) + 1
+        if 2 * len(value) > XLSX_MAX_CELL and _utf16_len(value) > XLSX_MAX_CELL:
+            value = _cut(value, XLSX_MAX_CELL)
+            issues.cut[column] = issues.cut.get(column, 0) + 1
+        out[i] = value
+    return out
+
+
+def _xlsx_columns(sheet: Any, frame: pd.DataFrame, issues: _XlsxIssues) -> list[list[Any]]:
+    columns: list[list[Any]] = []
+    for name in frame.columns:
+        values = frame[name]
+        if name in _NUMBERS:
+            columns.append(_xlsx_numbers(sheet, values.to_numpy(dtype=np.float64)))
+        elif name in _FLAGS:
+            columns.append(values.to_numpy(dtype=bool).tolist())
+        else:
+            text = values.tolist() if name in _KEYS or name in _FIXED else neutralise(values)
+            columns.append(
+                [_as_string_cell(sheet, v) for v in _xlsx_text(list(text), name, issues)]
+            )
+    return columns
+
+
+def _xlsx_numbers(sheet: Any, array: np.ndarray) -> list[Any]:
+    """Numeric cells that read back as the same float.
+
+    openpyxl 3.1.5 writes numbers with ``"%.16g"`` (``openpyxl.compat.strings.safe_string``), so
+    a float that needs 17 significant digits (0.1 + 0.2) would be stored rounded (measured).
+    Those cells are given their ``repr`` text with data type ``"n"``, which openpyxl writes as
+    it is, still a number cell.
+    """
+    from openpyxl.cell import WriteOnlyCell
+
+    cells = array.astype(object)
+    missing = np.isnan(array)
+    cells[missing] = None
+    finite = np.flatnonzero(~missing)
+    if len(finite):
+        short = np.char.mod("%.16g", array[finite]).astype(np.float64)
+        for i in finite[short != array[finite]]:
+            cell = WriteOnlyCell(sheet, value=repr(float(array[i])))
+            cell.data_type = "n"
+            cells[i] = cell
+    return cells.tolist()
+
+
+def _write_xlsx(path: Path, tables: ReviewTables, warnings: list[str]) -> None:
+    from openpyxl import Workbook
+
+    issues = _XlsxIssues({}, {})
+    book = Workbook(write_only=True)
+    for title, frame in (("Decisions", tables.decisions), ("Forecast", tables.forecast)):
+        sheet = book.create_sheet(title)
+        sheet.append(list(frame.columns))
+        for row in zip(*_xlsx_columns(sheet, frame, issues), strict=True):
+            sheet.append(row)
+    warnings.extend(_xlsx_warnings(issues))
+    # Written last, so it can list what the data sheets needed; its text is made printable
+    # first, so it has nothing left for the xlsx rules to replace.
+    sheet = book.create_sheet("Read me")
+    for row in _readme_rows(tables, [*tables.warnings, *warnings]):
+        texts = _xlsx_text([neutralise_one(printable(v)) for v in row], "Read me", issues)
+        sheet.append([_as_string_cell(sheet, v) for v in texts])
+    book.save(path)
+
+
+def _xlsx_warnings(issues: _XlsxIssues) -> list[str]:
+    out = []
+    for column, count in sorted(issues.illegal.items()):
+        out.append(
+            f"{count} xlsx cell(s) in column {column!r} held control characters a spreadsheet "
+            "cannot store; they are shown as the symbols ␀-␟ (U+FFFD for U+FFFE/U+FFFF). The CSV "
+            "and JSON exports keep the original characters."
+        )
+    for column, count in sorted(issues.cut.items()):
+        out.append(
+            f"{count} xlsx cell(s) in column {column!r} were longer than a spreadsheet cell "
+            f"holds ({XLSX_MAX_CELL:,} characters) and were cut, ending with a '[… cut: ...]' "
+            "marker. The CSV and JSON exports keep the full text."
+        )
+    return out
+
+
+def _as_string_cell(sheet: Any, value: str) -> Any:
+    """The value, or a string cell where openpyxl would otherwise not store it as text.
+
+    openpyxl stores ``"=..."`` as a formula and ``"#N/A"`` as an error value; setting data type
+    ``"s"`` writes the text as an inline string (reliability.md §2.2, measured).
+    """
+    from openpyxl.cell import WriteOnlyCell
+
+    if (len(value) > 1 and value[0] == "=") or value in _XLSX_ERROR_CODES:
+        cell = WriteOnlyCell(sheet, value=value)
+        cell.data_type = "s"
+        return cell
+    return value
+
+
+def _readme_rows(tables: ReviewTables, warnings: Sequence[str]) -> list[list[str]]:
+    prov = tables.provenance
+    rows = [
+        ["Caution", CAUTION],
+        [],
+        *[[label, prov[key]] for key, label in _PROVENANCE_LABELS.items()],
+        ["Decisions sheet", f"{len(tables.decisions):,} reviewed series, one row each"],
+        [
+            "Forecast sheet",
+            f"{len(tables.forecast):,} rows, every series x forward period "
+            f"({tables.adjusted_periods:,} adjusted)",
+        ],
+        [],
+        ["Text safety", " ".join(_SAFETY_LINES)],
+    ]
+    if warnings:
+        rows += [[], *[["Warning", w] for w in warnings]]
+    rows += [[], ["Column", "Meaning"], *[[k, v] for k, v in COLUMN_NOTES.items()]]
+    return rows
+
+
+# ---- JSON -----------------------------------------------------------------------------------
+
+
+def _json_columns(frame: pd.DataFrame) -> list[list[Any]]:
+    columns: list[list[Any]] = []
+    for name in frame.columns:
+        values = frame[name]
+        if name in _NUMBERS:
+            columns.append(_number_cells(values))
+        elif name in _FLAGS:
+            columns.append(values.to_numpy(dtype=bool).tolist())
+        else:
+            columns.append([str(v) for v in values.tolist()])
+    return columns
+
+
+def _dumps(value: Any) -> str:
+    # allow_nan=False: NaN/Infinity are not JSON (reliability.md §2.5); every NaN is None here.
+    return json.dumps(value, ensure_ascii=False, allow_nan=False).translate(_JSON_ESCAPES)
+
+
+def _write_records(handle: IO[str], frame: pd.DataFrame) -> None:
+    names = list(frame.columns)
+    columns = _json_columns(frame)
+    for start in range(0, len(frame), _JSON_CHUNK):
+        chunk = [col[start : start + _JSON_CHUNK] for col in columns]
+        lines = (_dumps(dict(zip(names, row, strict=True))) for row in zip(*chunk, strict=True))
+        handle.write(("," if start else "") + "\n  " + ",\n  ".join(lines))
+    if len(frame):
+        handle.write("\n ")
+
+
+def _write_json(path: Path, tables: ReviewTables) -> None:
+    """One JSON document, streamed so that a large forecast table is never held as text."""
+    prov = tables.provenance
+    head = {
+        "caution": CAUTION,
+        "portfolio": {"name": prov["portfolio"], "fingerprint": prov["portfolio_fingerprint"]},
+        "cycle": prov["cycle"],
+        "ledger": prov["ledger"],
+        "exported_at": prov["exported_at"],
+        "exported_by": prov["exported_by"],
+        "triage_version": prov["triage_version"],
+        "warnings": list(tables.warnings),
+    }
+    with path.open("w", encoding="utf-8", newline="\n") as handle:
+        handle.write("{\n")
+        for key, value in head.items():
+            handle.write(f" {_dumps(key)}: {_dumps(value)},\n")
+        handle.write(' "decisions": [')
+        _write_records(handle, tables.decisions)
+        handle.write('],\n "forecast": [')
+        _write_records(handle, tables.forecast)
+        handle.write("]\n}\n")
+
+
+# ---- shared wording -------------------------------------------------------------------------
+
+_PROVENANCE_LABELS = {
+    "portfolio": "Portfolio file",
+    "portfolio_fingerprint": "Portfolio fingerprint (SHA-256)",
+    "cycle": "Review cycle",
+    "ledger": "Decision ledger",
+    "exported_at": "Exported at (UTC)",
+    "exported_by": "Exported by",
+    "triage_version": "triage version",
+}
+
+
+def _provenance_lines(prov: dict[str, str]) -> list[str]:
+    width = max(len(label) for label in _PROVENANCE_LABELS.values())
+    return [f"{label:<{width}}  {prov[key]}" for key, label in _PROVENANCE_LABELS.items()]
+
+
+_SAFETY_LINES = (
+    "Text in note, reviewer, codes, labels, adjustment and portfolio name that starts with",
+    "= + - @, a tab or a line break starts with an apostrophe ('), so no spreadsheet reads it as",
+    "a formula. item and location are never changed, so they join back in the planning system.",
+    "Line breaks inside notes are LF.",
+)
+
+#: One line per column, for the README and the "Read me" sheet (docs/export.md has the same).
+COLUMN_NOTES: dict[str, str] = {
+    "item, location": "the series key, exactly as in the portfolio file",
+    "cycle": "review cycle: ISO date of the portfolio's latest actual period",
+    "outcome, outcome_label": "what the reviewer concluded (code and words)",
+    "root_cause, root_cause_label": "why the forecast missed (code and words)",
+    "note": "the reviewer's note",
+    "reviewer, recorded_at": "who decided, and when (UTC)",
+    "adjustment": "the change to the forward forecast as written in triage, empty when none",
+    "units_change": "sum of (adjusted - original) forecast over the adjusted periods, units",
+    "value_change": "the same in value: each period's change times its price; empty without price",
+    "portfolio_name, portfolio_fingerprint": "the portfolio file the decision was made on",
+    "period": "forward period start date (ISO)",
+    "forecast": "the portfolio's forward forecast; empty where it has none",
+    "adjusted_forecast": "the adjusted value where the decision changed that period, else forecast",
+    "adjusted": "true where adjusted_forecast comes from the decision",
+    "outcome (forecast)": "the series' decision outcome this cycle, empty when not reviewed",
+}

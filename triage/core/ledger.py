@@ -1,0 +1,1266 @@
+"""The decision ledger: an append-only SQLite journal of review decisions.
+
+Each decision a reviewer makes about a series (``item``, ``location``) in a review cycle (the ISO
+date of the portfolio's latest actual period) is one row of ``event``; undoing a decision appends
+an ``undo`` row that points at it. Rows are never changed or deleted (triggers refuse it), so the
+file is its own audit trail. The current state of a cycle, the latest decision per series that
+has not been undone, is derived from the events in SQL.
+
+Durability (docs/ledger.md explains each choice):
+
+* WAL journal with ``synchronous=FULL``: a decision whose ``record()`` returned survives a crash
+  of the program, of the operating system and a power loss (reliability.md §1.1).
+* Autocommit connection with one explicit ``BEGIN IMMEDIATE … COMMIT`` per decision, so a second
+  session waits for the write lock (bounded by ``timeout``) instead of failing on a stale read
+  snapshot, and no transaction is ever open while the reviewer thinks (reliability.md §1.2, §1.4).
+* Every write checks the series version inside the transaction: a change made by another session
+  since the reviewer looked is refused, never silently overwritten.
+* A file that is not a ledger, is damaged, or comes from a newer schema is inspected through a
+  read-only connection and left byte-for-byte as it was.
+"""
+
+from __future__ import annotations
+
+import math
+import os
+import re
+import sqlite3
+import tempfile
+import threading
+from collections.abc import Callable, Iterable, Iterator, Sequence
+from contextlib import contextmanager, suppress
+from dataclasses import dataclass
+from datetime import UTC, date, datetime
+from pathlib import Path
+from typing import Any
+from urllib.parse import quote
+
+from triage.core.config import DEFAULT_ROOT_CAUSES, Choice, numbered
+from triage.core.errors import TriageError
+
+#: ``PRAGMA application_id`` of a triage ledger (the bytes ``TRLG``), so other tools and triage
+#: itself can tell the file apart from any other SQLite database.
+APPLICATION_ID = 0x54524C47
+#: Longest note accepted, in characters (Unicode code points).
+NOTE_MAX = 10_000
+#: Longest item, location, reviewer or portfolio text accepted, in characters.
+TEXT_MAX = 1_000
+LEDGER_SUFFIX = ".ledger.sqlite"
+
+DECISION = "decision"
+UNDO = "undo"
+
+#: What a reviewer concluded about a series, in shortcut order.
+OUTCOMES: tuple[Choice, ...] = numbered(
+    (
+        ("no_change", "No change needed"),
+        ("adjusted", "Forward forecast adjusted"),
+        ("handed_off", "Handed to someone else to resolve"),
+        ("deferred", "Put off to a later cycle"),
+    )
+)
+ADJUSTED = "adjusted"
+
+_ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
+
+
+# --------------------------------------------------------------------------------------------
+# Errors
+
+
+class LedgerError(TriageError):
+    """The ledger file cannot be opened or used as asked.
+
+    Attributes:
+        path: The ledger file.
+    """
+
+    def __init__(self, message: str, *, path: str | Path, hint: str | None = None) -> None:
+        self.path = Path(path)
+        super().__init__(message, hint=hint)
+
+
+class LedgerBusyError(LedgerError):
+    """Another session held the write lock for longer than the timeout; nothing was saved."""
+
+
+class LedgerWriteError(LedgerError):
+    """Writing failed (disk full, size limit, I/O error); nothing was saved, the file is intact."""
+
+
+class LedgerReadOnlyError(LedgerError):
+    """The ledger is open read-only, so a decision cannot be saved."""
+
+
+class StaleDecisionError(LedgerError):
+    """The series changed in another session since the caller last read it; nothing was saved.
+
+    Attributes:
+        cycle: Review cycle of the series.
+        item: Item of the series.
+        location: Location of the series.
+        expected_version: Version the caller had seen.
+        current_version: Version found in the ledger.
+        reviewer: Who wrote the current version.
+        recorded_at: When the current version was written (UTC, ISO 8601).
+    """
+
+    def __init__(
+        self,
+        *,
+        path: Path,
+        cycle: str,
+        item: str,
+        location: str,
+        expected_version: int,
+        current_version: int,
+        reviewer: str,
+        recorded_at: str,
+    ) -> None:
+        self.cycle = cycle
+        self.item = item
+        self.location = location
+        self.expected_version = expected_version
+        self.current_version = current_version
+        self.reviewer = reviewer
+        self.recorded_at = recorded_at
+        super().__init__(
+            f"Series {describe_series(item, location)} in cycle {cycle} was changed by "
+            f"{reviewer!r} at {recorded_at} (now version {current_version}, you saw version "
+            f"{expected_version}); nothing was saved.",
+            path=path,
+            hint="Reload the series, look at the newer decision, and decide again.",
+        )
+
+
+class DecisionError(TriageError):
+    """A decision's fields are not acceptable (unknown code, note too long, bad date...)."""
+
+
+def describe_series(item: str, location: str) -> str:
+    """``'A-100' @ 'Lyon'`` (or just ``'A-100'``) with ``repr`` quoting, safe for any text."""
+    return f"{item!r} @ {location!r}" if location else repr(item)
+
+
+# --------------------------------------------------------------------------------------------
+# Records
+
+
+@dataclass(frozen=True)
+class Line:
+    """One forward period of an adjustment, as saved with the decision."""
+
+    period: str
+    """Period start date, ISO ``YYYY-MM-DD``."""
+    original: float | None
+    """Forward forecast before the adjustment; None where there was none."""
+    adjusted: float | None
+    """Forward forecast after the adjustment; None where there still is none."""
+
+
+@dataclass(frozen=True)
+class Event:
+    """One row of the journal: a decision, or the undo of one."""
+
+    id: int
+    """Journal position; increases with every event in the file."""
+    cycle: str
+    """Review cycle, the ISO date of the portfolio's latest actual period."""
+    item: str
+    """Item of the series, exactly as in the portfolio."""
+    location: str
+    """Location of the series, ``""`` when the portfolio has none."""
+    version: int
+    """Position of this event among the series' events in the cycle (1, 2, 3, ...)."""
+    kind: str
+    """``"decision"`` or ``"undo"``."""
+    undoes: int | None
+    """For an undo, the id of the decision it reverts; None for a decision."""
+    outcome: str | None
+    """Outcome code (see ``OUTCOMES``); None for an undo."""
+    root_cause: str | None
+    """Root-cause code; None for an undo."""
+    note: str
+    """Free text, any Unicode, possibly several lines; ``""`` when none."""
+    adjustment: str | None
+    """Adjustment spec in canonical text (see ``triage.core.adjust``), or None."""
+    reviewer: str
+    """Who recorded the event."""
+    recorded_at: str
+    """When it was committed, UTC ISO 8601 with ``Z``."""
+    portfolio_name: str
+    """File name of the portfolio the decision was made on."""
+    portfolio_fingerprint: str
+    """Digest of that portfolio's content, as supplied by the caller."""
+    lines: tuple[Line, ...] = ()
+    """Forward periods of the adjustment, by period; empty without one."""
+
+
+@dataclass(frozen=True)
+class Decision:
+    """The effective decision for a series in a cycle: the latest one not undone."""
+
+    cycle: str
+    """Review cycle."""
+    item: str
+    """Item of the series."""
+    location: str
+    """Location of the series, ``""`` when none."""
+    event_id: int
+    """Id of the decision event."""
+    version: int
+    """Version of the decision event (the series may have later undo events)."""
+    outcome: str
+    """Outcome code."""
+    root_cause: str
+    """Root-cause code."""
+    note: str
+    """Free text."""
+    adjustment: str | None
+    """Adjustment spec in canonical text, or None."""
+    reviewer: str
+    """Who decided."""
+    recorded_at: str
+    """When, UTC ISO 8601 with ``Z``."""
+    portfolio_name: str
+    """File name of the portfolio."""
+    portfolio_fingerprint: str
+    """Digest of the portfolio's content."""
+    lines: tuple[Line, ...] = ()
+    """Forward periods of the adjustment."""
+
+
+# --------------------------------------------------------------------------------------------
+# Schema and migrations
+
+_SCHEMA_V1 = """
+CREATE TABLE event (
+    id INTEGER PRIMARY KEY,
+    cycle TEXT NOT NULL CHECK (cycle GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]'),
+    item TEXT NOT NULL,
+    location TEXT NOT NULL,
+    version INTEGER NOT NULL CHECK (version >= 1),
+    kind TEXT NOT NULL CHECK (kind IN ('decision', 'undo')),
+    undoes INTEGER UNIQUE REFERENCES event (id),
+    outcome TEXT,
+    root_cause TEXT,
+    note TEXT NOT NULL,
+    adjustment TEXT,
+    reviewer TEXT NOT NULL CHECK (reviewer <> ''),
+    recorded_at TEXT NOT NULL,
+    portfolio_name TEXT NOT NULL,
+    portfolio_fingerprint TEXT NOT NULL,
+    UNIQUE (cycle, item, location, version),
+    CHECK (
+        (kind = 'decision' AND undoes IS NULL AND outcome IS NOT NULL AND root_cause IS NOT NULL)
+        OR (kind = 'undo' AND undoes IS NOT NULL AND outcome IS NULL AND root_cause IS NULL
+            AND adjustment IS NULL)
+    )
+) STRICT;
+
+CREATE INDEX event_by_series ON event (item, location, cycle);
+
+CREATE TABLE event_line (
+    event_id INTEGER NOT NULL REFERENCES event (id),
+    period TEXT NOT NULL CHECK (period GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]'),
+    original REAL,
+    adjusted REAL,
+    PRIMARY KEY (event_id, period)
+) STRICT, WITHOUT ROWID;
+
+CREATE TRIGGER event_no_update BEFORE UPDATE ON event
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: events cannot be changed'); END;
+CREATE TRIGGER event_no_delete BEFORE DELETE ON event
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: events cannot be deleted'); END;
+CREATE TRIGGER event_line_no_update BEFORE UPDATE ON event_line
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: lines cannot be changed'); END;
+CREATE TRIGGER event_line_no_delete BEFORE DELETE ON event_line
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: lines cannot be deleted'); END;
+
+-- Versions are gapless per series and cycle whoever writes the file.
+CREATE TRIGGER event_version_next BEFORE INSERT ON event
+WHEN NEW.version <> 1 + (SELECT coalesce(max(version), 0) FROM event
+                         WHERE cycle = NEW.cycle AND item = NEW.item AND location = NEW.location)
+BEGIN SELECT RAISE(ABORT, 'event version must follow the latest version of its series'); END;
+
+-- An undo reverts a decision of its own series and cycle.
+CREATE TRIGGER event_undo_same_series BEFORE INSERT ON event
+WHEN NEW.kind = 'undo' AND NOT EXISTS (
+    SELECT 1 FROM event AS d
+    WHERE d.id = NEW.undoes AND d.kind = 'decision'
+      AND d.cycle = NEW.cycle AND d.item = NEW.item AND d.location = NEW.location)
+BEGIN SELECT RAISE(ABORT, 'an undo must revert a decision of the same series and cycle'); END;
+"""
+
+
+def _migrate_to_v1(con: sqlite3.Connection) -> None:
+    """Create the version-1 schema in an empty database."""
+    for statement in _split_sql(_SCHEMA_V1):
+        con.execute(statement)
+
+
+def _split_sql(script: str) -> list[str]:
+    """Statements of a script (``executescript`` would COMMIT the open transaction)."""
+    statements: list[str] = []
+    buffer = ""
+    for line in script.splitlines(keepends=True):
+        if line.lstrip().startswith("--"):
+            continue
+        buffer += line
+        if sqlite3.complete_statement(buffer):
+            statements.append(buffer.strip())
+            buffer = ""
+    if buffer.strip():
+        raise AssertionError(f"incomplete statement in schema: {buffer!r}")
+    return statements
+
+
+#: ``MIGRATIONS[i]`` brings a ledger from schema version ``i`` to ``i + 1``. Append only.
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_migrate_to_v1]
+#: Schema version written by this code (``PRAGMA user_version``).
+SCHEMA_VERSION = len(MIGRATIONS)
+
+
+# --------------------------------------------------------------------------------------------
+# Paths and permissions
+
+
+def _dir_writable(folder: Path) -> bool:
+    """Whether files can be created in ``folder``: ``os.access`` and a real probe file.
+
+    ``os.access`` alone is not enough: root passes it everywhere, and mounts, ACLs and sandboxes
+    can refuse what the mode bits allow (reliability.md §5, read-only directory).
+    """
+    if not folder.is_dir() or not os.access(folder, os.W_OK | os.X_OK):
+        return False
+    try:
+        fd, probe = tempfile.mkstemp(prefix=".triage-probe-", dir=folder)
+    except OSError:
+        return False
+    os.close(fd)
+    with suppress(OSError):
+        os.unlink(probe)
+    return True
+
+
+def default_ledger_path(portfolio_path: str | Path) -> tuple[Path, str | None]:
+    """Where the ledger of a portfolio lives, and a notice when it is not the usual place.
+
+    The ledger is ``<portfolio stem>.ledger.sqlite`` beside the portfolio, so it travels with the
+    data. When that folder is not writable, it is kept in the user data folder instead
+    (``platformdirs.user_data_dir("triage")``) and the notice says so.
+
+    Raises:
+        LedgerError: Neither folder can be written.
+    """
+    source = Path(portfolio_path).expanduser().absolute()
+    name = f"{source.stem}{LEDGER_SUFFIX}"
+    beside = source.parent / name
+    if _dir_writable(source.parent):
+        return beside, None
+    from platformdirs import user_data_dir
+
+    folder = Path(user_data_dir("triage"))
+    fallback = folder / name
+    try:
+        folder.mkdir(parents=True, exist_ok=True)
+    except OSError as exc:
+        raise LedgerError(
+            f"Cannot keep decisions for {source.name}: {source.parent} is not writable and "
+            f"{folder} cannot be created ({exc.strerror}).",
+            path=fallback,
+            hint="Pass --ledger PATH with a file in a folder you can write to.",
+        ) from exc
+    notice = (
+        f"The folder {source.parent} is not writable, so decisions for {source.name} are kept "
+        f"in {fallback}."
+    )
+    if beside.exists():
+        notice += f" The read-only ledger {beside} was not used."
+    return fallback, notice
+
+
+def _sidecars(path: Path) -> list[Path]:
+    return [path.with_name(path.name + suffix) for suffix in ("-wal", "-shm")]
+
+
+def _unwritable_reason(path: Path) -> str | None:
+    """Why the ledger cannot be written, or None when it can."""
+    reasons: list[str] = []
+    if path.exists() and not os.access(path, os.W_OK):
+        reasons.append("the file is read-only")
+    # WAL keeps its -wal and -shm files beside the ledger, so the folder must be writable too
+    # (reliability.md §5: SQLITE_READONLY_DIRECTORY, measured).
+    if not _dir_writable(path.parent):
+        reasons.append(f"the folder {path.parent} is not writable")
+    for side in _sidecars(path):
+        if side.exists() and not os.access(side, os.W_OK):
+            reasons.append(f"{side.name} belongs to another user and is read-only")
+    return " and ".join(reasons) or None
+
+
+def _uri(path: Path, mode: str, *, immutable: bool = False) -> str:
+    uri = f"file:{quote(str(path))}?mode={mode}"
+    return uri + "&immutable=1" if immutable else uri
+
+
+# --------------------------------------------------------------------------------------------
+# Error translation
+
+
+def _translate(exc: sqlite3.Error, path: Path, *, saving: str | None = None) -> LedgerError:
+    """Turn an SQLite error into a message for the reviewer, by error code (not message text).
+
+    Args:
+        exc: The error.
+        path: The ledger file.
+        saving: What was being saved (``"decision"``, ``"undo"``), or None for a read or open.
+    """
+    name = getattr(exc, "sqlite_errorname", "") or ""
+    lost = f"The {saving} was NOT saved: " if saving else ""
+    if name.startswith(("SQLITE_BUSY", "SQLITE_LOCKED")):
+        if saving:
+            text = (
+                "The decision ledger is being written by another session; nothing was saved; "
+                "retry in a moment"
+            )
+        else:
+            text = "The decision ledger is being written by another session; retry in a moment"
+        return LedgerBusyError(
+            text,
+            path=path,
+            hint=f"Another triage session (or a program) holds {path.name} open for writing.",
+        )
+    if name.startswith(("SQLITE_FULL", "SQLITE_IOERR")):
+        reason = (
+            "the disk is full"
+            if name.startswith("SQLITE_FULL")
+            else "the disk write failed; the disk may be full, over a size limit or failing"
+        )
+        return LedgerWriteError(
+            f"{lost or 'The ledger could not be written: '}{reason} ({name}: {exc}). "
+            f"The ledger {path} still holds every earlier decision.",
+            path=path,
+            hint="Free disk space (or fix the disk) and save again.",
+        )
+    if name.startswith("SQLITE_READONLY"):
+        return LedgerReadOnlyError(
+            f"{lost}the ledger {path} cannot be written ({name}: {exc}).",
+            path=path,
+            hint="Check the permissions of the ledger and its folder, or pass another --ledger.",
+        )
+    if name.startswith("SQLITE_NOTADB"):
+        return LedgerError(
+            f"{path} is not a triage decision ledger (it is not an SQLite database, or its "
+            "first page is damaged). It was left unchanged.",
+            path=path,
+            hint="Restore it from a backup if it was a ledger; else pass another --ledger path.",
+        )
+    if name.startswith("SQLITE_CORRUPT"):
+        return _damaged(path, f"{name}: {exc}")
+    if name.startswith(("SQLITE_CANTOPEN", "SQLITE_PERM", "SQLITE_AUTH")):
+        return LedgerError(
+            f"{lost}the ledger {path} cannot be opened ({name}: {exc}).",
+            path=path,
+            hint="Check that the folder exists and that you may read it.",
+        )
+    return LedgerError(
+        f"{lost}the ledger {path} failed: {name or type(exc).__name__}: {exc}", path=path
+    )
+
+
+def _damaged(path: Path, detail: str) -> LedgerError:
+    return LedgerError(
+        f"The decision ledger {path} is damaged ({detail}). It was left unchanged.",
+        path=path,
+        hint="Restore it from a backup, or move it aside to start a new ledger "
+        "(`sqlite3 FILE .recover` may rescue decisions from a copy).",
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# Validation
+
+
+def _check_date(value: object, what: str) -> str:
+    if not isinstance(value, str) or not _ISO_DATE.fullmatch(value):
+        raise DecisionError(f"{what} {value!r} is not an ISO date (YYYY-MM-DD)")
+    try:
+        date.fromisoformat(value)
+    except ValueError as exc:
+        raise DecisionError(f"{what} {value!r} is not a calendar date ({exc})") from exc
+    return value
+
+
+def _check_text(value: object, what: str, *, allow_empty: bool, limit: int = TEXT_MAX) -> str:
+    if not isinstance(value, str):
+        raise DecisionError(f"{what} must be text, not {type(value).__name__}")
+    # Only "" is empty: series keys are compared byte-exact, so "  " is a (strange) key.
+    if not allow_empty and not value:
+        raise DecisionError(f"{what} is empty")
+    if len(value) > limit:
+        raise DecisionError(
+            f"{what} is {len(value):,} characters long; the limit is {limit:,}",
+            hint="Shorten it; nothing was saved.",
+        )
+    try:
+        value.encode("utf-8")
+    except UnicodeEncodeError as exc:
+        raise DecisionError(
+            f"{what} contains a character that is not valid Unicode text "
+            f"(position {exc.start}: {value[exc.start]!r})"
+        ) from exc
+    return value
+
+
+def _check_reviewer(value: object) -> str:
+    reviewer = _check_text(value, "reviewer", allow_empty=False)
+    if not reviewer.strip():
+        raise DecisionError("reviewer is blank", hint='Set reviewer = "..." in the config file.')
+    return reviewer
+
+
+def _check_code(value: object, choices: Sequence[Choice], what: str) -> str:
+    codes = [c.code for c in choices]
+    if value not in codes:
+        raise DecisionError(f"unknown {what} {value!r}; use one of: {', '.join(codes)}")
+    return str(value)
+
+
+def _number(value: object, what: str) -> float | None:
+    if value is None:
+        return None
+    try:
+        number = float(value)  # type: ignore[arg-type]
+    except (TypeError, ValueError) as exc:
+        raise DecisionError(f"{what} {value!r} is not a number") from exc
+    if math.isnan(number):
+        return None
+    if math.isinf(number):
+        raise DecisionError(f"{what} {value!r} is not a finite number")
+    return number
+
+
+def _check_lines(lines: Iterable[Line | Sequence[Any]] | None) -> tuple[Line, ...]:
+    if lines is None:
+        return ()
+    out: list[Line] = []
+    seen: set[str] = set()
+    for raw in lines:
+        if isinstance(raw, Line):
+            period, original, adjusted = raw.period, raw.original, raw.adjusted
+        else:
+            try:
+                period, original, adjusted = raw
+            except (TypeError, ValueError) as exc:
+                raise DecisionError(
+                    f"adjustment line {raw!r} is not (period, original, adjusted)"
+                ) from exc
+        period = _check_date(period, "adjustment period")
+        if period in seen:
+            raise DecisionError(f"adjustment period {period} is given twice")
+        seen.add(period)
+        out.append(
+            Line(
+                period,
+                _number(original, f"original forecast for {period}"),
+                _number(adjusted, f"adjusted forecast for {period}"),
+            )
+        )
+    return tuple(sorted(out, key=lambda line: line.period))
+
+
+def _check_version(value: object) -> int:
+    if isinstance(value, bool) or not isinstance(value, int) or value < 0:
+        raise DecisionError(f"expected_version must be a whole number >= 0, not {value!r}")
+    return value
+
+
+def _utc_now() -> str:
+    return datetime.now(UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
+
+
+# --------------------------------------------------------------------------------------------
+# The ledger
+
+_EVENT_COLUMNS = (
+    "id, cycle, item, location, version, kind, undoes, outcome, root_cause, note, adjustment, "
+    "reviewer, recorded_at, portfolio_name, portfolio_fingerprint"
+)
+
+# Decisions no undo points at, numbered per series from the newest: ``newest = 1`` is effective.
+_EFFECTIVE = """
+WITH effective AS (
+    SELECT e.*, row_number() OVER (
+        PARTITION BY e.item, e.location ORDER BY e.version DESC) AS newest
+    FROM event AS e
+    WHERE e.cycle = :cycle AND e.kind = 'decision'
+      AND NOT EXISTS (SELECT 1 FROM event AS u WHERE u.undoes = e.id)
+)
+"""
+
+
+@dataclass(frozen=True)
+class _Inspection:
+    application_id: int
+    user_version: int
+    tables: int
+    immutable: bool
+    wal_bytes: int
+
+
+class Ledger:
+    """An open decision ledger. Use ``Ledger.open``; close it, or use it as a context manager.
+
+    One ``Ledger`` may be shared between threads (calls are serialised by a lock); several
+    processes may open the same file at once (SQLite serialises their writes).
+
+    Attributes:
+        path: The ledger file.
+        read_only: Whether decisions can be saved through this object.
+        notice: Why the ledger was opened read-only although writing was asked for, or None.
+        root_causes: Root causes accepted by ``record``.
+    """
+
+    def __init__(
+        self,
+        con: sqlite3.Connection,
+        path: Path,
+        *,
+        read_only: bool,
+        notice: str | None,
+        root_causes: tuple[Choice, ...],
+    ) -> None:
+        self._con = con
+        self._lock = threading.RLock()
+        self.path = path
+        self.read_only = read_only
+        self.notice = notice
+        self.root_causes = root_causes
+        self._ro_reason = notice
+
+    # ---- opening ---------------------------------------------------------------------------
+
+    @classmethod
+    def open(
+        cls,
+        path: str | Path,
+        *,
+        read_only: bool = False,
+        timeout: float = 5.0,
+        root_causes: Sequence[Choice] | None = None,
+    ) -> Ledger:
+        """Open (or create) a ledger.
+
+        Args:
+            path: The ledger file; created with the current schema when it does not exist.
+            read_only: Open for reading only, even when the file could be written.
+            timeout: Seconds to wait for another session's write lock before giving up.
+            root_causes: Root causes ``record`` accepts; default ``DEFAULT_ROOT_CAUSES``.
+
+        Raises:
+            LedgerError: The file is not a triage ledger, is damaged, has a newer schema, does not
+                exist (read-only), or cannot be created. The file is left unchanged.
+            LedgerBusyError: Creating or upgrading the file waited longer than ``timeout``.
+        """
+        target = Path(path).expanduser().absolute()
+        causes = tuple(root_causes) if root_causes is not None else DEFAULT_ROOT_CAUSES
+        if target.is_dir():
+            raise LedgerError(
+                f"{target} is a folder, not a ledger file",
+                path=target,
+                hint="Pass the path of a .ledger.sqlite file.",
+            )
+        if not target.exists():
+            if read_only:
+                raise LedgerError(
+                    f"There is no decision ledger at {target}",
+                    path=target,
+                    hint="Check the --ledger path.",
+                )
+            if not _dir_writable(target.parent):
+                raise LedgerError(
+                    f"Cannot create the decision ledger {target}: the folder does not exist or "
+                    "is not writable",
+                    path=target,
+                    hint="Pass --ledger PATH with a file in a folder you can write to.",
+                )
+            return cls._open_rw(target, timeout, causes)
+
+        info = _inspect(target, timeout)
+        if info.application_id == 0 and info.tables == 0:
+            # An empty SQLite file (zero bytes, or a creation that was interrupted before its
+            # schema committed) holds nothing to protect; it becomes a ledger.
+            if read_only:
+                raise LedgerError(f"{target} is an empty file, not yet a ledger", path=target)
+            reason = _unwritable_reason(target)
+            if reason:
+                raise LedgerError(
+                    f"Cannot create the decision ledger {target}: {reason}", path=target
+                )
+            return cls._open_rw(target, timeout, causes)
+        if info.application_id != APPLICATION_ID:
+            owner = (
+                "an SQLite database of another program"
+                if info.application_id == 0
+                else "an SQLite database of another program "
+                f"(application id {info.application_id:#x})"
+            )
+            raise LedgerError(
+                f"{target} is not a triage decision ledger: it is {owner}. It was left unchanged.",
+                path=target,
+                hint="Pass another --ledger path.",
+            )
+        if info.user_version > SCHEMA_VERSION:
+            raise LedgerError(
+                f"{target} was written by a newer triage (ledger schema {info.user_version}; "
+                f"this version reads up to {SCHEMA_VERSION}). It was left unchanged.",
+                path=target,
+                hint="Upgrade triage to work with this ledger.",
+            )
+
+        reason = "opened read-only on request" if read_only else _unwritable_reason(target)
+        if reason is None:
+            return cls._open_rw(target, timeout, causes)
+        if info.user_version < SCHEMA_VERSION:
+            raise LedgerError(
+                f"{target} has ledger schema {info.user_version} and must be upgraded to "
+                f"{SCHEMA_VERSION}, but {reason}.",
+                path=target,
+                hint="Open it once where it can be written.",
+            )
+        con = _connect(target, "ro", timeout, immutable=info.immutable)
+        notice = None
+        if not read_only:
+            notice = (
+                f"The decision ledger {target} is read-only ({reason}); decisions can be viewed "
+                "but cannot be saved."
+            )
+            if info.immutable and info.wal_bytes:
+                notice += " Decisions saved moments ago by another session may be missing."
+        ledger = cls(con, target, read_only=True, notice=notice, root_causes=causes)
+        ledger._ro_reason = reason
+        return ledger
+
+    @classmethod
+    def _open_rw(cls, path: Path, timeout: float, causes: tuple[Choice, ...]) -> Ledger:
+        con = _connect(path, "rwc", timeout)
+        try:
+            mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]
+            if str(mode).lower() != "wal":
+                raise LedgerError(
+                    f"The decision ledger {path} cannot use write-ahead logging (journal mode "
+                    f"stayed {mode!r}); is it on a network folder?",
+                    path=path,
+                    hint="Keep the ledger on a local disk.",
+                )
+            # FULL is the compile-time default here but not everywhere: set it (reliability §1.4).
+            con.execute("PRAGMA synchronous = FULL")
+            con.execute("PRAGMA foreign_keys = ON")
+            _upgrade(con, path)
+        except sqlite3.Error as exc:
+            con.close()
+            raise _translate(exc, path) from exc
+        except BaseException:
+            con.close()
+            raise
+        return cls(con, path, read_only=False, notice=None, root_causes=causes)
+
+    # ---- context manager -------------------------------------------------------------------
+
+    def close(self) -> None:
+        """Close the connection (idempotent). Every saved decision is already on disk."""
+        with self._lock:
+            self._con.close()
+
+    def __enter__(self) -> Ledger:
+        return self
+
+    def __exit__(self, *exc_info: object) -> None:
+        self.close()
+
+    # ---- writing ---------------------------------------------------------------------------
+
+    def record(
+        self,
+        cycle: str,
+        item: str,
+        location: str,
+        *,
+        outcome: str,
+        root_cause: str,
+        note: str,
+        reviewer: str,
+        adjustment: str | None = None,
+        lines: Iterable[Line | Sequence[Any]] | None = None,
+        portfolio_name: str,
+        portfolio_fingerprint: str,
+        expected_version: int,
+    ) -> Event:
+        """Save a decision for a series; returns after it is durably committed.
+
+        Args:
+            cycle: Review cycle, ISO date of the portfolio's latest actual period.
+            item: Item of the series.
+            location: Location of the series, ``""`` when none.
+            outcome: Outcome code from ``OUTCOMES``.
+            root_cause: Root-cause code from ``root_causes``.
+            note: Free text, up to ``NOTE_MAX`` characters.
+            reviewer: Who decides.
+            adjustment: Canonical adjustment spec; required when (and only when) the outcome is
+                ``"adjusted"``.
+            lines: ``(period, original, adjusted)`` per forward period the adjustment covers.
+            portfolio_name: File name of the portfolio.
+            portfolio_fingerprint: Digest of the portfolio's content.
+            expected_version: The series' version the reviewer last saw (0 if it had none).
+
+        Raises:
+            DecisionError: A field is not acceptable.
+            StaleDecisionError: Another session changed the series since ``expected_version``.
+            LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was saved.
+        """
+        self._check_writable("decision")
+        cycle = _check_date(cycle, "cycle")
+        item = _check_text(item, "item", allow_empty=False)
+        location = _check_text(location, "location", allow_empty=True)
+        outcome = _check_code(outcome, OUTCOMES, "outcome")
+        root_cause = _check_code(root_cause, self.root_causes, "root cause")
+        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
+        reviewer = _check_reviewer(reviewer)
+        if adjustment is not None:
+            adjustment = _check_text(adjustment, "adjustment", allow_empty=False)
+        if (outcome == ADJUSTED) != (adjustment is not None):
+            raise DecisionError(
+                "an adjustment goes with the outcome 'adjusted' and only with it "
+                f"(outcome {outcome!r}, adjustment {adjustment!r})"
+            )
+        checked_lines = _check_lines(lines)
+        if checked_lines and adjustment is None:
+            raise DecisionError("adjustment lines were given without an adjustment")
+        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
+        portfolio_fingerprint = _check_text(
+            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        )
+        expected_version = _check_version(expected_version)
+
+        with self._write("decision") as con:
+            version = self._claim_version(con, cycle, item, location, expected_version)
+            recorded_at = _utc_now()
+            event_id = con.execute(
+                "INSERT INTO event (cycle, item, location, version, kind, undoes, outcome, "
+                "root_cause, note, adjustment, reviewer, recorded_at, portfolio_name, "
+                "portfolio_fingerprint) VALUES (?, ?, ?, ?, 'decision', NULL, ?, ?, ?, ?, ?, ?, "
+                "?, ?)",
+                (
+                    cycle,
+                    item,
+                    location,
+                    version,
+                    outcome,
+                    root_cause,
+                    note,
+                    adjustment,
+                    reviewer,
+                    recorded_at,
+                    portfolio_name,
+                    portfolio_fingerprint,
+                ),
+            ).lastrowid
+            con.executemany(
+                "INSERT INTO event_line (event_id, period, original, adjusted) VALUES (?, ?, ?, ?)",
+                [(event_id, ln.period, ln.original, ln.adjusted) for ln in checked_lines],
+            )
+        assert event_id is not None
+        return Event(
+            event_id,
+            cycle,
+            item,
+            location,
+            version,
+            DECISION,
+            None,
+            outcome,
+            root_cause,
+            note,
+            adjustment,
+            reviewer,
+            recorded_at,
+            portfolio_name,
+            portfolio_fingerprint,
+            checked_lines,
+        )
+
+    def undo(
+        self,
+        cycle: str,
+        item: str,
+        location: str,
+        *,
+        reviewer: str,
+        expected_version: int,
+        portfolio_name: str,
+        portfolio_fingerprint: str,
+        note: str = "",
+    ) -> Event:
+        """Revert the series' effective decision in the cycle by appending an undo event.
+
+        Undoing again reverts the decision before that one, and so on.
+
+        Raises:
+            DecisionError: The series has no effective decision in the cycle.
+            StaleDecisionError, LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: as for
+                ``record``; nothing was saved.
+        """
+        self._check_writable("undo")
+        cycle = _check_date(cycle, "cycle")
+        item = _check_text(item, "item", allow_empty=False)
+        location = _check_text(location, "location", allow_empty=True)
+        reviewer = _check_reviewer(reviewer)
+        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
+        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
+        portfolio_fingerprint = _check_text(
+            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        )
+        expected_version = _check_version(expected_version)
+
+        with self._write("undo") as con:
+            version = self._claim_version(con, cycle, item, location, expected_version)
+            row = con.execute(
+                "SELECT e.id FROM event AS e WHERE e.cycle = ? AND e.item = ? AND e.location = ?"
+                " AND e.kind = 'decision'"
+                " AND NOT EXISTS (SELECT 1 FROM event AS u WHERE u.undoes = e.id)"
+                " ORDER BY e.version DESC LIMIT 1",
+                (cycle, item, location),
+            ).fetchone()
+            if row is None:
+                raise DecisionError(
+                    f"Series {describe_series(item, location)} has no decision to undo in "
+                    f"cycle {cycle}"
+                )
+            target = int(row[0])
+            recorded_at = _utc_now()
+            event_id = con.execute(
+                "INSERT INTO event (cycle, item, location, version, kind, undoes, outcome, "
+                "root_cause, note, adjustment, reviewer, recorded_at, portfolio_name, "
+                "portfolio_fingerprint) VALUES (?, ?, ?, ?, 'undo', ?, NULL, NULL, ?, NULL, ?, ?,"
+                " ?, ?)",
+                (
+                    cycle,
+                    item,
+                    location,
+                    version,
+                    target,
+                    note,
+                    reviewer,
+                    recorded_at,
+                    portfolio_name,
+                    portfolio_fingerprint,
+                ),
+            ).lastrowid
+        assert event_id is not None
+        return Event(
+            event_id,
+            cycle,
+            item,
+            location,
+            version,
+            UNDO,
+            target,
+            None,
+            None,
+            note,
+            None,
+            reviewer,
+            recorded_at,
+            portfolio_name,
+            portfolio_fingerprint,
+            (),
+        )
+
+    def _check_writable(self, what: str) -> None:
+        if self.read_only:
+            raise LedgerReadOnlyError(
+                f"The {what} was NOT saved: the decision ledger {self.path} is open read-only "
+                f"({self._ro_reason}).",
+                path=self.path,
+                hint="Open a ledger in a folder you can write to (--ledger PATH).",
+            )
+
+    def _claim_version(
+        self, con: sqlite3.Connection, cycle: str, item: str, location: str, expected: int
+    ) -> int:
+        """The next version of the series, or StaleDecisionError; inside the write transaction."""
+        row = con.execute(
+            "SELECT version, reviewer, recorded_at FROM event"
+            " WHERE cycle = ? AND item = ? AND location = ? ORDER BY version DESC LIMIT 1",
+            (cycle, item, location),
+        ).fetchone()
+        current = int(row[0]) if row else 0
+        if current != expected:
+            raise StaleDecisionError(
+                path=self.path,
+                cycle=cycle,
+                item=item,
+                location=location,
+                expected_version=expected,
+                current_version=current,
+                reviewer=row[1] if row else "(nobody)",
+                recorded_at=row[2] if row else "(never)",
+            )
+        return current + 1
+
+    @contextmanager
+    def _write(self, what: str) -> Iterator[sqlite3.Connection]:
+        """One short ``BEGIN IMMEDIATE … COMMIT``; rolled back and translated on any failure."""
+        with self._lock:
+            con = self._con
+            try:
+                # IMMEDIATE takes the write lock before reading the version, so the busy timeout
+                # applies and no stale snapshot can be upgraded (reliability.md §1.2, measured).
+                con.execute("BEGIN IMMEDIATE")
+            except sqlite3.Error as exc:
+                raise _translate(exc, self.path, saving=what) from exc
+            try:
+                yield con
+                con.execute("COMMIT")
+            except BaseException as exc:
+                # After an I/O error SQLite may already have rolled back on its own.
+                if con.in_transaction:
+                    with suppress(sqlite3.Error):
+                        con.execute("ROLLBACK")
+                if isinstance(exc, sqlite3.Error):
+                    raise _translate(exc, self.path, saving=what) from exc
+                raise
+
+    # ---- reading ---------------------------------------------------------------------------
+
+    @contextmanager
+    def _read(self) -> Iterator[sqlite3.Connection]:
+        """A read transaction, so several SELECTs see one snapshot (never blocks writers)."""
+        with self._lock:
+            con = self._con
+            try:
+                con.execute("BEGIN")
+                try:
+                    yield con
+                finally:
+                    if con.in_transaction:
+                        con.execute("COMMIT")
+            except sqlite3.Error as exc:
+                raise _translate(exc, self.path) from exc
+
+    def version(self, cycle: str, item: str, location: str) -> int:
+        """The series' latest event version in the cycle (decisions and undos), 0 if none."""
+        with self._read() as con:
+            row = con.execute(
+                "SELECT coalesce(max(version), 0) FROM event"
+                " WHERE cycle = ? AND item = ? AND location = ?",
+                (cycle, item, location),
+            ).fetchone()
+        return int(row[0])
+
+    def versions(self, cycle: str) -> dict[tuple[str, str], int]:
+        """Latest event version of every series with an event in the cycle."""
+        with self._read() as con:
+            rows = con.execute(
+                "SELECT item, location, max(version) FROM event WHERE cycle = ?"
+                " GROUP BY item, location",
+                (cycle,),
+            ).fetchall()
+        return {(item, location): int(v) for item, location, v in rows}
+
+    def current(self, cycle: str) -> list[Decision]:
+        """The effective decision of every series in the cycle, sorted by item and location."""
+        with self._read() as con:
+            rows = con.execute(
+                _EFFECTIVE + f"SELECT {_EVENT_COLUMNS} FROM effective WHERE newest = 1"
+                " ORDER BY item, location",
+                {"cycle": cycle},
+            ).fetchall()
+            lines = self._lines(
+                con,
+                _EFFECTIVE + "SELECT l.event_id, l.period, l.original, l.adjusted"
+                " FROM event_line AS l JOIN effective AS f ON f.id = l.event_id"
+                " WHERE f.newest = 1 ORDER BY l.event_id, l.period",
+                {"cycle": cycle},
+            )
+        return [
+            Decision(
+                cycle=r[1],
+                item=r[2],
+                location=r[3],
+                event_id=r[0],
+                version=r[4],
+                outcome=r[7],
+                root_cause=r[8],
+                note=r[9],
+                adjustment=r[10],
+                reviewer=r[11],
+                recorded_at=r[12],
+                portfolio_name=r[13],
+                portfolio_fingerprint=r[14],
+                lines=lines.get(r[0], ()),
+            )
+            for r in rows
+        ]
+
+    def history(
+        self, cycle: str | None = None, item: str | None = None, location: str | None = None
+    ) -> list[Event]:
+        """Every event (decisions and undos) matching the filters, oldest first, with lines."""
+        where: list[str] = []
+        params: dict[str, str] = {}
+        for column, value in (("cycle", cycle), ("item", item), ("location", location)):
+            if value is not None:
+                where.append(f"{column} = :{column}")
+                params[column] = value
+        clause = f" WHERE {' AND '.join(where)}" if where else ""
+        with self._read() as con:
+            rows = con.execute(
+                f"SELECT {_EVENT_COLUMNS} FROM event{clause} ORDER BY id", params
+            ).fetchall()
+            lines = self._lines(
+                con,
+                "SELECT l.event_id, l.period, l.original, l.adjusted FROM event_line AS l"
+                f" WHERE l.event_id IN (SELECT id FROM event{clause})"
+                " ORDER BY l.event_id, l.period",
+                params,
+            )
+        return [_event(r, lines.get(r[0], ())) for r in rows]
+
+    def cycles(self) -> list[str]:
+        """Review cycles with at least one event, oldest first."""
+        with self._read() as con:
+            rows = con.execute("SELECT DISTINCT cycle FROM event ORDER BY cycle").fetchall()
+        return [r[0] for r in rows]
+
+    @staticmethod
+    def _lines(
+        con: sqlite3.Connection, sql: str, params: dict[str, str]
+    ) -> dict[int, tuple[Line, ...]]:
+        grouped: dict[int, list[Line]] = {}
+        for event_id, period, original, adjusted in con.execute(sql, params):
+            grouped.setdefault(event_id, []).append(Line(period, original, adjusted))
+        return {k: tuple(v) for k, v in grouped.items()}
+
+
+def _event(row: Sequence[Any], lines: tuple[Line, ...]) -> Event:
+    """An Event from a row of ``_EVENT_COLUMNS``."""
+    return Event(
+        id=row[0],
+        cycle=row[1],
+        item=row[2],
+        location=row[3],
+        version=row[4],
+        kind=row[5],
+        undoes=row[6],
+        outcome=row[7],
+        root_cause=row[8],
+        note=row[9],
+        adjustment=row[10],
+        reviewer=row[11],
+        recorded_at=row[12],
+        portfolio_name=row[13],
+        portfolio_fingerprint=row[14],
+        lines=lines,
+    )
+
+
+# --------------------------------------------------------------------------------------------
+# Connections
+
+
+def _connect(
+    path: Path, mode: str, timeout: float, *, immutable: bool = False
+) -> sqlite3.Connection:
+    try:
+        con = sqlite3.connect(
+            _uri(path, mode, immutable=immutable),
+            uri=True,
+            timeout=timeout,
+            # Autocommit: this module issues every BEGIN itself (reliability.md §1.4).
+            isolation_level=None,
+            # Calls are serialised by Ledger._lock; the TUI calls from worker threads.
+            check_same_thread=False,
+        )
+    except sqlite3.Error as exc:
+        raise _translate(exc, path) from exc
+    return con
+
+
+def _inspect(path: Path, timeout: float) -> _Inspection:
+    """Read the header and run ``quick_check`` through a read-only connection.
+
+    A read-only connection never writes to the database file, so a file that turns out not to be
+    ours, or damaged, is left exactly as it was.
+    """
+    wal = path.with_name(path.name + "-wal")
+    wal_bytes = wal.stat().st_size if wal.exists() else 0
+    try:
+        con = _connect(path, "ro", timeout)
+        try:
+            return _read_header(con, path, immutable=False, wal_bytes=wal_bytes)
+        finally:
+            con.close()
+    except LedgerError as exc:
+        cause = exc.__cause__
+        name = getattr(cause, "sqlite_errorname", "") if cause else ""
+        # A WAL database in a folder we cannot write has no -shm to map; SQLite documents
+        # ``immutable`` as the way to read it (sqlite.org/wal.html, "Read-Only Databases").
+        if not name.startswith(("SQLITE_READONLY", "SQLITE_CANTOPEN")):
+            raise
+    con = _connect(path, "ro", timeout, immutable=True)
+    try:
+        return _read_header(con, path, immutable=True, wal_bytes=wal_bytes)
+    finally:
+        con.close()
+
+
+def _read_header(
+    con: sqlite3.Connection, path: Path, *, immutable: bool, wal_bytes: int
+) -> _Inspection:
+    try:
+        app_id = int(con.execute("PRAGMA application_id").fetchone()[0])
+        user_version = int(con.execute("PRAGMA user_version").fetchone()[0])
+        tables = int(con.execute("SELECT count(*) FROM sqlite_schema").fetchone()[0])
+        if app_id == APPLICATION_ID:
+            problems = [r[0] for r in con.execute("PRAGMA quick_check(5)").fetchall()]
+            if problems != ["ok"]:
+                raise _damaged(path, "quick_check: " + "; ".join(problems))
+    except sqlite3.Error as exc:
+        raise _translate(exc, path) from exc
+    return _Inspection(app_id, user_version, tables, immutable, wal_bytes)
+
+
+def _upgrade(con: sqlite3.Connection, path: Path) -> None:
+    """Create or migrate the schema in one write transaction (a no-op when current)."""
+    if (
+        int(con.execute("PRAGMA user_version").fetchone()[0]) == SCHEMA_VERSION
+        and int(con.execute("PRAGMA application_id").fetchone()[0]) == APPLICATION_ID
+    ):
+        return
+    con.execute("BEGIN IMMEDIATE")
+    try:
+        # Read again under the write lock: another process may have created it meanwhile.
+        app_id = int(con.execute("PRAGMA application_id").fetchone()[0])
+        version = int(con.execute("PRAGMA user_version").fetchone()[0])
+        tables = int(con.execute("SELECT count(*) FROM sqlite_schema").fetchone()[0])
+        if app_id == 0 and tables == 0:
+            version = 0
+        elif app_id != APPLICATION_ID:
+            raise LedgerError(
+                f"{path} is not a triage decision ledger. It was left unchanged.", path=path
+            )
+        if version > SCHEMA_VERSION:
+            raise LedgerError(
+                f"{path} was written by a newer triage (ledger schema {version}).", path=path
+            )
+        for step in MIGRATIONS[version:]:
+            step(con)
+        con.execute(f"PRAGMA user_version = {SCHEMA_VERSION}")
+        con.execute(f"PRAGMA application_id = {APPLICATION_ID}")
+        con.execute("COMMIT")
+    except BaseException:
+        if con.in_transaction:
+            con.execute("ROLLBACK")
+        raise

@@ -1,0 +1,421 @@
+"""A reviewer's working state: one portfolio, its scorecard, and the ledger's decisions.
+
+The review screens hold one ``ReviewSession`` and ask it for everything they show: the order of
+the list, filters, progress against the target share, chart data, suggested adjustments and the
+preview of an adjustment. Writing goes through ``commit_*`` (durable I/O, safe to call from a
+worker thread, changes nothing in memory) and then ``apply_event`` (updates the in-memory state;
+call it where the state is owned). Nothing here imports Textual.
+"""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from triage.core import adjust, ledger as ledger_mod, metrics, schema
+from triage.core.ledger import Event, Ledger
+from triage.core.portfolio import Portfolio
+from triage.core.ranking import BY_BIAS, BY_ERROR, scorecard
+
+#: Fields a reviewer can filter on besides the attribute columns.
+FILTER_FIELDS = ("pattern", "flag", "outcome")
+UNREVIEWED = "unreviewed"
+
+
+@dataclass(frozen=True)
+class Progress:
+    """How far the review has got in this cycle."""
+
+    reviewed: int
+    """Series with an effective decision in the cycle."""
+    series: int
+    """Series in the portfolio."""
+    covered: float
+    """Share of total ranking error held by the reviewed series (NaN when total error is 0)."""
+    target: float
+    """Share the reviewer aims to cover."""
+    to_target: int
+    """Series still needed, in error order, to reach the target (0 when reached)."""
+
+
+@dataclass(frozen=True)
+class ChartSeries:
+    """Arrays for the detail chart of one series, aligned on ``labels``."""
+
+    labels: tuple[str, ...]
+    demand: np.ndarray
+    forecast: np.ndarray
+    adjusted: np.ndarray | None
+    window_start: int
+    last_actual: int
+
+
+class ReviewSession:
+    """Everything the review screens need about one portfolio and one ledger.
+
+    Args:
+        portfolio: The loaded portfolio.
+        ledger: The open ledger, or None to review without saving (read-only view).
+        reviewer: Name stored with each decision.
+        window: Scoring window (periods with actuals).
+        season: Seasonal period of the naive baseline.
+        target_share: Share of total error the reviewer aims to cover.
+    """
+
+    def __init__(
+        self,
+        portfolio: Portfolio,
+        *,
+        ledger: Ledger | None,
+        reviewer: str,
+        window: int = 13,
+        season: int = 1,
+        target_share: float = 0.8,
+    ) -> None:
+        self.portfolio = portfolio
+        self.ledger = ledger
+        self.reviewer = reviewer
+        self.window = window
+        self.season = season
+        self.target_share = target_share
+        self.cycle = portfolio.cycle
+        card = scorecard(portfolio, window, season)
+        self.error_order = card.index.to_numpy(dtype=np.int64)
+        self.card = card.sort_index()
+        """Scorecard aligned on portfolio index (row i = series i)."""
+        self.priced = "abs_error_value" in self.card
+        self.error = self.card["abs_error_value" if self.priced else "abs_error"].to_numpy()
+        self.flag = np.select(
+            [self.card["bias_flag"].to_numpy() == "over", self.card["bias_flag"].to_numpy() == "under"],
+            [1, -1],
+            0,
+        ).astype(np.int8)
+        self.bias_order = np.argsort(self.card["bias_rank"].to_numpy(), kind="stable")
+        self.window_cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+        self.suggest_spec, self.suggest_reason = adjust.suggest(
+            self.card["bias"].to_numpy(),
+            self.card["demand"].to_numpy(),
+            self.card["forecast"].to_numpy(),
+            self.flag,
+            self.card["bias_run"].to_numpy(),
+            self.card["periods"].to_numpy(),
+        )
+        n = portfolio.n_series
+        self.outcome = np.full(n, "", dtype=object)
+        """Effective outcome code per series in this cycle, ``""`` when unreviewed."""
+        self.version = np.zeros(n, dtype=np.int64)
+        """Ledger version per series in this cycle (what the next write must expect)."""
+        self._key_index = self._build_key_index()
+        self._search: np.ndarray | None = None
+        self.forward_labels = tuple(
+            portfolio.calendar.label(i)
+            for i in range(portfolio.last_actual + 1, len(portfolio.calendar.periods))
+        )
+        self.forward_dates = tuple(
+            portfolio.calendar.periods[i].strftime("%Y-%m-%d")
+            for i in range(portfolio.last_actual + 1, len(portfolio.calendar.periods))
+        )
+        if ledger is not None:
+            self.reload()
+
+    # -- keys ---------------------------------------------------------------------------------
+
+    def _build_key_index(self) -> pd.Index:
+        keys = self.portfolio.keys
+        if schema.LOCATION in self.portfolio.key_columns:
+            return pd.MultiIndex.from_arrays([keys[schema.ITEM], keys[schema.LOCATION]])
+        return pd.Index(keys[schema.ITEM])
+
+    def key(self, series: int) -> tuple[str, str]:
+        """``(item, location)`` of a series as the ledger stores it (location ``""`` if none)."""
+        keys = self.portfolio.keys
+        location = keys[schema.LOCATION].iat[series] if schema.LOCATION in keys else ""
+        return str(keys[schema.ITEM].iat[series]), str(location)
+
+    def find(self, item: str, location: str = "") -> int | None:
+        """Portfolio index of a series by key, None when it is not in the portfolio."""
+        probe = (item, location) if isinstance(self._key_index, pd.MultiIndex) else item
+        try:
+            found = self._key_index.get_loc(probe)
+        except KeyError:
+            return None
+        return int(found) if isinstance(found, (int, np.integer)) else None
+
+    # -- ledger state -------------------------------------------------------------------------
+
+    def reload(self) -> None:
+        """Read this cycle's effective decisions and versions from the ledger."""
+        self.outcome[:] = ""
+        self.version[:] = 0
+        if self.ledger is None:
+            return
+        versions = self.ledger.versions(self.cycle)
+        if versions:
+            idx = self._indexer(list(versions))
+            vals = np.fromiter(versions.values(), dtype=np.int64, count=len(versions))
+            ok = idx >= 0
+            self.version[idx[ok]] = vals[ok]
+        decisions = self.ledger.current(self.cycle)
+        if decisions:
+            idx = self._indexer([(d.item, d.location) for d in decisions])
+            outcomes = np.array([d.outcome for d in decisions], dtype=object)
+            ok = idx >= 0
+            self.outcome[idx[ok]] = outcomes[ok]
+
+    def _indexer(self, pairs: list[tuple[str, str]]) -> np.ndarray:
+        if isinstance(self._key_index, pd.MultiIndex):
+            return self._key_index.get_indexer(pd.MultiIndex.from_tuples(pairs))
+        return self._key_index.get_indexer([p[0] for p in pairs])
+
+    @property
+    def can_save(self) -> bool:
+        """Whether decisions can be saved (a writable ledger is open)."""
+        return self.ledger is not None and not self.ledger.read_only
+
+    def _require_ledger(self) -> Ledger:
+        if self.ledger is None:
+            raise ledger_mod.LedgerReadOnlyError(
+                "no ledger is open, so decisions cannot be saved.", path="(none)"
+            )
+        return self.ledger
+
+    def commit_decision(
+        self,
+        series: int,
+        *,
+        outcome: str,
+        root_cause: str,
+        note: str = "",
+        adjustment: str | None = None,
+    ) -> Event:
+        """Save a decision durably; returns the event. In-memory state is not touched.
+
+        Raises:
+            DecisionError, StaleDecisionError, LedgerBusyError, LedgerWriteError,
+            LedgerReadOnlyError, AdjustError: nothing was saved.
+        """
+        ledger = self._require_ledger()
+        item, location = self.key(series)
+        lines = None
+        spec = None
+        if adjustment:
+            result = self.preview(series, adjustment)
+            spec = str(result.adjustment)
+            lines = result.lines(self.forward_dates)
+        return ledger.record(
+            self.cycle,
+            item,
+            location,
+            outcome=outcome,
+            root_cause=root_cause,
+            note=note,
+            reviewer=self.reviewer,
+            adjustment=spec,
+            lines=lines,
+            portfolio_name=self.portfolio.path.name,
+            portfolio_fingerprint=self.portfolio.fingerprint,
+            expected_version=int(self.version[series]),
+        )
+
+    def commit_undo(self, series: int) -> Event:
+        """Append an undo of the series' effective decision; in-memory state is not touched."""
+        ledger = self._require_ledger()
+        item, location = self.key(series)
+        return ledger.undo(
+            self.cycle,
+            item,
+            location,
+            reviewer=self.reviewer,
+            expected_version=int(self.version[series]),
+            portfolio_name=self.portfolio.path.name,
+            portfolio_fingerprint=self.portfolio.fingerprint,
+        )
+
+    def apply_event(self, event: Event) -> int | None:
+        """Bring the in-memory state in line with a committed event; returns its series."""
+        series = self.find(event.item, event.location)
+        if series is None or event.cycle != self.cycle:
+            return series
+        self.version[series] = event.version
+        if event.kind == ledger_mod.DECISION:
+            self.outcome[series] = event.outcome or ""
+        else:
+            current = [
+                d for d in self._require_ledger().current(self.cycle)
+                if (d.item, d.location) == (event.item, event.location)
+            ]
+            self.outcome[series] = current[0].outcome if current else ""
+        return series
+
+    def history(self, series: int) -> list[Event]:
+        """Every ledger event of the series, all cycles, oldest first."""
+        if self.ledger is None:
+            return []
+        item, location = self.key(series)
+        return self.ledger.history(item=item, location=location)
+
+    # -- ordering and filtering ---------------------------------------------------------------
+
+    def _search_text(self) -> np.ndarray:
+        if self._search is None:
+            keys = self.portfolio.keys
+            text = keys[schema.ITEM].astype(str)
+            for name in list(self.portfolio.key_columns[1:]) + list(self.portfolio.attributes):
+                text = text + "\x1f" + keys[name].astype(str)
+            self._search = text.str.casefold().to_numpy(dtype=object)
+        return self._search
+
+    def prepare(self) -> None:
+        """Build the search text in advance (slow for a million series; call from a worker)."""
+        self._search_text()
+
+    def filter_values(self, field: str) -> list[str]:
+        """Distinct values a field can be filtered on, sorted."""
+        return sorted(set(self._field(field).tolist()))
+
+    def filter_fields(self) -> tuple[str, ...]:
+        """Every field ``order`` accepts in ``filters``."""
+        extra = tuple(c for c in self.portfolio.key_columns[1:])
+        return extra + tuple(self.portfolio.attributes) + FILTER_FIELDS
+
+    def _field(self, field: str) -> np.ndarray:
+        if field == "pattern":
+            return self.card["pattern"].to_numpy(dtype=object)
+        if field == "flag":
+            return np.where(self.card["bias_flag"].to_numpy(dtype=object) == "", "none", self.card["bias_flag"].to_numpy(dtype=object))
+        if field == "outcome":
+            return np.where(self.outcome == "", UNREVIEWED, self.outcome)
+        if field in self.portfolio.keys.columns:
+            return self.portfolio.keys[field].to_numpy(dtype=object)
+        raise KeyError(field)
+
+    def order(
+        self,
+        by: str = BY_ERROR,
+        *,
+        text: str = "",
+        filters: dict[str, str] | None = None,
+    ) -> np.ndarray:
+        """Portfolio indices to show, in order: error or bias order, filtered.
+
+        Args:
+            by: ``"error"`` or ``"bias"``.
+            text: Case-insensitive substring of the key or any attribute.
+            filters: Field -> exact value (see ``filter_fields``).
+        """
+        base = self.error_order if by != BY_BIAS else self.bias_order
+        keep = np.ones(self.portfolio.n_series, dtype=bool)
+        if text:
+            needle = text.casefold()
+            found = pd.Series(self._search_text()).str.contains(needle, regex=False).to_numpy(dtype=bool)
+            keep &= found
+        for field, value in (filters or {}).items():
+            keep &= self._field(field) == value
+        if keep.all():
+            return base
+        return base[keep[base]]
+
+    def next_unreviewed(self, order: np.ndarray, after: int) -> int | None:
+        """Position in ``order`` of the first unreviewed series after position ``after``."""
+        pending = self.outcome[order] == ""
+        later = np.flatnonzero(pending[after + 1 :])
+        if len(later):
+            return int(after + 1 + later[0])
+        earlier = np.flatnonzero(pending[: after + 1])
+        return int(earlier[0]) if len(earlier) else None
+
+    def progress(self) -> Progress:
+        """Series reviewed and the share of total error they hold, against the target."""
+        done = self.outcome != ""
+        total = float(self.error.sum())
+        covered = float(self.error[done].sum()) / total if total > 0 else math.nan
+        to_target = 0
+        if total > 0 and covered < self.target_share:
+            remaining = self.error_order[~done[self.error_order]]
+            need = self.target_share * total - float(self.error[done].sum())
+            cum = np.cumsum(self.error[remaining])
+            to_target = int(np.searchsorted(cum, need - 1e-9 * total) + 1)
+            to_target = min(to_target, len(remaining))
+        return Progress(
+            reviewed=int(done.sum()),
+            series=self.portfolio.n_series,
+            covered=covered,
+            target=self.target_share,
+            to_target=to_target,
+        )
+
+    def totals(self) -> dict[str, float]:
+        """Portfolio totals over the window (see ``output.totals``)."""
+        from triage.core.output import totals
+
+        return totals(self.card)
+
+    # -- one series ---------------------------------------------------------------------------
+
+    def forward(self, series: int) -> np.ndarray:
+        """The series' forward forecast by horizon."""
+        return self.portfolio.forecast[series, self.portfolio.last_actual + 1 :]
+
+    def preview(self, series: int, spec: str) -> adjust.AdjustResult:
+        """What ``spec`` would do to the series' forward forecast (nothing is saved).
+
+        Raises:
+            AdjustSyntaxError, AdjustError: The spec is not valid for this series.
+        """
+        p = self.portfolio
+        cols = self.window_cols
+        price = None
+        if p.price is not None:
+            price = p.price[series, p.last_actual + 1 :]
+        return adjust.apply(
+            adjust.parse(spec),
+            self.forward(series),
+            recent_actuals=p.demand[series, : p.last_actual + 1],
+            window_demand=p.demand[series, cols],
+            window_forecast=p.forecast[series, cols],
+            price=price,
+        )
+
+    def chart(self, series: int, adjusted: np.ndarray | None = None) -> ChartSeries:
+        """Demand, forecast and (optionally) adjusted forward values of one series."""
+        p = self.portfolio
+        labels = tuple(p.calendar.label(i) for i in range(len(p.calendar.periods)))
+        adj = None
+        if adjusted is not None:
+            adj = np.full(len(labels), np.nan)
+            adj[p.last_actual + 1 :] = adjusted
+        return ChartSeries(
+            labels=labels,
+            demand=p.demand[series],
+            forecast=p.forecast[series],
+            adjusted=adj,
+            window_start=int(self.window_cols[0]),
+            last_actual=p.last_actual,
+        )
+
+    def describe(self, series: int) -> str:
+        """The metrics card in words, e.g. ``over-forecast by 23% over 13 weeks, 9 running``."""
+        row = self.card.iloc[series]
+        unit = "weeks" if self.portfolio.calendar.freq == schema.WEEKLY else "months"
+        periods = int(row["periods"])
+        if periods == 0:
+            return "no period in the window has both demand and a forecast"
+        parts = []
+        bias_pct = row["bias_pct"]
+        if isinstance(bias_pct, float) and not math.isnan(bias_pct):
+            direction = "over" if bias_pct > 0 else "under"
+            parts.append(f"{direction}-forecast by {abs(bias_pct) * 100:.0f}% over {periods} {unit}")
+        else:
+            parts.append(f"bias {row['bias']:+,.0f} units over {periods} {unit} (no positive demand)")
+        run = int(row["bias_run"])
+        if abs(run) >= 2:
+            parts.append(f"{abs(run)} {unit} running {'over' if run > 0 else 'under'}")
+        if row["bias_flag"]:
+            parts.append(f"persistent ({'sign test p = ' + format(row['bias_pvalue'], '.3f')})")
+        share = row["error_share"]
+        if isinstance(share, float) and not math.isnan(share):
+            parts.append(f"{share * 100:.1f}% of portfolio error (rank {int(row['rank'])})")
+        return "; ".join(parts)

@@ -1,0 +1,1 @@
+"""Textual review screens; they call triage.core and compute nothing themselves."""

@@ -1,0 +1,628 @@
+"""The review screens: work through the weekly worst-offender list at the keyboard."""
+
+from __future__ import annotations
+
+import math
+from dataclasses import dataclass, field
+from pathlib import Path
+
+import numpy as np
+from rich.text import Text
+from textual import on, work
+from textual.app import App, ComposeResult, SystemCommand
+from textual.binding import Binding
+from textual.containers import Container, Vertical, VerticalScroll
+from textual.widgets import Footer, ProgressBar, Static
+from textual.worker import Worker, WorkerState
+
+from triage.core import ledger as ledger_mod
+from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
+from triage.core.errors import TriageError
+from triage.core.review import FILTER_FIELDS, ReviewSession
+from triage.tui import format as fmt
+from triage.tui.messages import Exported, Loaded, LoadStep, Saved, SaveFailed
+from triage.tui.screens.decision import DecisionScreen, Draft, chart_data
+from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
+from triage.tui.widgets.chart import SeriesChart
+from triage.tui.widgets.series_list import SeriesList
+
+CAUTION = (
+    "Decisions and adjusted forecasts are advisory: check them in the planning system "
+    "before they move stock or money."
+)
+
+
+@dataclass
+class Options:
+    """How the app was started."""
+
+    portfolio: Path
+    ledger: Path | None = None
+    reviewer: str = ""
+    window: int = 13
+    season: int = 1
+    columns: dict[str, str] | None = None
+    sheet: str | None = None
+    lag: int | None = None
+    target_share: float = 0.8
+    root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
+    notices: list[str] = field(default_factory=list)
+
+
+def _cause_bindings() -> list[Binding]:
+    return [
+        Binding(
+            digit,
+            f"cause({i})",
+            f"Root cause {digit}",
+            show=False,
+            id=f"review.cause_{digit}",
+            tooltip="Choose the root cause used by the quick decisions",
+        )
+        for i, digit in enumerate("1234567890")
+    ]
+
+
+class TriageApp(App[None]):
+    """Review one portfolio's worst offenders and record decisions in the ledger.
+
+    | Key | Action |
+    | --- | --- |
+    | enter | open the decision dialog |
+    | c / h / l | quick decision: no change / hand off / later |
+    | a | adjust the forward forecast |
+    | s | take the suggested adjustment |
+    | 1-9, 0 | root cause for quick decisions |
+    | u | undo the series' last decision |
+    | n | next unreviewed series |
+    | / | filter by text; f: by field; escape: clear |
+    | b | switch order: error / bias |
+    | g | go to a series by key |
+    | x | export decisions and the adjusted forecast |
+    | ? | help |
+    | q | quit |
+    """
+
+    CSS_PATH = "triage.tcss"
+    TITLE = "triage"
+
+    BINDINGS = [
+        Binding("enter", "decide", "Decide", id="review.decide", tooltip="Open the decision dialog for the highlighted series"),
+        Binding("c", "quick('no_change')", "No change", id="review.no_change", tooltip="Record 'no change needed' with the chosen root cause"),
+        Binding("a", "adjust", "Adjust", id="review.adjust", tooltip="Open the decision dialog on the adjustment field"),
+        Binding("n", "next_unreviewed", "Next", id="review.next", tooltip="Jump to the next series without a decision this cycle"),
+        Binding("u", "undo", "Undo", id="review.undo", tooltip="Undo the highlighted series' last decision (a new ledger event)"),
+        Binding("slash", "filter_text", "Filter", id="find.text", tooltip="Show only series whose key or attributes contain a text"),
+        Binding("question_mark", "help", "Help", id="app.help", tooltip="List every key"),
+        Binding("q", "quit", "Quit", id="app.quit", tooltip="Quit (every decision is already saved)"),
+        Binding("h", "quick('handed_off')", "Hand off", show=False, id="review.handed_off", tooltip="Record 'handed to someone else'"),
+        Binding("l", "quick('deferred')", "Later", show=False, id="review.deferred", tooltip="Record 'put off to a later cycle'"),
+        Binding("s", "take_suggestion", "Take suggestion", show=False, id="review.suggestion", tooltip="Open the dialog with the suggested adjustment filled in"),
+        *_cause_bindings(),
+        Binding("f", "filter_field", "Filter by field", show=False, id="find.field", tooltip="Filter by an attribute, pattern, bias flag or review outcome"),
+        Binding("escape", "clear_filter", "Clear filter", show=False, id="find.clear", tooltip="Remove every filter"),
+        Binding("b", "toggle_order", "Error/bias order", show=False, id="find.order", tooltip="Order by share of error, or by persistent bias"),
+        Binding("g", "jump", "Go to series", show=False, id="find.jump", tooltip="Jump to a series by its item (and location)"),
+        Binding("x", "export", "Export", show=False, id="app.export", tooltip="Export decisions and the adjusted forward forecast"),
+    ]
+
+    def __init__(self, options: Options) -> None:
+        super().__init__()
+        self.options = options
+        self.session: ReviewSession | None = None
+        self.by = "error"
+        self.text_filter = ""
+        self.field_filters: dict[str, str] = {}
+        self.pending_cause: dict[int, str] = {}
+        self.drafts: dict[int, Draft] = {}
+        self.status_text = ""
+        self._arrays: dict[str, np.ndarray] = {}
+
+    # -- layout -------------------------------------------------------------------------------
+
+    def compose(self) -> ComposeResult:
+        yield Static(Text("loading…"), id="summary")
+        with Vertical(id="loading"):
+            yield Static(Text(f"Loading {self.options.portfolio}"), id="loading-label")
+            yield ProgressBar(total=5, show_eta=False, id="loading-bar")
+        with Container(id="main"):
+            yield SeriesList(fmt.LIST_COLUMNS, self._format_row, id="list")
+            with VerticalScroll(id="detail"):
+                yield Static(Text(""), id="detail-title")
+                yield SeriesChart(id="chart")
+                yield Static(Text(""), id="detail-card")
+                yield Static(Text(""), id="detail-suggest")
+                yield Static(Text(""), id="detail-attrs")
+                yield Static(Text(""), id="detail-history")
+        yield Static(Text(""), id="status")
+        yield Footer()
+
+    def on_mount(self) -> None:
+        self.query_one("#main").display = False
+        self._fit_layout(self.size.width)
+        self.load()
+
+    def on_resize(self, event) -> None:  # noqa: ANN001
+        self._fit_layout(event.size.width)
+
+    def _fit_layout(self, width: int) -> None:
+        self.set_class(width < 140, "-narrow")
+
+    # -- loading ------------------------------------------------------------------------------
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="load", name="load")
+    def load(self) -> None:
+        """Read, score and open the ledger off the UI thread, posting progress."""
+        from triage.core.portfolio import read_portfolio
+
+        opts = self.options
+        steps = 5
+        self.post_message(LoadStep(0, steps, f"reading {opts.portfolio.name}"))
+        portfolio = read_portfolio(opts.portfolio, columns=opts.columns, sheet=opts.sheet, lag=opts.lag)
+        self.post_message(LoadStep(1, steps, "opening the ledger"))
+        notices = list(opts.notices) + list(portfolio.notices)
+        ledger = None
+        path = opts.ledger
+        try:
+            if path is None:
+                path, note = ledger_mod.default_ledger_path(opts.portfolio)
+                if note:
+                    notices.append(note)
+            ledger = ledger_mod.Ledger.open(path, root_causes=opts.root_causes)
+            if ledger.notice:
+                notices.append(ledger.notice)
+        except TriageError as exc:
+            notices.append(f"{exc} Decisions cannot be saved in this session.")
+        self.post_message(LoadStep(2, steps, "scoring every series"))
+        session = ReviewSession(
+            portfolio,
+            ledger=ledger,
+            reviewer=opts.reviewer,
+            window=opts.window,
+            season=opts.season,
+            target_share=opts.target_share,
+        )
+        self.post_message(LoadStep(3, steps, "indexing for search"))
+        session.prepare()
+        self.post_message(LoadStep(4, steps, "drawing"))
+        self.post_message(Loaded(session, tuple(notices)))
+
+    @on(LoadStep)
+    def _load_step(self, message: LoadStep) -> None:
+        self.query_one("#loading-bar", ProgressBar).update(total=message.total, progress=message.step)
+        self.query_one("#loading-label", Static).update(Text(f"Loading: {message.label}…"))
+
+    @on(Loaded)
+    def _loaded(self, message: Loaded) -> None:
+        session = message.session
+        self.session = session
+        card = session.card
+        self._arrays = {
+            "rank": card["rank"].to_numpy(),
+            "item": session.portfolio.keys["item"].to_numpy(dtype=object),
+            "location": session.portfolio.keys["location"].to_numpy(dtype=object)
+            if "location" in session.portfolio.keys
+            else np.full(session.portfolio.n_series, "", dtype=object),
+            "share": card["error_share"].to_numpy(),
+            "cum": card["cum_share"].to_numpy(),
+            "error": session.error,
+            "bias_pct": card["bias_pct"].to_numpy(),
+            "ts": card["tracking_signal"].to_numpy(),
+            "pattern": card["pattern"].to_numpy(dtype=object),
+        }
+        self.query_one("#loading").display = False
+        self.query_one("#main").display = True
+        series_list = self.query_one(SeriesList)
+        series_list.set_order(session.order(self.by))
+        series_list.focus()
+        self._refresh_summary()
+        for note in message.notices:
+            self.notify(note, severity="warning", timeout=10)
+        if message.notices:
+            self._status(" | ".join(message.notices))
+
+    def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
+        """Show every worker failure; none is swallowed."""
+        if event.state != WorkerState.ERROR:
+            return
+        error = event.worker.error
+        text = str(error) if isinstance(error, TriageError) else f"{type(error).__name__}: {error}"
+        if event.worker.name == "load":
+            self.query_one("#loading-label", Static).update(
+                Text(f"Cannot open the portfolio:\n{text}\n\nPress q to quit.", style="bold")
+            )
+        self._status(f"error: {text}")
+        self.notify(text, severity="error", timeout=15)
+
+    # -- list and detail ----------------------------------------------------------------------
+
+    def _format_row(self, series: int) -> dict[str, fmt.Cell]:
+        a = self._arrays
+        session = self.session
+        assert session is not None
+        flag = int(session.flag[series])
+        outcome = session.outcome[series]
+        cols = session.window_cols[-fmt.SPARK_PERIODS :]
+        p = session.portfolio
+        return {
+            "rank": (str(a["rank"][series]), None),
+            "item": (a["item"][series], None),
+            "location": (a["location"][series], None),
+            "share": (fmt.pct(a["share"][series]), None),
+            "cum": (fmt.pct(a["cum"][series], 0), "dim"),
+            "error": (fmt.compact(a["error"][series]), None),
+            "bias": fmt.signed_pct(a["bias_pct"][series]),
+            "ts": ("" if math.isnan(a["ts"][series]) else f"{a['ts'][series]:+.1f}", None),
+            "flag": (("▲ over" if flag > 0 else "▼ under") if flag else "", "flag" if flag else None),
+            "pattern": (fmt.PATTERN_SHORT.get(a["pattern"][series], a["pattern"][series]), "dim"),
+            "outcome": (("✓ " + fmt.OUTCOME_SHORT[outcome]) if outcome else "·", "done" if outcome else "dim"),
+            "spark": (fmt.sparkline(p.demand[series, cols], p.forecast[series, cols]), None),
+        }
+
+    @on(SeriesList.Highlighted)
+    def _highlighted(self, message: SeriesList.Highlighted) -> None:
+        self._show_detail(message.series)
+
+    def _show_detail(self, series: int | None) -> None:
+        session = self.session
+        if session is None:
+            return
+        title = self.query_one("#detail-title", Static)
+        if series is None:
+            title.update(Text("no series matches the filter"))
+            self.query_one("#chart", SeriesChart).show(None)
+            for name in ("#detail-card", "#detail-suggest", "#detail-attrs", "#detail-history"):
+                self.query_one(name, Static).update(Text(""))
+            return
+        card = session.card.iloc[series]
+        key = " @ ".join(k for k in session.key(series) if k)
+        title.update(Text.assemble((key, "bold"), f"   rank {int(card['rank'])} of {session.portfolio.n_series:,}"))
+        self.query_one("#chart", SeriesChart).show(chart_data(session, series))
+        value = f" (value {fmt.compact(card['abs_error_value'])})" if session.priced else ""
+        lines = [
+            session.describe(series),
+            f"abs error {fmt.compact(card['abs_error'])}{value} · WAPE {fmt.pct(card['wape'])} · "
+            f"MAE {card['mae']:.1f} · RMSE {card['rmse']:.1f}"
+            if card["periods"]
+            else "no counted period in the window",
+            f"tracking signal {card['tracking_signal']:+.1f} · run {int(card['bias_run']):+d} · "
+            f"sign test p {card['bias_pvalue']:.3f} · MASE {card['mase']:.2f} · "
+            f"FVA {card['fva']:+.1f}/period vs naive · {card['pattern']} (ADI {card['adi']:.2f}, CV² {card['cv2']:.2f})",
+        ]
+        cause = self.pending_cause.get(series)
+        if cause:
+            label = next((c.label for c in self.options.root_causes if c.code == cause), cause)
+            lines.append(f"root cause for quick decisions: {label}")
+        self.query_one("#detail-card", Static).update(Text("\n".join(lines)))
+        spec, reason = session.suggest_spec[series], session.suggest_reason[series]
+        self.query_one("#detail-suggest", Static).update(
+            Text(f"suggested: {spec} ({reason}); press s to take it") if spec else Text("")
+        )
+        attrs = [f"{name}: {session.portfolio.keys[name].iat[series]}" for name in session.portfolio.attributes]
+        self.query_one("#detail-attrs", Static).update(Text(" · ".join(attrs)))
+        self.query_one("#detail-history", Static).update(self._history_text(series))
+
+    def _history_text(self, series: int) -> Text:
+        assert self.session is not None
+        events = self.session.history(series)
+        if not events:
+            return Text("no earlier decisions", style="dim")
+        text = Text("decisions:\n", style="bold")
+        for e in events[-8:]:
+            if e.kind == ledger_mod.UNDO:
+                text.append(f"  {e.cycle}  undo by {e.reviewer} at {e.recorded_at}\n")
+                continue
+            adj = f" {e.adjustment}" if e.adjustment else ""
+            note = e.note.splitlines()[0] if e.note else ""
+            text.append(f"  {e.cycle}  {fmt.OUTCOME_SHORT.get(e.outcome or '', e.outcome)}{adj} ({e.root_cause}) by {e.reviewer} at {e.recorded_at}")
+            text.append(f"  {note}\n" if note else "\n")
+        return text
+
+    def _refresh_summary(self) -> None:
+        session = self.session
+        if session is None:
+            return
+        tot = session.totals()
+        prog = session.progress()
+        p = session.portfolio
+        value = f" (value {fmt.compact(tot['abs_error_value'])})" if session.priced else ""
+        filt = []
+        if self.text_filter:
+            filt.append(f'"{self.text_filter}"')
+        filt.extend(f"{k}={v}" for k, v in self.field_filters.items())
+        shown = len(self.query_one(SeriesList).order)
+        target = f"target {prog.target * 100:.0f}%" + (f", {prog.to_target} more" if prog.to_target else " reached")
+        summary = Text.assemble(
+            (p.path.name, "bold"),
+            f" · {p.n_series:,} series · cycle {p.cycle} · abs err {fmt.compact(tot['abs_error'])}{value}"
+            f" · bias {fmt.signed_pct(tot['bias_pct'])[0] or 'n/a'} · WAPE {fmt.pct(tot['wape']) or 'n/a'}\n",
+            (f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})", "bold"),
+            f" · order: {self.by} · showing {shown:,}" + (f" · filter: {', '.join(filt)}" if filt else ""),
+        )
+        self.query_one("#summary", Static).update(summary)
+
+    def _status(self, text: str) -> None:
+        self.status_text = text
+        self.query_one("#status", Static).update(Text(text))
+
+    def _apply_order(self) -> None:
+        session = self.session
+        if session is None:
+            return
+        series_list = self.query_one(SeriesList)
+        current = series_list.current
+        series_list.set_order(
+            session.order(self.by, text=self.text_filter, filters=self.field_filters), keep=current
+        )
+        self._refresh_summary()
+
+    # -- actions: finding ---------------------------------------------------------------------
+
+    def action_toggle_order(self) -> None:
+        self.by = "bias" if self.by == "error" else "error"
+        self._apply_order()
+
+    def action_filter_text(self) -> None:
+        def done(value: str | None) -> None:
+            if value is not None:
+                self.text_filter = value.strip()
+                self._apply_order()
+
+        self.push_screen(PromptScreen("Filter: show series whose key or attributes contain", value=self.text_filter), done)
+
+    def action_filter_field(self) -> None:
+        session = self.session
+        if session is None:
+            return
+
+        def chose_value(field: str, value: str | None) -> None:
+            if value is not None:
+                self.field_filters[field] = value
+                self._apply_order()
+
+        def chose_field(field_name: str | None) -> None:
+            if field_name is None:
+                return
+            values = session.filter_values(field_name)
+            self.push_screen(
+                ChooseScreen(f"Show only {field_name} =", [(v, v) for v in values[:500]]),
+                lambda v: chose_value(field_name, v),
+            )
+
+        fields = [(f, f) for f in session.filter_fields()]
+        self.push_screen(ChooseScreen("Filter by", fields), chose_field)
+
+    def action_clear_filter(self) -> None:
+        if self.text_filter or self.field_filters:
+            self.text_filter = ""
+            self.field_filters = {}
+            self._apply_order()
+
+    def action_jump(self) -> None:
+        session = self.session
+        if session is None:
+            return
+
+        def done(value: str | None) -> None:
+            if not value:
+                return
+            item, _, location = value.partition("@")
+            series = session.find(item.strip(), location.strip())
+            if series is None:
+                self._status(f"no series {value.strip()!r} in this portfolio")
+                return
+            series_list = self.query_one(SeriesList)
+            hits = np.flatnonzero(series_list.order == series)
+            if not len(hits):
+                self.action_clear_filter()
+                hits = np.flatnonzero(series_list.order == series)
+            series_list.cursor = int(hits[0])
+
+        self.push_screen(PromptScreen("Go to series: item (or item @ location)"), done)
+
+    def action_next_unreviewed(self) -> None:
+        session = self.session
+        if session is None:
+            return
+        series_list = self.query_one(SeriesList)
+        position = session.next_unreviewed(series_list.order, series_list.cursor)
+        if position is None:
+            self._status("every series shown has a decision this cycle")
+            return
+        series_list.cursor = position
+
+    # -- actions: deciding --------------------------------------------------------------------
+
+    def action_cause(self, index: int) -> None:
+        series = self.query_one(SeriesList).current
+        causes = self.options.root_causes
+        if series is None or index >= len(causes):
+            return
+        self.pending_cause[series] = causes[index].code
+        self._status(f"root cause: {causes[index].label}")
+        self._show_detail(series)
+
+    def _draft_for(self, series: int, *, outcome: str, adjustment: str = "") -> Draft:
+        kept = self.drafts.get(series)
+        if kept is not None:
+            return kept
+        return Draft(
+            series=series,
+            outcome=outcome,
+            root_cause=self.pending_cause.get(series, "unknown"),
+            note="",
+            adjustment=adjustment,
+        )
+
+    def _open_dialog(self, draft: Draft) -> None:
+        session = self.session
+        assert session is not None
+
+        def done(result: Draft | None) -> None:
+            if result is not None:
+                self.drafts[result.series] = result
+                self.save(result)
+
+        self.push_screen(DecisionScreen(session, draft.series, draft, self.options.root_causes), done)
+
+    def action_decide(self) -> None:
+        series = self.query_one(SeriesList).current
+        if series is not None and self.session is not None:
+            self._open_dialog(self._draft_for(series, outcome="no_change"))
+
+    def action_adjust(self) -> None:
+        series = self.query_one(SeriesList).current
+        if series is not None and self.session is not None:
+            self._open_dialog(self._draft_for(series, outcome=ledger_mod.ADJUSTED))
+
+    def action_take_suggestion(self) -> None:
+        session = self.session
+        series = self.query_one(SeriesList).current
+        if series is None or session is None:
+            return
+        spec = session.suggest_spec[series]
+        if not spec:
+            self._status("no suggested adjustment for this series")
+            return
+        draft = self._draft_for(series, outcome=ledger_mod.ADJUSTED, adjustment=spec)
+        if not draft.adjustment:
+            draft = Draft(draft.series, ledger_mod.ADJUSTED, draft.root_cause, draft.note, spec)
+        self._open_dialog(draft)
+
+    def action_quick(self, outcome: str) -> None:
+        series = self.query_one(SeriesList).current
+        if series is None or self.session is None:
+            return
+        self.save(
+            Draft(
+                series=series,
+                outcome=outcome,
+                root_cause=self.pending_cause.get(series, "unknown"),
+                note="",
+                adjustment="",
+            )
+        )
+
+    @work(thread=True, exit_on_error=False, group="ledger")
+    def save(self, draft: Draft) -> None:
+        """Commit a decision off the UI thread; the screen says saved only after COMMIT."""
+        session = self.session
+        assert session is not None
+        self.call_from_thread(self._status, "saving…")
+        try:
+            event = session.commit_decision(
+                draft.series,
+                outcome=draft.outcome,
+                root_cause=draft.root_cause,
+                note=draft.note,
+                adjustment=draft.adjustment or None,
+            )
+        except TriageError as exc:
+            self.post_message(SaveFailed(draft.series, str(exc)))
+            return
+        self.post_message(Saved(event, fmt.OUTCOME_SHORT.get(draft.outcome, draft.outcome)))
+
+    def action_undo(self) -> None:
+        series = self.query_one(SeriesList).current
+        if series is not None and self.session is not None:
+            self.undo(series)
+
+    @work(thread=True, exit_on_error=False, group="ledger")
+    def undo(self, series: int) -> None:
+        """Append an undo event off the UI thread."""
+        session = self.session
+        assert session is not None
+        try:
+            event = session.commit_undo(series)
+        except TriageError as exc:
+            self.post_message(SaveFailed(series, str(exc)))
+            return
+        self.post_message(Saved(event, "undone"))
+
+    @on(Saved)
+    def _saved(self, message: Saved) -> None:
+        session = self.session
+        assert session is not None
+        series = session.apply_event(message.event)
+        if series is not None:
+            self.drafts.pop(series, None)
+            self.query_one(SeriesList).invalidate(series)
+            if series == self.query_one(SeriesList).current:
+                self._show_detail(series)
+        key = " @ ".join(k for k in (message.event.item, message.event.location) if k)
+        self._status(f"saved: {key} {message.what} (ledger event {message.event.id})")
+        self._refresh_summary()
+
+    @on(SaveFailed)
+    def _save_failed(self, message: SaveFailed) -> None:
+        self._status(f"NOT saved: {message.error} (your entry is kept: press enter to retry)")
+        self.notify(f"Not saved: {message.error}", severity="error", timeout=15)
+
+    # -- export and help ----------------------------------------------------------------------
+
+    def action_export(self) -> None:
+        session = self.session
+        if session is None:
+            return
+        p = session.portfolio
+        default = str(p.path.with_name(f"{p.path.stem}-review-{session.cycle}.xlsx"))
+
+        def done(value: str | None) -> None:
+            if value:
+                self.export(Path(value).expanduser())
+
+        self.push_screen(
+            PromptScreen(
+                "Export decisions and adjusted forecast to (.xlsx, .csv or .json)",
+                value=default,
+                note=CAUTION,
+            ),
+            done,
+        )
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="export")
+    def export(self, target: Path) -> None:
+        """Write the export off the UI thread (same core function as ``triage export``)."""
+        from triage.core.export import export_review
+
+        session = self.session
+        assert session is not None
+        if session.ledger is None:
+            raise TriageError("no ledger is open, so there are no decisions to export.")
+        self.call_from_thread(self._status, f"exporting to {target}…")
+        result = export_review(session.portfolio, session.ledger, target, force=False)
+        written = ", ".join(str(p) for p in result.paths)
+        self.post_message(Exported(f"exported: {written}. {CAUTION}"))
+
+    @on(Exported)
+    def _exported(self, message: Exported) -> None:
+        self._status(message.summary)
+        self.notify(message.summary, timeout=10)
+
+    def help_rows(self) -> list[tuple[str, str, str]]:
+        """(keys, description, tooltip) for every binding of the main screen and the list."""
+        rows = []
+        for binding in [*SeriesList.BINDINGS, *self.BINDINGS]:
+            assert isinstance(binding, Binding)
+            rows.append((binding.key, binding.description, binding.tooltip))
+        rows.append(("ctrl+s", "Save (decision dialog)", "Save the decision to the ledger"))
+        rows.append(("ctrl+p", "Command palette", "Search every action by name"))
+        return rows
+
+    def action_help(self) -> None:
+        self.push_screen(HelpScreen(self.help_rows()))
+
+    def get_system_commands(self, screen):  # noqa: ANN001, ANN201 - Textual's signature
+        """The main review actions, searchable in the command palette (ctrl+p)."""
+        yield from super().get_system_commands(screen)
+        for binding in self.BINDINGS:
+            assert isinstance(binding, Binding)
+            if binding.show or binding.id in {"review.suggestion", "find.field", "find.order", "find.jump", "app.export"}:
+                yield SystemCommand(
+                    binding.description,
+                    f"{binding.tooltip} (key: {binding.key})",
+                    lambda action=binding.action: self.run_action(action),
+                )
+
+
+__all__ = ["CAUTION", "FILTER_FIELDS", "Options", "TriageApp"]

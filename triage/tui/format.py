@@ -1,0 +1,99 @@
+"""Turning the session's numbers into the short texts the list and the detail pane show."""
+
+from __future__ import annotations
+
+import math
+
+import numpy as np
+
+from triage.tui.widgets.series_list import Cell, Column
+
+BLOCKS = "▁▂▃▄▅▆▇█"
+MISSING = "·"
+#: Periods drawn in the list's inline chart.
+SPARK_PERIODS = 8
+
+OUTCOME_SHORT = {
+    "no_change": "no change",
+    "adjusted": "adjusted",
+    "handed_off": "handed off",
+    "deferred": "later",
+    "": "",
+}
+PATTERN_SHORT = {
+    "smooth": "smooth",
+    "erratic": "erratic",
+    "intermittent": "intermit",
+    "lumpy": "lumpy",
+    "none": "no demand",
+}
+
+LIST_COLUMNS = (
+    Column("rank", "#", 6, right=True, keep=9),
+    Column("item", "item", 14, keep=10),
+    Column("location", "loc", 6, keep=5),
+    Column("share", "share", 6, right=True, keep=7),
+    Column("cum", "cum", 6, right=True, keep=2),
+    Column("error", "abs err", 9, right=True, keep=8),
+    Column("bias", "bias", 12, right=True, keep=8),
+    Column("ts", "TS", 6, right=True, keep=3),
+    Column("flag", "flag", 7, keep=6),
+    Column("pattern", "pattern", 9, keep=4),
+    Column("outcome", "review", 10, keep=7),
+    Column("spark", "demand | forecast", 2 * SPARK_PERIODS + 1, keep=7),
+)
+
+
+def pct(value: float, digits: int = 1) -> str:
+    """``12.3%``; empty when undefined."""
+    return "" if value is None or math.isnan(value) else f"{value * 100:.{digits}f}%"
+
+
+def compact(value: float) -> str:
+    """``1,234`` / ``12.3k`` / ``4.5M``: short numbers for narrow columns."""
+    if value is None or math.isnan(value):
+        return ""
+    size = abs(value)
+    if size >= 10_000_000:
+        return f"{value / 1e6:.1f}M"
+    if size >= 100_000:
+        return f"{value / 1e3:.0f}k"
+    return f"{value:,.0f}"
+
+
+def signed_pct(value: float) -> Cell:
+    """``+12.3% over`` with a style name: over and under differ in words, not only colour."""
+    if value is None or math.isnan(value):
+        return ("", None)
+    if value > 0:
+        return (f"+{value * 100:.1f}% over", "over")
+    if value < 0:
+        return (f"{value * 100:.1f}% under", "under")
+    return ("0.0%", None)
+
+
+def sparkline(demand: np.ndarray, forecast: np.ndarray) -> str:
+    """Demand and forecast of the same periods side by side, on one shared scale.
+
+    Each value becomes one of eight block heights between the joint minimum and maximum of both
+    series; a missing value is a dot, never a zero.
+    """
+    values = np.concatenate([demand, forecast])
+    finite = values[np.isfinite(values)]
+    if not len(finite):
+        return MISSING * len(demand) + "|" + MISSING * len(forecast)
+    low, high = float(finite.min()), float(finite.max())
+    span = high - low
+
+    def draw(arr: np.ndarray) -> str:
+        out = []
+        for v in arr:
+            if not np.isfinite(v):
+                out.append(MISSING)
+            elif span == 0:
+                out.append(BLOCKS[3])
+            else:
+                out.append(BLOCKS[min(7, int((v - low) / span * 7 + 0.5))])
+        return "".join(out)
+
+    return draw(demand) + "|" + draw(forecast)

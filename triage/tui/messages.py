@@ -1,0 +1,63 @@
+"""Messages that workers post back to the review screens."""
+
+from __future__ import annotations
+
+from textual.message import Message
+
+from triage.core.ledger import Event
+from triage.core.review import ReviewSession
+
+
+class LoadStep(Message):
+    """The loading worker reached another step."""
+
+    def __init__(self, step: int, total: int, label: str) -> None:
+        super().__init__()
+        self.step = step
+        """Steps done so far."""
+        self.total = total
+        """Steps in all."""
+        self.label = label
+        """What is being done now."""
+
+
+class Loaded(Message):
+    """The portfolio is loaded, scored and the ledger read."""
+
+    def __init__(self, session: ReviewSession, notices: tuple[str, ...]) -> None:
+        super().__init__()
+        self.session = session
+        """The review session to show."""
+        self.notices = notices
+        """Things the reviewer should know (ledger opened read-only, prices filled...)."""
+
+
+class Saved(Message):
+    """A decision (or undo) is durably in the ledger."""
+
+    def __init__(self, event: Event, what: str) -> None:
+        super().__init__()
+        self.event = event
+        """The committed event."""
+        self.what = what
+        """Short description for the status line."""
+
+
+class SaveFailed(Message):
+    """A decision could not be saved; nothing was written."""
+
+    def __init__(self, series: int, error: str) -> None:
+        super().__init__()
+        self.series = series
+        """Portfolio index of the series."""
+        self.error = error
+        """Why, in words for the reviewer."""
+
+
+class Exported(Message):
+    """An export finished."""
+
+    def __init__(self, summary: str) -> None:
+        super().__init__()
+        self.summary = summary
+        """What was written."""

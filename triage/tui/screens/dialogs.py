@@ -1,0 +1,96 @@
+"""Small modal dialogs: a one-line prompt, a list to choose from, and the key help."""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+
+from rich.table import Table
+from rich.text import Text
+from textual import on
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical, VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Input, OptionList, Static
+from textual.widgets.option_list import Option
+
+
+class PromptScreen(ModalScreen[str | None]):
+    """Ask for one line of text; ``enter`` answers, ``escape`` cancels (None)."""
+
+    BINDINGS = [Binding("escape", "cancel", "Cancel", id="prompt.cancel")]
+
+    def __init__(self, title: str, *, value: str = "", placeholder: str = "", note: str = "") -> None:
+        super().__init__()
+        self._title = title
+        self._value = value
+        self._placeholder = placeholder
+        self._note = note
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog"):
+            yield Static(Text(self._title, style="bold"), classes="dialog-title")
+            yield Input(value=self._value, placeholder=self._placeholder, id="prompt-input")
+            if self._note:
+                yield Static(Text(self._note), classes="dialog-note")
+            yield Static(Text("enter: ok   escape: cancel"), classes="dialog-keys")
+
+    @on(Input.Submitted)
+    def _submit(self, event: Input.Submitted) -> None:
+        self.dismiss(event.value)
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)
+
+
+class ChooseScreen(ModalScreen[str | None]):
+    """Pick one entry of a list; answers the entry's id, or None on ``escape``."""
+
+    BINDINGS = [Binding("escape", "cancel", "Cancel", id="choose.cancel")]
+
+    def __init__(self, title: str, choices: Sequence[tuple[str, str]]) -> None:
+        super().__init__()
+        self._title = title
+        self._choices = list(choices)
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog"):
+            yield Static(Text(self._title, style="bold"), classes="dialog-title")
+            yield OptionList(
+                *[Option(Text(label), id=str(i)) for i, (_, label) in enumerate(self._choices)],
+                id="choose-list",
+            )
+            yield Static(Text("enter: choose   escape: cancel"), classes="dialog-keys")
+
+    @on(OptionList.OptionSelected)
+    def _chosen(self, event: OptionList.OptionSelected) -> None:
+        self.dismiss(self._choices[int(event.option.id or 0)][0])
+
+    def action_cancel(self) -> None:
+        self.dismiss(None)
+
+
+class HelpScreen(ModalScreen[None]):
+    """Every key binding of the review screens, with what it does."""
+
+    BINDINGS = [Binding("escape,q,question_mark", "close", "Close", id="help.close")]
+
+    def __init__(self, rows: Sequence[tuple[str, str, str]]) -> None:
+        super().__init__()
+        self._rows = list(rows)
+
+    def compose(self) -> ComposeResult:
+        table = Table(box=None, show_header=True, header_style="bold", expand=True)
+        table.add_column("key", no_wrap=True)
+        table.add_column("action")
+        table.add_column("what it does")
+        for key, description, tooltip in self._rows:
+            table.add_row(Text(key), Text(description), Text(tooltip))
+        with Vertical(classes="dialog help"):
+            yield Static(Text("Keys", style="bold"), classes="dialog-title")
+            with VerticalScroll():
+                yield Static(table)
+            yield Static(Text("escape, q or ?: close"), classes="dialog-keys")
+
+    def action_close(self) -> None:
+        self.dismiss(None)

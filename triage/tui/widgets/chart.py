@@ -1,0 +1,102 @@
+"""Demand against forecast for one series, drawn with plotext on a figure of its own."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from plotext._figure import _figure_class
+from rich.text import Text
+from textual.widgets import Static
+
+
+@dataclass(frozen=True)
+class ChartData:
+    """What the chart shows for one series; arrays are aligned on ``labels``."""
+
+    labels: tuple[str, ...]
+    """Period labels (ISO dates), history then forward."""
+    demand: np.ndarray
+    """Actual demand, NaN where missing or forward."""
+    forecast: np.ndarray
+    """Forecast at the scored lag, then the forward forecast."""
+    adjusted: np.ndarray | None
+    """Adjusted forward forecast (NaN outside the forward range), or None."""
+    window_start: int
+    """First period of the scoring window."""
+    last_actual: int
+    """Last period with actuals; forward periods follow it."""
+
+
+def _segments(values: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
+    """Contiguous runs of finite values, so a gap is drawn as a gap, never as a zero."""
+    finite = np.isfinite(values)
+    if not finite.any():
+        return []
+    idx = np.flatnonzero(finite)
+    breaks = np.flatnonzero(np.diff(idx) > 1) + 1
+    return [(run, values[run]) for run in np.split(idx, breaks)]
+
+
+def render_chart(data: ChartData, width: int, height: int) -> Text:
+    """Draw the chart as Rich text (plotext's ANSI output, decoded; no markup involved)."""
+    fig = _figure_class()
+    fig.plot_size(max(width, 20), max(height, 6))
+    fig.theme("clear")
+    series = [
+        ("demand", data.demand, "braille", "cyan"),
+        ("forecast", data.forecast, "dot", "orange"),
+    ]
+    if data.adjusted is not None:
+        series.append(("adjusted", data.adjusted, "+", "green"))
+    drew = False
+    for label, values, marker, color in series:
+        for i, (x, y) in enumerate(_segments(np.asarray(values, dtype=float))):
+            fig.plot(
+                x.tolist(), y.tolist(), marker=marker, color=color, label=label if i == 0 else None
+            )
+            drew = True
+    if not drew:
+        return Text("no values to draw for this series")
+    fig.vertical_line(data.window_start - 0.5, color="gray")
+    fig.vertical_line(data.last_actual + 0.5, color="gray")
+    n = len(data.labels)
+    ticks = sorted({0, n - 1, *np.linspace(0, n - 1, num=max(2, min(5, width // 16))).round().astype(int).tolist()})
+    fig.xticks(ticks, [data.labels[t] for t in ticks])
+    return Text.from_ansi(fig.build())
+
+
+class SeriesChart(Static):
+    """A plotext chart of demand, forecast and the adjusted forward forecast."""
+
+    DEFAULT_CSS = """
+    SeriesChart {
+        height: 1fr;
+        min-height: 8;
+    }
+    """
+
+    def __init__(self, *, id: str | None = None, classes: str | None = None) -> None:
+        super().__init__("", id=id, classes=classes, markup=False)
+        self._data: ChartData | None = None
+        self._drawn: tuple[int, int, int] | None = None
+
+    def show(self, data: ChartData | None) -> None:
+        """Draw ``data`` (None clears the chart)."""
+        self._data = data
+        self._drawn = None
+        self._redraw()
+
+    def on_resize(self) -> None:
+        self._redraw()
+
+    def _redraw(self) -> None:
+        width, height = self.content_size
+        if self._data is None or width <= 0 or height <= 0:
+            self.update("")
+            return
+        key = (id(self._data), width, height)
+        if key == self._drawn:
+            return
+        self._drawn = key
+        self.update(render_chart(self._data, width, height))
