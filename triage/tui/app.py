@@ -19,6 +19,7 @@ from triage.core import ledger as ledger_mod
 from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.errors import TriageError
 from triage.core.review import FILTER_FIELDS, ReviewSession
+from triage.core.text import visible
 from triage.tui import format as fmt
 from triage.tui.messages import Exported, Loaded, LoadStep, Saved, SaveFailed
 from triage.tui.screens.decision import DecisionScreen, Draft, chart_data
@@ -246,8 +247,8 @@ class TriageApp(App[None]):
         p = session.portfolio
         return {
             "rank": (str(a["rank"][series]), None),
-            "item": (a["item"][series], None),
-            "location": (a["location"][series], None),
+            "item": (fmt.clip(a["item"][series], 40), None),
+            "location": (fmt.clip(a["location"][series], 40), None),
             "share": (fmt.pct(a["share"][series]), None),
             "cum": (fmt.pct(a["cum"][series], 0), "dim"),
             "error": (fmt.compact(a["error"][series]), None),
@@ -275,7 +276,7 @@ class TriageApp(App[None]):
                 self.query_one(name, Static).update(Text(""))
             return
         card = session.card.iloc[series]
-        key = " @ ".join(k for k in session.key(series) if k)
+        key = fmt.clip(" @ ".join(k for k in session.key(series) if k))
         title.update(Text.assemble((key, "bold"), f"   rank {int(card['rank'])} of {session.portfolio.n_series:,}"))
         self.query_one("#chart", SeriesChart).show(chart_data(session, series))
         value = f" (value {fmt.compact(card['abs_error_value'])})" if session.priced else ""
@@ -298,7 +299,10 @@ class TriageApp(App[None]):
         self.query_one("#detail-suggest", Static).update(
             Text(f"suggested: {spec} ({reason}); press s to take it") if spec else Text("")
         )
-        attrs = [f"{name}: {session.portfolio.keys[name].iat[series]}" for name in session.portfolio.attributes]
+        attrs = [
+            f"{name}: {fmt.clip(str(session.portfolio.keys[name].iat[series]))}"
+            for name in session.portfolio.attributes
+        ]
         self.query_one("#detail-attrs", Static).update(Text(" · ".join(attrs)))
         self.query_one("#detail-history", Static).update(self._history_text(series))
 
@@ -309,12 +313,14 @@ class TriageApp(App[None]):
             return Text("no earlier decisions", style="dim")
         text = Text("decisions:\n", style="bold")
         for e in events[-8:]:
+            who = visible(e.reviewer)
             if e.kind == ledger_mod.UNDO:
-                text.append(f"  {e.cycle}  undo by {e.reviewer} at {e.recorded_at}\n")
+                text.append(f"  {e.cycle}  undo by {who} at {e.recorded_at}\n")
                 continue
-            adj = f" {e.adjustment}" if e.adjustment else ""
-            note = e.note.splitlines()[0] if e.note else ""
-            text.append(f"  {e.cycle}  {fmt.OUTCOME_SHORT.get(e.outcome or '', e.outcome)}{adj} ({e.root_cause}) by {e.reviewer} at {e.recorded_at}")
+            adj = f" {visible(e.adjustment)}" if e.adjustment else ""
+            note = visible(e.note.splitlines()[0])[:200] if e.note else ""
+            outcome = fmt.OUTCOME_SHORT.get(e.outcome or "", e.outcome)
+            text.append(f"  {e.cycle}  {outcome}{adj} ({e.root_cause}) by {who} at {e.recorded_at}")
             text.append(f"  {note}\n" if note else "\n")
         return text
 

@@ -44,6 +44,11 @@ LIST_COLUMNS = (
 )
 
 
+def clip(text: str, limit: int = 200) -> str:
+    """At most ``limit`` characters, with an ellipsis: a 1 MB cell must not stall a repaint."""
+    return text if len(text) <= limit else text[: limit - 1] + "…"
+
+
 def pct(value: float, digits: int = 1) -> str:
     """``12.3%``; empty when undefined."""
     return "" if value is None or math.isnan(value) else f"{value * 100:.{digits}f}%"

@@ -17,6 +17,7 @@ from triage.core import ledger as ledger_mod
 from triage.core.adjust import AdjustError
 from triage.core.config import Choice
 from triage.core.review import ReviewSession
+from triage.tui.format import clip
 from triage.tui.widgets.chart import ChartData, SeriesChart
 
 
@@ -68,7 +69,7 @@ class DecisionScreen(ModalScreen[Draft | None]):
         self._outcomes = ledger_mod.OUTCOMES
 
     def compose(self) -> ComposeResult:
-        key = " @ ".join(k for k in self._session.key(self._series) if k)
+        key = clip(" @ ".join(k for k in self._session.key(self._series) if k))
         with Vertical(classes="dialog decision"):
             yield Static(Text.assemble(("Decision for ", "bold"), (key, "bold reverse")), classes="dialog-title")
             yield Static(Text(self._session.describe(self._series)), id="decision-card")

@@ -1,0 +1,99 @@
+"""End to end in a real terminal: tmux runs ``triage review``, keys are typed, the screen is read.
+
+Skipped only when tmux is missing (``.ci/run`` installs it).
+"""
+
+from __future__ import annotations
+
+import shutil
+import sqlite3
+import subprocess
+import sys
+import time
+import uuid
+from pathlib import Path
+
+import pytest
+
+ROOT = Path(__file__).resolve().parents[2]
+SAMPLE = ROOT / "sample" / "portfolio.csv"
+
+pytestmark = pytest.mark.skipif(shutil.which("tmux") is None, reason="tmux is not installed")
+
+
+class Tmux:
+    """One private tmux server with one session."""
+
+    def __init__(self, command: list[str], cwd: Path) -> None:
+        self.socket = f"triage-test-{uuid.uuid4().hex[:8]}"
+        self.name = "review"
+        subprocess.run(
+            ["tmux", "-L", self.socket, "new-session", "-d", "-s", self.name, "-x", "120", "-y", "40",
+             "-c", str(cwd), *command],
+            check=True,
+            env={"TERM": "xterm-256color", "PATH": "/usr/bin:/bin", "HOME": str(cwd), "LANG": "C.UTF-8"},
+        )
+
+    def keys(self, *keys: str) -> None:
+        subprocess.run(["tmux", "-L", self.socket, "send-keys", "-t", self.name, *keys], check=True)
+
+    def screen(self) -> str:
+        done = subprocess.run(
+            ["tmux", "-L", self.socket, "capture-pane", "-p", "-t", self.name],
+            capture_output=True, text=True, check=False,
+        )
+        return done.stdout
+
+    def title(self) -> str:
+        done = subprocess.run(
+            ["tmux", "-L", self.socket, "display-message", "-p", "-t", self.name, "#{pane_title}"],
+            capture_output=True, text=True, check=False,
+        )
+        return done.stdout.strip()
+
+    def wait_for(self, text: str, timeout: float = 30.0) -> str:
+        deadline = time.monotonic() + timeout
+        screen = ""
+        while time.monotonic() < deadline:
+            screen = self.screen()
+            if text in screen:
+                return screen
+            time.sleep(0.2)
+        raise AssertionError(f"{text!r} never appeared; screen was:\n{screen}")
+
+    def alive(self) -> bool:
+        done = subprocess.run(["tmux", "-L", self.socket, "has-session", "-t", self.name], check=False,
+                              capture_output=True)
+        return done.returncode == 0
+
+    def kill(self) -> None:
+        subprocess.run(["tmux", "-L", self.socket, "kill-server"], check=False, capture_output=True)
+
+
+def test_review_in_a_real_terminal(tmp_path: Path) -> None:
+    portfolio = tmp_path / "week.csv"
+    shutil.copy(SAMPLE, portfolio)
+    ledger = tmp_path / "week.ledger.sqlite"
+    triage = str(Path(sys.executable).with_name("triage"))
+    term = Tmux([triage, "review", str(portfolio), "--ledger", str(ledger), "--reviewer", "smoke"], tmp_path)
+    try:
+        screen = term.wait_for("reviewed 0")
+        assert "GF-10213" in screen  # the worst offender of the sample is listed
+        term.keys("j")
+        term.keys("4")  # root cause 4 (new item ramp-up) for the quick decision
+        term.keys("c")
+        screen = term.wait_for("saved:")
+        assert "reviewed 1" in term.wait_for("reviewed 1")
+        term.keys("q")
+        deadline = time.monotonic() + 15
+        while term.alive() and time.monotonic() < deadline:
+            time.sleep(0.2)
+        assert not term.alive(), "the app did not quit on q"
+    finally:
+        term.kill()
+    con = sqlite3.connect(f"file:{ledger}?mode=ro", uri=True)
+    try:
+        rows = con.execute("SELECT kind, outcome, root_cause, reviewer FROM event").fetchall()
+    finally:
+        con.close()
+    assert rows == [("decision", "no_change", "new_item", "smoke")]
