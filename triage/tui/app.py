@@ -13,6 +13,7 @@ from textual.app import App, ComposeResult, SystemCommand
 from textual.binding import Binding
 from textual.containers import Container, Vertical, VerticalScroll
 from textual.widgets import Footer, ProgressBar, Static
+from textual.timer import Timer
 from textual.worker import Worker, WorkerState
 
 from triage.core import ledger as ledger_mod
@@ -26,6 +27,9 @@ from triage.tui.screens.decision import DecisionScreen, Draft, chart_data
 from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
 from triage.tui.widgets.chart import SeriesChart
 from triage.tui.widgets.series_list import SeriesList
+
+#: Seconds the cursor must rest on a series before its chart is drawn.
+CHART_SETTLE = 0.08
 
 CAUTION = (
     "Decisions and adjusted forecasts are advisory: check them in the planning system "
@@ -118,6 +122,7 @@ class TriageApp(App[None]):
         self.drafts: dict[int, Draft] = {}
         self.status_text = ""
         self._arrays: dict[str, np.ndarray] = {}
+        self._chart_timer: Timer | None = None
 
     # -- layout -------------------------------------------------------------------------------
 
@@ -278,7 +283,10 @@ class TriageApp(App[None]):
         card = session.card.iloc[series]
         key = fmt.clip(" @ ".join(k for k in session.key(series) if k))
         title.update(Text.assemble((key, "bold"), f"   rank {int(card['rank'])} of {session.portfolio.n_series:,}"))
-        self.query_one("#chart", SeriesChart).show(chart_data(session, series))
+        # The chart is the slow part of a repaint: draw it once the cursor settles.
+        if self._chart_timer is not None:
+            self._chart_timer.stop()
+        self._chart_timer = self.set_timer(CHART_SETTLE, lambda: self._draw_chart(series))
         value = f" (value {fmt.compact(card['abs_error_value'])})" if session.priced else ""
         lines = [
             session.describe(series),
@@ -305,6 +313,11 @@ class TriageApp(App[None]):
         ]
         self.query_one("#detail-attrs", Static).update(Text(" · ".join(attrs)))
         self.query_one("#detail-history", Static).update(self._history_text(series))
+
+    def _draw_chart(self, series: int) -> None:
+        session = self.session
+        if session is not None and self.query_one(SeriesList).current == series:
+            self.query_one("#chart", SeriesChart).show(chart_data(session, series))
 
     def _history_text(self, series: int) -> Text:
         assert self.session is not None
