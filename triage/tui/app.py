@@ -143,8 +143,15 @@ class TriageApp(App[None]):
         yield Static(Text(""), id="status")
         yield Footer()
 
+    def _q(self, selector, expect_type=None):  # noqa: ANN001, ANN202 - query_one's signature
+        """Query the main screen, whatever dialog is on top of it."""
+        base = self.screen_stack[0] if self.screen_stack else self.screen
+        if expect_type is None:
+            return base.query_one(selector)
+        return base.query_one(selector, expect_type)
+
     def on_mount(self) -> None:
-        self.query_one("#main").display = False
+        self._q("#main").display = False
         self._fit_layout(self.size.width)
         self.load()
 
@@ -195,8 +202,8 @@ class TriageApp(App[None]):
 
     @on(LoadStep)
     def _load_step(self, message: LoadStep) -> None:
-        self.query_one("#loading-bar", ProgressBar).update(total=message.total, progress=message.step)
-        self.query_one("#loading-label", Static).update(Text(f"Loading: {message.label}…"))
+        self._q("#loading-bar", ProgressBar).update(total=message.total, progress=message.step)
+        self._q("#loading-label", Static).update(Text(f"Loading: {message.label}…"))
 
     @on(Loaded)
     def _loaded(self, message: Loaded) -> None:
@@ -216,9 +223,9 @@ class TriageApp(App[None]):
             "ts": card["tracking_signal"].to_numpy(),
             "pattern": card["pattern"].to_numpy(dtype=object),
         }
-        self.query_one("#loading").display = False
-        self.query_one("#main").display = True
-        series_list = self.query_one(SeriesList)
+        self._q("#loading").display = False
+        self._q("#main").display = True
+        series_list = self._q(SeriesList)
         series_list.set_order(session.order(self.by))
         series_list.focus()
         self._refresh_summary()
@@ -234,7 +241,7 @@ class TriageApp(App[None]):
         error = event.worker.error
         text = str(error) if isinstance(error, TriageError) else f"{type(error).__name__}: {error}"
         if event.worker.name == "load":
-            self.query_one("#loading-label", Static).update(
+            self._q("#loading-label", Static).update(
                 Text(f"Cannot open the portfolio:\n{text}\n\nPress q to quit.", style="bold")
             )
         self._status(f"error: {text}")
@@ -273,12 +280,12 @@ class TriageApp(App[None]):
         session = self.session
         if session is None:
             return
-        title = self.query_one("#detail-title", Static)
+        title = self._q("#detail-title", Static)
         if series is None:
             title.update(Text("no series matches the filter"))
-            self.query_one("#chart", SeriesChart).show(None)
+            self._q("#chart", SeriesChart).show(None)
             for name in ("#detail-card", "#detail-suggest", "#detail-attrs", "#detail-history"):
-                self.query_one(name, Static).update(Text(""))
+                self._q(name, Static).update(Text(""))
             return
         card = session.card.iloc[series]
         key = fmt.clip(" @ ".join(k for k in session.key(series) if k))
@@ -302,22 +309,22 @@ class TriageApp(App[None]):
         if cause:
             label = next((c.label for c in self.options.root_causes if c.code == cause), cause)
             lines.append(f"root cause for quick decisions: {label}")
-        self.query_one("#detail-card", Static).update(Text("\n".join(lines)))
+        self._q("#detail-card", Static).update(Text("\n".join(lines)))
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
-        self.query_one("#detail-suggest", Static).update(
+        self._q("#detail-suggest", Static).update(
             Text(f"suggested: {spec} ({reason}); press s to take it") if spec else Text("")
         )
         attrs = [
             f"{name}: {fmt.clip(str(session.portfolio.keys[name].iat[series]))}"
             for name in session.portfolio.attributes
         ]
-        self.query_one("#detail-attrs", Static).update(Text(" · ".join(attrs)))
-        self.query_one("#detail-history", Static).update(self._history_text(series))
+        self._q("#detail-attrs", Static).update(Text(" · ".join(attrs)))
+        self._q("#detail-history", Static).update(self._history_text(series))
 
     def _draw_chart(self, series: int) -> None:
         session = self.session
-        if session is not None and self.query_one(SeriesList).current == series:
-            self.query_one("#chart", SeriesChart).show(chart_data(session, series))
+        if session is not None and self.is_running and self._q(SeriesList).current == series:
+            self._q("#chart", SeriesChart).show(chart_data(session, series))
 
     def _history_text(self, series: int) -> Text:
         assert self.session is not None
@@ -349,7 +356,7 @@ class TriageApp(App[None]):
         if self.text_filter:
             filt.append(f'"{self.text_filter}"')
         filt.extend(f"{k}={v}" for k, v in self.field_filters.items())
-        shown = len(self.query_one(SeriesList).order)
+        shown = len(self._q(SeriesList).order)
         target = f"target {prog.target * 100:.0f}%" + (f", {prog.to_target} more" if prog.to_target else " reached")
         summary = Text.assemble(
             (p.path.name, "bold"),
@@ -358,17 +365,17 @@ class TriageApp(App[None]):
             (f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})", "bold"),
             f" · order: {self.by} · showing {shown:,}" + (f" · filter: {', '.join(filt)}" if filt else ""),
         )
-        self.query_one("#summary", Static).update(summary)
+        self._q("#summary", Static).update(summary)
 
     def _status(self, text: str) -> None:
         self.status_text = text
-        self.query_one("#status", Static).update(Text(text))
+        self._q("#status", Static).update(Text(text))
 
     def _apply_order(self) -> None:
         session = self.session
         if session is None:
             return
-        series_list = self.query_one(SeriesList)
+        series_list = self._q(SeriesList)
         current = series_list.current
         series_list.set_order(
             session.order(self.by, text=self.text_filter, filters=self.field_filters), keep=current
@@ -430,7 +437,7 @@ class TriageApp(App[None]):
             if series is None:
                 self._status(f"no series {value.strip()!r} in this portfolio")
                 return
-            series_list = self.query_one(SeriesList)
+            series_list = self._q(SeriesList)
             hits = np.flatnonzero(series_list.order == series)
             if not len(hits):
                 self.action_clear_filter()
@@ -443,7 +450,7 @@ class TriageApp(App[None]):
         session = self.session
         if session is None:
             return
-        series_list = self.query_one(SeriesList)
+        series_list = self._q(SeriesList)
         position = session.next_unreviewed(series_list.order, series_list.cursor)
         if position is None:
             self._status("every series shown has a decision this cycle")
@@ -453,7 +460,7 @@ class TriageApp(App[None]):
     # -- actions: deciding --------------------------------------------------------------------
 
     def action_cause(self, index: int) -> None:
-        series = self.query_one(SeriesList).current
+        series = self._q(SeriesList).current
         causes = self.options.root_causes
         if series is None or index >= len(causes):
             return
@@ -485,18 +492,18 @@ class TriageApp(App[None]):
         self.push_screen(DecisionScreen(session, draft.series, draft, self.options.root_causes), done)
 
     def action_decide(self) -> None:
-        series = self.query_one(SeriesList).current
+        series = self._q(SeriesList).current
         if series is not None and self.session is not None:
             self._open_dialog(self._draft_for(series, outcome="no_change"))
 
     def action_adjust(self) -> None:
-        series = self.query_one(SeriesList).current
+        series = self._q(SeriesList).current
         if series is not None and self.session is not None:
             self._open_dialog(self._draft_for(series, outcome=ledger_mod.ADJUSTED))
 
     def action_take_suggestion(self) -> None:
         session = self.session
-        series = self.query_one(SeriesList).current
+        series = self._q(SeriesList).current
         if series is None or session is None:
             return
         spec = session.suggest_spec[series]
@@ -509,7 +516,7 @@ class TriageApp(App[None]):
         self._open_dialog(draft)
 
     def action_quick(self, outcome: str) -> None:
-        series = self.query_one(SeriesList).current
+        series = self._q(SeriesList).current
         if series is None or self.session is None:
             return
         self.save(
@@ -542,7 +549,7 @@ class TriageApp(App[None]):
         self.post_message(Saved(event, fmt.OUTCOME_SHORT.get(draft.outcome, draft.outcome)))
 
     def action_undo(self) -> None:
-        series = self.query_one(SeriesList).current
+        series = self._q(SeriesList).current
         if series is not None and self.session is not None:
             self.undo(series)
 
@@ -565,8 +572,8 @@ class TriageApp(App[None]):
         series = session.apply_event(message.event)
         if series is not None:
             self.drafts.pop(series, None)
-            self.query_one(SeriesList).invalidate(series)
-            if series == self.query_one(SeriesList).current:
+            self._q(SeriesList).invalidate(series)
+            if series == self._q(SeriesList).current:
                 self._show_detail(series)
         key = " @ ".join(k for k in (message.event.item, message.event.location) if k)
         self._status(f"saved: {key} {message.what} (ledger event {message.event.id})")
