@@ -435,14 +435,14 @@ def _prescan_csv(path: Path) -> _CsvScan:
     head = b""
     with path.open("rb") as handle:
         while chunk := handle.read(_CHUNK):
-            if not size:
-                head = chunk[:_HEADER_BYTES]
-                if chunk.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
-                    _fail(
-                        path,
-                        "the file is UTF-16 (Excel 'Unicode Text'), not UTF-8.",
-                        "Save it from Excel as 'CSV UTF-8 (Comma delimited)'.",
-                    )
+            if len(head) < _HEADER_BYTES:
+                head += chunk[: _HEADER_BYTES - len(head)]
+            if not size and chunk.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
+                _fail(
+                    path,
+                    "the file is UTF-16 (Excel 'Unicode Text'), not UTF-8.",
+                    "Save it from Excel as 'CSV UTF-8 (Comma delimited)'.",
+                )
             # An ASCII chunk needs no decoding unless a multi-byte character straddles into it.
             if not chunk.isascii() or decoder.getstate()[0]:
                 try:
@@ -503,6 +503,16 @@ def _csv_header(path: Path, scan: _CsvScan) -> list[str]:
     text = codecs.getincrementaldecoder("utf-8")().decode(head)
     if scan.newline == 13:
         text = text.replace("\r", "\n")
+    # The sample holds at most the first MiB; a long cell in it must not stop the read.
+    limit = csv.field_size_limit()
+    csv.field_size_limit(max(limit, len(text) + 1))
+    try:
+        return _parse_csv_header(path, text)
+    finally:
+        csv.field_size_limit(limit)
+
+
+def _parse_csv_header(path: Path, text: str) -> list[str]:
     reader = csv.reader(io.StringIO(text, newline=""))
     header = next(reader, [])
     if not header:
@@ -670,6 +680,11 @@ def _check_field_counts(path: Path, scan: _CsvScan, width: int, records: int) ->
 def _numpy_counts(
     path: Path, scan: _CsvScan, width: int
 ) -> tuple[list[tuple[int, int]], int, bool]:
+    """Fields per record from byte positions of commas, line ends and quotes, chunk by chunk.
+
+    Returns the records (numbered from 1 at the header) whose field count is not ``width``, up to
+    100 per chunk, the number of records, and whether the quotes balance. Empty lines are skipped.
+    """
     bad: list[tuple[int, int]] = []
     records = 0
     carry = 0
@@ -1035,7 +1050,7 @@ def _examples(values: pd.Series, bad: np.ndarray, rows: list[int]) -> str:
     shown: dict[str, int] = {}
     sample = values.iloc[bad[:500]]
     for text, row in zip(sample.astype(object).tolist(), rows[:500], strict=False):
-        key = _sanitize_str(str(text))
+        key = _sanitize_str(f"{text:.15g}" if isinstance(text, float) else str(text))
         if key not in shown:
             shown[key] = row
             if len(shown) == _SHOWN:

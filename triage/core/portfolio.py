@@ -247,8 +247,12 @@ def _series_codes(frame: pd.DataFrame, key_columns: tuple[str, ...]) -> tuple[np
         return item_codes, pd.DataFrame({schema.ITEM: item_values})
     loc_codes, loc_values = _codes(frame[schema.LOCATION])
     combined = item_codes * len(loc_values) + loc_codes
-    series, pairs = pd.factorize(combined, sort=True)
-    pairs = np.asarray(pairs, dtype=np.int64)
+    # Both codes are dense and sorted, so the pairs in use number themselves in key order.
+    used = np.zeros(len(item_values) * len(loc_values), dtype=bool)
+    used[combined] = True
+    pairs = np.flatnonzero(used)
+    renumber = np.cumsum(used, dtype=np.int64) - 1
+    series = renumber[combined]
     keys = pd.DataFrame(
         {
             schema.ITEM: item_values[pairs // len(loc_values)],
@@ -466,7 +470,13 @@ def _series_table(
         rows = best % len(frame)
         for name in attributes:
             column = frame[name]
-            keys[name] = np.asarray(column.to_numpy()[rows]).astype(str)
+            if isinstance(column.dtype, pd.CategoricalDtype):
+                # Take codes, not values: never materialise the whole column as objects.
+                codes = column.cat.codes.to_numpy()[rows]
+                values = column.cat.categories.to_numpy(dtype=object)[codes]
+            else:
+                values = column.take(rows).to_numpy(dtype=object)
+            keys[name] = np.asarray(values).astype(str)
     for name in key_columns:
         keys[name] = keys[name].astype(str)
     return keys
