@@ -11,7 +11,7 @@ from rich.text import Text
 from textual import on, work
 from textual.app import App, ComposeResult, SystemCommand
 from textual.binding import Binding
-from textual.containers import Container, Vertical, VerticalScroll
+from textual.containers import Container, Vertical
 from textual.widgets import Footer, ProgressBar, Static
 from textual.timer import Timer
 from textual.worker import Worker, WorkerState
@@ -133,13 +133,10 @@ class TriageApp(App[None]):
             yield ProgressBar(total=5, show_eta=False, id="loading-bar")
         with Container(id="main"):
             yield SeriesList(fmt.LIST_COLUMNS, self._format_row, id="list")
-            with VerticalScroll(id="detail"):
+            with Vertical(id="detail"):
                 yield Static(Text(""), id="detail-title")
                 yield SeriesChart(id="chart")
-                yield Static(Text(""), id="detail-card")
-                yield Static(Text(""), id="detail-suggest")
-                yield Static(Text(""), id="detail-attrs")
-                yield Static(Text(""), id="detail-history")
+                yield Static(Text(""), id="detail-text")
         yield Static(Text(""), id="status")
         yield Footer()
 
@@ -281,15 +278,18 @@ class TriageApp(App[None]):
         if session is None:
             return
         title = self._q("#detail-title", Static)
+        body = self._q("#detail-text", Static)
         if series is None:
-            title.update(Text("no series matches the filter"))
+            title.update(Text("no series matches the filter"), layout=False)
             self._q("#chart", SeriesChart).show(None)
-            for name in ("#detail-card", "#detail-suggest", "#detail-attrs", "#detail-history"):
-                self._q(name, Static).update(Text(""))
+            body.update(Text(""), layout=False)
             return
         card = session.card.iloc[series]
         key = fmt.clip(" @ ".join(k for k in session.key(series) if k))
-        title.update(Text.assemble((key, "bold"), f"   rank {int(card['rank'])} of {session.portfolio.n_series:,}"))
+        title.update(
+            Text.assemble((key, "bold"), f"   rank {int(card['rank'])} of {session.portfolio.n_series:,}"),
+            layout=False,
+        )
         # The chart is the slow part of a repaint: draw it once the cursor settles.
         if self._chart_timer is not None:
             self._chart_timer.stop()
@@ -309,17 +309,20 @@ class TriageApp(App[None]):
         if cause:
             label = next((c.label for c in self.options.root_causes if c.code == cause), cause)
             lines.append(f"root cause for quick decisions: {label}")
-        self._q("#detail-card", Static).update(Text("\n".join(lines)))
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
-        self._q("#detail-suggest", Static).update(
-            Text(f"suggested: {spec} ({reason}); press s to take it") if spec else Text("")
-        )
+        if spec:
+            lines.append(f"suggested: {spec} ({reason}); press s to take it")
         attrs = [
             f"{name}: {fmt.clip(str(session.portfolio.keys[name].iat[series]))}"
             for name in session.portfolio.attributes
         ]
-        self._q("#detail-attrs", Static).update(Text(" · ".join(attrs)))
-        self._q("#detail-history", Static).update(self._history_text(series))
+        text = Text("\n".join(lines))
+        if attrs:
+            text.append("\n" + " · ".join(attrs), style="dim")
+        text.append("\n")
+        text.append_text(self._history_text(series))
+        # Fixed-size panes: no layout pass on every cursor move.
+        body.update(text, layout=False)
 
     def _draw_chart(self, series: int) -> None:
         session = self.session

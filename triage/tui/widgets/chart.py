@@ -93,10 +93,10 @@ class SeriesChart(Static):
     def _redraw(self) -> None:
         width, height = self.content_size
         if self._data is None or width <= 0 or height <= 0:
-            self.update("")
+            self.update("", layout=False)
             return
         key = (id(self._data), width, height)
         if key == self._drawn:
             return
         self._drawn = key
-        self.update(render_chart(self._data, width, height))
+        self.update(render_chart(self._data, width, height), layout=False)

@@ -118,6 +118,7 @@ class SeriesList(ScrollView, can_focus=True):
         self._cache_size = cache_size
         self._fitted: tuple[Column, ...] = self._all_columns
         self._fitted_width = -1
+        self._strips: OrderedDict[tuple[int, bool, int], Strip] = OrderedDict()
 
     # -- data -------------------------------------------------------------------------------
 
@@ -149,8 +150,11 @@ class SeriesList(ScrollView, can_focus=True):
         """Forget cached text for one series (or all) after its data changed, and repaint."""
         if series is None:
             self._cache.clear()
+            self._strips.clear()
         else:
             self._cache.pop(series, None)
+            for key in [k for k in self._strips if k[0] == series]:
+                del self._strips[key]
         self.refresh()
 
     # -- cursor -----------------------------------------------------------------------------
@@ -159,8 +163,14 @@ class SeriesList(ScrollView, can_focus=True):
         return max(0, min(value, len(self._order) - 1)) if len(self._order) else 0
 
     def watch_cursor(self, old: int, new: int) -> None:
+        top = int(self.scroll_y)
         self._scroll_cursor_into_view()
-        self.refresh()
+        if int(self.scroll_y) == top:
+            # Only the two lines whose highlight changed are drawn again (line 0 is the header).
+            self.refresh_line(old + 1)
+            self.refresh_line(new + 1)
+        else:
+            self.refresh()
         self.post_message(self.Highlighted(self.current))
 
     def action_cursor(self, step: int) -> None:
@@ -184,6 +194,11 @@ class SeriesList(ScrollView, can_focus=True):
         line = event.y - 1 + int(self.scroll_y)
         if event.y >= 1 and 0 <= line < len(self._order):
             self.cursor = line
+
+    def notify_style_update(self) -> None:
+        # Focus and theme changes restyle every line.
+        self._strips.clear()
+        super().notify_style_update()
 
     def on_resize(self, event: events.Resize) -> None:
         self.virtual_size = Size(event.size.width, len(self._order) + 1)
@@ -224,11 +239,20 @@ class SeriesList(ScrollView, can_focus=True):
         line = int(self.scroll_y) + y - 1
         if line >= len(self._order):
             return Strip.blank(width, base)
+        series = int(self._order[line])
+        key = (series, line == self.cursor, width)
+        strip = self._strips.get(key)
+        if strip is not None:
+            self._strips.move_to_end(key)
+            return strip
         row_style = base
         if line == self.cursor:
             row_style = base + self.get_component_rich_style("series-list--cursor")
-        cells = self._row_cells(int(self._order[line]))
-        return self._strip(columns, cells, width, row_style, header=False)
+        strip = self._strip(columns, self._row_cells(series), width, row_style, header=False)
+        self._strips[key] = strip
+        if len(self._strips) > self._cache_size:
+            self._strips.popitem(last=False)
+        return strip
 
     def _strip(
         self,
