@@ -39,7 +39,7 @@ LIST_COLUMNS = (
     Column("ts", "TS", 6, right=True, keep=3),
     Column("flag", "flag", 7, keep=6),
     Column("pattern", "pattern", 9, keep=4),
-    Column("outcome", "review", 10, keep=7),
+    Column("outcome", "review", 12, keep=7),
     Column("spark", "demand | forecast", 2 * SPARK_PERIODS + 1, keep=7),
 )
 

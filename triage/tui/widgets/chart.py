@@ -44,7 +44,7 @@ def render_chart(data: ChartData, width: int, height: int) -> Text:
     fig.plot_size(max(width, 20), max(height, 6))
     fig.theme("clear")
     series = [
-        ("demand", data.demand, "braille", "cyan"),
+        ("demand", data.demand, "hd", "cyan"),
         ("forecast", data.forecast, "dot", "orange"),
     ]
     if data.adjusted is not None:
