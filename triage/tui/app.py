@@ -156,7 +156,10 @@ class TriageApp(App[None]):
         self._fit_layout(event.size.width)
 
     def _fit_layout(self, width: int) -> None:
-        self.set_class(width < 140, "-narrow")
+        narrow = width < 140
+        if narrow != self.has_class("-narrow"):
+            self.set_class(narrow, "-narrow")
+            self._refresh_summary()
 
     # -- loading ------------------------------------------------------------------------------
 
@@ -265,7 +268,7 @@ class TriageApp(App[None]):
             "ts": ("" if math.isnan(a["ts"][series]) else f"{a['ts'][series]:+.1f}", None),
             "flag": (("▲ over" if flag > 0 else "▼ under") if flag else "", "flag" if flag else None),
             "pattern": (fmt.PATTERN_SHORT.get(a["pattern"][series], a["pattern"][series]), "dim"),
-            "outcome": (("✓ " + fmt.OUTCOME_SHORT[outcome]) if outcome else "·", "done" if outcome else "dim"),
+            "outcome": (fmt.OUTCOME_TINY[outcome], "done" if outcome else "dim"),
             "spark": (fmt.sparkline(p.demand[series, cols], p.forecast[series, cols]), None),
         }
 
@@ -361,13 +364,16 @@ class TriageApp(App[None]):
         filt.extend(f"{k}={v}" for k, v in self.field_filters.items())
         shown = len(self._q(SeriesList).order)
         target = f"target {prog.target * 100:.0f}%" + (f", {prog.to_target} more" if prog.to_target else " reached")
+        error = "" if self.has_class("-narrow") else f" · abs err {fmt.compact(tot['abs_error'])}{value}"
         summary = Text.assemble(
-            (p.path.name, "bold"),
-            f" · {p.n_series:,} series · cycle {p.cycle} · abs err {fmt.compact(tot['abs_error'])}{value}"
+            (fmt.clip(p.path.name, 40), "bold"),
+            f" · {p.n_series:,} series · cycle {p.cycle}{error}"
             f" · bias {fmt.signed_pct(tot['bias_pct'])[0] or 'n/a'} · WAPE {fmt.pct(tot['wape']) or 'n/a'}\n",
             (f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})", "bold"),
-            f" · order: {self.by} · showing {shown:,}" + (f" · filter: {', '.join(filt)}" if filt else ""),
+            f" · {self.by} order · {shown:,} shown" + (f" · filter: {', '.join(filt)}" if filt else ""),
         )
+        summary.no_wrap = True
+        summary.overflow = "ellipsis"
         self._q("#summary", Static).update(summary)
 
     def _status(self, text: str) -> None:

@@ -11,7 +11,7 @@ from triage.tui.widgets.series_list import Cell, Column
 BLOCKS = "▁▂▃▄▅▆▇█"
 MISSING = "·"
 #: Periods drawn in the list's inline chart.
-SPARK_PERIODS = 8
+SPARK_PERIODS = 6
 
 OUTCOME_SHORT = {
     "no_change": "no change",
@@ -19,6 +19,14 @@ OUTCOME_SHORT = {
     "handed_off": "handed off",
     "deferred": "later",
     "": "",
+}
+#: The review column's words, short enough for an 80-column terminal.
+OUTCOME_TINY = {
+    "no_change": "✓ ok",
+    "adjusted": "✓ adj",
+    "handed_off": "✓ hand",
+    "deferred": "✓ later",
+    "": "·",
 }
 PATTERN_SHORT = {
     "smooth": "smooth",
@@ -28,19 +36,21 @@ PATTERN_SHORT = {
     "none": "no demand",
 }
 
+#: List columns; ``keep`` decides which survive a narrow terminal (80 columns keeps rank, keys,
+#: share, error, bias, review and the sparkline).
 LIST_COLUMNS = (
-    Column("rank", "#", 6, right=True, keep=9),
-    Column("item", "item", 14, keep=10),
-    Column("location", "loc", 6, keep=5),
-    Column("share", "share", 6, right=True, keep=7),
-    Column("cum", "cum", 6, right=True, keep=2),
-    Column("error", "abs err", 9, right=True, keep=8),
-    Column("bias", "bias", 12, right=True, keep=8),
-    Column("ts", "TS", 6, right=True, keep=3),
-    Column("flag", "flag", 7, keep=6),
+    Column("rank", "#", 6, right=True, keep=20),
+    Column("item", "item", 12, keep=19),
+    Column("location", "loc", 5, keep=18),
+    Column("share", "share", 6, right=True, keep=17),
+    Column("cum", "cum", 5, right=True, keep=5),
+    Column("error", "abs err", 8, right=True, keep=16),
+    Column("bias", "bias", 12, right=True, keep=15),
+    Column("ts", "TS", 6, right=True, keep=6),
+    Column("flag", "flag", 7, keep=12),
     Column("pattern", "pattern", 9, keep=4),
-    Column("outcome", "review", 12, keep=7),
-    Column("spark", "demand | forecast", 2 * SPARK_PERIODS + 1, keep=7),
+    Column("outcome", "review", 7, keep=13),
+    Column("spark", "dem | fcst", 2 * SPARK_PERIODS + 1, keep=14),
 )
 
 
