@@ -12,6 +12,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from triage import __version__
+from triage.commands_ledger import add_ledger_commands
 from triage.core.errors import TriageError
 
 
@@ -76,6 +77,7 @@ def build_parser() -> argparse.ArgumentParser:
     demo = sub.add_parser("demo", help="open the review screens on the bundled sample portfolio")
     _review_args(demo, ledger=False)
     demo.set_defaults(handler=_cmd_demo)
+    add_ledger_commands(sub)
     return parser
 
 

@@ -222,3 +222,28 @@ async def test_load_error_is_shown_not_swallowed(tmp_path: Path) -> None:
         await wait_for(pilot, lambda: "error" in app.status_text, "the load error")
         assert "forecast" in app.status_text  # names the missing column
         assert app.session is None
+
+
+async def test_export_from_the_app_writes_the_workbook(portfolio: Path) -> None:
+    import openpyxl
+
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        series = app.query_one(SeriesList).current
+        item, location = app.session.key(series)
+        await pilot.press("2", "c")  # root cause 2, no change
+        await wait_for(pilot, lambda: app.session.outcome[series] != "", "the decision")
+        await pilot.press("x")
+        await wait_for(pilot, lambda: isinstance(app.screen, PromptScreen), "the export prompt")
+        target = app.screen.query_one(Input).value
+        assert target.endswith(".xlsx") and "advisory" in str(app.screen.query_one(".dialog-note").render())
+        await pilot.press("enter")
+        await wait_for(pilot, lambda: app.status_text.startswith("exported"), "the export")
+        assert "advisory" in app.status_text
+    book = openpyxl.load_workbook(target, read_only=True)
+    assert {"Decisions", "Forecast", "Read me"} <= set(book.sheetnames)
+    rows = list(book["Decisions"].iter_rows(values_only=True))
+    header = rows[0]
+    first = dict(zip(header, rows[1], strict=True))
+    assert (first["item"], first["location"], first["outcome"]) == (item, location, "no_change")

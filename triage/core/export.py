@@ -35,7 +35,7 @@ import os
 import re
 import secrets
 import shutil
-from collections.abc import Callable, Iterable, Sequence
+from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
 from pathlib import Path
@@ -116,7 +116,8 @@ _FLAGS = frozenset(("adjusted",))
 _FIXED = frozenset(("cycle", "period"))
 
 _EXAMPLES = 5
-_JSON_CHUNK = 20_000
+#: Rows converted to Python objects at a time when a table is written.
+_CHUNK_ROWS = 50_000
 # DEL and C1 (0x80-0x9F, e.g. 0x9B = CSI) pass through json.dumps(ensure_ascii=False) raw and can
 # drive a terminal that shows the file; escaping them keeps the JSON identical in meaning.
 _JSON_ESCAPES = {code: f"\\u{code:04x}" for code in (0x7F, *range(0x80, 0xA0))}
@@ -406,14 +407,18 @@ def review_tables(
         outcome_of[kept_series] = np.array([d.outcome for d in kept], dtype=object)
 
     forecast_cols: dict[str, Any] = {ITEM: np.repeat(items, n_fwd)}
-    if has_location:
+    if locations is not None:
         forecast_cols[LOCATION] = np.repeat(locations, n_fwd)
     forecast_cols["period"] = np.tile(fwd_dates.to_numpy(dtype=object), n_series)
     forecast_cols["forecast"] = forward.ravel()
     forecast_cols["adjusted_forecast"] = adjusted_fc.ravel()
     forecast_cols["adjusted"] = flag.ravel()
     forecast_cols["outcome"] = np.repeat(outcome_of, n_fwd)
-    forecast = pd.DataFrame({k: pd.Series(v, dtype=v.dtype) for k, v in forecast_cols.items()})
+    # copy=False: the columns are fresh arrays already; at a million series each copy is ~100 MB.
+    forecast = pd.DataFrame(
+        {k: pd.Series(v, dtype=v.dtype, copy=False) for k, v in forecast_cols.items()},
+        copy=False,
+    )
 
     # ---- decisions table
     outcome_labels = _labels(OUTCOMES)
@@ -575,12 +580,9 @@ def export_review(
 
 
 def _write_one(path: Path, write: Callable[[Path], None], force: bool) -> None:
-    try:
-        write_atomic(path, write, force=force)
-    except TriageError:
-        raise
-    except (ValueError, TypeError) as exc:
-        raise ExportError(f"could not write {path}: {exc}; nothing was changed.") from exc
+    # write_atomic turns OSError into a TriageError and removes its temporary file on any
+    # exception; anything else escaping here is a bug and keeps its traceback.
+    write_atomic(path, write, force=force)
 
 
 def _write_set(files: list[tuple[Path, Callable[[Path], None]]], *, force: bool) -> None:
@@ -642,6 +644,12 @@ def _backup(path: Path) -> Path:
 # ---- CSV ------------------------------------------------------------------------------------
 
 
+def _chunks(frame: pd.DataFrame) -> Iterator[pd.DataFrame]:
+    """Consecutive row slices, so a large table is never held as Python objects all at once."""
+    for start in range(0, len(frame), _CHUNK_ROWS):
+        yield frame.iloc[start : start + _CHUNK_ROWS]
+
+
 def _number_cells(values: pd.Series) -> list[float | None]:
     array = values.to_numpy(dtype=np.float64)
     cells = array.astype(object)
@@ -674,7 +682,8 @@ def _write_csv(path: Path, frame: pd.DataFrame) -> None:
     with path.open("w", encoding="utf-8", newline="") as handle:
         writer = csv.writer(handle, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\r\n")
         writer.writerow(list(frame.columns))
-        writer.writerows(zip(*_csv_columns(frame), strict=True))
+        for chunk in _chunks(frame):
+            writer.writerows(zip(*_csv_columns(chunk), strict=True))
 
 
 def _write_text(path: Path, text: str) -> None:
@@ -808,19 +817,49 @@ def _write_xlsx(path: Path, tables: ReviewTables, warnings: list[str]) -> None:
 
     issues = _XlsxIssues({}, {})
     book = Workbook(write_only=True)
-    for title, frame in (("Decisions", tables.decisions), ("Forecast", tables.forecast)):
-        sheet = book.create_sheet(title)
-        sheet.append(list(frame.columns))
-        for row in zip(*_xlsx_columns(sheet, frame, issues), strict=True):
-            sheet.append(row)
-    warnings.extend(_xlsx_warnings(issues))
-    # Written last, so it can list what the data sheets needed; its text is made printable
-    # first, so it has nothing left for the xlsx rules to replace.
-    sheet = book.create_sheet("Read me")
-    for row in _readme_rows(tables, [*tables.warnings, *warnings]):
-        texts = _xlsx_text([neutralise_one(printable(v)) for v in row], "Read me", issues)
-        sheet.append([_as_string_cell(sheet, v) for v in texts])
-    book.save(path)
+    try:
+        for title, frame in (("Decisions", tables.decisions), ("Forecast", tables.forecast)):
+            sheet = book.create_sheet(title)
+            sheet.append(list(frame.columns))
+            for chunk in _chunks(frame):
+                for values in zip(*_xlsx_columns(sheet, chunk, issues), strict=True):
+                    sheet.append(values)
+        warnings.extend(_xlsx_warnings(issues))
+        # Written last, so it can list what the data sheets needed; its text is made printable
+        # first, so it has nothing left for the xlsx rules to replace.
+        sheet = book.create_sheet("Read me")
+        for row in _readme_rows(tables, [*tables.warnings, *warnings]):
+            texts = _xlsx_text([neutralise_one(printable(v)) for v in row], "Read me", issues)
+            sheet.append([_as_string_cell(sheet, v) for v in texts])
+        book.save(path)
+    except BaseException:
+        _discard_spools(book)
+        raise
+
+
+def _discard_spools(book: Any) -> None:
+    """Remove the temporary files of an unsaved write-only workbook.
+
+    A write-only sheet spools its rows to an ``openpyxl.*`` file in the system temp folder,
+    which openpyxl removes after a successful save, and otherwise only when the interpreter
+    exits (openpyxl 3.1.5 ``worksheet/_writer.py``). A long session must not collect them.
+    """
+    from openpyxl.worksheet import _writer as sheet_writer
+
+    for sheet in book.worksheets:
+        rows = getattr(sheet, "_rows", None)
+        writer = getattr(sheet, "_writer", None)
+        spool = getattr(writer, "out", None)
+        with contextlib.suppress(Exception):
+            if rows is not None:
+                rows.close()
+        with contextlib.suppress(Exception):
+            writer.close()  # type: ignore[union-attr]
+        if isinstance(spool, str):
+            with contextlib.suppress(OSError):
+                os.remove(spool)
+            with contextlib.suppress(ValueError, AttributeError):
+                sheet_writer.ALL_TEMP_FILES.remove(spool)
 
 
 def _xlsx_warnings(issues: _XlsxIssues) -> list[str]:
@@ -892,18 +931,26 @@ def _json_columns(frame: pd.DataFrame) -> list[list[Any]]:
     return columns
 
 
-def _dumps(value: Any) -> str:
-    # allow_nan=False: NaN/Infinity are not JSON (reliability.md §2.5); every NaN is None here.
-    return json.dumps(value, ensure_ascii=False, allow_nan=False).translate(_JSON_ESCAPES)
+def dumps_json(value: Any, *, indent: int | None = None) -> str:
+    """JSON text that decodes to exactly ``value`` and is safe to print on a terminal.
+
+    ``allow_nan=False``: NaN and Infinity are not JSON (RFC 8259; reliability.md §2.5), so a NaN
+    that was not turned into None is a bug and raises. C0 controls are escaped by ``json``
+    itself; DEL and C1 are escaped here (see ``_JSON_ESCAPES``).
+    """
+    text = json.dumps(value, ensure_ascii=False, allow_nan=False, indent=indent)
+    return text.translate(_JSON_ESCAPES)
+
+
+_dumps = dumps_json
 
 
 def _write_records(handle: IO[str], frame: pd.DataFrame) -> None:
     names = list(frame.columns)
-    columns = _json_columns(frame)
-    for start in range(0, len(frame), _JSON_CHUNK):
-        chunk = [col[start : start + _JSON_CHUNK] for col in columns]
-        lines = (_dumps(dict(zip(names, row, strict=True))) for row in zip(*chunk, strict=True))
-        handle.write(("," if start else "") + "\n  " + ",\n  ".join(lines))
+    for number, chunk in enumerate(_chunks(frame)):
+        rows = zip(*_json_columns(chunk), strict=True)
+        lines = (_dumps(dict(zip(names, row, strict=True))) for row in rows)
+        handle.write(("," if number else "") + "\n  " + ",\n  ".join(lines))
     if len(frame):
         handle.write("\n ")
 

@@ -40,6 +40,10 @@ def write_atomic(path: str | Path, write: Callable[[Path], None], *, force: bool
         ) from exc
     os.close(handle)
     tmp = Path(tmp_name)
+    # mkstemp makes the file private (0600); give it the mode a plain open() would, or keep the
+    # mode of the file being replaced.
+    mode = stat.S_IMODE(target.stat().st_mode) if target.exists() else 0o666 & ~_UMASK
+    os.chmod(tmp, mode)
     try:
         write(tmp)
         with tmp.open("rb") as done:
@@ -60,9 +64,22 @@ def write_atomic(path: str | Path, write: Callable[[Path], None], *, force: bool
     return target
 
 
+def _read_umask() -> int:
+    current = os.umask(0)
+    os.umask(current)
+    return current
+
+
+# Read once at import: os.umask is process-wide, and workers write files from threads.
+_UMASK = _read_umask()
+
+
 def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Path:
     """Atomically write UTF-8 text (see ``write_atomic``)."""
-    return write_atomic(path, lambda p: p.write_text(text, encoding="utf-8", newline=""), force=force)
+    def write(p: Path) -> None:
+        p.write_text(text, encoding="utf-8", newline="")
+
+    return write_atomic(path, write, force=force)
 
 
 def _fsync_dir(folder: Path) -> None:

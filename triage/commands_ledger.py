@@ -1,0 +1,380 @@
+"""Command line: ``triage history`` (the ledger's events) and ``triage export`` (for upload).
+
+Both open the ledger read-only, so neither can change a decision. Every problem is raised as a
+``TriageError``; ``triage.cli.main`` prints it as ``triage: <message>`` on stderr, exit 2.
+Text from the ledger reaches the terminal through ``printable`` and Rich ``Text`` objects only,
+never as markup (reliability.md §3.1, §3.2).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import io
+import re
+import shutil
+import sys
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from triage.core.errors import TriageError
+
+if TYPE_CHECKING:
+    from triage.core.config import Config
+    from triage.core.ledger import Event, Ledger
+
+#: The first bytes of every SQLite 3 database file (sqlite.org/fileformat.html, §1.3.1).
+SQLITE_MAGIC = b"SQLite format 3\x00"
+#: Longest note shown in a history table cell; the CSV and JSON formats carry the full text.
+TABLE_NOTE_MAX = 200
+
+HISTORY_COLUMNS = (
+    "id",
+    "cycle",
+    "item",
+    "location",
+    "version",
+    "kind",
+    "undoes",
+    "outcome",
+    "root_cause",
+    "note",
+    "adjustment",
+    "reviewer",
+    "recorded_at",
+    "portfolio_name",
+    "portfolio_fingerprint",
+)
+
+
+def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
+    """Add ``history`` and ``export`` to the ``triage`` subcommands."""
+    history = sub.add_parser(
+        "history",
+        help="list the decisions and undos in a ledger, oldest first, with who and when",
+        description="List the events of a decision ledger, oldest first. Give the ledger file, "
+        "or a portfolio file to read the ledger kept beside it.",
+    )
+    history.add_argument(
+        "source",
+        type=Path,
+        metavar="PORTFOLIO_OR_LEDGER",
+        help="a ledger file (.ledger.sqlite), or a portfolio file whose ledger to read",
+    )
+    history.add_argument("--ledger", type=Path, metavar="PATH", help="ledger file to read")
+    history.add_argument("--cycle", metavar="DATE", help="only this review cycle (YYYY-MM-DD)")
+    history.add_argument("--item", help="only this item (exact text)")
+    history.add_argument("--location", help="only this location (exact text)")
+    history.add_argument(
+        "--format",
+        choices=("table", "csv", "json"),
+        default="table",
+        help="output format (default table)",
+    )
+    history.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+    history.set_defaults(handler=cmd_history)
+
+    export = sub.add_parser(
+        "export",
+        help="write the cycle's decisions and adjusted forward forecast (.csv, .xlsx, .json)",
+        description="Write the reviewed decisions of a cycle and the complete adjusted forward "
+        "forecast, for upload to a planning system. A .csv target writes three files: "
+        "NAME-decisions.csv, NAME-forecast.csv and NAME-README.txt.",
+    )
+    export.add_argument("portfolio", type=Path, help="portfolio file: .csv, .parquet or .xlsx")
+    export.add_argument(
+        "--columns",
+        metavar="MAP",
+        help="map our column names to the file's headers, e.g. demand=qty_shipped,item=sku",
+    )
+    export.add_argument("--sheet", help="xlsx sheet to read (default: the first visible sheet)")
+    export.add_argument(
+        "--lag", type=int, help="forecast lag to score, when the file holds several"
+    )
+    export.add_argument(
+        "--ledger",
+        type=Path,
+        metavar="PATH",
+        help="ledger file (default: the one beside the portfolio)",
+    )
+    export.add_argument(
+        "--cycle", metavar="DATE", help="review cycle (default: the portfolio's latest actual)"
+    )
+    export.add_argument(
+        "--to",
+        type=Path,
+        required=True,
+        metavar="FILE",
+        help="target: NAME.csv (three files), NAME.xlsx or NAME.json",
+    )
+    export.add_argument("--force", action="store_true", help="replace files that exist")
+    export.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+    export.set_defaults(handler=cmd_export)
+
+
+# --------------------------------------------------------------------------------------------
+# Shared
+
+
+def _config(args: argparse.Namespace) -> Config:
+    from triage.core.config import load_config
+
+    return load_config(args.config)
+
+
+def _check_cycle(value: str | None) -> str | None:
+    if value is not None and not re.fullmatch(r"\d{4}-\d{2}-\d{2}", value):
+        raise TriageError(
+            f"--cycle must be an ISO date (YYYY-MM-DD), not {value!r}.",
+            hint="Use the date of the portfolio's latest actual period, e.g. --cycle 2026-11-23.",
+        )
+    return value
+
+
+def _is_ledger_file(path: Path) -> bool:
+    from triage.core.ledger import LEDGER_SUFFIX
+
+    if path.name.endswith(LEDGER_SUFFIX):
+        return True
+    try:
+        with path.open("rb") as handle:
+            return handle.read(len(SQLITE_MAGIC)) == SQLITE_MAGIC
+    except OSError:
+        return False
+
+
+def _ledger_of_portfolio(portfolio: Path) -> Path:
+    """The ledger that belongs to a portfolio, for reading."""
+    from triage.core.ledger import LEDGER_SUFFIX, default_ledger_path
+
+    source = portfolio.expanduser().absolute()
+    beside = source.with_name(f"{source.stem}{LEDGER_SUFFIX}")
+    # A ledger beside the portfolio is read even where that folder is read-only (the default
+    # path then points to the user data folder, where new ledgers would be created).
+    if beside.exists():
+        return beside
+    path, notice = default_ledger_path(source)
+    if not path.exists():
+        raise TriageError(
+            f"No decisions have been recorded for {portfolio.name}: there is no ledger at "
+            f"{beside}" + (f" nor at {path}" if path != beside else "") + ".",
+            hint="Pass --ledger PATH if the decisions are kept in another file.",
+        )
+    if notice:
+        _warn(notice)
+    return path
+
+
+def _open_ledger(path: Path, config: Config) -> Ledger:
+    from triage.core.ledger import Ledger
+
+    return Ledger.open(path, read_only=True, root_causes=config.root_causes)
+
+
+def _warn(message: str) -> None:
+    from triage.core.export import printable
+
+    print(f"triage: warning: {printable(message, one_line=False)}", file=sys.stderr)
+
+
+# --------------------------------------------------------------------------------------------
+# history
+
+
+def cmd_history(args: argparse.Namespace) -> int:
+    """``triage history``: the ledger's events, oldest first."""
+    cycle = _check_cycle(args.cycle)
+    config = _config(args)
+    source: Path = args.source
+    if args.ledger is not None:
+        ledger_path = args.ledger
+    elif not source.exists():
+        raise TriageError(
+            f"{source}: no such file.", hint="Give a ledger file or a portfolio file that exists."
+        )
+    elif source.is_dir():
+        raise TriageError(f"{source} is a folder; give a ledger file or a portfolio file.")
+    elif _is_ledger_file(source):
+        ledger_path = source
+    else:
+        ledger_path = _ledger_of_portfolio(source)
+
+    with _open_ledger(ledger_path, config) as ledger:
+        events = ledger.history(cycle=cycle, item=args.item, location=args.location)
+        causes = {c.code: c.label for c in ledger.root_causes}
+        if args.format == "json":
+            text = _history_json(ledger.path, events, args)
+        elif args.format == "csv":
+            text = _history_csv(events)
+        else:
+            text = _history_table(ledger.path, events, causes, args)
+    sys.stdout.write(text)
+    sys.stdout.flush()
+    return 0
+
+
+def _event_record(event: Event) -> dict[str, Any]:
+    return {name: getattr(event, name) for name in HISTORY_COLUMNS}
+
+
+def _history_json(path: Path, events: list[Event], args: argparse.Namespace) -> str:
+    from triage.core.export import dumps_json
+
+    doc = {
+        "ledger": str(path),
+        "filters": {"cycle": args.cycle, "item": args.item, "location": args.location},
+        "events": [
+            {
+                **_event_record(e),
+                "lines": [
+                    {"period": ln.period, "original": ln.original, "adjusted": ln.adjusted}
+                    for ln in e.lines
+                ],
+            }
+            for e in events
+        ],
+    }
+    # Control characters are escaped, so printing the document cannot drive the terminal,
+    # while it still decodes to the exact text.
+    return dumps_json(doc, indent=1) + "\n"
+
+
+def _history_csv(events: list[Event]) -> str:
+    from triage.core.export import neutralise_one, printable
+
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")
+    writer.writerow(HISTORY_COLUMNS)
+    numbers = {"id", "version", "undoes"}
+    for event in events:
+        row = []
+        for name, value in _event_record(event).items():
+            if name in numbers:
+                row.append(value)
+            elif name in ("item", "location"):
+                # Keys exactly as stored, but never raw control bytes on a terminal.
+                row.append(printable(value))
+            else:
+                # Same text rules as the CSV export (OWASP CSV Injection; reliability.md §2.3).
+                row.append(printable(neutralise_one(value or ""), one_line=False))
+        writer.writerow(row)
+    return buffer.getvalue()
+
+
+def _history_table(
+    path: Path, events: list[Event], causes: dict[str, str], args: argparse.Namespace
+) -> str:
+    from rich.console import Console
+    from rich.table import Table
+    from rich.text import Text
+
+    from triage.core.export import printable
+    from triage.core.ledger import OUTCOMES, UNDO
+
+    outcomes = {c.code: c.label for c in OUTCOMES}
+    filters = [
+        f"{name} {printable(value)!r}"
+        for name, value in (("cycle", args.cycle), ("item", args.item), ("location", args.location))
+        if value is not None
+    ]
+    header = f"{printable(str(path))}: {len(events):,} event{'s' if len(events) != 1 else ''}"
+    header += f" ({', '.join(filters)})" if filters else ""
+    if not events:
+        return header + "\n"
+    with_location = any(e.location for e in events)
+    table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
+    one_line = {"#", "recorded (UTC)", "cycle", "v"}
+    for name, justify in [
+        ("#", "right"),
+        ("recorded (UTC)", "left"),
+        ("who", "left"),
+        ("cycle", "left"),
+        ("item", "left"),
+        *([("location", "left")] if with_location else []),
+        ("v", "right"),
+        ("what", "left"),
+        ("root cause", "left"),
+        ("adjustment", "left"),
+        ("note", "left"),
+    ]:
+        table.add_column(
+            name,
+            justify=justify,  # type: ignore[arg-type]
+            no_wrap=name in one_line,
+            overflow="fold",
+        )
+    for e in events:
+        if e.kind == UNDO:
+            what = f"undo of #{e.undoes}"
+            cause = ""
+        else:
+            what = outcomes.get(e.outcome or "", e.outcome or "")
+            cause = causes.get(e.root_cause or "", e.root_cause or "")
+        note = printable(e.note)
+        if len(note) > TABLE_NOTE_MAX:
+            note = note[:TABLE_NOTE_MAX] + "…"
+        cells = [
+            Text(str(e.id)),
+            Text(e.recorded_at.replace("T", " ")[:19]),
+            Text(printable(e.reviewer)),
+            Text(e.cycle),
+            Text(printable(e.item)),
+            *([Text(printable(e.location))] if with_location else []),
+            Text(str(e.version)),
+            Text(printable(what)),
+            Text(printable(cause)),
+            Text(printable(e.adjustment or "")),
+            Text(note),
+        ]
+        table.add_row(*cells)
+    width = max(100, shutil.get_terminal_size((120, 24)).columns)
+    buffer = io.StringIO()
+    Console(
+        file=buffer, width=width, color_system=None, markup=False, emoji=False, highlight=False
+    ).print(table)
+    return header + "\n\n" + buffer.getvalue()
+
+
+# --------------------------------------------------------------------------------------------
+# export
+
+
+def cmd_export(args: argparse.Namespace) -> int:
+    """``triage export``: decisions and adjusted forward forecast of a cycle, for upload."""
+    from triage.core.config import default_reviewer
+    from triage.core.export import CAUTION, export_paths, export_review, printable
+    from triage.core.load import parse_column_map
+    from triage.core.portfolio import read_portfolio
+
+    cycle = _check_cycle(args.cycle)
+    config = _config(args)
+    # Check the target before the (possibly long) load of the portfolio.
+    export_paths(args.to)
+    if args.ledger is not None:
+        ledger_path = args.ledger
+    else:
+        if not args.portfolio.exists():
+            raise TriageError(f"{args.portfolio}: no such file.")
+        ledger_path = _ledger_of_portfolio(args.portfolio)
+    columns = parse_column_map(args.columns) if args.columns else None
+    portfolio = read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+    with _open_ledger(ledger_path, config) as ledger:
+        result = export_review(
+            portfolio,
+            ledger,
+            args.to,
+            cycle=cycle,
+            force=args.force,
+            exported_by=default_reviewer(config),
+        )
+    print(
+        f"Exported cycle {result.cycle} of {printable(portfolio.path.name)}: "
+        f"{result.decisions:,} reviewed series, {result.forecast_rows:,} forecast rows "
+        f"({result.adjusted_periods:,} adjusted)."
+    )
+    for path in result.paths:
+        print(f"  wrote {printable(str(path))}")
+    for warning in result.warnings:
+        _warn(warning)
+    print(f"Caution: {CAUTION}")
+    return 0
