@@ -12,28 +12,9 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from triage import __version__
+from triage.arguments import portfolio_args, score_args
 from triage.commands_ledger import add_ledger_commands
 from triage.core.errors import TriageError
-
-
-def _portfolio_args(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("portfolio", type=Path, help="portfolio file: .csv, .parquet or .xlsx")
-    parser.add_argument(
-        "--columns",
-        metavar="MAP",
-        help="map our column names to the file's headers, e.g. demand=qty_shipped,item=sku",
-    )
-    parser.add_argument("--sheet", help="xlsx sheet to read (default: the first visible sheet)")
-    parser.add_argument("--lag", type=int, help="forecast lag to score, when the file holds several")
-
-
-def _score_args(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument(
-        "--window", type=int, default=13, help="latest periods with actual demand to score (default 13)"
-    )
-    parser.add_argument(
-        "--season", type=int, default=1, help="seasonal period of the naive baseline (default 1)"
-    )
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -46,8 +27,8 @@ def build_parser() -> argparse.ArgumentParser:
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
     rank = sub.add_parser("rank", help="score every series and list the worst offenders first")
-    _portfolio_args(rank)
-    _score_args(rank)
+    portfolio_args(rank)
+    score_args(rank)
     rank.add_argument("--by", choices=("error", "bias"), default="error", help="order (default error)")
     rank.add_argument(
         "--format", choices=("table", "csv", "json"), default="table", help="output format (default table)"
@@ -64,13 +45,13 @@ def build_parser() -> argparse.ArgumentParser:
     rank.set_defaults(handler=_cmd_rank)
 
     check = sub.add_parser("check", help="report on the data quality of a portfolio file")
-    _portfolio_args(check)
-    _score_args(check)
+    portfolio_args(check)
+    score_args(check)
     check.set_defaults(handler=_cmd_check)
 
     review = sub.add_parser("review", help="open the review screens on a portfolio")
-    _portfolio_args(review)
-    _score_args(review)
+    portfolio_args(review)
+    score_args(review)
     _review_args(review)
     review.set_defaults(handler=_cmd_review)
 

@@ -17,6 +17,7 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from triage.arguments import portfolio_args
 from triage.core.errors import TriageError
 
 if TYPE_CHECKING:
@@ -81,16 +82,7 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
         "forecast, for upload to a planning system. A .csv target writes three files: "
         "NAME-decisions.csv, NAME-forecast.csv and NAME-README.txt.",
     )
-    export.add_argument("portfolio", type=Path, help="portfolio file: .csv, .parquet or .xlsx")
-    export.add_argument(
-        "--columns",
-        metavar="MAP",
-        help="map our column names to the file's headers, e.g. demand=qty_shipped,item=sku",
-    )
-    export.add_argument("--sheet", help="xlsx sheet to read (default: the first visible sheet)")
-    export.add_argument(
-        "--lag", type=int, help="forecast lag to score, when the file holds several"
-    )
+    portfolio_args(export)
     export.add_argument(
         "--ledger",
         type=Path,

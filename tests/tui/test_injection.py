@@ -10,6 +10,7 @@ from __future__ import annotations
 import csv
 from pathlib import Path
 
+from tests.tui.conftest import wait_loaded
 from triage.tui.app import Options, TriageApp
 from triage.tui.widgets.series_list import SeriesList
 
@@ -38,13 +39,6 @@ def hostile_portfolio(tmp_path: Path) -> Path:
     return path
 
 
-async def wait_loaded(app: TriageApp, pilot) -> None:  # noqa: ANN001
-    for _ in range(300):
-        await pilot.pause(0.05)
-        if app.session is not None:
-            await pilot.pause(0.1)
-            return
-    raise AssertionError(f"did not load: {app.status_text}")
 
 
 async def test_hostile_ids_attributes_and_notes(tmp_path: Path) -> None:

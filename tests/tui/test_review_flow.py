@@ -13,6 +13,7 @@ import numpy as np
 import pytest
 from textual.widgets import Input, TextArea
 
+from tests.tui.conftest import wait_for, wait_loaded
 from triage.core.ledger import Ledger
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.decision import DecisionScreen
@@ -34,21 +35,8 @@ def make_app(portfolio: Path, **kw: object) -> TriageApp:
     return TriageApp(Options(portfolio=portfolio, reviewer="ana", **kw))
 
 
-async def wait_loaded(app: TriageApp, pilot) -> None:  # noqa: ANN001
-    for _ in range(200):
-        await pilot.pause(0.05)
-        if app.session is not None:
-            await pilot.pause(0.05)
-            return
-    raise AssertionError(f"app did not load: {app.status_text}")
 
 
-async def wait_for(pilot, predicate, what: str) -> None:  # noqa: ANN001
-    for _ in range(200):
-        await pilot.pause(0.05)
-        if predicate():
-            return
-    raise AssertionError(f"timed out waiting for {what}")
 
 
 def ledger_rows(path: Path) -> list[tuple]:

@@ -15,7 +15,8 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from triage.core import adjust, ledger as ledger_mod, metrics, schema
+from triage.core import adjust, metrics, schema
+from triage.core import ledger as ledger_mod
 from triage.core.ledger import Event, Ledger
 from triage.core.portfolio import Portfolio
 from triage.core.ranking import BY_BIAS, BY_ERROR, scorecard
@@ -46,11 +47,17 @@ class ChartSeries:
     """Arrays for the detail chart of one series, aligned on ``labels``."""
 
     labels: tuple[str, ...]
+    """Period labels (ISO dates), history then forward."""
     demand: np.ndarray
+    """Actual demand, NaN where missing or forward."""
     forecast: np.ndarray
+    """Forecast at the scored lag, then the forward forecast."""
     adjusted: np.ndarray | None
+    """Adjusted forward forecast (NaN outside the forward periods), or None."""
     window_start: int
+    """First period of the scoring window."""
     last_actual: int
+    """Last period with actuals; forward periods follow it."""
 
 
 class ReviewSession:

@@ -12,8 +12,8 @@ from textual import on, work
 from textual.app import App, ComposeResult, SystemCommand
 from textual.binding import Binding
 from textual.containers import Container, Vertical
-from textual.widgets import Footer, ProgressBar, Static
 from textual.timer import Timer
+from textual.widgets import Footer, ProgressBar, Static
 from textual.worker import Worker, WorkerState
 
 from triage.core import ledger as ledger_mod
@@ -23,7 +23,7 @@ from triage.core.review import FILTER_FIELDS, ReviewSession
 from triage.core.text import visible
 from triage.tui import format as fmt
 from triage.tui.messages import Exported, Loaded, LoadStep, Saved, SaveFailed
-from triage.tui.screens.decision import DecisionScreen, Draft, chart_data
+from triage.tui.screens.decision import DecisionScreen, Draft
 from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
 from triage.tui.widgets.chart import SeriesChart
 from triage.tui.widgets.series_list import SeriesList
@@ -330,7 +330,7 @@ class TriageApp(App[None]):
     def _draw_chart(self, series: int) -> None:
         session = self.session
         if session is not None and self.is_running and self._q(SeriesList).current == series:
-            self._q("#chart", SeriesChart).show(chart_data(session, series))
+            self._q("#chart", SeriesChart).show(session.chart(series))
 
     def _history_text(self, series: int) -> Text:
         assert self.session is not None

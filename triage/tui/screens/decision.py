@@ -18,7 +18,7 @@ from triage.core.adjust import AdjustError
 from triage.core.config import Choice
 from triage.core.review import ReviewSession
 from triage.tui.format import clip
-from triage.tui.widgets.chart import ChartData, SeriesChart
+from triage.tui.widgets.chart import SeriesChart
 
 
 @dataclass(frozen=True)
@@ -30,19 +30,6 @@ class Draft:
     root_cause: str
     note: str
     adjustment: str
-
-
-def chart_data(session: ReviewSession, series: int, adjusted=None) -> ChartData:  # noqa: ANN001
-    """The core's chart arrays in the widget's shape."""
-    c = session.chart(series, adjusted)
-    return ChartData(
-        labels=c.labels,
-        demand=c.demand,
-        forecast=c.forecast,
-        adjusted=c.adjusted,
-        window_start=c.window_start,
-        last_actual=c.last_actual,
-    )
 
 
 class DecisionScreen(ModalScreen[Draft | None]):
@@ -120,19 +107,19 @@ class DecisionScreen(ModalScreen[Draft | None]):
         chart = self.query_one("#decision-chart", SeriesChart)
         if not spec.strip():
             preview.update(Text("no adjustment: the forward forecast stays as it is"))
-            chart.show(chart_data(self._session, self._series))
+            chart.show(self._session.chart(self._series))
             return True
         try:
             result = self._session.preview(self._series, spec)
         except AdjustError as exc:
             preview.update(Text(str(exc), style="bold red"))
-            chart.show(chart_data(self._session, self._series))
+            chart.show(self._session.chart(self._series))
             return False
         words = result.description
         if result.clipped:
             words += f"  ({result.message})"
         preview.update(Text(words))
-        chart.show(chart_data(self._session, self._series, result.adjusted))
+        chart.show(self._session.chart(self._series, result.adjusted))
         return True
 
     def _current(self) -> Draft:

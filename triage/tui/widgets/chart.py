@@ -2,30 +2,12 @@
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-
 import numpy as np
 from plotext._figure import _figure_class
 from rich.text import Text
 from textual.widgets import Static
 
-
-@dataclass(frozen=True)
-class ChartData:
-    """What the chart shows for one series; arrays are aligned on ``labels``."""
-
-    labels: tuple[str, ...]
-    """Period labels (ISO dates), history then forward."""
-    demand: np.ndarray
-    """Actual demand, NaN where missing or forward."""
-    forecast: np.ndarray
-    """Forecast at the scored lag, then the forward forecast."""
-    adjusted: np.ndarray | None
-    """Adjusted forward forecast (NaN outside the forward range), or None."""
-    window_start: int
-    """First period of the scoring window."""
-    last_actual: int
-    """Last period with actuals; forward periods follow it."""
+from triage.core.review import ChartSeries
 
 
 def _segments(values: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
@@ -38,7 +20,7 @@ def _segments(values: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
     return [(run, values[run]) for run in np.split(idx, breaks)]
 
 
-def render_chart(data: ChartData, width: int, height: int) -> Text:
+def render_chart(data: ChartSeries, width: int, height: int) -> Text:
     """Draw the chart as Rich text (plotext's ANSI output, decoded; no markup involved)."""
     fig = _figure_class()
     fig.plot_size(max(width, 20), max(height, 6))
@@ -78,10 +60,10 @@ class SeriesChart(Static):
 
     def __init__(self, *, id: str | None = None, classes: str | None = None) -> None:
         super().__init__("", id=id, classes=classes, markup=False)
-        self._data: ChartData | None = None
+        self._data: ChartSeries | None = None
         self._drawn: tuple[int, int, int] | None = None
 
-    def show(self, data: ChartData | None) -> None:
+    def show(self, data: ChartSeries | None) -> None:
         """Draw ``data`` (None clears the chart)."""
         self._data = data
         self._drawn = None
