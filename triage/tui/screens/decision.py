@@ -83,6 +83,10 @@ class DecisionScreen(ModalScreen[Draft | None]):
     def on_mount(self) -> None:
         outcome_list = self.query_one("#decision-outcome", OptionList)
         cause_list = self.query_one("#decision-cause", OptionList)
+        outcome_list.border_title = "outcome"
+        cause_list.border_title = "root cause"
+        self.query_one("#decision-adjust", Input).border_title = "adjustment of the forward forecast"
+        self.query_one("#decision-note", TextArea).border_title = "note (optional, several lines)"
         outcome_list.highlighted = [c.code for c in self._outcomes].index(self._draft.outcome)
         codes = [c.code for c in self._causes]
         cause_list.highlighted = codes.index(self._draft.root_cause) if self._draft.root_cause in codes else len(codes) - 1

@@ -23,6 +23,8 @@ def _segments(values: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
 def render_chart(data: ChartSeries, width: int, height: int) -> Text:
     """Draw the chart as Rich text (plotext's ANSI output, decoded; no markup involved)."""
     fig = _figure_class()
+    # plotext caps a figure at the size of the terminal it detects; the widget knows better.
+    fig._limit_size(False, False)
     fig.plot_size(max(width, 20), max(height, 6))
     fig.theme("clear")
     series = [
@@ -53,8 +55,9 @@ class SeriesChart(Static):
 
     DEFAULT_CSS = """
     SeriesChart {
+        width: 1fr;
         height: 1fr;
-        min-height: 8;
+        min-height: 6;
     }
     """
 
