@@ -71,6 +71,12 @@ def _review_args(parser: argparse.ArgumentParser, *, ledger: bool = True) -> Non
         )
     parser.add_argument("--reviewer", help="name stored with each decision (default: config or login name)")
     parser.add_argument("--config", type=Path, help="configuration file (TOML)")
+    parser.add_argument(
+        "--target",
+        type=float,
+        metavar="F",
+        help="share of total error the review aims to cover (default: config, else 0.8)",
+    )
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -149,6 +155,9 @@ def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | No
     from triage.tui.app import Options
 
     config = load_config(args.config)
+    target = config.target_share if args.target is None else args.target
+    if not 0 < target <= 1:
+        raise TriageError(f"--target must be a share in (0, 1], e.g. 0.8, not {args.target}.")
     columns = parse_column_map(args.columns) if getattr(args, "columns", None) else None
     return Options(
         portfolio=portfolio,
@@ -159,7 +168,7 @@ def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | No
         columns=columns,
         sheet=getattr(args, "sheet", None),
         lag=getattr(args, "lag", None),
-        target_share=config.target_share,
+        target_share=target,
         root_causes=config.root_causes,
     )
 
