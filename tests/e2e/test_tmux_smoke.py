@@ -97,3 +97,25 @@ def test_review_in_a_real_terminal(tmp_path: Path) -> None:
     finally:
         con.close()
     assert rows == [("decision", "no_change", "new_item", "smoke")]
+
+
+def test_hostile_ids_do_not_reach_the_terminal(tmp_path: Path) -> None:
+    """An id carrying an OSC title sequence must not retitle the pane (reliability.md §3.2)."""
+    portfolio = tmp_path / "hostile.csv"
+    weeks = ["2026-10-05", "2026-10-12", "2026-10-19", "2026-10-26"]
+    lines = ["item,period,demand,forecast"]
+    for item in ("title\x1b]2;PWNED-BY-DATA\x07x", "[@click=app.quit]Q[/]", "red\x1b[31mRED"):
+        lines += [f"{item},{week},5,7" for week in weeks]
+    portfolio.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    triage = str(Path(sys.executable).with_name("triage"))
+    term = Tmux([triage, "review", str(portfolio), "--reviewer", "smoke"], tmp_path)
+    try:
+        screen = term.wait_for("reviewed 0")
+        assert "PWNED-BY-DATA" not in term.title()
+        assert "[@click=app.quit]Q[" in screen  # shown as text
+        term.keys("j", "j", "k")
+        time.sleep(0.5)
+        assert term.alive() and "PWNED-BY-DATA" not in term.title()
+        term.keys("q")
+    finally:
+        term.kill()
