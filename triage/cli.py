@@ -14,6 +14,7 @@ from pathlib import Path
 from triage import __version__
 from triage.arguments import portfolio_args, score_args
 from triage.commands_ledger import add_ledger_commands
+from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
 
 
@@ -59,6 +60,7 @@ def build_parser() -> argparse.ArgumentParser:
     _review_args(demo, ledger=False)
     demo.set_defaults(handler=_cmd_demo)
     add_ledger_commands(sub)
+    add_report_commands(sub)
     return parser
 
 

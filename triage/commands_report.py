@@ -1,0 +1,478 @@
+"""Command line: ``triage report`` (the weekly HTML report) and ``triage overrides``.
+
+Both open the ledger read-only and only read the portfolio; the report is the one file written,
+atomically. Every problem is raised as a ``TriageError``; ``triage.cli.main`` prints it as
+``triage: <message>`` on stderr, exit 2. Ledger text reaches the terminal only through
+``printable`` and Rich ``Text`` objects (reliability.md §3), and CSV text cells are neutralised
+against formula injection like every other export (reliability.md §2).
+"""
+
+from __future__ import annotations
+
+import argparse
+import csv
+import io
+import re
+import shutil
+import sys
+from pathlib import Path
+from typing import TYPE_CHECKING, Any
+
+from triage.core.errors import TriageError
+
+if TYPE_CHECKING:
+    import pandas as pd
+
+    from triage.core.config import Config
+    from triage.core.ledger import Ledger
+    from triage.core.portfolio import Portfolio
+
+#: ``--by`` choices of ``triage overrides`` and the grouping each one asks ``summarise`` for.
+OVERRIDE_GROUPS = ("direction", "size", "reviewer", "root_cause", "cycle")
+
+
+def add_report_commands(sub: argparse._SubParsersAction) -> None:
+    """Add ``report`` and ``overrides`` to the ``triage`` subcommands."""
+    report = sub.add_parser(
+        "report",
+        help="write the weekly review report (one self-contained HTML file) and print a summary",
+        description="Write the weekly review report of a portfolio: review coverage, decisions, "
+        "bias distribution, top and repeat offenders, active adjustments and the realised value "
+        "of earlier overrides. The HTML file embeds its charts and needs no network to be read.",
+    )
+    _portfolio_args(report)
+    report.add_argument(
+        "--to",
+        type=Path,
+        metavar="FILE",
+        help="HTML file to write (default: <portfolio>-report-<cycle>.html beside the portfolio)",
+    )
+    report.add_argument(
+        "--top",
+        type=int,
+        default=10,
+        metavar="K",
+        help="top offenders shown with a chart (default 10)",
+    )
+    _history_args(report)
+    report.set_defaults(handler=cmd_report)
+
+    overrides = sub.add_parser(
+        "overrides",
+        help="realised value of earlier overrides: did adjusting the forecast help?",
+        description="Set every recorded adjustment whose periods now have actual demand against "
+        "those actuals: error removed = |original - actual| - |adjusted - actual| (positive = "
+        "the override helped), summed by the chosen grouping.",
+    )
+    _portfolio_args(overrides)
+    overrides.add_argument(
+        "--by",
+        choices=OVERRIDE_GROUPS,
+        default="direction",
+        help="grouping of the breakdown (default direction)",
+    )
+    overrides.add_argument(
+        "--detail",
+        action="store_true",
+        help="one row per overridden period instead of the breakdown",
+    )
+    overrides.add_argument(
+        "--format",
+        choices=("table", "csv", "json"),
+        default="table",
+        help="output format (default table)",
+    )
+    overrides.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+    overrides.set_defaults(handler=cmd_overrides)
+
+
+def _portfolio_args(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument("portfolio", type=Path, help="portfolio file: .csv, .parquet or .xlsx")
+    parser.add_argument(
+        "--ledger",
+        type=Path,
+        metavar="PATH",
+        help="decision ledger (default: <portfolio>.ledger.sqlite beside the portfolio)",
+    )
+    parser.add_argument(
+        "--columns",
+        metavar="MAP",
+        help="map our column names to the file's headers, e.g. demand=qty_shipped,item=sku",
+    )
+    parser.add_argument("--sheet", help="xlsx sheet to read (default: the first visible sheet)")
+    parser.add_argument(
+        "--lag", type=int, help="forecast lag to score, when the file holds several"
+    )
+
+
+def _history_args(parser: argparse.ArgumentParser) -> None:
+    parser.add_argument(
+        "--window",
+        type=int,
+        default=13,
+        help="latest periods with actual demand to score (default 13)",
+    )
+    parser.add_argument(
+        "--season", type=int, default=1, help="seasonal period of the naive baseline (default 1)"
+    )
+    parser.add_argument(
+        "--cover",
+        type=float,
+        metavar="F",
+        help="share of total error the worst-offender set covers (default: config, else 0.8)",
+    )
+    parser.add_argument(
+        "--repeat",
+        default="3/4",
+        metavar="N/M",
+        help="repeat offender: in the worst set in at least N of the last M cycles (default 3/4)",
+    )
+    parser.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+
+
+# --------------------------------------------------------------------------------------------
+# Shared
+
+
+def _config(args: argparse.Namespace) -> Config:
+    from triage.core.config import load_config
+
+    return load_config(args.config)
+
+
+def parse_repeat(value: str) -> tuple[int, int]:
+    """``"3/4"`` -> (3, 4).
+
+    Raises:
+        TriageError: Not two whole numbers with 1 <= N <= M.
+    """
+    match = re.fullmatch(r"\s*(\d+)\s*/\s*(\d+)\s*", value or "")
+    if not match:
+        raise TriageError(
+            f"--repeat must be N/M, e.g. 3/4, not {value!r}.",
+            hint="N/M: in the worst set in at least N of the last M cycles.",
+        )
+    n, m = int(match[1]), int(match[2])
+    if not 1 <= n <= m:
+        raise TriageError(f"--repeat {value}: N must be between 1 and M.", hint="For example 3/4.")
+    return n, m
+
+
+def _load(args: argparse.Namespace) -> Portfolio:
+    from triage.core.load import parse_column_map
+    from triage.core.portfolio import read_portfolio
+
+    if not args.portfolio.exists():
+        raise TriageError(
+            f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file."
+        )
+    columns = parse_column_map(args.columns) if args.columns else None
+    return read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+
+
+def _ledger_path(args: argparse.Namespace, *, required: bool) -> Path | None:
+    """The ledger to read: ``--ledger``, else the one kept for the portfolio.
+
+    Without ``required`` a portfolio that has no ledger yet gives None (a report without
+    decisions); ``--ledger`` must always name an existing file.
+    """
+    from triage.commands_ledger import _ledger_of_portfolio
+
+    if args.ledger is not None:
+        if not args.ledger.exists():
+            raise TriageError(
+                f"There is no decision ledger at {args.ledger}.", hint="Check the --ledger path."
+            )
+        return args.ledger
+    if not args.portfolio.exists():
+        raise TriageError(f"{args.portfolio}: no such file.")
+    try:
+        return _ledger_of_portfolio(args.portfolio)
+    except TriageError:
+        if required:
+            raise
+        return None
+
+
+def _open_ledger(path: Path, config: Config) -> Ledger:
+    from triage.core.ledger import Ledger
+
+    return Ledger.open(path, read_only=True, root_causes=config.root_causes)
+
+
+def _warn(message: str) -> None:
+    from triage.core.export import printable
+
+    print(f"triage: warning: {printable(message, one_line=False)}", file=sys.stderr)
+
+
+def _check_scoring(args: argparse.Namespace) -> None:
+    if args.window < 1:
+        raise TriageError(f"--window must be at least 1, not {args.window}.")
+    if args.season < 1:
+        raise TriageError(f"--season must be at least 1, not {args.season}.")
+    if args.cover is not None and not 0 < args.cover <= 1:
+        raise TriageError(f"--cover must be a fraction in (0, 1], e.g. 0.8, not {args.cover}.")
+
+
+# --------------------------------------------------------------------------------------------
+# report
+
+
+def cmd_report(args: argparse.Namespace) -> int:
+    """``triage report``: write the HTML report and print its short summary."""
+    from triage.core.export import printable
+    from triage.core.report import summary_text, write_report
+
+    _check_scoring(args)
+    if args.top < 1:
+        raise TriageError(f"--top must be at least 1, not {args.top}.")
+    if args.to is not None and args.to.suffix.lower() not in (".html", ".htm"):
+        raise TriageError(
+            f"--to {args.to}: the report is an HTML file; use a name ending in .html.",
+            hint="For example --to weekly-report.html.",
+        )
+    repeat_n, repeat_m = parse_repeat(args.repeat)
+    config = _config(args)
+    ledger_path = _ledger_path(args, required=False)
+    portfolio = _load(args)
+    target_share = args.cover if args.cover is not None else config.target_share
+    if ledger_path is None:
+        _warn(
+            f"No decisions have been recorded for {portfolio.path.name}; the report has no "
+            "decisions or overrides. Pass --ledger PATH if they are kept elsewhere."
+        )
+        result = write_report(
+            portfolio,
+            None,
+            args.to,
+            window=args.window,
+            season=args.season,
+            target_share=target_share,
+            repeat_n=repeat_n,
+            repeat_m=repeat_m,
+            top=args.top,
+        )
+    else:
+        with _open_ledger(ledger_path, config) as ledger:
+            if ledger.notice:
+                _warn(ledger.notice)
+            result = write_report(
+                portfolio,
+                ledger,
+                args.to,
+                window=args.window,
+                season=args.season,
+                target_share=target_share,
+                repeat_n=repeat_n,
+                repeat_m=repeat_m,
+                top=args.top,
+            )
+    sys.stdout.write(printable(summary_text(result.data, result.path), one_line=False))
+    sys.stdout.flush()
+    return 0
+
+
+# --------------------------------------------------------------------------------------------
+# overrides
+
+#: Columns of the breakdown, with their headings in the table format.
+SUMMARY_HEADINGS = {
+    "adjustments": "periods",
+    "decisions": "decisions",
+    "helped": "helped",
+    "hurt": "hurt",
+    "share_helped": "share helped",
+    "abs_error_original": "error before",
+    "abs_error_adjusted": "error after",
+    "value_added": "error removed",
+    "value_added_value": "removed (value)",
+    "relative_value_added": "share removed",
+    "avg_rel_mae": "AvgRelMAE",
+}
+DETAIL_COLUMNS = (
+    "cycle",
+    "item",
+    "location",
+    "period",
+    "horizon",
+    "original",
+    "adjusted",
+    "actual",
+    "abs_error_original",
+    "abs_error_adjusted",
+    "value_added",
+    "price",
+    "value_added_value",
+    "direction",
+    "size",
+    "helped",
+    "reviewer",
+    "root_cause",
+    "event_id",
+)
+
+
+def cmd_overrides(args: argparse.Namespace) -> int:
+    """``triage overrides``: the realised value of earlier overrides."""
+    from triage.core import history
+
+    config = _config(args)
+    ledger_path = _ledger_path(args, required=True)
+    assert ledger_path is not None
+    portfolio = _load(args)
+    with _open_ledger(ledger_path, config) as ledger:
+        realised = history.realised_value(portfolio, ledger)
+        status = history.line_status(portfolio, ledger)
+        causes = {c.code: c.label for c in ledger.root_causes}
+    priced = portfolio.price is not None
+    if args.detail:
+        frame = realised[list(DETAIL_COLUMNS)]
+        if not priced:
+            frame = frame.drop(columns=["price", "value_added_value"])
+    else:
+        frame = history.summarise(realised, args.by)
+        if not priced:
+            frame = frame.drop(columns=["value_added_value"])
+    if args.format == "csv":
+        text = _csv(frame)
+    elif args.format == "json":
+        text = _json(portfolio, ledger_path, args, frame, status)
+    else:
+        text = _table(portfolio, args, frame, status, causes)
+    sys.stdout.write(text)
+    sys.stdout.flush()
+    return 0
+
+
+def _cell(value: Any) -> Any:
+    import math
+
+    import numpy as np
+
+    if isinstance(value, (bool, np.bool_)):
+        return bool(value)
+    if isinstance(value, (np.integer,)):
+        return int(value)
+    if isinstance(value, (float, np.floating)):
+        return None if math.isnan(value) else float(value)
+    return value
+
+
+def _csv(frame: pd.DataFrame) -> str:
+    from triage.core.export import neutralise_one, printable
+
+    buffer = io.StringIO()
+    writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")
+    writer.writerow(list(frame.columns))
+    keys = {"item", "location"}
+    for row in frame.itertuples(index=False):
+        out = []
+        for name, value in zip(frame.columns, row, strict=True):
+            value = _cell(value)
+            if isinstance(value, str):
+                # Keys exactly as stored; other text as every CSV export writes it.
+                value = printable(value) if name in keys else printable(neutralise_one(value))
+            out.append("" if value is None else value)
+        writer.writerow(out)
+    return buffer.getvalue()
+
+
+def _json(
+    portfolio: Portfolio,
+    ledger_path: Path,
+    args: argparse.Namespace,
+    frame: pd.DataFrame,
+    status: pd.DataFrame,
+) -> str:
+    from triage.core.export import dumps_json
+
+    doc = {
+        "portfolio": str(portfolio.path),
+        "cycle": portfolio.cycle,
+        "ledger": str(ledger_path),
+        "value_added": "|original - actual| - |adjusted - actual| (positive = the override helped)",
+        "grouping": None if args.detail else args.by,
+        "rows": [
+            {c: _cell(v) for c, v in zip(frame.columns, row, strict=True)}
+            for row in frame.itertuples(index=False)
+        ],
+        "line_status": [
+            {"status": r.status, "lines": int(r.lines), "decisions": int(r.decisions)}
+            for r in status.itertuples(index=False)
+        ],
+    }
+    return dumps_json(doc, indent=1) + "\n"
+
+
+def _table(
+    portfolio: Portfolio,
+    args: argparse.Namespace,
+    frame: pd.DataFrame,
+    status: pd.DataFrame,
+    causes: dict[str, str],
+) -> str:
+    from rich.console import Console
+    from rich.table import Table
+    from rich.text import Text
+
+    from triage.core import history
+    from triage.core.export import printable
+    from triage.core.report import fmt_int, fmt_money, fmt_pct, fmt_ratio, fmt_units
+
+    realised = int(status.loc[status["status"] == history.REALISED, "lines"].sum())
+    ahead = int(status.loc[status["status"] == history.AHEAD, "lines"].sum())
+    header = [
+        f"{printable(portfolio.path.name)}, cycle {portfolio.cycle}: {realised:,} overridden "
+        f"periods with actuals, {ahead:,} still ahead",
+        "error removed = |original - actual| - |adjusted - actual|; positive = the override helped",
+    ]
+    missing = status.loc[
+        ~status["status"].isin([history.REALISED, history.AHEAD]) & (status["lines"] > 0)
+    ]
+    for row in missing.itertuples(index=False):
+        header.append(f"{int(row.lines):,} periods not counted: {row.meaning}")
+    table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
+    formats = {
+        "share_helped": fmt_pct,
+        "relative_value_added": lambda v: fmt_pct(v, signed=True),
+        "avg_rel_mae": fmt_ratio,
+        "value_added": lambda v: fmt_units(v, signed=True),
+        "value_added_value": lambda v: fmt_money(v, signed=True),
+        "abs_error_original": fmt_units,
+        "abs_error_adjusted": fmt_units,
+        "original": fmt_units,
+        "adjusted": fmt_units,
+        "actual": fmt_units,
+        "price": fmt_money,
+    }
+    counts = {"adjustments", "decisions", "helped", "hurt", "horizon", "event_id"}
+    for name in frame.columns:
+        numeric = name in formats or name in counts
+        table.add_column(
+            SUMMARY_HEADINGS.get(name, name.replace("_", " ")),
+            justify="right" if numeric else "left",
+            no_wrap=numeric,
+            overflow="fold",
+        )
+    for row in frame.itertuples(index=False):
+        cells = []
+        for name, value in zip(frame.columns, row, strict=True):
+            if name in formats:
+                shown = formats[name](_cell(value))
+            elif name in counts:
+                shown = fmt_int(value)
+            elif name == "root_cause" and value != history.ALL:
+                shown = causes.get(str(value), str(value))
+            elif name == "helped":
+                shown = "yes" if value else "no"
+            else:
+                shown = str(value)
+            cells.append(Text(printable(shown)))
+        table.add_row(*cells)
+    width = max(100, shutil.get_terminal_size((140, 24)).columns)
+    buffer = io.StringIO()
+    Console(
+        file=buffer, width=width, color_system=None, markup=False, emoji=False, highlight=False
+    ).print(table)
+    return "\n".join(header) + "\n\n" + buffer.getvalue()

@@ -1,0 +1,867 @@
+"""Across review cycles: what past overrides were worth, and which series keep coming back.
+
+A planner reviews a new portfolio file every week with the same ledger. This module closes the
+loop with the newer file's actuals:
+
+* ``realised_value``: every effective adjustment line whose period now has actual demand, with
+  the error of the original and of the adjusted forecast, and the value the override added;
+* ``summarise``: those lines by reviewer, root cause, direction, size band or cycle;
+* ``repeat_offenders``: series in the worst-offender set in at least N of the last M cycles,
+  re-scored from the current file alone;
+* ``active_adjustments``: adjustments with forward periods still ahead;
+* ``carried_over``: handed-off and put-off series still among the worst;
+* ``portfolio_fva``: forecast value added over the naive forecast for the cycle.
+
+Sign convention (stated once, here): the **value added** of an override in a period is
+
+    value_added = |original − actual| − |adjusted − actual|
+
+in units, positive when the override brought the forecast closer to the actual (it *helped*),
+negative when it moved it away. This is Gilliland's forecast value added (FVA_step = Err(previous
+step) − Err(step)) with the statistical forecast as the previous step and absolute error as the
+metric (forecast-methods.md §3.1). In value it is multiplied by the price of the period.
+
+Direction and size of an override follow the split that Fildes, Goodwin, Lawrence & Nikolopoulos
+(2009, IJF 25(1):3–23) used to show that small and upward adjustments are the ones most likely to
+hurt: direction is the sign of adjusted − original, size is |adjusted − original| / |original| in
+the bands of ``SIZE_BANDS``. This module reports what the ledger's own overrides did; it asserts
+nothing about them.
+
+Decisions count as the ledger defines them: in each cycle, each series' latest decision that has
+not been undone (``Ledger.current``). Nothing here writes to the ledger.
+"""
+
+from __future__ import annotations
+
+import itertools
+import math
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from triage.core import metrics, schema
+from triage.core.errors import TriageError
+from triage.core.ledger import ADJUSTED, OUTCOMES, Decision, Ledger
+from triage.core.portfolio import Portfolio
+from triage.core.ranking import leading_cover
+
+UP = "up"
+DOWN = "down"
+#: Size bands of |adjusted − original| / |original|, smallest first; each band includes its
+#: lower edge. An override of a zero forecast has no relative size: it has its own band.
+SIZE_BANDS: tuple[str, ...] = ("<5%", "5-10%", "10-20%", "20-50%", ">=50%", "from zero")
+#: Upper edges of the first four bands.
+SIZE_EDGES: tuple[float, ...] = (0.05, 0.10, 0.20, 0.50)
+FROM_ZERO = SIZE_BANDS[-1]
+
+#: Groupings ``summarise`` accepts, and the realised-value column each one reads.
+GROUPINGS: dict[str, str] = {
+    "reviewer": "reviewer",
+    "root_cause": "root_cause",
+    "direction": "direction",
+    "size": "size",
+    "cycle": "cycle",
+}
+#: Label of the row that sums every line in ``summarise``.
+ALL = "all"
+
+#: What became of each adjustment line when set against a portfolio (``line_status``).
+REALISED = "realised"
+AHEAD = "ahead"
+NO_ACTUAL = "no_actual"
+NOT_IN_PORTFOLIO = "not_in_portfolio"
+OFF_CALENDAR = "off_calendar"
+UNCHANGED = "unchanged"
+NO_FORECAST = "no_forecast"
+LINE_STATUSES: tuple[str, ...] = (
+    REALISED,
+    AHEAD,
+    NO_ACTUAL,
+    NOT_IN_PORTFOLIO,
+    OFF_CALENDAR,
+    UNCHANGED,
+    NO_FORECAST,
+)
+STATUS_TEXT = {
+    REALISED: "actual demand is in: value realised",
+    AHEAD: "period still ahead (after the latest actual)",
+    NO_ACTUAL: "period passed but the portfolio has no actual for it",
+    NOT_IN_PORTFOLIO: "series is not in this portfolio",
+    OFF_CALENDAR: "period is not on this portfolio's calendar",
+    UNCHANGED: "the adjustment left this period unchanged",
+    NO_FORECAST: "original or adjusted forecast missing",
+}
+
+#: Outcomes that leave a series open for a later cycle.
+OPEN_OUTCOMES = ("handed_off", "deferred")
+
+REALISED_COLUMNS: tuple[str, ...] = (
+    "cycle",
+    schema.ITEM,
+    schema.LOCATION,
+    "period",
+    "horizon",
+    "original",
+    "adjusted",
+    "actual",
+    "abs_error_original",
+    "abs_error_adjusted",
+    "value_added",
+    "price",
+    "value_added_value",
+    "reviewer",
+    "root_cause",
+    "direction",
+    "size",
+    "helped",
+    "event_id",
+    "series",
+)
+
+SUMMARY_COLUMNS: tuple[str, ...] = (
+    "adjustments",
+    "decisions",
+    "helped",
+    "hurt",
+    "share_helped",
+    "abs_error_original",
+    "abs_error_adjusted",
+    "value_added",
+    "value_added_value",
+    "relative_value_added",
+    "avg_rel_mae",
+)
+
+
+class HistoryError(TriageError):
+    """A cross-cycle question was asked with settings that cannot be answered."""
+
+
+# --------------------------------------------------------------------------------------------
+# Joining ledger text to the portfolio
+
+
+def key_index(portfolio: Portfolio) -> pd.Index:
+    """The portfolio's series keys as an index (MultiIndex with a location column)."""
+    keys = portfolio.keys
+    if schema.LOCATION in portfolio.key_columns:
+        return pd.MultiIndex.from_arrays(
+            [keys[schema.ITEM].to_numpy(dtype=object), keys[schema.LOCATION].to_numpy(dtype=object)]
+        )
+    return pd.Index(keys[schema.ITEM].to_numpy(dtype=object))
+
+
+def series_positions(
+    portfolio: Portfolio, items: Sequence[str] | np.ndarray, locations: Sequence[str] | np.ndarray
+) -> np.ndarray:
+    """Portfolio position of each (item, location), -1 where the series is not in it.
+
+    Without a location column a ledger key matches only with an empty location, as the review
+    screens store it.
+    """
+    items = np.asarray(items, dtype=object)
+    locations = np.asarray(locations, dtype=object)
+    if len(items) == 0:
+        return np.empty(0, dtype=np.int64)
+    index = key_index(portfolio)
+    if isinstance(index, pd.MultiIndex):
+        probe = pd.MultiIndex.from_arrays([items, locations])
+        return np.asarray(index.get_indexer(probe), dtype=np.int64)
+    found = np.asarray(index.get_indexer(items), dtype=np.int64)
+    found[locations != ""] = -1
+    return found
+
+
+def period_dates(portfolio: Portfolio) -> pd.Index:
+    """ISO start date of every calendar period (the form ledger lines store)."""
+    return pd.Index(portfolio.calendar.periods.strftime("%Y-%m-%d"), dtype=object)
+
+
+def effective_decisions(ledger: Ledger | None, *, before: str | None = None) -> list[Decision]:
+    """Every cycle's effective decisions, oldest cycle first (only cycles before ``before``)."""
+    if ledger is None:
+        return []
+    out: list[Decision] = []
+    for cycle in ledger.cycles():
+        if before is not None and cycle >= before:
+            continue
+        out.extend(ledger.current(cycle))
+    return out
+
+
+def _float(value: float | None) -> float:
+    return math.nan if value is None else float(value)
+
+
+def adjustment_lines(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+    """Every line of every effective adjustment, located in the portfolio, with its status.
+
+    One row per (decision, period): ``event_id``, ``cycle``, ``item``, ``location``,
+    ``reviewer``, ``root_cause``, ``adjustment``, ``period``, ``original``, ``adjusted``,
+    ``series`` (portfolio position, -1 if absent), ``column`` (calendar column, -1 if off the
+    calendar), ``actual`` (NaN unless realised) and ``status`` (one of ``LINE_STATUSES``).
+    The join to the portfolio is one vectorised lookup for the keys and one for the periods.
+    """
+    decisions = [d for d in effective_decisions(ledger) if d.outcome == ADJUSTED and d.lines]
+    counts = [len(d.lines) for d in decisions]
+
+    def repeat(values: list[object]) -> np.ndarray:
+        return (
+            np.repeat(np.array(values, dtype=object), counts) if decisions else np.empty(0, object)
+        )
+
+    frame = pd.DataFrame(
+        {
+            "event_id": np.repeat(
+                np.array([d.event_id for d in decisions], dtype=np.int64), counts
+            ),
+            "cycle": repeat([d.cycle for d in decisions]),
+            schema.ITEM: repeat([d.item for d in decisions]),
+            schema.LOCATION: repeat([d.location for d in decisions]),
+            "reviewer": repeat([d.reviewer for d in decisions]),
+            "root_cause": repeat([d.root_cause for d in decisions]),
+            "adjustment": repeat([d.adjustment or "" for d in decisions]),
+            "period": np.array([ln.period for d in decisions for ln in d.lines], dtype=object),
+            "original": np.array([_float(ln.original) for d in decisions for ln in d.lines]),
+            "adjusted": np.array([_float(ln.adjusted) for d in decisions for ln in d.lines]),
+        }
+    )
+    series = series_positions(portfolio, frame[schema.ITEM], frame[schema.LOCATION])
+    dates = period_dates(portfolio)
+    column = np.asarray(dates.get_indexer(frame["period"].to_numpy(dtype=object)), dtype=np.int64)
+    period = frame["period"].to_numpy(dtype=object).astype(str)
+    latest = portfolio.cycle
+    original = frame["original"].to_numpy()
+    adjusted = frame["adjusted"].to_numpy()
+
+    actual = np.full(len(frame), np.nan)
+    inside = (series >= 0) & (column >= 0) & (column <= portfolio.last_actual)
+    actual[inside] = portfolio.demand[series[inside], column[inside]]
+
+    # Precedence: a missing series or forecast first, then an unchanged period, then time.
+    status = np.select(
+        [
+            series < 0,
+            np.isnan(original) | np.isnan(adjusted),
+            adjusted == original,
+            period > latest,
+            column < 0,
+            np.isnan(actual),
+        ],
+        [NOT_IN_PORTFOLIO, NO_FORECAST, UNCHANGED, AHEAD, OFF_CALENDAR, NO_ACTUAL],
+        default=REALISED,
+    )
+    frame["series"] = series
+    frame["column"] = column
+    frame["actual"] = np.where(status == REALISED, actual, np.nan)
+    frame["status"] = status.astype(object)
+    return frame
+
+
+def line_status(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+    """How many adjustment lines and decisions are in each state (``LINE_STATUSES`` order)."""
+    lines = adjustment_lines(portfolio, ledger)
+    grouped = lines.groupby("status")
+    out = pd.DataFrame(
+        {
+            "status": list(LINE_STATUSES),
+            "lines": [int(grouped.size().get(s, 0)) for s in LINE_STATUSES],
+            "decisions": [
+                int(grouped["event_id"].nunique().get(s, 0)) if len(lines) else 0
+                for s in LINE_STATUSES
+            ],
+            "meaning": [STATUS_TEXT[s] for s in LINE_STATUSES],
+        }
+    )
+    return out
+
+
+# --------------------------------------------------------------------------------------------
+# Realised value
+
+
+def size_band(original: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
+    """Size band (``SIZE_BANDS``) of each override: |adjusted − original| / |original|.
+
+    Each band holds its lower edge (exactly 5 % is in ``5-10%``); an original of 0 is
+    ``from zero``.
+    """
+    original = np.asarray(original, dtype=np.float64)
+    adjusted = np.asarray(adjusted, dtype=np.float64)
+    base = np.abs(original)
+    relative = np.full(original.shape, np.inf)
+    np.divide(np.abs(adjusted - original), base, out=relative, where=base > 0)
+    band = np.searchsorted(np.asarray(SIZE_EDGES), relative, side="right")
+    band = np.where(base > 0, band, len(SIZE_BANDS) - 1)
+    return np.asarray(SIZE_BANDS, dtype=object)[band]
+
+
+def realised_value(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+    """One row per effective adjustment line whose period now has actual demand.
+
+    Columns (``REALISED_COLUMNS``): ``cycle`` of the decision, the key, ``period`` (ISO),
+    ``horizon`` (periods after the cycle, 1 = the next period; -1 when the cycle is not on the
+    calendar), ``original`` and ``adjusted`` forecast as stored at decision time, ``actual``,
+    ``abs_error_original`` = |original − actual|, ``abs_error_adjusted`` = |adjusted − actual|,
+    ``value_added`` = their difference (positive = the override helped), ``price`` and
+    ``value_added_value`` (NaN without prices), ``reviewer``, ``root_cause``, ``direction``
+    (``up``/``down``), ``size`` (``SIZE_BANDS``), ``helped`` (value_added > 0), ``event_id`` and
+    ``series`` (portfolio position).
+
+    Left out: undone and replaced decisions (only each series' effective decision per cycle
+    counts), periods the adjustment did not change (no override there), periods without an
+    original or adjusted value, and lines whose series or actual is not in ``portfolio``
+    (``line_status`` counts them). Rows are sorted by cycle, key and period.
+    """
+    lines = adjustment_lines(portfolio, ledger)
+    done = lines.loc[lines["status"] == REALISED].reset_index(drop=True)
+    original = done["original"].to_numpy()
+    adjusted = done["adjusted"].to_numpy()
+    actual = done["actual"].to_numpy()
+    series = done["series"].to_numpy(dtype=np.int64)
+    column = done["column"].to_numpy(dtype=np.int64)
+    err_o = np.abs(original - actual)
+    err_a = np.abs(adjusted - actual)
+    added = err_o - err_a
+    if portfolio.price is not None:
+        price = portfolio.price[series, column]
+    else:
+        price = np.full(len(done), np.nan)
+    cycle_col = period_dates(portfolio).get_indexer(done["cycle"].to_numpy(dtype=object))
+    horizon = np.where(cycle_col >= 0, column - cycle_col, -1).astype(np.int64)
+
+    out = pd.DataFrame(
+        {
+            "cycle": done["cycle"].to_numpy(dtype=object),
+            schema.ITEM: done[schema.ITEM].to_numpy(dtype=object),
+            schema.LOCATION: done[schema.LOCATION].to_numpy(dtype=object),
+            "period": done["period"].to_numpy(dtype=object),
+            "horizon": horizon,
+            "original": original,
+            "adjusted": adjusted,
+            "actual": actual,
+            "abs_error_original": err_o,
+            "abs_error_adjusted": err_a,
+            "value_added": added,
+            "price": price,
+            "value_added_value": added * price,
+            "reviewer": done["reviewer"].to_numpy(dtype=object),
+            "root_cause": done["root_cause"].to_numpy(dtype=object),
+            "direction": np.where(adjusted > original, UP, DOWN).astype(object),
+            "size": size_band(original, adjusted),
+            "helped": added > 0,
+            "event_id": done["event_id"].to_numpy(dtype=np.int64),
+            "series": series,
+        },
+        columns=list(REALISED_COLUMNS),
+    )
+    return out.sort_values(
+        ["cycle", schema.ITEM, schema.LOCATION, "period"], kind="stable"
+    ).reset_index(drop=True)
+
+
+def _group_order(name: str, values: pd.Series) -> list[str]:
+    present = list(dict.fromkeys(values.tolist()))
+    if name == "size":
+        return [b for b in SIZE_BANDS if b in present]
+    if name == "direction":
+        return [d for d in (UP, DOWN) if d in present]
+    return sorted(present)
+
+
+def _avg_rel_mae(frame: pd.DataFrame) -> float:
+    """Davydenko & Fildes (2013) AvgRelMAE of the overrides against their original forecasts.
+
+    Per decision (one series in one cycle) r_i = MAE_adjusted / MAE_original over its lines in
+    the group, weight n_i = its line count; AvgRelMAE = exp(Σ n_i ln r_i / Σ n_i). Below 1 the
+    overrides improved accuracy. A ratio of 0 or infinity has no logarithm; those decisions are
+    left out (common practice); NaN when none is left.
+    """
+    if frame.empty:
+        return math.nan
+    per = frame.groupby("event_id").agg(
+        adj=("abs_error_adjusted", "sum"),
+        orig=("abs_error_original", "sum"),
+        n=("value_added", "size"),
+    )
+    ok = (per["adj"] > 0) & (per["orig"] > 0)
+    if not ok.any():
+        return math.nan
+    ratio = per.loc[ok, "adj"].to_numpy() / per.loc[ok, "orig"].to_numpy()
+    weight = per.loc[ok, "n"].to_numpy(dtype=np.float64)
+    return float(np.exp(np.sum(weight * np.log(ratio)) / np.sum(weight)))
+
+
+def _summary_row(frame: pd.DataFrame) -> dict[str, float]:
+    n = len(frame)
+    added = float(frame["value_added"].sum())
+    orig = float(frame["abs_error_original"].sum())
+    priced = frame["value_added_value"].notna().any()
+    return {
+        "adjustments": n,
+        "decisions": int(frame["event_id"].nunique()),
+        "helped": int(frame["helped"].sum()),
+        "hurt": int((frame["value_added"] < 0).sum()),
+        "share_helped": float(frame["helped"].mean()) if n else math.nan,
+        "abs_error_original": orig,
+        "abs_error_adjusted": float(frame["abs_error_adjusted"].sum()),
+        "value_added": added,
+        "value_added_value": float(frame["value_added_value"].sum()) if priced else math.nan,
+        "relative_value_added": added / orig if orig > 0 else math.nan,
+        "avg_rel_mae": _avg_rel_mae(frame),
+    }
+
+
+def summarise(
+    realised: pd.DataFrame, by: str | Sequence[str], *, overall: bool = True
+) -> pd.DataFrame:
+    """Realised override value per group, with an ``all`` row for every line.
+
+    Columns: the group column(s), then ``adjustments`` (lines, i.e. overridden periods),
+    ``decisions`` (distinct decisions), ``helped`` and ``hurt`` (lines with value added > 0 and
+    < 0), ``share_helped`` (helped / adjustments), Σ ``abs_error_original``, Σ
+    ``abs_error_adjusted``, Σ ``value_added`` in units (error removed; negative = error added),
+    Σ ``value_added_value`` (NaN without prices), ``relative_value_added`` = Σ value added /
+    Σ original error (the share of the statistical forecast's error the overrides removed; the
+    relative FVA form 1 − MAE_adjusted / MAE_original) and ``avg_rel_mae`` (Davydenko & Fildes
+    2013, see ``_avg_rel_mae``).
+
+    Args:
+        realised: Output of ``realised_value``.
+        by: One of ``GROUPINGS`` or a sequence of them (e.g. ``("direction", "size")``).
+        overall: Append the ``all`` row (group columns set to ``"all"``).
+    """
+    names = [by] if isinstance(by, str) else list(by)
+    for name in names:
+        if name not in GROUPINGS:
+            raise HistoryError(
+                f"cannot group realised values by {name!r}.",
+                hint=f"Use one of: {', '.join(GROUPINGS)}.",
+            )
+    columns = [GROUPINGS[n] for n in names]
+    rows: list[dict[str, object]] = []
+    if not realised.empty:
+        orders = [_group_order(n, realised[c]) for n, c in zip(names, columns, strict=True)]
+        # Keys as tuples whatever the pandas version does for a one-column grouping.
+        grouped = {
+            (key if isinstance(key, tuple) else (key,)): part
+            for key, part in realised.groupby(columns, sort=False)
+        }
+        for combo in itertools.product(*orders):
+            part = grouped.get(combo)
+            if part is not None:
+                rows.append({**dict(zip(names, combo, strict=True)), **_summary_row(part)})
+    if overall:
+        rows.append({**{n: ALL for n in names}, **_summary_row(realised)})
+    return pd.DataFrame(rows, columns=[*names, *SUMMARY_COLUMNS])
+
+
+# --------------------------------------------------------------------------------------------
+# Repeat offenders
+
+
+def worst_set(error: np.ndarray, target_share: float) -> np.ndarray:
+    """Boolean mask of the worst-offender set: the leading set covering ``target_share``.
+
+    Ranks and cumulative shares are formed exactly as ``ranking.scorecard`` forms them, and the
+    cut is ``ranking.leading_cover``'s, so a set equals the one the review list showed. Empty
+    when the total error is 0.
+    """
+    error = np.asarray(error, dtype=np.float64)
+    total = float(error.sum())
+    mask = np.zeros(len(error), dtype=bool)
+    if not len(error) or total <= 0:
+        return mask
+    order = np.argsort(-error, kind="stable")
+    rank = np.empty(len(error), dtype=np.int64)
+    rank[order] = np.arange(1, len(error) + 1)
+    share = error / total
+    cum = np.empty(len(error))
+    cum[order] = np.cumsum(share[order])
+    keep = leading_cover(pd.DataFrame({"rank": rank, "cum_share": cum}), target_share).index
+    mask[np.asarray(keep, dtype=np.int64)] = True
+    return mask
+
+
+def repeat_offenders(
+    portfolio: Portfolio,
+    *,
+    n: int = 3,
+    m: int = 4,
+    target_share: float = 0.8,
+    window: int = 13,
+) -> pd.DataFrame:
+    """Series in the worst-offender set in at least ``n`` of the last ``m`` cycles.
+
+    The ledger does not store past worst-offender sets, so they are re-scored from this
+    portfolio alone: cycle k (k = 0 the current one) is the scoring window of ``window`` periods
+    with actuals ending at the k-th latest period with any actual demand, ranked by absolute
+    error (in value where priced) as ``scorecard`` ranks; its worst set is the leading set
+    covering ``target_share``. That reproduces what the review list showed in those weeks as
+    long as the history's actuals and forecasts were not restated since.
+
+    A series counts in a cycle's window only where it has at least one scored period there: a
+    series that appeared later is not counted before it appeared (``windows_seen`` says in how
+    many it was), and can reach the flag only through the windows it was in. A series missing
+    from this portfolio (delisted, dropped from the file) is not reported at all, and its error
+    no longer weighs in the earlier windows' totals, so those sets can differ slightly from what
+    the review list showed while it was still in the file.
+
+    Returns:
+        One row per series of the portfolio (index = position): the key columns,
+        ``times_in_worst``, ``windows_seen``, ``repeat`` (times_in_worst >= n), ``in_worst_now``
+        and one boolean column per cycle, ``worst_<YYYY-MM-DD>``, oldest first. Fewer than ``m``
+        cycle columns when the history holds fewer periods with actuals.
+
+    Raises:
+        HistoryError: ``n`` or ``m`` below 1, ``n`` above ``m``, or a target share outside (0, 1].
+    """
+    if m < 1 or n < 1 or n > m:
+        raise HistoryError(
+            f"repeat offenders need 1 <= N <= M, not N = {n}, M = {m}.",
+            hint="For example 3 of the last 4 cycles.",
+        )
+    if not 0 < target_share <= 1:
+        raise HistoryError(f"the target share must be in (0, 1], not {target_share}.")
+    if window < 1:
+        raise HistoryError(f"the window must be at least 1 period, not {window}.")
+    demand, forecast, price = portfolio.demand, portfolio.forecast, portfolio.price
+    with_actual = np.flatnonzero(~np.isnan(demand[:, : portfolio.last_actual + 1]).all(axis=0))
+    ends = with_actual[::-1][:m][::-1]  # oldest first
+    n_series = portfolio.n_series
+    member = np.zeros((n_series, len(ends)), dtype=bool)
+    seen = np.zeros((n_series, len(ends)), dtype=bool)
+    for j, end in enumerate(ends):
+        cols = metrics.window_columns(demand, int(end), window)
+        wm = metrics.window_measures(
+            demand[:, cols], forecast[:, cols], price[:, cols] if price is not None else None
+        )
+        error = wm.abs_error_value if wm.abs_error_value is not None else wm.abs_error
+        member[:, j] = worst_set(error, target_share)
+        seen[:, j] = wm.periods > 0
+    member &= seen
+    data: dict[str, object] = {c: portfolio.keys[c].to_numpy() for c in portfolio.key_columns}
+    times = member.sum(axis=1)
+    data.update(
+        times_in_worst=times,
+        windows_seen=seen.sum(axis=1),
+        repeat=times >= n,
+        in_worst_now=member[:, -1] if len(ends) else np.zeros(n_series, dtype=bool),
+    )
+    for j, end in enumerate(ends):
+        data[f"worst_{portfolio.calendar.periods[int(end)].strftime('%Y-%m-%d')}"] = member[:, j]
+    return pd.DataFrame(data)
+
+
+# --------------------------------------------------------------------------------------------
+# Active adjustments and carried-over series
+
+
+ACTIVE_COLUMNS: tuple[str, ...] = (
+    "cycle",
+    schema.ITEM,
+    schema.LOCATION,
+    "series",
+    "reviewer",
+    "root_cause",
+    "adjustment",
+    "periods",
+    "remaining",
+    "superseded",
+    "first_remaining",
+    "last_remaining",
+    "remaining_periods",
+    "units_change",
+    "event_id",
+)
+
+
+def active_adjustments(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+    """Effective adjustments with forward periods still ahead of the portfolio's latest actual.
+
+    A period counts as remaining while it is after the portfolio's cycle, unless a decision of a
+    later cycle adjusted the same series and period again: the newer override then stands for
+    that period (``superseded`` counts those). An adjustment with nothing remaining is not
+    listed. Series missing from the portfolio are listed with ``series`` = -1: their override
+    may still stand in the planning system.
+
+    Returns:
+        One row per decision (``ACTIVE_COLUMNS``): its cycle, key, ``series`` position,
+        reviewer, root cause, adjustment spec, ``periods`` (lines in all), ``remaining``,
+        ``superseded``, first and last remaining period, ``remaining_periods`` (tuple of ISO
+        dates), ``units_change`` (Σ adjusted − original over the remaining periods, missing
+        counted as 0) and ``event_id``. Sorted by cycle and key.
+    """
+    lines = adjustment_lines(portfolio, ledger)
+    lines = lines.loc[lines["status"] != UNCHANGED]
+    ahead = _ahead(lines, portfolio.cycle)
+    ahead["delta"] = np.nan_to_num(ahead["adjusted"].to_numpy()) - np.nan_to_num(
+        ahead["original"].to_numpy()
+    )
+    total = lines.groupby("event_id").size()
+    rows = []
+    for event_id, part in ahead.groupby("event_id", sort=False):
+        keep = part.loc[part["standing"]].sort_values("period")
+        if keep.empty:
+            continue
+        first = part.iloc[0]
+        periods = tuple(keep["period"].astype(str))
+        rows.append(
+            {
+                "cycle": first["cycle"],
+                schema.ITEM: first[schema.ITEM],
+                schema.LOCATION: first[schema.LOCATION],
+                "series": int(first["series"]),
+                "reviewer": first["reviewer"],
+                "root_cause": first["root_cause"],
+                "adjustment": first["adjustment"],
+                "periods": int(total.get(event_id, 0)),
+                "remaining": len(periods),
+                "superseded": int((~part["standing"]).sum()),
+                "first_remaining": periods[0],
+                "last_remaining": periods[-1],
+                "remaining_periods": periods,
+                "units_change": float(keep["delta"].sum()),
+                "event_id": int(event_id),
+            }
+        )
+    out = pd.DataFrame(rows, columns=list(ACTIVE_COLUMNS))
+    return out.sort_values(["cycle", schema.ITEM, schema.LOCATION], kind="stable").reset_index(
+        drop=True
+    )
+
+
+def _ahead(lines: pd.DataFrame, cycle: str) -> pd.DataFrame:
+    """Lines after ``cycle``, newest decision first, with ``standing`` = the override in force.
+
+    For each series and period the newest cycle's line stands (then the latest event).
+    """
+    ahead = lines.loc[lines["period"].to_numpy(dtype=object).astype(str) > cycle].copy()
+    ahead = ahead.sort_values(["cycle", "event_id"], ascending=False, kind="stable")
+    standing = ~ahead.duplicated([schema.ITEM, schema.LOCATION, "period"], keep="first")
+    ahead["standing"] = standing.to_numpy()
+    return ahead
+
+
+def forward_overrides(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+    """The override in force for each adjusted forward period of the portfolio's series.
+
+    Same rule as ``active_adjustments`` (a later cycle's line replaces an earlier one for the
+    same period). Columns: ``series``, ``column`` (calendar column), ``period``, ``original``,
+    ``adjusted``, ``cycle``, ``event_id``; only series and periods in the portfolio.
+    """
+    lines = adjustment_lines(portfolio, ledger)
+    ahead = _ahead(lines.loc[lines["status"] == AHEAD], portfolio.cycle)
+    ahead = ahead.loc[ahead["standing"] & (ahead["column"] >= 0)]
+    cols = ["series", "column", "period", "original", "adjusted", "cycle", "event_id"]
+    return ahead[cols].sort_values(["series", "column"], kind="stable").reset_index(drop=True)
+
+
+CARRIED_COLUMNS: tuple[str, ...] = (
+    "series",
+    schema.ITEM,
+    schema.LOCATION,
+    "cycle",
+    "outcome",
+    "root_cause",
+    "reviewer",
+    "note",
+    "recorded_at",
+    "reviewed_now",
+)
+
+
+def carried_over(
+    portfolio: Portfolio,
+    ledger: Ledger | None,
+    worst: pd.DataFrame | Sequence[int] | np.ndarray,
+) -> pd.DataFrame:
+    """Handed-off and put-off series from earlier cycles that are still in the worst set.
+
+    A series is carried over when its latest effective decision *before* the portfolio's cycle
+    left it open (``OPEN_OUTCOMES``): a later ``no_change`` or adjustment closes it. The review
+    list shows the ones not yet reviewed this cycle first among the unreviewed (see
+    ``carried_first``).
+
+    Args:
+        portfolio: The current portfolio.
+        ledger: The ledger, or None (nothing is carried).
+        worst: The worst-offender set, as a scorecard slice (its index = portfolio positions,
+            e.g. ``leading_cover(card, 0.8)``) or as positions; its order is kept.
+
+    Returns:
+        ``CARRIED_COLUMNS``, one row per carried series in the order of ``worst``;
+        ``reviewed_now`` tells whether it already has a decision in this cycle.
+    """
+    positions = np.asarray(
+        worst.index if isinstance(worst, pd.DataFrame) else worst, dtype=np.int64
+    )
+    earlier = effective_decisions(ledger, before=portfolio.cycle)
+    if not earlier or not len(positions):
+        return pd.DataFrame(columns=list(CARRIED_COLUMNS))
+    frame = pd.DataFrame(
+        {
+            "cycle": [d.cycle for d in earlier],
+            schema.ITEM: [d.item for d in earlier],
+            schema.LOCATION: [d.location for d in earlier],
+            "outcome": [d.outcome for d in earlier],
+            "root_cause": [d.root_cause for d in earlier],
+            "reviewer": [d.reviewer for d in earlier],
+            "note": [d.note for d in earlier],
+            "recorded_at": [d.recorded_at for d in earlier],
+        }
+    )
+    latest = frame.sort_values("cycle", kind="stable").drop_duplicates(
+        [schema.ITEM, schema.LOCATION], keep="last"
+    )
+    latest = latest.loc[latest["outcome"].isin(OPEN_OUTCOMES)]
+    latest = latest.assign(
+        series=series_positions(portfolio, latest[schema.ITEM], latest[schema.LOCATION])
+    )
+    rank = pd.Series(np.arange(len(positions)), index=positions)
+    latest = latest.loc[latest["series"].isin(positions)]
+    latest = latest.assign(order=rank.reindex(latest["series"]).to_numpy()).sort_values("order")
+    now = {(d.item, d.location) for d in (ledger.current(portfolio.cycle) if ledger else [])}
+    latest["reviewed_now"] = [
+        (i, loc) in now for i, loc in zip(latest[schema.ITEM], latest[schema.LOCATION], strict=True)
+    ]
+    return latest[list(CARRIED_COLUMNS)].reset_index(drop=True)
+
+
+def carried_first(order: np.ndarray, carried: np.ndarray | Sequence[int]) -> np.ndarray:
+    """``order`` with the carried-over series moved to the front, both parts in their order."""
+    order = np.asarray(order, dtype=np.int64)
+    front = np.isin(order, np.asarray(carried, dtype=np.int64))
+    return np.concatenate([order[front], order[~front]])
+
+
+# --------------------------------------------------------------------------------------------
+# Context for the cycle
+
+
+def portfolio_fva(portfolio: Portfolio, *, window: int = 13, season: int = 1) -> dict[str, float]:
+    """Portfolio forecast value added over the (seasonal) naive forecast in the scoring window.
+
+    Over every window cell where demand D_t, forecast F_t and the naive forecast D_{t−m} exist
+    (the cells ``metrics.naive_value_added`` averages per series; the scorecard's ``fva``):
+
+    * ``naive_abs_error`` = Σ|D_t − D_{t−m}|, ``forecast_abs_error`` = Σ|F_t − D_t|;
+    * ``value_added`` = their difference in units (positive = the forecast beat naive), which
+      equals Σ over series of the scorecard's ``fva`` × that series' counted cells;
+    * ``relative_error`` = forecast / naive absolute error (the relative absolute error that
+      Morlidge calls the avoidability ratio; below 1 the forecast beats naive);
+      ``value_added_share`` = value added / naive error = 1 − relative_error;
+    * ``value_added_value`` the same difference weighted by price (NaN without prices);
+    * ``cells``, ``series`` (series with a counted cell) and ``series_worse_than_naive``
+      (series whose fva < 0).
+
+    Ratios are NaN when the naive error is 0 (Gilliland 2010; forecast-methods.md §3.1).
+    """
+    if season < 1:
+        raise HistoryError(f"the season must be at least 1, not {season}.")
+    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+    lagged_cols = cols - season
+    valid = lagged_cols >= 0
+    d = portfolio.demand[:, cols]
+    f = portfolio.forecast[:, cols]
+    lagged = np.full(d.shape, np.nan)
+    lagged[:, valid] = portfolio.demand[:, lagged_cols[valid]]
+    naive_err = np.abs(d - lagged)
+    fc_err = np.abs(f - d)
+    ok = ~np.isnan(naive_err) & ~np.isnan(fc_err)
+    naive_total = float(np.where(ok, naive_err, 0.0).sum())
+    fc_total = float(np.where(ok, fc_err, 0.0).sum())
+    gain = np.where(ok, naive_err - fc_err, 0.0)
+    per_series = gain.sum(axis=1)
+    counted = ok.sum(axis=1)
+    value = math.nan
+    if portfolio.price is not None:
+        value = float((gain * np.where(ok, portfolio.price[:, cols], 0.0)).sum())
+    ratio = fc_total / naive_total if naive_total > 0 else math.nan
+    return {
+        "value_added": naive_total - fc_total,
+        "value_added_value": value,
+        "naive_abs_error": naive_total,
+        "forecast_abs_error": fc_total,
+        "relative_error": ratio,
+        "value_added_share": 1.0 - ratio if naive_total > 0 else math.nan,
+        "cells": float(ok.sum()),
+        "series": float((counted > 0).sum()),
+        "series_worse_than_naive": float(((counted > 0) & (per_series < 0)).sum()),
+        "season": float(season),
+    }
+
+
+@dataclass(frozen=True)
+class Coverage:
+    """How much of the cycle's error the reviewed series hold."""
+
+    reviewed: int
+    """Series of the portfolio with an effective decision in the cycle."""
+    series: int
+    """Series in the portfolio."""
+    covered: float
+    """Share of total ranking error (value where priced) held by the reviewed series."""
+    target: float
+    """Share the reviewer aims to cover."""
+    worst: int
+    """Series in the worst-offender set (leading set covering ``target``)."""
+    worst_reviewed: int
+    """Of those, how many are reviewed."""
+    not_in_portfolio: int
+    """Decisions of the cycle whose series is not in the portfolio."""
+
+
+def coverage(
+    portfolio: Portfolio, ledger: Ledger | None, card: pd.DataFrame, target_share: float = 0.8
+) -> Coverage:
+    """Review coverage of the portfolio's cycle (the review screens' progress figure).
+
+    Args:
+        portfolio: The portfolio.
+        ledger: The ledger, or None (nothing reviewed).
+        card: Its scorecard (any order; index = portfolio positions).
+        target_share: Share of total error the review aims to cover.
+    """
+    decided = ledger.current(portfolio.cycle) if ledger is not None else []
+    pos = series_positions(portfolio, [d.item for d in decided], [d.location for d in decided])
+    done = np.zeros(portfolio.n_series, dtype=bool)
+    done[pos[pos >= 0]] = True
+    aligned = card.sort_index()
+    error = aligned["abs_error_value" if "abs_error_value" in aligned else "abs_error"].to_numpy()
+    total = float(error.sum())
+    worst_mask = worst_set(error, target_share)
+    return Coverage(
+        reviewed=int(done.sum()),
+        series=portfolio.n_series,
+        covered=float(error[done].sum()) / total if total > 0 else math.nan,
+        target=target_share,
+        worst=int(worst_mask.sum()),
+        worst_reviewed=int((worst_mask & done).sum()),
+        not_in_portfolio=int((pos < 0).sum()),
+    )
+
+
+def decision_counts(ledger: Ledger | None, cycle: str) -> pd.DataFrame:
+    """Effective decisions of a cycle: outcomes (rows, ``OUTCOMES`` order) by root cause.
+
+    Columns are the root-cause codes used, in the ledger's vocabulary order (codes no longer in
+    it last, sorted), then ``total``; a last row ``total`` sums the columns.
+    """
+    decided = ledger.current(cycle) if ledger is not None else []
+    outcomes = [c.code for c in OUTCOMES]
+    vocabulary = [c.code for c in ledger.root_causes] if ledger is not None else []
+    used = {d.root_cause for d in decided}
+    causes = [c for c in vocabulary if c in used] + sorted(used - set(vocabulary))
+    counts = pd.crosstab(
+        pd.Series([d.outcome for d in decided], dtype=object, name="outcome"),
+        pd.Series([d.root_cause for d in decided], dtype=object, name="root_cause"),
+    )
+    table = counts.reindex(index=outcomes, columns=causes, fill_value=0).astype(np.int64)
+    table.index.name = "outcome"
+    table.columns.name = None
+    table["total"] = table.sum(axis=1)
+    table.loc["total"] = table.sum(axis=0)
+    return table.astype(np.int64)
