@@ -10,6 +10,7 @@ from textual.binding import Binding
 from triage.tui.app import TriageApp
 from triage.tui.screens.decision import DecisionScreen
 from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
+from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.series_list import SeriesList
 
 DOC = Path(__file__).resolve().parents[2] / "docs" / "keys.md"
@@ -27,7 +28,7 @@ def documented() -> set[tuple[str, str, str, str]]:
 
 def bound() -> set[tuple[str, str, str, str]]:
     rows = set()
-    for owner in (SeriesList, TriageApp, DecisionScreen, PromptScreen, ChooseScreen, HelpScreen):
+    for owner in (SeriesList, TriageApp, DecisionScreen, OverridesScreen, PromptScreen, ChooseScreen, HelpScreen):
         for binding in owner.BINDINGS:
             assert isinstance(binding, Binding)
             assert binding.id, f"{owner.__name__} binding {binding.key} has no id"

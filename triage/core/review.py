@@ -15,15 +15,17 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from triage.core import adjust, metrics, schema
+from triage.core import adjust, history, metrics, schema
 from triage.core import ledger as ledger_mod
 from triage.core.ledger import Event, Ledger
 from triage.core.portfolio import Portfolio
 from triage.core.ranking import BY_BIAS, BY_ERROR, scorecard
 
 #: Fields a reviewer can filter on besides the attribute columns.
-FILTER_FIELDS = ("pattern", "flag", "outcome")
+FILTER_FIELDS = ("pattern", "flag", "outcome", "repeat", "carried")
 UNREVIEWED = "unreviewed"
+#: Repeat offender: in the worst-offender set in at least N of the last M cycles.
+REPEAT_N, REPEAT_M = 3, 4
 
 
 @dataclass(frozen=True)
@@ -70,6 +72,7 @@ class ReviewSession:
         window: Scoring window (periods with actuals).
         season: Seasonal period of the naive baseline.
         target_share: Share of total error the reviewer aims to cover.
+        repeat: ``(N, M)``: a repeat offender is in the worst set in N of the last M cycles.
     """
 
     def __init__(
@@ -81,6 +84,7 @@ class ReviewSession:
         window: int = 13,
         season: int = 1,
         target_share: float = 0.8,
+        repeat: tuple[int, int] = (REPEAT_N, REPEAT_M),
     ) -> None:
         self.portfolio = portfolio
         self.ledger = ledger
@@ -117,6 +121,24 @@ class ReviewSession:
         """Ledger version per series in this cycle (what the next write must expect)."""
         self._key_index = self._build_key_index()
         self._search: np.ndarray | None = None
+        offenders = history.repeat_offenders(
+            portfolio, n=repeat[0], m=repeat[1], target_share=target_share, window=window
+        )
+        self.repeat_nm = repeat
+        self.times_in_worst = offenders["times_in_worst"].to_numpy(dtype=np.int64)
+        """Cycles (of the last M) the series was in the worst-offender set."""
+        self.cycles_scored = sum(c.startswith("worst_") for c in offenders.columns)
+        self.repeat = offenders["repeat"].to_numpy(dtype=bool)
+        """Repeat offender flag per series."""
+        self.worst = history.worst_set(self.error, target_share)
+        """This cycle's worst-offender set (the leading set covering the target share)."""
+        self.past_outcome = np.full(n, "", dtype=object)
+        """Latest effective outcome from an earlier cycle, ``""`` when none."""
+        self.past_cycle = np.full(n, "", dtype=object)
+        self.carried = np.zeros(n, dtype=bool)
+        """Handed off or put off in an earlier cycle and still in the worst set."""
+        self.active: dict[int, list[str]] = {}
+        """Per series, a line for each earlier adjustment with forward periods still to come."""
         self.forward_labels = tuple(
             portfolio.calendar.label(i)
             for i in range(portfolio.last_actual + 1, len(portfolio.calendar.periods))
@@ -171,6 +193,30 @@ class ReviewSession:
             outcomes = np.array([d.outcome for d in decisions], dtype=object)
             ok = idx >= 0
             self.outcome[idx[ok]] = outcomes[ok]
+        self._reload_earlier_cycles()
+
+    def _reload_earlier_cycles(self) -> None:
+        """Earlier cycles' outcomes, carried-over series and still-active adjustments."""
+        self.past_outcome[:] = ""
+        self.past_cycle[:] = ""
+        self.carried[:] = False
+        self.active = {}
+        earlier = history.effective_decisions(self.ledger, before=self.cycle)
+        if earlier:
+            # Oldest cycle first, so the latest decision per series is written last.
+            idx = self._indexer([(d.item, d.location) for d in earlier])
+            ok = idx >= 0
+            self.past_outcome[idx[ok]] = np.array([d.outcome for d in earlier], dtype=object)[ok]
+            self.past_cycle[idx[ok]] = np.array([d.cycle for d in earlier], dtype=object)[ok]
+            carried = history.carried_over(self.portfolio, self.ledger, np.flatnonzero(self.worst))
+            self.carried[carried["series"].to_numpy(dtype=np.int64)] = True
+        active = history.active_adjustments(self.portfolio, self.ledger)
+        for row in active.itertuples(index=False):
+            if row.series >= 0:
+                self.active.setdefault(int(row.series), []).append(
+                    f"active adjustment from {row.cycle} ({row.adjustment}): {row.remaining} of "
+                    f"{row.periods} periods still ahead, {row.first_remaining} .. {row.last_remaining}"
+                )
 
     def _indexer(self, pairs: list[tuple[str, str]]) -> np.ndarray:
         if isinstance(self._key_index, pd.MultiIndex):
@@ -295,6 +341,10 @@ class ReviewSession:
             return np.where(self.card["bias_flag"].to_numpy(dtype=object) == "", "none", self.card["bias_flag"].to_numpy(dtype=object))
         if field == "outcome":
             return np.where(self.outcome == "", UNREVIEWED, self.outcome)
+        if field == "repeat":
+            return np.where(self.repeat, "yes", "no")
+        if field == "carried":
+            return np.where(self.carried, "yes", "no")
         if field in self.portfolio.keys.columns:
             return self.portfolio.keys[field].to_numpy(dtype=object)
         raise KeyError(field)
@@ -307,6 +357,9 @@ class ReviewSession:
         filters: dict[str, str] | None = None,
     ) -> np.ndarray:
         """Portfolio indices to show, in order: error or bias order, filtered.
+
+        Series handed off or put off in an earlier cycle and still in the worst set come first
+        while they have no decision in this cycle.
 
         Args:
             by: ``"error"`` or ``"bias"``.
@@ -321,9 +374,11 @@ class ReviewSession:
             keep &= found
         for field, value in (filters or {}).items():
             keep &= self._field(field) == value
-        if keep.all():
-            return base
-        return base[keep[base]]
+        shown = base if keep.all() else base[keep[base]]
+        first = self.carried & (self.outcome == "")
+        if first.any():
+            shown = history.carried_first(shown, np.flatnonzero(first))
+        return shown
 
     def next_unreviewed(self, order: np.ndarray, after: int) -> int | None:
         """Position in ``order`` of the first unreviewed series after position ``after``."""
@@ -426,3 +481,32 @@ class ReviewSession:
         if isinstance(share, float) and not math.isnan(share):
             parts.append(f"{share * 100:.1f}% of portfolio error (rank {int(row['rank'])})")
         return "; ".join(parts)
+
+    def override_value(self) -> tuple[dict[str, pd.DataFrame], dict[str, float]]:
+        """Realised value of past overrides by grouping, and the portfolio's FVA over naive.
+
+        Returns:
+            ``{grouping: history.summarise(...)}`` for every grouping in ``history.GROUPINGS``
+            (empty frames without a ledger or realised lines), and ``history.portfolio_fva``.
+        """
+        realised = history.realised_value(self.portfolio, self.ledger)
+        tables = {by: history.summarise(realised, by) for by in history.GROUPINGS}
+        fva = history.portfolio_fva(self.portfolio, window=self.window, season=self.season)
+        return tables, fva
+
+    def across_cycles(self, series: int) -> list[str]:
+        """Lines about the series' earlier cycles: repeat offender, carried over, active overrides."""
+        lines = []
+        n, m = self.repeat_nm
+        times = int(self.times_in_worst[series])
+        if self.cycles_scored:
+            mark = "repeat offender: " if self.repeat[series] else ""
+            lines.append(
+                f"{mark}in the worst-offender set {times} of the last {self.cycles_scored} cycles"
+                + (f" (flag at {n} of {m})" if self.repeat[series] else "")
+            )
+        if self.past_outcome[series]:
+            carried = " and still in the worst set: carried over" if self.carried[series] else ""
+            lines.append(f"last decided {self.past_cycle[series]}: {self.past_outcome[series]}{carried}")
+        lines.extend(self.active.get(series, []))
+        return lines

@@ -25,6 +25,7 @@ from triage.tui import format as fmt
 from triage.tui.messages import Exported, Loaded, LoadStep, Saved, SaveFailed
 from triage.tui.screens.decision import DecisionScreen, Draft
 from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
+from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.chart import SeriesChart
 from triage.tui.widgets.series_list import SeriesList
 
@@ -109,6 +110,7 @@ class TriageApp(App[None]):
         Binding("b", "toggle_order", "Error/bias order", show=False, id="find.order", tooltip="Order by share of error, or by persistent bias"),
         Binding("g", "jump", "Go to series", show=False, id="find.jump", tooltip="Jump to a series by its item (and location)"),
         Binding("x", "export", "Export", show=False, id="app.export", tooltip="Export decisions and the adjusted forward forecast"),
+        Binding("v", "override_value", "Override value", show=False, id="app.overrides", tooltip="Did past overrides help? Realised value by direction, size, reviewer, cause, cycle"),
     ]
 
     def __init__(self, options: Options) -> None:
@@ -268,9 +270,25 @@ class TriageApp(App[None]):
             "ts": ("" if math.isnan(a["ts"][series]) else f"{a['ts'][series]:+.1f}", None),
             "flag": (("▲ over" if flag > 0 else "▼ under") if flag else "", "flag" if flag else None),
             "pattern": (fmt.PATTERN_SHORT.get(a["pattern"][series], a["pattern"][series]), "dim"),
-            "outcome": (fmt.OUTCOME_TINY[outcome], "done" if outcome else "dim"),
+            "outcome": self._review_cell(series, outcome),
+            "worst": (
+                f"{'R ' if session.repeat[series] else ''}{session.times_in_worst[series]}/{session.cycles_scored}"
+                if session.cycles_scored
+                else "",
+                "flag" if session.repeat[series] else "dim",
+            ),
             "spark": (fmt.sparkline(p.demand[series, cols], p.forecast[series, cols]), None),
         }
+
+    def _review_cell(self, series: int, outcome: str) -> fmt.Cell:
+        """This cycle's outcome, else a marker of the latest earlier decision."""
+        assert self.session is not None
+        if outcome:
+            return (fmt.OUTCOME_TINY[outcome], "done")
+        past = self.session.past_outcome[series]
+        if past:
+            return (fmt.PAST_TINY.get(past, "↺"), "flag" if self.session.carried[series] else "dim")
+        return ("·", "dim")
 
     @on(SeriesList.Highlighted)
     def _highlighted(self, message: SeriesList.Highlighted) -> None:
@@ -312,6 +330,7 @@ class TriageApp(App[None]):
         if cause:
             label = next((c.label for c in self.options.root_causes if c.code == cause), cause)
             lines.append(f"root cause for quick decisions: {label}")
+        lines.extend(session.across_cycles(series))
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
         if spec:
             lines.append(f"suggested: {spec} ({reason}); press s to take it")
@@ -629,6 +648,24 @@ class TriageApp(App[None]):
         written = ", ".join(str(p) for p in result.paths)
         self.post_message(Exported(f"exported: {written}. {CAUTION}"))
 
+    def action_override_value(self) -> None:
+        if self.session is not None:
+            self._status("computing the realised value of past overrides…")
+            self.override_value()
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="history")
+    def override_value(self) -> None:
+        """Join past overrides with the actuals that have arrived since, off the UI thread."""
+        session = self.session
+        assert session is not None
+        tables, fva = session.override_value()
+        self.call_from_thread(self._show_override_value, tables, fva)
+
+    def _show_override_value(self, tables, fva) -> None:  # noqa: ANN001
+        assert self.session is not None
+        self._status("")
+        self.push_screen(OverridesScreen(tables, fva, self.session.priced))
+
     @on(Exported)
     def _exported(self, message: Exported) -> None:
         self._status(message.summary)
@@ -652,7 +689,9 @@ class TriageApp(App[None]):
         yield from super().get_system_commands(screen)
         for binding in self.BINDINGS:
             assert isinstance(binding, Binding)
-            if binding.show or binding.id in {"review.suggestion", "find.field", "find.order", "find.jump", "app.export"}:
+            if binding.show or binding.id in {
+                "review.suggestion", "find.field", "find.order", "find.jump", "app.export", "app.overrides"
+            }:
                 yield SystemCommand(
                     binding.description,
                     f"{binding.tooltip} (key: {binding.key})",

@@ -20,6 +20,13 @@ OUTCOME_SHORT = {
     "deferred": "later",
     "": "",
 }
+#: An earlier cycle's open or closed decision, shown while this cycle has none.
+PAST_TINY = {
+    "no_change": "↺ ok",
+    "adjusted": "↺ adj",
+    "handed_off": "↺ hand",
+    "deferred": "↺ later",
+}
 #: The review column's words, short enough for an 80-column terminal.
 OUTCOME_TINY = {
     "no_change": "✓ ok",
@@ -50,6 +57,7 @@ LIST_COLUMNS = (
     Column("flag", "flag", 7, keep=12),
     Column("pattern", "pattern", 9, keep=4),
     Column("outcome", "review", 7, keep=13),
+    Column("worst", "worst", 5, right=True, keep=9),
     Column("spark", "dem | fcst", 2 * SPARK_PERIODS + 1, keep=14),
 )
 

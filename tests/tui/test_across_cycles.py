@@ -1,0 +1,57 @@
+"""Week after week in the review screens, on the multi-cycle scenario of ``sample/cycles.py``.
+
+The scenario knows by construction which series were handed off or put off earlier and are still
+among the worst (carried over) and what every override was worth once its actuals arrived.
+"""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import pytest
+
+from sample.cycles import build_cycles
+from tests.tui.conftest import wait_for, wait_loaded
+from triage.core import history
+from triage.tui.app import Options, TriageApp
+from triage.tui.screens.overrides import OverridesScreen
+from triage.tui.widgets.series_list import SeriesList
+
+
+@pytest.fixture(scope="module")
+def scenario(tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
+    return build_cycles(tmp_path_factory.mktemp("cycles"))
+
+
+async def test_newest_week_shows_earlier_cycles(scenario, tmp_path: Path) -> None:  # noqa: ANN001
+    ledger = tmp_path / "ledger.sqlite"
+    shutil.copy(scenario.ledger, ledger)
+    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        session = app.session
+        order = app.query_one(SeriesList).order
+        carried = [session.find(*scenario.roles[role]) for role in scenario.carried]
+        # Carried-over series come first among the unreviewed, before the rest of the list.
+        assert sorted(order[: len(carried)].tolist()) == sorted(carried)
+        for series in carried:
+            assert session.carried[series]
+            assert app._format_row(series)["outcome"][0].startswith("↺")
+        for role in scenario.not_carried:
+            series = session.find(*scenario.roles[role])
+            if series is not None:
+                assert not session.carried[series]
+        for role in scenario.reviewed_now:
+            series = session.find(*scenario.roles[role])
+            assert session.outcome[series] != ""
+        await pilot.press("v")
+        await wait_for(pilot, lambda: isinstance(app.screen, OverridesScreen), "the override value view")
+        shown = app.screen._tables["direction"]
+        expected = history.summarise(history.realised_value(session.portfolio, session.ledger), "direction")
+        assert shown.equals(expected)
+        total = expected.iloc[-1]
+        realised = scenario.realised_in(len(scenario.files) - 1)
+        assert int(total["adjustments"]) == len(realised)
+        assert total["value_added"] == pytest.approx(sum(line.value_added for line in realised))
+        await pilot.press("escape")

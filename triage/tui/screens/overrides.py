@@ -1,0 +1,108 @@
+"""Did past overrides help? The realised value of adjustments, by grouping, with FVA for context."""
+
+from __future__ import annotations
+
+import math
+
+import pandas as pd
+from rich.console import Group
+from rich.table import Table
+from rich.text import Text
+from textual.app import ComposeResult
+from textual.binding import Binding
+from textual.containers import Vertical, VerticalScroll
+from textual.screen import ModalScreen
+from textual.widgets import Static
+
+TITLES = {
+    "direction": "by direction (up = forecast raised)",
+    "size": "by size of the change, relative to the original forecast",
+    "reviewer": "by reviewer",
+    "root_cause": "by root cause",
+    "cycle": "by review cycle",
+}
+
+
+def _num(value: float, fmt: str = ",.1f") -> str:
+    return "" if value is None or (isinstance(value, float) and math.isnan(value)) else format(value, fmt)
+
+
+def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
+    """One grouping of ``history.summarise`` as a Rich table (data as ``Text``, never markup)."""
+    table = Table(title=TITLES.get(by, by), title_justify="left", box=None, header_style="bold")
+    for name, right in [
+        (by, False),
+        ("periods", True),
+        ("decisions", True),
+        ("helped", True),
+        ("share helped", True),
+        ("error removed (units)", True),
+        *([("in value", True)] if priced else []),
+        ("of original error", True),
+    ]:
+        table.add_column(name, justify="right" if right else "left")
+    for row in frame.itertuples(index=False):
+        rec = row._asdict()
+        table.add_row(
+            Text(str(rec[by])),
+            str(int(rec["adjustments"])),
+            str(int(rec["decisions"])),
+            str(int(rec["helped"])),
+            _num(rec["share_helped"] * 100, ".0f") + "%" if not math.isnan(rec["share_helped"]) else "",
+            _num(rec["value_added"], "+,.1f"),
+            *([_num(rec["value_added_value"], "+,.0f")] if priced else []),
+            _num(rec["relative_value_added"] * 100, "+.1f") + "%"
+            if not math.isnan(rec["relative_value_added"])
+            else "",
+        )
+    return table
+
+
+class OverridesScreen(ModalScreen[None]):
+    """The realised value of past overrides: positive error removed means the override helped."""
+
+    BINDINGS = [Binding("escape,q,v", "close", "Close", id="overrides.close", tooltip="Back to the list")]
+
+    def __init__(self, tables: dict[str, pd.DataFrame], fva: dict[str, float], priced: bool) -> None:
+        super().__init__()
+        self._tables = tables
+        self._fva = fva
+        self._priced = priced
+
+    def compose(self) -> ComposeResult:
+        overall = self._tables.get("direction")
+        parts: list[object] = []
+        if overall is None or overall.empty or int(overall.iloc[-1]["adjustments"]) == 0:
+            parts.append(Text("No past adjustment has actuals yet: come back once its periods have passed."))
+        else:
+            total = overall.iloc[-1]
+            parts.append(
+                Text(
+                    f"{int(total['adjustments'])} overridden periods from {int(total['decisions'])} decisions "
+                    f"now have actuals; {total['share_helped'] * 100:.0f}% of them helped. "
+                    f"Net error removed: {total['value_added']:+,.1f} units "
+                    "(positive = the overrides made the forecast better)."
+                )
+            )
+            for by, frame in self._tables.items():
+                parts.append(Text(""))
+                parts.append(summary_table(by, frame, self._priced))
+        fva = self._fva
+        parts.append(Text(""))
+        parts.append(
+            Text(
+                f"For context, this cycle's forecast against the naive forecast: "
+                f"{fva.get('value_added', math.nan):+,.1f} units of error "
+                f"({'better' if fva.get('value_added', 0) > 0 else 'worse'} than naive; "
+                f"relative error {fva.get('relative_error', math.nan):.3f}), "
+                f"{int(fva.get('series_worse_than_naive', 0)):,} series worse than naive."
+            )
+        )
+        with Vertical(classes="dialog help"):
+            yield Static(Text("Did past overrides help?", style="bold"), classes="dialog-title")
+            with VerticalScroll():
+                yield Static(Group(*parts))
+            yield Static(Text("escape, q or v: close"), classes="dialog-keys")
+
+    def action_close(self) -> None:
+        self.dismiss(None)
