@@ -116,15 +116,68 @@ async def measure(path: Path, moves: int, repeats: int) -> dict[str, object]:
     return result
 
 
+async def datatable_baseline(path: Path) -> float:
+    """Seconds to the first frame of a plain DataTable holding the same ranked rows.
+
+    The same portfolio is loaded and scored first (not timed); only building and showing the
+    table is timed, so the ratio compares the list widgets alone.
+    """
+    from rich.text import Text
+    from textual.app import App, ComposeResult
+    from textual.widgets import DataTable
+
+    from triage.core.portfolio import read_portfolio
+    from triage.core.ranking import scorecard
+
+    card = scorecard(read_portfolio(path))
+    columns = [
+        card["rank"],
+        card["item"],
+        card["location"],
+        (card["error_share"] * 100).round(1),
+        card["abs_error_value"].round(0),
+        (card["bias_pct"] * 100).round(1),
+    ]
+    rows = list(zip(*(c.map(str).tolist() for c in columns), strict=True))
+    frames: list[float] = []
+
+    class Baseline(App[None]):
+        def compose(self) -> ComposeResult:
+            yield DataTable(cursor_type="row")
+
+    app = Baseline()
+    original = app._display
+
+    def display(screen, renderable):  # noqa: ANN001, ANN202
+        frames.append(time.perf_counter())
+        return original(screen, renderable)
+
+    app._display = display  # type: ignore[method-assign]
+    async with app.run_test(size=(160, 48)) as pilot:
+        table = app.query_one(DataTable)
+        start = time.perf_counter()
+        table.add_columns("rank", "item", "location", "share", "abs err", "bias")
+        for i, row in enumerate(rows):
+            table.add_row(*(Text(c) for c in row), key=str(i))
+        while not [f for f in frames if f > start]:
+            await pilot.pause(0.01)
+        return [f for f in frames if f > start][0] - start
+
+
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
     parser.add_argument("--series", type=int, default=100_000)
     parser.add_argument("--moves", type=int, default=200)
     parser.add_argument("--repeats", type=int, default=7)
     parser.add_argument("--out", type=Path, default=ROOT / "bench-out")
+    parser.add_argument(
+        "--no-baseline", action="store_true", help="skip the DataTable baseline (slow at 100k)"
+    )
     args = parser.parse_args(argv)
     path = portfolio_file(args.series, args.out)
     result = asyncio.run(measure(path, args.moves, args.repeats))
+    if not args.no_baseline:
+        result["datatable_first_frame_s"] = asyncio.run(datatable_baseline(path))
     result["python"] = sys.version.split()[0]
     targets = {
         "first_frame_s": 3.0,
@@ -134,6 +187,12 @@ def main(argv: list[str] | None = None) -> int:
     }
     print(f"{result['series']:,} series")
     print(f"first frame      {result['first_frame_s']:.2f} s   (target <= {targets['first_frame_s']} s)")
+    if "datatable_first_frame_s" in result:
+        base = result["datatable_first_frame_s"]
+        print(
+            f"baseline         DataTable with the same rows: {base:.2f} s to its first frame "
+            f"(list widget only); the whole review start is {base / result['first_frame_s']:.1f}x faster"
+        )
     for name in ("cursor_ms", "filter_ms", "clear_ms", "order_ms"):
         stats = result[name]
         print(f"{name:<16} p50 {stats['p50']:7.1f} ms   p95 {stats['p95']:7.1f} ms")
