@@ -296,12 +296,15 @@ class ReviewSession:
         if event.kind == ledger_mod.DECISION:
             self.outcome[series] = event.outcome or ""
         else:
-            current = [
-                d for d in self._require_ledger().current(self.cycle)
-                if (d.item, d.location) == (event.item, event.location)
-            ]
-            self.outcome[series] = current[0].outcome if current else ""
+            self.outcome[series] = self._effective_outcome(event.item, event.location)
         return series
+
+    def _effective_outcome(self, item: str, location: str) -> str:
+        """The series' effective outcome this cycle, from its own few events (not the cycle's)."""
+        events = self._require_ledger().history(cycle=self.cycle, item=item, location=location)
+        undone = {e.undoes for e in events if e.kind == ledger_mod.UNDO}
+        standing = [e for e in events if e.kind == ledger_mod.DECISION and e.id not in undone]
+        return (standing[-1].outcome or "") if standing else ""
 
     def history(self, series: int) -> list[Event]:
         """Every ledger event of the series, all cycles, oldest first."""

@@ -1,0 +1,91 @@
+"""The review session the screens rely on, tested headless."""
+
+from __future__ import annotations
+
+import shutil
+from pathlib import Path
+
+import numpy as np
+import pytest
+
+from triage.core.ledger import Ledger
+from triage.core.portfolio import read_portfolio
+from triage.core.ranking import leading_cover, scorecard
+from triage.core.review import ReviewSession
+
+SAMPLE = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"
+
+
+@pytest.fixture
+def session(tmp_path: Path):  # noqa: ANN201
+    path = tmp_path / "week.csv"
+    shutil.copy(SAMPLE, path)
+    ledger = Ledger.open(tmp_path / "week.ledger.sqlite")
+    yield ReviewSession(read_portfolio(path), ledger=ledger, reviewer="ana")
+    ledger.close()
+
+
+def decide(session: ReviewSession, series: int, outcome: str = "no_change", **kw: object) -> None:
+    session.apply_event(session.commit_decision(series, outcome=outcome, root_cause="unknown", **kw))
+
+
+def test_order_is_the_scorecards(session: ReviewSession) -> None:
+    card = scorecard(session.portfolio)
+    np.testing.assert_array_equal(session.order(), card.index.to_numpy())
+    by_bias = scorecard(session.portfolio, by="bias")
+    np.testing.assert_array_equal(session.order("bias"), by_bias.index.to_numpy())
+
+
+def test_filters_combine_and_keep_the_order(session: ReviewSession) -> None:
+    shown = session.order(text="gf-102", filters={"planner": "Lena", "pattern": "smooth"})
+    keys = session.portfolio.keys
+    assert len(shown) > 0
+    assert all("gf-102" in keys["item"].iat[i].casefold() for i in shown)
+    assert set(keys["planner"].to_numpy()[shown]) == {"Lena"}
+    assert set(session.card["pattern"].to_numpy()[shown]) == {"smooth"}
+    ranks = session.card["rank"].to_numpy()[shown]
+    assert (np.diff(ranks) > 0).all()
+
+
+def test_progress_against_the_target_matches_leading_cover(session: ReviewSession) -> None:
+    # The series needed to reach 80% from nothing reviewed is the leading cover set (common
+    # practice: the smallest worst-first set holding the target share).
+    need = len(leading_cover(scorecard(session.portfolio), 0.8))
+    assert session.progress().to_target == need
+    for series in session.error_order[:3]:
+        decide(session, int(series))
+    progress = session.progress()
+    assert progress.reviewed == 3
+    covered = session.card["error_share"].to_numpy()[session.error_order[:3]].sum()
+    assert progress.covered == pytest.approx(covered)
+    assert progress.to_target == need - 3
+
+
+def test_undo_twice_walks_back_through_decisions(session: ReviewSession) -> None:
+    series = int(session.error_order[0])
+    decide(session, series, "no_change")
+    decide(session, series, "deferred")
+    assert session.outcome[series] == "deferred"
+    session.apply_event(session.commit_undo(series))
+    assert session.outcome[series] == "no_change"
+    session.apply_event(session.commit_undo(series))
+    assert session.outcome[series] == ""
+    # The in-memory state agrees with the ledger's own set-based view.
+    assert session.ledger.current(session.cycle) == []
+
+
+def test_next_unreviewed_skips_decided_and_wraps(session: ReviewSession) -> None:
+    order = session.order()
+    decide(session, int(order[1]))
+    assert session.next_unreviewed(order, 0) == 2
+    for series in order[2:]:
+        session.outcome[series] = "no_change"  # the rest decided (state only)
+    assert session.next_unreviewed(order, 5) == 0
+
+
+def test_preview_and_commit_store_the_same_lines(session: ReviewSession) -> None:
+    series = int(session.error_order[0])
+    preview = session.preview(series, "1-3: x1.5")
+    event = session.commit_decision(series, outcome="adjusted", root_cause="promotion", adjustment="1-3: x1.5")
+    assert [line.adjusted for line in event.lines] == pytest.approx(list(preview.adjusted[:3]))
+    assert [line.period for line in event.lines] == list(session.forward_dates[:3])
