@@ -28,20 +28,31 @@ replaced too.
 
 File row numbers in messages count the header as row 1, as a spreadsheet does. In a CSV file a
 row is a record: it is the line number unless a quoted cell holds a line break.
+
+For large Parquet files :func:`scan_parquet` offers a second way in: a :class:`ParquetSource`
+reads the file one row group at a time and hands over numpy arrays (text as integer codes), so
+that ``portfolio.read_portfolio`` can fill its dense arrays without ever building the long frame.
+It applies the same checks, on distinct values where it can; anything this module would refuse,
+change or remark on raises :class:`FastPathDeclined` instead, and the caller reads the file with
+:func:`load_frame`, which then gives its usual message. See docs/performance.md.
 """
 
 from __future__ import annotations
 
 import calendar
 import codecs
+import collections
+import concurrent.futures
 import csv
 import datetime as dt
 import io
 import itertools
+import os
 import re
+import threading
 import warnings
 import zipfile
-from collections.abc import Callable, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any, NoReturn
@@ -52,7 +63,15 @@ import pandas as pd
 from triage.core import schema
 from triage.core.errors import LoadError, TriageError, format_rows
 
-__all__ = ["SUFFIXES", "LoadedFrame", "load_frame", "parse_column_map"]
+__all__ = [
+    "SUFFIXES",
+    "FastPathDeclined",
+    "LoadedFrame",
+    "ParquetSource",
+    "load_frame",
+    "parse_column_map",
+    "scan_parquet",
+]
 
 #: File name endings triage reads, and the reader used for each.
 SUFFIXES: dict[str, str] = {
@@ -81,6 +100,11 @@ _SUSPECT_PATTERN = f"{_CONTROL_PATTERN}|{_BIDI_PATTERN}"
 _MAX_MAGNITUDE = float(2**53)
 _ISO_DATE = re.compile(r"^(\d{4})-(\d{2})(?:-(\d{2}))?(?:[T ]00:00(?::00(?:\.0+)?)?)?$")
 _FIRST_YEAR, _LAST_YEAR = 1900, 2199
+#: Nanoseconds per day, and the day numbers (since 1970-01-01) of the accepted year range.
+_DAY_NS = 86_400 * 10**9
+_FIRST_DAY = (dt.date(_FIRST_YEAR, 1, 1) - dt.date(1970, 1, 1)).days
+_LAST_DAY = (dt.date(_LAST_YEAR, 12, 31) - dt.date(1970, 1, 1)).days
+_UNITS_PER_DAY = {"s": 86_400, "ms": 86_400_000, "us": 86_400 * 10**6, "ns": _DAY_NS}
 _NUMBER = r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$|^[+-]?(?:inf|infinity)$"
 _INTEGER = r"^[+-]?\d+(?:\.0*)?$"
 _EXCEL_ERRORS = ("#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#N/A", "#SPILL!")
@@ -794,11 +818,413 @@ def _read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> _R
         if pa.types.is_decimal(fld.type):
             table = table.set_column(position, fld.name, table.column(position).cast(pa.float64()))
     table = table.rename_columns([f"c{i}" for i in range(len(fields))])
-    # One to_pandas call for the table converts the columns in parallel; split_blocks avoids
-    # copying same-typed columns into one 2-D block.
-    frame = table.to_pandas(date_as_object=False, ignore_metadata=True, split_blocks=True)
-    data = {position: frame[f"c{position}"] for position in range(len(fields))}
+    data: dict[int, pd.Series] = {}
+    for position in range(len(fields)):
+        # Column by column, releasing each Arrow column once converted: the peak holds one
+        # column twice, not the whole table.
+        data[position] = _arrow_to_series(table.column(0))
+        table = table.remove_column(0)
     return _Raw(plan, data, first_row=1, blank_rows_possible=False)
+
+
+def _arrow_to_series(column: Any) -> pd.Series:
+    """One Arrow column as the Series ``Table.to_pandas`` gives, without its detours.
+
+    Dictionary columns become categoricals straight from the unified dictionary's indices (no
+    per-row strings); dates in the accepted years become ``datetime64[ns]`` by one integer
+    multiplication. Everything else, and every case the checks must see as read (dates outside
+    the accepted years, null dictionary values), goes through ``to_pandas``.
+    """
+    import pyarrow as pa
+
+    kind = column.type
+    if (
+        pa.types.is_dictionary(kind)
+        and (pa.types.is_string(kind.value_type) or pa.types.is_large_string(kind.value_type))
+        and column.num_chunks
+    ):
+        column = column.unify_dictionaries()
+        dictionary = column.chunk(0).dictionary
+        categories = pd.Index(dictionary.to_pylist(), dtype=str)
+        if not dictionary.null_count and categories.is_unique:
+            codes = np.empty(len(column), dtype=_code_dtype(len(categories)))
+            start = 0
+            for chunk in column.chunks:
+                stop = start + len(chunk)
+                codes[start:stop] = chunk.indices.fill_null(-1).to_numpy(zero_copy_only=False)
+                start = stop
+            dtype = pd.CategoricalDtype(categories)
+            return pd.Series(pd.Categorical.from_codes(codes, dtype=dtype, validate=False))
+    if pa.types.is_date32(kind) and column.null_count == 0 and len(column):
+        stamps = np.empty(len(column), dtype=np.int64)
+        start = 0
+        for chunk in column.chunks:
+            stop = start + len(chunk)
+            stamps[start:stop] = chunk.view(pa.int32()).to_numpy()
+            start = stop
+        # Outside the accepted years the product could overflow: let the checks see the dates.
+        if stamps.min() >= _FIRST_DAY and stamps.max() <= _LAST_DAY:
+            stamps *= _DAY_NS
+            return pd.Series(stamps.view("datetime64[ns]"), copy=False)
+    if pa.types.is_float64(kind) and column.null_count:
+        values = np.empty(len(column), dtype=np.float64)
+        start = 0
+        for chunk in column.chunks:
+            stop = start + len(chunk)
+            values[start:stop] = _float_values(chunk)
+            start = stop
+        return pd.Series(values, copy=False)
+    return column.to_pandas(date_as_object=False, ignore_metadata=True)
+
+
+def _float_values(array: Any) -> np.ndarray:
+    """An Arrow number array as float64 with NaN for nulls (``to_numpy`` is slow with nulls).
+
+    Integers become float64 as ``Table.to_pandas`` converts them: rounded to nearest.
+    """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    if not pa.types.is_float64(array.type):
+        array = pc.cast(array, pa.float64(), safe=False)
+    if array.null_count:
+        array = pc.fill_null(array, np.nan)
+    return array.to_numpy(zero_copy_only=False)
+
+
+def _code_dtype(size: int) -> type[np.signedinteger[Any]]:
+    """The smallest signed integer type that holds codes 0..size-1 and -1 for missing."""
+    for dtype in (np.int8, np.int16, np.int32):
+        if size <= np.iinfo(dtype).max:
+            return dtype
+    return np.int64
+
+
+# --- Parquet, streamed: the fast path of read_portfolio ------------------------------------------
+
+
+class FastPathDeclined(Exception):
+    """The streamed Parquet reader cannot vouch for a file; the full loader must read it.
+
+    Raised for anything the full loader would refuse, change or remark on (empty or bad cells,
+    control characters, ids stored as numbers, types it converts specially), so that the full
+    loader gives its own message or result and both paths always agree.
+    """
+
+
+@dataclass
+class _Dictionary:
+    """A text column's distinct values across row groups, one global code each."""
+
+    is_id: bool
+    """Ids may not be blank and may not hold bidi controls; attributes may."""
+    index: dict[str, int] = field(default_factory=dict)
+    values: list[str] = field(default_factory=list)
+    blank: list[bool] = field(default_factory=list)
+    has_blank: bool = False
+
+    def codes(
+        self, chunk: Any, positions: np.ndarray | None = None, out: np.ndarray | None = None
+    ) -> np.ndarray:
+        """Global codes of one chunk (dictionary-encoded or plain text).
+
+        Args:
+            chunk: An Arrow array of text, dictionary-encoded or not.
+            positions: Only these rows (all rows when None).
+            out: Where to write the codes (its integer type must hold them); int32 otherwise.
+        """
+        import pyarrow as pa
+
+        if not pa.types.is_dictionary(chunk.type):
+            chunk = chunk.dictionary_encode()
+        if chunk.dictionary.null_count:
+            raise FastPathDeclined("null dictionary value")
+        local = chunk.dictionary.to_pylist()
+        indices = chunk.indices
+        if positions is not None:
+            indices = indices.take(pa.array(positions))
+        if indices.null_count:
+            if self.is_id:
+                raise FastPathDeclined("missing id")
+            # A missing attribute is the empty string, as the full loader fills it.
+            local.append("")
+            indices = indices.fill_null(len(local) - 1)
+        fresh = list(dict.fromkeys(v for v in local if v not in self.index))
+        if fresh:
+            self._add(fresh)
+        dtype = np.int32 if out is None else out.dtype
+        if len(self.values) > np.iinfo(dtype).max:
+            raise FastPathDeclined("too many distinct values")
+        lut = np.fromiter((self.index[v] for v in local), dtype=dtype, count=len(local))
+        codes = np.take(lut, indices.to_numpy(zero_copy_only=False), out=out)
+        if self.is_id and self.has_blank and np.asarray(self.blank)[codes].any():
+            raise FastPathDeclined("blank id")
+        return codes
+
+    def _add(self, fresh: list[str]) -> None:
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        array = pa.array(fresh, type=pa.string())
+        # Checked once per distinct value, as the full loader checks categories.
+        pattern = _SUSPECT_PATTERN if self.is_id else _CONTROL_PATTERN
+        if pc.any(pc.match_substring_regex(array, pattern)).as_py():
+            raise FastPathDeclined("control characters")
+        blank = [False] * len(fresh)
+        if self.is_id:
+            # Both notions of white space (Python's and Arrow's): whichever the full loader
+            # applies, an id this path keeps is one it keeps too.
+            trimmed = pc.utf8_trim_whitespace(array).to_pylist()
+            blank = [not v.strip() or not t for v, t in zip(fresh, trimmed, strict=True)]
+            self.has_blank = self.has_blank or any(blank)
+        for value in fresh:
+            self.index[value] = len(self.values)
+            self.values.append(value)
+        self.blank.extend(blank)
+
+
+@dataclass
+class _Chunk:
+    """One row group of a :class:`ParquetSource`, converted."""
+
+    start: int
+    """File position (0-based) of its first row."""
+    size: int
+    columns: dict[str, np.ndarray] = field(default_factory=dict)
+    selected: np.ndarray | None = None
+    """Positions (inside the row group) at which the sparse columns were converted."""
+
+
+@dataclass
+class ParquetSource:
+    """A Parquet portfolio read one row group at a time and checked as the full loader checks it.
+
+    :meth:`chunks` yields canonical columns as numpy arrays: text as int32 codes into
+    :meth:`values`, periods as int32 day numbers since 1970-01-01, numbers as float64 with NaN
+    for missing, lags as int64. A cell the full loader would refuse, change or remark on raises
+    :class:`FastPathDeclined`; the caller then loads the file the full way.
+    """
+
+    path: Path
+    file: Any
+    columns: dict[str, str]
+    """Canonical name (or attribute name) -> column name in the file."""
+    attributes: tuple[str, ...]
+    notices: tuple[str, ...]
+    n_rows: int
+    _plain_text: list[str] = field(default_factory=list)
+    """File columns of plain text, read dictionary-encoded."""
+    _dictionaries: dict[str, _Dictionary] = field(default_factory=dict)
+
+    def values(self, name: str) -> list[str]:
+        """The distinct values of text column ``name`` read so far, in code order."""
+        return self._dictionaries[name].values
+
+    def chunks(
+        self,
+        names: Sequence[str],
+        *,
+        sparse: Sequence[str] = (),
+        select: Callable[[int, int], np.ndarray] | None = None,
+        into: dict[str, np.ndarray] | None = None,
+    ) -> Iterator[_Chunk]:
+        """Every non-empty row group's columns, in file order.
+
+        Row groups are read ahead on worker threads (decoding releases the GIL, and two row
+        groups decode side by side); converting them stays on the calling thread, in order.
+
+        Args:
+            names: Columns converted on every row.
+            sparse: Text columns converted only on the rows ``select(first_row, n_rows)``
+                returns (positions inside the row group), e.g. one row per series.
+            select: Required with ``sparse``.
+            into: For text columns among ``names``: whole-file arrays to write the codes into
+                (``columns[name]`` is then a view of it).
+        """
+        import pyarrow.parquet as pq
+
+        wanted = [self.columns[n] for n in (*names, *sparse)]
+        local = threading.local()
+
+        def read(group: int) -> Any:
+            if not hasattr(local, "file"):
+                # One reader per thread; the parsed footer is shared.
+                local.file = pq.ParquetFile(
+                    self.path, read_dictionary=self._plain_text, metadata=self.file.metadata
+                )
+            return local.file.read_row_group(group, columns=wanted, use_threads=False)
+
+        groups = range(self.file.num_row_groups)
+        workers = max(1, min(2, os.cpu_count() or 1))
+        offset = 0
+        with concurrent.futures.ThreadPoolExecutor(max_workers=workers) as pool:
+            ahead: collections.deque[concurrent.futures.Future[Any]] = collections.deque()
+            upcoming = iter(groups)
+            for group in itertools.islice(upcoming, workers + 1):
+                ahead.append(pool.submit(read, group))
+            while ahead:
+                table = ahead.popleft().result()
+                for group in itertools.islice(upcoming, 1):
+                    ahead.append(pool.submit(read, group))
+                size = table.num_rows
+                if size:
+                    yield self._chunk(table, offset, names, sparse, select, into)
+                offset += size
+                del table
+        if offset != self.n_rows:  # pragma: no cover - footer and data disagree
+            raise FastPathDeclined("row count")
+
+    def _chunk(
+        self,
+        table: Any,
+        offset: int,
+        names: Sequence[str],
+        sparse: Sequence[str],
+        select: Callable[[int, int], np.ndarray] | None,
+        into: dict[str, np.ndarray] | None,
+    ) -> _Chunk:
+        size = table.num_rows
+        out = _Chunk(offset, size)
+        for name, column in zip(names, table.columns, strict=False):
+            target = into.get(name) if into else None
+            if target is not None:
+                start = offset
+                for piece in column.chunks:
+                    view = target[start : start + len(piece)]
+                    values = self._convert(name, piece, view)
+                    if values is not view:
+                        view[:] = values
+                    start += len(piece)
+                out.columns[name] = target[offset : offset + size]
+                continue
+            parts = [self._convert(name, piece) for piece in column.chunks]
+            out.columns[name] = parts[0] if len(parts) == 1 else np.concatenate(parts)
+        if sparse and select is not None:
+            out.selected = select(offset, size)
+            for name in sparse:
+                # Whole row group as one array: positions count from its first row.
+                whole = table.column(self.columns[name]).combine_chunks()
+                out.columns[name] = self._dictionary(name).codes(whole, out.selected)
+        return out
+
+    def _dictionary(self, name: str) -> _Dictionary:
+        return self._dictionaries.setdefault(
+            name, _Dictionary(is_id=name in (schema.ITEM, schema.LOCATION))
+        )
+
+    def _convert(self, name: str, chunk: Any, out: np.ndarray | None = None) -> np.ndarray:
+        import pyarrow as pa
+
+        kind = chunk.type
+        if name in (schema.ITEM, schema.LOCATION) or name in self.attributes:
+            return self._dictionary(name).codes(chunk, out=out)
+        if chunk.null_count and name in (schema.PERIOD, schema.LAG):
+            raise FastPathDeclined(f"missing {name}")
+        if name == schema.PERIOD:
+            if pa.types.is_date32(kind):
+                days = chunk.view(pa.int32()).to_numpy()
+            else:
+                per_day = _UNITS_PER_DAY["ms" if pa.types.is_date64(kind) else kind.unit]
+                whole, rest = np.divmod(chunk.view(pa.int64()).to_numpy(), per_day)
+                if rest.any():
+                    raise FastPathDeclined("time of day")
+                if whole.min() < _FIRST_DAY or whole.max() > _LAST_DAY:
+                    raise FastPathDeclined("year range")
+                days = whole.astype(np.int32)
+            if days.min() < _FIRST_DAY or days.max() > _LAST_DAY:
+                raise FastPathDeclined("year range")
+            return days
+        if name == schema.LAG:
+            lags = chunk.to_numpy()
+            if lags.min() < 0 or lags.max() > np.iinfo(np.int32).max:
+                raise FastPathDeclined("lag range")
+            return lags.astype(np.int64)
+        numbers = _float_values(chunk)
+        low, high = np.fmin.reduce(numbers), np.fmax.reduce(numbers)
+        if not np.isnan(low) and not (low >= -_MAX_MAGNITUDE and high <= _MAX_MAGNITUDE):
+            raise FastPathDeclined("not finite")
+        if name == schema.PRICE and low < 0:
+            raise FastPathDeclined("negative price")
+        return numbers
+
+
+def scan_parquet(path: str | Path, *, columns: dict[str, str] | None = None) -> ParquetSource:
+    """Open a Parquet portfolio for the streamed reader (reads the footer and schema only).
+
+    Raises:
+        LoadError: The errors :func:`load_frame` raises before it reads any cell (file type,
+            ``--columns``, column names), with the same messages.
+        FastPathDeclined: The file needs the full loader.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    file_path = Path(path)
+    if _file_kind(file_path) != "parquet":
+        raise FastPathDeclined("not parquet")
+    mapping = _checked_mapping(file_path, columns)
+    try:
+        arrow_schema = pq.read_schema(file_path)
+    except (pa.ArrowException, OSError) as exc:
+        raise FastPathDeclined("unreadable") from exc
+    fields = [f for f in arrow_schema if not re.fullmatch(r"__index_level_\d+__", f.name)]
+    for fld in fields:
+        kind = fld.type
+        if pa.types.is_nested(kind) or pa.types.is_binary(kind) or pa.types.is_large_binary(kind):
+            raise FastPathDeclined("nested or binary column")
+    notices: list[str] = []
+    plan = _plan_columns(file_path, [f.name for f in fields], mapping, notices)
+    if plan.unnamed:
+        raise FastPathDeclined("unnamed column")
+    names: dict[str, str] = {}
+    plain_text: list[str] = []
+    for position, fld in enumerate(fields):
+        role = plan.roles[position]
+        name = role if role is not None else plan.attributes.get(position)
+        if name is None:
+            continue
+        # Column selection treats dots as paths into nested columns.
+        if "." in fld.name or not _streamable(role, fld.type):
+            raise FastPathDeclined(f"column {fld.name!r} of type {fld.type}")
+        names[name] = fld.name
+        if role in (schema.ITEM, schema.LOCATION, None) and not pa.types.is_dictionary(fld.type):
+            plain_text.append(fld.name)
+    try:
+        # Plain text columns come back dictionary-encoded: no Python string per row.
+        file = pq.ParquetFile(file_path, read_dictionary=plain_text)
+    except (pa.ArrowException, OSError) as exc:
+        raise FastPathDeclined("unreadable") from exc
+    if file.metadata.num_rows == 0:
+        raise FastPathDeclined("no rows")
+    return ParquetSource(
+        path=file_path,
+        file=file,
+        columns=names,
+        attributes=tuple(plan.attributes.values()),
+        notices=tuple(notices),
+        n_rows=file.metadata.num_rows,
+        _plain_text=plain_text,
+    )
+
+
+def _streamable(role: str | None, kind: Any) -> bool:
+    """Column types the streamed reader converts exactly as the full loader would."""
+    import pyarrow as pa
+
+    def text(t: Any) -> bool:
+        return pa.types.is_string(t) or pa.types.is_large_string(t)
+
+    if role in (schema.ITEM, schema.LOCATION, None):
+        return text(kind) or (pa.types.is_dictionary(kind) and text(kind.value_type))
+    if role == schema.PERIOD:
+        return (
+            pa.types.is_date32(kind)
+            or pa.types.is_date64(kind)
+            or (pa.types.is_timestamp(kind) and kind.tz is None)
+        )
+    if role == schema.LAG:
+        return pa.types.is_integer(kind)
+    return pa.types.is_floating(kind) or pa.types.is_integer(kind)
 
 
 # --- xlsx ----------------------------------------------------------------------------------------

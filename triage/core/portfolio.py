@@ -8,27 +8,43 @@ one lag, and some actual demand.
 Forward periods are the calendar periods after the portfolio's latest actual period; their
 forecast is the forward forecast a reviewer may override. A history row with empty demand is a
 missing actual, never a zero.
+
+Two ways build the same :class:`Portfolio`. :func:`build_portfolio` scatters a loaded long frame
+(any file type). :func:`read_portfolio` first tries the streamed way for Parquet: two passes over
+the row groups fill the arrays directly, and integer codes stand in for the text, so a million
+series never exist as 116 million Python objects or as a long frame. Files it cannot vouch for go
+the first way, which gives the same result or the same error (tests/core/test_parquet_streamed.py).
+
+Memory at scale (docs/performance.md): rows are numbered with int32 codes where they fit, row
+passes run in blocks, and prices are kept per series (:class:`UnitPrices`) except for the series
+whose price changes.
 """
 
 from __future__ import annotations
 
+import concurrent.futures
 import hashlib
 from dataclasses import dataclass, field
 from functools import cached_property
 from pathlib import Path
-from typing import TYPE_CHECKING, Protocol
+from typing import TYPE_CHECKING, Any, NoReturn, Protocol
 
 import numpy as np
+import numpy.typing as npt
 import pandas as pd
 
 from triage.core import schema
 from triage.core.errors import LoadError, format_rows
 
 if TYPE_CHECKING:
-    from collections.abc import Sequence
+    from collections.abc import Callable, Sequence
+
+    from triage.core.load import ParquetSource
 
 #: How many example rows an error message shows.
 EXAMPLES = 5
+#: Nanoseconds in a day.
+DAY_NS = 86_400 * 10**9
 
 
 class LoadedLike(Protocol):
@@ -55,7 +71,122 @@ class Calendar:
     def label(self, index: int) -> str:
         """ISO text of period ``index``: ``2026-11-23`` (weekly) or ``2026-11`` (monthly)."""
         stamp = self.periods[index]
-        return stamp.strftime("%Y-%m") if self.freq == schema.MONTHLY else stamp.strftime("%Y-%m-%d")
+        return (
+            stamp.strftime("%Y-%m") if self.freq == schema.MONTHLY else stamp.strftime("%Y-%m-%d")
+        )
+
+
+class UnitPrices:
+    """Unit value per series and period, stored as one price per series plus the rows that change.
+
+    Most series keep one price over the whole calendar; only the series whose price changes are
+    kept in full, so a portfolio of a million series does not carry a third dense matrix. It
+    reads like a read-only ``(n_series, n_periods)`` float64 array: integer, slice, integer-array
+    and boolean keys on either axis, with numpy's results (copies, never views).
+    """
+
+    __slots__ = ("_base", "_rows", "_slot", "_values", "shape")
+
+    dtype = np.dtype(np.float64)
+    ndim = 2
+
+    def __init__(self, base: np.ndarray, rows: np.ndarray, values: np.ndarray) -> None:
+        """
+        Args:
+            base: The price of every series (used for the series not in ``rows``).
+            rows: Ascending series positions whose price changes.
+            values: Their full rows, ``len(rows) x n_periods``.
+        """
+        self._base = np.asarray(base, dtype=np.float64)
+        self._rows = np.asarray(rows, dtype=np.int64)
+        self._values = np.asarray(values, dtype=np.float64)
+        self.shape = (len(self._base), self._values.shape[1])
+        self._slot = np.full(len(self._base), -1, dtype=np.int64)
+        self._slot[self._rows] = np.arange(len(self._rows))
+
+    @classmethod
+    def from_dense(cls, price: np.ndarray) -> UnitPrices:
+        """Compress a dense filled price matrix (every row constant is stored as one number)."""
+        changes = np.empty(price.shape[0], dtype=bool)
+        for lo in range(0, price.shape[0], _SERIES):
+            block = price[lo : lo + _SERIES]
+            changes[lo : lo + _SERIES] = ~(block == block[:, :1]).all(axis=1)
+        rows = np.flatnonzero(changes)
+        return cls(price[:, 0].copy(), rows, price[rows])
+
+    @property
+    def changing(self) -> np.ndarray:
+        """Series whose price is not the same in every period."""
+        return self._rows.copy()
+
+    def __len__(self) -> int:
+        return self.shape[0]
+
+    def __repr__(self) -> str:
+        return f"UnitPrices(shape={self.shape}, changing={len(self._rows)})"
+
+    def __array__(self, dtype: npt.DTypeLike | None = None, copy: bool | None = None) -> np.ndarray:
+        full = np.repeat(self._base[:, None], self.shape[1], axis=1)
+        full[self._rows] = self._values
+        return full if dtype is None else full.astype(dtype)
+
+    def __getitem__(self, key: Any) -> Any:
+        if not isinstance(key, tuple):
+            key = (key,)
+        if len(key) == 1:
+            key = (key[0], slice(None))
+        if len(key) != 2 or any(k is None or k is Ellipsis for k in key):
+            return np.asarray(self)[key]
+        row_key, col_key = key
+        cols = np.arange(self.shape[1])[col_key]
+        row_scalar = _is_int(row_key)
+        col_scalar = np.ndim(cols) == 0
+        paired = not (row_scalar or col_scalar)
+        if paired and not isinstance(row_key, slice) and not isinstance(col_key, slice):
+            # Two index arrays: numpy pairs them element by element (broadcast).
+            try:
+                rows, cols = np.broadcast_arrays(self._row_positions(row_key), cols)
+            except ValueError as exc:
+                raise IndexError(f"shape mismatch: {exc}") from None
+            out = self._base[rows]
+            slot = self._slot[rows]
+            changing = slot >= 0
+            out[changing] = self._values[slot[changing], cols[changing]]
+            return out
+        rows = self._row_positions(row_key)
+        cols_1d = np.atleast_1d(cols)
+        out = np.repeat(self._base[np.atleast_1d(rows)][:, None], len(cols_1d), axis=1)
+        slot = self._slot[np.atleast_1d(rows)]
+        changing = np.flatnonzero(slot >= 0)
+        if changing.size:
+            out[changing] = self._values[slot[changing]][:, cols_1d]
+        if row_scalar:
+            out = out[0]
+        if col_scalar:
+            out = out[..., 0]
+        return out
+
+    def _row_positions(self, key: object) -> np.ndarray:
+        n = self.shape[0]
+        if isinstance(key, slice):
+            return np.arange(*key.indices(n))
+        if _is_int(key):
+            index = int(key)  # type: ignore[call-overload]
+            if not -n <= index < n:
+                raise IndexError(f"index {index} is out of bounds for axis 0 with size {n}")
+            return np.asarray(index % n)
+        array = np.asarray(key)
+        if array.dtype == bool:
+            if array.shape != (n,):
+                raise IndexError(f"boolean index of length {array.size} for axis 0 with size {n}")
+            return np.flatnonzero(array)
+        if array.size and (array.min() < -n or array.max() >= n):
+            raise IndexError(f"index out of bounds for axis 0 with size {n}")
+        return np.where(array < 0, array + n, array).astype(np.int64)
+
+
+def _is_int(key: object) -> bool:
+    return isinstance(key, int | np.integer) and not isinstance(key, bool)
 
 
 @dataclass(frozen=True)
@@ -79,9 +210,14 @@ class Portfolio:
     demand: np.ndarray
     """Actual demand, series x periods, float64, NaN where missing (and in forward periods)."""
     forecast: np.ndarray
-    """Forecast at the chosen lag for history periods, the forward forecast after them; NaN where missing."""
-    price: np.ndarray | None
-    """Unit value, series x periods, float64, filled along each series; None without a price column."""
+    """Forecast at the chosen lag for history periods, the forward forecast after them.
+
+    NaN where missing."""
+    price: UnitPrices | None
+    """Unit value, series x periods, float64, filled along each series; None without a price column.
+
+    Indexes like a read-only float64 array (``price[:, cols]``, ``price[series, col]``, ``price[i]``
+    return numpy arrays); ``np.asarray(price)`` gives the full matrix."""
     last_actual: int
     """Column of the portfolio's latest period with any actual demand."""
     lag: int | None
@@ -92,6 +228,10 @@ class Portfolio:
     """Rows read from the file."""
     notices: tuple[str, ...] = field(default=())
     """Things the user should know that did not stop the load."""
+    _text_codes: dict[str, tuple[np.ndarray, Any]] = field(
+        default_factory=dict, repr=False, compare=False
+    )
+    """Key and attribute columns as (int32 codes, Arrow labels), filled on first use."""
 
     @property
     def n_series(self) -> int:
@@ -121,13 +261,35 @@ class Portfolio:
         """``item`` or ``item @ location`` of series ``index``, for messages."""
         return " @ ".join(str(self.keys.iloc[index][c]) for c in self.key_columns)
 
+    def text_column(self, name: str, order: np.ndarray) -> pd.api.extensions.ExtensionArray:
+        """Key or attribute column ``name`` of the series ``order``, as a ``str`` array.
 
-def build_portfolio(loaded: LoadedLike, *, lag: int | None = None) -> Portfolio:
+        Taken through integer codes into the column's distinct values (kept from the build, or
+        computed once): cheaper than moving a million strings.
+        """
+        import pyarrow as pa
+
+        coded = self._text_codes.get(name)
+        if coded is None:
+            codes, uniques = pd.factorize(self.keys[name])
+            labels = pa.array(np.asarray(uniques, dtype=object), type=pa.large_string())
+            coded = self._text_codes[name] = (codes.astype(np.int32), labels)
+        codes, labels = coded
+        taken = labels.take(pa.array(codes[order]))
+        return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+
+
+def build_portfolio(
+    loaded: LoadedLike, *, lag: int | None = None, consume: bool = False
+) -> Portfolio:
     """Check the whole-portfolio rules and scatter the long rows into dense arrays.
 
     Args:
         loaded: A validated long frame (canonical columns) and where it came from.
         lag: The forecast lag to score; required when the history holds more than one lag.
+        consume: Drop each column from ``loaded.frame`` once it has been scattered, so that the
+            long rows and the dense arrays are not both held in full. The frame is left with
+            fewer columns (possibly none); pass True only when nothing reads it afterwards.
 
     Raises:
         LoadError: Irregular calendar, duplicate rows, several lags without ``lag``, an unknown
@@ -136,60 +298,99 @@ def build_portfolio(loaded: LoadedLike, *, lag: int | None = None) -> Portfolio:
     frame = loaded.frame
     path = loaded.path
     if frame.empty:
-        raise LoadError(path, "the file has no data rows.", hint="Add rows with item, period, demand and forecast.")
+        raise LoadError(
+            path,
+            "the file has no data rows.",
+            hint="Add rows with item, period, demand and forecast.",
+        )
     key_columns = tuple(c for c in schema.KEY_ORDER if c in frame.columns)
+    n_rows = len(frame)
+    has_lag = schema.LAG in frame.columns
+    has_price = schema.PRICE in frame.columns
 
     series, keys_unique = _series_codes(frame, key_columns)
     calendar, period = _calendar_codes(loaded)
     n_series, n_periods = len(keys_unique), len(calendar.periods)
 
     demand_col = frame[schema.DEMAND].to_numpy(dtype=np.float64)
-    forecast_col = frame[schema.FORECAST].to_numpy(dtype=np.float64)
-    actual = ~np.isnan(demand_col)
-    if not actual.any():
+    last_actual = _last_actual(period, demand_col)
+    if last_actual < 0:
         raise LoadError(
             path,
             "no row has actual demand: every demand cell is empty, so nothing can be scored.",
             hint="Include the demand history, not only the forward forecast.",
         )
-    last_actual = int(period[actual].max())
-    forward = period > last_actual
 
-    has_lag = schema.LAG in frame.columns
-    lag_col = frame[schema.LAG].to_numpy(dtype=np.int64) if has_lag else np.zeros(len(frame), np.int64)
+    lag_col = frame[schema.LAG].to_numpy(dtype=np.int64) if has_lag else None
     _check_duplicates(loaded, series, period, lag_col, key_columns, n_series, n_periods)
-
-    lags = tuple(int(v) for v in np.unique(lag_col[~forward])) if has_lag else ()
+    lags = _history_lags(lag_col, period, last_actual) if lag_col is not None else ()
     chosen = _choose_lag(path, lags, lag) if has_lag else None
 
-    cell = series.astype(np.int64) * n_periods + period
+    # The later steps need the keys' codes only; the rows' key columns can go.
+    attribute_rows = (
+        _latest_rows(series, period, n_series, n_periods, unique_cells=not has_lag)
+        if loaded.attributes
+        else None
+    )
+    cell = _cells(series, period, n_periods)
+    del series
+    if consume:
+        for name in (*key_columns, schema.PERIOD):
+            del frame[name]
+
     demand = np.full(n_series * n_periods, np.nan)
     forecast = np.full(n_series * n_periods, np.nan)
-
-    history = ~forward
-    scored = history & (lag_col == chosen) if has_lag else history
-    demand[cell[scored]] = demand_col[scored]
-    forecast[cell[scored]] = forecast_col[scored]
-    if has_lag and len(lags) > 1:
-        _merge_other_lag_demand(loaded, demand, cell, demand_col, history)
-
-    if forward.any():
-        # Forward periods keep the most recent snapshot: the smallest lag per (series, period).
-        fwd = np.flatnonzero(forward)
-        fwd = fwd[np.lexsort((lag_col[fwd], cell[fwd]))]
-        first = np.ones(len(fwd), dtype=bool)
-        first[1:] = cell[fwd][1:] != cell[fwd][:-1]
-        fwd = fwd[first]
-        forecast[cell[fwd]] = forecast_col[fwd]
+    forecast_col = frame[schema.FORECAST].to_numpy(dtype=np.float64)
+    if lag_col is None:
+        # One row per cell (duplicates were refused), and forward rows carry no demand by
+        # definition of the latest actual period: every row scatters as it is.
+        demand[cell] = demand_col
+        forecast[cell] = forecast_col
+    else:
+        forward = period > last_actual
+        scored = ~forward & (lag_col == chosen)
+        demand[cell[scored]] = demand_col[scored]
+        forecast[cell[scored]] = forecast_col[scored]
+        del scored
+        if len(lags) > 1:
+            _merge_other_lag_demand(loaded, demand, cell, demand_col, ~forward)
+        if forward.any():
+            # Forward periods keep the most recent snapshot: the smallest lag per (series, period).
+            fwd = np.flatnonzero(forward)
+            fwd = fwd[np.lexsort((lag_col[fwd], cell[fwd]))]
+            first = np.ones(len(fwd), dtype=bool)
+            first[1:] = cell[fwd][1:] != cell[fwd][:-1]
+            fwd = fwd[first]
+            forecast[cell[fwd]] = forecast_col[fwd]
+        del forward
+    del demand_col, forecast_col, period, lag_col
+    if consume:
+        for name in (schema.DEMAND, schema.FORECAST, schema.LAG):
+            if name in frame.columns:
+                del frame[name]
 
     price = None
     notices = list(loaded.notices)
-    if schema.PRICE in frame.columns:
-        price, note = _price_matrix(loaded, series, cell, keys_unique, key_columns, n_series, n_periods)
-        if note:
-            notices.append(note)
+    if has_price:
+        price_col = frame[schema.PRICE].to_numpy(dtype=np.float64)
+        if consume:
+            del frame[schema.PRICE]
+        flat = np.full(n_series * n_periods, np.nan)
+        missing_rows = _scatter_prices(flat, cell, price_col)
+        del price_col
+        dense = flat.reshape(n_series, n_periods)
+        _refuse_unpriced(path, _fill_prices(dense), keys_unique, key_columns)
+        price = UnitPrices.from_dense(dense)
+        del dense, flat
+        if missing_rows:
+            notices.append(_price_note(missing_rows))
+    del cell
 
-    keys = _series_table(frame, keys_unique, key_columns, loaded.attributes, series, period)
+    keys = _series_table(frame, keys_unique, key_columns, loaded.attributes, attribute_rows)
+    if consume:
+        for name in loaded.attributes:
+            if name in frame.columns:
+                del frame[name]
     return Portfolio(
         path=path,
         keys=keys,
@@ -202,7 +403,7 @@ def build_portfolio(loaded: LoadedLike, *, lag: int | None = None) -> Portfolio:
         last_actual=last_actual,
         lag=chosen,
         lags=lags,
-        rows=len(frame),
+        rows=n_rows,
         notices=tuple(notices),
     )
 
@@ -214,84 +415,386 @@ def read_portfolio(
     sheet: str | None = None,
     lag: int | None = None,
 ) -> Portfolio:
-    """Load a portfolio file and build its arrays (see ``load.load_frame`` and ``build_portfolio``)."""
-    from triage.core.load import load_frame
+    """Load a portfolio file and build its arrays (see ``load.load_frame`` and ``build_portfolio``).
 
-    return build_portfolio(load_frame(path, columns=columns, sheet=sheet), lag=lag)
+    A Parquet file is first read the streamed way (``load.scan_parquet``): one row group at a
+    time, straight into the dense arrays, without the long frame. Whenever that reader cannot
+    vouch for the file (a bad or unusual cell, several lags, duplicate rows, ...) the file is
+    read the full way, which gives the same portfolio or the same error.
+    """
+    from triage.core.load import FastPathDeclined, load_frame, scan_parquet
+
+    if sheet is None and Path(path).suffix.lower() in (".parquet", ".pq"):
+        try:
+            return _build_streamed(scan_parquet(path, columns=columns), lag)
+        except FastPathDeclined:
+            pass
+    loaded = load_frame(path, columns=columns, sheet=sheet)
+    return build_portfolio(loaded, lag=lag, consume=True)
+
+
+# --- the streamed way: Parquet row groups straight into the dense arrays -------------------------
+
+
+def _build_streamed(source: ParquetSource, lag: int | None) -> Portfolio:
+    """Build from a Parquet file in two passes over its row groups, without the long frame.
+
+    Pass 1 reads the keys and periods and numbers every row's cell; pass 2 reads the numbers and
+    attributes and scatters them. Only files with one row per (series, period) and one history
+    lag take this way; for anything else :class:`~triage.core.load.FastPathDeclined` sends the
+    file to the full loader, which gives the same result or the same error.
+    """
+    from triage.core.load import FastPathDeclined
+
+    n_rows = source.n_rows
+    has_location = schema.LOCATION in source.columns
+    has_lag = schema.LAG in source.columns
+    has_price = schema.PRICE in source.columns
+    key_columns = (schema.ITEM, schema.LOCATION) if has_location else (schema.ITEM,)
+    small = np.iinfo(np.int16)
+
+    # Pass 1: keys and periods. Day numbers are kept as int16 offsets from the first row's.
+    item = np.empty(n_rows, dtype=np.int32)
+    loc = np.empty(n_rows if has_location else 0, dtype=np.int16)
+    day = np.empty(n_rows, dtype=np.int16)
+    base: int | None = None
+    days_seen: set[int] = set()
+    lag_first_day: dict[int, int] = {}
+    names = [*key_columns, schema.PERIOD, *([schema.LAG] if has_lag else [])]
+    into: dict[str, np.ndarray] = {schema.ITEM: item, schema.LOCATION: loc}
+    for chunk in source.chunks(names, into=into):
+        start, stop = chunk.start, chunk.start + chunk.size
+        days = chunk.columns[schema.PERIOD]
+        low, high = int(days.min()), int(days.max())
+        base = low if base is None else base
+        if low - base < small.min or high - base > small.max:
+            raise FastPathDeclined("periods too far apart")
+        np.subtract(days, base, out=day[start:stop], casting="unsafe")
+        days_seen.update((np.flatnonzero(np.bincount(days - low)) + low).tolist())
+        if has_lag:
+            row_lags = chunk.columns[schema.LAG]
+            if row_lags.max() >= 1 << 16:
+                raise FastPathDeclined("large lags")
+            first = np.full(int(row_lags.max()) + 1, np.iinfo(np.int32).max, dtype=np.int32)
+            np.minimum.at(first, row_lags, days)
+            for value in np.flatnonzero(first < np.iinfo(np.int32).max).tolist():
+                lag_first_day[value] = min(
+                    lag_first_day.get(value, first[value]), int(first[value])
+                )
+    assert base is not None  # the file has rows
+
+    # Series numbers: every (item, location) pair in use, in key order. Only the pairs are
+    # sorted; the rows pass twice (pair code, then cell) and are updated in place.
+    item_text = np.array(source.values(schema.ITEM), dtype=object)
+    loc_text = np.array(source.values(schema.LOCATION) if has_location else [""], dtype=object)
+    n_loc = len(loc_text)
+    if len(item_text) * n_loc >= np.iinfo(np.int32).max:
+        raise FastPathDeclined("too many key pairs")
+    pair = item
+    used = np.zeros(len(item_text) * n_loc, dtype=bool)
+    for lo in range(0, n_rows, _ROWS):
+        block = pair[lo : lo + _ROWS]
+        if has_location:
+            block *= n_loc
+            block += loc[lo : lo + _ROWS]
+        used[block] = True
+    del loc, item
+    pairs = np.flatnonzero(used)
+    del used
+    item_rank = _text_rank(item_text)
+    loc_rank = _text_rank(loc_text)
+    pairs = pairs[np.lexsort((loc_rank[pairs % n_loc], item_rank[pairs // n_loc]))]
+    n_series = len(pairs)
+    text_codes = {schema.ITEM: (item_text, (pairs // n_loc).astype(np.int32))}
+    if has_location:
+        text_codes[schema.LOCATION] = (loc_text, (pairs % n_loc).astype(np.int32))
+    keys_unique = pd.DataFrame({k: _str_array(*v) for k, v in text_codes.items()})
+
+    uniques = np.array(sorted(days_seen), dtype=np.int64)
+    found = _calendar_from_uniques(
+        pd.DatetimeIndex(uniques.astype("datetime64[D]").astype("datetime64[ns]"))
+    )
+    if found is None:
+        raise FastPathDeclined("irregular calendar")
+    calendar, unique_codes = found
+    n_periods = len(calendar.periods)
+    if n_series * n_periods >= np.iinfo(np.int32).max or n_periods > small.max:
+        raise FastPathDeclined("too many cells")
+    # The two dense arrays are allocated and NaN-filled on a worker thread while this one
+    # numbers the cells: first touching a GB of memory is mostly kernel time, which the other
+    # core can take.
+    allocating = concurrent.futures.ThreadPoolExecutor(max_workers=1)
+    dense_job = allocating.submit(
+        lambda: (np.full(n_series * n_periods, np.nan), np.full(n_series * n_periods, np.nan))
+    )
+    allocating.shutdown(wait=False)
+    # Row -> cell in one pass through two lookup tables: pair -> first cell of its series,
+    # day offset -> calendar column. The cells overwrite the pair codes.
+    first_cell = np.zeros(len(item_text) * n_loc, dtype=np.int32)
+    first_cell[pairs] = np.arange(n_series, dtype=np.int32) * n_periods
+    shift = int(uniques[0]) - base
+    column_of_day = np.full(int(uniques[-1] - uniques[0]) + 1, -1, dtype=np.int32)
+    column_of_day[uniques - uniques[0]] = unique_codes
+    cell = pair
+    filled = np.zeros(n_series * n_periods, dtype=bool)
+    for lo in range(0, n_rows, _ROWS):
+        block = cell[lo : lo + _ROWS]
+        offsets = day[lo : lo + _ROWS].astype(np.int32)
+        offsets -= shift
+        np.take(first_cell, block, out=block)
+        block += column_of_day[offsets]
+        filled[block] = True
+    del day, pair, first_cell, pairs
+    if np.count_nonzero(filled) != n_rows:
+        raise FastPathDeclined("several rows for one series and period")
+    is_latest = None
+    if source.attributes:
+        # The bitmap turns into "is the latest cell of its series": attributes come from there.
+        last = _last_filled(filled.reshape(n_series, n_periods))
+        filled[:] = False
+        filled[np.arange(n_series, dtype=np.int64) * n_periods + last] = True
+        is_latest = filled
+    else:
+        del filled
+
+    # Pass 2: prices first, into the buffer that will then hold the forecasts: the dense price
+    # matrix lives only until it is compressed (most series have one price throughout).
+    buffer, demand = dense_job.result()
+    del dense_job
+    price = None
+    missing_prices = 0
+    if has_price:
+        for chunk in source.chunks([schema.PRICE]):
+            values = chunk.columns[schema.PRICE]
+            # numpy converts an int32 index to intp on every use: convert once per chunk.
+            buffer[cell[chunk.start : chunk.start + chunk.size].astype(np.intp)] = values
+            missing_prices += int(np.count_nonzero(np.isnan(values)))
+        dense = buffer.reshape(n_series, n_periods)
+        if _fill_prices(dense).size:
+            raise FastPathDeclined("series without a price")
+        price = UnitPrices.from_dense(dense)
+        del dense
+        buffer.fill(np.nan)
+
+    # Pass 3: demand, forecast and attributes, scattered into their cells.
+    forecast = buffer
+    attribute_codes = {name: np.full(n_series, -1, dtype=np.int32) for name in source.attributes}
+
+    select = _rows_marked(is_latest, cell) if is_latest is not None else None
+    names = [schema.DEMAND, schema.FORECAST]
+    for chunk in source.chunks(names, sparse=source.attributes, select=select):
+        cells = cell[chunk.start : chunk.start + chunk.size].astype(np.intp)
+        demand[cells] = chunk.columns[schema.DEMAND]
+        forecast[cells] = chunk.columns[schema.FORECAST]
+        if chunk.selected is not None:
+            owners = cells[chunk.selected] // n_periods
+            for name, codes in attribute_codes.items():
+                codes[owners] = chunk.columns[name]
+    del cell, is_latest, select
+    demand_grid = demand.reshape(n_series, n_periods)
+    last_actual = _last_actual_column(demand_grid)
+    if last_actual < 0:
+        raise FastPathDeclined("no actual demand")
+
+    chosen = None
+    lags: tuple[int, ...] = ()
+    if has_lag:
+        lags = tuple(
+            sorted(
+                v
+                for v, first in lag_first_day.items()
+                if column_of_day[first - int(uniques[0])] <= last_actual
+            )
+        )
+        if len(lags) != 1 or (lag is not None and lag not in lags):
+            raise FastPathDeclined("lag choice")
+        chosen = lags[0]
+
+    notices = list(source.notices)
+    if missing_prices:
+        notices.append(_price_note(missing_prices))
+
+    keys = keys_unique
+    for name, codes in attribute_codes.items():
+        text_codes[name] = (np.array(source.values(name), dtype=object), codes)
+        keys[name] = _str_array(*text_codes[name])
+    return Portfolio(
+        path=source.path,
+        keys=keys,
+        key_columns=key_columns,
+        attributes=source.attributes,
+        calendar=calendar,
+        demand=demand_grid,
+        forecast=forecast.reshape(n_series, n_periods),
+        price=price,
+        last_actual=last_actual,
+        lag=chosen,
+        lags=lags,
+        rows=n_rows,
+        notices=tuple(notices),
+        _text_codes={k: (codes, _large_text(values)) for k, (values, codes) in text_codes.items()},
+    )
+
+
+# --- building blocks shared by both ways of building ---------------------------------------------
+
+#: Rows per block where a whole-column pass would otherwise allocate full-length temporaries.
+_ROWS = 1 << 20
+#: Series per block when a pass runs over the dense arrays.
+_SERIES = 1 << 15
+
+
+def _index_dtype(size: int) -> type[np.signedinteger]:
+    """int32 when every index below ``size`` fits, else int64."""
+    return np.int32 if size < np.iinfo(np.int32).max else np.int64
 
 
 def _codes(column: pd.Series) -> tuple[np.ndarray, np.ndarray]:
     """Sorted integer codes of a text column and the sorted unique values."""
     if isinstance(column.dtype, pd.CategoricalDtype):
-        categories = column.cat.categories.to_numpy(dtype=object)
-        order = np.argsort(categories.astype(str), kind="stable")
-        remap = np.empty(len(order), dtype=np.int64)
-        remap[order] = np.arange(len(order))
-        raw = column.cat.codes.to_numpy()
-        codes = remap[raw]
-        used = np.zeros(len(order), dtype=bool)
-        used[codes] = True
-        if not used.all():
-            # Drop categories no row uses so the series count is honest.
-            renumber = np.cumsum(used) - 1
-            return renumber[codes], categories[order][used]
-        return codes, categories[order]
+        raw = np.asarray(column.array.codes)
+        rank, values = _sorted_codes(raw, column.cat.categories.to_numpy(dtype=object))
+        return rank[raw], values
     codes, uniques = pd.factorize(column, sort=True)
-    return codes.astype(np.int64), np.asarray(uniques, dtype=object)
+    return codes.astype(_index_dtype(len(uniques)), copy=False), np.asarray(uniques, dtype=object)
 
 
-def _series_codes(frame: pd.DataFrame, key_columns: tuple[str, ...]) -> tuple[np.ndarray, pd.DataFrame]:
+def _sorted_codes(raw: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """How to renumber codes into ``values`` so that code order is sorted text order.
+
+    Args:
+        raw: Codes into ``values``, all >= 0.
+        values: Distinct values (object array), in any order; some may be unused.
+
+    Returns:
+        ``rank``, the new code of each old code (``rank[raw]`` renumbers), and the used values in
+        sorted order. Unused values are dropped, so that the series count is honest.
+    """
+    order = np.argsort(values.astype(str), kind="stable")
+    used = np.zeros(len(values), dtype=bool)
+    for lo in range(0, len(raw), _ROWS):
+        used[raw[lo : lo + _ROWS]] = True
+    rank = np.empty(len(values), dtype=_index_dtype(len(values)))
+    rank[order] = np.cumsum(used[order]) - 1
+    return rank, values[order][used[order]]
+
+
+def _series_codes(
+    frame: pd.DataFrame, key_columns: tuple[str, ...]
+) -> tuple[np.ndarray, pd.DataFrame]:
     """One integer per series, numbered in key order, and the table of unique keys."""
     item_codes, item_values = _codes(frame[schema.ITEM])
     if len(key_columns) == 1:
         return item_codes, pd.DataFrame({schema.ITEM: item_values})
     loc_codes, loc_values = _codes(frame[schema.LOCATION])
-    combined = item_codes * len(loc_values) + loc_codes
+    return _pair_codes(item_codes, item_values, loc_codes, loc_values)
+
+
+def _pair_codes(
+    item_codes: np.ndarray,
+    item_values: np.ndarray,
+    loc_codes: np.ndarray,
+    loc_values: np.ndarray,
+    out: np.ndarray | None = None,
+) -> tuple[np.ndarray, pd.DataFrame]:
+    """Series numbers of (item, location) pairs from sorted dense codes, in key order.
+
+    ``out`` (may be ``item_codes`` itself) receives the numbers when its type can hold every pair.
+    """
+    n_loc = len(loc_values)
+    size = len(item_values) * n_loc
+    dtype = _index_dtype(size)
     # Both codes are dense and sorted, so the pairs in use number themselves in key order.
-    used = np.zeros(len(item_values) * len(loc_values), dtype=bool)
-    used[combined] = True
-    pairs = np.flatnonzero(used)
-    renumber = np.cumsum(used, dtype=np.int64) - 1
-    series = renumber[combined]
-    keys = pd.DataFrame(
-        {
-            schema.ITEM: item_values[pairs // len(loc_values)],
-            schema.LOCATION: loc_values[pairs % len(loc_values)],
-        }
+    used = np.zeros(size, dtype=bool)
+    series = (
+        out if out is not None and out.dtype == dtype else np.empty(len(item_codes), dtype=dtype)
     )
-    return series.astype(np.int64), keys
+    for lo in range(0, len(item_codes), _ROWS):
+        block = item_codes[lo : lo + _ROWS].astype(dtype) * n_loc
+        block += loc_codes[lo : lo + _ROWS]
+        used[block] = True
+        series[lo : lo + _ROWS] = block
+    pairs = np.flatnonzero(used)
+    renumber = np.cumsum(used, dtype=_index_dtype(len(pairs))) - 1
+    del used
+    for lo in range(0, len(series), _ROWS):
+        series[lo : lo + _ROWS] = renumber[series[lo : lo + _ROWS]]
+    keys = pd.DataFrame(
+        {schema.ITEM: item_values[pairs // n_loc], schema.LOCATION: loc_values[pairs % n_loc]}
+    )
+    return series.astype(_index_dtype(len(pairs)), copy=False), keys
 
 
 def _calendar_codes(loaded: LoadedLike) -> tuple[Calendar, np.ndarray]:
     """Infer a weekly or monthly calendar and number every row's period on it."""
-    stamps = pd.DatetimeIndex(loaded.frame[schema.PERIOD])
-    uniques = stamps.unique().sort_values()
+    column = loaded.frame[schema.PERIOD]
+    stamps = column.to_numpy(dtype="datetime64[ns]").view(np.int64)
+    inverse, uniques = _unique_stamps(stamps)
+    found = _calendar_from_uniques(uniques)
+    if found is None:
+        _irregular_calendar(loaded, pd.DatetimeIndex(column), uniques)
+    calendar, unique_codes = found
+    codes = np.empty(len(inverse), dtype=_index_dtype(len(calendar.periods)))
+    for lo in range(0, len(inverse), _ROWS):
+        codes[lo : lo + _ROWS] = unique_codes[inverse[lo : lo + _ROWS]]
+    return calendar, codes
+
+
+def _unique_stamps(stamps: np.ndarray) -> tuple[np.ndarray, pd.DatetimeIndex]:
+    """Index of each row's stamp among the sorted distinct stamps, and those stamps.
+
+    Periods are whole days a few years apart at most, so the distinct ones come from counting
+    day offsets (no sort, no hash over the rows); anything else goes through ``pd.factorize``.
+    """
+    low, high = int(stamps.min()), int(stamps.max())
+    span = (high - low) // DAY_NS
+    if span < 1 << 20:
+        offsets = np.empty(len(stamps), dtype=np.int32)
+        exact = True
+        for lo in range(0, len(stamps), _ROWS):
+            whole, rest = np.divmod(stamps[lo : lo + _ROWS] - low, DAY_NS)
+            exact = exact and not rest.any()
+            offsets[lo : lo + _ROWS] = whole
+        if exact:
+            present = np.flatnonzero(np.bincount(offsets, minlength=span + 1))
+            lookup = np.zeros(span + 1, dtype=np.int32)
+            lookup[present] = np.arange(len(present), dtype=np.int32)
+            for lo in range(0, len(offsets), _ROWS):
+                offsets[lo : lo + _ROWS] = lookup[offsets[lo : lo + _ROWS]]
+            days = low + present.astype(np.int64) * DAY_NS
+            return offsets, pd.DatetimeIndex(days.view("datetime64[ns]"))
+    inverse, uniques = pd.factorize(stamps, sort=True)
+    return inverse, pd.DatetimeIndex(uniques.astype("datetime64[ns]"))
+
+
+def _calendar_from_uniques(uniques: pd.DatetimeIndex) -> tuple[Calendar, np.ndarray] | None:
+    """The calendar of the sorted distinct periods and each one's column; None when irregular."""
     first = uniques[0]
     if len(uniques) == 1:
         freq = schema.MONTHLY if first.day == 1 else schema.WEEKLY
+    elif (uniques.day == 1).all():
+        # Month starts first: February to March is 28 days, a multiple of 7.
+        freq = schema.MONTHLY
+    elif (np.diff(uniques.to_numpy().astype("datetime64[D]").astype(np.int64)) % 7 == 0).all():
+        freq = schema.WEEKLY
     else:
-        freq = _infer_freq(loaded, stamps, uniques)
+        return None
     if freq == schema.WEEKLY:
-        days = (stamps - first).days.to_numpy()
-        codes = days // 7
-        periods = pd.date_range(first, periods=int(codes.max()) + 1, freq="7D")
+        codes = (uniques.asi8 - first.value) // (7 * DAY_NS)
+        periods = pd.date_range(first, periods=int(codes[-1]) + 1, freq="7D")
     else:
-        months = (stamps.year.to_numpy() - first.year) * 12 + (stamps.month.to_numpy() - first.month)
-        codes = months
-        periods = pd.date_range(first, periods=int(codes.max()) + 1, freq="MS")
+        codes = (uniques.year.to_numpy() - first.year) * 12 + (
+            uniques.month.to_numpy() - first.month
+        )
+        periods = pd.date_range(first, periods=int(codes[-1]) + 1, freq="MS")
     return Calendar(freq=freq, periods=periods), codes.astype(np.int64)
 
 
-def _infer_freq(loaded: LoadedLike, stamps: pd.DatetimeIndex, uniques: pd.DatetimeIndex) -> str:
-    """Weekly when every period is the same weekday, monthly when every period is a month start."""
+def _irregular_calendar(
+    loaded: LoadedLike, stamps: pd.DatetimeIndex, uniques: pd.DatetimeIndex
+) -> NoReturn:
+    """Report the periods that break the most common pattern (irregular calendars only)."""
     path = loaded.path
-    day_gaps = np.diff(uniques.to_numpy().astype("datetime64[D]").astype(np.int64))
-    # Month starts first: February to March is 28 days, a multiple of 7.
-    if (uniques.day == 1).all():
-        return schema.MONTHLY
-    if (day_gaps % 7 == 0).all():
-        return schema.WEEKLY
-    # Neither: report the periods that break the most common pattern.
     weekday = pd.Series(uniques.day_of_week).mode().iloc[0]
     if (uniques.day == 1).mean() > 0.5:
         bad = stamps.day != 1
@@ -302,33 +805,92 @@ def _infer_freq(loaded: LoadedLike, stamps: pd.DatetimeIndex, uniques: pd.Dateti
         expected = f"a {name} (weekly periods, 7 days apart)"
     positions = np.flatnonzero(np.asarray(bad))
     examples = ", ".join(
-        f"{stamps[i].strftime('%Y-%m-%d')} (row {loaded.rows([i])[0]})" for i in positions[:EXAMPLES]
+        f"{stamps[i].strftime('%Y-%m-%d')} (row {loaded.rows([i])[0]})"
+        for i in positions[:EXAMPLES]
     )
     raise LoadError(
         path,
-        f"irregular calendar in column '{schema.PERIOD}': {len(positions)} rows are not on {expected}, "
-        f"e.g. {examples}.",
+        f"irregular calendar in column '{schema.PERIOD}': {len(positions)} rows are not on "
+        f"{expected}, e.g. {examples}.",
         hint="Use one period per week (all the same weekday) or per month (the 1st, or YYYY-MM).",
     )
+
+
+def _last_actual(period: np.ndarray, demand: np.ndarray) -> int:
+    """Largest period code of a row with actual demand, -1 when there is none."""
+    best = -1
+    for lo in range(0, len(period), _ROWS):
+        codes = period[lo : lo + _ROWS][~np.isnan(demand[lo : lo + _ROWS])]
+        if codes.size:
+            best = max(best, int(codes.max()))
+    return best
+
+
+def _history_lags(lag: np.ndarray, period: np.ndarray, last_actual: int) -> tuple[int, ...]:
+    """Every lag found on a history row (period up to the latest actual one)."""
+    found: set[int] = set()
+    for lo in range(0, len(lag), _ROWS):
+        found.update(
+            _small_unique(lag[lo : lo + _ROWS][period[lo : lo + _ROWS] <= last_actual])[0].tolist()
+        )
+    return tuple(sorted(int(v) for v in found))
+
+
+def _small_unique(values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Sorted distinct integers and each value's index among them (``np.unique`` semantics).
+
+    Lags are small whole numbers: counting them is one pass, where sorting the rows is many.
+    """
+    if values.size and values.min() >= 0 and values.max() < 1 << 16:
+        present = np.flatnonzero(np.bincount(values))
+        lookup = np.zeros(int(present[-1]) + 1, dtype=np.int32)
+        lookup[present] = np.arange(len(present), dtype=np.int32)
+        return present.astype(values.dtype), lookup[values]
+    uniques, inverse = np.unique(values, return_inverse=True)
+    return uniques, inverse
+
+
+def _cells(series: np.ndarray, period: np.ndarray, n_periods: int) -> np.ndarray:
+    """Flat index of each row's (series, period) cell in a series x periods array."""
+    size = (int(series.max()) + 1) * n_periods if len(series) else 0
+    cell = series.astype(_index_dtype(size))  # a copy: the series codes stay as they are
+    cell *= n_periods
+    cell += period
+    return cell
 
 
 def _check_duplicates(
     loaded: LoadedLike,
     series: np.ndarray,
     period: np.ndarray,
-    lag: np.ndarray,
+    lag: np.ndarray | None,
     key_columns: tuple[str, ...],
     n_series: int,
     n_periods: int,
 ) -> None:
     """Refuse two rows for one (series, period, lag): they are never averaged or summed silently."""
-    lag_values, lag_index = np.unique(lag, return_inverse=True)
-    cell = (series.astype(np.int64) * n_periods + period) * len(lag_values) + lag_index
-    seen = np.zeros(n_series * n_periods * len(lag_values), dtype=bool)
-    seen[cell] = True
-    if int(seen.sum()) == len(cell):
+    if lag is None:
+        n_lags, lag_index = 1, None
+    else:
+        lag_values, lag_index = _small_unique(lag)
+        n_lags = len(lag_values)
+    size = n_series * n_periods * n_lags
+    dtype = _index_dtype(size)
+    seen = np.zeros(size, dtype=bool)
+    for lo in range(0, len(series), _ROWS):
+        block = series[lo : lo + _ROWS].astype(dtype) * n_periods
+        block += period[lo : lo + _ROWS]
+        if lag_index is not None:
+            block *= n_lags
+            block += lag_index[lo : lo + _ROWS]
+        seen[block] = True
+    if np.count_nonzero(seen) == len(series):
         return
+    del seen
     # Error path only: find the duplicated cells and show a few with their rows.
+    cell = (series.astype(np.int64) * n_periods + period) * n_lags + (
+        0 if lag_index is None else lag_index
+    )
     order = np.argsort(cell, kind="stable")
     sorted_cells = cell[order]
     same = np.flatnonzero(sorted_cells[1:] == sorted_cells[:-1])
@@ -342,7 +904,9 @@ def _check_duplicates(
         stamp = pd.Timestamp(row[schema.PERIOD]).strftime("%Y-%m-%d")
         lag_note = f", lag {int(row[schema.LAG])}" if schema.LAG in frame.columns else ""
         demands = ", ".join(_fmt(v) for v in frame[schema.DEMAND].to_numpy()[positions])
-        examples.append(f"{key} / {stamp}{lag_note} at {format_rows(loaded.rows(positions))} (demand {demands})")
+        examples.append(
+            f"{key} / {stamp}{lag_note} at {format_rows(loaded.rows(positions))} (demand {demands})"
+        )
     what = "(series, period, lag)" if schema.LAG in frame.columns else "(series, period)"
     raise LoadError(
         loaded.path,
@@ -379,7 +943,7 @@ def _merge_other_lag_demand(
     demand_col: np.ndarray,
     history: np.ndarray,
 ) -> None:
-    """Refuse history rows whose actuals disagree across lags; fill actuals only other lags carry."""
+    """Refuse history rows whose actuals disagree across lags; fill in actuals only others carry."""
     positions = np.flatnonzero(history & ~np.isnan(demand_col))
     order = positions[np.argsort(cell[positions], kind="stable")]
     cells = cell[order]
@@ -400,56 +964,148 @@ def _merge_other_lag_demand(
     demand[cell[heads[missing]]] = demand_col[heads[missing]]
 
 
-def _price_matrix(
-    loaded: LoadedLike,
-    series: np.ndarray,
-    cell: np.ndarray,
-    keys_unique: pd.DataFrame,
-    key_columns: tuple[str, ...],
-    n_series: int,
-    n_periods: int,
-) -> tuple[np.ndarray, str | None]:
-    """Unit value per series and period; gaps take the series' nearest earlier (else later) price."""
-    price_col = loaded.frame[schema.PRICE].to_numpy(dtype=np.float64)
-    given = ~np.isnan(price_col)
-    has_any = np.zeros(n_series, dtype=bool)
-    has_any[series[given]] = True
-    if not has_any.all():
-        missing = np.flatnonzero(~has_any)
-        names = ", ".join(
-            " @ ".join(str(keys_unique.iloc[i][c]) for c in key_columns) for i in missing[:EXAMPLES]
-        )
-        raise LoadError(
-            loaded.path,
-            f"{len(missing)} series have no price on any row (e.g. {names}), "
-            "so their error cannot be valued.",
-            hint="Give every series a price, or leave out the price column to rank in units.",
-        )
-    price = np.full(n_series * n_periods, np.nan)
-    price[cell[given]] = price_col[given]
-    price = price.reshape(n_series, n_periods)
-    _fill_along_rows(price)
-    note = None
-    filled_rows = int((~given).sum())
-    if filled_rows:
-        note = (
-            f"{filled_rows} rows have no price; each takes its series' nearest earlier price "
-            "(or the first later one)."
-        )
-    return price, note
+def _scatter_prices(price: np.ndarray, cell: np.ndarray, price_col: np.ndarray) -> int:
+    """Write the given prices into their flat cells; return how many rows have none.
+
+    Where several rows share a cell (one per lag), the last given price is kept.
+    """
+    missing = 0
+    for lo in range(0, len(cell), _ROWS):
+        values = price_col[lo : lo + _ROWS]
+        given = ~np.isnan(values)
+        if given.all():
+            price[cell[lo : lo + _ROWS]] = values
+        else:
+            missing += len(values) - int(np.count_nonzero(given))
+            price[cell[lo : lo + _ROWS][given]] = values[given]
+    return missing
 
 
-def _fill_along_rows(values: np.ndarray) -> None:
-    """Forward-fill NaN along each row in place, then back-fill what is left at the start."""
-    n_rows, n_cols = values.shape
-    idx = np.where(np.isnan(values), 0, np.arange(n_cols))
-    np.maximum.accumulate(idx, axis=1, out=idx)
-    values[:] = values[np.arange(n_rows)[:, None], idx]
-    first_valid = np.argmax(~np.isnan(values), axis=1)
-    lead = np.isnan(values)
-    if lead.any():
-        fill = values[np.arange(n_rows), first_valid]
-        values[lead] = np.broadcast_to(fill[:, None], values.shape)[lead]
+def _refuse_unpriced(
+    path: Path, missing: np.ndarray, keys_unique: pd.DataFrame, key_columns: tuple[str, ...]
+) -> None:
+    """A priced file must price every series somewhere: its error cannot be valued otherwise."""
+    if not missing.size:
+        return
+    names = ", ".join(
+        " @ ".join(str(keys_unique.iloc[i][c]) for c in key_columns) for i in missing[:EXAMPLES]
+    )
+    raise LoadError(
+        path,
+        f"{len(missing)} series have no price on any row (e.g. {names}), "
+        "so their error cannot be valued.",
+        hint="Give every series a price, or leave out the price column to rank in units.",
+    )
+
+
+def _price_note(missing_rows: int) -> str:
+    return (
+        f"{missing_rows} rows have no price; each takes its series' nearest earlier price "
+        "(or the first later one)."
+    )
+
+
+def _fill_prices(price: np.ndarray) -> np.ndarray:
+    """Fill each series' price gaps in place; return the series that have no price at all.
+
+    A gap takes the series' nearest earlier price, else its first later one. Only the rows with
+    gaps are touched (most series are priced in every period).
+    """
+    n_cols = price.shape[1]
+    columns = np.arange(n_cols)
+    unpriced = []
+    for lo in range(0, price.shape[0], _SERIES):
+        block = price[lo : lo + _SERIES]
+        gaps = np.isnan(block)
+        rows = np.flatnonzero(gaps.any(axis=1))
+        if not rows.size:
+            continue
+        none = gaps[rows].all(axis=1)
+        unpriced.append(rows[none] + lo)
+        rows = rows[~none]
+        sub, holes = block[rows], gaps[rows]
+        idx = np.where(holes, 0, columns)
+        np.maximum.accumulate(idx, axis=1, out=idx)
+        sub = sub[np.arange(len(rows))[:, None], idx]
+        lead = np.isnan(sub)
+        if lead.any():
+            first = sub[np.arange(len(rows)), np.argmax(~lead, axis=1)]
+            sub[lead] = np.broadcast_to(first[:, None], sub.shape)[lead]
+        block[rows] = sub
+    return np.concatenate(unpriced) if unpriced else np.empty(0, dtype=np.int64)
+
+
+def _latest_rows(
+    series: np.ndarray, period: np.ndarray, n_series: int, n_periods: int, *, unique_cells: bool
+) -> np.ndarray:
+    """Each series' row with the latest period; among equal periods the later file row."""
+    if unique_cells:
+        # One row per cell: the latest period is the last filled cell of each series' row.
+        filled = np.zeros(n_series * n_periods, dtype=bool)
+        for lo in range(0, len(series), _ROWS):
+            filled[_cells(series[lo : lo + _ROWS], period[lo : lo + _ROWS], n_periods)] = True
+        latest = _last_filled(filled.reshape(n_series, n_periods)).astype(period.dtype)
+        del filled
+    else:
+        latest = np.full(n_series, -1, dtype=period.dtype)
+        np.maximum.at(latest, series, period)
+    rows = np.full(n_series, -1, dtype=np.int64)
+    for lo in range(0, len(series), _ROWS):
+        block = series[lo : lo + _ROWS]
+        hit = np.flatnonzero(period[lo : lo + _ROWS] == latest[block])
+        # The maximum is taken explicitly rather than left to the order in which numpy applies
+        # repeated indices.
+        np.maximum.at(rows, block[hit], hit + lo)
+    return rows
+
+
+def _rows_marked(marked: np.ndarray, cell: np.ndarray) -> Callable[[int, int], np.ndarray]:
+    """For ``ParquetSource.chunks``: positions, in a row group, of the rows whose cell is marked."""
+
+    def select(start: int, size: int) -> np.ndarray:
+        return np.flatnonzero(marked[cell[start : start + size]])
+
+    return select
+
+
+def _str_array(values: np.ndarray, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
+    """``values[codes]`` as pandas' ``str`` column, taken in Arrow (no Python string per row)."""
+    import pyarrow as pa
+
+    taken = _large_text(values).take(pa.array(codes))
+    return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+
+
+def _large_text(values: np.ndarray) -> Any:
+    import pyarrow as pa
+
+    return pa.array(values, type=pa.large_string())
+
+
+def _text_rank(values: np.ndarray) -> np.ndarray:
+    """Position of each value in sorted text order (ties keep their order)."""
+    rank = np.empty(len(values), dtype=np.int64)
+    rank[np.argsort(values.astype(str), kind="stable")] = np.arange(len(values))
+    return rank
+
+
+def _last_actual_column(demand: np.ndarray) -> int:
+    """Latest column of a series x periods array holding any actual demand, -1 if none."""
+    any_actual = np.zeros(demand.shape[1], dtype=bool)
+    for lo in range(0, demand.shape[0], _SERIES):
+        any_actual |= ~np.isnan(demand[lo : lo + _SERIES]).all(axis=0)
+    found = np.flatnonzero(any_actual)
+    return int(found[-1]) if found.size else -1
+
+
+def _last_filled(grid: np.ndarray) -> np.ndarray:
+    """Column of the last True in every row of a boolean matrix (every row has one)."""
+    out = np.empty(grid.shape[0], dtype=np.int64)
+    for lo in range(0, grid.shape[0], _SERIES):
+        out[lo : lo + _SERIES] = (
+            grid.shape[1] - 1 - np.argmax(grid[lo : lo + _SERIES, ::-1], axis=1)
+        )
+    return out
 
 
 def _series_table(
@@ -457,26 +1113,19 @@ def _series_table(
     keys_unique: pd.DataFrame,
     key_columns: tuple[str, ...],
     attributes: tuple[str, ...],
-    series: np.ndarray,
-    period: np.ndarray,
+    rows: np.ndarray | None,
 ) -> pd.DataFrame:
-    """Keys plus each series' attributes, taken from its row with the latest period."""
+    """Keys plus each series' attributes, taken from the rows ``rows`` (one per series)."""
     keys = keys_unique.copy()
-    if attributes:
-        # Latest period wins; among equal periods the later file row.
-        score = period.astype(np.int64) * len(frame) + np.arange(len(frame))
-        best = np.full(len(keys), -1, dtype=np.int64)
-        np.maximum.at(best, series, score)
-        rows = best % len(frame)
-        for name in attributes:
-            column = frame[name]
-            if isinstance(column.dtype, pd.CategoricalDtype):
-                # Take codes, not values: never materialise the whole column as objects.
-                codes = column.cat.codes.to_numpy()[rows]
-                values = column.cat.categories.to_numpy(dtype=object)[codes]
-            else:
-                values = column.take(rows).to_numpy(dtype=object)
-            keys[name] = np.asarray(values).astype(str)
+    for name in attributes:
+        column = frame[name]
+        if isinstance(column.dtype, pd.CategoricalDtype):
+            # Take codes, not values: never materialise the whole column as objects.
+            codes = np.asarray(column.array.codes)[rows]
+            values = column.cat.categories.to_numpy(dtype=object)[codes]
+        else:
+            values = column.take(rows).to_numpy(dtype=object)
+        keys[name] = np.asarray(values).astype(str)
     for name in key_columns:
         keys[name] = keys[name].astype(str)
     return keys

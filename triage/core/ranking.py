@@ -8,7 +8,9 @@ reward forecasts that are too low.
 
 from __future__ import annotations
 
+import concurrent.futures
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 import pandas as pd
@@ -61,65 +63,100 @@ def scorecard(
     if season < 1:
         raise ValueError("season must be at least 1")
     cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+    # The window is nearly always a run of adjacent columns: slice it (views, no copies).
+    picked = _as_slice(cols)
     history = portfolio.demand[:, : portfolio.last_actual + 1]
-    price_w = portfolio.price[:, cols] if portfolio.price is not None else None
-    wm = metrics.window_measures(portfolio.demand[:, cols], portfolio.forecast[:, cols], price_w)
+    # The history scans run on a worker thread while this one does the window measures, the
+    # ranking and the gathering of every other column (numpy releases the GIL in its loops).
+    with concurrent.futures.ThreadPoolExecutor(max_workers=2) as pool:
+        history_job = pool.submit(metrics.history_measures, history, season)
+        fva_job = pool.submit(
+            metrics.naive_value_added, portfolio.demand, portfolio.forecast, cols, season
+        )
+        price_w = portfolio.price[:, picked] if portfolio.price is not None else None
+        wm = metrics.window_measures(
+            portfolio.demand[:, picked], portfolio.forecast[:, picked], price_w
+        )
+        del price_w
 
-    priced = wm.abs_error_value is not None
-    error = wm.abs_error_value if priced else wm.abs_error
-    bias_size = np.abs(wm.bias_value if priced else wm.bias)
-    flag = wm.bias_flag
+        priced = wm.abs_error_value is not None
+        error: np.ndarray = wm.abs_error_value if priced else wm.abs_error  # type: ignore[assignment]
+        bias_size = np.abs(wm.bias_value if wm.bias_value is not None else wm.bias)
+        flag = wm.bias_flag
 
-    error_order = np.argsort(-error, kind="stable")
-    rank = np.empty(len(error), dtype=np.int64)
-    rank[error_order] = np.arange(1, len(error) + 1)
-    bias_order = np.lexsort((np.arange(len(error)), -bias_size, flag == 0))
-    bias_rank = np.empty(len(error), dtype=np.int64)
-    bias_rank[bias_order] = np.arange(1, len(error) + 1)
+        n = len(error)
+        error_order = np.argsort(-error, kind="stable")
+        rank = np.empty(n, dtype=np.int64)
+        rank[error_order] = np.arange(1, n + 1)
+        # Flagged series first, then by absolute bias, ties by key: one stable sort and a stable
+        # split (np.lexsort on three keys sorts three times).
+        by_size = np.argsort(-bias_size, kind="stable")
+        flagged = flag[by_size] != 0
+        bias_order = np.concatenate([by_size[flagged], by_size[~flagged]])
+        bias_rank = np.empty(n, dtype=np.int64)
+        bias_rank[bias_order] = np.arange(1, n + 1)
 
-    total = float(error.sum())
-    share = error / total if total > 0 else np.full(len(error), np.nan)
-    cum = np.empty(len(error))
-    cum[error_order] = np.cumsum(share[error_order])
+        total = float(error.sum())
+        share = error / total if total > 0 else np.full(n, np.nan)
+        cum = np.empty(n)
+        cum[error_order] = np.cumsum(share[error_order])
+        mae = wm.mae
+        order = error_order if by == BY_ERROR else bias_order
 
-    scale = metrics.naive_scale(history, season)
-    mae = wm.mae
-    pattern = metrics.demand_pattern(history)
+        # Every column is built once, already in review order (no frame-wide reordering copy).
+        data: dict[str, object] = {
+            c: portfolio.text_column(c, order) for c in portfolio.key_columns
+        }
+        columns: dict[str, Any] = {
+            "rank": rank,
+            "bias_rank": bias_rank,
+            "periods": wm.periods,
+            "demand": wm.demand,
+            "forecast": wm.forecast,
+            "abs_error": wm.abs_error,
+            "bias": wm.bias,
+            "bias_pct": wm.bias_pct,
+            "wape": wm.wape,
+            "mae": mae,
+            "rmse": wm.rmse,
+        }
+        if priced:
+            columns.update(abs_error_value=wm.abs_error_value, bias_value=wm.bias_value)
+        columns.update(
+            error_share=share,
+            cum_share=cum,
+            tracking_signal=wm.tracking_signal,
+            bias_run=wm.bias_run,
+            bias_pvalue=wm.bias_pvalue,
+        )
+        for name, values in columns.items():
+            data[name] = values[order]
+        data["bias_flag"] = _labels(("under", "", "over"), (flag + 1)[order])
+        later = {name: portfolio.text_column(name, order) for name in portfolio.attributes}
+        (scale, pattern), fva = history_job.result(), fva_job.result()
 
-    data: dict[str, object] = {c: portfolio.keys[c].to_numpy() for c in portfolio.key_columns}
-    data.update(
-        rank=rank,
-        bias_rank=bias_rank,
-        periods=wm.periods,
-        demand=wm.demand,
-        forecast=wm.forecast,
-        abs_error=wm.abs_error,
-        bias=wm.bias,
-        bias_pct=wm.bias_pct,
-        wape=wm.wape,
-        mae=mae,
-        rmse=wm.rmse,
-    )
-    if priced:
-        data.update(abs_error_value=wm.abs_error_value, bias_value=wm.bias_value)
-    data.update(
-        error_share=share,
-        cum_share=cum,
-        tracking_signal=wm.tracking_signal,
-        bias_run=wm.bias_run,
-        bias_pvalue=wm.bias_pvalue,
-        bias_flag=np.array(["under", "", "over"], dtype=object)[flag + 1],
-        mase=metrics._ratio(mae, scale),
-        fva=metrics.naive_value_added(portfolio.demand, portfolio.forecast, cols, season),
-        pattern=np.array(metrics.PATTERNS, dtype=object)[pattern.pattern],
-        adi=pattern.adi,
-        cv2=pattern.cv2,
-    )
-    for name in portfolio.attributes:
-        data[name] = portfolio.keys[name].to_numpy()
-    card = pd.DataFrame(data)
-    order = error_order if by == BY_ERROR else bias_order
-    return card.iloc[order]
+    data["mase"] = metrics._ratio(mae, scale)[order]
+    data["fva"] = fva[order]
+    data["pattern"] = _labels(metrics.PATTERNS, pattern.pattern[order])
+    data["adi"] = pattern.adi[order]
+    data["cv2"] = pattern.cv2[order]
+    data.update(later)
+    return pd.DataFrame(data, index=pd.Index(order), copy=False)
+
+
+def _as_slice(cols: np.ndarray) -> slice | np.ndarray:
+    """``cols`` as a slice when its columns are adjacent and ascending, else unchanged."""
+    if len(cols) and int(cols[-1]) - int(cols[0]) == len(cols) - 1:
+        return slice(int(cols[0]), int(cols[-1]) + 1)
+    return cols
+
+
+def _labels(names: tuple[str, ...], codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
+    """Text labels by code, as the ``str`` column pandas would make of them (no per-row objects)."""
+    import pyarrow as pa
+
+    labels = pa.array(list(names), type=pa.large_string()).take(pa.array(codes))
+    return pd.array(labels, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
 
 def leading_cover(card: pd.DataFrame, cover: float) -> pd.DataFrame:
