@@ -3,7 +3,15 @@
 from __future__ import annotations
 
 import argparse
+import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
+
+from triage.core.errors import TriageError
+
+if TYPE_CHECKING:
+    from triage.core.config import Config
+    from triage.core.ledger import Ledger
 
 
 def portfolio_args(parser: argparse.ArgumentParser) -> None:
@@ -26,3 +34,25 @@ def score_args(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--season", type=int, default=1, help="seasonal period of the naive baseline (default 1)"
     )
+
+
+def check_score_args(args: argparse.Namespace) -> None:
+    """Refuse a window or season below 1 with the option's name."""
+    if args.window < 1:
+        raise TriageError(f"--window must be at least 1, not {args.window}.")
+    if args.season < 1:
+        raise TriageError(f"--season must be at least 1, not {args.season}.")
+
+
+def open_ledger_read_only(path: Path, config: Config) -> Ledger:
+    """Open a ledger for reading, with the configured root causes."""
+    from triage.core.ledger import Ledger
+
+    return Ledger.open(path, read_only=True, root_causes=config.root_causes)
+
+
+def warn(message: str) -> None:
+    """A warning on standard error, control characters shown as visible symbols."""
+    from triage.core.text import visible
+
+    print(f"triage: warning: {visible(message, multiline=True)}", file=sys.stderr)

@@ -12,7 +12,7 @@ from collections.abc import Sequence
 from pathlib import Path
 
 from triage import __version__
-from triage.arguments import portfolio_args, score_args
+from triage.arguments import check_score_args, portfolio_args, score_args
 from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
@@ -106,18 +106,11 @@ def _load(args: argparse.Namespace):  # noqa: ANN202 - Portfolio, imported lazil
     return read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
 
 
-def _check_score_args(args: argparse.Namespace) -> None:
-    if args.window < 1:
-        raise TriageError(f"--window must be at least 1, not {args.window}.")
-    if args.season < 1:
-        raise TriageError(f"--season must be at least 1, not {args.season}.")
-
-
 def _cmd_rank(args: argparse.Namespace) -> int:
     from triage.core import output as report
     from triage.core.ranking import leading_cover, scorecard
 
-    _check_score_args(args)
+    check_score_args(args)
     if args.top is not None and args.top < 1:
         raise TriageError(f"--top must be at least 1, not {args.top}.")
     if args.cover is not None and not 0 < args.cover <= 1:
@@ -145,7 +138,7 @@ def _cmd_rank(args: argparse.Namespace) -> int:
 def _cmd_check(args: argparse.Namespace) -> int:
     from triage.core import output as report
 
-    _check_score_args(args)
+    check_score_args(args)
     portfolio = _load(args)
     print(report.check_text(portfolio, args.window, args.season))
     return 0
@@ -176,7 +169,7 @@ def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | No
 
 
 def _cmd_review(args: argparse.Namespace) -> int:
-    _check_score_args(args)
+    check_score_args(args)
     if not args.portfolio.exists():
         raise TriageError(f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file.")
     from triage.tui.app import TriageApp

@@ -17,12 +17,12 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from triage.arguments import portfolio_args
+from triage.arguments import open_ledger_read_only, portfolio_args, warn
 from triage.core.errors import TriageError
 
 if TYPE_CHECKING:
     from triage.core.config import Config
-    from triage.core.ledger import Event, Ledger
+    from triage.core.ledger import Event
 
 #: The first bytes of every SQLite 3 database file (sqlite.org/fileformat.html, §1.3.1).
 SQLITE_MAGIC = b"SQLite format 3\x00"
@@ -153,20 +153,12 @@ def _ledger_of_portfolio(portfolio: Path) -> Path:
             hint="Pass --ledger PATH if the decisions are kept in another file.",
         )
     if notice:
-        _warn(notice)
+        warn(notice)
     return path
 
 
-def _open_ledger(path: Path, config: Config) -> Ledger:
-    from triage.core.ledger import Ledger
-
-    return Ledger.open(path, read_only=True, root_causes=config.root_causes)
 
 
-def _warn(message: str) -> None:
-    from triage.core.export import printable
-
-    print(f"triage: warning: {printable(message, one_line=False)}", file=sys.stderr)
 
 
 # --------------------------------------------------------------------------------------------
@@ -191,7 +183,7 @@ def cmd_history(args: argparse.Namespace) -> int:
     else:
         ledger_path = _ledger_of_portfolio(source)
 
-    with _open_ledger(ledger_path, config) as ledger:
+    with open_ledger_read_only(ledger_path, config) as ledger:
         events = ledger.history(cycle=cycle, item=args.item, location=args.location)
         causes = {c.code: c.label for c in ledger.root_causes}
         if args.format == "json":
@@ -350,7 +342,7 @@ def cmd_export(args: argparse.Namespace) -> int:
         ledger_path = _ledger_of_portfolio(args.portfolio)
     columns = parse_column_map(args.columns) if args.columns else None
     portfolio = read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
-    with _open_ledger(ledger_path, config) as ledger:
+    with open_ledger_read_only(ledger_path, config) as ledger:
         result = export_review(
             portfolio,
             ledger,
@@ -367,6 +359,6 @@ def cmd_export(args: argparse.Namespace) -> int:
     for path in result.paths:
         print(f"  wrote {printable(str(path))}")
     for warning in result.warnings:
-        _warn(warning)
+        warn(warning)
     print(f"Caution: {CAUTION}")
     return 0

@@ -18,13 +18,13 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
+from triage.arguments import check_score_args, open_ledger_read_only, warn
 from triage.core.errors import TriageError
 
 if TYPE_CHECKING:
     import pandas as pd
 
     from triage.core.config import Config
-    from triage.core.ledger import Ledger
     from triage.core.portfolio import Portfolio
 
 #: ``--by`` choices of ``triage overrides`` and the grouping each one asks ``summarise`` for.
@@ -194,23 +194,12 @@ def _ledger_path(args: argparse.Namespace, *, required: bool) -> Path | None:
         return None
 
 
-def _open_ledger(path: Path, config: Config) -> Ledger:
-    from triage.core.ledger import Ledger
-
-    return Ledger.open(path, read_only=True, root_causes=config.root_causes)
 
 
-def _warn(message: str) -> None:
-    from triage.core.export import printable
-
-    print(f"triage: warning: {printable(message, one_line=False)}", file=sys.stderr)
 
 
 def _check_scoring(args: argparse.Namespace) -> None:
-    if args.window < 1:
-        raise TriageError(f"--window must be at least 1, not {args.window}.")
-    if args.season < 1:
-        raise TriageError(f"--season must be at least 1, not {args.season}.")
+    check_score_args(args)
     if args.cover is not None and not 0 < args.cover <= 1:
         raise TriageError(f"--cover must be a fraction in (0, 1], e.g. 0.8, not {args.cover}.")
 
@@ -238,7 +227,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     portfolio = _load(args)
     target_share = args.cover if args.cover is not None else config.target_share
     if ledger_path is None:
-        _warn(
+        warn(
             f"No decisions have been recorded for {portfolio.path.name}; the report has no "
             "decisions or overrides. Pass --ledger PATH if they are kept elsewhere."
         )
@@ -254,9 +243,9 @@ def cmd_report(args: argparse.Namespace) -> int:
             top=args.top,
         )
     else:
-        with _open_ledger(ledger_path, config) as ledger:
+        with open_ledger_read_only(ledger_path, config) as ledger:
             if ledger.notice:
-                _warn(ledger.notice)
+                warn(ledger.notice)
             result = write_report(
                 portfolio,
                 ledger,
@@ -321,7 +310,7 @@ def cmd_overrides(args: argparse.Namespace) -> int:
     ledger_path = _ledger_path(args, required=True)
     assert ledger_path is not None
     portfolio = _load(args)
-    with _open_ledger(ledger_path, config) as ledger:
+    with open_ledger_read_only(ledger_path, config) as ledger:
         realised = history.realised_value(portfolio, ledger)
         status = history.line_status(portfolio, ledger)
         causes = {c.code: c.label for c in ledger.root_causes}
