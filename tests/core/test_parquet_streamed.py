@@ -10,6 +10,7 @@ agree on a wrong layout. Files are invented (a garden-supply wholesaler).
 
 from __future__ import annotations
 
+import dataclasses
 import datetime as dt
 from pathlib import Path
 
@@ -24,6 +25,7 @@ from triage.core import schema
 from triage.core.errors import LoadError
 from triage.core.load import FastPathDeclined, load_frame, scan_parquet
 from triage.core.portfolio import Portfolio, _build_streamed, build_portfolio, read_portfolio
+from triage.core.ranking import scorecard
 
 MONDAY = dt.date(2025, 3, 3)
 
@@ -127,9 +129,13 @@ def pivot_reference(rows: pd.DataFrame, p: Portfolio, column: str) -> np.ndarray
 def test_dictionary_and_plain_ids_give_the_same_portfolio(tmp_path: Path, dictionary: bool) -> None:
     rows = garden_rows()
     path = to_parquet(rows, tmp_path / "garden.parquet", dictionary=dictionary)
-    streamed = streamed_way(path)
-    assert_same(streamed, full_way(path))
+    streamed, full = streamed_way(path), full_way(path)
+    assert_same(streamed, full)
     assert_same(streamed, read_portfolio(path))
+    # The whole scorecard too: keys taken through the codes the streamed build keeps, prices
+    # through UnitPrices, both orders.
+    for by in ("error", "bias"):
+        pd.testing.assert_frame_equal(scorecard(streamed, by=by), scorecard(full, by=by))
     # Rows of a series and period land in that cell (pandas.DataFrame.pivot as the reference);
     # forward rows carry no demand.
     np.testing.assert_array_equal(streamed.demand, pivot_reference(rows, streamed, "demand"))
@@ -141,6 +147,16 @@ def test_dictionary_and_plain_ids_give_the_same_portfolio(tmp_path: Path, dictio
     # Latest period's attribute; a missing attribute is the empty string.
     assert set(streamed.keys["buyer"]) == {"Ravi"}
     assert "" in set(streamed.keys["family"])
+
+
+def test_key_codes_follow_replaced_keys(tmp_path: Path) -> None:
+    p = read_portfolio(to_parquet(garden_rows(), tmp_path / "k.parquet", dictionary=True))
+    renamed = dataclasses.replace(p, keys=p.keys.assign(family=p.keys["family"] + "!"))
+    order = np.arange(p.n_series)[::-1]
+    assert list(renamed.text_column("family", order)) == [
+        v + "!" for v in p.text_column("family", order)
+    ]
+    assert list(p.text_column("item", order)) == p.keys["item"].tolist()[::-1]
 
 
 def test_both_encodings_agree_with_each_other(tmp_path: Path) -> None:

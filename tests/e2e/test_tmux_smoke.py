@@ -110,7 +110,8 @@ def test_hostile_ids_do_not_reach_the_terminal(tmp_path: Path) -> None:
     triage = str(Path(sys.executable).with_name("triage"))
     term = Tmux([triage, "review", str(portfolio), "--reviewer", "smoke"], tmp_path)
     try:
-        screen = term.wait_for("reviewed 0")
+        term.wait_for("reviewed 0")
+        screen = term.wait_for("rank 1 of 3")  # the detail pane names the highlighted series
         assert "PWNED-BY-DATA" not in term.title()
         assert "[@click=app.quit]Q[" in screen  # shown as text
         term.keys("j", "j", "k")

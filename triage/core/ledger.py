@@ -27,6 +27,7 @@ import re
 import sqlite3
 import tempfile
 import threading
+import time
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from contextlib import contextmanager, suppress
 from dataclasses import dataclass
@@ -744,6 +745,20 @@ class Ledger:
 
     @classmethod
     def _open_rw(cls, path: Path, timeout: float, causes: tuple[Choice, ...]) -> Ledger:
+        deadline = time.monotonic() + timeout
+        while True:
+            try:
+                return cls._open_rw_once(path, timeout, causes)
+            except LedgerBusyError:
+                # Switching a new file to WAL or creating the schema can return SQLITE_BUSY at
+                # once, without the busy handler, while another session sets up the same file
+                # (reliability.md §1.2): try again until the timeout.
+                if time.monotonic() >= deadline:
+                    raise
+                time.sleep(0.05)
+
+    @classmethod
+    def _open_rw_once(cls, path: Path, timeout: float, causes: tuple[Choice, ...]) -> Ledger:
         con = _connect(path, "rwc", timeout)
         try:
             mode = con.execute("PRAGMA journal_mode = WAL").fetchone()[0]

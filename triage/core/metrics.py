@@ -391,13 +391,13 @@ def _scan_history(
             # Hyndman & Koehler (2006): in-sample MAE of the (seasonal) naive forecast.
             diff = np.subtract(block[:, season:], block[:, :-season])
             np.abs(diff, out=diff)
-            pairs = span - np.isnan(diff).view(np.uint8).sum(axis=1, dtype=np.int64)
+            pairs = span - np.isnan(diff).view(np.uint8).sum(axis=1, dtype=np.int32)
             np.fmax(diff, 0.0, out=diff)
             out_scale[rows] = _ratio(diff.sum(axis=1), pairs, strict=False)
         if adi is not None and cv2 is not None:
-            actual = width - np.isnan(block).view(np.uint8).sum(axis=1, dtype=np.int64)
+            actual = width - np.isnan(block).view(np.uint8).sum(axis=1, dtype=np.int32)
             positive = block > 0
-            count = positive.view(np.uint8).sum(axis=1, dtype=np.int64)
+            count = positive.view(np.uint8).sum(axis=1, dtype=np.int32)
             sizes = np.fmax(block, 0.0)
             mean = _ratio(sizes.sum(axis=1), count, strict=False)
             # The same buffer, now the deviations of the positive demands (zero elsewhere).

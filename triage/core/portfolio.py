@@ -228,10 +228,10 @@ class Portfolio:
     """Rows read from the file."""
     notices: tuple[str, ...] = field(default=())
     """Things the user should know that did not stop the load."""
-    _text_codes: dict[str, tuple[np.ndarray, Any]] = field(
+    _text_codes: dict[str, tuple[pd.DataFrame, np.ndarray, Any]] = field(
         default_factory=dict, repr=False, compare=False
     )
-    """Key and attribute columns as (int32 codes, Arrow labels), filled on first use."""
+    """Key and attribute columns as (the keys frame they code, int32 codes, Arrow labels)."""
 
     @property
     def n_series(self) -> int:
@@ -270,11 +270,12 @@ class Portfolio:
         import pyarrow as pa
 
         coded = self._text_codes.get(name)
-        if coded is None:
+        if coded is None or coded[0] is not self.keys:
+            # Not coded yet, or coded for another keys frame (``dataclasses.replace``).
             codes, uniques = pd.factorize(self.keys[name])
             labels = pa.array(np.asarray(uniques, dtype=object), type=pa.large_string())
-            coded = self._text_codes[name] = (codes.astype(np.int32), labels)
-        codes, labels = coded
+            coded = self._text_codes[name] = (self.keys, codes.astype(np.int32), labels)
+        _, codes, labels = coded
         taken = labels.take(pa.array(codes[order]))
         return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
@@ -632,7 +633,9 @@ def _build_streamed(source: ParquetSource, lag: int | None) -> Portfolio:
         lags=lags,
         rows=n_rows,
         notices=tuple(notices),
-        _text_codes={k: (codes, _large_text(values)) for k, (values, codes) in text_codes.items()},
+        _text_codes={
+            k: (keys, codes, _large_text(values)) for k, (values, codes) in text_codes.items()
+        },
     )
 
 
