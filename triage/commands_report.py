@@ -10,6 +10,7 @@ against formula injection like every other export (reliability.md §2).
 from __future__ import annotations
 
 import argparse
+import contextlib
 import csv
 import io
 import re
@@ -231,9 +232,17 @@ def cmd_report(args: argparse.Namespace) -> int:
             f"No decisions have been recorded for {portfolio.path.name}; the report has no "
             "decisions or overrides. Pass --ledger PATH if they are kept elsewhere."
         )
+    opened = (
+        contextlib.nullcontext(None)
+        if ledger_path is None
+        else open_ledger_read_only(ledger_path, config)
+    )
+    with opened as ledger:
+        if ledger is not None and ledger.notice:
+            warn(ledger.notice)
         result = write_report(
             portfolio,
-            None,
+            ledger,
             args.to,
             window=args.window,
             season=args.season,
@@ -242,21 +251,6 @@ def cmd_report(args: argparse.Namespace) -> int:
             repeat_m=repeat_m,
             top=args.top,
         )
-    else:
-        with open_ledger_read_only(ledger_path, config) as ledger:
-            if ledger.notice:
-                warn(ledger.notice)
-            result = write_report(
-                portfolio,
-                ledger,
-                args.to,
-                window=args.window,
-                season=args.season,
-                target_share=target_share,
-                repeat_n=repeat_n,
-                repeat_m=repeat_m,
-                top=args.top,
-            )
     sys.stdout.write(printable(summary_text(result.data, result.path), one_line=False))
     sys.stdout.flush()
     return 0
