@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import argparse
 import sys
-from collections.abc import Sequence
+from collections.abc import Iterable, Sequence
 from pathlib import Path
 
 from triage import __version__
@@ -126,8 +126,11 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         shown = card.iloc[: report.TABLE_DEFAULT_ROWS]
 
     if args.format == "csv":
-        text = report.to_csv(shown)
-    elif args.format == "json":
+        # CSV needs only the scorecard: the portfolio's dense arrays go before the text is made.
+        del portfolio, card
+        _emit_blocks(report.csv_blocks(shown), args.output)
+        return 0
+    if args.format == "json":
         text = report.to_json(portfolio, shown, args.window, args.season)
     else:
         text = report.rank_table(portfolio, card, shown, args.window, args.season, by=args.by)
@@ -209,6 +212,23 @@ def _emit(text: str, output: Path | None) -> None:
     from triage.core.files import write_text_atomic
 
     write_text_atomic(output, text)
+
+
+def _emit_blocks(blocks: Iterable[bytes], output: Path | None) -> None:
+    """Write UTF-8 blocks as they come: to standard output, or atomically to ``output``."""
+    if output is not None:
+        from triage.core.files import write_blocks_atomic
+
+        write_blocks_atomic(output, blocks)
+        return
+    sys.stdout.flush()
+    raw = getattr(sys.stdout, "buffer", None)
+    for block in blocks:
+        if raw is None:
+            sys.stdout.write(block.decode("utf-8"))
+        else:
+            raw.write(block)
+    (raw or sys.stdout).flush()
 
 
 if __name__ == "__main__":

@@ -101,3 +101,14 @@ def test_empty_frame_and_scorecard_dtypes() -> None:
     # Unsupported column types fall back to pandas itself.
     odd = pd.DataFrame({"when": pd.to_datetime(["2025-01-06"]), "ok": [True]})
     assert output.to_csv(odd) == odd.to_csv(index=False, lineterminator="\n")
+
+
+def test_blocks_are_whole_lines_in_order() -> None:
+    # Reference: pandas DataFrame.to_csv, as above; the blocks are what `triage rank --format
+    # csv` writes one after another, so each must end at a line break.
+    card = frame(3 * 32_768 + 5, 5)
+    blocks = list(output.csv_blocks(card))
+    assert len(blocks) == 5  # header, then four blocks of rows
+    assert blocks[0] == (",".join(card.columns) + "\n").encode()
+    assert all(block.endswith(b"\n") for block in blocks)
+    assert b"".join(blocks).decode() == card.to_csv(index=False, lineterminator="\n")

@@ -6,7 +6,7 @@ import contextlib
 import os
 import stat
 import tempfile
-from collections.abc import Callable
+from collections.abc import Callable, Iterable
 from pathlib import Path
 
 from triage.core.errors import TriageError
@@ -78,6 +78,16 @@ def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Pat
     """Atomically write UTF-8 text (see ``write_atomic``)."""
     def write(p: Path) -> None:
         p.write_text(text, encoding="utf-8", newline="")
+
+    return write_atomic(path, write, force=force)
+
+
+def write_blocks_atomic(path: str | Path, blocks: Iterable[bytes], *, force: bool = True) -> Path:
+    """Atomically write a file from blocks of bytes, each written as it comes (see ``write_atomic``)."""
+    def write(p: Path) -> None:
+        with p.open("wb") as handle:
+            for block in blocks:
+                handle.write(block)
 
     return write_atomic(path, write, force=force)
 

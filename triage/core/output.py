@@ -6,7 +6,7 @@ CSV and JSON keep full precision (shortest round-trip floats) and leave undefine
 
 from __future__ import annotations
 
-import codecs
+import collections
 import concurrent.futures
 import functools
 import io
@@ -15,7 +15,7 @@ import math
 import os
 import re
 import shutil
-from collections.abc import Callable
+from collections.abc import Callable, Iterator
 from typing import Any
 
 import numpy as np
@@ -32,49 +32,55 @@ TABLE_DEFAULT_ROWS = 25
 
 
 def to_csv(card: pd.DataFrame) -> str:
-    """The scorecard as CSV text, one row per series in the given order.
+    """The scorecard as CSV text, one row per series in the given order (see :func:`csv_blocks`)."""
+    return b"".join(csv_blocks(card)).decode("utf-8")
 
-    The text is exactly what ``DataFrame.to_csv(index=False, lineterminator="\\n")`` writes:
-    floats in their shortest round-trip form (``repr``), missing values empty, text quoted only
-    where needed. Number, text and categorical columns are formatted column by column in Arrow
-    (several times faster than pandas' per-cell formatting); a frame with any other column type
-    is written by pandas.
+
+def csv_blocks(card: pd.DataFrame) -> Iterator[bytes]:
+    """The scorecard as UTF-8 CSV, in blocks of rows: the header first, then the rows in order.
+
+    Joined, the blocks are exactly what ``DataFrame.to_csv(index=False, lineterminator="\\n")``
+    writes: floats in their shortest round-trip form (``repr``), missing values empty, text
+    quoted only where needed. Number, text and categorical columns are formatted column by
+    column in Arrow (several times faster than pandas' per-cell formatting), a few blocks ahead
+    on every core; a frame with any other column type is written by pandas, in one block.
+    Writing the blocks as they come keeps one block's text in memory, not the whole file's.
     """
-    text = _arrow_csv(card)
-    if text is not None:
-        return text
-    return card.to_csv(index=False, lineterminator="\n", float_format=None)
+    sources = _arrow_sources(card)
+    if sources is None:
+        yield card.to_csv(index=False, lineterminator="\n", float_format=None).encode("utf-8")
+        return
+    yield (",".join(_quote_field(n) for n in card.columns) + "\n").encode("utf-8")
+    starts = range(0, len(card), _CSV_ROWS)
+    workers = min(len(starts), os.cpu_count() or 1, 8)
+    if workers <= 1:
+        yield from (_csv_rows(sources, lo) for lo in starts)
+        return
+    # Arrow's kernels release the GIL: blocks are formatted on worker threads, at most two per
+    # worker ahead of the one being written.
+    with concurrent.futures.ThreadPoolExecutor(max_workers=workers) as pool:
+        pending: collections.deque[concurrent.futures.Future[bytes]] = collections.deque()
+        for lo in starts:
+            pending.append(pool.submit(_csv_rows, sources, lo))
+            if len(pending) > 2 * workers:
+                yield pending.popleft().result()
+        while pending:
+            yield pending.popleft().result()
 
 
-#: Characters that make Python's csv writer (QUOTE_MINIMAL, line terminator "\\n") quote a field.
+#: Characters that make Python's csv writer (QUOTE_MINIMAL, line terminator "\n") quote a field.
 _CSV_SPECIAL = '[,"\n]'
 
 
-def _arrow_csv(card: pd.DataFrame) -> str | None:
-    """CSV text built with Arrow compute, or None for frames it does not handle."""
-    try:
-        import pyarrow  # noqa: F401
-    except ImportError:  # pragma: no cover - pyarrow is a dependency
-        return None
+def _arrow_sources(card: pd.DataFrame) -> list[tuple[str, Any]] | None:
+    """What each column is formatted from, or None for frames the Arrow writer does not handle."""
     names = list(card.columns)
     # One column: the csv module quotes an empty field alone on its line; leave that to pandas.
     if len(names) < 2 or not all(isinstance(n, str) for n in names) or not card.columns.is_unique:
         return None
     found = [_column_source(card[name]) for name in names]
     sources = [source for source in found if source is not None]
-    if len(sources) != len(found):
-        return None
-    header = ",".join(_quote_field(n) for n in names) + "\n"
-    # Blocks of rows: the temporaries of one block stay small and are reused, and blocks are
-    # formatted on every core (Arrow's kernels release the GIL).
-    starts = range(0, len(card), _CSV_ROWS)
-    workers = min(len(starts), os.cpu_count() or 1, 8)
-    if workers <= 1:
-        pieces = [_csv_rows(sources, lo) for lo in starts]
-    else:
-        with concurrent.futures.ThreadPoolExecutor(max_workers=workers) as pool:
-            pieces = list(pool.map(lambda lo: _csv_rows(sources, lo), starts))
-    return header + "".join(pieces)
+    return sources if len(sources) == len(found) else None
 
 
 #: Rows per block of CSV text.
@@ -100,8 +106,8 @@ def _column_source(column: pd.Series) -> tuple[str, Any] | None:
     return None if text is None else ("text", text)
 
 
-def _csv_rows(sources: list[tuple[str, Any]], lo: int) -> str:
-    """CSV lines of rows ``lo`` to ``lo + _CSV_ROWS`` (each line ends with a line feed)."""
+def _csv_rows(sources: list[tuple[str, Any]], lo: int) -> bytes:
+    """UTF-8 CSV lines of rows ``lo`` to ``lo + _CSV_ROWS`` (each line ends with a line feed)."""
     import pyarrow as pa
     import pyarrow.compute as pc
 
@@ -124,8 +130,7 @@ def _csv_rows(sources: list[tuple[str, Any]], lo: int) -> str:
     )
     offsets = np.frombuffer(rows.buffers()[1], dtype=np.int64)
     offsets = offsets[rows.offset : rows.offset + len(rows) + 1]
-    body = memoryview(rows.buffers()[2])[int(offsets[0]) : int(offsets[-1])]
-    return codecs.decode(body, "utf-8")
+    return bytes(memoryview(rows.buffers()[2])[int(offsets[0]) : int(offsets[-1])])
 
 
 def _text_array(column: pd.Series) -> Any | None:
