@@ -720,14 +720,20 @@ def _numpy_counts(
     with path.open("rb") as handle:
         while chunk := handle.read(_CHUNK):
             array = np.frombuffer(chunk, dtype=np.uint8)
-            ends = np.flatnonzero(array == newline)
-            commas = np.flatnonzero(array == 44)
+            is_end = array == newline
+            is_comma = array == 44
             if scan.has_quotes:
-                quotes = np.flatnonzero(array == 34)
-                if quotes.size:
-                    ends = ends[((np.searchsorted(quotes, ends) + parity) & 1) == 0]
-                    commas = commas[((np.searchsorted(quotes, commas) + parity) & 1) == 0]
-                    parity = (parity + quotes.size) & 1
+                # Inside quotes after an odd number of quote bytes: a running XOR of the quote
+                # bytes is that parity at every byte, in one pass (a position lookup per comma
+                # was 2.5x slower). Quote bytes themselves are never commas or line ends.
+                inside = np.bitwise_xor.accumulate(array == 34)
+                if parity:
+                    np.logical_not(inside, out=inside)
+                np.logical_and(is_end, ~inside, out=is_end)
+                np.logical_and(is_comma, ~inside, out=is_comma)
+                parity = int(inside[-1])
+            ends = np.flatnonzero(is_end)
+            commas = np.flatnonzero(is_comma)
             if ends.size:
                 before = np.searchsorted(commas, ends)
                 fields = np.diff(before, prepend=0) + 1
