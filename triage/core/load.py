@@ -29,7 +29,7 @@ replaced too.
 File row numbers in messages count the header as row 1, as a spreadsheet does. In a CSV file a
 row is a record: it is the line number unless a quoted cell holds a line break.
 
-For large Parquet files :func:`scan_parquet` offers a second way in: a :class:`ParquetSource`
+For large Parquet files :func:`scan_parquet` offers a second way in: a :class:`StreamSource`
 reads the file one row group at a time and hands over numpy arrays (text as integer codes), so
 that ``portfolio.read_portfolio`` can fill its dense arrays without ever building the long frame.
 It applies the same checks, on distinct values where it can; anything this module would refuse,
@@ -67,7 +67,7 @@ __all__ = [
     "SUFFIXES",
     "FastPathDeclined",
     "LoadedFrame",
-    "ParquetSource",
+    "StreamSource",
     "load_frame",
     "parse_column_map",
     "scan_parquet",
@@ -991,7 +991,7 @@ class _Dictionary:
 
 @dataclass
 class _Chunk:
-    """One row group of a :class:`ParquetSource`, converted."""
+    """One row group of a :class:`StreamSource`, converted."""
 
     start: int
     """File position (0-based) of its first row."""
@@ -1002,17 +1002,20 @@ class _Chunk:
 
 
 @dataclass
-class ParquetSource:
-    """A Parquet portfolio read one row group at a time and checked as the full loader checks it.
+class StreamSource:
+    """A portfolio read one block of rows at a time and checked as the full loader checks it.
 
-    :meth:`chunks` yields canonical columns as numpy arrays: text as int32 codes into
-    :meth:`values`, periods as int32 day numbers since 1970-01-01, numbers as float64 with NaN
-    for missing, lags as int64. A cell the full loader would refuse, change or remark on raises
-    :class:`FastPathDeclined`; the caller then loads the file the full way.
+    A block is a Parquet row group (read from the file on demand) or, for CSV, a record batch
+    Arrow has already parsed (``tables``). :meth:`chunks` yields canonical columns as numpy
+    arrays: text as int32 codes into :meth:`values`, periods as int32 day numbers since
+    1970-01-01, numbers as float64 with NaN for missing, lags as int64. A cell the full loader
+    would refuse, change or remark on raises :class:`FastPathDeclined`; the caller then loads
+    the file the full way.
     """
 
     path: Path
     file: Any
+    """The open ``pyarrow.parquet.ParquetFile``, or None when the blocks are ``tables``."""
     columns: dict[str, str]
     """Canonical name (or attribute name) -> column name in the file."""
     attributes: tuple[str, ...]
@@ -1020,6 +1023,8 @@ class ParquetSource:
     n_rows: int
     _plain_text: list[str] = field(default_factory=list)
     """File columns of plain text, read dictionary-encoded."""
+    tables: list[Any] | None = None
+    """The blocks, already in memory (CSV), one ``pyarrow.Table`` each."""
     _dictionaries: dict[str, _Dictionary] = field(default_factory=dict)
 
     def values(self, name: str) -> list[str]:
@@ -1033,6 +1038,7 @@ class ParquetSource:
         sparse: Sequence[str] = (),
         select: Callable[[int, int], np.ndarray] | None = None,
         into: dict[str, np.ndarray] | None = None,
+        last: bool = False,
     ) -> Iterator[_Chunk]:
         """Every non-empty row group's columns, in file order.
 
@@ -1046,6 +1052,8 @@ class ParquetSource:
             select: Required with ``sparse``.
             into: For text columns among ``names``: whole-file arrays to write the codes into
                 (``columns[name]`` is then a view of it).
+            last: These columns are not read again: blocks held in memory (CSV) let go of
+                them once converted.
         """
         import pyarrow.parquet as pq
 
@@ -1053,6 +1061,8 @@ class ParquetSource:
         local = threading.local()
 
         def read(group: int) -> Any:
+            if self.tables is not None:
+                return self.tables[group].select(wanted)
             if not hasattr(local, "file"):
                 # One reader per thread; the parsed footer is shared.
                 local.file = pq.ParquetFile(
@@ -1060,7 +1070,7 @@ class ParquetSource:
                 )
             return local.file.read_row_group(group, columns=wanted, use_threads=False)
 
-        groups = range(self.file.num_row_groups)
+        groups = range(len(self.tables) if self.tables is not None else self.file.num_row_groups)
         workers = max(1, min(2, os.cpu_count() or 1))
         offset = 0
         with concurrent.futures.ThreadPoolExecutor(max_workers=workers) as pool:
@@ -1068,6 +1078,7 @@ class ParquetSource:
             upcoming = iter(groups)
             for group in itertools.islice(upcoming, workers + 1):
                 ahead.append(pool.submit(read, group))
+            done = 0
             while ahead:
                 table = ahead.popleft().result()
                 for group in itertools.islice(upcoming, 1):
@@ -1075,6 +1086,9 @@ class ParquetSource:
                 size = table.num_rows
                 if size:
                     yield self._chunk(table, offset, names, sparse, select, into)
+                if last and self.tables is not None:
+                    self.tables[done] = self.tables[done].drop_columns(wanted)
+                done += 1
                 offset += size
                 del table
         if offset != self.n_rows:  # pragma: no cover - footer and data disagree
@@ -1154,7 +1168,7 @@ class ParquetSource:
         return numbers
 
 
-def scan_parquet(path: str | Path, *, columns: dict[str, str] | None = None) -> ParquetSource:
+def scan_parquet(path: str | Path, *, columns: dict[str, str] | None = None) -> StreamSource:
     """Open a Parquet portfolio for the streamed reader (reads the footer and schema only).
 
     Raises:
@@ -1202,7 +1216,7 @@ def scan_parquet(path: str | Path, *, columns: dict[str, str] | None = None) -> 
         raise FastPathDeclined("unreadable") from exc
     if file.metadata.num_rows == 0:
         raise FastPathDeclined("no rows")
-    return ParquetSource(
+    return StreamSource(
         path=file_path,
         file=file,
         columns=names,
@@ -1231,6 +1245,88 @@ def _streamable(role: str | None, kind: Any) -> bool:
     if role == schema.LAG:
         return pa.types.is_integer(kind)
     return pa.types.is_floating(kind) or pa.types.is_integer(kind)
+
+
+def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> StreamSource:
+    """Parse a CSV portfolio with Arrow's multi-threaded reader, for the streamed build.
+
+    The checks that come before any cell is read (encoding, separator, header, ``--columns``)
+    are the full loader's own, with its messages. Then the used columns are parsed with fixed
+    types: text dictionary-encoded and never missing (``NA`` is an id), periods as ISO dates,
+    numbers as float64 with the full loader's missing-value words, lags as integers. Anything
+    Arrow refuses (a line with too many or too few fields, a cell that is not of its type, a
+    period that is not ``YYYY-MM-DD``) declines the fast path, and the full loader then reads
+    the file and reports it in its own words. Blank lines arrive as rows without a period,
+    which also decline.
+
+    Raises:
+        LoadError: What :func:`load_frame` raises before it reads any cell.
+        FastPathDeclined: The file needs the full loader.
+    """
+    import pyarrow as pa
+    import pyarrow.csv as pa_csv
+
+    file_path = Path(path)
+    if _file_kind(file_path) != "csv":
+        raise FastPathDeclined("not csv")
+    mapping = _checked_mapping(file_path, columns)
+    scan = _prescan_csv(file_path)
+    header = _csv_header(file_path, scan)
+    notices: list[str] = []
+    plan = _plan_columns(file_path, header, mapping, notices)
+    if plan.unnamed:
+        raise FastPathDeclined("unnamed column")
+    positions = [f"c{i}" for i in range(len(header))]
+    text = pa.dictionary(pa.int32(), pa.string())
+    kinds = {schema.PERIOD: pa.date32(), schema.LAG: pa.int64()}
+    names: dict[str, str] = {}
+    types: dict[str, Any] = {}
+    for position, role in enumerate(plan.roles):
+        name = role if role is not None else plan.attributes.get(position)
+        if name is None:
+            continue
+        names[name] = positions[position]
+        types[positions[position]] = (
+            text if role in (schema.ITEM, schema.LOCATION, None) else kinds.get(role, pa.float64())
+        )
+    try:
+        table = pa_csv.read_csv(
+            file_path,
+            read_options=pa_csv.ReadOptions(
+                skip_rows=1, column_names=positions, block_size=_CSV_BLOCK_BYTES
+            ),
+            parse_options=pa_csv.ParseOptions(
+                delimiter=",",
+                quote_char='"',
+                double_quote=True,
+                newlines_in_values=scan.has_quotes,
+                ignore_empty_lines=False,
+            ),
+            convert_options=pa_csv.ConvertOptions(
+                column_types=types,
+                include_columns=list(types),
+                null_values=list(schema.NUMERIC_MISSING),
+                strings_can_be_null=False,
+                quoted_strings_can_be_null=True,  # pandas reads "" and "NA" as it reads NA
+            ),
+        )
+    except (pa.ArrowException, OSError) as exc:
+        raise FastPathDeclined("arrow csv") from exc
+    if table.num_rows == 0:
+        raise FastPathDeclined("no rows")
+    return StreamSource(
+        path=file_path,
+        file=None,
+        columns=names,
+        attributes=tuple(plan.attributes.values()),
+        notices=tuple(notices),
+        n_rows=table.num_rows,
+        tables=[pa.Table.from_batches([batch]) for batch in table.to_batches()],
+    )
+
+
+#: Bytes of CSV text per block Arrow parses (and per block the streamed build converts).
+_CSV_BLOCK_BYTES = 1 << 24
 
 
 # --- xlsx ----------------------------------------------------------------------------------------

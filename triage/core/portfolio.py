@@ -39,7 +39,7 @@ from triage.core.errors import LoadError, format_rows
 if TYPE_CHECKING:
     from collections.abc import Callable, Sequence
 
-    from triage.core.load import ParquetSource
+    from triage.core.load import StreamSource
 
 #: How many example rows an error message shows.
 EXAMPLES = 5
@@ -418,16 +418,20 @@ def read_portfolio(
 ) -> Portfolio:
     """Load a portfolio file and build its arrays (see ``load.load_frame`` and ``build_portfolio``).
 
-    A Parquet file is first read the streamed way (``load.scan_parquet``): one row group at a
-    time, straight into the dense arrays, without the long frame. Whenever that reader cannot
-    vouch for the file (a bad or unusual cell, several lags, duplicate rows, ...) the file is
-    read the full way, which gives the same portfolio or the same error.
+    A Parquet or CSV file is first read the streamed way (``load.scan_parquet``,
+    ``load.scan_csv``): one block of rows at a time, straight into the dense arrays, without
+    the long frame. Whenever that reader cannot vouch for the file (a bad or unusual cell,
+    several lags, duplicate rows, ...) the file is read the full way, which gives the same
+    portfolio or the same error.
     """
-    from triage.core.load import FastPathDeclined, load_frame, scan_parquet
+    from triage.core.load import FastPathDeclined, load_frame, scan_csv, scan_parquet
 
-    if sheet is None and Path(path).suffix.lower() in (".parquet", ".pq"):
+    scan = {".parquet": scan_parquet, ".pq": scan_parquet, ".csv": scan_csv}.get(
+        Path(path).suffix.lower()
+    )
+    if sheet is None and scan is not None:
         try:
-            return _build_streamed(scan_parquet(path, columns=columns), lag)
+            return _build_streamed(scan(path, columns=columns), lag)
         except FastPathDeclined:
             pass
     loaded = load_frame(path, columns=columns, sheet=sheet)
@@ -437,7 +441,7 @@ def read_portfolio(
 # --- the streamed way: Parquet row groups straight into the dense arrays -------------------------
 
 
-def _build_streamed(source: ParquetSource, lag: int | None) -> Portfolio:
+def _build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
     """Build from a Parquet file in two passes over its row groups, without the long frame.
 
     Pass 1 reads the keys and periods and numbers every row's cell; pass 2 reads the numbers and
@@ -463,7 +467,7 @@ def _build_streamed(source: ParquetSource, lag: int | None) -> Portfolio:
     lag_first_day: dict[int, int] = {}
     names = [*key_columns, schema.PERIOD, *([schema.LAG] if has_lag else [])]
     into: dict[str, np.ndarray] = {schema.ITEM: item, schema.LOCATION: loc}
-    for chunk in source.chunks(names, into=into):
+    for chunk in source.chunks(names, into=into, last=True):
         start, stop = chunk.start, chunk.start + chunk.size
         days = chunk.columns[schema.PERIOD]
         low, high = int(days.min()), int(days.max())
@@ -565,7 +569,7 @@ def _build_streamed(source: ParquetSource, lag: int | None) -> Portfolio:
     price = None
     missing_prices = 0
     if has_price:
-        for chunk in source.chunks([schema.PRICE]):
+        for chunk in source.chunks([schema.PRICE], last=True):
             values = chunk.columns[schema.PRICE]
             # numpy converts an int32 index to intp on every use: convert once per chunk.
             buffer[cell[chunk.start : chunk.start + chunk.size].astype(np.intp)] = values
@@ -583,7 +587,7 @@ def _build_streamed(source: ParquetSource, lag: int | None) -> Portfolio:
 
     select = _rows_marked(is_latest, cell) if is_latest is not None else None
     names = [schema.DEMAND, schema.FORECAST]
-    for chunk in source.chunks(names, sparse=source.attributes, select=select):
+    for chunk in source.chunks(names, sparse=source.attributes, select=select, last=True):
         cells = cell[chunk.start : chunk.start + chunk.size].astype(np.intp)
         demand[cells] = chunk.columns[schema.DEMAND]
         forecast[cells] = chunk.columns[schema.FORECAST]
@@ -1063,7 +1067,7 @@ def _latest_rows(
 
 
 def _rows_marked(marked: np.ndarray, cell: np.ndarray) -> Callable[[int, int], np.ndarray]:
-    """For ``ParquetSource.chunks``: positions, in a row group, of the rows whose cell is marked."""
+    """For ``StreamSource.chunks``: positions, in a row group, of the rows whose cell is marked."""
 
     def select(start: int, size: int) -> np.ndarray:
         return np.flatnonzero(marked[cell[start : start + size]])
