@@ -556,6 +556,26 @@ def portfolio_file(out: Path, n_items: int, n_locations: int, args: argparse.Nam
     return out / name
 
 
+def parquet_to_csv(source: Path, target: Path) -> None:
+    """The benchmark portfolio as CSV (text quoted, as Arrow's writer and many exports do)."""
+    import pyarrow as pa
+    import pyarrow.csv as pa_csv
+    import pyarrow.parquet as pq
+
+    file = pq.ParquetFile(source)
+    plain = pa.schema(
+        [
+            pa.field(f.name, f.type.value_type if pa.types.is_dictionary(f.type) else f.type)
+            for f in file.schema_arrow
+        ]
+    )
+    tmp = target.with_suffix(".csv.tmp")
+    with pa_csv.CSVWriter(tmp, plain) as writer:
+        for group in range(file.num_row_groups):
+            writer.write_table(file.read_row_group(group).cast(plain))
+    tmp.replace(target)
+
+
 def _stage_cmd(stage: str, path: Path, *extra: str) -> list[str]:
     return [
         sys.executable,
@@ -623,6 +643,27 @@ def bench_size(n_series: int, args: argparse.Namespace) -> dict[str, Any]:
         ]
         ok = [r for r in runs if r.returncode == 0]
         result["cli"] = {
+            "seconds": statistics.median(r.seconds for r in ok) if ok else None,
+            "runs": [r.seconds for r in runs],
+            "peak_bytes": max((r.peak_bytes or 0) for r in ok) if ok else None,
+            "error": next((r.error for r in runs if r.returncode != 0), ""),
+        }
+
+    if args.csv and not args.skip_cli:
+        csv_path = path.with_suffix(".csv")
+        if not csv_path.exists():
+            print(f"writing {csv_path.name} ...", file=sys.stderr, flush=True)
+            parquet_to_csv(path, csv_path)
+        print(f"{n_series:,} series: triage rank (CSV) x{args.repeat} ...", file=sys.stderr)
+        runs = [
+            measure(
+                [*triage_command(), "rank", str(csv_path), "--format", "csv", "--output", os.devnull]
+            )
+            for _ in range(args.repeat)
+        ]
+        ok = [r for r in runs if r.returncode == 0]
+        result["cli_csv"] = {
+            "file_bytes": csv_path.stat().st_size,
             "seconds": statistics.median(r.seconds for r in ok) if ok else None,
             "runs": [r.seconds for r in runs],
             "peak_bytes": max((r.peak_bytes or 0) for r in ok) if ok else None,
@@ -707,7 +748,13 @@ def print_table(results: list[dict[str, Any]], env: dict[str, Any]) -> None:
             f"{'-' if window is None else f'{window:,.0f}x':>6}  "
             + " ".join(f"{k}={v}" for k, v in r.get("verdict", {}).items())
         )
-        for step in ("generate", "cli", "read", "kernel", "baseline"):
+        csv_run = r.get("cli_csv")
+        if csv_run:
+            print(
+                f"{'':>10} same portfolio as CSV ({csv_run['file_bytes'] / 1e9:,.2f} GB): "
+                f"triage rank {_s(csv_run.get('seconds'))} s, {_mb(csv_run.get('peak_bytes'))} MB"
+            )
+        for step in ("generate", "cli", "cli_csv", "read", "kernel", "baseline"):
             error = r.get(step, {}).get("error")
             if error:
                 print(f"{'':>10} {step} failed: {error}")
@@ -731,6 +778,9 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--baseline-series", type=int, default=2000)
     parser.add_argument("--skip-cli", action="store_true")
     parser.add_argument("--skip-kernel", action="store_true")
+    parser.add_argument(
+        "--csv", action="store_true", help="also time triage rank on a CSV copy of each file"
+    )
     parser.add_argument("--stage", choices=("read", "kernel", "baseline"), help=argparse.SUPPRESS)
     parser.add_argument("--file", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
