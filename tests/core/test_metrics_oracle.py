@@ -24,7 +24,7 @@ import pandas as pd
 import pytest
 from helpers import long_frame, portfolio_from
 
-from triage.core import ranking, schema
+from triage.core import metrics, ranking, schema
 
 #: History periods, forward periods, and two calendar holes inside the history.
 HISTORY = {schema.WEEKLY: 44, schema.MONTHLY: 30}
@@ -499,3 +499,20 @@ def test_tie_break_by_item_then_location() -> None:
         ("b", "x"),
     ]
     assert card["rank"].tolist() == [1, 2, 3, 4, 5, 6]
+
+
+def test_a_bias_of_exactly_five_percent_is_material_whatever_the_summation_order() -> None:
+    # The flag's materiality rule (docs/metrics.md): |Σe| >= 5% of Σdemand. Errors 0.7 and -0.5
+    # sum to 0.19999999999999996 in binary floating point, not 0.2 (Goldberg 1991, "What every
+    # computer scientist should know about floating-point arithmetic"): against a window demand
+    # of 4.0 that is still exactly 5%, so a run of six over-forecasts is flagged "over".
+    bias = np.array([0.7 + -0.5, 0.19])
+    flag = metrics.persistent_bias(
+        positive=np.array([7, 7]),
+        nonzero=np.array([13, 13]),
+        run=np.array([6, 6]),
+        bias=bias,
+        demand=np.array([4.0, 4.0]),
+    )
+    assert bias[0] < 0.05 * 4.0  # the premise: the float sum falls just short
+    assert flag.tolist() == [1, 0]
