@@ -29,9 +29,10 @@ replaced too.
 File row numbers in messages count the header as row 1, as a spreadsheet does. In a CSV file a
 row is a record: it is the line number unless a quoted cell holds a line break.
 
-For large Parquet files :func:`scan_parquet` offers a second way in: a :class:`StreamSource`
-reads the file one row group at a time and hands over numpy arrays (text as integer codes), so
-that ``portfolio.read_portfolio`` can fill its dense arrays without ever building the long frame.
+For Parquet and CSV files :func:`scan_parquet` and :func:`scan_csv` offer a second way in: a
+:class:`StreamSource` hands over one block of rows at a time (a Parquet row group, or a batch
+Arrow's multi-threaded CSV reader parsed) as numpy arrays (text as integer codes), so that
+``portfolio.read_portfolio`` can fill its dense arrays without ever building the long frame.
 It applies the same checks, on distinct values where it can; anything this module would refuse,
 change or remark on raises :class:`FastPathDeclined` instead, and the caller reads the file with
 :func:`load_frame`, which then gives its usual message. See docs/performance.md.
@@ -906,11 +907,11 @@ def _code_dtype(size: int) -> type[np.signedinteger[Any]]:
     return np.int64
 
 
-# --- Parquet, streamed: the fast path of read_portfolio ------------------------------------------
+# --- Parquet and CSV, streamed: the fast path of read_portfolio ----------------------------------
 
 
 class FastPathDeclined(Exception):
-    """The streamed Parquet reader cannot vouch for a file; the full loader must read it.
+    """The streamed reader cannot vouch for a file; the full loader must read it.
 
     Raised for anything the full loader would refuse, change or remark on (empty or bad cells,
     control characters, ids stored as numbers, types it converts specially), so that the full
@@ -1314,6 +1315,7 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
         raise FastPathDeclined("arrow csv") from exc
     if table.num_rows == 0:
         raise FastPathDeclined("no rows")
+    table = _narrow_dictionaries(table)
     return StreamSource(
         path=file_path,
         file=None,
@@ -1323,6 +1325,28 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
         n_rows=table.num_rows,
         tables=[pa.Table.from_batches([batch]) for batch in table.to_batches()],
     )
+
+
+def _narrow_dictionaries(table: Any) -> Any:
+    """Dictionary columns with int8 or int16 indices where every block's dictionary allows.
+
+    Arrow's CSV reader gives int32 indices; locations and attributes have a few distinct values,
+    and at 116M rows each such column then holds 0.46 GB instead of 0.12 GB or less.
+    """
+    import pyarrow as pa
+
+    for index, name in enumerate(table.column_names):
+        column = table.column(index)
+        if not pa.types.is_dictionary(column.type) or column.num_chunks == 0:
+            continue
+        largest = max(len(chunk.dictionary) for chunk in column.chunks)
+        narrow = pa.int8() if largest <= 127 else pa.int16() if largest <= 32767 else None
+        if narrow is None:
+            continue
+        kind = pa.dictionary(narrow, column.type.value_type)
+        table = table.set_column(index, name, column.cast(kind))
+        del column
+    return table
 
 
 #: Bytes of CSV text per block Arrow parses (and per block the streamed build converts).
