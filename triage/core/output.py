@@ -332,65 +332,87 @@ def rank_table(
         + (f", lag {portfolio.lag}" if portfolio.lag is not None else ""),
         "error = forecast - demand; 'over' = forecast above demand",
         f"total absolute error {_num(tot['abs_error'])} units"
-        + (f", {_num(tot['abs_error_value'])} in value" if priced else "")
-        + f"; portfolio bias {signed_pct(tot['bias_pct']) or 'n/a'}; WAPE {_pct(tot['wape']) or 'n/a'}",
+        + (f", {_num(tot['abs_error_value'])} in value" if priced else ""),
+        f"portfolio bias {signed_pct(tot['bias_pct']) or 'n/a'}; WAPE {_pct(tot['wape']) or 'n/a'}",
         f"ranked by {'persistent bias, then absolute bias' if by == 'bias' else 'share of absolute error'}"
         + (" in value" if priced else " in units"),
         "",
     ]
+    err_col = "abs_error_value" if priced else "abs_error"
+    has_location = schema.LOCATION in card
+    # (header, justify, cells, priority): when the terminal is too narrow for every column, the
+    # highest priority numbers go first (pattern, then run, ...); the rest are never cut short.
+    columns: list[tuple[str, str, list[Any], int]] = [
+        ("rank", "right", [str(v) for v in shown["rank"]], 0),
+        (schema.ITEM, "left", [Text(str(v)) for v in shown[schema.ITEM]], 0),
+        *(
+            [(schema.LOCATION, "left", [Text(str(v)) for v in shown[schema.LOCATION]], 0)]
+            if has_location
+            else []
+        ),
+        ("share", "right", [_pct(v) for v in shown["error_share"]], 0),
+        ("cum", "right", [_pct(v) for v in shown["cum_share"]], 4),
+        ("abs err" + (" value" if priced else ""), "right", [_num(v) for v in shown[err_col]], 0),
+        ("bias %", "right", [signed_pct(v) for v in shown["bias_pct"]], 0),
+        ("WAPE", "right", [_pct(v) for v in shown["wape"]], 3),
+        ("TS", "right", [_num(v, "+.1f") for v in shown["tracking_signal"]], 2),
+        ("run", "right", [_run_text(v) for v in shown["bias_run"]], 1),
+        ("persistent", "left", list(shown["bias_flag"]), 0),
+        ("pattern", "left", list(shown["pattern"]), 5),
+    ]
+    all_columns = list(columns)
+    width = shutil.get_terminal_size((120, 24)).columns
+
+    def natural(cells: list[Any], header: str, key: bool) -> int:
+        widest = max((len(str(c)) for c in cells), default=0)
+        return min(max(widest, len(header)), _KEY_WIDTH) if key else max(widest, len(header))
+
+    sizes = [natural(c, h, h in (schema.ITEM, schema.LOCATION)) for h, _, c, _ in columns]
+    dropped: list[str] = []
+    # Columns are two spaces apart (padding 1 on each side, none at the edges).
+    while sum(sizes) + 2 * (len(sizes) - 1) > width and any(col[3] for col in columns):
+        drop = max(range(len(columns)), key=lambda i: columns[i][3])
+        dropped.append(columns[drop][0])
+        del columns[drop], sizes[drop]
     table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
-    for name, justify in [
-        ("rank", "right"),
-        (schema.ITEM, "left"),
-        *([(schema.LOCATION, "left")] if schema.LOCATION in card else []),
-        ("share", "right"),
-        ("cum", "right"),
-        ("abs err" + (" value" if priced else ""), "right"),
-        ("bias %", "right"),
-        ("WAPE", "right"),
-        ("TS", "right"),
-        ("run", "right"),
-        ("persistent", "left"),
-        ("pattern", "left"),
-    ]:
+    for (name, justify, _, _), size in zip(columns, sizes, strict=True):
         key = name in (schema.ITEM, schema.LOCATION)
-        widest = max((len(str(v)) for v in shown[name]), default=0) if key else 0
         table.add_column(
             name,
-            justify=justify,
+            justify=justify,  # type: ignore[arg-type]
             no_wrap=True,
             overflow="ellipsis",
-            min_width=min(max(widest, len(name)), 24) if key else None,
-            max_width=24 if key else None,
+            min_width=size,
+            max_width=_KEY_WIDTH if key else None,
         )
-    err_col = "abs_error_value" if priced else "abs_error"
-    for row in shown.itertuples(index=False):
-        rec = row._asdict()
-        cells = [
-            str(rec["rank"]),
-            Text(str(rec[schema.ITEM])),
-            *([Text(str(rec[schema.LOCATION]))] if schema.LOCATION in card else []),
-            _pct(rec["error_share"]),
-            _pct(rec["cum_share"]),
-            _num(rec[err_col]),
-            signed_pct(rec["bias_pct"]),
-            _pct(rec["wape"]),
-            _num(rec["tracking_signal"], "+.1f"),
-            _run_text(rec["bias_run"]),
-            rec["bias_flag"],
-            rec["pattern"],
-        ]
-        table.add_row(*cells)
-    width = max(100, shutil.get_terminal_size((120, 24)).columns)
+    for row in zip(*(cells for _, _, cells, _ in columns), strict=True):
+        table.add_row(*row)
     buffer = io.StringIO()
-    Console(file=buffer, width=width, color_system=None, markup=False, emoji=False, highlight=False).print(table)
-    lines.append(buffer.getvalue().rstrip("\n"))
+    console = Console(
+        file=buffer,
+        width=max(width, sum(sizes) + 2 * (len(sizes) - 1)),
+        color_system=None,
+        markup=False,
+        emoji=False,
+        highlight=False,
+    )
+    console.print(table)
+    lines.extend(line.rstrip() for line in buffer.getvalue().rstrip("\n").split("\n"))
+    if dropped:
+        order = [name for name, *_ in all_columns if name in dropped]
+        lines.append("")
+        lines.append(f"not shown at {width} columns: {', '.join(order)} (widen the terminal,")
+        lines.append("or use --format csv for every measure)")
     if len(shown) < len(card):
         lines.append("")
         lines.append(
             f"showing {len(shown):,} of {len(card):,} series; use --top K, --cover F or --format csv for more"
         )
     return "\n".join(lines) + "\n"
+
+
+#: Widest an item or location id is shown in the table (longer ids end in an ellipsis).
+_KEY_WIDTH = 24
 
 
 def _run_text(run: int) -> str:

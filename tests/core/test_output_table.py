@@ -1,0 +1,56 @@
+"""The readable ``triage rank`` table at different terminal widths.
+
+A terminal is 80 columns unless the user widened it (common practice; the VT100's default width,
+from memory). The table must then drop whole columns, least important first, and say which,
+rather than cutting every value short: a truncated "12.…" is worse than no WAPE column.
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pytest
+
+from triage.core import output
+from triage.core.portfolio import read_portfolio
+from triage.core.ranking import scorecard
+
+SAMPLE = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"
+
+
+def table_at(width: int, monkeypatch: pytest.MonkeyPatch) -> list[str]:
+    monkeypatch.setenv("COLUMNS", str(width))
+    portfolio = read_portfolio(SAMPLE)
+    card = scorecard(portfolio)
+    text = output.rank_table(portfolio, card, card.iloc[:10], 13, 1)
+    return text.splitlines()
+
+
+def table_rows(lines: list[str]) -> list[str]:
+    start = next(i for i, line in enumerate(lines) if line.split()[:1] == ["rank"])
+    return lines[start : start + 11]
+
+
+def test_wide_terminal_shows_every_column(monkeypatch: pytest.MonkeyPatch) -> None:
+    lines = table_at(160, monkeypatch)
+    header = table_rows(lines)[0].split()
+    for name in ("share", "cum", "WAPE", "TS", "run", "persistent", "pattern"):
+        assert name in header
+    assert not any("not shown" in line for line in lines)
+
+
+@pytest.mark.parametrize("width", [80, 100])
+def test_narrow_terminal_drops_columns_and_says_so(
+    monkeypatch: pytest.MonkeyPatch, width: int
+) -> None:
+    lines = table_at(width, monkeypatch)
+    rows = table_rows(lines)
+    assert all(len(line) <= width for line in lines)
+    # Nothing kept is cut short, and the key measures always stay.
+    assert not any("…" in line for line in rows)
+    header = rows[0].split()
+    for name in ("rank", "item", "location", "share", "bias", "persistent"):
+        assert name in header
+    note = " ".join(line for line in lines if "not shown" in line or "--format csv for every" in line)
+    assert f"not shown at {width} columns" in note
+    assert "pattern" in note and "pattern" not in header
