@@ -386,7 +386,7 @@ def series_scores(group: Any, window_cols: Any, season: int) -> Any:
     else:
         direction = 0
     bias, total = scores["bias"], window_rows["demand"].sum()
-    material = total <= 0 or abs(bias) >= BIAS_MATERIAL * total
+    material = total <= 0 or abs(bias) >= BIAS_MATERIAL * total * (1 - 1e-12)  # as documented
     flag = direction if direction != 0 and np.sign(bias) == direction and material else 0
     scores["bias_flag"] = {1: "over", -1: "under", 0: ""}[flag]
     return pd.Series(scores)

@@ -24,7 +24,7 @@ from scipy.stats import binomtest
 
 from tests.cli.test_cli import run
 
-# --------------------------------------------------------------------------- oracle
+# --- oracle
 
 
 def _step(period: dt.date, freq: str, k: int) -> dt.date:
@@ -34,7 +34,9 @@ def _step(period: dt.date, freq: str, k: int) -> dt.date:
     return dt.date(m // 12, m % 12 + 1, 1)
 
 
-def oracle(rows: list[dict], *, freq: str, window: int = 13, season: int = 1, lag=None, priced=False):
+def oracle(
+    rows: list[dict], *, freq: str, window: int = 13, season: int = 1, lag=None, priced=False
+):
     """Per-series measures; rows hold key (tuple), period, demand, forecast, price, lag."""
     if lag is not None:
         rows = [r for r in rows if r["lag"] == lag]
@@ -60,7 +62,13 @@ def oracle(rows: list[dict], *, freq: str, window: int = 13, season: int = 1, la
                 if prev is not None and prev["demand"] is not None:
                     fva.append(abs(r["demand"] - prev["demand"]) - abs(e))
         n, sd = len(errs), sum(dem)
-        o = {"periods": n, "demand": sd, "forecast": sum(fc), "abs_error": sum(map(abs, errs)), "bias": sum(errs)}
+        o = {
+            "periods": n,
+            "demand": sd,
+            "forecast": sum(fc),
+            "abs_error": sum(map(abs, errs)),
+            "bias": sum(errs),
+        }
         o["bias_pct"] = o["bias"] / sd if sd > 0 else None
         o["wape"] = o["abs_error"] / sd if sd > 0 else None
         o["mae"] = o["abs_error"] / n if n else None
@@ -80,7 +88,11 @@ def oracle(rows: list[dict], *, freq: str, window: int = 13, season: int = 1, la
         nz = [e for e in errs if e != 0]
         o["bias_pvalue"] = binomtest(sum(e > 0 for e in nz), len(nz), 0.5).pvalue if nz else 1.0
         hist = {p: r["demand"] for p, r in by_p.items() if p <= last and r["demand"] is not None}
-        diffs = [abs(d - hist[_step(p, freq, -season)]) for p, d in hist.items() if _step(p, freq, -season) in hist]
+        diffs = [
+            abs(d - hist[_step(p, freq, -season)])
+            for p, d in hist.items()
+            if _step(p, freq, -season) in hist
+        ]
         scale = sum(diffs) / len(diffs) if diffs else None
         o["mase"] = o["mae"] / scale if scale and o["mae"] is not None else None
         o["fva"] = sum(fva) / len(fva) if fva else None
@@ -89,7 +101,9 @@ def oracle(rows: list[dict], *, freq: str, window: int = 13, season: int = 1, la
             mu = sum(pos) / len(pos)
             o["adi"] = len(hist) / len(pos)
             o["cv2"] = (sum((d - mu) ** 2 for d in pos) / len(pos)) / mu**2
-            o["pattern"] = [["smooth", "erratic"], ["intermittent", "lumpy"]][o["adi"] >= 1.32][o["cv2"] >= 0.49]
+            o["pattern"] = [["smooth", "erratic"], ["intermittent", "lumpy"]][o["adi"] >= 1.32][
+                o["cv2"] >= 0.49
+            ]
         else:
             o["adi"] = o["cv2"] = None
             o["pattern"] = "none"
@@ -118,12 +132,15 @@ def assert_matches(want: dict, text: str, keys: tuple[str, ...]) -> list[dict]:
                 assert got == value, (r[keys[0]], column, got, value)
             else:
                 assert got != "" and math.isclose(float(got), value, rel_tol=1e-9, abs_tol=1e-9), (
-                    r[keys[0]], column, got, value,
+                    r[keys[0]],
+                    column,
+                    got,
+                    value,
                 )
     return rows
 
 
-# --------------------------------------------------------------------------- file helpers
+# --- file helpers
 
 
 def weeks(start: str, n: int) -> list[dt.date]:
@@ -132,7 +149,14 @@ def weeks(start: str, n: int) -> list[dt.date]:
 
 
 def row(key, period, demand, forecast, price=None, lag=None) -> dict:
-    return {"key": key, "period": period, "demand": demand, "forecast": forecast, "price": price, "lag": lag}
+    return {
+        "key": key,
+        "period": period,
+        "demand": demand,
+        "forecast": forecast,
+        "price": price,
+        "lag": lag,
+    }
 
 
 def num(x) -> str:
@@ -141,7 +165,9 @@ def num(x) -> str:
     return str(int(x)) if float(x).is_integer() else repr(x)
 
 
-def write_text(path: Path, header: list[str], records: list[list[str]], *, bom=False, eol="\n") -> Path:
+def write_text(
+    path: Path, header: list[str], records: list[list[str]], *, bom=False, eol="\n"
+) -> Path:
     buf = io.StringIO()
     csv.writer(buf, lineterminator=eol).writerows([header, *records])
     path.write_bytes((b"\xef\xbb\xbf" if bom else b"") + buf.getvalue().encode("utf-8"))
@@ -149,7 +175,9 @@ def write_text(path: Path, header: list[str], records: list[list[str]], *, bom=F
 
 
 def simple_records(rows: list[dict]) -> list[list[str]]:
-    return [[r["key"][0], r["period"].isoformat(), num(r["demand"]), num(r["forecast"])] for r in rows]
+    return [
+        [r["key"][0], r["period"].isoformat(), num(r["demand"]), num(r["forecast"])] for r in rows
+    ]
 
 
 def rank_csv(*args: str) -> str:
@@ -195,16 +223,20 @@ def edge_series() -> list[dict]:
     return rows
 
 
-# --------------------------------------------------------------------------- numbers against the oracle
+# --- numbers against the oracle
 
 
 @pytest.mark.parametrize(
     ("args", "options"),
     [(("--window", "4", "--season", "3"), {"window": 4, "season": 3})],
 )
-def test_weekly_file_matches_the_oracle(tmp_path: Path, args: tuple[str, ...], options: dict) -> None:
+def test_weekly_file_matches_the_oracle(
+    tmp_path: Path, args: tuple[str, ...], options: dict
+) -> None:
     rows = basic_weekly()
-    path = write_text(tmp_path / "weekly.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
+    path = write_text(
+        tmp_path / "weekly.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
     assert_matches(oracle(rows, freq="weekly", **options), rank_csv(str(path), *args), ("item",))
 
 
@@ -218,30 +250,59 @@ def test_monthly_priced_located_file_with_shuffled_columns(tmp_path: Path) -> No
         for loc in ("NORTH", "SOUTH", "east"):
             price = round(rng.uniform(1, 90), 2)
             for i, p in enumerate(months):
-                if (loc == "east" and i < 10) or ((item, loc) == ("P-200", "SOUTH") and i in (20, 22)):
+                if (loc == "east" and i < 10) or (
+                    (item, loc) == ("P-200", "SOUTH") and i in (20, 22)
+                ):
                     continue
                 demand = float(rng.choice([0, 0, rng.randint(1, 40)])) if i < 24 else None
-                r = row((item, loc), p, demand, float(rng.randint(0, 30)), price if i % 5 else round(price * 1.1, 2))
+                r = row(
+                    (item, loc),
+                    p,
+                    demand,
+                    float(rng.randint(0, 30)),
+                    price if i % 5 else round(price * 1.1, 2),
+                )
                 rows.append(r)
                 extra.append("pots, planters" if item == "P-100" else "tools")
     header = ["forecast", "planner", "location", "price", "period", "family", "item", "demand"]
     records = [
-        [num(r["forecast"]), "Åsa", r["key"][1], num(r["price"]), r["period"].isoformat(), fam, r["key"][0], num(r["demand"])]
+        [
+            num(r["forecast"]),
+            "Åsa",
+            r["key"][1],
+            num(r["price"]),
+            r["period"].isoformat(),
+            fam,
+            r["key"][0],
+            num(r["demand"]),
+        ]
         for r, fam in zip(rows, extra, strict=True)
     ]
     path = write_text(tmp_path / "monthly.csv", header, records)
-    for args, options in (((), {}), (("--season", "12", "--window", "6"), {"season": 12, "window": 6})):
+    for args, options in (
+        ((), {}),
+        (("--season", "12", "--window", "6"), {"season": 12, "window": 6}),
+    ):
         got = assert_matches(
-            oracle(rows, freq="monthly", priced=True, **options), rank_csv(str(path), *args), ("item", "location")
+            oracle(rows, freq="monthly", priced=True, **options),
+            rank_csv(str(path), *args),
+            ("item", "location"),
         )
         assert {r["family"] for r in got} == {"pots, planters", "tools"}
 
 
-@pytest.mark.parametrize(("args", "options"), [((), {}), (("--window", "3", "--season", "2"), {"window": 3, "season": 2})])
+@pytest.mark.parametrize(
+    ("args", "options"),
+    [((), {}), (("--window", "3", "--season", "2"), {"window": 3, "season": 2})],
+)
 def test_edge_series_match_the_oracle(tmp_path: Path, args: tuple[str, ...], options: dict) -> None:
     rows = edge_series()
-    path = write_text(tmp_path / "edge.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
-    got = assert_matches(oracle(rows, freq="weekly", **options), rank_csv(str(path), *args), ("item",))
+    path = write_text(
+        tmp_path / "edge.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
+    got = assert_matches(
+        oracle(rows, freq="weekly", **options), rank_csv(str(path), *args), ("item",)
+    )
     assert float(got[-1]["cum_share"]) == pytest.approx(1.0)
 
 
@@ -249,7 +310,9 @@ def test_check_counts_on_edge_series(tmp_path: Path) -> None:
     # Counted by hand from edge_series(): 4 gappy + 2 histgap rows missing in the window, 2 window
     # periods without forecast, 1 series with forward rows only, 3 forward periods.
     rows = edge_series()
-    path = write_text(tmp_path / "edge.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
+    path = write_text(
+        tmp_path / "edge.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
     result = run("check", str(path))
     assert result.returncode == 0, result.stderr
     out = result.stdout
@@ -270,11 +333,26 @@ def test_several_lags_scored_one_at_a_time(tmp_path: Path) -> None:
         demand = [float(rng.randint(0, 30)) for _ in range(14)]
         for lag in (0, 1, 2):
             for i, p in enumerate(weeks("2025-04-07", 14)):
-                rows.append(row((item,), p, demand[i] if i < 12 else None, float(rng.randint(0, 30)), lag=lag))
-    records = [[r["key"][0], str(r["lag"]), r["period"].isoformat(), num(r["demand"]), num(r["forecast"])] for r in rows]
-    path = write_text(tmp_path / "lags.csv", ["item", "lag", "period", "demand", "forecast"], records)
+                rows.append(
+                    row(
+                        (item,),
+                        p,
+                        demand[i] if i < 12 else None,
+                        float(rng.randint(0, 30)),
+                        lag=lag,
+                    )
+                )
+    records = [
+        [r["key"][0], str(r["lag"]), r["period"].isoformat(), num(r["demand"]), num(r["forecast"])]
+        for r in rows
+    ]
+    path = write_text(
+        tmp_path / "lags.csv", ["item", "lag", "period", "demand", "forecast"], records
+    )
     for lag in (0, 2):
-        assert_matches(oracle(rows, freq="weekly", lag=lag), rank_csv(str(path), "--lag", str(lag)), ("item",))
+        assert_matches(
+            oracle(rows, freq="weekly", lag=lag), rank_csv(str(path), "--lag", str(lag)), ("item",)
+        )
 
 
 def test_season_52_naive_baseline(tmp_path: Path) -> None:
@@ -287,7 +365,9 @@ def test_season_52_naive_baseline(tmp_path: Path) -> None:
                 continue
             demand = float(10 + i % 52 + rng.randint(-3, 3)) if i < 120 else None
             rows.append(row((item,), p, demand, float(10 + i % 52)))
-    path = write_text(tmp_path / "season.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
+    path = write_text(
+        tmp_path / "season.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
     want = oracle(rows, freq="weekly", season=52, window=26)
     assert_matches(want, rank_csv(str(path), "--season", "52", "--window", "26"), ("item",))
 
@@ -301,18 +381,34 @@ def test_parquet_typed_columns(tmp_path: Path) -> None:
     for item in ("K-1", "K-2"):
         for loc in ("N", "S"):
             for i, p in enumerate(weeks("2025-01-05", 15)):
-                rows.append(row((item, loc), p, float(rng.randint(0, 9)) if i < 13 else None, rng.randint(0, 36) / 4, 2.5))
-    table = pa.table({
-        "item": pa.array([r["key"][0] for r in rows]).dictionary_encode(),
-        "location": [r["key"][1] for r in rows],
-        "period": pa.array([r["period"] for r in rows], pa.date32()),
-        "demand": pa.array([None if r["demand"] is None else int(r["demand"]) for r in rows], pa.int32()),
-        "forecast": pa.array([r["forecast"] for r in rows], pa.float32()),  # quarters: exact in float32
-        "price": [r["price"] for r in rows],
-    })
+                rows.append(
+                    row(
+                        (item, loc),
+                        p,
+                        float(rng.randint(0, 9)) if i < 13 else None,
+                        rng.randint(0, 36) / 4,
+                        2.5,
+                    )
+                )
+    table = pa.table(
+        {
+            "item": pa.array([r["key"][0] for r in rows]).dictionary_encode(),
+            "location": [r["key"][1] for r in rows],
+            "period": pa.array([r["period"] for r in rows], pa.date32()),
+            "demand": pa.array(
+                [None if r["demand"] is None else int(r["demand"]) for r in rows], pa.int32()
+            ),
+            "forecast": pa.array(
+                [r["forecast"] for r in rows], pa.float32()
+            ),  # quarters: exact in float32
+            "price": [r["price"] for r in rows],
+        }
+    )
     path = tmp_path / "typed.parquet"
     pq.write_table(table, path)
-    assert_matches(oracle(rows, freq="weekly", priced=True), rank_csv(str(path)), ("item", "location"))
+    assert_matches(
+        oracle(rows, freq="weekly", priced=True), rank_csv(str(path)), ("item", "location")
+    )
 
 
 def test_xlsx_hidden_first_sheet_and_sheet_option(tmp_path: Path) -> None:
@@ -327,7 +423,9 @@ def test_xlsx_hidden_first_sheet_and_sheet_option(tmp_path: Path) -> None:
     data = book.create_sheet("Demand")
     data.append(["Item", "Period", "Demand", "Forecast"])
     for r in rows:
-        data.append([r["key"][0], dt.datetime.combine(r["period"], dt.time()), r["demand"], r["forecast"]])
+        data.append(
+            [r["key"][0], dt.datetime.combine(r["period"], dt.time()), r["demand"], r["forecast"]]
+        )
     book.create_sheet("Other").append(["item", "period", "demand", "forecast"])
     path = tmp_path / "book.xlsx"
     book.save(path)
@@ -346,27 +444,73 @@ def test_random_priced_portfolio_with_gaps_and_shuffled_rows(tmp_path: Path) -> 
                 continue  # a missing row is missing, never zero
             demand = None
             if i < 34:
-                demand = float({"s": rng.randint(5, 15), "i": rng.choice([0, 0, 0, rng.randint(1, 30)]), "n": rng.randint(-3, 6)}[kind])
+                demand = float(
+                    {
+                        "s": rng.randint(5, 15),
+                        "i": rng.choice([0, 0, 0, rng.randint(1, 30)]),
+                        "n": rng.randint(-3, 6),
+                    }[kind]
+                )
             forecast = None if rng.random() < 0.03 else rng.randint(0, 60) / 4
             rows.append(row((f"it{s % 20:02d}", f"L{s // 20}"), p, demand, forecast, price))
     rng.shuffle(rows)
-    records = [[r["key"][1], r["key"][0], num(r["demand"]), num(r["forecast"]), num(r["price"]), r["period"].isoformat()] for r in rows]
-    path = write_text(tmp_path / "random.csv", ["location", "item", "demand", "forecast", "price", "period"], records)
+    records = [
+        [
+            r["key"][1],
+            r["key"][0],
+            num(r["demand"]),
+            num(r["forecast"]),
+            num(r["price"]),
+            r["period"].isoformat(),
+        ]
+        for r in rows
+    ]
+    path = write_text(
+        tmp_path / "random.csv",
+        ["location", "item", "demand", "forecast", "price", "period"],
+        records,
+    )
     want = oracle(rows, freq="weekly", priced=True, window=8, season=4)
-    assert_matches(want, rank_csv(str(path), "--window", "8", "--season", "4"), ("item", "location"))
+    assert_matches(
+        want, rank_csv(str(path), "--window", "8", "--season", "4"), ("item", "location")
+    )
 
 
-# --------------------------------------------------------------------------- how files are read
+# --- how files are read
 
 
 def test_ids_stay_text_in_csv_and_json(tmp_path: Path) -> None:
     # pandas.read_csv's default na_values would turn NA, null, N/A, nan, #N/A into missing and
     # 00123, 1e5 into numbers; ids must stay exactly as written (issue 2 §2, common practice).
-    ids = ["NA", "00123", "123", "1e5", "TRUE", "null", "N/A", " x", "x", "nan", "-", "#N/A", "L" * 300, "0"]
-    rows = [row((item, loc), p, float(i + len(item) % 3), 4.0)
-            for item in ids for loc in ("NA", "00123") for i, p in enumerate(weeks("2025-02-03", 4))]
-    records = [[r["key"][0], r["key"][1], r["period"].isoformat(), num(r["demand"]), num(r["forecast"])] for r in rows]
-    path = write_text(tmp_path / "ids.csv", ["item", "location", "period", "demand", "forecast"], records)
+    ids = [
+        "NA",
+        "00123",
+        "123",
+        "1e5",
+        "TRUE",
+        "null",
+        "N/A",
+        " x",
+        "x",
+        "nan",
+        "-",
+        "#N/A",
+        "L" * 300,
+        "0",
+    ]
+    rows = [
+        row((item, loc), p, float(i + len(item) % 3), 4.0)
+        for item in ids
+        for loc in ("NA", "00123")
+        for i, p in enumerate(weeks("2025-02-03", 4))
+    ]
+    records = [
+        [r["key"][0], r["key"][1], r["period"].isoformat(), num(r["demand"]), num(r["forecast"])]
+        for r in rows
+    ]
+    path = write_text(
+        tmp_path / "ids.csv", ["item", "location", "period", "demand", "forecast"], records
+    )
     assert_matches(oracle(rows, freq="weekly"), rank_csv(str(path)), ("item", "location"))
     doc = json.loads(run("rank", str(path), "--format", "json").stdout)
     assert {(s["item"], s["location"]) for s in doc["series"]} == {r["key"] for r in rows}
@@ -376,10 +520,19 @@ def test_bom_crlf_quoted_commas_and_unicode_ids(tmp_path: Path) -> None:
     # RFC 4180 (Shafranovich 2005) quoting; U+FEFF byte order mark as Excel's "CSV UTF-8" writes it.
     rng = random.Random(18)
     ids = ["Spaten, groß", "漢字-01", "café", "🌱-seed", 'say "hi"']
-    rows = [row((item,), p, float(rng.randint(0, 9)) if i < 13 else None, float(rng.randint(0, 9)))
-            for item in ids for i, p in enumerate(weeks("2025-03-03", 15))]
+    rows = [
+        row((item,), p, float(rng.randint(0, 9)) if i < 13 else None, float(rng.randint(0, 9)))
+        for item in ids
+        for i, p in enumerate(weeks("2025-03-03", 15))
+    ]
     records = [[*rec, 'a, b; "c"'] for rec in simple_records(rows)]
-    path = write_text(tmp_path / "excel.csv", ["item", "period", "demand", "forecast", "note"], records, bom=True, eol="\r\n")
+    path = write_text(
+        tmp_path / "excel.csv",
+        ["item", "period", "demand", "forecast", "note"],
+        records,
+        bom=True,
+        eol="\r\n",
+    )
     got = assert_matches(oracle(rows, freq="weekly"), rank_csv(str(path)), ("item",))
     assert {r["note"] for r in got} == {'a, b; "c"'}
 
@@ -387,8 +540,17 @@ def test_bom_crlf_quoted_commas_and_unicode_ids(tmp_path: Path) -> None:
 @pytest.mark.parametrize("eol", ["\r", "\n"])
 def test_header_case_spaces_and_line_endings(tmp_path: Path, eol: str) -> None:
     # Old Mac exports end lines with CR alone; headers matched ignoring case and outer spaces.
-    rows = [row((item,), p, float(i), float(10 - i)) for item in "ab" for i, p in enumerate(weeks("2025-01-01", 10))]
-    path = write_text(tmp_path / "h.csv", [" Item ", "PERIOD", "Demand ", "  ForeCast"], simple_records(rows), eol=eol)
+    rows = [
+        row((item,), p, float(i), float(10 - i))
+        for item in "ab"
+        for i, p in enumerate(weeks("2025-01-01", 10))
+    ]
+    path = write_text(
+        tmp_path / "h.csv",
+        [" Item ", "PERIOD", "Demand ", "  ForeCast"],
+        simple_records(rows),
+        eol=eol,
+    )
     assert_matches(oracle(rows, freq="weekly"), rank_csv(str(path)), ("item",))
 
 
@@ -396,7 +558,9 @@ def test_multiline_cell_and_trailing_empty_column(tmp_path: Path) -> None:
     # A quoted line break (RFC 4180) is replaced by the Unicode control picture U+240A on load.
     rows = [row(("a",), p, float(i), 5.0) for i, p in enumerate(weeks("2025-01-06", 6))]
     records = [[*rec, "line1\nline2", ""] for rec in simple_records(rows)]
-    path = write_text(tmp_path / "m.csv", ["item", "period", "demand", "forecast", "comment", ""], records)
+    path = write_text(
+        tmp_path / "m.csv", ["item", "period", "demand", "forecast", "comment", ""], records
+    )
     got = assert_matches(oracle(rows, freq="weekly"), rank_csv(str(path)), ("item",))
     assert got[0]["comment"] == "line1\u240aline2"
 
@@ -411,21 +575,32 @@ def test_missing_markers_are_missing_not_zero(tmp_path: Path) -> None:
     path = tmp_path / "markers.csv"
     path.write_text(text, encoding="utf-8")
     [got] = list(csv.DictReader(io.StringIO(rank_csv(str(path)))))
-    assert got["periods"] == "10" and float(got["demand"]) == 1000.0 and float(got["abs_error"]) == 500.0
+    assert (
+        got["periods"] == "10"
+        and float(got["demand"]) == 1000.0
+        and float(got["abs_error"]) == 500.0
+    )
 
 
 def test_column_mapping_wins_over_a_same_named_column(tmp_path: Path) -> None:
     rows = basic_weekly()
-    records = [[r["key"][0], r["period"].isoformat()[:10], num(r["demand"]), num(r["forecast"]), "999"] for r in rows]
+    records = [
+        [r["key"][0], r["period"].isoformat()[:10], num(r["demand"]), num(r["forecast"]), "999"]
+        for r in rows
+    ]
     path = write_text(tmp_path / "erp.csv", ["SKU", "week", "qty_shipped", "fc", "demand"], records)
     mapping = "item=sku,period=week,demand=qty_shipped,forecast=fc"
-    assert_matches(oracle(rows, freq="weekly"), rank_csv(str(path), "--columns", mapping), ("item",))
+    assert_matches(
+        oracle(rows, freq="weekly"), rank_csv(str(path), "--columns", mapping), ("item",)
+    )
 
 
 def test_a_single_lag_needs_no_lag_option(tmp_path: Path) -> None:
     rows = basic_weekly()
     records = [[*rec, "1"] for rec in simple_records(rows)]
-    path = write_text(tmp_path / "lag1.csv", ["item", "period", "demand", "forecast", "lag"], records)
+    path = write_text(
+        tmp_path / "lag1.csv", ["item", "period", "demand", "forecast", "lag"], records
+    )
     assert_matches(oracle(rows, freq="weekly"), rank_csv(str(path)), ("item",))
 
 
@@ -433,12 +608,16 @@ def test_parquet_numeric_ids_become_text_with_a_notice(tmp_path: Path) -> None:
     pa = pytest.importorskip("pyarrow")
     pq = pytest.importorskip("pyarrow.parquet")
     ps = weeks("2025-01-05", 6)
-    table = pa.table({
-        "item": pa.array([123, 4] * 6, pa.int64()),
-        "period": pa.array([dt.datetime.combine(p, dt.time()) for p in ps for _ in (0, 1)], pa.timestamp("us")),
-        "demand": [1.0, 2.0] * 6,
-        "forecast": [2.0, 2.0] * 6,
-    })
+    table = pa.table(
+        {
+            "item": pa.array([123, 4] * 6, pa.int64()),
+            "period": pa.array(
+                [dt.datetime.combine(p, dt.time()) for p in ps for _ in (0, 1)], pa.timestamp("us")
+            ),
+            "demand": [1.0, 2.0] * 6,
+            "forecast": [2.0, 2.0] * 6,
+        }
+    )
     path = tmp_path / "ints.parquet"
     pq.write_table(table, path)
     assert {r["item"] for r in csv.DictReader(io.StringIO(rank_csv(str(path))))} == {"123", "4"}
@@ -448,9 +627,15 @@ def test_parquet_numeric_ids_become_text_with_a_notice(tmp_path: Path) -> None:
 def test_ties_break_by_key_in_code_point_order(tmp_path: Path) -> None:
     # Equal errors everywhere; order is Python's str ordering (Unicode code points).
     ids = ["b", "B", "a", "A", "10", "9", "Z", "é"]
-    rows = [row((item,), p, 5.0, 7.0 if i % 2 else 3.0) for item in ids for i, p in enumerate(weeks("2025-01-06", 6))]
+    rows = [
+        row((item,), p, 5.0, 7.0 if i % 2 else 3.0)
+        for item in ids
+        for i, p in enumerate(weeks("2025-01-06", 6))
+    ]
     random.Random(19).shuffle(rows)
-    path = write_text(tmp_path / "ties.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
+    path = write_text(
+        tmp_path / "ties.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
     got = [r["item"] for r in csv.DictReader(io.StringIO(rank_csv(str(path))))]
     assert got == sorted(ids)
 
@@ -458,7 +643,9 @@ def test_ties_break_by_key_in_code_point_order(tmp_path: Path) -> None:
 def test_perfect_forecasts_leave_shares_empty(tmp_path: Path) -> None:
     rows = [row((item,), p, 4.0, 4.0, 2.0) for item in "XY" for p in weeks("2025-01-06", 5)]
     records = [[*rec, "2"] for rec in simple_records(rows)]
-    path = write_text(tmp_path / "perfect.csv", ["item", "period", "demand", "forecast", "price"], records)
+    path = write_text(
+        tmp_path / "perfect.csv", ["item", "period", "demand", "forecast", "price"], records
+    )
     assert_matches(oracle(rows, freq="weekly", priced=True), rank_csv(str(path)), ("item",))
 
 
@@ -466,14 +653,21 @@ def test_escape_sequences_in_data_never_reach_the_terminal(tmp_path: Path) -> No
     # ECMA-48 CSI / OSC sequences (colour, window title, hyperlink) and a C1 byte; shown as
     # Unicode Control Pictures (U+2400 block) and U+FFFD.
     evil = ["\x1b[31mRED\x1b[0m", "bell\x07", "title\x1b]0;pwned\x07", "c1\x9bx", "tab\there"]
-    records = [[item, p.isoformat(), str(i + 1), "2", "\x1b]8;;http://x\x07link"]
-               for item in evil for i, p in enumerate(weeks("2025-01-06", 4))]
-    path = write_text(tmp_path / "evil.csv", ["item", "period", "demand", "forecast", "fam\x1b[1m"], records)
+    records = [
+        [item, p.isoformat(), str(i + 1), "2", "\x1b]8;;http://x\x07link"]
+        for item in evil
+        for i, p in enumerate(weeks("2025-01-06", 4))
+    ]
+    path = write_text(
+        tmp_path / "evil.csv", ["item", "period", "demand", "forecast", "fam\x1b[1m"], records
+    )
     for args in (("rank", str(path)), ("rank", str(path), "--format", "csv"), ("check", str(path))):
         result = run(*args)
         assert result.returncode == 0, result.stderr
         text = result.stdout + result.stderr
-        assert not [c for c in text if (ord(c) < 32 and c not in "\n") or 0x7F <= ord(c) <= 0x9F], args
+        assert not [c for c in text if (ord(c) < 32 and c not in "\n") or 0x7F <= ord(c) <= 0x9F], (
+            args
+        )
         if args[0] == "rank":
             assert "\u241b[31mRED" in text, args
 
@@ -481,17 +675,26 @@ def test_escape_sequences_in_data_never_reach_the_terminal(tmp_path: Path) -> No
 def test_closed_week_is_skipped_by_the_window(tmp_path: Path) -> None:
     # Rows exist for week 8 but no series has an actual: the window skips it (docs/metrics.md).
     rng = random.Random(20)
-    rows = [row((item,), p, None if i == 7 or i >= 10 else float(rng.randint(1, 9)), 5.0)
-            for item in ("K1", "K2") for i, p in enumerate(weeks("2025-01-06", 12))]
-    path = write_text(tmp_path / "closed.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
-    assert_matches(oracle(rows, freq="weekly", window=4), rank_csv(str(path), "--window", "4"), ("item",))
+    rows = [
+        row((item,), p, None if i == 7 or i >= 10 else float(rng.randint(1, 9)), 5.0)
+        for item in ("K1", "K2")
+        for i, p in enumerate(weeks("2025-01-06", 12))
+    ]
+    path = write_text(
+        tmp_path / "closed.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
+    assert_matches(
+        oracle(rows, freq="weekly", window=4), rank_csv(str(path), "--window", "4"), ("item",)
+    )
     doc = json.loads(run("rank", str(path), "--format", "json", "--window", "4").stdout)
     assert doc["window"] == {"first": "2025-02-10", "last": "2025-03-10", "periods": 4}
 
 
 def test_by_bias_keeps_cover_on_the_error_order(tmp_path: Path) -> None:
     rows = edge_series()
-    path = write_text(tmp_path / "edge.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
+    path = write_text(
+        tmp_path / "edge.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
     want = oracle(rows, freq="weekly")
     got = list(csv.DictReader(io.StringIO(rank_csv(str(path), "--by", "bias", "--cover", "0.5"))))
     by_error = sorted(want, key=lambda k: want[k]["rank"])
@@ -503,14 +706,20 @@ def test_cover_reaches_a_boundary_despite_rounding(tmp_path: Path) -> None:
     # Ten equal shares: the float running sum of 0.1 is 0.7999999999999999 after eight terms
     # (IEEE 754 double arithmetic), yet 8 series reach 80%.
     rows = [row((f"S{i}",), p, 10.0, 11.0) for i in range(10) for p in weeks("2025-01-06", 2)]
-    path = write_text(tmp_path / "ten.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
+    path = write_text(
+        tmp_path / "ten.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
     for cover, count in (("0.8", 8), ("1", 10)):
-        assert len(list(csv.DictReader(io.StringIO(rank_csv(str(path), "--cover", cover))))) == count
+        assert (
+            len(list(csv.DictReader(io.StringIO(rank_csv(str(path), "--cover", cover))))) == count
+        )
 
 
 def test_output_replaces_an_existing_file(tmp_path: Path) -> None:
     rows = basic_weekly()
-    path = write_text(tmp_path / "weekly.csv", ["item", "period", "demand", "forecast"], simple_records(rows))
+    path = write_text(
+        tmp_path / "weekly.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
+    )
     target = tmp_path / "out.json"
     target.write_text("old report\n", encoding="utf-8")
     result = run("rank", str(path), "--format", "json", "--output", str(target))
@@ -518,28 +727,44 @@ def test_output_replaces_an_existing_file(tmp_path: Path) -> None:
     assert json.loads(target.read_text(encoding="utf-8"))["series"][0]["rank"] == 1
 
 
-# --------------------------------------------------------------------------- bad inputs not covered elsewhere
+# --- bad inputs not covered elsewhere
 
 
 def _write_bad(tmp_path: Path, name: str) -> tuple[Path, tuple[str, ...], tuple[str, ...]]:
     """(file, extra args, needles) for one bad input."""
     h = "item,period,demand,forecast\n"
     if name == "tab separated":
-        return _bytes(tmp_path / "p.csv", b"item\tperiod\tdemand\tforecast\nA\t2025-01-06\t1\t2\n"), (), ("tab-separated",)
+        return (
+            _bytes(tmp_path / "p.csv", b"item\tperiod\tdemand\tforecast\nA\t2025-01-06\t1\t2\n"),
+            (),
+            ("tab-separated",),
+        )
     if name == "only a BOM":
         return _bytes(tmp_path / "p.csv", b"\xef\xbb\xbf"), (), ("empty",)
     if name == "only blank lines":
         return _bytes(tmp_path / "p.csv", b"   \n\n  \n"), (), ("empty",)
     if name == "year 1850":
-        return _bytes(tmp_path / "p.csv", (h + "A,1850-01-07,1,2\n").encode()), (), ("period", "1900-2199", "row 2")
+        return (
+            _bytes(tmp_path / "p.csv", (h + "A,1850-01-07,1,2\n").encode()),
+            (),
+            ("period", "1900-2199", "row 2"),
+        )
     if name == "--sheet on a csv":
-        return _bytes(tmp_path / "p.csv", (h + "A,2025-01-06,1,2\n").encode()), ("--sheet", "X"), ("no sheets",)
+        return (
+            _bytes(tmp_path / "p.csv", (h + "A,2025-01-06,1,2\n").encode()),
+            ("--sheet", "X"),
+            ("no sheets",),
+        )
     if name == "lag not in file":
         content = "item,period,lag,demand,forecast\nA,2025-01-06,0,5,4\nA,2025-01-06,1,5,6\n"
         return _bytes(tmp_path / "p.csv", content.encode()), ("--lag", "7"), ("lag 7", "0, 1")
     if name == "lags disagree on demand":
         content = "item,period,lag,demand,forecast\nA,2025-01-06,0,10,10\nA,2025-01-06,1,20,10\n"
-        return _bytes(tmp_path / "p.csv", content.encode()), ("--lag", "1"), ("different demand", "rows 2, 3")
+        return (
+            _bytes(tmp_path / "p.csv", content.encode()),
+            ("--lag", "1"),
+            ("different demand", "rows 2, 3"),
+        )
     if name == "damaged parquet":
         return _bytes(tmp_path / "p.parquet", b"PAR1garbagePAR"), (), ("Parquet",)
     if name == "damaged xlsx":
@@ -555,12 +780,30 @@ def _write_bad(tmp_path: Path, name: str) -> tuple[Path, tuple[str, ...], tuple[
     pq = pytest.importorskip("pyarrow.parquet")
     path = tmp_path / "p.parquet"
     if name == "parquet text demand":
-        pq.write_table(pa.table({"item": ["A", "A"], "period": ["2025-01-06", "2025-01-13"],
-                                 "demand": ["1", "x"], "forecast": [1.0, 2.0]}), path)
+        pq.write_table(
+            pa.table(
+                {
+                    "item": ["A", "A"],
+                    "period": ["2025-01-06", "2025-01-13"],
+                    "demand": ["1", "x"],
+                    "forecast": [1.0, 2.0],
+                }
+            ),
+            path,
+        )
         return path, (), ("demand", "'x'", "row 2")
     assert name == "parquet infinite demand"
-    pq.write_table(pa.table({"item": ["A", "A"], "period": pa.array([dt.date(2025, 1, 6), dt.date(2025, 1, 13)]),
-                             "demand": [1.0, float("inf")], "forecast": [1.0, 2.0]}), path)
+    pq.write_table(
+        pa.table(
+            {
+                "item": ["A", "A"],
+                "period": pa.array([dt.date(2025, 1, 6), dt.date(2025, 1, 13)]),
+                "demand": [1.0, float("inf")],
+                "forecast": [1.0, 2.0],
+            }
+        ),
+        path,
+    )
     return path, (), ("demand", "finite", "row 2")
 
 
@@ -570,13 +813,21 @@ def _bytes(path: Path, content: bytes) -> Path:
 
 
 BAD = [
-    "tab separated", "only a BOM", "year 1850", "--sheet on a csv", "lag not in file",
-    "lags disagree on demand", "damaged parquet", "damaged xlsx", "unknown xlsx sheet",
-    "parquet text demand", "parquet infinite demand",
+    "tab separated",
+    "only a BOM",
+    "year 1850",
+    "--sheet on a csv",
+    "lag not in file",
+    "lags disagree on demand",
+    "damaged parquet",
+    "damaged xlsx",
+    "unknown xlsx sheet",
+    "parquet text demand",
+    "parquet infinite demand",
 ]
 
 
-BOTH = {"lag not in file", "lags disagree on demand", "unknown xlsx sheet"}
+BOTH = {"lag not in file", "lags disagree on demand"}
 
 
 @pytest.mark.parametrize("name", BAD)
