@@ -8,6 +8,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from triage.core.errors import TriageError
+from triage.core.text import visible as printable
 
 if TYPE_CHECKING:
     from triage.core.config import Config
@@ -34,6 +35,30 @@ def score_args(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--season", type=int, default=1, help="seasonal period of the naive baseline (default 1)"
     )
+
+
+def refuse_overwriting(targets: list[Path] | tuple[Path, ...], *protected: Path | None) -> None:
+    """Refuse to write any of ``targets`` over the portfolio, the ledger, or a folder.
+
+    Raises:
+        TriageError: A target is an existing folder, or the same file as a protected one.
+    """
+    kept = [p for p in protected if p is not None and p.exists()]
+    for target in targets:
+        if target.is_dir():
+            raise TriageError(
+                f"{printable(str(target))} is a folder; give a file name to write to.",
+                hint=f"For example {printable(str(target / 'ranked.csv'))}.",
+            )
+        if not target.exists():
+            continue
+        for original in kept:
+            if target.samefile(original):
+                raise TriageError(
+                    f"{printable(str(target))} is the file being read; writing there would "
+                    "destroy it. Nothing was written.",
+                    hint="Choose another output file name.",
+                )
 
 
 def check_score_args(args: argparse.Namespace) -> None:

@@ -12,7 +12,7 @@ from collections.abc import Iterable, Sequence
 from pathlib import Path
 
 from triage import __version__
-from triage.arguments import check_score_args, portfolio_args, score_args
+from triage.arguments import check_score_args, portfolio_args, refuse_overwriting, score_args
 from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
@@ -108,14 +108,21 @@ def _load(args: argparse.Namespace):  # noqa: ANN202 - Portfolio, imported lazil
 
 def _cmd_rank(args: argparse.Namespace) -> int:
     from triage.core import output as report
+    from triage.core.text import visible
     from triage.core.ranking import leading_cover, scorecard
 
     check_score_args(args)
+    if args.output is not None:
+        refuse_overwriting([args.output], args.portfolio)
     if args.top is not None and args.top < 1:
         raise TriageError(f"--top must be at least 1, not {args.top}.")
     if args.cover is not None and not 0 < args.cover <= 1:
         raise TriageError(f"--cover must be a fraction in (0, 1], e.g. 0.8, not {args.cover}.")
     portfolio = _load(args)
+    for notice in portfolio.notices:
+        # What the loader changed or skipped (ids kept as text, replaced control characters, a
+        # hidden sheet, renamed columns) is said on standard error, whatever the format.
+        print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
     card = scorecard(portfolio, args.window, args.season, by=args.by)
     shown = card
     if args.cover is not None:

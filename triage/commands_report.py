@@ -19,7 +19,7 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from triage.arguments import check_score_args, open_ledger_read_only, warn
+from triage.arguments import check_score_args, open_ledger_read_only, refuse_overwriting, warn
 from triage.core.errors import TriageError
 
 if TYPE_CHECKING:
@@ -225,11 +225,13 @@ def cmd_report(args: argparse.Namespace) -> int:
     repeat_n, repeat_m = parse_repeat(args.repeat)
     config = _config(args)
     ledger_path = _ledger_path(args, required=False)
+    if args.to is not None:
+        refuse_overwriting([args.to], args.portfolio, ledger_path)
     portfolio = _load(args)
     target_share = args.cover if args.cover is not None else config.target_share
     if ledger_path is None:
         warn(
-            f"No decisions have been recorded for {portfolio.path.name}; the report has no "
+            f"No decisions have been recorded for {printable(portfolio.path.name)}; the report has no "
             "decisions or overrides. Pass --ledger PATH if they are kept elsewhere."
         )
     opened = (

@@ -32,6 +32,31 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
         ("--lag", "lags"),
     ),
     "ragged row": ((HEADER + "A,2026-10-05,1,2,3\n" + GOOD).encode(), ("line", "fields")),
+    # Issue 2, section 2: the calendar must be weekly or monthly. A fortnightly export is not
+    # a weekly one with every other week missing (the naive forecast would compare two weeks).
+    "fortnightly calendar": (
+        (HEADER + "".join(f"A,2026-{m:02d}-{d:02d},5,6\n" for m, d in
+                          [(7, 6), (7, 20), (8, 3), (8, 17), (8, 31), (9, 14)])).encode(),
+        ("multiple of 2 weeks", "weekly or monthly"),
+    ),
+    "yearly calendar": (
+        (HEADER + "".join(f"A,{y}-01-01,5,6\n" for y in range(2019, 2027))).encode(),
+        ("multiple of 12 months",),
+    ),
+    # A binary file with a .csv name is named for what it is (file signatures: PKWARE
+    # APPNOTE.TXT "local file header" 0x04034b50; Apache Parquet format spec, magic "PAR1";
+    # RFC 1952, gzip ID1 ID2 = 0x1f 0x8b).
+    "workbook named .csv": (b"PK\x03\x04\x14\x00\x06\x00" + bytes(64), ("zip", ".xlsx")),
+    "parquet named .csv": (b"PAR1\x15\x04" + bytes(64), ("Parquet", "Rename it to .parquet")),
+    "gzip named .csv": (b"\x1f\x8b\x08\x00" + bytes(64), ("gzip",)),
+    # One mistyped year stretches the calendar over a century of empty weeks (common practice:
+    # the commonest date typo in hand-kept files).
+    "mistyped year": (
+        (HEADER + "A,1926-10-05,5,6\n" + "".join(
+            f"A,2026-{m:02d}-{d:02d},5,6\n" for m, d in [(10, 5), (10, 12), (10, 19)]
+        )).replace("A,1926-10-05", "A,1926-10-04").encode(),
+        ("no row has a period", "mistyped", "1926-10-04 (row 2)"),
+    ),
 }
 
 
@@ -49,3 +74,12 @@ def test_bad_input_exits_2_with_a_message(tmp_path: Path, name: str, command: st
     assert "portfolio.csv" in message, message
     for needle in needles:
         assert needle.lower() in message.lower(), (name, needle, message)
+
+
+def test_lag_option_without_a_lag_column_is_refused(tmp_path: Path) -> None:
+    # Issue 2, section 2: metrics never mix lags, so a lag asked for must exist in the file.
+    path = tmp_path / "portfolio.csv"
+    path.write_text(HEADER + GOOD, encoding="utf-8")
+    result = run("rank", str(path), "--lag", "2")
+    assert result.returncode == 2
+    assert "--lag 2" in result.stderr and "no 'lag' column" in result.stderr

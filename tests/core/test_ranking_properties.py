@@ -130,7 +130,8 @@ def test_shares_add_up(data, ws) -> None:
     assert (np.diff(by_rank["abs_error_value" if priced else "abs_error"].to_numpy()) <= 0).all()
     if error.sum() > 0:
         assert card["error_share"].sum() == pytest.approx(1.0, rel=1e-12)
-        assert cum[-1] == pytest.approx(1.0, rel=1e-12)
+        # Issue 2, section 5: cum_share ends at 1, exactly (not 0.9999999999999999).
+        assert cum[-1] == 1.0
         assert (np.diff(cum) >= 0).all()
         np.testing.assert_allclose(cum, np.cumsum(by_rank["error_share"].to_numpy()), rtol=1e-12)
     else:

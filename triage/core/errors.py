@@ -4,6 +4,8 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from triage.core.text import visible
+
 
 class TriageError(Exception):
     """A problem the user can fix; the command line prints it without a traceback."""
@@ -16,9 +18,10 @@ class TriageError(Exception):
         self.hint = hint
 
     def __str__(self) -> str:
-        if self.hint:
-            return f"{self.message}\n  What to do: {self.hint}"
-        return self.message
+        # File names and cell text in a message reach the terminal: their control characters
+        # (an ESC in a file name could retitle the window) are shown as visible symbols.
+        text = f"{self.message}\n  What to do: {self.hint}" if self.hint else self.message
+        return visible(text, multiline=True)
 
 
 class LoadError(TriageError):

@@ -427,13 +427,30 @@ def _plan_columns(
         )
     attributes: dict[int, str] = {}
     unnamed: list[int] = []
+    taken = {h.lower() for h in headers} | set(schema.SCORE_COLUMNS) | set(schema.KNOWN)
+    renamed: list[str] = []
     for position, header in enumerate(headers):
         if roles[position] == "":
             roles[position] = None
         elif roles[position] is None and header:
-            attributes[position] = header
+            name = header
+            if header.lower() in schema.SCORE_COLUMNS:
+                # A column triage computes (rank, pattern, ...) keeps its values under a name of
+                # its own, never in place of triage's.
+                name = f"{header}_file"
+                while name.lower() in taken:
+                    name += "_"
+                taken.add(name.lower())
+                renamed.append(f"'{header}' (now '{name}')")
+            attributes[position] = name
         elif roles[position] is None:
             unnamed.append(position)
+    if renamed:
+        notices.append(
+            f"{'Column' if len(renamed) == 1 else 'Columns'} {', '.join(renamed)} kept as "
+            f"{'an attribute' if len(renamed) == 1 else 'attributes'} under a new name: triage "
+            "computes a column of that name itself."
+        )
     return _Plan(headers, roles, attributes, unnamed)
 
 
@@ -462,6 +479,8 @@ def _prescan_csv(path: Path) -> _CsvScan:
         while chunk := handle.read(_CHUNK):
             if len(head) < _HEADER_BYTES:
                 head += chunk[: _HEADER_BYTES - len(head)]
+            if not size:
+                _refuse_binary(path, chunk)
             if not size and chunk.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
                 _fail(
                     path,
@@ -485,6 +504,24 @@ def _prescan_csv(path: Path) -> _CsvScan:
         _not_utf8(path)
     newline = 13 if has_cr and not has_lf else 10
     return _CsvScan(size, commas, has_quotes, newline, head)
+
+
+#: File signatures of formats that are not CSV text: (leading bytes, what it is, what to do).
+_SIGNATURES: tuple[tuple[bytes, str, str], ...] = (
+    (b"PK\x03\x04", "a zip archive, which is what an Excel workbook (.xlsx) is",
+     "If it is a workbook, rename it to .xlsx; if it is a zip file, unpack it first."),
+    (b"PAR1", "a Parquet file", "Rename it to .parquet."),
+    (b"\x1f\x8b", "gzip-compressed", "Unpack it first (gunzip), then load the .csv inside."),
+    (b"\xd0\xcf\x11\xe0", "an old Excel .xls workbook",
+     "Open it in Excel or LibreOffice and save it as .xlsx or as CSV UTF-8."),
+)  # fmt: skip
+
+
+def _refuse_binary(path: Path, head: bytes) -> None:
+    """Name the format of a binary file that carries a .csv name (instead of "not UTF-8")."""
+    for signature, what, hint in _SIGNATURES:
+        if head.startswith(signature):
+            _fail(path, f"this is not CSV text: the file is {what}.", hint)
 
 
 def _not_utf8(path: Path) -> NoReturn:

@@ -26,6 +26,7 @@ from rich.text import Text
 
 from triage.core import metrics, schema
 from triage.core.portfolio import Portfolio
+from triage.core.text import visible
 
 #: Rows a ``table`` shows when neither --top nor --cover is given.
 TABLE_DEFAULT_ROWS = 25
@@ -327,7 +328,7 @@ def rank_table(
     tot = totals(card)
     win = window_info(portfolio, window)
     lines = [
-        f"{portfolio.path.name}: {len(card):,} series, {portfolio.calendar.freq}, "
+        f"{visible(portfolio.path.name)}: {len(card):,} series, {portfolio.calendar.freq}, "
         f"window {win['first']} .. {win['last']} ({win['periods']} periods)"
         + (f", lag {portfolio.lag}" if portfolio.lag is not None else ""),
         "error = forecast - demand; 'over' = forecast above demand",
@@ -443,7 +444,7 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
     counts = np.bincount(pattern.pattern, minlength=len(metrics.PATTERNS))
 
     lines = [
-        f"file           {portfolio.path}",
+        f"file           {visible(str(portfolio.path))}",
         f"rows           {portfolio.rows:,}",
         f"series         {portfolio.n_series:,} (key: {', '.join(portfolio.key_columns)})",
         f"calendar       {cal.freq}, {cal.label(0)} .. {cal.label(len(cal.periods) - 1)} "
@@ -469,7 +470,7 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
         f"negative demand   {int((hist < 0).sum()):,} periods (returns; counted as demand)",
         f"zero demand       {int((hist == 0).sum()):,} periods",
         f"no actual demand  {no_actual_series:,} series (nothing to score)",
-        f"only zero demand  {zero_only:,} series",
+        f"none above zero   {zero_only:,} series (actuals, but every one zero or negative)",
         "patterns          "
         + ", ".join(f"{name} {int(c):,}" for name, c in zip(metrics.PATTERNS, counts, strict=True)),
     ]

@@ -310,7 +310,7 @@ def build_portfolio(
     has_price = schema.PRICE in frame.columns
 
     series, keys_unique = _series_codes(frame, key_columns)
-    calendar, period = _calendar_codes(loaded)
+    calendar, period = _calendar_codes(loaded, len(keys_unique))
     n_series, n_periods = len(keys_unique), len(calendar.periods)
 
     demand_col = frame[schema.DEMAND].to_numpy(dtype=np.float64)
@@ -325,6 +325,13 @@ def build_portfolio(
     lag_col = frame[schema.LAG].to_numpy(dtype=np.int64) if has_lag else None
     _check_duplicates(loaded, series, period, lag_col, key_columns, n_series, n_periods)
     lags = _history_lags(lag_col, period, last_actual) if lag_col is not None else ()
+    if lag is not None and not has_lag:
+        raise LoadError(
+            path,
+            f"--lag {lag} was given, but the file has no '{schema.LAG}' column: every forecast "
+            "in it is of one (unnamed) lag.",
+            hint="Leave out --lag, or load the file that holds the forecast lags.",
+        )
     chosen = _choose_lag(path, lags, lag) if has_lag else None
 
     # The later steps need the keys' codes only; the rows' key columns can go.
@@ -457,6 +464,8 @@ def _build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
     has_price = schema.PRICE in source.columns
     key_columns = (schema.ITEM, schema.LOCATION) if has_location else (schema.ITEM,)
     small = np.iinfo(np.int16)
+    if lag is not None and not has_lag:
+        raise FastPathDeclined("--lag without a lag column")
 
     # Pass 1: keys and periods. Day numbers are kept as int16 offsets from the first row's.
     item = np.empty(n_rows, dtype=np.int32)
@@ -522,6 +531,8 @@ def _build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
     if found is None:
         raise FastPathDeclined("irregular calendar")
     calendar, unique_codes = found
+    if _calendar_problem(calendar, unique_codes, n_rows, n_series) is not None:
+        raise FastPathDeclined("calendar")
     n_periods = len(calendar.periods)
     if n_series * n_periods >= np.iinfo(np.int32).max or n_periods > small.max:
         raise FastPathDeclined("too many cells")
@@ -732,7 +743,7 @@ def _pair_codes(
     return series.astype(_index_dtype(len(pairs)), copy=False), keys
 
 
-def _calendar_codes(loaded: LoadedLike) -> tuple[Calendar, np.ndarray]:
+def _calendar_codes(loaded: LoadedLike, n_series: int) -> tuple[Calendar, np.ndarray]:
     """Infer a weekly or monthly calendar and number every row's period on it."""
     column = loaded.frame[schema.PERIOD]
     stamps = column.to_numpy(dtype="datetime64[ns]").view(np.int64)
@@ -741,10 +752,76 @@ def _calendar_codes(loaded: LoadedLike) -> tuple[Calendar, np.ndarray]:
     if found is None:
         _irregular_calendar(loaded, pd.DatetimeIndex(column), uniques)
     calendar, unique_codes = found
+    problem = _calendar_problem(calendar, unique_codes, len(stamps), n_series)
+    if problem is not None:
+        message, hint, suspects = problem
+        rows = np.flatnonzero(np.isin(inverse, np.flatnonzero(np.isin(unique_codes, suspects))))
+        shown = ", ".join(
+            f"{calendar.label(int(unique_codes[inverse[i]]))} (row {loaded.rows([i])[0]})"
+            for i in rows[:EXAMPLES]
+        )
+        raise LoadError(loaded.path, f"{message}{f' Rows to check: {shown}.' if shown else ''}", hint=hint)
     codes = np.empty(len(inverse), dtype=_index_dtype(len(calendar.periods)))
     for lo in range(0, len(inverse), _ROWS):
         codes[lo : lo + _ROWS] = unique_codes[inverse[lo : lo + _ROWS]]
     return calendar, codes
+
+
+#: Distinct periods from which a calendar whose periods are all k > 1 steps apart is refused.
+MIN_PERIODS_FOR_SPACING = 6
+#: Longest run of calendar periods that no row uses, inside the calendar, by frequency.
+MAX_EMPTY_STRETCH = {schema.WEEKLY: 53, schema.MONTHLY: 24}
+#: A calendar this many cells long per row (series x periods / rows) is refused as too sparse.
+MAX_CELLS_PER_ROW = 20
+#: ... once the dense arrays would hold at least this many cells.
+SPARSE_FLOOR = 50_000_000
+
+
+def _calendar_problem(
+    calendar: Calendar, codes: np.ndarray, n_rows: int, n_series: int | None = None
+) -> tuple[str, str, np.ndarray] | None:
+    """Why a weekly or monthly calendar cannot be right, or None.
+
+    Periods further apart than one step throughout (fortnightly, quarterly, yearly files), and a
+    long stretch that no row uses (a mistyped year makes a calendar of decades). Returns the
+    message, the hint, and the calendar columns whose rows to show as examples.
+    """
+    unit = "weeks" if calendar.freq == schema.WEEKLY else "months"
+    gaps = np.diff(codes)
+    # Six or more distinct periods, all a multiple of k steps apart, are k-weekly (or k-monthly)
+    # buckets; with fewer, a weekly file with gaps is as likely.
+    if len(gaps) >= MIN_PERIODS_FOR_SPACING - 1 and (step := int(np.gcd.reduce(gaps))) > 1:
+        return (
+            f"every period is a multiple of {step} {unit} after the first "
+            f"({calendar.label(int(codes[0]))}, {calendar.label(int(codes[1]))}, ...): "
+            "triage scores weekly or monthly periods, and this calendar is neither.",
+            "Export one row per series and week (or per month); fortnightly, quarterly or "
+            "yearly buckets cannot be scored against a weekly or monthly naive forecast.",
+            codes[:0],
+        )
+    widest = int(np.argmax(gaps)) if len(gaps) else 0
+    if len(gaps) and gaps[widest] - 1 > MAX_EMPTY_STRETCH[calendar.freq]:
+        before, after = codes[: widest + 1], codes[widest + 1 :]
+        smaller = before if len(before) <= len(after) else after
+        return (
+            f"no row has a period from {calendar.label(int(codes[widest]) + 1)} to "
+            f"{calendar.label(int(codes[widest + 1]) - 1)} ({int(gaps[widest]) - 1:,} {unit}), "
+            f"inside a calendar that runs from {calendar.label(0)} to "
+            f"{calendar.label(len(calendar.periods) - 1)}: a year is probably mistyped.",
+            "Correct the periods of the rows shown (or remove them), then load the file again.",
+            smaller[:EXAMPLES],
+        )
+    cells = (n_series or 0) * len(calendar.periods)
+    if n_series is not None and cells >= SPARSE_FLOOR and cells > MAX_CELLS_PER_ROW * n_rows:
+        return (
+            f"the calendar runs from {calendar.label(0)} to "
+            f"{calendar.label(len(calendar.periods) - 1)} ({len(calendar.periods):,} {unit}) for "
+            f"{n_series:,} series, but the file has only {n_rows:,} rows: the series x period "
+            f"arrays would be {cells / max(n_rows, 1):,.0f} times larger than the file.",
+            "Check the periods for mistyped years, or load only the years you want scored.",
+            codes[:1],
+        )
+    return None
 
 
 def _unique_stamps(stamps: np.ndarray) -> tuple[np.ndarray, pd.DatetimeIndex]:

@@ -96,10 +96,13 @@ def scorecard(
         bias_rank = np.empty(n, dtype=np.int64)
         bias_rank[bias_order] = np.arange(1, n + 1)
 
-        total = float(error.sum())
+        # The total is the running sum's last value, so that cum_share ends at exactly 1.0
+        # (a sum of rounded shares, or a pairwise sum, can end at 0.9999999999999999).
+        running = np.cumsum(error[error_order])
+        total = float(running[-1]) if n else 0.0
         share = error / total if total > 0 else np.full(n, np.nan)
         cum = np.empty(n)
-        cum[error_order] = np.cumsum(share[error_order])
+        cum[error_order] = running / total if total > 0 else np.nan
         mae = wm.mae
         order = error_order if by == BY_ERROR else bias_order
 

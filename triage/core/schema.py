@@ -25,6 +25,15 @@ NUMERIC: tuple[str, ...] = (DEMAND, FORECAST, PRICE)
 #: Columns that identify a series, in sort order.
 KEY_ORDER: tuple[str, ...] = (ITEM, LOCATION)
 
+#: Columns the scorecard computes (``ranking.scorecard``), besides the key columns. A file
+#: column of the same name (any case) is kept as an attribute under another name.
+SCORE_COLUMNS: tuple[str, ...] = (
+    "rank", "bias_rank", "periods", "demand", "forecast", "abs_error", "bias", "bias_pct",
+    "wape", "mae", "rmse", "abs_error_value", "bias_value", "error_share", "cum_share",
+    "tracking_signal", "bias_run", "bias_pvalue", "bias_flag", "mase", "fva", "pattern", "adi",
+    "cv2",
+)  # fmt: skip
+
 #: Cell text that means "no value" in a numeric column. Text columns have no missing tokens:
 #: an item called ``NA`` is an item called ``NA``.
 NUMERIC_MISSING: tuple[str, ...] = ("", "NA", "N/A", "n/a", "#N/A", "-", "NaN", "nan", "null", "NULL")

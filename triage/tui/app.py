@@ -385,7 +385,7 @@ class TriageApp(App[None]):
         target = f"target {prog.target * 100:.0f}%" + (f", {prog.to_target} more" if prog.to_target else " reached")
         error = "" if self.has_class("-narrow") else f" · abs err {fmt.compact(tot['abs_error'])}{value}"
         summary = Text.assemble(
-            (fmt.clip(p.path.name, 40), "bold"),
+            (fmt.clip(visible(p.path.name), 40), "bold"),
             f" · {p.n_series:,} series · cycle {p.cycle}{error}"
             f" · bias {fmt.signed_pct(tot['bias_pct'])[0] or 'n/a'} · WAPE {fmt.pct(tot['wape']) or 'n/a'}\n",
             (f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})", "bold"),
