@@ -108,8 +108,8 @@ def _load(args: argparse.Namespace):  # noqa: ANN202 - Portfolio, imported lazil
 
 def _cmd_rank(args: argparse.Namespace) -> int:
     from triage.core import output as report
-    from triage.core.text import visible
     from triage.core.ranking import leading_cover, scorecard
+    from triage.core.text import visible
 
     check_score_args(args)
     if args.output is not None:
