@@ -123,6 +123,12 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         # What the loader changed or skipped (ids kept as text, replaced control characters, a
         # hidden sheet, renamed columns) is said on standard error, whatever the format.
         print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
+    problem = report.unscorable(portfolio, args.window)
+    if problem is not None:
+        raise TriageError(
+            f"{portfolio.path}: {problem}",
+            hint="Include the forecasts that were made for the latest periods with actuals.",
+        )
     card = scorecard(portfolio, args.window, args.season, by=args.by)
     shown = card
     if args.cover is not None:
@@ -151,6 +157,12 @@ def _cmd_check(args: argparse.Namespace) -> int:
     check_score_args(args)
     portfolio = _load(args)
     print(report.check_text(portfolio, args.window, args.season))
+    problem = report.unscorable(portfolio, args.window)
+    if problem is not None:
+        raise TriageError(
+            f"{portfolio.path}: {problem}",
+            hint="Include the forecasts that were made for the latest periods with actuals.",
+        )
     return 0
 
 

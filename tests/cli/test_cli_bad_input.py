@@ -49,6 +49,18 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
     "workbook named .csv": (b"PK\x03\x04\x14\x00\x06\x00" + bytes(64), ("zip", ".xlsx")),
     "parquet named .csv": (b"PAR1\x15\x04" + bytes(64), ("Parquet", "Rename it to .parquet")),
     "gzip named .csv": (b"\x1f\x8b\x08\x00" + bytes(64), ("gzip",)),
+    # Monthly periods are month starts (docs/input-format.md); the 15th of every month is
+    # named as such, not as "not on a Wednesday".
+    "mid-month periods": (
+        (HEADER + "A,2025-01-15,1,2\nA,2025-02-15,3,2\nA,2025-03-15,3,2\n").encode(),
+        ("day 15 of its month", "1st of the month"),
+    ),
+    # Issue 2, section 3: only window periods with both an actual and a forecast count; with
+    # none there is nothing to score, and `check` must not say "ok".
+    "no forecast in the window": (
+        (HEADER + "A,2026-10-05,1,\nA,2026-10-12,2,\nA,2026-10-19,,5\n").encode(),
+        ("nothing to score",),
+    ),
     # One mistyped year stretches the calendar over a century of empty weeks (common practice:
     # the commonest date typo in hand-kept files).
     "mistyped year": (
@@ -60,6 +72,10 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
 }
 
 
+#: Files that load but cannot be scored: `check` still prints its report, then says "not ok".
+REPORT_FIRST = {"no forecast in the window"}
+
+
 @pytest.mark.parametrize("name", sorted(CASES))
 @pytest.mark.parametrize("command", ["rank", "check"])
 def test_bad_input_exits_2_with_a_message(tmp_path: Path, name: str, command: str) -> None:
@@ -68,7 +84,10 @@ def test_bad_input_exits_2_with_a_message(tmp_path: Path, name: str, command: st
     path.write_bytes(content)
     result = run(command, str(path))
     assert result.returncode == 2, (name, result.stdout, result.stderr)
-    assert result.stdout == ""
+    if command == "check" and name in REPORT_FIRST:
+        assert result.stdout.rstrip().splitlines()[-1].startswith("not ok:")
+    else:
+        assert result.stdout == ""
     assert "Traceback" not in result.stderr
     message = result.stderr
     assert "portfolio.csv" in message, message

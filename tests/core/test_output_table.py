@@ -27,7 +27,8 @@ def table_at(width: int, monkeypatch: pytest.MonkeyPatch) -> list[str]:
 
 
 def table_rows(lines: list[str]) -> list[str]:
-    start = next(i for i, line in enumerate(lines) if line.split()[:1] == ["rank"])
+    start = next(i for i, line in enumerate(lines) if line.split()[:1] == ["rank"]
+                 or line.split()[:2] == ["bias", "rank"])
     return lines[start : start + 11]
 
 
@@ -54,3 +55,18 @@ def test_narrow_terminal_drops_columns_and_says_so(
     note = " ".join(line for line in lines if "not shown" in line or "--format csv for every" in line)
     assert f"not shown at {width} columns" in note
     assert "pattern" in note and "pattern" not in header
+
+
+def test_signed_numbers_carry_their_direction_and_bias_order_shows_the_bias_rank(
+    monkeypatch: pytest.MonkeyPatch,
+) -> None:
+    # Issue 2, section 3: "over"/"under" beside signed numbers in human output; e = F - A.
+    monkeypatch.setenv("COLUMNS", "200")
+    portfolio = read_portfolio(SAMPLE)
+    card = scorecard(portfolio, by="bias")
+    text = output.rank_table(portfolio, card, card.iloc[:10], 13, 1, by="bias")
+    rows = table_rows(text.splitlines())
+    assert rows[0].split()[:3] == ["bias", "rank", "item"]
+    assert [int(r.split()[0]) for r in rows[1:]] == list(range(1, 11))
+    for row, ts in zip(rows[1:], card["tracking_signal"].iloc[:10], strict=True):
+        assert (f"{ts:+.1f} over" if ts > 0 else f"{ts:+.1f} under") in row

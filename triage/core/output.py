@@ -310,8 +310,41 @@ def _num(value: float, fmt: str = ",.0f") -> str:
     return "" if value is None or math.isnan(value) else format(value, fmt)
 
 
+def _signed(value: float, fmt: str) -> str:
+    """A signed number with "over"/"under" beside it; empty when undefined."""
+    if value is None or math.isnan(value):
+        return ""
+    word = " over" if value > 0 else " under" if value < 0 else ""
+    return f"{format(value, fmt)}{word}"
+
+
+def _bias_text(fraction: float, bias: float) -> str:
+    """Bias as a share of demand, or only its direction when that share is undefined."""
+    if fraction is None or math.isnan(fraction):
+        if bias is None or math.isnan(bias) or bias == 0:
+            return ""
+        return "over" if bias > 0 else "under"
+    return signed_pct(fraction)
+
+
 def _pct(value: float) -> str:
     return "" if value is None or math.isnan(value) else f"{value * 100:.1f}%"
+
+
+def unscorable(portfolio: Portfolio, window: int) -> str | None:
+    """Why nothing in the window can be scored (no period has both an actual and a forecast)."""
+    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+    for rows in range(0, portfolio.n_series, 1 << 15):
+        block = slice(rows, rows + (1 << 15))
+        both = ~np.isnan(portfolio.demand[block][:, cols]) & ~np.isnan(
+            portfolio.forecast[block][:, cols]
+        )
+        if both.any():
+            return None
+    return (
+        f"no period of the scoring window ({len(cols)} latest periods with actual demand) has "
+        "both an actual and a forecast, so there is nothing to score."
+    )
 
 
 def rank_table(
@@ -329,7 +362,7 @@ def rank_table(
     win = window_info(portfolio, window)
     lines = [
         f"{visible(portfolio.path.name)}: {len(card):,} series, {portfolio.calendar.freq}, "
-        f"window {win['first']} .. {win['last']} ({win['periods']} periods)"
+        f"window {win['first']} .. {win['last']} ({win['periods']} period{'' if win['periods'] == 1 else 's'})"
         + (f", lag {portfolio.lag}" if portfolio.lag is not None else ""),
         "error = forecast - demand; 'over' = forecast above demand",
         f"total absolute error {_num(tot['abs_error'])} units"
@@ -344,7 +377,12 @@ def rank_table(
     # (header, justify, cells, priority): when the terminal is too narrow for every column, the
     # highest priority numbers go first (pattern, then run, ...); the rest are never cut short.
     columns: list[tuple[str, str, list[Any], int]] = [
-        ("rank", "right", [str(v) for v in shown["rank"]], 0),
+        (
+            "bias rank" if by == "bias" else "rank",
+            "right",
+            [str(v) for v in shown["bias_rank" if by == "bias" else "rank"]],
+            0,
+        ),
         (schema.ITEM, "left", [Text(str(v)) for v in shown[schema.ITEM]], 0),
         *(
             [(schema.LOCATION, "left", [Text(str(v)) for v in shown[schema.LOCATION]], 0)]
@@ -354,9 +392,14 @@ def rank_table(
         ("share", "right", [_pct(v) for v in shown["error_share"]], 0),
         ("cum", "right", [_pct(v) for v in shown["cum_share"]], 4),
         ("abs err" + (" value" if priced else ""), "right", [_num(v) for v in shown[err_col]], 0),
-        ("bias %", "right", [signed_pct(v) for v in shown["bias_pct"]], 0),
+        (
+            "bias %",
+            "right",
+            [_bias_text(p, b) for p, b in zip(shown["bias_pct"], shown["bias"], strict=True)],
+            0,
+        ),
         ("WAPE", "right", [_pct(v) for v in shown["wape"]], 3),
-        ("TS", "right", [_num(v, "+.1f") for v in shown["tracking_signal"]], 2),
+        ("TS", "right", [_signed(v, "+.1f") for v in shown["tracking_signal"]], 2),
         ("run", "right", [_run_text(v) for v in shown["bias_run"]], 1),
         ("persistent", "left", list(shown["bias_flag"]), 0),
         ("pattern", "left", list(shown["pattern"]), 5),
@@ -478,5 +521,6 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
         lines.append("")
         lines.extend(f"note: {n}" for n in portfolio.notices)
     lines.append("")
-    lines.append("ok: the file can be scored")
+    problem = unscorable(portfolio, window)
+    lines.append("ok: the file can be scored" if problem is None else f"not ok: {problem}")
     return "\n".join(lines)

@@ -880,6 +880,17 @@ def _irregular_calendar(
     """Report the periods that break the most common pattern (irregular calendars only)."""
     path = loaded.path
     weekday = pd.Series(uniques.day_of_week).mode().iloc[0]
+    days = pd.Series(uniques.day)
+    month_apart = (np.diff(uniques.to_numpy()) > np.timedelta64(27, "D")).all()
+    if days.nunique() == 1 and len(uniques) > 1 and month_apart:
+        day = int(days.iloc[0])
+        raise LoadError(
+            path,
+            f"every period in column '{schema.PERIOD}' is day {day} of its month (e.g. "
+            f"{uniques[0].strftime('%Y-%m-%d')}): monthly periods must be the 1st of the month.",
+            hint="Write monthly periods as the month's first day (2025-01-01) or as YYYY-MM "
+            "(2025-01).",
+        )
     if (uniques.day == 1).mean() > 0.5:
         bad = stamps.day != 1
         expected = "the first day of a month (monthly periods)"
@@ -894,7 +905,8 @@ def _irregular_calendar(
     )
     raise LoadError(
         path,
-        f"irregular calendar in column '{schema.PERIOD}': {len(positions)} rows are not on "
+        f"irregular calendar in column '{schema.PERIOD}': {len(positions)} "
+        f"{'row is' if len(positions) == 1 else 'rows are'} not on "
         f"{expected}, e.g. {examples}.",
         hint="Use one period per week (all the same weekday) or per month (the 1st, or YYYY-MM).",
     )
@@ -1039,7 +1051,7 @@ def _merge_other_lag_demand(
         bad = np.sort(np.concatenate([order[clash], ref[clash]]))
         raise LoadError(
             loaded.path,
-            f"{int(clash.sum())} rows give a different demand for the same series and period "
+            f"{int(clash.sum())} {'row gives' if int(clash.sum()) == 1 else 'rows give'} a different demand for the same series and period "
             f"at another lag, at {format_rows(loaded.rows(np.unique(bad)))}.",
             hint="Demand is the actual; it must be the same on every lag row of a period.",
         )
