@@ -61,6 +61,15 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
         (HEADER + "A,2026-10-05,1,\nA,2026-10-12,2,\nA,2026-10-19,,5\n").encode(),
         ("nothing to score",),
     ),
+    # 30,000 one-row series spread over three centuries: 108M cells for 30k rows (the arrays
+    # would need 1.7 GB); refused before they are allocated (reliability.md: bad input must not
+    # exhaust memory).
+    "sparse calendar": (
+        (HEADER + "".join(
+            f"S{i},{1900 + (i * 7919) % 300}-{1 + (i * 31) % 12:02d}-01,5,6\n" for i in range(30_000)
+        ) + "S0,2199-12-01,5,6\nS0,1900-01-01,5,6\n").encode(),
+        ("cells for every row of the file", "mistyped years"),
+    ),
     # One mistyped year stretches the calendar over a century of empty weeks (common practice:
     # the commonest date typo in hand-kept files).
     "mistyped year": (

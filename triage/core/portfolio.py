@@ -772,9 +772,9 @@ MIN_PERIODS_FOR_SPACING = 6
 #: Longest run of calendar periods that no row uses, inside the calendar, by frequency.
 MAX_EMPTY_STRETCH = {schema.WEEKLY: 53, schema.MONTHLY: 24}
 #: A calendar this many cells long per row (series x periods / rows) is refused as too sparse.
-MAX_CELLS_PER_ROW = 20
+MAX_CELLS_PER_ROW = 50
 #: ... once the dense arrays would hold at least this many cells.
-SPARSE_FLOOR = 50_000_000
+SPARSE_FLOOR = 100_000_000
 
 
 def _calendar_problem(
@@ -817,7 +817,7 @@ def _calendar_problem(
             f"the calendar runs from {calendar.label(0)} to "
             f"{calendar.label(len(calendar.periods) - 1)} ({len(calendar.periods):,} {unit}) for "
             f"{n_series:,} series, but the file has only {n_rows:,} rows: the series x period "
-            f"arrays would be {cells / max(n_rows, 1):,.0f} times larger than the file.",
+            f"arrays would hold {cells / max(n_rows, 1):,.0f} cells for every row of the file.",
             "Check the periods for mistyped years, or load only the years you want scored.",
             codes[:1],
         )
