@@ -49,6 +49,12 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
     "workbook named .csv": (b"PK\x03\x04\x14\x00\x06\x00" + bytes(64), ("zip", ".xlsx")),
     "parquet named .csv": (b"PAR1\x15\x04" + bytes(64), ("Parquet", "Rename it to .parquet")),
     "gzip named .csv": (b"\x1f\x8b\x08\x00" + bytes(64), ("gzip",)),
+    # RFC 4180 section 2.5-2.7: a field that starts with a quote ends at the next lone quote; one
+    # that is never closed runs to the end of the file. Named as such, not as a short line.
+    "quote never closed": (
+        (HEADER + 'A,2026-10-05,"5,2\n' + GOOD).encode(),
+        ("never closed", "row 2"),
+    ),
     # Monthly periods are month starts (docs/input-format.md); the 15th of every month is
     # named as such, not as "not on a Wednesday".
     "mid-month periods": (

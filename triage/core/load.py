@@ -679,6 +679,8 @@ def _read_csv(path: Path, mapping: dict[str, str], notices: list[str]) -> _Raw:
 
 
 def _ragged(path: Path, scan: _CsvScan, width: int, parser_message: str) -> NoReturn:
+    if scan.has_quotes:
+        _refuse_open_quote(path, scan)
     bad = _csv_module_counts(path, scan, width)
     if bad is None:
         bad = _numpy_counts(path, scan, width)[0]
@@ -735,8 +737,40 @@ def _check_field_counts(path: Path, scan: _CsvScan, width: int, records: int) ->
         # quote parity of the byte scan: confirm with the csv module, which parses like pandas.
         confirmed = _csv_module_counts(path, scan, width)
         bad = bad if confirmed is None else confirmed
+    if bad and scan.has_quotes and not balanced:
+        _refuse_open_quote(path, scan)
     if bad:
         _raise_ragged(path, bad, width)
+
+
+def _refuse_open_quote(path: Path, scan: _CsvScan) -> None:
+    """A quoted cell that runs to the end of the file, named as such (error path only).
+
+    pandas and the csv module (non-strict) read such a cell as one long last field and report a
+    short line; the strict csv reader stops at the end of the data inside the quotes.
+    """
+    with path.open(encoding="utf-8-sig", newline="") as handle:
+        source = handle if scan.newline == 10 else io.StringIO(handle.read().replace("\r", "\n"))
+        reader = csv.reader(source, strict=True)
+        limit = csv.field_size_limit()
+        csv.field_size_limit(max(limit, scan.size + 1))
+        started = 1
+        try:
+            for _ in reader:
+                started = reader.line_num + 1
+        except csv.Error as exc:
+            if "unexpected end of data" not in str(exc):
+                return
+        else:
+            return
+        finally:
+            csv.field_size_limit(limit)
+    _fail(
+        path,
+        f"a quoted cell is never closed (the cell starts in row {started}): a '\"' is missing, "
+        "so everything after it, to the end of the file, would be one cell.",
+        "Close the quote, or remove the stray '\"' character.",
+    )
 
 
 def _numpy_counts(
