@@ -275,14 +275,17 @@ def test_non_numeric_forecast_names_the_mapped_column(csv_rows: CsvRows) -> None
     assert "'n.a.' (row 2)" in error.message
 
 
-@pytest.mark.parametrize("value", ["inf", "-Infinity", "1e400", "99999999999999999999"])
+@pytest.mark.parametrize(
+    "value", ["inf", "-Infinity", "1e400", "99999999999999999999", "9007199254740993", "1e17"]
+)
 def test_non_finite_or_huge_demand(csv_rows: CsvRows, value: str) -> None:
     # reliability.md §4 (pandas 3.1.1): '1e400' parses to inf, 'inf' is accepted, a 20-digit
     # integer overflows int64. Beyond 2**53 a float64 no longer holds every whole number
-    # (IEEE 754 binary64 has a 53-bit significand).
+    # (IEEE 754 binary64 has a 53-bit significand): 2**53 + 1 = 9007199254740993 reads as 2**53,
+    # so 2**53 itself is refused.
     path = csv_rows("A,2024-01-01,1,1", f"A,2024-01-08,{value},1")
     error = load_error(path)
-    assert "column 'demand' has values that are not finite numbers" in error.message
+    assert "column 'demand' has values that are not finite or are too large" in error.message
     assert "(row 3)" in error.message
 
 
@@ -762,7 +765,7 @@ def test_parquet_numeric_item_and_bad_numbers(tmp_path: Path) -> None:
         },
     )
     error = load_error(path)
-    assert "column 'forecast' has values that are not finite numbers in 1 row (row 2)" in (
+    assert "column 'forecast' has values that are not finite or are too large in 1 row (row 2)" in (
         error.message
     )
     path = write_parquet(

@@ -1233,7 +1233,7 @@ class StreamSource:
             return lags.astype(np.int64)
         numbers = _float_values(chunk)
         low, high = np.fmin.reduce(numbers), np.fmax.reduce(numbers)
-        if not np.isnan(low) and not (low >= -_MAX_MAGNITUDE and high <= _MAX_MAGNITUDE):
+        if not np.isnan(low) and not (low > -_MAX_MAGNITUDE and high < _MAX_MAGNITUDE):
             raise FastPathDeclined("not finite")
         if name == schema.PRICE and low < 0:
             raise FastPathDeclined("negative price")
@@ -2124,18 +2124,19 @@ def _numbers(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.S
         raw = values
     # fmin/fmax skip NaN without allocating: one pass each settles the usual all-good case.
     low, high = np.fmin.reduce(numbers), np.fmax.reduce(numbers)
-    if not (low >= -_MAX_MAGNITUDE and high <= _MAX_MAGNITUDE) and not np.isnan(low):
+    if not (low > -_MAX_MAGNITUDE and high < _MAX_MAGNITUDE) and not np.isnan(low):
         finite = np.isfinite(numbers) | np.isnan(numbers)
-        too_big = np.abs(np.where(finite, numbers, 0.0)) > _MAX_MAGNITUDE
+        # 2**53 itself is refused: 9007199254740993 reads as 9007199254740992.0 = 2**53.
+        too_big = np.abs(np.where(finite, numbers, 0.0)) >= _MAX_MAGNITUDE
         shown = raw if raw is not None else pd.Series(numbers, copy=False)
         ctx.fail(
             position,
-            "has values that are not finite numbers",
+            "has values that are not finite or are too large",
             np.flatnonzero(~finite | too_big),
             shown,
             "Replace them with real quantities; leave the cell empty for a missing value.",
-            f"Numbers must be finite and no larger than {_MAX_MAGNITUDE:,.0f} in size, the limit "
-            "up to which every whole number is held exactly.",
+            f"Numbers must be finite and smaller than {_MAX_MAGNITUDE:,.0f} in size, the limit "
+            "below which every whole number is held exactly.",
         )
     if role == schema.PRICE and low < 0:
         ctx.fail(
