@@ -70,3 +70,24 @@ def test_signed_numbers_carry_their_direction_and_bias_order_shows_the_bias_rank
     assert [int(r.split()[0]) for r in rows[1:]] == list(range(1, 11))
     for row, ts in zip(rows[1:], card["tracking_signal"].iloc[:10], strict=True):
         assert (f"{ts:+.1f} over" if ts > 0 else f"{ts:+.1f} under") in row
+
+
+def test_bidirectional_controls_in_ids_do_not_reorder_the_row(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    # Unicode UAX #9: U+202E RIGHT-TO-LEFT OVERRIDE reverses the text after it on screen (the
+    # "Trojan Source" reordering, Boucher & Anderson 2021). The id keeps it (CSV and JSON are
+    # exact); the table shows a visible replacement so the columns stay in place.
+    path = tmp_path / "bidi.csv"
+    path.write_text(
+        "item,period,demand,forecast\n"
+        "AB\u202eCD,2025-01-06,1,2\nAB\u202eCD,2025-01-13,3,2\n"
+        "EF,2025-01-06,1,9\nEF,2025-01-13,3,2\n",
+        encoding="utf-8",
+    )
+    monkeypatch.setenv("COLUMNS", "160")
+    portfolio = read_portfolio(path)
+    assert "AB\u202eCD" in set(portfolio.keys["item"])
+    card = scorecard(portfolio)
+    text = output.rank_table(portfolio, card, card, 13, 1)
+    assert "\u202e" not in text and "AB\ufffdCD" in text

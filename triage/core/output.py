@@ -383,9 +383,9 @@ def rank_table(
             [str(v) for v in shown["bias_rank" if by == "bias" else "rank"]],
             0,
         ),
-        (schema.ITEM, "left", [Text(str(v)) for v in shown[schema.ITEM]], 0),
+        (schema.ITEM, "left", [Text(visible(str(v))) for v in shown[schema.ITEM]], 0),
         *(
-            [(schema.LOCATION, "left", [Text(str(v)) for v in shown[schema.LOCATION]], 0)]
+            [(schema.LOCATION, "left", [Text(visible(str(v))) for v in shown[schema.LOCATION]], 0)]
             if has_location
             else []
         ),

@@ -6,6 +6,7 @@ import math
 
 import numpy as np
 
+from triage.core.text import visible
 from triage.tui.widgets.series_list import Cell, Column
 
 BLOCKS = "▁▂▃▄▅▆▇█"
@@ -63,8 +64,12 @@ LIST_COLUMNS = (
 
 
 def clip(text: str, limit: int = 200) -> str:
-    """At most ``limit`` characters, with an ellipsis: a 1 MB cell must not stall a repaint."""
-    return text if len(text) <= limit else text[: limit - 1] + "…"
+    """At most ``limit`` characters, with an ellipsis: a 1 MB cell must not stall a repaint.
+
+    Control and bidirectional characters are shown as visible symbols (``text.visible``).
+    """
+    text = text if len(text) <= limit else text[: limit - 1] + "…"
+    return visible(text)
 
 
 def pct(value: float, digits: int = 1) -> str:
