@@ -298,7 +298,18 @@ def _as_unprivileged() -> tuple[str, ...]:
     setpriv = shutil.which("setpriv")
     if setpriv is None:
         pytest.skip("running as root and setpriv is missing: root ignores file permissions")
-    return (setpriv, f"--reuid={NOBODY}", f"--regid={NOBODY}", "--clear-groups")
+    prefix = (setpriv, f"--reuid={NOBODY}", f"--regid={NOBODY}", "--clear-groups")
+    # The child needs the interpreter and the worker script: a checkout under a 0700 folder
+    # (mktemp -d) is out of reach for uid 65534, and then this test cannot run here.
+    worker = Path(__file__).with_name("ledger_worker.py")
+    probe = subprocess.run(
+        [*prefix, sys.executable, "-c", f"open({str(worker)!r}).close(); import triage"],
+        capture_output=True,
+        timeout=60,
+    )
+    if probe.returncode != 0:
+        pytest.skip(f"uid {NOBODY} cannot read this checkout: {probe.stderr.decode()[-200:]}")
+    return prefix
 
 
 def test_read_only_folder_and_file_open_read_only_with_a_notice() -> None:
