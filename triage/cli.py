@@ -30,9 +30,14 @@ def build_parser() -> argparse.ArgumentParser:
     rank = sub.add_parser("rank", help="score every series and list the worst offenders first")
     portfolio_args(rank)
     score_args(rank)
-    rank.add_argument("--by", choices=("error", "bias"), default="error", help="order (default error)")
     rank.add_argument(
-        "--format", choices=("table", "csv", "json"), default="table", help="output format (default table)"
+        "--by", choices=("error", "bias"), default="error", help="order (default error)"
+    )
+    rank.add_argument(
+        "--format",
+        choices=("table", "csv", "json"),
+        default="table",
+        help="output format (default table)",
     )
     limit = rank.add_mutually_exclusive_group()
     limit.add_argument("--top", type=int, metavar="K", help="only the first K series")
@@ -42,7 +47,9 @@ def build_parser() -> argparse.ArgumentParser:
         metavar="F",
         help="only the smallest leading set whose cumulative error share reaches F (e.g. 0.8)",
     )
-    rank.add_argument("--output", type=Path, metavar="PATH", help="write to PATH instead of standard output")
+    rank.add_argument(
+        "--output", type=Path, metavar="PATH", help="write to PATH instead of standard output"
+    )
     rank.set_defaults(handler=_cmd_rank)
 
     check = sub.add_parser("check", help="report on the data quality of a portfolio file")
@@ -71,7 +78,9 @@ def _review_args(parser: argparse.ArgumentParser, *, ledger: bool = True) -> Non
             type=Path,
             help="decision ledger (default: <portfolio>.ledger.sqlite beside the portfolio)",
         )
-    parser.add_argument("--reviewer", help="name stored with each decision (default: config or login name)")
+    parser.add_argument(
+        "--reviewer", help="name stored with each decision (default: config or login name)"
+    )
     parser.add_argument("--config", type=Path, help="configuration file (TOML)")
     parser.add_argument(
         "--target",
@@ -98,7 +107,7 @@ def main(argv: Sequence[str] | None = None) -> int:
         return 0
 
 
-def _load(args: argparse.Namespace):  # noqa: ANN202 - Portfolio, imported lazily
+def _load(args: argparse.Namespace):
     from triage.core.load import parse_column_map
     from triage.core.portfolio import read_portfolio
 
@@ -166,7 +175,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
     return 0
 
 
-def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | None):  # noqa: ANN202
+def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | None):
     from triage.core.config import default_reviewer, load_config
     from triage.core.load import parse_column_map
     from triage.tui.app import Options
@@ -193,7 +202,9 @@ def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | No
 def _cmd_review(args: argparse.Namespace) -> int:
     check_score_args(args)
     if not args.portfolio.exists():
-        raise TriageError(f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file.")
+        raise TriageError(
+            f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file."
+        )
     from triage.tui.app import TriageApp
 
     TriageApp(_review_options(args, args.portfolio, args.ledger)).run()

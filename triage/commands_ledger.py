@@ -157,10 +157,6 @@ def _ledger_of_portfolio(portfolio: Path) -> Path:
     return path
 
 
-
-
-
-
 # --------------------------------------------------------------------------------------------
 # history
 

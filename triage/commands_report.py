@@ -195,10 +195,6 @@ def _ledger_path(args: argparse.Namespace, *, required: bool) -> Path | None:
         return None
 
 
-
-
-
-
 def _check_scoring(args: argparse.Namespace) -> None:
     check_score_args(args)
     if args.cover is not None and not 0 < args.cover <= 1:

@@ -657,7 +657,15 @@ def bench_size(n_series: int, args: argparse.Namespace) -> dict[str, Any]:
         print(f"{n_series:,} series: triage rank (CSV) x{args.repeat} ...", file=sys.stderr)
         runs = [
             measure(
-                [*triage_command(), "rank", str(csv_path), "--format", "csv", "--output", os.devnull]
+                [
+                    *triage_command(),
+                    "rank",
+                    str(csv_path),
+                    "--format",
+                    "csv",
+                    "--output",
+                    os.devnull,
+                ]
             )
             for _ in range(args.repeat)
         ]

@@ -57,7 +57,7 @@ async def measure(path: Path, moves: int, repeats: int) -> dict[str, object]:
     app = TriageApp(Options(portfolio=path, ledger=ledger, reviewer="bench"))
     original = app._display
 
-    def display(screen, renderable):  # noqa: ANN001, ANN202
+    def display(screen, renderable):
         frames.append(time.perf_counter())
         return original(screen, renderable)
 
@@ -81,7 +81,7 @@ async def measure(path: Path, moves: int, repeats: int) -> dict[str, object]:
         result["first_frame_s"] = [f for f in frames if f > loaded][0] - start
         result["series"] = app.session.portfolio.n_series
 
-        async def timed(action) -> float:  # noqa: ANN001
+        async def timed(action) -> float:
             await pilot.pause(0.12)  # let the debounced chart settle first
             t0 = time.perf_counter()
             action()
@@ -95,7 +95,10 @@ async def measure(path: Path, moves: int, repeats: int) -> dict[str, object]:
             series_list.action_cursor(step)
             cursor.append(await next_frame_after(t0))
             await asyncio.sleep(0.005)
-        result["cursor_ms"] = {"p50": percentile(cursor, 0.5) * 1e3, "p95": percentile(cursor, 0.95) * 1e3}
+        result["cursor_ms"] = {
+            "p50": percentile(cursor, 0.5) * 1e3,
+            "p95": percentile(cursor, 0.95) * 1e3,
+        }
 
         filters, clears, orders = [], [], []
         for _ in range(repeats):
@@ -110,9 +113,18 @@ async def measure(path: Path, moves: int, repeats: int) -> dict[str, object]:
             filters.append(await timed(apply_filter))
             clears.append(await timed(clear))
             orders.append(await timed(app.action_toggle_order))
-        result["filter_ms"] = {"p50": percentile(filters, 0.5) * 1e3, "p95": percentile(filters, 0.95) * 1e3}
-        result["clear_ms"] = {"p50": percentile(clears, 0.5) * 1e3, "p95": percentile(clears, 0.95) * 1e3}
-        result["order_ms"] = {"p50": percentile(orders, 0.5) * 1e3, "p95": percentile(orders, 0.95) * 1e3}
+        result["filter_ms"] = {
+            "p50": percentile(filters, 0.5) * 1e3,
+            "p95": percentile(filters, 0.95) * 1e3,
+        }
+        result["clear_ms"] = {
+            "p50": percentile(clears, 0.5) * 1e3,
+            "p95": percentile(clears, 0.95) * 1e3,
+        }
+        result["order_ms"] = {
+            "p50": percentile(orders, 0.5) * 1e3,
+            "p95": percentile(orders, 0.95) * 1e3,
+        }
     return result
 
 
@@ -148,7 +160,7 @@ async def datatable_baseline(path: Path) -> float:
     app = Baseline()
     original = app._display
 
-    def display(screen, renderable):  # noqa: ANN001, ANN202
+    def display(screen, renderable):
         frames.append(time.perf_counter())
         return original(screen, renderable)
 
@@ -186,7 +198,9 @@ def main(argv: list[str] | None = None) -> int:
         "order_ms.p95": 300.0,
     }
     print(f"{result['series']:,} series")
-    print(f"first frame      {result['first_frame_s']:.2f} s   (target <= {targets['first_frame_s']} s)")
+    print(
+        f"first frame      {result['first_frame_s']:.2f} s   (target <= {targets['first_frame_s']} s)"
+    )
     if "datatable_first_frame_s" in result:
         base = result["datatable_first_frame_s"]
         print(

@@ -17,16 +17,40 @@ GOOD = "A,2026-10-05,10,9\nA,2026-10-12,12,11\n"
 
 CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
     "missing required column": (b"item,period,demand\nA,2026-10-05,3\n", ("forecast", "--columns")),
-    "non-numeric demand": ((HEADER + "A,2026-10-05,(5),9\n" + GOOD).encode(), ("demand", "row 2", "(5)")),
-    "non-finite forecast": ((HEADER + "A,2026-10-05,5,inf\n" + GOOD).encode(), ("forecast", "row 2")),
-    "ambiguous dates": ((HEADER + "A,01/02/2024,5,9\nA,02/02/2024,5,9\n").encode(), ("period", "YYYY-MM-DD")),
-    "duplicate rows": ((HEADER + "A,2026-10-05,10,9\nA,2026-10-05,30,9\n").encode(), ("rows 2, 3", "10, 30")),
-    "semicolon separated": (b"item;period;demand;forecast\nA;2026-10-05;1,5;2\n", ("semicolon", "decimal comma")),
-    "not utf-8": ("item,period,demand,forecast,family\nA,2026-10-05,1,2,Caf\xe9\n".encode("cp1252"), ("UTF-8",)),
+    "non-numeric demand": (
+        (HEADER + "A,2026-10-05,(5),9\n" + GOOD).encode(),
+        ("demand", "row 2", "(5)"),
+    ),
+    "non-finite forecast": (
+        (HEADER + "A,2026-10-05,5,inf\n" + GOOD).encode(),
+        ("forecast", "row 2"),
+    ),
+    "ambiguous dates": (
+        (HEADER + "A,01/02/2024,5,9\nA,02/02/2024,5,9\n").encode(),
+        ("period", "YYYY-MM-DD"),
+    ),
+    "duplicate rows": (
+        (HEADER + "A,2026-10-05,10,9\nA,2026-10-05,30,9\n").encode(),
+        ("rows 2, 3", "10, 30"),
+    ),
+    "semicolon separated": (
+        b"item;period;demand;forecast\nA;2026-10-05;1,5;2\n",
+        ("semicolon", "decimal comma"),
+    ),
+    "not utf-8": (
+        "item,period,demand,forecast,family\nA,2026-10-05,1,2,Caf\xe9\n".encode("cp1252"),
+        ("UTF-8",),
+    ),
     "empty file": (b"", ("empty",)),
     "header only": (HEADER.encode(), ("no data rows",)),
-    "no actual demand": ((HEADER + "A,2026-10-05,,9\nA,2026-10-12,,9\n").encode(), ("no row has actual demand",)),
-    "irregular calendar": ((HEADER + "A,2026-10-05,1,2\nA,2026-10-07,1,2\nA,2026-10-12,1,2\n").encode(), ("irregular calendar",)),
+    "no actual demand": (
+        (HEADER + "A,2026-10-05,,9\nA,2026-10-12,,9\n").encode(),
+        ("no row has actual demand",),
+    ),
+    "irregular calendar": (
+        (HEADER + "A,2026-10-05,1,2\nA,2026-10-07,1,2\nA,2026-10-12,1,2\n").encode(),
+        ("irregular calendar",),
+    ),
     "several lags without --lag": (
         b"item,period,lag,demand,forecast\nA,2026-10-05,1,5,4\nA,2026-10-05,2,5,6\n",
         ("--lag", "lags"),
@@ -35,8 +59,13 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
     # Issue 2, section 2: the calendar must be weekly or monthly. A fortnightly export is not
     # a weekly one with every other week missing (the naive forecast would compare two weeks).
     "fortnightly calendar": (
-        (HEADER + "".join(f"A,2026-{m:02d}-{d:02d},5,6\n" for m, d in
-                          [(7, 6), (7, 20), (8, 3), (8, 17), (8, 31), (9, 14)])).encode(),
+        (
+            HEADER
+            + "".join(
+                f"A,2026-{m:02d}-{d:02d},5,6\n"
+                for m, d in [(7, 6), (7, 20), (8, 3), (8, 17), (8, 31), (9, 14)]
+            )
+        ).encode(),
         ("multiple of 2 weeks", "weekly or monthly"),
     ),
     "yearly calendar": (
@@ -71,17 +100,26 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
     # would need 1.7 GB); refused before they are allocated (reliability.md: bad input must not
     # exhaust memory).
     "sparse calendar": (
-        (HEADER + "".join(
-            f"S{i},{1900 + (i * 7919) % 300}-{1 + (i * 31) % 12:02d}-01,5,6\n" for i in range(30_000)
-        ) + "S0,2199-12-01,5,6\nS0,1900-01-01,5,6\n").encode(),
+        (
+            HEADER
+            + "".join(
+                f"S{i},{1900 + (i * 7919) % 300}-{1 + (i * 31) % 12:02d}-01,5,6\n"
+                for i in range(30_000)
+            )
+            + "S0,2199-12-01,5,6\nS0,1900-01-01,5,6\n"
+        ).encode(),
         ("cells for every row of the file", "mistyped years"),
     ),
     # One mistyped year stretches the calendar over a century of empty weeks (common practice:
     # the commonest date typo in hand-kept files).
     "mistyped year": (
-        (HEADER + "A,1926-10-05,5,6\n" + "".join(
-            f"A,2026-{m:02d}-{d:02d},5,6\n" for m, d in [(10, 5), (10, 12), (10, 19)]
-        )).replace("A,1926-10-05", "A,1926-10-04").encode(),
+        (
+            HEADER
+            + "A,1926-10-05,5,6\n"
+            + "".join(f"A,2026-{m:02d}-{d:02d},5,6\n" for m, d in [(10, 5), (10, 12), (10, 19)])
+        )
+        .replace("A,1926-10-05", "A,1926-10-04")
+        .encode(),
         ("no row has a period", "mistyped", "1926-10-04 (row 2)"),
     ),
 }

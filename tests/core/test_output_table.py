@@ -27,8 +27,11 @@ def table_at(width: int, monkeypatch: pytest.MonkeyPatch) -> list[str]:
 
 
 def table_rows(lines: list[str]) -> list[str]:
-    start = next(i for i, line in enumerate(lines) if line.split()[:1] == ["rank"]
-                 or line.split()[:2] == ["bias", "rank"])
+    start = next(
+        i
+        for i, line in enumerate(lines)
+        if line.split()[:1] == ["rank"] or line.split()[:2] == ["bias", "rank"]
+    )
     return lines[start : start + 11]
 
 
@@ -52,7 +55,9 @@ def test_narrow_terminal_drops_columns_and_says_so(
     header = rows[0].split()
     for name in ("rank", "item", "location", "share", "bias", "persistent"):
         assert name in header
-    note = " ".join(line for line in lines if "not shown" in line or "--format csv for every" in line)
+    note = " ".join(
+        line for line in lines if "not shown" in line or "--format csv for every" in line
+    )
     assert f"not shown at {width} columns" in note
     assert "pattern" in note and "pattern" not in header
 

@@ -17,7 +17,7 @@ SAMPLE = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"
 
 
 @pytest.fixture
-def session(tmp_path: Path):  # noqa: ANN201
+def session(tmp_path: Path):
     path = tmp_path / "week.csv"
     shutil.copy(SAMPLE, path)
     ledger = Ledger.open(tmp_path / "week.ledger.sqlite")
@@ -26,7 +26,9 @@ def session(tmp_path: Path):  # noqa: ANN201
 
 
 def decide(session: ReviewSession, series: int, outcome: str = "no_change", **kw: object) -> None:
-    session.apply_event(session.commit_decision(series, outcome=outcome, root_cause="unknown", **kw))
+    session.apply_event(
+        session.commit_decision(series, outcome=outcome, root_cause="unknown", **kw)
+    )
 
 
 def test_order_is_the_scorecards(session: ReviewSession) -> None:
@@ -86,6 +88,8 @@ def test_next_unreviewed_skips_decided_and_wraps(session: ReviewSession) -> None
 def test_preview_and_commit_store_the_same_lines(session: ReviewSession) -> None:
     series = int(session.error_order[0])
     preview = session.preview(series, "1-3: x1.5")
-    event = session.commit_decision(series, outcome="adjusted", root_cause="promotion", adjustment="1-3: x1.5")
+    event = session.commit_decision(
+        series, outcome="adjusted", root_cause="promotion", adjustment="1-3: x1.5"
+    )
     assert [line.adjusted for line in event.lines] == pytest.approx(list(preview.adjusted[:3]))
     assert [line.period for line in event.lines] == list(session.forward_dates[:3])

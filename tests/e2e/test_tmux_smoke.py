@@ -28,10 +28,29 @@ class Tmux:
         self.socket = f"triage-test-{uuid.uuid4().hex[:8]}"
         self.name = "review"
         subprocess.run(
-            ["tmux", "-L", self.socket, "new-session", "-d", "-s", self.name, "-x", "120", "-y", "40",
-             "-c", str(cwd), *command],
+            [
+                "tmux",
+                "-L",
+                self.socket,
+                "new-session",
+                "-d",
+                "-s",
+                self.name,
+                "-x",
+                "120",
+                "-y",
+                "40",
+                "-c",
+                str(cwd),
+                *command,
+            ],
             check=True,
-            env={"TERM": "xterm-256color", "PATH": "/usr/bin:/bin", "HOME": str(cwd), "LANG": "C.UTF-8"},
+            env={
+                "TERM": "xterm-256color",
+                "PATH": "/usr/bin:/bin",
+                "HOME": str(cwd),
+                "LANG": "C.UTF-8",
+            },
         )
 
     def keys(self, *keys: str) -> None:
@@ -40,14 +59,18 @@ class Tmux:
     def screen(self) -> str:
         done = subprocess.run(
             ["tmux", "-L", self.socket, "capture-pane", "-p", "-t", self.name],
-            capture_output=True, text=True, check=False,
+            capture_output=True,
+            text=True,
+            check=False,
         )
         return done.stdout
 
     def title(self) -> str:
         done = subprocess.run(
             ["tmux", "-L", self.socket, "display-message", "-p", "-t", self.name, "#{pane_title}"],
-            capture_output=True, text=True, check=False,
+            capture_output=True,
+            text=True,
+            check=False,
         )
         return done.stdout.strip()
 
@@ -62,8 +85,11 @@ class Tmux:
         raise AssertionError(f"{text!r} never appeared; screen was:\n{screen}")
 
     def alive(self) -> bool:
-        done = subprocess.run(["tmux", "-L", self.socket, "has-session", "-t", self.name], check=False,
-                              capture_output=True)
+        done = subprocess.run(
+            ["tmux", "-L", self.socket, "has-session", "-t", self.name],
+            check=False,
+            capture_output=True,
+        )
         return done.returncode == 0
 
     def kill(self) -> None:
@@ -75,7 +101,9 @@ def test_review_in_a_real_terminal(tmp_path: Path) -> None:
     shutil.copy(SAMPLE, portfolio)
     ledger = tmp_path / "week.ledger.sqlite"
     triage = str(Path(sys.executable).with_name("triage"))
-    term = Tmux([triage, "review", str(portfolio), "--ledger", str(ledger), "--reviewer", "smoke"], tmp_path)
+    term = Tmux(
+        [triage, "review", str(portfolio), "--ledger", str(ledger), "--reviewer", "smoke"], tmp_path
+    )
     try:
         screen = term.wait_for("reviewed 0")
         assert "GF-10213" in screen  # the worst offender of the sample is listed

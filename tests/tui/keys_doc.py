@@ -37,7 +37,12 @@ While a text field has focus (filter, adjustment, note), letter keys type text; 
 def render() -> str:
     lines = [INTRO]
     for title, owners in SECTIONS:
-        lines += [f"## {title}", "", "| key | action | what it does | id |", "| --- | --- | --- | --- |"]
+        lines += [
+            f"## {title}",
+            "",
+            "| key | action | what it does | id |",
+            "| --- | --- | --- | --- |",
+        ]
         for owner in owners:
             for b in owner.BINDINGS:
                 assert isinstance(b, Binding)

@@ -40,7 +40,9 @@ async def capture(out: Path) -> list[Path]:
 def to_png(svg: Path) -> Path:
     import cairosvg
 
-    text = svg.read_text(encoding="utf-8").replace("Fira Code, monospace", "DejaVu Sans Mono, monospace")
+    text = svg.read_text(encoding="utf-8").replace(
+        "Fira Code, monospace", "DejaVu Sans Mono, monospace"
+    )
     png = svg.with_suffix(".png")
     cairosvg.svg2png(bytestring=text.encode("utf-8"), write_to=str(png), output_width=1700)
     return png

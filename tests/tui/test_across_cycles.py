@@ -20,11 +20,11 @@ from triage.tui.widgets.series_list import SeriesList
 
 
 @pytest.fixture(scope="module")
-def scenario(tmp_path_factory: pytest.TempPathFactory):  # noqa: ANN201
+def scenario(tmp_path_factory: pytest.TempPathFactory):
     return build_cycles(tmp_path_factory.mktemp("cycles"))
 
 
-async def test_newest_week_shows_earlier_cycles(scenario, tmp_path: Path) -> None:  # noqa: ANN001
+async def test_newest_week_shows_earlier_cycles(scenario, tmp_path: Path) -> None:
     ledger = tmp_path / "ledger.sqlite"
     shutil.copy(scenario.ledger, ledger)
     app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
@@ -46,9 +46,13 @@ async def test_newest_week_shows_earlier_cycles(scenario, tmp_path: Path) -> Non
             series = session.find(*scenario.roles[role])
             assert session.outcome[series] != ""
         await pilot.press("v")
-        await wait_for(pilot, lambda: isinstance(app.screen, OverridesScreen), "the override value view")
+        await wait_for(
+            pilot, lambda: isinstance(app.screen, OverridesScreen), "the override value view"
+        )
         shown = app.screen._tables["direction"]
-        expected = history.summarise(history.realised_value(session.portfolio, session.ledger), "direction")
+        expected = history.summarise(
+            history.realised_value(session.portfolio, session.ledger), "direction"
+        )
         assert shown.equals(expected)
         total = expected.iloc[-1]
         realised = scenario.realised_in(len(scenario.files) - 1)

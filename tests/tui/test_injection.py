@@ -39,8 +39,6 @@ def hostile_portfolio(tmp_path: Path) -> Path:
     return path
 
 
-
-
 async def test_hostile_ids_attributes_and_notes(tmp_path: Path) -> None:
     app = TriageApp(Options(portfolio=hostile_portfolio(tmp_path), reviewer="[bold]rev\x1b[31m"))
     async with app.run_test(size=(160, 48)) as pilot:
@@ -54,7 +52,9 @@ async def test_hostile_ids_attributes_and_notes(tmp_path: Path) -> None:
         series = series_list.current
         await pilot.press("enter")
         await pilot.pause(0.2)
-        app.screen.query_one("#decision-note").text = "note [/] [@click=app.quit]x[/] \x1b]2;T\x07 =1+2"
+        app.screen.query_one(
+            "#decision-note"
+        ).text = "note [/] [@click=app.quit]x[/] \x1b]2;T\x07 =1+2"
         await pilot.press("ctrl+s")
         for _ in range(100):
             await pilot.pause(0.05)

@@ -28,7 +28,15 @@ def documented() -> set[tuple[str, str, str, str]]:
 
 def bound() -> set[tuple[str, str, str, str]]:
     rows = set()
-    for owner in (SeriesList, TriageApp, DecisionScreen, OverridesScreen, PromptScreen, ChooseScreen, HelpScreen):
+    for owner in (
+        SeriesList,
+        TriageApp,
+        DecisionScreen,
+        OverridesScreen,
+        PromptScreen,
+        ChooseScreen,
+        HelpScreen,
+    ):
         for binding in owner.BINDINGS:
             assert isinstance(binding, Binding)
             assert binding.id, f"{owner.__name__} binding {binding.key} has no id"

@@ -35,10 +35,6 @@ def make_app(portfolio: Path, **kw: object) -> TriageApp:
     return TriageApp(Options(portfolio=portfolio, reviewer="ana", **kw))
 
 
-
-
-
-
 def ledger_rows(path: Path) -> list[tuple]:
     con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
     try:
@@ -87,7 +83,9 @@ async def test_decide_with_note_and_adjustment_preview(portfolio: Path) -> None:
         note = dialog.query_one("#decision-note", TextArea)
         note.text = "Promo in week 49 not in the model\nsecond line [/] =1+2"
         await pilot.press("ctrl+s")
-        await wait_for(pilot, lambda: session.outcome[series] == "adjusted", "the adjusted decision")
+        await wait_for(
+            pilot, lambda: session.outcome[series] == "adjusted", "the adjusted decision"
+        )
     with Ledger.open(portfolio.with_name("week.ledger.sqlite"), read_only=True) as ledger:
         events = ledger.history()
     assert len(events) == 1
@@ -225,7 +223,9 @@ async def test_export_from_the_app_writes_the_workbook(portfolio: Path) -> None:
         await pilot.press("x")
         await wait_for(pilot, lambda: isinstance(app.screen, PromptScreen), "the export prompt")
         target = app.screen.query_one(Input).value
-        assert target.endswith(".xlsx") and "advisory" in str(app.screen.query_one(".dialog-note").render())
+        assert target.endswith(".xlsx") and "advisory" in str(
+            app.screen.query_one(".dialog-note").render()
+        )
         await pilot.press("enter")
         await wait_for(pilot, lambda: app.status_text.startswith("exported"), "the export")
         assert "advisory" in app.status_text

@@ -76,6 +76,7 @@ _UMASK = _read_umask()
 
 def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Path:
     """Atomically write UTF-8 text (see ``write_atomic``)."""
+
     def write(p: Path) -> None:
         p.write_text(text, encoding="utf-8", newline="")
 
@@ -84,6 +85,7 @@ def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Pat
 
 def write_blocks_atomic(path: str | Path, blocks: Iterable[bytes], *, force: bool = True) -> Path:
     """Atomically write a file from blocks of bytes, each written as it comes (see ``write_atomic``)."""
+
     def write(p: Path) -> None:
         with p.open("wb") as handle:
             for block in blocks:

@@ -269,7 +269,11 @@ def window_info(portfolio: Portfolio, window: int) -> dict[str, object]:
     """First and last period of the scoring window and how many periods it holds."""
     cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
     cal = portfolio.calendar
-    return {"first": cal.label(int(cols[0])), "last": cal.label(int(cols[-1])), "periods": len(cols)}
+    return {
+        "first": cal.label(int(cols[0])),
+        "last": cal.label(int(cols[-1])),
+        "periods": len(cols),
+    }
 
 
 def totals(card: pd.DataFrame) -> dict[str, float]:
@@ -502,8 +506,11 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
             else "no lag column (one forecast per period)"
         ),
         f"forward        {portfolio.n_forward} periods, {int((~np.isnan(fwd)).sum()):,} forecast values"
-        + (f" ({cal.label(portfolio.last_actual + 1)} .. {cal.label(len(cal.periods) - 1)})"
-           if portfolio.n_forward else ""),
+        + (
+            f" ({cal.label(portfolio.last_actual + 1)} .. {cal.label(len(cal.periods) - 1)})"
+            if portfolio.n_forward
+            else ""
+        ),
         f"price          {'yes: errors are ranked in value' if portfolio.price is not None else 'no: errors are ranked in units'}",
         f"attributes     {', '.join(portfolio.attributes) if portfolio.attributes else 'none'}",
         "",

@@ -760,7 +760,9 @@ def _calendar_codes(loaded: LoadedLike, n_series: int) -> tuple[Calendar, np.nda
             f"{calendar.label(int(unique_codes[inverse[i]]))} (row {loaded.rows([i])[0]})"
             for i in rows[:EXAMPLES]
         )
-        raise LoadError(loaded.path, f"{message}{f' Rows to check: {shown}.' if shown else ''}", hint=hint)
+        raise LoadError(
+            loaded.path, f"{message}{f' Rows to check: {shown}.' if shown else ''}", hint=hint
+        )
     codes = np.empty(len(inverse), dtype=_index_dtype(len(calendar.periods)))
     for lo in range(0, len(inverse), _ROWS):
         codes[lo : lo + _ROWS] = unique_codes[inverse[lo : lo + _ROWS]]

@@ -100,7 +100,10 @@ class ReviewSession:
         self.priced = "abs_error_value" in self.card
         self.error = self.card["abs_error_value" if self.priced else "abs_error"].to_numpy()
         self.flag = np.select(
-            [self.card["bias_flag"].to_numpy() == "over", self.card["bias_flag"].to_numpy() == "under"],
+            [
+                self.card["bias_flag"].to_numpy() == "over",
+                self.card["bias_flag"].to_numpy() == "under",
+            ],
             [1, -1],
             0,
         ).astype(np.int8)
@@ -341,7 +344,11 @@ class ReviewSession:
         if field == "pattern":
             return self.card["pattern"].to_numpy(dtype=object)
         if field == "flag":
-            return np.where(self.card["bias_flag"].to_numpy(dtype=object) == "", "none", self.card["bias_flag"].to_numpy(dtype=object))
+            return np.where(
+                self.card["bias_flag"].to_numpy(dtype=object) == "",
+                "none",
+                self.card["bias_flag"].to_numpy(dtype=object),
+            )
         if field == "outcome":
             return np.where(self.outcome == "", UNREVIEWED, self.outcome)
         if field == "repeat":
@@ -373,7 +380,11 @@ class ReviewSession:
         keep = np.ones(self.portfolio.n_series, dtype=bool)
         if text:
             needle = text.casefold()
-            found = pd.Series(self._search_text()).str.contains(needle, regex=False).to_numpy(dtype=bool)
+            found = (
+                pd.Series(self._search_text())
+                .str.contains(needle, regex=False)
+                .to_numpy(dtype=bool)
+            )
             keep &= found
         for field, value in (filters or {}).items():
             keep &= self._field(field) == value
@@ -472,9 +483,13 @@ class ReviewSession:
         bias_pct = row["bias_pct"]
         if isinstance(bias_pct, float) and not math.isnan(bias_pct):
             direction = "over" if bias_pct > 0 else "under"
-            parts.append(f"{direction}-forecast by {abs(bias_pct) * 100:.0f}% over {periods} {unit}")
+            parts.append(
+                f"{direction}-forecast by {abs(bias_pct) * 100:.0f}% over {periods} {unit}"
+            )
         else:
-            parts.append(f"bias {row['bias']:+,.0f} units over {periods} {unit} (no positive demand)")
+            parts.append(
+                f"bias {row['bias']:+,.0f} units over {periods} {unit} (no positive demand)"
+            )
         run = int(row["bias_run"])
         if abs(run) >= 2:
             parts.append(f"{abs(run)} {unit} running {'over' if run > 0 else 'under'}")
@@ -510,6 +525,8 @@ class ReviewSession:
             )
         if self.past_outcome[series]:
             carried = " and still in the worst set: carried over" if self.carried[series] else ""
-            lines.append(f"last decided {self.past_cycle[series]}: {self.past_outcome[series]}{carried}")
+            lines.append(
+                f"last decided {self.past_cycle[series]}: {self.past_outcome[series]}{carried}"
+            )
         lines.extend(self.active.get(series, []))
         return lines

@@ -36,7 +36,18 @@ SCORE_COLUMNS: tuple[str, ...] = (
 
 #: Cell text that means "no value" in a numeric column. Text columns have no missing tokens:
 #: an item called ``NA`` is an item called ``NA``.
-NUMERIC_MISSING: tuple[str, ...] = ("", "NA", "N/A", "n/a", "#N/A", "-", "NaN", "nan", "null", "NULL")
+NUMERIC_MISSING: tuple[str, ...] = (
+    "",
+    "NA",
+    "N/A",
+    "n/a",
+    "#N/A",
+    "-",
+    "NaN",
+    "nan",
+    "null",
+    "NULL",
+)
 
 WEEKLY = "weekly"
 MONTHLY = "monthly"

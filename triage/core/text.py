@@ -10,7 +10,13 @@ from __future__ import annotations
 
 #: Bidirectional formatting characters (Unicode UAX #9: ALM, LRM, RLM, LRE..RLO, LRI..PDI). The
 #: loader keeps them in ids (with a notice); shown raw they reorder the rest of a table row.
-BIDI_CONTROLS: tuple[int, ...] = (0x061C, 0x200E, 0x200F, *range(0x202A, 0x202F), *range(0x2066, 0x206A))
+BIDI_CONTROLS: tuple[int, ...] = (
+    0x061C,
+    0x200E,
+    0x200F,
+    *range(0x202A, 0x202F),
+    *range(0x2066, 0x206A),
+)
 
 CONTROL_TABLE: dict[int, str] = {
     **{code: chr(0x2400 + code) for code in range(0x20)},

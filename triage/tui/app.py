@@ -93,24 +93,125 @@ class TriageApp(App[None]):
     TITLE = "triage"
 
     BINDINGS = [
-        Binding("enter", "decide", "Decide", id="review.decide", tooltip="Open the decision dialog for the highlighted series"),
-        Binding("c", "quick('no_change')", "No change", id="review.no_change", tooltip="Record 'no change needed' with the chosen root cause"),
-        Binding("a", "adjust", "Adjust", id="review.adjust", tooltip="Open the decision dialog on the adjustment field"),
-        Binding("n", "next_unreviewed", "Next", id="review.next", tooltip="Jump to the next series without a decision this cycle"),
-        Binding("u", "undo", "Undo", id="review.undo", tooltip="Undo the highlighted series' last decision (a new ledger event)"),
-        Binding("slash", "filter_text", "Filter", id="find.text", tooltip="Show only series whose key or attributes contain a text"),
+        Binding(
+            "enter",
+            "decide",
+            "Decide",
+            id="review.decide",
+            tooltip="Open the decision dialog for the highlighted series",
+        ),
+        Binding(
+            "c",
+            "quick('no_change')",
+            "No change",
+            id="review.no_change",
+            tooltip="Record 'no change needed' with the chosen root cause",
+        ),
+        Binding(
+            "a",
+            "adjust",
+            "Adjust",
+            id="review.adjust",
+            tooltip="Open the decision dialog on the adjustment field",
+        ),
+        Binding(
+            "n",
+            "next_unreviewed",
+            "Next",
+            id="review.next",
+            tooltip="Jump to the next series without a decision this cycle",
+        ),
+        Binding(
+            "u",
+            "undo",
+            "Undo",
+            id="review.undo",
+            tooltip="Undo the highlighted series' last decision (a new ledger event)",
+        ),
+        Binding(
+            "slash",
+            "filter_text",
+            "Filter",
+            id="find.text",
+            tooltip="Show only series whose key or attributes contain a text",
+        ),
         Binding("question_mark", "help", "Help", id="app.help", tooltip="List every key"),
-        Binding("q", "quit", "Quit", id="app.quit", tooltip="Quit (every decision is already saved)"),
-        Binding("h", "quick('handed_off')", "Hand off", show=False, id="review.handed_off", tooltip="Record 'handed to someone else'"),
-        Binding("l", "quick('deferred')", "Later", show=False, id="review.deferred", tooltip="Record 'put off to a later cycle'"),
-        Binding("s", "take_suggestion", "Take suggestion", show=False, id="review.suggestion", tooltip="Open the dialog with the suggested adjustment filled in"),
+        Binding(
+            "q", "quit", "Quit", id="app.quit", tooltip="Quit (every decision is already saved)"
+        ),
+        Binding(
+            "h",
+            "quick('handed_off')",
+            "Hand off",
+            show=False,
+            id="review.handed_off",
+            tooltip="Record 'handed to someone else'",
+        ),
+        Binding(
+            "l",
+            "quick('deferred')",
+            "Later",
+            show=False,
+            id="review.deferred",
+            tooltip="Record 'put off to a later cycle'",
+        ),
+        Binding(
+            "s",
+            "take_suggestion",
+            "Take suggestion",
+            show=False,
+            id="review.suggestion",
+            tooltip="Open the dialog with the suggested adjustment filled in",
+        ),
         *_cause_bindings(),
-        Binding("f", "filter_field", "Filter by field", show=False, id="find.field", tooltip="Filter by an attribute, pattern, bias flag or review outcome"),
-        Binding("escape", "clear_filter", "Clear filter", show=False, id="find.clear", tooltip="Remove every filter"),
-        Binding("b", "toggle_order", "Error/bias order", show=False, id="find.order", tooltip="Order by share of error, or by persistent bias"),
-        Binding("g", "jump", "Go to series", show=False, id="find.jump", tooltip="Jump to a series by its item (and location)"),
-        Binding("x", "export", "Export", show=False, id="app.export", tooltip="Export decisions and the adjusted forward forecast"),
-        Binding("v", "override_value", "Override value", show=False, id="app.overrides", tooltip="Did past overrides help? Realised value by direction, size, reviewer, cause, cycle"),
+        Binding(
+            "f",
+            "filter_field",
+            "Filter by field",
+            show=False,
+            id="find.field",
+            tooltip="Filter by an attribute, pattern, bias flag or review outcome",
+        ),
+        Binding(
+            "escape",
+            "clear_filter",
+            "Clear filter",
+            show=False,
+            id="find.clear",
+            tooltip="Remove every filter",
+        ),
+        Binding(
+            "b",
+            "toggle_order",
+            "Error/bias order",
+            show=False,
+            id="find.order",
+            tooltip="Order by share of error, or by persistent bias",
+        ),
+        Binding(
+            "g",
+            "jump",
+            "Go to series",
+            show=False,
+            id="find.jump",
+            tooltip="Jump to a series by its item (and location)",
+        ),
+        Binding(
+            "x",
+            "export",
+            "Export",
+            show=False,
+            id="app.export",
+            tooltip="Export decisions and the adjusted forward forecast",
+        ),
+        Binding(
+            "v",
+            "override_value",
+            "Override value",
+            show=False,
+            id="app.overrides",
+            tooltip="Did past overrides help? Realised value by direction, size, reviewer, cause, cycle",
+        ),
     ]
 
     def __init__(self, options: Options) -> None:
@@ -142,7 +243,7 @@ class TriageApp(App[None]):
         yield Static(Text(""), id="status")
         yield Footer()
 
-    def _q(self, selector, expect_type=None):  # noqa: ANN001, ANN202 - query_one's signature
+    def _q(self, selector, expect_type=None):
         """Query the main screen, whatever dialog is on top of it."""
         base = self.screen_stack[0] if self.screen_stack else self.screen
         if expect_type is None:
@@ -154,7 +255,7 @@ class TriageApp(App[None]):
         self._fit_layout(self.size.width)
         self.load()
 
-    def on_resize(self, event) -> None:  # noqa: ANN001
+    def on_resize(self, event) -> None:
         self._fit_layout(event.size.width)
 
     def _fit_layout(self, width: int) -> None:
@@ -173,7 +274,9 @@ class TriageApp(App[None]):
         opts = self.options
         steps = 5
         self.post_message(LoadStep(0, steps, f"reading {opts.portfolio.name}"))
-        portfolio = read_portfolio(opts.portfolio, columns=opts.columns, sheet=opts.sheet, lag=opts.lag)
+        portfolio = read_portfolio(
+            opts.portfolio, columns=opts.columns, sheet=opts.sheet, lag=opts.lag
+        )
         self.post_message(LoadStep(1, steps, "opening the ledger"))
         notices = list(opts.notices) + list(portfolio.notices)
         ledger = None
@@ -268,7 +371,10 @@ class TriageApp(App[None]):
             "error": (fmt.compact(a["error"][series]), None),
             "bias": fmt.signed_pct(a["bias_pct"][series]),
             "ts": ("" if math.isnan(a["ts"][series]) else f"{a['ts'][series]:+.1f}", None),
-            "flag": (("▲ over" if flag > 0 else "▼ under") if flag else "", "flag" if flag else None),
+            "flag": (
+                ("▲ over" if flag > 0 else "▼ under") if flag else "",
+                "flag" if flag else None,
+            ),
             "pattern": (fmt.PATTERN_SHORT.get(a["pattern"][series], a["pattern"][series]), "dim"),
             "outcome": self._review_cell(series, outcome),
             "worst": (
@@ -308,7 +414,9 @@ class TriageApp(App[None]):
         card = session.card.iloc[series]
         key = fmt.clip(" @ ".join(k for k in session.key(series) if k))
         title.update(
-            Text.assemble((key, "bold"), f"   rank {int(card['rank'])} of {session.portfolio.n_series:,}"),
+            Text.assemble(
+                (key, "bold"), f"   rank {int(card['rank'])} of {session.portfolio.n_series:,}"
+            ),
             layout=False,
         )
         # The chart is the slow part of a repaint: draw it once the cursor settles.
@@ -382,14 +490,24 @@ class TriageApp(App[None]):
             filt.append(f'"{self.text_filter}"')
         filt.extend(f"{k}={v}" for k, v in self.field_filters.items())
         shown = len(self._q(SeriesList).order)
-        target = f"target {prog.target * 100:.0f}%" + (f", {prog.to_target} more" if prog.to_target else " reached")
-        error = "" if self.has_class("-narrow") else f" · abs err {fmt.compact(tot['abs_error'])}{value}"
+        target = f"target {prog.target * 100:.0f}%" + (
+            f", {prog.to_target} more" if prog.to_target else " reached"
+        )
+        error = (
+            ""
+            if self.has_class("-narrow")
+            else f" · abs err {fmt.compact(tot['abs_error'])}{value}"
+        )
         summary = Text.assemble(
             (fmt.clip(visible(p.path.name), 40), "bold"),
             f" · {p.n_series:,} series · cycle {p.cycle}{error}"
             f" · bias {fmt.signed_pct(tot['bias_pct'])[0] or 'n/a'} · WAPE {fmt.pct(tot['wape']) or 'n/a'}\n",
-            (f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})", "bold"),
-            f" · {self.by} order · {shown:,} shown" + (f" · filter: {', '.join(filt)}" if filt else ""),
+            (
+                f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})",
+                "bold",
+            ),
+            f" · {self.by} order · {shown:,} shown"
+            + (f" · filter: {', '.join(filt)}" if filt else ""),
         )
         summary.no_wrap = True
         summary.overflow = "ellipsis"
@@ -422,7 +540,12 @@ class TriageApp(App[None]):
                 self.text_filter = value.strip()
                 self._apply_order()
 
-        self.push_screen(PromptScreen("Filter: show series whose key or attributes contain", value=self.text_filter), done)
+        self.push_screen(
+            PromptScreen(
+                "Filter: show series whose key or attributes contain", value=self.text_filter
+            ),
+            done,
+        )
 
     def action_filter_field(self) -> None:
         session = self.session
@@ -517,7 +640,9 @@ class TriageApp(App[None]):
                 self.drafts[result.series] = result
                 self.save(result)
 
-        self.push_screen(DecisionScreen(session, draft.series, draft, self.options.root_causes), done)
+        self.push_screen(
+            DecisionScreen(session, draft.series, draft, self.options.root_causes), done
+        )
 
     def action_decide(self) -> None:
         series = self._q(SeriesList).current
@@ -661,7 +786,7 @@ class TriageApp(App[None]):
         tables, fva = session.override_value()
         self.call_from_thread(self._show_override_value, tables, fva)
 
-    def _show_override_value(self, tables, fva) -> None:  # noqa: ANN001
+    def _show_override_value(self, tables, fva) -> None:
         assert self.session is not None
         self._status("")
         self.push_screen(OverridesScreen(tables, fva, self.session.priced))
@@ -684,13 +809,18 @@ class TriageApp(App[None]):
     def action_help(self) -> None:
         self.push_screen(HelpScreen(self.help_rows()))
 
-    def get_system_commands(self, screen):  # noqa: ANN001, ANN201 - Textual's signature
+    def get_system_commands(self, screen):
         """The main review actions, searchable in the command palette (ctrl+p)."""
         yield from super().get_system_commands(screen)
         for binding in self.BINDINGS:
             assert isinstance(binding, Binding)
             if binding.show or binding.id in {
-                "review.suggestion", "find.field", "find.order", "find.jump", "app.export", "app.overrides"
+                "review.suggestion",
+                "find.field",
+                "find.order",
+                "find.jump",
+                "app.export",
+                "app.overrides",
             }:
                 yield SystemCommand(
                     binding.description,

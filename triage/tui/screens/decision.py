@@ -43,11 +43,27 @@ class DecisionScreen(ModalScreen[Draft | None]):
     """
 
     BINDINGS = [
-        Binding("ctrl+s", "save", "Save", priority=True, id="decision.save", tooltip="Save the decision to the ledger"),
-        Binding("escape", "cancel", "Cancel", priority=True, id="decision.cancel", tooltip="Close without saving"),
+        Binding(
+            "ctrl+s",
+            "save",
+            "Save",
+            priority=True,
+            id="decision.save",
+            tooltip="Save the decision to the ledger",
+        ),
+        Binding(
+            "escape",
+            "cancel",
+            "Cancel",
+            priority=True,
+            id="decision.cancel",
+            tooltip="Close without saving",
+        ),
     ]
 
-    def __init__(self, session: ReviewSession, series: int, draft: Draft, causes: tuple[Choice, ...]) -> None:
+    def __init__(
+        self, session: ReviewSession, series: int, draft: Draft, causes: tuple[Choice, ...]
+    ) -> None:
         super().__init__()
         self._session = session
         self._series = series
@@ -58,7 +74,10 @@ class DecisionScreen(ModalScreen[Draft | None]):
     def compose(self) -> ComposeResult:
         key = clip(" @ ".join(k for k in self._session.key(self._series) if k))
         with Vertical(classes="dialog decision"):
-            yield Static(Text.assemble(("Decision for ", "bold"), (key, "bold reverse")), classes="dialog-title")
+            yield Static(
+                Text.assemble(("Decision for ", "bold"), (key, "bold reverse")),
+                classes="dialog-title",
+            )
             yield Static(Text(self._session.describe(self._series)), id="decision-card")
             with Horizontal(id="decision-lists"):
                 yield OptionList(
@@ -72,24 +91,35 @@ class DecisionScreen(ModalScreen[Draft | None]):
             suggestion = self._session.suggest_spec[self._series]
             yield Input(
                 value=self._draft.adjustment,
-                placeholder="adjustment, e.g. x0.9, +10%, 1-4: =120, mean 8, bias" + (f" (suggested: {suggestion})" if suggestion else ""),
+                placeholder="adjustment, e.g. x0.9, +10%, 1-4: =120, mean 8, bias"
+                + (f" (suggested: {suggestion})" if suggestion else ""),
                 id="decision-adjust",
             )
             yield Static(Text(""), id="decision-preview")
             yield SeriesChart(id="decision-chart")
-            yield TextArea(self._draft.note, id="decision-note", soft_wrap=True, show_line_numbers=False)
-            yield Static(Text("ctrl+s: save   escape: cancel   tab: next field"), classes="dialog-keys")
+            yield TextArea(
+                self._draft.note, id="decision-note", soft_wrap=True, show_line_numbers=False
+            )
+            yield Static(
+                Text("ctrl+s: save   escape: cancel   tab: next field"), classes="dialog-keys"
+            )
 
     def on_mount(self) -> None:
         outcome_list = self.query_one("#decision-outcome", OptionList)
         cause_list = self.query_one("#decision-cause", OptionList)
         outcome_list.border_title = "outcome"
         cause_list.border_title = "root cause"
-        self.query_one("#decision-adjust", Input).border_title = "adjustment of the forward forecast"
+        self.query_one(
+            "#decision-adjust", Input
+        ).border_title = "adjustment of the forward forecast"
         self.query_one("#decision-note", TextArea).border_title = "note (optional, several lines)"
         outcome_list.highlighted = [c.code for c in self._outcomes].index(self._draft.outcome)
         codes = [c.code for c in self._causes]
-        cause_list.highlighted = codes.index(self._draft.root_cause) if self._draft.root_cause in codes else len(codes) - 1
+        cause_list.highlighted = (
+            codes.index(self._draft.root_cause)
+            if self._draft.root_cause in codes
+            else len(codes) - 1
+        )
         self._preview(self._draft.adjustment)
         if self._draft.outcome == ledger_mod.ADJUSTED:
             self.query_one("#decision-adjust", Input).focus()
@@ -103,7 +133,9 @@ class DecisionScreen(ModalScreen[Draft | None]):
             self._select_outcome(ledger_mod.ADJUSTED)
 
     def _select_outcome(self, code: str) -> None:
-        self.query_one("#decision-outcome", OptionList).highlighted = [c.code for c in self._outcomes].index(code)
+        self.query_one("#decision-outcome", OptionList).highlighted = [
+            c.code for c in self._outcomes
+        ].index(code)
 
     def _preview(self, spec: str) -> bool:
         """Show what ``spec`` does; True when it is valid (or empty)."""
@@ -130,7 +162,9 @@ class DecisionScreen(ModalScreen[Draft | None]):
         outcome_list = self.query_one("#decision-outcome", OptionList)
         cause_list = self.query_one("#decision-cause", OptionList)
         outcome = self._outcomes[outcome_list.highlighted or 0].code
-        cause = self._causes[cause_list.highlighted if cause_list.highlighted is not None else -1].code
+        cause = self._causes[
+            cause_list.highlighted if cause_list.highlighted is not None else -1
+        ].code
         return Draft(
             series=self._series,
             outcome=outcome,
@@ -143,11 +177,18 @@ class DecisionScreen(ModalScreen[Draft | None]):
         draft = self._current()
         preview = self.query_one("#decision-preview", Static)
         if draft.outcome == ledger_mod.ADJUSTED and not draft.adjustment:
-            preview.update(Text("outcome 'adjusted' needs an adjustment: type one above", style="bold red"))
+            preview.update(
+                Text("outcome 'adjusted' needs an adjustment: type one above", style="bold red")
+            )
             self.query_one("#decision-adjust", Input).focus()
             return
         if draft.adjustment and draft.outcome != ledger_mod.ADJUSTED:
-            preview.update(Text("an adjustment is typed: choose outcome 'adjusted' or clear it", style="bold red"))
+            preview.update(
+                Text(
+                    "an adjustment is typed: choose outcome 'adjusted' or clear it",
+                    style="bold red",
+                )
+            )
             return
         if draft.adjustment and not self._preview(draft.adjustment):
             return

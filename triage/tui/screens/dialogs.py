@@ -20,7 +20,9 @@ class PromptScreen(ModalScreen[str | None]):
 
     BINDINGS = [Binding("escape", "cancel", "Cancel", id="prompt.cancel")]
 
-    def __init__(self, title: str, *, value: str = "", placeholder: str = "", note: str = "") -> None:
+    def __init__(
+        self, title: str, *, value: str = "", placeholder: str = "", note: str = ""
+    ) -> None:
         super().__init__()
         self._title = title
         self._value = value

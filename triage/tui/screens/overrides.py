@@ -24,7 +24,11 @@ TITLES = {
 
 
 def _num(value: float, fmt: str = ",.1f") -> str:
-    return "" if value is None or (isinstance(value, float) and math.isnan(value)) else format(value, fmt)
+    return (
+        ""
+        if value is None or (isinstance(value, float) and math.isnan(value))
+        else format(value, fmt)
+    )
 
 
 def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
@@ -48,7 +52,9 @@ def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
             str(int(rec["adjustments"])),
             str(int(rec["decisions"])),
             str(int(rec["helped"])),
-            _num(rec["share_helped"] * 100, ".0f") + "%" if not math.isnan(rec["share_helped"]) else "",
+            _num(rec["share_helped"] * 100, ".0f") + "%"
+            if not math.isnan(rec["share_helped"])
+            else "",
             _num(rec["value_added"], "+,.1f"),
             *([_num(rec["value_added_value"], "+,.0f")] if priced else []),
             _num(rec["relative_value_added"] * 100, "+.1f") + "%"
@@ -61,9 +67,13 @@ def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
 class OverridesScreen(ModalScreen[None]):
     """The realised value of past overrides: positive error removed means the override helped."""
 
-    BINDINGS = [Binding("escape,q,v", "close", "Close", id="overrides.close", tooltip="Back to the list")]
+    BINDINGS = [
+        Binding("escape,q,v", "close", "Close", id="overrides.close", tooltip="Back to the list")
+    ]
 
-    def __init__(self, tables: dict[str, pd.DataFrame], fva: dict[str, float], priced: bool) -> None:
+    def __init__(
+        self, tables: dict[str, pd.DataFrame], fva: dict[str, float], priced: bool
+    ) -> None:
         super().__init__()
         self._tables = tables
         self._fva = fva
@@ -73,7 +83,9 @@ class OverridesScreen(ModalScreen[None]):
         overall = self._tables.get("direction")
         parts: list[object] = []
         if overall is None or overall.empty or int(overall.iloc[-1]["adjustments"]) == 0:
-            parts.append(Text("No past adjustment has actuals yet: come back once its periods have passed."))
+            parts.append(
+                Text("No past adjustment has actuals yet: come back once its periods have passed.")
+            )
         else:
             total = overall.iloc[-1]
             parts.append(

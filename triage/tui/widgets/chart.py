@@ -45,7 +45,13 @@ def render_chart(data: ChartSeries, width: int, height: int) -> Text:
     fig.vertical_line(data.window_start - 0.5, color="gray")
     fig.vertical_line(data.last_actual + 0.5, color="gray")
     n = len(data.labels)
-    ticks = sorted({0, n - 1, *np.linspace(0, n - 1, num=max(2, min(5, width // 16))).round().astype(int).tolist()})
+    ticks = sorted(
+        {
+            0,
+            n - 1,
+            *np.linspace(0, n - 1, num=max(2, min(5, width // 16))).round().astype(int).tolist(),
+        }
+    )
     fig.xticks(ticks, [data.labels[t] for t in ticks])
     return Text.from_ansi(fig.build())
 

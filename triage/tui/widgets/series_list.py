@@ -57,10 +57,23 @@ class SeriesList(ScrollView, can_focus=True):
     BINDINGS = [
         Binding("down,j", "cursor(1)", "Down", show=False, id="list.down", tooltip="Next series"),
         Binding("up,k", "cursor(-1)", "Up", show=False, id="list.up", tooltip="Previous series"),
-        Binding("pagedown", "page(1)", "Page down", show=False, id="list.pagedown", tooltip="One screen down"),
-        Binding("pageup", "page(-1)", "Page up", show=False, id="list.pageup", tooltip="One screen up"),
-        Binding("home", "jump(0)", "First", show=False, id="list.first", tooltip="The worst offender"),
-        Binding("end", "jump(-1)", "Last", show=False, id="list.last", tooltip="The last series shown"),
+        Binding(
+            "pagedown",
+            "page(1)",
+            "Page down",
+            show=False,
+            id="list.pagedown",
+            tooltip="One screen down",
+        ),
+        Binding(
+            "pageup", "page(-1)", "Page up", show=False, id="list.pageup", tooltip="One screen up"
+        ),
+        Binding(
+            "home", "jump(0)", "First", show=False, id="list.first", tooltip="The worst offender"
+        ),
+        Binding(
+            "end", "jump(-1)", "Last", show=False, id="list.last", tooltip="The last series shown"
+        ),
     ]
 
     COMPONENT_CLASSES = {
