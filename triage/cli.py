@@ -22,7 +22,9 @@ def build_parser() -> argparse.ArgumentParser:
     """The argument parser for every subcommand."""
     parser = argparse.ArgumentParser(
         prog="triage",
-        description="Weekly forecast review: rank series by error contribution and persistent bias.",
+        description=(
+            "Weekly forecast review: rank series by error contribution and persistent bias."
+        ),
     )
     parser.add_argument("--version", action="version", version=f"triage {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
@@ -217,7 +219,9 @@ def sample_portfolio() -> Path:
     if not path.exists():
         raise TriageError(
             f"the sample portfolio is not at {path}.",
-            hint="Run the demo from a source checkout (pip install -e .), or use triage review FILE.",
+            hint=(
+                "Run the demo from a source checkout (pip install -e .), or use triage review FILE."
+            ),
         )
     return path
 

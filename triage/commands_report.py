@@ -227,7 +227,8 @@ def cmd_report(args: argparse.Namespace) -> int:
     target_share = args.cover if args.cover is not None else config.target_share
     if ledger_path is None:
         warn(
-            f"No decisions have been recorded for {printable(portfolio.path.name)}; the report has no "
+            f"No decisions have been recorded for {printable(portfolio.path.name)}; "
+            "the report has no "
             "decisions or overrides. Pass --ledger PATH if they are kept elsewhere."
         )
     opened = (

@@ -44,7 +44,7 @@ def portfolio_file(series: int, out: Path) -> Path:
 
 def percentile(values: list[float], q: float) -> float:
     ordered = sorted(values)
-    return ordered[min(len(ordered) - 1, int(round(q * (len(ordered) - 1))))]
+    return ordered[min(len(ordered) - 1, round(q * (len(ordered) - 1)))]
 
 
 async def measure(path: Path, moves: int, repeats: int) -> dict[str, object]:
@@ -78,7 +78,7 @@ async def measure(path: Path, moves: int, repeats: int) -> dict[str, object]:
             await asyncio.sleep(0.01)
         loaded = time.perf_counter()
         await next_frame_after(loaded)
-        result["first_frame_s"] = [f for f in frames if f > loaded][0] - start
+        result["first_frame_s"] = next(f for f in frames if f > loaded) - start
         result["series"] = app.session.portfolio.n_series
 
         async def timed(action) -> float:
@@ -173,7 +173,7 @@ async def datatable_baseline(path: Path) -> float:
             table.add_row(*(Text(c) for c in row), key=str(i))
         while not [f for f in frames if f > start]:
             await pilot.pause(0.01)
-        return [f for f in frames if f > start][0] - start
+        return next(f for f in frames if f > start) - start
 
 
 def main(argv: list[str] | None = None) -> int:
@@ -199,13 +199,15 @@ def main(argv: list[str] | None = None) -> int:
     }
     print(f"{result['series']:,} series")
     print(
-        f"first frame      {result['first_frame_s']:.2f} s   (target <= {targets['first_frame_s']} s)"
+        f"first frame      {result['first_frame_s']:.2f} s   "
+        f"(target <= {targets['first_frame_s']} s)"
     )
     if "datatable_first_frame_s" in result:
         base = result["datatable_first_frame_s"]
         print(
             f"baseline         DataTable with the same rows: {base:.2f} s to its first frame "
-            f"(list widget only); the whole review start is {base / result['first_frame_s']:.1f}x faster"
+            "(list widget only); the whole review start is "
+            f"{base / result['first_frame_s']:.1f}x faster"
         )
     for name in ("cursor_ms", "filter_ms", "clear_ms", "order_ms"):
         stats = result[name]

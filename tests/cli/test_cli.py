@@ -59,7 +59,29 @@ def test_rank_csv_has_contract_columns_and_full_precision(small: Path) -> None:
     assert result.returncode == 0, result.stderr
     rows = list(csv.DictReader(io.StringIO(result.stdout)))
     assert [r["item"] for r in rows] == ["B", "A"]
-    for column in ["item", "rank", "periods", "demand", "forecast", "abs_error", "bias", "bias_pct", "wape", "mae", "rmse", "error_share", "cum_share", "tracking_signal", "bias_run", "bias_pvalue", "mase", "fva", "pattern", "adi", "cv2"]:
+    for column in [
+        "item",
+        "rank",
+        "periods",
+        "demand",
+        "forecast",
+        "abs_error",
+        "bias",
+        "bias_pct",
+        "wape",
+        "mae",
+        "rmse",
+        "error_share",
+        "cum_share",
+        "tracking_signal",
+        "bias_run",
+        "bias_pvalue",
+        "mase",
+        "fva",
+        "pattern",
+        "adi",
+        "cv2",
+    ]:
         assert column in rows[0], column
     b, a = rows
     # B: e = F - D = [1, 1, -4, 1]: Σ|e| = 7, Σe = -1 (hand computation from the contract).

@@ -39,7 +39,8 @@ def ledger_rows(path: Path) -> list[tuple]:
     con = sqlite3.connect(f"file:{path}?mode=ro", uri=True)
     try:
         return con.execute(
-            "SELECT kind, item, location, outcome, root_cause, note, adjustment, reviewer FROM event ORDER BY id"
+            "SELECT kind, item, location, outcome, root_cause, note, adjustment, reviewer "
+            "FROM event ORDER BY id"
         ).fetchall()
     finally:
         con.close()

@@ -84,7 +84,10 @@ def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Pat
 
 
 def write_blocks_atomic(path: str | Path, blocks: Iterable[bytes], *, force: bool = True) -> Path:
-    """Atomically write a file from blocks of bytes, each written as it comes (see ``write_atomic``)."""
+    """Atomically write a file from blocks of bytes, each written as it comes.
+
+    See :func:`write_atomic`.
+    """
 
     def write(p: Path) -> None:
         with p.open("wb") as handle:

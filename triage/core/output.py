@@ -366,13 +366,15 @@ def rank_table(
     win = window_info(portfolio, window)
     lines = [
         f"{visible(portfolio.path.name)}: {len(card):,} series, {portfolio.calendar.freq}, "
-        f"window {win['first']} .. {win['last']} ({win['periods']} period{'' if win['periods'] == 1 else 's'})"
+        f"window {win['first']} .. {win['last']} "
+        f"({win['periods']} period{'' if win['periods'] == 1 else 's'})"
         + (f", lag {portfolio.lag}" if portfolio.lag is not None else ""),
         "error = forecast - demand; 'over' = forecast above demand",
         f"total absolute error {_num(tot['abs_error'])} units"
         + (f", {_num(tot['abs_error_value'])} in value" if priced else ""),
         f"portfolio bias {signed_pct(tot['bias_pct']) or 'n/a'}; WAPE {_pct(tot['wape']) or 'n/a'}",
-        f"ranked by {'persistent bias, then absolute bias' if by == 'bias' else 'share of absolute error'}"
+        "ranked by "
+        + ("persistent bias, then absolute bias" if by == "bias" else "share of absolute error")
         + (" in value" if priced else " in units"),
         "",
     ]
@@ -454,7 +456,8 @@ def rank_table(
     if len(shown) < len(card):
         lines.append("")
         lines.append(
-            f"showing {len(shown):,} of {len(card):,} series; use --top K, --cover F or --format csv for more"
+            f"showing {len(shown):,} of {len(card):,} series; "
+            "use --top K, --cover F or --format csv for more"
         )
     return "\n".join(lines) + "\n"
 
@@ -505,18 +508,25 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
             if portfolio.lags
             else "no lag column (one forecast per period)"
         ),
-        f"forward        {portfolio.n_forward} periods, {int((~np.isnan(fwd)).sum()):,} forecast values"
+        f"forward        {portfolio.n_forward} periods, "
+        f"{int((~np.isnan(fwd)).sum()):,} forecast values"
         + (
             f" ({cal.label(portfolio.last_actual + 1)} .. {cal.label(len(cal.periods) - 1)})"
             if portfolio.n_forward
             else ""
         ),
-        f"price          {'yes: errors are ranked in value' if portfolio.price is not None else 'no: errors are ranked in units'}",
+        "price          "
+        + (
+            "yes: errors are ranked in value"
+            if portfolio.price is not None
+            else "no: errors are ranked in units"
+        ),
         f"attributes     {', '.join(portfolio.attributes) if portfolio.attributes else 'none'}",
         "",
         f"missing actuals   {missing_hist:,} series-periods after each series' first actual "
         f"({window_missing:,} in the window); missing is never read as zero",
-        f"no forecast       {no_forecast:,} window periods with an actual but no forecast (not scored)",
+        f"no forecast       {no_forecast:,} window periods with an actual but no forecast "
+        "(not scored)",
         f"negative demand   {int((hist < 0).sum()):,} periods (returns; counted as demand)",
         f"zero demand       {int((hist == 0).sum()):,} periods",
         f"no actual demand  {no_actual_series:,} series (nothing to score)",

@@ -50,11 +50,16 @@ DAY_NS = 86_400 * 10**9
 class LoadedLike(Protocol):
     """What the builder needs from a loaded file (see ``triage.core.load.LoadedFrame``)."""
 
-    frame: pd.DataFrame
-    path: Path
-    first_row: int
-    attributes: tuple[str, ...]
-    notices: tuple[str, ...]
+    @property
+    def frame(self) -> pd.DataFrame: ...
+    @property
+    def path(self) -> Path: ...
+    @property
+    def first_row(self) -> int: ...
+    @property
+    def attributes(self) -> tuple[str, ...]: ...
+    @property
+    def notices(self) -> tuple[str, ...]: ...
 
     def rows(self, index: Sequence[int] | np.ndarray) -> list[int]: ...
 
@@ -1053,7 +1058,8 @@ def _merge_other_lag_demand(
         bad = np.sort(np.concatenate([order[clash], ref[clash]]))
         raise LoadError(
             loaded.path,
-            f"{int(clash.sum())} {'row gives' if int(clash.sum()) == 1 else 'rows give'} a different demand for the same series and period "
+            f"{int(clash.sum())} {'row gives' if int(clash.sum()) == 1 else 'rows give'} "
+            "a different demand for the same series and period "
             f"at another lag, at {format_rows(loaded.rows(np.unique(bad)))}.",
             hint="Demand is the actual; it must be the same on every lag row of a period.",
         )

@@ -218,7 +218,8 @@ class ReviewSession:
             if row.series >= 0:
                 self.active.setdefault(int(row.series), []).append(
                     f"active adjustment from {row.cycle} ({row.adjustment}): {row.remaining} of "
-                    f"{row.periods} periods still ahead, {row.first_remaining} .. {row.last_remaining}"
+                    f"{row.periods} periods still ahead, "
+                    f"{row.first_remaining} .. {row.last_remaining}"
                 )
 
     def _indexer(self, pairs: list[tuple[str, str]]) -> np.ndarray:
@@ -513,7 +514,7 @@ class ReviewSession:
         return tables, fva
 
     def across_cycles(self, series: int) -> list[str]:
-        """Lines about the series' earlier cycles: repeat offender, carried over, active overrides."""
+        """Lines about the series' earlier cycles: repeat offender, carried over, overrides."""
         lines = []
         n, m = self.repeat_nm
         times = int(self.times_in_worst[series])

@@ -5,12 +5,13 @@ from __future__ import annotations
 import math
 from dataclasses import dataclass, field
 from pathlib import Path
+from typing import ClassVar
 
 import numpy as np
 from rich.text import Text
 from textual import on, work
 from textual.app import App, ComposeResult, SystemCommand
-from textual.binding import Binding
+from textual.binding import Binding, BindingType
 from textual.containers import Container, Vertical
 from textual.timer import Timer
 from textual.widgets import Footer, ProgressBar, Static
@@ -92,7 +93,7 @@ class TriageApp(App[None]):
     CSS_PATH = "triage.tcss"
     TITLE = "triage"
 
-    BINDINGS = [
+    BINDINGS: ClassVar[list[BindingType]] = [
         Binding(
             "enter",
             "decide",
@@ -210,7 +211,9 @@ class TriageApp(App[None]):
             "Override value",
             show=False,
             id="app.overrides",
-            tooltip="Did past overrides help? Realised value by direction, size, reviewer, cause, cycle",
+            tooltip=(
+                "Did past overrides help? Realised value by direction, size, reviewer, cause, cycle"
+            ),
         ),
     ]
 
@@ -378,7 +381,8 @@ class TriageApp(App[None]):
             "pattern": (fmt.PATTERN_SHORT.get(a["pattern"][series], a["pattern"][series]), "dim"),
             "outcome": self._review_cell(series, outcome),
             "worst": (
-                f"{'R ' if session.repeat[series] else ''}{session.times_in_worst[series]}/{session.cycles_scored}"
+                f"{'R ' if session.repeat[series] else ''}"
+                f"{session.times_in_worst[series]}/{session.cycles_scored}"
                 if session.cycles_scored
                 else "",
                 "flag" if session.repeat[series] else "dim",
@@ -432,7 +436,8 @@ class TriageApp(App[None]):
             else "no counted period in the window",
             f"tracking signal {card['tracking_signal']:+.1f} · run {int(card['bias_run']):+d} · "
             f"sign test p {card['bias_pvalue']:.3f} · MASE {card['mase']:.2f} · "
-            f"FVA {card['fva']:+.1f}/period vs naive · {card['pattern']} (ADI {card['adi']:.2f}, CV² {card['cv2']:.2f})",
+            f"FVA {card['fva']:+.1f}/period vs naive · {card['pattern']} "
+            f"(ADI {card['adi']:.2f}, CV² {card['cv2']:.2f})",
         ]
         cause = self.pending_cause.get(series)
         if cause:
@@ -501,7 +506,8 @@ class TriageApp(App[None]):
         summary = Text.assemble(
             (fmt.clip(visible(p.path.name), 40), "bold"),
             f" · {p.n_series:,} series · cycle {p.cycle}{error}"
-            f" · bias {fmt.signed_pct(tot['bias_pct'])[0] or 'n/a'} · WAPE {fmt.pct(tot['wape']) or 'n/a'}\n",
+            f" · bias {fmt.signed_pct(tot['bias_pct'])[0] or 'n/a'}"
+            f" · WAPE {fmt.pct(tot['wape']) or 'n/a'}\n",
             (
                 f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})",
                 "bold",

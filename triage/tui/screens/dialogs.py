@@ -3,12 +3,13 @@
 from __future__ import annotations
 
 from collections.abc import Sequence
+from typing import ClassVar
 
 from rich.table import Table
 from rich.text import Text
 from textual import on
 from textual.app import ComposeResult
-from textual.binding import Binding
+from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Input, OptionList, Static
@@ -18,7 +19,9 @@ from textual.widgets.option_list import Option
 class PromptScreen(ModalScreen[str | None]):
     """Ask for one line of text; ``enter`` answers, ``escape`` cancels (None)."""
 
-    BINDINGS = [Binding("escape", "cancel", "Cancel", id="prompt.cancel")]
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape", "cancel", "Cancel", id="prompt.cancel")
+    ]
 
     def __init__(
         self, title: str, *, value: str = "", placeholder: str = "", note: str = ""
@@ -48,7 +51,9 @@ class PromptScreen(ModalScreen[str | None]):
 class ChooseScreen(ModalScreen[str | None]):
     """Pick one entry of a list; answers the entry's id, or None on ``escape``."""
 
-    BINDINGS = [Binding("escape", "cancel", "Cancel", id="choose.cancel")]
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape", "cancel", "Cancel", id="choose.cancel")
+    ]
 
     def __init__(self, title: str, choices: Sequence[tuple[str, str]]) -> None:
         super().__init__()
@@ -75,7 +80,9 @@ class ChooseScreen(ModalScreen[str | None]):
 class HelpScreen(ModalScreen[None]):
     """Every key binding of the review screens, with what it does."""
 
-    BINDINGS = [Binding("escape,q,question_mark", "close", "Close", id="help.close")]
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape,q,question_mark", "close", "Close", id="help.close")
+    ]
 
     def __init__(self, rows: Sequence[tuple[str, str, str]]) -> None:
         super().__init__()

@@ -3,13 +3,14 @@
 from __future__ import annotations
 
 import math
+from typing import ClassVar
 
 import pandas as pd
-from rich.console import Group
+from rich.console import Group, RenderableType
 from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
-from textual.binding import Binding
+from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
 from textual.screen import ModalScreen
 from textual.widgets import Static
@@ -67,7 +68,7 @@ def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
 class OverridesScreen(ModalScreen[None]):
     """The realised value of past overrides: positive error removed means the override helped."""
 
-    BINDINGS = [
+    BINDINGS: ClassVar[list[BindingType]] = [
         Binding("escape,q,v", "close", "Close", id="overrides.close", tooltip="Back to the list")
     ]
 
@@ -81,7 +82,7 @@ class OverridesScreen(ModalScreen[None]):
 
     def compose(self) -> ComposeResult:
         overall = self._tables.get("direction")
-        parts: list[object] = []
+        parts: list[RenderableType] = []
         if overall is None or overall.empty or int(overall.iloc[-1]["adjustments"]) == 0:
             parts.append(
                 Text("No past adjustment has actuals yet: come back once its periods have passed.")
@@ -90,7 +91,8 @@ class OverridesScreen(ModalScreen[None]):
             total = overall.iloc[-1]
             parts.append(
                 Text(
-                    f"{int(total['adjustments'])} overridden periods from {int(total['decisions'])} decisions "
+                    f"{int(total['adjustments'])} overridden periods from "
+                    f"{int(total['decisions'])} decisions "
                     f"now have actuals; {total['share_helped'] * 100:.0f}% of them helped. "
                     f"Net error removed: {total['value_added']:+,.1f} units "
                     "(positive = the overrides made the forecast better)."

@@ -5,13 +5,14 @@ from __future__ import annotations
 from collections import OrderedDict
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from typing import ClassVar
 
 import numpy as np
 from rich.cells import cell_len, set_cell_size
 from rich.segment import Segment
 from rich.style import Style
 from textual import events
-from textual.binding import Binding
+from textual.binding import Binding, BindingType
 from textual.geometry import Size
 from textual.message import Message
 from textual.reactive import reactive
@@ -54,7 +55,7 @@ class SeriesList(ScrollView, can_focus=True):
     | home, end | first / last series |
     """
 
-    BINDINGS = [
+    BINDINGS: ClassVar[list[BindingType]] = [
         Binding("down,j", "cursor(1)", "Down", show=False, id="list.down", tooltip="Next series"),
         Binding("up,k", "cursor(-1)", "Up", show=False, id="list.up", tooltip="Previous series"),
         Binding(
@@ -76,7 +77,7 @@ class SeriesList(ScrollView, can_focus=True):
         ),
     ]
 
-    COMPONENT_CLASSES = {
+    COMPONENT_CLASSES: ClassVar[set[str]] = {
         "series-list--header",
         "series-list--cursor",
         "series-list--over",
@@ -247,7 +248,7 @@ class SeriesList(ScrollView, can_focus=True):
         base = self.rich_style
         if y == 0:
             style = base + self.get_component_rich_style("series-list--header")
-            cells = {c.key: (c.label, None) for c in columns}
+            cells: dict[str, tuple[str, str | None]] = {c.key: (c.label, None) for c in columns}
             return self._strip(columns, cells, width, style, header=True)
         line = int(self.scroll_y) + y - 1
         if line >= len(self._order):

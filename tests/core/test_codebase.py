@@ -1,0 +1,63 @@
+"""Rules of the code base that a test can hold: the core never imports the screens, and the
+linter and type checker pass (one command, ``pytest``, runs every check; common practice).
+"""
+
+from __future__ import annotations
+
+import pkgutil
+import subprocess
+import sys
+from pathlib import Path
+
+import triage.core
+
+ROOT = Path(__file__).resolve().parents[2]
+
+
+def test_core_modules_import_no_textual_and_no_screens() -> None:
+    # The headless core is what the CLI, the tests and other programs use: importing any of its
+    # modules must not pull in Textual or triage.tui (nor must the CLI entry point, which
+    # imports the screens only for `review` and `demo`).
+    modules = [f"triage.core.{m.name}" for m in pkgutil.iter_modules(triage.core.__path__)]
+    assert len(modules) >= 15
+    code = (
+        "import importlib, sys\n"
+        f"for name in {[*modules, 'triage.cli']!r}:\n"
+        "    importlib.import_module(name)\n"
+        "bad = sorted(m for m in sys.modules if m.split('.')[0] == 'textual'"
+        " or m.startswith('triage.tui'))\n"
+        "print(','.join(bad))\n"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, timeout=120
+    )
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip() == ""
+
+
+def test_ruff_lint_and_format() -> None:
+    # Configuration in pyproject.toml ([tool.ruff]).
+    for args in (
+        ["check", "triage", "tests", "sample"],
+        ["format", "--check", "triage", "tests", "sample"],
+    ):
+        result = subprocess.run(
+            [sys.executable, "-m", "ruff", *args],
+            capture_output=True,
+            text=True,
+            cwd=ROOT,
+            timeout=300,
+        )
+        assert result.returncode == 0, result.stdout + result.stderr
+
+
+def test_mypy() -> None:
+    # Configuration in pyproject.toml ([tool.mypy]).
+    result = subprocess.run(
+        [sys.executable, "-m", "mypy", "triage"],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+        timeout=600,
+    )
+    assert result.returncode == 0, result.stdout + result.stderr
