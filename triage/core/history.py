@@ -41,11 +41,10 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from triage.core import metrics, schema
+from triage.core import metrics, ranking, schema
 from triage.core.errors import TriageError
 from triage.core.ledger import ADJUSTED, OUTCOMES, Decision, Ledger
 from triage.core.portfolio import Portfolio
-from triage.core.ranking import leading_cover
 
 UP = "up"
 DOWN = "down"
@@ -470,18 +469,12 @@ def worst_set(error: np.ndarray, target_share: float) -> np.ndarray:
     when the total error is 0.
     """
     error = np.asarray(error, dtype=np.float64)
-    total = float(error.sum())
     mask = np.zeros(len(error), dtype=bool)
-    if not len(error) or total <= 0:
+    if not len(error) or float(error.sum()) <= 0:
         return mask
-    order = np.argsort(-error, kind="stable")
-    rank = np.empty(len(error), dtype=np.int64)
-    rank[order] = np.arange(1, len(error) + 1)
-    share = error / total
-    cum = np.empty(len(error))
-    cum[order] = np.cumsum(share[order])
-    keep = leading_cover(pd.DataFrame({"rank": rank, "cum_share": cum}), target_share).index
-    mask[np.asarray(keep, dtype=np.int64)] = True
+    order = ranking.descending_order(error)
+    _, cum = ranking.error_shares(error, order)
+    mask[order[: ranking.cover_count(cum[order], target_share)]] = True
     return mask
 
 
@@ -528,13 +521,14 @@ def repeat_offenders(
     if window < 1:
         raise HistoryError(f"the window must be at least 1 period, not {window}.")
     demand, forecast, price = portfolio.demand, portfolio.forecast, portfolio.price
-    with_actual = np.flatnonzero(~np.isnan(demand[:, : portfolio.last_actual + 1]).all(axis=0))
-    ends = with_actual[::-1][:m][::-1]  # oldest first
+    # The m latest periods with any actual demand, oldest first.
+    ends = metrics.window_columns(demand, portfolio.last_actual, m)
     n_series = portfolio.n_series
     member = np.zeros((n_series, len(ends)), dtype=bool)
     seen = np.zeros((n_series, len(ends)), dtype=bool)
     for j, end in enumerate(ends):
-        cols = metrics.window_columns(demand, int(end), window)
+        # Adjacent columns (the usual case) as a slice: views, not copies of the matrices.
+        cols = ranking.as_slice(metrics.window_columns(demand, int(end), window))
         wm = metrics.window_measures(
             demand[:, cols], forecast[:, cols], price[:, cols] if price is not None else None
         )

@@ -64,7 +64,7 @@ def scorecard(
         raise ValueError("season must be at least 1")
     cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
     # The window is nearly always a run of adjacent columns: slice it (views, no copies).
-    picked = _as_slice(cols)
+    picked = as_slice(cols)
     history = portfolio.demand[:, : portfolio.last_actual + 1]
     # The history scans run on a worker thread while this one does the window measures, the
     # ranking and the gathering of every other column (numpy releases the GIL in its loops).
@@ -85,7 +85,7 @@ def scorecard(
         flag = wm.bias_flag
 
         n = len(error)
-        error_order = np.argsort(-error, kind="stable")
+        error_order = descending_order(error)
         rank = np.empty(n, dtype=np.int64)
         rank[error_order] = np.arange(1, n + 1)
         # Flagged series first, then by absolute bias, ties by key: one stable sort and a stable
@@ -96,13 +96,7 @@ def scorecard(
         bias_rank = np.empty(n, dtype=np.int64)
         bias_rank[bias_order] = np.arange(1, n + 1)
 
-        # The total is the running sum's last value, so that cum_share ends at exactly 1.0
-        # (a sum of rounded shares, or a pairwise sum, can end at 0.9999999999999999).
-        running = np.cumsum(error[error_order])
-        total = float(running[-1]) if n else 0.0
-        share = error / total if total > 0 else np.full(n, np.nan)
-        cum = np.empty(n)
-        cum[error_order] = running / total if total > 0 else np.nan
+        share, cum = error_shares(error, error_order)
         mae = wm.mae
         order = error_order if by == BY_ERROR else bias_order
 
@@ -147,7 +141,7 @@ def scorecard(
     return pd.DataFrame(data, index=pd.Index(order), copy=False)
 
 
-def _as_slice(cols: np.ndarray) -> slice | np.ndarray:
+def as_slice(cols: np.ndarray) -> slice | np.ndarray:
     """``cols`` as a slice when its columns are adjacent and ascending, else unchanged."""
     if len(cols) and int(cols[-1]) - int(cols[0]) == len(cols) - 1:
         return slice(int(cols[0]), int(cols[-1]) + 1)
@@ -162,12 +156,37 @@ def _labels(names: tuple[str, ...], codes: np.ndarray) -> pd.api.extensions.Exte
     return pd.array(labels, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
 
+def descending_order(error: np.ndarray) -> np.ndarray:
+    """Positions by descending error; ties keep position order (the key order of a portfolio)."""
+    return np.argsort(-np.asarray(error, dtype=np.float64), kind="stable")
+
+
+def error_shares(error: np.ndarray, order: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``error_share`` and ``cum_share`` of every series (NaN when the total error is 0).
+
+    The total is the last value of the running sum in ``order``, so that ``cum_share`` ends at
+    exactly 1.0 (a sum of rounded shares, or a pairwise sum, can end at 0.9999999999999999).
+    """
+    n = len(error)
+    running = np.cumsum(error[order])
+    total = float(running[-1]) if n else 0.0
+    if total <= 0:
+        return np.full(n, np.nan), np.full(n, np.nan)
+    cum = np.empty(n)
+    cum[order] = running / total
+    return error / total, cum
+
+
+def cover_count(cum_in_order: np.ndarray, cover: float) -> int:
+    """Leading series (in rank order) it takes for the cumulative share to reach ``cover``."""
+    reached = np.flatnonzero(cum_in_order >= cover - 1e-12)
+    return int(reached[0]) + 1 if len(reached) else len(cum_in_order)
+
+
 def leading_cover(card: pd.DataFrame, cover: float) -> pd.DataFrame:
     """The smallest set of series, in error rank order, whose cumulative share reaches ``cover``."""
     if not 0 < cover <= 1:
         raise ValueError("cover must be in (0, 1]")
     by_rank = card.sort_values("rank", kind="stable")
-    reached = np.flatnonzero(by_rank["cum_share"].to_numpy() >= cover - 1e-12)
-    count = int(reached[0]) + 1 if len(reached) else len(by_rank)
-    keep = by_rank.index[:count]
+    keep = by_rank.index[: cover_count(by_rank["cum_share"].to_numpy(), cover)]
     return card.loc[card.index.isin(keep)]
