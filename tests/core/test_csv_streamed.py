@@ -179,3 +179,51 @@ def test_empty_attribute_cells_and_unused_columns(tmp_path: Path) -> None:
     rows = rows[["period", "Item", "location", "forecast", "DEMAND", "price", "buyer"]]
     path = to_csv(rows, tmp_path / "export.csv")
     assert_same(streamed_way(path), full_way(path))
+
+
+@pytest.mark.parametrize("block", [256, 311, 385, 459, 1024])
+def test_quoted_line_breaks_at_any_block_boundary_never_split_a_record(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, block: int
+) -> None:
+    # RFC 4180 section 2.6: a quoted field may hold line breaks. Arrow's fast parse cuts blocks
+    # at line breaks without looking at quotes; a cell whose line break falls on a cut must not
+    # become two rows. The second cell is built so that its tail parses as a plausible row on its
+    # own. Whatever the block size, the result is the full loader's.
+    lines = ["item,period,demand,forecast,family"]
+    for i in range(60):
+        lines.append(f'"I{i:02d}",2025-03-03,1,2,"fam"')
+        lines.append(f'"I{i:02d}",2025-03-10,1,2,"fam"')
+    lines[41] = '"I20",2025-03-03,1,2,"fa\nm"'
+    lines[81] = '"I40",2025-03-03,1,2,"fa\n,2025-03-10,3,4,x"'
+    path = tmp_path / "breaks.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    monkeypatch.setattr(load, "_CSV_BLOCK_BYTES", block)
+    reference = full_way(path)
+    assert_same(read_portfolio(path), reference)
+    assert "I40" in set(reference.keys["item"]) and reference.n_series == 60
+
+
+def test_quoted_file_without_line_breaks_in_cells_takes_the_fast_parse(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import pyarrow.csv as pa_csv
+
+    calls: list[bool] = []
+    real = pa_csv.read_csv
+
+    def spy(*args: object, **kwargs: object) -> object:
+        calls.append(kwargs["parse_options"].newlines_in_values)  # type: ignore[union-attr]
+        return real(*args, **kwargs)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(pa_csv, "read_csv", spy)
+    rows = garden_rows(seed=12)
+    path = to_csv(rows, tmp_path / "quoted.csv", quoting=csv.QUOTE_ALL)
+    assert_same(streamed_way(path), full_way(path))
+    assert calls == [False]  # one parse, the fast one
+    calls.clear()
+    # A quote inside a value (a 12" pot) cannot be told apart from a split cell's leftover:
+    # parsed again the careful way, same result.
+    rows.loc[rows.index[:3], "buyer"] = 'pot 12"'
+    path = to_csv(rows, tmp_path / "inch.csv", quoting=csv.QUOTE_ALL)
+    assert_same(streamed_way(path), full_way(path))
+    assert calls == [False, True]
