@@ -8,7 +8,6 @@ from __future__ import annotations
 
 import sqlite3
 import threading
-import time
 from pathlib import Path
 
 import pytest
@@ -593,46 +592,3 @@ TestLedgerModel.settings = settings(
     deadline=None,
     suppress_health_check=[HealthCheck.too_slow],
 )
-
-
-# ---- commit latency -------------------------------------------------------------------------
-
-
-def _percentile(values: list[float], q: float) -> float:
-    ordered = sorted(values)
-    return ordered[min(len(ordered) - 1, int(q * len(ordered)))]
-
-
-def test_commit_latency_close_to_a_bare_insert(tmp_path: Path, capsys) -> None:
-    """record() over 500 calls against a bare INSERT+COMMIT with the same durability settings.
-
-    The bound is loose (machines differ); it catches a per-record quick_check, an extra fsync or
-    a reopen, which cost multiples. performance-notes.md, Ledger: p50 0.12 ms here.
-    """
-    base = sqlite3.connect(tmp_path / "bare.sqlite", isolation_level=None)
-    base.execute("PRAGMA journal_mode = WAL")
-    base.execute("PRAGMA synchronous = FULL")
-    base.execute("CREATE TABLE t (item TEXT NOT NULL, note TEXT NOT NULL) STRICT")
-    with Ledger.open(tmp_path / "timed.ledger.sqlite") as timed:
-        bare: list[float] = []
-        ours: list[float] = []
-        for i in range(500):
-            t0 = time.perf_counter()
-            base.execute("BEGIN IMMEDIATE")
-            base.execute("INSERT INTO t VALUES (?, ?)", (f"S{i}", "checked"))
-            base.execute("COMMIT")
-            t1 = time.perf_counter()
-            decide(timed, f"S{i}", note="checked")
-            t2 = time.perf_counter()
-            bare.append(t1 - t0)
-            ours.append(t2 - t1)
-    base.close()
-    p50 = (_percentile(bare, 0.5), _percentile(ours, 0.5))
-    p99 = (_percentile(bare, 0.99), _percentile(ours, 0.99))
-    with capsys.disabled():
-        print(
-            f"\nledger commit latency over 500: bare p50 {p50[0] * 1e3:.3f} ms p99 "
-            f"{p99[0] * 1e3:.3f} ms; record() p50 {p50[1] * 1e3:.3f} ms p99 {p99[1] * 1e3:.3f} "
-            f"ms; ratio p50 {p50[1] / p50[0]:.2f} p99 {p99[1] / p99[0]:.2f}"
-        )
-    assert p50[1] < 6 * p50[0] + 0.5e-3

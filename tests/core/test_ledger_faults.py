@@ -242,11 +242,10 @@ def test_locked_ledger_times_out_clearly_and_works_once_released(tmp_path: Path)
     assert holder.stdout is not None and holder.stdin is not None
     try:
         assert holder.stdout.readline().strip() == "LOCKED"
-        # Opening and reading are not blocked by a WAL writer (reliability.md §1.2, measured).
-        started = time.perf_counter()
+        # Opening and reading are not blocked by a WAL writer (reliability.md §1.2, measured):
+        # were they, the open or the read would raise the busy error after the timeout.
         with Ledger.open(path, timeout=0.5) as ledger:
             assert [d.item for d in ledger.current(CYCLE)] == ["A"]
-            assert time.perf_counter() - started < 0.4
             t0 = time.perf_counter()
             with pytest.raises(LedgerBusyError) as caught:
                 ledger.record(
