@@ -236,3 +236,20 @@ async def test_export_from_the_app_writes_the_workbook(portfolio: Path) -> None:
     header = rows[0]
     first = dict(zip(header, rows[1], strict=True))
     assert (first["item"], first["location"], first["outcome"]) == (item, location, "no_change")
+
+
+async def test_a_file_with_nothing_to_score_says_so_and_opens_no_ledger(tmp_path: Path) -> None:
+    # Issue 2, section 3: only window periods with both an actual and a forecast are scored; a
+    # file with none cannot be reviewed. The screen says why (the CLI refuses it too).
+    path = tmp_path / "week47.csv"
+    path.write_text(
+        "item,period,demand,forecast\nA,2026-10-05,1,\nA,2026-10-12,2,\nA,2026-10-19,,5\n",
+        encoding="utf-8",
+    )
+    app = TriageApp(Options(portfolio=path, reviewer="ana"))
+    async with app.run_test(size=(120, 30)) as pilot:
+        label = app.screen.query_one("#loading-label")
+        await wait_for(pilot, lambda: "Cannot open" in str(label.render()), "the load error")
+        assert "nothing to score" in str(label.render())
+        assert app.session is None
+    assert not (tmp_path / "week47.ledger.sqlite").exists()

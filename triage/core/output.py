@@ -24,7 +24,7 @@ from rich.console import Console
 from rich.table import Table
 from rich.text import Text
 
-from triage.core import metrics, schema
+from triage.core import metrics, ranking, schema
 from triage.core.portfolio import Portfolio
 from triage.core.text import visible
 
@@ -335,22 +335,6 @@ def _pct(value: float) -> str:
     return "" if value is None or math.isnan(value) else f"{value * 100:.1f}%"
 
 
-def unscorable(portfolio: Portfolio, window: int) -> str | None:
-    """Why nothing in the window can be scored (no period has both an actual and a forecast)."""
-    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
-    for rows in range(0, portfolio.n_series, 1 << 15):
-        block = slice(rows, rows + (1 << 15))
-        both = ~np.isnan(portfolio.demand[block][:, cols]) & ~np.isnan(
-            portfolio.forecast[block][:, cols]
-        )
-        if both.any():
-            return None
-    return (
-        f"no period of the scoring window ({len(cols)} latest periods with actual demand) has "
-        "both an actual and a forecast, so there is nothing to score."
-    )
-
-
 def rank_table(
     portfolio: Portfolio,
     card: pd.DataFrame,
@@ -538,6 +522,6 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
         lines.append("")
         lines.extend(f"note: {n}" for n in portfolio.notices)
     lines.append("")
-    problem = unscorable(portfolio, window)
+    problem = ranking.unscorable(portfolio, window)
     lines.append("ok: the file can be scored" if problem is None else f"not ok: {problem}")
     return "\n".join(lines)

@@ -190,3 +190,19 @@ def leading_cover(card: pd.DataFrame, cover: float) -> pd.DataFrame:
     by_rank = card.sort_values("rank", kind="stable")
     keep = by_rank.index[: cover_count(by_rank["cum_share"].to_numpy(), cover)]
     return card.loc[card.index.isin(keep)]
+
+
+def unscorable(portfolio: Portfolio, window: int) -> str | None:
+    """Why nothing in the window can be scored (no period has both an actual and a forecast)."""
+    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+    for rows in range(0, portfolio.n_series, 1 << 15):
+        block = slice(rows, rows + (1 << 15))
+        both = ~np.isnan(portfolio.demand[block][:, cols]) & ~np.isnan(
+            portfolio.forecast[block][:, cols]
+        )
+        if both.any():
+            return None
+    return (
+        f"no period of the scoring window ({len(cols)} latest periods with actual demand) has "
+        "both an actual and a forecast, so there is nothing to score."
+    )
