@@ -634,6 +634,20 @@ def test_xlsx_serial_numbers_and_times_in_period(tmp_path: Path) -> None:
     assert "has a time of day" in error.message
 
 
+def test_xlsx_period_errors_of_both_kinds_in_one_message(tmp_path: Path) -> None:
+    # A slashed text date and an Excel day number (a date cell without its format) in the same
+    # column: one message names both rows, so the user fixes them in one pass (common practice).
+    rows: list[list[object]] = [
+        ["item", "period", "demand", "forecast"],
+        ["A", "01/02/2024", 1, 1],
+        ["A", 45292, 1, 1],
+        ["A", dt.date(2024, 1, 15), 1, 1],
+    ]
+    error = load_error(write_book(tmp_path / "p.xlsx", {"S": rows}))
+    assert "in 2 rows (rows 2, 3)" in error.message
+    assert "'01/02/2024' (row 2)" in error.message and "'45292' (row 3)" in error.message
+
+
 def test_xlsx_header_shorter_than_data(tmp_path: Path) -> None:
     rows: list[list[object]] = [
         ["item", "period", "demand", "forecast"],

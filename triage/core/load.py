@@ -2034,9 +2034,9 @@ def _periods_from_cells(ctx: _Context, position: int, values: pd.Series) -> pd.S
             None,
             "Every row needs a period; write dates as YYYY-MM-DD or use date cells.",
         )
-    other = ~(is_date | is_text | missing)
-    if other.any():
-        _date_error(ctx, position, np.flatnonzero(other), values)
+    # Cells that are neither dates nor text (numbers) and text that is not an ISO date are
+    # reported together, in row order, so that one message lists every kind of bad cell.
+    wrong = ~(is_date | is_text | missing)
     result = np.empty(len(cells), dtype="datetime64[us]")
     if is_date.any():
         dates = pd.to_datetime(pd.Series([cells[i] for i in np.flatnonzero(is_date)], dtype=object))
@@ -2044,10 +2044,10 @@ def _periods_from_cells(ctx: _Context, position: int, values: pd.Series) -> pd.S
     if is_text.any():
         text = pd.Series([_sanitize_str(cells[i]) for i in np.flatnonzero(is_text)], dtype=str)
         parsed = _parse_iso(text)
-        bad = parsed.isna().to_numpy()
-        if bad.any():
-            _date_error(ctx, position, np.flatnonzero(is_text)[bad], values)
+        wrong[np.flatnonzero(is_text)[parsed.isna().to_numpy()]] = True
         result[is_text] = parsed.to_numpy()
+    if wrong.any():
+        _date_error(ctx, position, np.flatnonzero(wrong), values)
     series = pd.Series(result, copy=False)
     _check_stamps(ctx, position, series)
     return series.astype("datetime64[ns]")
