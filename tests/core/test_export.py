@@ -829,3 +829,24 @@ def test_chunked_writing_gives_the_same_tables(
         assert sheet_rows(openpyxl.load_workbook(one / "up.xlsx"), sheet) == sheet_rows(
             openpyxl.load_workbook(many / "up.xlsx"), sheet
         )
+
+
+def test_export_never_replaces_the_portfolio_even_with_force(tmp_path: Path) -> None:
+    # reliability.md (the ledger and the inputs are the reviewer's work): an export named like
+    # the workbook being reviewed is refused, --force or not, and the workbook is unchanged.
+    book = openpyxl.Workbook()
+    sheet = book.active
+    sheet.append(["item", "period", "demand", "forecast"])
+    for week, day in enumerate(("2026-10-05", "2026-10-12", "2026-10-19")):
+        sheet.append(["A", day, 10 + week, 11])
+    sheet.append(["A", "2026-10-26", None, 12])
+    path = tmp_path / "week44.xlsx"
+    book.save(path)
+    before = path.read_bytes()
+    portfolio = read_portfolio(path)
+    with (
+        Ledger.open(tmp_path / "week44.ledger.sqlite") as ledger,
+        pytest.raises(ExportError, match="is the portfolio itself"),
+    ):
+        export_review(portfolio, ledger, path, force=True)
+    assert path.read_bytes() == before

@@ -534,6 +534,14 @@ def export_review(
     for path in paths:
         if path.is_dir():
             raise ExportError(f"{path} is a folder; give the name of a file to write.")
+        # Even with force: the portfolio being reviewed and the ledger are never replaced.
+        for kept in (portfolio.path, ledger.path):
+            if path.exists() and Path(kept).exists() and path.samefile(kept):
+                raise ExportError(
+                    f"{path} is the {'portfolio' if kept == portfolio.path else 'ledger'} "
+                    "itself; nothing was written.",
+                    hint="Choose another file name for the export.",
+                )
     if not force:
         existing = [p for p in paths if p.exists()]
         if existing:
