@@ -648,6 +648,19 @@ def test_xlsx_period_errors_of_both_kinds_in_one_message(tmp_path: Path) -> None
     assert "'01/02/2024' (row 2)" in error.message and "'45292' (row 3)" in error.message
 
 
+def test_xlsx_title_row_above_the_header_is_named_as_such(tmp_path: Path) -> None:
+    # A report title in the first row above the header (common practice in planners' workbooks):
+    # the message says it looks like a title, not that the data is wider than the header.
+    rows: list[list[object]] = [
+        ["Forecast review week 47"],
+        ["item", "period", "demand", "forecast"],
+        ["A", "2024-01-01", 1, 1],
+    ]
+    error = load_error(write_book(tmp_path / "p.xlsx", {"S": rows}))
+    assert "row 1 holds only 'Forecast review week 47', which looks like a title" in error.message
+    assert "Delete the title row" in (error.hint or "")
+
+
 def test_xlsx_header_shorter_than_data(tmp_path: Path) -> None:
     rows: list[list[object]] = [
         ["item", "period", "demand", "forecast"],

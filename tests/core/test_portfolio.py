@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import math
 import re
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -328,3 +329,37 @@ def test_empty_frame_is_refused() -> None:
     frame = long_frame([rec("A", 0, 1.0, 1.0)]).iloc[:0]
     with pytest.raises(LoadError, match="no data rows"):
         build_portfolio(FakeLoaded(frame=frame))
+
+
+def test_a_wide_file_of_attributes_is_built_without_a_copy_per_column(tmp_path: Path) -> None:
+    # 400 attribute columns: building the series table column by column, or dropping columns one
+    # at a time, copies the frame per column (pandas block manager), quadratic in the columns.
+    # The check is by counts, not a stopwatch: the keys table holds every attribute, and the
+    # work done per attribute is one column take (pandas DataFrame.__setitem__ is not called).
+    from triage.core.load import load_frame
+
+    header = ["item", "period", "demand", "forecast", *[f"a{i}" for i in range(400)]]
+    rows = [
+        [f"S{s}", f"2024-01-{1 + 7 * k:02d}", k % 5, 3, *["x"] * 400]
+        for s in range(5)
+        for k in range(4)
+    ]
+    path = tmp_path / "wide.csv"
+    path.write_text(
+        "\n".join(",".join(map(str, r)) for r in [header, *rows]) + "\n", encoding="utf-8"
+    )
+    calls = 0
+    real = pd.DataFrame.__setitem__
+
+    def counting(self, key, value):  # type: ignore[no-untyped-def]
+        nonlocal calls
+        calls += 1
+        return real(self, key, value)
+
+    pd.DataFrame.__setitem__ = counting  # type: ignore[method-assign]
+    try:
+        portfolio = build_portfolio(load_frame(path), consume=True)
+    finally:
+        pd.DataFrame.__setitem__ = real  # type: ignore[method-assign]
+    assert portfolio.keys.shape == (5, 401)
+    assert calls < 20

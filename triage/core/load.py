@@ -1479,6 +1479,16 @@ def _read_xlsx(
         header_row.pop()
     width = len(header_row)
     body = values[header_at + 1 :]
+    filled = [v for v in header_row if v is not None and str(v).strip()]
+    if len(filled) == 1 and any(sum(v is not None for v in row) > 1 for row in body[:5]):
+        _fail(
+            path,
+            f"sheet '{name}' row {header_at + 1} holds only "
+            f"'{_sanitize_str(str(filled[0]))[:80]}', which looks like a title, not the "
+            "header: the header must be the first non-empty row, with one name per column.",
+            "Delete the title row (and any empty rows above the header), or unmerge the title "
+            "cells, then save and load the file again.",
+        )
     for offset, row in enumerate(body):
         if len(row) > width and any(v is not None for v in row[width:]):
             column = width + next(i for i, v in enumerate(row[width:]) if v is not None) + 1

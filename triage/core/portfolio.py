@@ -293,9 +293,10 @@ def build_portfolio(
     Args:
         loaded: A validated long frame (canonical columns) and where it came from.
         lag: The forecast lag to score; required when the history holds more than one lag.
-        consume: Drop each column from ``loaded.frame`` once it has been scattered, so that the
-            long rows and the dense arrays are not both held in full. The frame is left with
-            fewer columns (possibly none); pass True only when nothing reads it afterwards.
+        consume: Drop the key, period and number columns from ``loaded.frame`` once they have
+            been scattered, so that the long rows and the dense arrays are not both held in
+            full. The frame is left with its attribute columns only; pass True only when nothing
+            reads it afterwards.
 
     Raises:
         LoadError: Irregular calendar, duplicate rows, several lags without ``lag``, an unknown
@@ -400,10 +401,8 @@ def build_portfolio(
     del cell
 
     keys = _series_table(frame, keys_unique, key_columns, loaded.attributes, attribute_rows)
-    if consume:
-        for name in loaded.attributes:
-            if name in frame.columns:
-                del frame[name]
+    # The attribute columns are left in the frame: dropping them one by one would rebuild its
+    # blocks each time (quadratic in their number), and the caller lets the frame go next.
     return Portfolio(
         path=path,
         keys=keys,
@@ -1220,7 +1219,9 @@ def _series_table(
     rows: np.ndarray | None,
 ) -> pd.DataFrame:
     """Keys plus each series' attributes, taken from the rows ``rows`` (one per series)."""
-    keys = keys_unique.copy()
+    columns: dict[str, object] = {
+        name: keys_unique[name].astype(str).reset_index(drop=True) for name in key_columns
+    }
     for name in attributes:
         column = frame[name]
         if isinstance(column.dtype, pd.CategoricalDtype):
@@ -1229,10 +1230,10 @@ def _series_table(
             values = column.cat.categories.to_numpy(dtype=object)[codes]
         else:
             values = column.take(rows).to_numpy(dtype=object)
-        keys[name] = np.asarray(values).astype(str)
-    for name in key_columns:
-        keys[name] = keys[name].astype(str)
-    return keys
+        columns[name] = pd.Series(np.asarray(values).astype(str), dtype=str)
+    # One frame from all columns at once: adding them one by one costs a copy each (quadratic
+    # in the number of attributes).
+    return pd.DataFrame(columns, copy=False)
 
 
 def _fmt(value: float) -> str:
