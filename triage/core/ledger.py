@@ -1235,9 +1235,16 @@ def _read_header(
     con: sqlite3.Connection, path: Path, *, immutable: bool, wal_bytes: int
 ) -> _Inspection:
     try:
-        app_id = int(con.execute("PRAGMA application_id").fetchone()[0])
-        user_version = int(con.execute("PRAGMA user_version").fetchone()[0])
-        tables = int(con.execute("SELECT count(*) FROM sqlite_schema").fetchone()[0])
+        # One read transaction for all three: in autocommit each statement sees its own
+        # snapshot, and another session creating the file between them would make a new ledger
+        # look like "tables but no application id", another program's database.
+        con.execute("BEGIN")
+        try:
+            app_id = int(con.execute("PRAGMA application_id").fetchone()[0])
+            user_version = int(con.execute("PRAGMA user_version").fetchone()[0])
+            tables = int(con.execute("SELECT count(*) FROM sqlite_schema").fetchone()[0])
+        finally:
+            con.execute("COMMIT")
         if app_id == APPLICATION_ID:
             problems = [r[0] for r in con.execute("PRAGMA quick_check(5)").fetchall()]
             if problems != ["ok"]:
