@@ -83,6 +83,4 @@ def open_ledger_read_only(path: Path, config: Config) -> Ledger:
 
 def warn(message: str) -> None:
     """A warning on standard error, control characters shown as visible symbols."""
-    from triage.core.text import visible
-
-    print(f"triage: warning: {visible(message, multiline=True)}", file=sys.stderr)
+    print(f"triage: warning: {printable(message, multiline=True)}", file=sys.stderr)

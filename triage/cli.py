@@ -119,7 +119,7 @@ def _load(args: argparse.Namespace):
 
 def _cmd_rank(args: argparse.Namespace) -> int:
     from triage.core import output as report
-    from triage.core.ranking import leading_cover, scorecard, unscorable
+    from triage.core.ranking import leading_cover, require_scorable, scorecard
     from triage.core.text import visible
 
     check_score_args(args)
@@ -134,12 +134,7 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         # What the loader changed or skipped (ids kept as text, replaced control characters, a
         # hidden sheet, renamed columns) is said on standard error, whatever the format.
         print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
-    problem = unscorable(portfolio, args.window)
-    if problem is not None:
-        raise TriageError(
-            f"{portfolio.path}: {problem}",
-            hint="Include the forecasts that were made for the latest periods with actuals.",
-        )
+    require_scorable(portfolio, args.window)
     card = scorecard(portfolio, args.window, args.season, by=args.by)
     shown = card
     if args.cover is not None:
@@ -164,17 +159,12 @@ def _cmd_rank(args: argparse.Namespace) -> int:
 
 def _cmd_check(args: argparse.Namespace) -> int:
     from triage.core import output as report
-    from triage.core.ranking import unscorable
+    from triage.core.ranking import require_scorable
 
     check_score_args(args)
     portfolio = _load(args)
     print(report.check_text(portfolio, args.window, args.season))
-    problem = unscorable(portfolio, args.window)
-    if problem is not None:
-        raise TriageError(
-            f"{portfolio.path}: {problem}",
-            hint="Include the forecasts that were made for the latest periods with actuals.",
-        )
+    require_scorable(portfolio, args.window)
     return 0
 
 

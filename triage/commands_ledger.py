@@ -17,7 +17,7 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from triage.arguments import open_ledger_read_only, portfolio_args, refuse_overwriting, warn
+from triage.arguments import open_ledger_read_only, portfolio_args, warn
 from triage.core.errors import TriageError
 
 if TYPE_CHECKING:
@@ -329,14 +329,13 @@ def cmd_export(args: argparse.Namespace) -> int:
     cycle = _check_cycle(args.cycle)
     config = _config(args)
     # Check the target before the (possibly long) load of the portfolio.
-    targets = export_paths(args.to)[1]
+    export_paths(args.to)
     if args.ledger is not None:
         ledger_path = args.ledger
     else:
         if not args.portfolio.exists():
             raise TriageError(f"{args.portfolio}: no such file.")
         ledger_path = _ledger_of_portfolio(args.portfolio)
-    refuse_overwriting(list(targets), args.portfolio, ledger_path)
     columns = parse_column_map(args.columns) if args.columns else None
     portfolio = read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
     with open_ledger_read_only(ledger_path, config) as ledger:

@@ -76,11 +76,7 @@ _UMASK = _read_umask()
 
 def write_text_atomic(path: str | Path, text: str, *, force: bool = True) -> Path:
     """Atomically write UTF-8 text (see ``write_atomic``)."""
-
-    def write(p: Path) -> None:
-        p.write_text(text, encoding="utf-8", newline="")
-
-    return write_atomic(path, write, force=force)
+    return write_blocks_atomic(path, [text.encode("utf-8")], force=force)
 
 
 def write_blocks_atomic(path: str | Path, blocks: Iterable[bytes], *, force: bool = True) -> Path:

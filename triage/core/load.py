@@ -427,7 +427,7 @@ def _plan_columns(
         )
     attributes: dict[int, str] = {}
     unnamed: list[int] = []
-    taken = {h.lower() for h in headers} | set(schema.SCORE_COLUMNS) | set(schema.KNOWN)
+    taken = {h.lower() for h in headers}
     renamed: list[str] = []
     for position, header in enumerate(headers):
         if roles[position] == "":

@@ -314,14 +314,6 @@ def _num(value: float, fmt: str = ",.0f") -> str:
     return "" if value is None or math.isnan(value) else format(value, fmt)
 
 
-def _signed(value: float, fmt: str) -> str:
-    """A signed number with "over"/"under" beside it; empty when undefined."""
-    if value is None or math.isnan(value):
-        return ""
-    word = " over" if value > 0 else " under" if value < 0 else ""
-    return f"{format(value, fmt)}{word}"
-
-
 def _bias_text(fraction: float, bias: float) -> str:
     """Bias as a share of demand, or only its direction when that share is undefined."""
     if fraction is None or math.isnan(fraction):
@@ -389,7 +381,7 @@ def rank_table(
             0,
         ),
         ("WAPE", "right", [_pct(v) for v in shown["wape"]], 3),
-        ("TS", "right", [_signed(v, "+.1f") for v in shown["tracking_signal"]], 2),
+        ("TS", "right", [signed_units(v, 1) for v in shown["tracking_signal"]], 2),
         ("run", "right", [_run_text(v) for v in shown["bias_run"]], 1),
         ("persistent", "left", list(shown["bias_flag"]), 0),
         ("pattern", "left", list(shown["pattern"]), 5),

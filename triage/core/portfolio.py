@@ -784,13 +784,14 @@ SPARSE_FLOOR = 100_000_000
 
 
 def _calendar_problem(
-    calendar: Calendar, codes: np.ndarray, n_rows: int, n_series: int | None = None
+    calendar: Calendar, codes: np.ndarray, n_rows: int, n_series: int
 ) -> tuple[str, str, np.ndarray] | None:
     """Why a weekly or monthly calendar cannot be right, or None.
 
-    Periods further apart than one step throughout (fortnightly, quarterly, yearly files), and a
-    long stretch that no row uses (a mistyped year makes a calendar of decades). Returns the
-    message, the hint, and the calendar columns whose rows to show as examples.
+    Periods further apart than one step throughout (fortnightly, quarterly, yearly files), a
+    long stretch that no row uses (a mistyped year makes a calendar of decades), and a calendar
+    far too long for the rows it holds. Returns the message, the hint, and the calendar columns
+    whose rows to show as examples.
     """
     unit = "weeks" if calendar.freq == schema.WEEKLY else "months"
     gaps = np.diff(codes)
@@ -817,8 +818,8 @@ def _calendar_problem(
             "Correct the periods of the rows shown (or remove them), then load the file again.",
             smaller[:EXAMPLES],
         )
-    cells = (n_series or 0) * len(calendar.periods)
-    if n_series is not None and cells >= SPARSE_FLOOR and cells > MAX_CELLS_PER_ROW * n_rows:
+    cells = n_series * len(calendar.periods)
+    if cells >= SPARSE_FLOOR and cells > MAX_CELLS_PER_ROW * n_rows:
         return (
             f"the calendar runs from {calendar.label(0)} to "
             f"{calendar.label(len(calendar.periods) - 1)} ({len(calendar.periods):,} {unit}) for "

@@ -16,6 +16,7 @@ import numpy as np
 import pandas as pd
 
 from triage.core import metrics
+from triage.core.errors import TriageError
 from triage.core.portfolio import Portfolio
 
 BY_ERROR = "error"
@@ -206,3 +207,17 @@ def unscorable(portfolio: Portfolio, window: int) -> str | None:
         f"no period of the scoring window ({len(cols)} latest periods with actual demand) has "
         "both an actual and a forecast, so there is nothing to score."
     )
+
+
+def require_scorable(portfolio: Portfolio, window: int) -> None:
+    """Refuse a portfolio in whose window nothing can be scored (see :func:`unscorable`).
+
+    Raises:
+        TriageError: No window period has both an actual and a forecast.
+    """
+    problem = unscorable(portfolio, window)
+    if problem is not None:
+        raise TriageError(
+            f"{portfolio.path}: {problem}",
+            hint="Include the forecasts that were made for the latest periods with actuals.",
+        )

@@ -273,7 +273,7 @@ class TriageApp(App[None]):
     def load(self) -> None:
         """Read, score and open the ledger off the UI thread, posting progress."""
         from triage.core.portfolio import read_portfolio
-        from triage.core.ranking import unscorable
+        from triage.core.ranking import require_scorable
 
         opts = self.options
         steps = 5
@@ -281,9 +281,7 @@ class TriageApp(App[None]):
         portfolio = read_portfolio(
             opts.portfolio, columns=opts.columns, sheet=opts.sheet, lag=opts.lag
         )
-        problem = unscorable(portfolio, opts.window)
-        if problem is not None:
-            raise TriageError(f"{portfolio.path}: {problem}")
+        require_scorable(portfolio, opts.window)
         self.post_message(LoadStep(1, steps, "opening the ledger"))
         notices = list(opts.notices) + list(portfolio.notices)
         ledger = None
