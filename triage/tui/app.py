@@ -9,7 +9,7 @@ from typing import ClassVar
 
 import numpy as np
 from rich.text import Text
-from textual import on, work
+from textual import events, on, work
 from textual.app import App, ComposeResult, SystemCommand
 from textual.binding import Binding, BindingType
 from textual.containers import Container, Vertical
@@ -23,6 +23,7 @@ from triage.core.errors import TriageError
 from triage.core.review import FILTER_FIELDS, ReviewSession
 from triage.core.text import visible
 from triage.tui import format as fmt
+from triage.tui.keyorder import KeyOrder
 from triage.tui.messages import Exported, Loaded, LoadStep, Saved, SaveFailed
 from triage.tui.screens.decision import DecisionScreen, Draft
 from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
@@ -229,6 +230,15 @@ class TriageApp(App[None]):
         self.status_text = ""
         self._arrays: dict[str, np.ndarray] = {}
         self._chart_timer: Timer | None = None
+        self.key_order = KeyOrder(self, lambda event: App.on_event(self, event))
+        """Hands keys on one at a time, in the order typed (see ``triage.tui.keyorder``)."""
+
+    async def on_event(self, event: events.Event) -> None:
+        """Keys and pastes from the terminal go through ``key_order``; the rest as usual."""
+        if isinstance(event, (events.Key, events.Paste)) and not event.is_forwarded:
+            await self.key_order.key(event)
+            return
+        await super().on_event(event)
 
     # -- layout -------------------------------------------------------------------------------
 

@@ -10,7 +10,6 @@ from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, Vertical
-from textual.screen import ModalScreen
 from textual.widgets import Input, OptionList, Static, TextArea
 from textual.widgets.option_list import Option
 
@@ -19,6 +18,7 @@ from triage.core.adjust import AdjustError
 from triage.core.config import Choice
 from triage.core.review import ReviewSession
 from triage.tui.format import clip
+from triage.tui.screens.base import Dialog
 from triage.tui.widgets.chart import SeriesChart
 
 
@@ -33,7 +33,7 @@ class Draft:
     adjustment: str
 
 
-class DecisionScreen(ModalScreen[Draft | None]):
+class DecisionScreen(Dialog[Draft | None]):
     """Record a decision for one series.
 
     | Key | Action |

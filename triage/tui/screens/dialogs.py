@@ -11,12 +11,13 @@ from textual import on
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
-from textual.screen import ModalScreen
 from textual.widgets import Input, OptionList, Static
 from textual.widgets.option_list import Option
 
+from triage.tui.screens.base import Dialog
 
-class PromptScreen(ModalScreen[str | None]):
+
+class PromptScreen(Dialog[str | None]):
     """Ask for one line of text; ``enter`` answers, ``escape`` cancels (None)."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -48,7 +49,7 @@ class PromptScreen(ModalScreen[str | None]):
         self.dismiss(None)
 
 
-class ChooseScreen(ModalScreen[str | None]):
+class ChooseScreen(Dialog[str | None]):
     """Pick one entry of a list; answers the entry's id, or None on ``escape``."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -77,7 +78,7 @@ class ChooseScreen(ModalScreen[str | None]):
         self.dismiss(None)
 
 
-class HelpScreen(ModalScreen[None]):
+class HelpScreen(Dialog[None]):
     """Every key binding of the review screens, with what it does."""
 
     BINDINGS: ClassVar[list[BindingType]] = [

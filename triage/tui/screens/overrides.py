@@ -12,8 +12,9 @@ from rich.text import Text
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
-from textual.screen import ModalScreen
 from textual.widgets import Static
+
+from triage.tui.screens.base import Dialog
 
 TITLES = {
     "direction": "by direction (up = forecast raised)",
@@ -65,7 +66,7 @@ def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
     return table
 
 
-class OverridesScreen(ModalScreen[None]):
+class OverridesScreen(Dialog[None]):
     """The realised value of past overrides: positive error removed means the override helped."""
 
     BINDINGS: ClassVar[list[BindingType]] = [
