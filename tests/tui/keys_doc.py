@@ -8,7 +8,7 @@ from textual.binding import Binding
 
 from triage.tui.app import TriageApp
 from triage.tui.screens.decision import DecisionScreen
-from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
+from triage.tui.screens.dialogs import ChooseScreen, ConfirmScreen, HelpScreen, PromptScreen
 from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.series_list import SeriesList
 
@@ -20,7 +20,7 @@ SECTIONS = (
     ("Main screen", (TriageApp,)),
     ("Decision dialog", (DecisionScreen,)),
     ("Did past overrides help?", (OverridesScreen,)),
-    ("Prompts, lists and help", (PromptScreen, ChooseScreen, HelpScreen)),
+    ("Prompts, questions, lists and help", (PromptScreen, ConfirmScreen, ChooseScreen, HelpScreen)),
 )
 
 INTRO = """# Keys of the review screens
@@ -29,8 +29,12 @@ The footer shows the main keys; `?` opens a help screen with all of them, and `c
 command palette, where every main action can be found by name. Keys can be remapped through
 Textual's keymap by binding id.
 
-While a text field has focus (filter, adjustment, note), letter keys type text; `escape` and
-`ctrl+s` still work.
+While a text field has focus (filter, adjustment, note), letter and digit keys type text;
+`escape` and `ctrl+s` still work.
+
+Keys are handled in the order they were typed, however fast: a key that opens a dialog or moves
+to the next field takes effect before the next key is handled, and `ctrl+s` saves the fields as
+they are after every key typed before it.
 """
 
 

@@ -7,9 +7,9 @@ from pathlib import Path
 
 from textual.binding import Binding
 
+from tests.tui.keys_doc import SECTIONS
 from triage.tui.app import TriageApp
 from triage.tui.screens.decision import DecisionScreen
-from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
 from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.series_list import SeriesList
 
@@ -28,15 +28,9 @@ def documented() -> set[tuple[str, str, str, str]]:
 
 def bound() -> set[tuple[str, str, str, str]]:
     rows = set()
-    for owner in (
-        SeriesList,
-        TriageApp,
-        DecisionScreen,
-        OverridesScreen,
-        PromptScreen,
-        ChooseScreen,
-        HelpScreen,
-    ):
+    owners = [SeriesList, TriageApp, DecisionScreen, OverridesScreen]
+    owners += [o for _, group in SECTIONS for o in group if o not in owners]
+    for owner in owners:
         for binding in owner.BINDINGS:
             assert isinstance(binding, Binding)
             assert binding.id, f"{owner.__name__} binding {binding.key} has no id"

@@ -122,6 +122,8 @@ class ReviewSession:
         """Effective outcome code per series in this cycle, ``""`` when unreviewed."""
         self.version = np.zeros(n, dtype=np.int64)
         """Ledger version per series in this cycle (what the next write must expect)."""
+        self.decided_by = np.full(n, "", dtype=object)
+        """Who recorded the series' effective decision in this cycle, ``""`` when none."""
         self._key_index = self._build_key_index()
         self._search: np.ndarray | None = None
         offenders = history.repeat_offenders(
@@ -182,6 +184,7 @@ class ReviewSession:
         """Read this cycle's effective decisions and versions from the ledger."""
         self.outcome[:] = ""
         self.version[:] = 0
+        self.decided_by[:] = ""
         if self.ledger is None:
             return
         versions = self.ledger.versions(self.cycle)
@@ -194,8 +197,10 @@ class ReviewSession:
         if decisions:
             idx = self._indexer([(d.item, d.location) for d in decisions])
             outcomes = np.array([d.outcome for d in decisions], dtype=object)
+            reviewers = np.array([d.reviewer for d in decisions], dtype=object)
             ok = idx >= 0
             self.outcome[idx[ok]] = outcomes[ok]
+            self.decided_by[idx[ok]] = reviewers[ok]
         self._reload_earlier_cycles()
 
     def _reload_earlier_cycles(self) -> None:
@@ -247,8 +252,18 @@ class ReviewSession:
         root_cause: str,
         note: str = "",
         adjustment: str | None = None,
+        expected_version: int | None = None,
     ) -> Event:
         """Save a decision durably; returns the event. In-memory state is not touched.
+
+        Args:
+            series: Portfolio index of the series.
+            outcome: Outcome code.
+            root_cause: Root-cause code.
+            note: Free text.
+            adjustment: Adjustment spec as typed, or None.
+            expected_version: The series' version the reviewer decided on (see
+                ``current_decision``); default the version this session last saw.
 
         Raises:
             DecisionError, StaleDecisionError, LedgerBusyError, LedgerWriteError,
@@ -274,10 +289,12 @@ class ReviewSession:
             lines=lines,
             portfolio_name=self.portfolio.path.name,
             portfolio_fingerprint=self.portfolio.fingerprint,
-            expected_version=int(self.version[series]),
+            expected_version=int(
+                self.version[series] if expected_version is None else expected_version
+            ),
         )
 
-    def commit_undo(self, series: int) -> Event:
+    def commit_undo(self, series: int, *, expected_version: int | None = None) -> Event:
         """Append an undo of the series' effective decision; in-memory state is not touched."""
         ledger = self._require_ledger()
         item, location = self.key(series)
@@ -286,7 +303,9 @@ class ReviewSession:
             item,
             location,
             reviewer=self.reviewer,
-            expected_version=int(self.version[series]),
+            expected_version=int(
+                self.version[series] if expected_version is None else expected_version
+            ),
             portfolio_name=self.portfolio.path.name,
             portfolio_fingerprint=self.portfolio.fingerprint,
         )
@@ -296,19 +315,44 @@ class ReviewSession:
         series = self.find(event.item, event.location)
         if series is None or event.cycle != self.cycle:
             return series
-        self.version[series] = event.version
+        self.version[series] = max(int(self.version[series]), event.version)
         if event.kind == ledger_mod.DECISION:
             self.outcome[series] = event.outcome or ""
+            self.decided_by[series] = event.reviewer
         else:
-            self.outcome[series] = self._effective_outcome(event.item, event.location)
+            standing, _ = self.current_decision(series)
+            self.outcome[series] = (standing.outcome or "") if standing else ""
+            self.decided_by[series] = standing.reviewer if standing else ""
         return series
 
-    def _effective_outcome(self, item: str, location: str) -> str:
-        """The series' effective outcome this cycle, from its own few events (not the cycle's)."""
-        events = self._require_ledger().history(cycle=self.cycle, item=item, location=location)
+    def current_decision(self, series: int) -> tuple[Event | None, int]:
+        """The series' effective decision in this cycle as the ledger holds it now.
+
+        Read from the file, not from this session's memory, so a decision recorded in an
+        earlier session or by another reviewer is found. Reads only the series' own events.
+
+        Returns:
+            The latest decision event not undone (None when there is none) and the series'
+            current version in the cycle (what a write based on this reading must expect).
+        """
+        if self.ledger is None:
+            return None, 0
+        item, location = self.key(series)
+        events = self.ledger.history(cycle=self.cycle, item=item, location=location)
         undone = {e.undoes for e in events if e.kind == ledger_mod.UNDO}
         standing = [e for e in events if e.kind == ledger_mod.DECISION and e.id not in undone]
-        return (standing[-1].outcome or "") if standing else ""
+        version = events[-1].version if events else 0
+        return (standing[-1] if standing else None), version
+
+    def canonical_adjustment(self, series: int, spec: str) -> str:
+        """``spec`` as the ledger would store it (``""`` when empty).
+
+        Raises:
+            AdjustSyntaxError, AdjustError: The spec is not valid for this series.
+        """
+        if not spec.strip():
+            return ""
+        return str(self.preview(series, spec).adjustment)
 
     def history(self, series: int) -> list[Event]:
         """Every ledger event of the series, all cycles, oldest first."""

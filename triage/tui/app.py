@@ -2,8 +2,12 @@
 
 from __future__ import annotations
 
+import asyncio
 import math
-from dataclasses import dataclass, field
+import threading
+from collections.abc import Callable, Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import ClassVar
 
@@ -25,8 +29,8 @@ from triage.core.text import visible
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
 from triage.tui.messages import Exported, Loaded, LoadStep, Saved, SaveFailed
-from triage.tui.screens.decision import DecisionScreen, Draft
-from triage.tui.screens.dialogs import ChooseScreen, HelpScreen, PromptScreen
+from triage.tui.screens.decision import UNCHANGED, DecisionScreen, Draft, draft_of
+from triage.tui.screens.dialogs import ChooseScreen, ConfirmScreen, HelpScreen, PromptScreen
 from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.chart import SeriesChart
 from triage.tui.widgets.series_list import SeriesList
@@ -65,7 +69,7 @@ def _cause_bindings() -> list[Binding]:
             f"Root cause {digit}",
             show=False,
             id=f"review.cause_{digit}",
-            tooltip="Choose the root cause used by the quick decisions",
+            tooltip="Root cause of the quick decisions (kept until changed; shown in the header)",
         )
         for i, digit in enumerate("1234567890")
     ]
@@ -140,6 +144,15 @@ class TriageApp(App[None]):
         Binding("question_mark", "help", "Help", id="app.help", tooltip="List every key"),
         Binding(
             "q", "quit", "Quit", id="app.quit", tooltip="Quit (every decision is already saved)"
+        ),
+        Binding(
+            "ctrl+c",
+            "quit",
+            "Quit",
+            show=False,
+            priority=True,
+            id="app.quit_anywhere",
+            tooltip="Quit from anywhere (asks first when a decision is being typed)",
         ),
         Binding(
             "h",
@@ -225,7 +238,16 @@ class TriageApp(App[None]):
         self.by = "error"
         self.text_filter = ""
         self.field_filters: dict[str, str] = {}
-        self.pending_cause: dict[int, str] = {}
+        self.cause = "unknown"
+        """Root cause of the quick decisions; picked with a digit, kept until changed."""
+        self._turn = threading.Condition()
+        self._issued = 0
+        self._served = 0
+        self._written: dict[int, int] = {}
+        """Series -> version of this app's latest committed write (worker threads write it)."""
+        self._quit_forced = False
+        self._queued: dict[int, int] = {}
+        """Series -> saves asked for and not yet answered (UI thread)."""
         self.drafts: dict[int, Draft] = {}
         self.status_text = ""
         self._arrays: dict[str, np.ndarray] = {}
@@ -245,7 +267,9 @@ class TriageApp(App[None]):
     def compose(self) -> ComposeResult:
         yield Static(Text("loading…"), id="summary")
         with Vertical(id="loading"):
-            yield Static(Text(f"Loading {self.options.portfolio}"), id="loading-label")
+            yield Static(
+                Text(f"Loading {fmt.plain(str(self.options.portfolio))}"), id="loading-label"
+            )
             yield ProgressBar(total=5, show_eta=False, id="loading-bar")
         with Container(id="main"):
             yield SeriesList(fmt.LIST_COLUMNS, self._format_row, id="list")
@@ -350,7 +374,7 @@ class TriageApp(App[None]):
         series_list.focus()
         self._refresh_summary()
         for note in message.notices:
-            self.notify(note, severity="warning", timeout=10)
+            fmt.toast(self, note, severity="warning", timeout=10)
         if message.notices:
             self._status(" | ".join(message.notices))
 
@@ -365,7 +389,7 @@ class TriageApp(App[None]):
                 Text(f"Cannot open the portfolio:\n{text}\n\nPress q to quit.", style="bold")
             )
         self._status(f"error: {text}")
-        self.notify(text, severity="error", timeout=15)
+        fmt.toast(self, text, severity="error", timeout=15)
 
     # -- list and detail ----------------------------------------------------------------------
 
@@ -451,10 +475,6 @@ class TriageApp(App[None]):
             f"FVA {card['fva']:+.1f}/period vs naive · {card['pattern']} "
             f"(ADI {card['adi']:.2f}, CV² {card['cv2']:.2f})",
         ]
-        cause = self.pending_cause.get(series)
-        if cause:
-            label = next((c.label for c in self.options.root_causes if c.code == cause), cause)
-            lines.append(f"root cause for quick decisions: {label}")
         lines.extend(session.across_cycles(series))
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
         if spec:
@@ -485,12 +505,15 @@ class TriageApp(App[None]):
         for e in events[-8:]:
             who = visible(e.reviewer)
             if e.kind == ledger_mod.UNDO:
-                text.append(f"  {e.cycle}  undo by {who} at {e.recorded_at}\n")
+                text.append(f"  {e.cycle}  undo by {who} at {fmt.when(e.recorded_at)}\n")
                 continue
             adj = f" {visible(e.adjustment)}" if e.adjustment else ""
             note = visible(e.note.splitlines()[0])[:200] if e.note else ""
-            outcome = fmt.OUTCOME_SHORT.get(e.outcome or "", e.outcome)
-            text.append(f"  {e.cycle}  {outcome}{adj} ({e.root_cause}) by {who} at {e.recorded_at}")
+            outcome = fmt.OUTCOME_SHORT.get(e.outcome or "", fmt.outcome_label(e.outcome))
+            cause = fmt.cause_label(e.root_cause, self.options.root_causes)
+            text.append(
+                f"  {e.cycle}  {outcome}{adj} ({cause}) by {who} at {fmt.when(e.recorded_at)}"
+            )
             text.append(f"  {note}\n" if note else "\n")
         return text
 
@@ -524,8 +547,9 @@ class TriageApp(App[None]):
                 f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})",
                 "bold",
             ),
+            f" · cause {fmt.cause_label(self.cause, self.options.root_causes)}"
             f" · {self.by} order · {shown:,} shown"
-            + (f" · filter: {', '.join(filt)}" if filt else ""),
+            + (f" · filter: {fmt.plain(', '.join(filt))}" if filt else ""),
         )
         summary.no_wrap = True
         summary.overflow = "ellipsis"
@@ -533,7 +557,7 @@ class TriageApp(App[None]):
 
     def _status(self, text: str) -> None:
         self.status_text = text
-        self._q("#status", Static).update(Text(text))
+        self._q("#status", Static).update(Text(visible(text)))
 
     def _apply_order(self) -> None:
         session = self.session
@@ -629,50 +653,74 @@ class TriageApp(App[None]):
     # -- actions: deciding --------------------------------------------------------------------
 
     def action_cause(self, index: int) -> None:
-        series = self._q(SeriesList).current
+        """Pick the root cause the quick decisions use; it stays picked until changed."""
         causes = self.options.root_causes
-        if series is None or index >= len(causes):
+        if index >= len(causes):
             return
-        self.pending_cause[series] = causes[index].code
-        self._status(f"root cause: {causes[index].label}")
-        self._show_detail(series)
+        self.cause = causes[index].code
+        self._status(f"root cause for quick decisions: {causes[index].label}")
+        self._refresh_summary()
+        series = self._q(SeriesList).current
+        if series is not None:
+            self._show_detail(series)
 
-    def _draft_for(self, series: int, *, outcome: str, adjustment: str = "") -> Draft:
-        kept = self.drafts.get(series)
-        if kept is not None:
-            return kept
-        return Draft(
-            series=series,
-            outcome=outcome,
-            root_cause=self.pending_cause.get(series, "unknown"),
-            note="",
-            adjustment=adjustment,
-        )
+    async def _open_dialog(self, series: int, *, outcome: str, adjustment: str = "") -> None:
+        """Open the decision dialog on what the ledger holds for the series now.
 
-    def _open_dialog(self, draft: Draft) -> None:
+        Waits for this session's own pending saves first, so the dialog never opens on a
+        decision that is about to be replaced by one the reviewer already made.
+        """
         session = self.session
         assert session is not None
+        await self._writes_settled()
+        try:
+            base, version = session.current_decision(series)
+        except TriageError as exc:
+            self._status(f"cannot read the ledger: {exc}")
+            fmt.toast(self, f"Cannot read the ledger: {exc}", severity="error", timeout=15)
+            return
+        kept = self.drafts.get(series)
+        if kept is not None:
+            draft = replace(kept, expected_version=version)
+        elif base is not None:
+            draft = draft_of(base, series, version)
+            if adjustment and not draft.adjustment:
+                draft = replace(draft, outcome=ledger_mod.ADJUSTED, adjustment=adjustment)
+        else:
+            draft = Draft(
+                series=series,
+                outcome=outcome,
+                root_cause=self.cause,
+                note="",
+                adjustment=adjustment,
+                expected_version=version,
+            )
 
-        def done(result: Draft | None) -> None:
-            if result is not None:
+        def done(result: Draft | str | None) -> None:
+            if result == UNCHANGED:
+                self._status("nothing changed: nothing recorded")
+            elif isinstance(result, Draft):
                 self.drafts[result.series] = result
-                self.save(result)
+                self._submit(result)
 
         self.push_screen(
-            DecisionScreen(session, draft.series, draft, self.options.root_causes), done
+            DecisionScreen(
+                session, draft, self.options.root_causes, base=base, kept=kept is not None
+            ),
+            done,
         )
 
-    def action_decide(self) -> None:
+    async def action_decide(self) -> None:
         series = self._q(SeriesList).current
         if series is not None and self.session is not None:
-            self._open_dialog(self._draft_for(series, outcome="no_change"))
+            await self._open_dialog(series, outcome=ledger_mod.OUTCOMES[0].code)
 
-    def action_adjust(self) -> None:
+    async def action_adjust(self) -> None:
         series = self._q(SeriesList).current
         if series is not None and self.session is not None:
-            self._open_dialog(self._draft_for(series, outcome=ledger_mod.ADJUSTED))
+            await self._open_dialog(series, outcome=ledger_mod.ADJUSTED)
 
-    def action_take_suggestion(self) -> None:
+    async def action_take_suggestion(self) -> None:
         session = self.session
         series = self._q(SeriesList).current
         if series is None or session is None:
@@ -681,60 +729,154 @@ class TriageApp(App[None]):
         if not spec:
             self._status("no suggested adjustment for this series")
             return
-        draft = self._draft_for(series, outcome=ledger_mod.ADJUSTED, adjustment=spec)
-        if not draft.adjustment:
-            draft = Draft(draft.series, ledger_mod.ADJUSTED, draft.root_cause, draft.note, spec)
-        self._open_dialog(draft)
+        await self._open_dialog(series, outcome=ledger_mod.ADJUSTED, adjustment=spec)
+
+    def _confirm_other_reviewer(self, series: int, what: str, then: Callable[[], None]) -> None:
+        """Run ``then`` at once, or after a yes when another reviewer's decision would change."""
+        session = self.session
+        assert session is not None
+        other = session.decided_by[series]
+        if not other or other == session.reviewer:
+            then()
+            return
+        question = Text.assemble(
+            f"{what} the decision recorded by ",
+            (fmt.plain(other), "bold"),
+            f" ({fmt.outcome_label(session.outcome[series])})?",
+        )
+        self.push_screen(ConfirmScreen(question), lambda yes: then() if yes else None)
 
     def action_quick(self, outcome: str) -> None:
         series = self._q(SeriesList).current
         if series is None or self.session is None:
             return
-        self.save(
-            Draft(
-                series=series,
-                outcome=outcome,
-                root_cause=self.pending_cause.get(series, "unknown"),
-                note="",
-                adjustment="",
-            )
-        )
-
-    @work(thread=True, exit_on_error=False, group="ledger")
-    def save(self, draft: Draft) -> None:
-        """Commit a decision off the UI thread; the screen says saved only after COMMIT."""
-        session = self.session
-        assert session is not None
-        self.call_from_thread(self._status, "saving…")
-        try:
-            event = session.commit_decision(
-                draft.series,
-                outcome=draft.outcome,
-                root_cause=draft.root_cause,
-                note=draft.note,
-                adjustment=draft.adjustment or None,
-            )
-        except TriageError as exc:
-            self.post_message(SaveFailed(draft.series, str(exc)))
-            return
-        self.post_message(Saved(event, fmt.OUTCOME_SHORT.get(draft.outcome, draft.outcome)))
+        draft = Draft(series=series, outcome=outcome, root_cause=self.cause, note="", adjustment="")
+        self._confirm_other_reviewer(series, "Replace", lambda: self._submit(draft))
 
     def action_undo(self) -> None:
         series = self._q(SeriesList).current
-        if series is not None and self.session is not None:
-            self.undo(series)
+        if series is None or self.session is None:
+            return
+        if not self.session.outcome[series] and not self._queued.get(series):
+            self._status("nothing to undo: the series has no decision in this cycle")
+            return
+        self._confirm_other_reviewer(series, "Undo", lambda: self._submit_undo(series))
+
+    # -- saving: one write at a time, in the order decided -------------------------------------
+
+    def _take_ticket(self) -> int:
+        with self._turn:
+            ticket = self._issued
+            self._issued += 1
+        return ticket
+
+    def _submit(self, draft: Draft) -> None:
+        self._status("saving…")
+        self._queued[draft.series] = self._queued.get(draft.series, 0) + 1
+        self.save(draft, self._take_ticket())
+
+    def _submit_undo(self, series: int) -> None:
+        self._status("saving…")
+        self._queued[series] = self._queued.get(series, 0) + 1
+        self.undo(series, self._take_ticket())
+
+    def _dequeue(self, series: int) -> None:
+        left = self._queued.get(series, 0) - 1
+        if left > 0:
+            self._queued[series] = left
+        else:
+            self._queued.pop(series, None)
+
+    @contextmanager
+    def _my_turn(self, ticket: int) -> Iterator[None]:
+        """Writes commit in the order they were made, one at a time (worker threads)."""
+        with self._turn:
+            while self._served != ticket:
+                self._turn.wait()
+        try:
+            yield
+        finally:
+            with self._turn:
+                self._served += 1
+                self._turn.notify_all()
+
+    def _expected(self, series: int, draft_version: int | None) -> int:
+        """The version a write expects: what the reviewer saw, else the latest this app knows."""
+        assert self.session is not None
+        if draft_version is not None:
+            return max(draft_version, self._written.get(series, 0))
+        return max(int(self.session.version[series]), self._written.get(series, 0))
 
     @work(thread=True, exit_on_error=False, group="ledger")
-    def undo(self, series: int) -> None:
+    def save(self, draft: Draft, ticket: int) -> None:
+        """Commit a decision off the UI thread; the screen says saved only after COMMIT."""
+        session = self.session
+        assert session is not None
+        with self._my_turn(ticket):
+            try:
+                event = session.commit_decision(
+                    draft.series,
+                    outcome=draft.outcome,
+                    root_cause=draft.root_cause,
+                    note=draft.note,
+                    adjustment=draft.adjustment or None,
+                    expected_version=self._expected(draft.series, draft.expected_version),
+                )
+            except TriageError as exc:
+                self.post_message(SaveFailed(draft.series, str(exc)))
+                return
+            self._written[draft.series] = event.version
+        self.post_message(Saved(event, fmt.outcome_label(draft.outcome).lower()))
+
+    @work(thread=True, exit_on_error=False, group="ledger")
+    def undo(self, series: int, ticket: int) -> None:
         """Append an undo event off the UI thread."""
         session = self.session
         assert session is not None
-        try:
-            event = session.commit_undo(series)
-        except TriageError as exc:
-            self.post_message(SaveFailed(series, str(exc)))
-            return
+        with self._my_turn(ticket):
+            try:
+                event = session.commit_undo(series, expected_version=self._expected(series, None))
+            except TriageError as exc:
+                self.post_message(SaveFailed(series, str(exc)))
+                return
+            self._written[series] = event.version
         self.post_message(Saved(event, "undone"))
+
+    @property
+    def writes_pending(self) -> int:
+        """Saves asked for and not yet committed or refused."""
+        with self._turn:
+            return self._issued - self._served
+
+    async def _writes_settled(self, timeout: float = 10.0) -> bool:
+        """Wait (without blocking the event loop) until every asked-for save has finished."""
+        for _ in range(int(timeout / 0.005)):
+            if not self.writes_pending:
+                return True
+            await asyncio.sleep(0.005)
+        return False
+
+    async def action_quit(self) -> None:
+        """Quit once every save asked for has reached the ledger (they take milliseconds)."""
+        if isinstance(self.screen, DecisionScreen) and not self._quit_forced:
+
+            def answered(yes: bool | None) -> None:
+                if yes:
+                    self._quit_forced = True
+                    self.call_later(self.action_quit)
+
+            self.push_screen(
+                ConfirmScreen(Text("Quit without saving the decision being typed?")), answered
+            )
+            return
+        if self.writes_pending and not self._quit_forced:
+            self._status("finishing saves before quitting…")
+            if not await self._writes_settled():
+                self._status("a save is still running: quit again to leave anyway")
+                fmt.toast(self, "A save is still running; press q again to quit anyway.")
+                self._quit_forced = True
+                return
+        self.exit()
 
     @on(Saved)
     def _saved(self, message: Saved) -> None:
@@ -742,18 +884,21 @@ class TriageApp(App[None]):
         assert session is not None
         series = session.apply_event(message.event)
         if series is not None:
+            self._dequeue(series)
             self.drafts.pop(series, None)
             self._q(SeriesList).invalidate(series)
             if series == self._q(SeriesList).current:
                 self._show_detail(series)
         key = " @ ".join(k for k in (message.event.item, message.event.location) if k)
-        self._status(f"saved: {key} {message.what} (ledger event {message.event.id})")
+        self._status(f"saved: {fmt.plain(key)} {message.what} (ledger event {message.event.id})")
         self._refresh_summary()
 
     @on(SaveFailed)
     def _save_failed(self, message: SaveFailed) -> None:
+        self._dequeue(message.series)
+        self._written.pop(message.series, None)
         self._status(f"NOT saved: {message.error} (your entry is kept: press enter to retry)")
-        self.notify(f"Not saved: {message.error}", severity="error", timeout=15)
+        fmt.toast(self, f"Not saved: {message.error}", severity="error", timeout=15)
 
     # -- export and help ----------------------------------------------------------------------
 
@@ -812,7 +957,7 @@ class TriageApp(App[None]):
     @on(Exported)
     def _exported(self, message: Exported) -> None:
         self._status(message.summary)
-        self.notify(message.summary, timeout=10)
+        fmt.toast(self, message.summary, timeout=10)
 
     def help_rows(self) -> list[tuple[str, str, str]]:
         """(keys, description, tooltip) for every binding of the main screen and the list."""

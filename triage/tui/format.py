@@ -3,11 +3,17 @@
 from __future__ import annotations
 
 import math
+from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 
 from triage.core.text import visible
 from triage.tui.widgets.series_list import Cell, Column
+
+if TYPE_CHECKING:
+    from textual.app import App
+
+    from triage.core.config import Choice
 
 BLOCKS = "▁▂▃▄▅▆▇█"
 MISSING = "·"
@@ -125,3 +131,60 @@ def sparkline(demand: np.ndarray, forecast: np.ndarray) -> str:
         return "".join(out)
 
     return draw(demand) + "|" + draw(forecast)
+
+
+def plain(text: str, limit: int = 200) -> str:
+    """Data text (an id, a reviewer's name, a path) ready for a widget: clipped, controls visible.
+
+    Pass the result inside a ``Text`` or to ``toast``; never into markup.
+    """
+    return clip(str(text), limit)
+
+
+def when(recorded_at: str) -> str:
+    """``2026-11-30 14:05 UTC`` from the ledger's ``2026-11-30T14:05:09.123Z``."""
+    text = visible(str(recorded_at))
+    if len(text) >= 16 and text[10] == "T":
+        return f"{text[:10]} {text[11:16]} UTC"
+    return text
+
+
+def outcome_label(code: str | None) -> str:
+    """The words for an outcome code (the ledger's vocabulary); never the code itself."""
+    from triage.core.ledger import OUTCOMES
+
+    for choice in OUTCOMES:
+        if choice.code == code:
+            return choice.label
+    return visible(str(code or ""))
+
+
+def cause_label(code: str | None, causes: tuple[Choice, ...]) -> str:
+    """The words for a root-cause code from the configured list (the code if it is gone)."""
+    for choice in causes:
+        if choice.code == code:
+            return choice.label
+    return visible(str(code or ""))
+
+
+#: Longest notification, in characters: a message quoting a huge cell must not fill the screen.
+TOAST_MAX = 600
+
+
+def toast(
+    app: App,
+    message: str,
+    *,
+    severity: Literal["information", "warning", "error"] = "information",
+    timeout: float = 10,
+) -> None:
+    """The one way the review screens notify: plain text, controls visible, never markup.
+
+    Messages quote cells, headers, ids, reviewers' names and paths, so Textual's markup (on by
+    default in ``App.notify``) would let ``[/]`` crash the app or ``[@click=...]`` plant an
+    action.
+    """
+    text = visible(str(message), multiline=True)
+    if len(text) > TOAST_MAX:
+        text = text[: TOAST_MAX - 1] + "…"
+    app.notify(text, severity=severity, timeout=timeout, markup=False)

@@ -1,25 +1,37 @@
-"""The decision dialog: outcome, root cause, adjustment with a live preview, and a note."""
+"""The decision dialog: outcome, root cause, adjustment with a live preview, and a note.
+
+It opens on the series' current decision in this cycle (whoever recorded it, in whatever
+session), says who recorded it and when, and saves exactly what is on screen: an unchanged
+dialog records nothing, and replacing another reviewer's decision asks first.
+"""
 
 from __future__ import annotations
 
-from dataclasses import dataclass
-from typing import ClassVar
+from dataclasses import dataclass, replace
+from typing import ClassVar, Literal
 
 from rich.text import Text
-from textual import on
+from textual import events, on
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
-from textual.containers import Horizontal, Vertical
+from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import Input, OptionList, Static, TextArea
 from textual.widgets.option_list import Option
 
 from triage.core import ledger as ledger_mod
 from triage.core.adjust import AdjustError
 from triage.core.config import Choice
+from triage.core.ledger import Event
 from triage.core.review import ReviewSession
-from triage.tui.format import clip
+from triage.tui import format as fmt
 from triage.tui.screens.base import Dialog
+from triage.tui.screens.dialogs import ConfirmScreen
 from triage.tui.widgets.chart import SeriesChart
+
+#: What the dialog answers when saved without a change: nothing is recorded.
+UNCHANGED: Literal["unchanged"] = "unchanged"
+#: Below this many rows the dialog drops its chart so every field fits with little scrolling.
+CHART_MIN_ROWS = 36
 
 
 @dataclass(frozen=True)
@@ -31,9 +43,46 @@ class Draft:
     root_cause: str
     note: str
     adjustment: str
+    expected_version: int | None = None
+    """The series' version the reviewer decided on; None: the latest this session knows."""
+
+    def same_decision(self, other: Draft) -> bool:
+        """Whether both record the same outcome, cause, note and adjustment text."""
+        return (self.outcome, self.root_cause, self.note, self.adjustment) == (
+            other.outcome,
+            other.root_cause,
+            other.note,
+            other.adjustment,
+        )
 
 
-class DecisionScreen(Dialog[Draft | None]):
+def draft_of(event: Event, series: int, version: int) -> Draft:
+    """The dialog's fields for a recorded decision."""
+    return Draft(
+        series=series,
+        outcome=event.outcome or ledger_mod.OUTCOMES[0].code,
+        root_cause=event.root_cause or "unknown",
+        note=event.note,
+        adjustment=event.adjustment or "",
+        expected_version=version,
+    )
+
+
+def _cause_bindings() -> list[Binding]:
+    return [
+        Binding(
+            digit,
+            f"pick_cause({i})",
+            f"Root cause {digit}",
+            show=False,
+            id=f"decision.cause_{digit}",
+            tooltip="Pick a root cause (when the adjustment and note fields are not focused)",
+        )
+        for i, digit in enumerate("1234567890")
+    ]
+
+
+class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
     """Record a decision for one series.
 
     | Key | Action |
@@ -41,6 +90,7 @@ class DecisionScreen(Dialog[Draft | None]):
     | ctrl+s | save the decision |
     | escape | cancel (nothing is saved) |
     | tab / shift+tab | next / previous field |
+    | 1-9, 0 | pick a root cause (outside the text fields) |
     """
 
     BINDINGS: ClassVar[list[BindingType]] = [
@@ -60,50 +110,96 @@ class DecisionScreen(Dialog[Draft | None]):
             id="decision.cancel",
             tooltip="Close without saving",
         ),
+        *_cause_bindings(),
     ]
 
     def __init__(
-        self, session: ReviewSession, series: int, draft: Draft, causes: tuple[Choice, ...]
+        self,
+        session: ReviewSession,
+        draft: Draft,
+        causes: tuple[Choice, ...],
+        *,
+        base: Event | None,
+        kept: bool = False,
     ) -> None:
+        """Open the dialog.
+
+        Args:
+            session: The review session.
+            draft: The fields to start from (the current decision, a kept entry, or defaults).
+            causes: Root causes offered.
+            base: The series' current decision in this cycle as read from the ledger, or None.
+            kept: ``draft`` is an entry that was not saved (a save failed); say so.
+        """
         super().__init__()
         self._session = session
-        self._series = series
+        self._series = draft.series
         self._draft = draft
         self._causes = causes
         self._outcomes = ledger_mod.OUTCOMES
+        self._base = base
+        self._kept = kept
 
     def compose(self) -> ComposeResult:
-        key = clip(" @ ".join(k for k in self._session.key(self._series) if k))
+        key = fmt.clip(" @ ".join(k for k in self._session.key(self._series) if k))
         with Vertical(classes="dialog decision"):
             yield Static(
                 Text.assemble(("Decision for ", "bold"), (key, "bold reverse")),
                 classes="dialog-title",
             )
-            yield Static(Text(self._session.describe(self._series)), id="decision-card")
-            with Horizontal(id="decision-lists"):
-                yield OptionList(
-                    *[Option(Text(f"{c.key} {c.label}"), id=c.code) for c in self._outcomes],
-                    id="decision-outcome",
-                )
-                yield OptionList(
-                    *[Option(Text(f"{c.key or ' '} {c.label}"), id=c.code) for c in self._causes],
-                    id="decision-cause",
-                )
-            suggestion = self._session.suggest_spec[self._series]
-            yield Input(
-                value=self._draft.adjustment,
-                placeholder="adjustment, e.g. x0.9, +10%, 1-4: =120, mean 8, bias"
-                + (f" (suggested: {suggestion})" if suggestion else ""),
-                id="decision-adjust",
-            )
-            yield Static(Text(""), id="decision-preview")
-            yield SeriesChart(id="decision-chart")
-            yield TextArea(
-                self._draft.note, id="decision-note", soft_wrap=True, show_line_numbers=False
-            )
+            with VerticalScroll(id="decision-body"):
+                yield from self._fields()
             yield Static(
-                Text("ctrl+s: save   escape: cancel   tab: next field"), classes="dialog-keys"
+                Text(
+                    "ctrl+s: save   escape: cancel   tab: next field   1-0: root cause\n"
+                    "Advisory: check every adjustment in the planning system."
+                ),
+                classes="dialog-keys",
             )
+
+    def _fields(self) -> ComposeResult:
+        """The scrolling part: current decision, card, lists, adjustment, chart, note."""
+        yield Static(self._current_text(), id="decision-current")
+        yield Static(Text(self._session.describe(self._series)), id="decision-card")
+        with Horizontal(id="decision-lists"):
+            yield OptionList(
+                *[Option(Text(f"{c.key} {c.label}"), id=c.code) for c in self._outcomes],
+                id="decision-outcome",
+            )
+            yield OptionList(
+                *[Option(Text(f"{c.key or ' '} {c.label}"), id=c.code) for c in self._causes],
+                id="decision-cause",
+            )
+        suggestion = self._session.suggest_spec[self._series]
+        yield Input(
+            value=self._draft.adjustment,
+            placeholder="adjustment, e.g. x0.9, +10%, 1-4: =120, mean 8, bias"
+            + (f" (suggested: {suggestion})" if suggestion else ""),
+            id="decision-adjust",
+        )
+        yield Static(Text(""), id="decision-preview")
+        yield SeriesChart(id="decision-chart")
+        yield TextArea(
+            self._draft.note, id="decision-note", soft_wrap=True, show_line_numbers=False
+        )
+
+    def _current_text(self) -> Text:
+        base = self._base
+        cycle = self._session.cycle
+        if base is None:
+            text = Text(f"no decision yet in cycle {cycle}", style="dim")
+        else:
+            text = Text.assemble(
+                "current decision: ",
+                (fmt.outcome_label(base.outcome), "bold"),
+                f" ({fmt.cause_label(base.root_cause, self._causes)})",
+                " by ",
+                (fmt.plain(base.reviewer), "bold"),
+                f" at {fmt.when(base.recorded_at)}",
+            )
+        if self._kept:
+            text.append("\nyour entry below was NOT saved; ctrl+s saves it", style="bold red")
+        return text
 
     def on_mount(self) -> None:
         outcome_list = self.query_one("#decision-outcome", OptionList)
@@ -113,19 +209,29 @@ class DecisionScreen(Dialog[Draft | None]):
         self.query_one(
             "#decision-adjust", Input
         ).border_title = "adjustment of the forward forecast"
-        self.query_one("#decision-note", TextArea).border_title = "note (optional, several lines)"
+        note = self.query_one("#decision-note", TextArea)
+        note.border_title = "note (optional, several lines)"
+        note.move_cursor(note.document.end)  # typing adds to a recorded note
         outcome_list.highlighted = [c.code for c in self._outcomes].index(self._draft.outcome)
-        codes = [c.code for c in self._causes]
-        cause_list.highlighted = (
-            codes.index(self._draft.root_cause)
-            if self._draft.root_cause in codes
-            else len(codes) - 1
-        )
+        cause_list.highlighted = self._cause_index(self._draft.root_cause)
+        self._fit(self.app.size.height)
         self._preview(self._draft.adjustment)
         if self._draft.outcome == ledger_mod.ADJUSTED:
             self.query_one("#decision-adjust", Input).focus()
         else:
             outcome_list.focus()
+
+    def on_resize(self, event: events.Resize) -> None:
+        self._fit(event.size.height)
+
+    def _fit(self, rows: int) -> None:
+        """On a short terminal the chart goes, so the fields need little scrolling."""
+        self.set_class(rows < CHART_MIN_ROWS, "-short")
+        self.query_one("#decision-chart", SeriesChart).display = rows >= CHART_MIN_ROWS
+
+    def _cause_index(self, code: str) -> int:
+        codes = [c.code for c in self._causes]
+        return codes.index(code) if code in codes else len(codes) - 1
 
     @on(Input.Changed, "#decision-adjust")
     def _adjust_changed(self, event: Input.Changed) -> None:
@@ -138,25 +244,33 @@ class DecisionScreen(Dialog[Draft | None]):
             c.code for c in self._outcomes
         ].index(code)
 
+    def action_pick_cause(self, index: int) -> None:
+        if index < len(self._causes):
+            self.query_one("#decision-cause", OptionList).highlighted = index
+
     def _preview(self, spec: str) -> bool:
         """Show what ``spec`` does; True when it is valid (or empty)."""
         preview = self.query_one("#decision-preview", Static)
         chart = self.query_one("#decision-chart", SeriesChart)
+        show_chart = chart.display
         if not spec.strip():
             preview.update(Text("no adjustment: the forward forecast stays as it is"))
-            chart.show(self._session.chart(self._series))
+            if show_chart:
+                chart.show(self._session.chart(self._series))
             return True
         try:
             result = self._session.preview(self._series, spec)
         except AdjustError as exc:
             preview.update(Text(str(exc), style="bold red"))
-            chart.show(self._session.chart(self._series))
+            if show_chart:
+                chart.show(self._session.chart(self._series))
             return False
         words = result.description
         if result.clipped:
             words += f"  ({result.message})"
         preview.update(Text(words))
-        chart.show(self._session.chart(self._series, result.adjusted))
+        if show_chart:
+            chart.show(self._session.chart(self._series, result.adjusted))
         return True
 
     def _current(self) -> Draft:
@@ -172,27 +286,48 @@ class DecisionScreen(Dialog[Draft | None]):
             root_cause=cause,
             note=self.query_one("#decision-note", TextArea).text,
             adjustment=self.query_one("#decision-adjust", Input).value.strip(),
+            expected_version=self._draft.expected_version,
         )
+
+    def _refuse(self, words: str) -> None:
+        self.query_one("#decision-preview", Static).update(Text(words, style="bold red"))
 
     def action_save(self) -> None:
         draft = self._current()
-        preview = self.query_one("#decision-preview", Static)
         if draft.outcome == ledger_mod.ADJUSTED and not draft.adjustment:
-            preview.update(
-                Text("outcome 'adjusted' needs an adjustment: type one above", style="bold red")
-            )
+            self._refuse("outcome 'adjusted' needs an adjustment: type one above")
             self.query_one("#decision-adjust", Input).focus()
             return
         if draft.adjustment and draft.outcome != ledger_mod.ADJUSTED:
-            preview.update(
-                Text(
-                    "an adjustment is typed: choose outcome 'adjusted' or clear it",
-                    style="bold red",
-                )
+            self._refuse("an adjustment is typed: choose outcome 'adjusted' or clear it")
+            return
+        if draft.adjustment:
+            if not self._preview(draft.adjustment):
+                return
+            draft = replace(
+                draft,
+                adjustment=self._session.canonical_adjustment(self._series, draft.adjustment),
             )
-            return
-        if draft.adjustment and not self._preview(draft.adjustment):
-            return
+        base = self._base
+        if base is not None:
+            recorded = draft_of(base, self._series, draft.expected_version or 0)
+            if draft.same_decision(recorded):
+                self.dismiss(UNCHANGED)
+                return
+            if base.reviewer != self._session.reviewer:
+                question = Text.assemble(
+                    "Replace the decision recorded by ",
+                    (fmt.plain(base.reviewer), "bold"),
+                    f" at {fmt.when(base.recorded_at)} ",
+                    f"({fmt.outcome_label(base.outcome)})?",
+                )
+
+                def answered(yes: bool | None) -> None:
+                    if yes:
+                        self.dismiss(draft)
+
+                self.app.push_screen(ConfirmScreen(question), answered)
+                return
         self.dismiss(draft)
 
     def action_cancel(self) -> None:

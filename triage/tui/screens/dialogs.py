@@ -104,3 +104,28 @@ class HelpScreen(Dialog[None]):
 
     def action_close(self) -> None:
         self.dismiss(None)
+
+
+class ConfirmScreen(Dialog[bool]):
+    """Ask a yes/no question; ``y`` or ``enter`` answers yes, ``n`` or ``escape`` no."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("y,enter", "answer(True)", "Yes", id="confirm.yes"),
+        Binding("n,escape", "answer(False)", "No", id="confirm.no"),
+    ]
+
+    def __init__(self, question: Text) -> None:
+        super().__init__()
+        self._question: Text = question
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog confirm"):
+            yield Static(self._question, classes="dialog-title")
+            yield Static(Text("y or enter: yes   n or escape: no"), classes="dialog-keys")
+
+    def on_mount(self) -> None:
+        self.query_one(Vertical).can_focus = True
+        self.query_one(Vertical).focus()
+
+    def action_answer(self, yes: bool) -> None:
+        self.dismiss(yes)
