@@ -148,3 +148,41 @@ def test_hostile_ids_do_not_reach_the_terminal(tmp_path: Path) -> None:
         term.keys("q")
     finally:
         term.kill()
+
+
+def test_ten_fast_saves_in_one_send_keys(tmp_path: Path) -> None:
+    """Adjustment, Tab, note and ctrl+s for ten series, all in one ``send-keys``: every field
+    lands in the ledger exactly as typed (keys are handled in the order they were typed)."""
+    portfolio = tmp_path / "week.csv"
+    shutil.copy(SAMPLE, portfolio)
+    ledger = tmp_path / "fast.sqlite"
+    triage = str(Path(sys.executable).with_name("triage"))
+    term = Tmux(
+        [triage, "review", str(portfolio), "--ledger", str(ledger), "--reviewer", "fast"], tmp_path
+    )
+    keys: list[str] = []
+    typed = []
+    for i in range(10):
+        spec, note = f"+{i + 1}%", f"fast note number {i} with several words in it"
+        typed.append((spec, note))
+        keys += ["a", spec, "Tab", note, "C-s", "j"]
+    try:
+        term.wait_for("reviewed 0")
+        term.keys(*keys)
+        term.wait_for("reviewed 10", timeout=60)
+        term.keys("q")
+        deadline = time.monotonic() + 15
+        while term.alive() and time.monotonic() < deadline:
+            time.sleep(0.2)
+        assert not term.alive(), "the app did not quit on q"
+    finally:
+        term.kill()
+    con = sqlite3.connect(f"file:{ledger}?mode=ro", uri=True)
+    try:
+        rows = con.execute("SELECT outcome, adjustment, note FROM event ORDER BY id").fetchall()
+    finally:
+        con.close()
+    assert [r[0] for r in rows] == ["adjusted"] * 10
+    assert [r[2] for r in rows] == [note for _, note in typed]
+    # The ledger keeps the canonical spec; each is the typed percentage.
+    assert [r[1] for r in rows] == [f"+{i + 1}%" for i in range(10)]
