@@ -22,6 +22,7 @@ from textual.widgets import Footer, ProgressBar, Static
 from textual.worker import Worker, WorkerState
 
 from triage.core import ledger as ledger_mod
+from triage.core import schema
 from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.errors import TriageError
 from triage.core.review import FILTER_FIELDS, ReviewSession
@@ -218,6 +219,22 @@ class TriageApp(App[None]):
             show=False,
             id="app.export",
             tooltip="Export decisions and the adjusted forward forecast",
+        ),
+        Binding(
+            "z",
+            "chart_zoom",
+            "Whole history",
+            show=False,
+            id="chart.zoom",
+            tooltip="Chart: the whole history, or the recent 26 periods and the forward horizon",
+        ),
+        Binding(
+            "p",
+            "chart_clip",
+            "Clip spikes",
+            show=False,
+            id="chart.clip",
+            tooltip="Chart: cut spikes that dwarf the rest (cut points marked), or show them whole",
         ),
         Binding(
             "v",
@@ -464,6 +481,7 @@ class TriageApp(App[None]):
             self._chart_timer.stop()
         self._chart_timer = self.set_timer(CHART_SETTLE, lambda: self._draw_chart(series))
         value = f" (value {fmt.compact(card['abs_error_value'])})" if session.priced else ""
+        per = " a week" if session.portfolio.calendar.freq == schema.WEEKLY else " a month"
         lines = [
             session.describe(series),
             f"abs error {fmt.compact(card['abs_error'])}{value} · WAPE {fmt.pct(card['wape'])} · "
@@ -471,9 +489,10 @@ class TriageApp(App[None]):
             if card["periods"]
             else "no counted period in the window",
             f"tracking signal {card['tracking_signal']:+.1f} · run {int(card['bias_run']):+d} · "
-            f"sign test p {card['bias_pvalue']:.3f} · MASE {card['mase']:.2f} · "
-            f"FVA {card['fva']:+.1f}/period vs naive · {card['pattern']} "
-            f"(ADI {card['adi']:.2f}, CV² {card['cv2']:.2f})",
+            f"{card['pattern']} demand (ADI {card['adi']:.2f}, CV² {card['cv2']:.2f})",
+            f"{fmt.against_naive(card['fva'], per)} (FVA)",
+            f"MASE {card['mase']:.2f}: {fmt.MEANINGS['MASE']}",
+            f"sign test p {card['bias_pvalue']:.3f}: {fmt.MEANINGS['sign test p']}",
         ]
         lines.extend(session.across_cycles(series))
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
@@ -649,6 +668,16 @@ class TriageApp(App[None]):
             self._status("every series shown has a decision this cycle")
             return
         series_list.cursor = position
+
+    def action_chart_zoom(self) -> None:
+        chart = self._q("#chart", SeriesChart)
+        chart.set_view(whole=not chart.whole, clip=chart.clip)
+        self._status("chart: whole history" if chart.whole else "chart: recent periods")
+
+    def action_chart_clip(self) -> None:
+        chart = self._q("#chart", SeriesChart)
+        chart.set_view(whole=chart.whole, clip=not chart.clip)
+        self._status("chart: spikes clipped" if chart.clip else "chart: spikes shown whole")
 
     # -- actions: deciding --------------------------------------------------------------------
 
@@ -970,7 +999,7 @@ class TriageApp(App[None]):
         return rows
 
     def action_help(self) -> None:
-        self.push_screen(HelpScreen(self.help_rows()))
+        self.push_screen(HelpScreen(self.help_rows(), fmt.MEANINGS))
 
     def get_system_commands(self, screen):
         """The main review actions, searchable in the command palette (ctrl+p)."""

@@ -215,6 +215,10 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
         outcome_list.highlighted = [c.code for c in self._outcomes].index(self._draft.outcome)
         cause_list.highlighted = self._cause_index(self._draft.root_cause)
         self._fit(self.app.size.height)
+        main_chart = self.app.screen_stack[0].query("#chart").first(SeriesChart)
+        self.query_one("#decision-chart", SeriesChart).set_view(
+            whole=main_chart.whole, clip=main_chart.clip
+        )
         self._preview(self._draft.adjustment)
         if self._draft.outcome == ledger_mod.ADJUSTED:
             self.query_one("#decision-adjust", Input).focus()

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from typing import ClassVar
 
 from rich.table import Table
@@ -85,9 +85,12 @@ class HelpScreen(Dialog[None]):
         Binding("escape,q,question_mark", "close", "Close", id="help.close")
     ]
 
-    def __init__(self, rows: Sequence[tuple[str, str, str]]) -> None:
+    def __init__(
+        self, rows: Sequence[tuple[str, str, str]], meanings: Mapping[str, str] | None = None
+    ) -> None:
         super().__init__()
         self._rows = list(rows)
+        self._meanings = dict(meanings or {})
 
     def compose(self) -> ComposeResult:
         table = Table(box=None, show_header=True, header_style="bold", expand=True)
@@ -96,10 +99,18 @@ class HelpScreen(Dialog[None]):
         table.add_column("what it does")
         for key, description, tooltip in self._rows:
             table.add_row(Text(key), Text(description), Text(tooltip))
+        words = Table(box=None, show_header=True, header_style="bold", expand=True)
+        words.add_column("measure", no_wrap=True)
+        words.add_column("what it means")
+        for name, meaning in self._meanings.items():
+            words.add_row(Text(name), Text(meaning))
         with Vertical(classes="dialog help"):
             yield Static(Text("Keys", style="bold"), classes="dialog-title")
             with VerticalScroll():
                 yield Static(table)
+                if self._meanings:
+                    yield Static(Text("\nMeasures", style="bold"))
+                    yield Static(words)
             yield Static(Text("escape, q or ?: close"), classes="dialog-keys")
 
     def action_close(self) -> None:

@@ -14,6 +14,7 @@ from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
 from textual.widgets import Static
 
+from triage.tui import format as fmt
 from triage.tui.screens.base import Dialog
 
 TITLES = {
@@ -66,6 +67,14 @@ def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
     return table
 
 
+def _net(removed: float, unit: str) -> str:
+    """``the overrides removed 12.0 units of error`` / ``added``, in words."""
+    if removed is None or math.isnan(removed):
+        return ""
+    verb = "removed" if removed >= 0 else "added"
+    return f"The overrides {verb} {abs(removed):,.1f} {unit} of error. "
+
+
 class OverridesScreen(Dialog[None]):
     """The realised value of past overrides: positive error removed means the override helped."""
 
@@ -95,10 +104,15 @@ class OverridesScreen(Dialog[None]):
                     f"{int(total['adjustments'])} overridden periods from "
                     f"{int(total['decisions'])} decisions "
                     f"now have actuals; {total['share_helped'] * 100:.0f}% of them helped. "
-                    f"Net error removed: {total['value_added']:+,.1f} units "
-                    "(positive = the overrides made the forecast better)."
+                    + _net(total["value_added"], "units")
+                    + (_net(total["value_added_value"], "in value") if self._priced else "")
                 )
             )
+            if self._priced:
+                mix = fmt.mix_effect(total["value_added"], total["value_added_value"])
+                if mix:
+                    parts.append(Text(mix.capitalize() + "."))
+            parts.append(Text(f"AvgRelMAE: {fmt.MEANINGS['AvgRelMAE']}.", style="dim"))
             for by, frame in self._tables.items():
                 parts.append(Text(""))
                 parts.append(summary_table(by, frame, self._priced))
@@ -106,10 +120,9 @@ class OverridesScreen(Dialog[None]):
         parts.append(Text(""))
         parts.append(
             Text(
-                f"For context, this cycle's forecast against the naive forecast: "
-                f"{fva.get('value_added', math.nan):+,.1f} units of error "
-                f"({'better' if fva.get('value_added', 0) > 0 else 'worse'} than naive; "
-                f"relative error {fva.get('relative_error', math.nan):.3f}), "
+                "For context, this cycle's forecast against the naive forecast: "
+                f"{fmt.against_naive(fva.get('value_added', math.nan))} over the window "
+                f"(relative error {fva.get('relative_error', math.nan):.3f}); "
                 f"{int(fva.get('series_worse_than_naive', 0)):,} series worse than naive."
             )
         )

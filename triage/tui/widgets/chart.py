@@ -20,31 +20,79 @@ def _segments(values: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
     return [(run, values[run]) for run in np.split(idx, breaks)]
 
 
-def render_chart(data: ChartSeries, width: int, height: int) -> Text:
-    """Draw the chart as Rich text (plotext's ANSI output, decoded; no markup involved)."""
+#: Periods with actuals the chart shows by default (the scoring window with context before it).
+RECENT_PERIODS = 26
+#: With clipping on, values above this multiple of the shown values' 90th percentile are cut.
+CLIP_FACTOR = 2.0
+
+
+def first_shown(data: ChartSeries, whole: bool) -> int:
+    """First period drawn: the whole history, or the last ``RECENT_PERIODS`` with actuals."""
+    if whole:
+        return 0
+    return max(0, min(data.window_start, data.last_actual + 1 - RECENT_PERIODS))
+
+
+def clip_level(values: list[np.ndarray]) -> float | None:
+    """The level a spike is cut at: ``CLIP_FACTOR`` x the 90th percentile of the shown values
+    (None when nothing rises above it)."""
+    pooled = np.concatenate([v[np.isfinite(v)] for v in values]) if values else np.array([])
+    if not len(pooled):
+        return None
+    level = CLIP_FACTOR * float(np.quantile(np.abs(pooled), 0.9))
+    return level if level > 0 and float(np.abs(pooled).max()) > level else None
+
+
+def render_chart(
+    data: ChartSeries, width: int, height: int, *, whole: bool = False, clip: bool = False
+) -> Text:
+    """Draw the chart as Rich text (plotext's ANSI output, decoded; no markup involved).
+
+    Args:
+        data: The series' arrays.
+        width: Cells across.
+        height: Rows.
+        whole: Draw the whole history; else the last ``RECENT_PERIODS`` with actuals and the
+            forward periods.
+        clip: Cut spikes at ``clip_level`` so the rest stays readable; cut points are drawn
+            with their own marker and the legend says so.
+    """
+    start = first_shown(data, whole)
+    demand = np.asarray(data.demand, dtype=float)[start:]
+    forecast = np.asarray(data.forecast, dtype=float)[start:]
+    adjusted = None if data.adjusted is None else np.asarray(data.adjusted, dtype=float)[start:]
+    shown = [demand, forecast] + ([adjusted] if adjusted is not None else [])
+    level = clip_level(shown) if clip else None
+    cut: list[tuple[np.ndarray, np.ndarray]] = []
+    if level is not None:
+        for values in shown:
+            over = np.flatnonzero(np.isfinite(values) & (values > level))
+            if len(over):
+                cut.append((over, np.full(len(over), level)))
+            values[over] = level
     fig = _figure_class()
     # plotext caps a figure at the size of the terminal it detects; the widget knows better.
     fig._limit_size(False, False)
     fig.plot_size(max(width, 20), max(height, 6))
     fig.theme("clear")
-    series = [
-        ("demand", data.demand, "hd", "cyan"),
-        ("forecast", data.forecast, "dot", "orange"),
-    ]
-    if data.adjusted is not None:
-        series.append(("adjusted", data.adjusted, "+", "green"))
+    series = [("demand", demand, "hd", "cyan"), ("forecast", forecast, "dot", "orange")]
+    if adjusted is not None:
+        series.append(("adjusted", adjusted, "+", "green"))
     drew = False
     for label, values, marker, color in series:
-        for i, (x, y) in enumerate(_segments(np.asarray(values, dtype=float))):
+        for i, (x, y) in enumerate(_segments(values)):
             fig.plot(
                 x.tolist(), y.tolist(), marker=marker, color=color, label=label if i == 0 else None
             )
             drew = True
     if not drew:
         return Text("no values to draw for this series")
-    fig.vertical_line(data.window_start - 0.5, color="gray")
-    fig.vertical_line(data.last_actual + 0.5, color="gray")
-    n = len(data.labels)
+    for i, (x, y) in enumerate(cut):
+        mark = f"clipped at {level:,.0f}" if i == 0 else None
+        fig.scatter(x.tolist(), y.tolist(), marker="▲", color="red", label=mark)
+    fig.vertical_line(data.window_start - start - 0.5, color="gray")
+    fig.vertical_line(data.last_actual - start + 0.5, color="gray")
+    n = len(data.labels) - start
     ticks = sorted(
         {
             0,
@@ -52,7 +100,7 @@ def render_chart(data: ChartSeries, width: int, height: int) -> Text:
             *np.linspace(0, n - 1, num=max(2, min(5, width // 16))).round().astype(int).tolist(),
         }
     )
-    fig.xticks(ticks, [data.labels[t] for t in ticks])
+    fig.xticks(ticks, [data.labels[start + t] for t in ticks])
     return Text.from_ansi(fig.build())
 
 
@@ -70,7 +118,16 @@ class SeriesChart(Static):
     def __init__(self, *, id: str | None = None, classes: str | None = None) -> None:
         super().__init__("", id=id, classes=classes, markup=False)
         self._data: ChartSeries | None = None
-        self._drawn: tuple[int, int, int] | None = None
+        self._drawn: tuple[int, int, int, bool, bool] | None = None
+        self.whole = False
+        """Draw the whole history instead of the recent periods and the forward horizon."""
+        self.clip = False
+        """Cut spikes so the window and the forecast stay readable."""
+
+    def set_view(self, *, whole: bool, clip: bool) -> None:
+        """Zoom out or in, clip spikes or not; redraws."""
+        self.whole, self.clip = whole, clip
+        self._redraw()
 
     def show(self, data: ChartSeries | None) -> None:
         """Draw ``data`` (None clears the chart)."""
@@ -86,8 +143,11 @@ class SeriesChart(Static):
         if self._data is None or width <= 0 or height <= 0:
             self.update("", layout=False)
             return
-        key = (id(self._data), width, height)
+        key = (id(self._data), width, height, self.whole, self.clip)
         if key == self._drawn:
             return
         self._drawn = key
-        self.update(render_chart(self._data, width, height), layout=False)
+        self.update(
+            render_chart(self._data, width, height, whole=self.whole, clip=self.clip),
+            layout=False,
+        )
