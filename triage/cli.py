@@ -189,6 +189,7 @@ def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | No
         lag=getattr(args, "lag", None),
         target_share=target,
         root_causes=config.root_causes,
+        auto_advance=config.auto_advance,
     )
 
 

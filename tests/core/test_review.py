@@ -93,3 +93,40 @@ def test_preview_and_commit_store_the_same_lines(session: ReviewSession) -> None
     )
     assert [line.adjusted for line in event.lines] == pytest.approx(list(preview.adjusted[:3]))
     assert [line.period for line in event.lines] == list(session.forward_dates[:3])
+
+
+def test_bias_order_shares_are_what_the_order_sorts_by(session: ReviewSession) -> None:
+    # Independent of the session: pandas over the scorecard in --by bias order (docs/metrics.md:
+    # flagged first, then |bias| in value). The shares are of the portfolio's total |bias|.
+    card = scorecard(session.portfolio, by="bias")
+    size = card["bias_value"].abs()
+    np.testing.assert_allclose(session.bias_size[card.index], size.to_numpy())
+    np.testing.assert_allclose(
+        session.bias_share[card.index], (size / size.sum()).to_numpy(), rtol=1e-12
+    )
+    np.testing.assert_allclose(
+        session.bias_cum[card.index], (size.cumsum() / size.sum()).to_numpy(), rtol=1e-12
+    )
+    assert session.bias_cum[card.index[-1]] == 1.0
+
+
+def test_current_decision_is_read_from_the_file(session: ReviewSession, tmp_path: Path) -> None:
+    series = int(session.error_order[0])
+    assert session.current_decision(series) == (None, 0)
+    decide(session, series, "no_change", note="first")
+    # Another session (another reviewer) writes the same series.
+    other = ReviewSession(session.portfolio, ledger=session.ledger, reviewer="bob")
+    other.apply_event(
+        other.commit_decision(series, outcome="deferred", root_cause="promotion", note="b")
+    )
+    event, version = session.current_decision(series)
+    assert event is not None and (event.outcome, event.reviewer, event.note) == (
+        "deferred",
+        "bob",
+        "b",
+    )
+    assert version == 2
+    session.apply_event(session.commit_undo(series, expected_version=version))
+    event, version = session.current_decision(series)
+    assert event is not None and event.reviewer == "ana" and version == 3
+    assert session.decided_by[series] == "ana"

@@ -98,6 +98,8 @@ class Config:
     """Root causes offered, in shortcut order."""
     target_share: float = DEFAULT_TARGET_SHARE
     """Share of total error (0-1] the worst-offender list should cover."""
+    auto_advance: bool = False
+    """After a decision, move to the next series without one (``N`` toggles it in the app)."""
     path: Path | None = None
     """The file the settings came from, or None when none was read."""
 
@@ -144,7 +146,7 @@ def load_config(path: str | Path | None = None) -> Config:
 
 
 def _parse(file: Path, data: dict[str, Any]) -> Config:
-    known = {"reviewer", "root_causes", "target_share"}
+    known = {"reviewer", "root_causes", "target_share", "auto_advance"}
     for key in data:
         if key not in known:
             raise ConfigError(
@@ -161,6 +163,9 @@ def _parse(file: Path, data: dict[str, Any]) -> Config:
         raise ConfigError(
             file, "target_share", f"must be above 0 and at most 1 (a share), not {share!r}"
         )
+    advance = data.get("auto_advance", False)
+    if not isinstance(advance, bool):
+        raise ConfigError(file, "auto_advance", f"must be true or false, not {advance!r}")
     causes = DEFAULT_ROOT_CAUSES
     if "root_causes" in data:
         causes = _parse_causes(file, data["root_causes"])
@@ -168,6 +173,7 @@ def _parse(file: Path, data: dict[str, Any]) -> Config:
         reviewer=reviewer.strip() if reviewer else None,
         root_causes=causes,
         target_share=share,
+        auto_advance=advance,
         path=file,
     )
 

@@ -19,7 +19,7 @@ from triage.core import adjust, history, metrics, schema
 from triage.core import ledger as ledger_mod
 from triage.core.ledger import Event, Ledger
 from triage.core.portfolio import Portfolio
-from triage.core.ranking import BY_BIAS, BY_ERROR, scorecard
+from triage.core.ranking import BY_BIAS, BY_ERROR, error_shares, scorecard
 
 #: Fields a reviewer can filter on besides the attribute columns.
 FILTER_FIELDS = ("pattern", "flag", "outcome", "repeat", "carried")
@@ -108,6 +108,12 @@ class ReviewSession:
             0,
         ).astype(np.int8)
         self.bias_order = np.argsort(self.card["bias_rank"].to_numpy(), kind="stable")
+        self.bias_size = np.abs(self.card["bias_value" if self.priced else "bias"].to_numpy())
+        """|bias| over the window (value where priced): what bias order sorts by, after the flag."""
+        self.bias_share, self.bias_cum = error_shares(
+            np.nan_to_num(self.bias_size), self.bias_order
+        )
+        """Share of the portfolio's total |bias|, and the cumulative share in bias order."""
         self.window_cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
         self.suggest_spec, self.suggest_reason = adjust.suggest(
             self.card["bias"].to_numpy(),
@@ -126,6 +132,7 @@ class ReviewSession:
         """Who recorded the series' effective decision in this cycle, ``""`` when none."""
         self._key_index = self._build_key_index()
         self._search: np.ndarray | None = None
+        self._folded: dict[str, np.ndarray] | None = None
         offenders = history.repeat_offenders(
             portfolio, n=repeat[0], m=repeat[1], target_share=target_share, window=window
         )
@@ -177,6 +184,24 @@ class ReviewSession:
         except KeyError:
             return None
         return int(found) if isinstance(found, (int, np.integer)) else None
+
+    def find_all(self, item: str, location: str = "") -> np.ndarray:
+        """Series whose item (and location, when given) match, ignoring case; in key order.
+
+        What a reviewer types to go to a series: the item alone finds it at every location.
+        """
+        if self._folded is None:
+            keys = self.portfolio.keys
+            folded = {"item": keys[schema.ITEM].astype(str).str.casefold().to_numpy(dtype=object)}
+            if schema.LOCATION in keys:
+                folded["location"] = (
+                    keys[schema.LOCATION].astype(str).str.casefold().to_numpy(dtype=object)
+                )
+            self._folded = folded
+        hit = self._folded["item"] == item.strip().casefold()
+        if location.strip() and "location" in self._folded:
+            hit &= self._folded["location"] == location.strip().casefold()
+        return np.flatnonzero(hit)
 
     # -- ledger state -------------------------------------------------------------------------
 

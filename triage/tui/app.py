@@ -59,6 +59,7 @@ class Options:
     lag: int | None = None
     target_share: float = 0.8
     root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
+    auto_advance: bool = False
     notices: list[str] = field(default_factory=list)
 
 
@@ -221,6 +222,14 @@ class TriageApp(App[None]):
             tooltip="Export decisions and the adjusted forward forecast",
         ),
         Binding(
+            "N",
+            "toggle_advance",
+            "Auto-advance",
+            show=False,
+            id="review.auto_advance",
+            tooltip="After each decision, go to the next series without one: on / off",
+        ),
+        Binding(
             "z",
             "chart_zoom",
             "Whole history",
@@ -256,6 +265,8 @@ class TriageApp(App[None]):
         self.text_filter = ""
         self.field_filters: dict[str, str] = {}
         self.cause = "unknown"
+        self.auto_advance = options.auto_advance
+        """Move to the next unreviewed series after each decision."""
         """Root cause of the quick decisions; picked with a digit, kept until changed."""
         self._turn = threading.Condition()
         self._issued = 0
@@ -424,6 +435,9 @@ class TriageApp(App[None]):
             "location": (fmt.clip(a["location"][series], 40), None),
             "share": (fmt.pct(a["share"][series]), None),
             "cum": (fmt.pct(a["cum"][series], 0), "dim"),
+            "bshare": (fmt.pct(session.bias_share[series]), None),
+            "bcum": (fmt.pct(session.bias_cum[series], 0), "dim"),
+            "bsize": (fmt.compact(session.bias_size[series]), None),
             "error": (fmt.compact(a["error"][series]), None),
             "bias": fmt.signed_pct(a["bias_pct"][series]),
             "ts": ("" if math.isnan(a["ts"][series]) else f"{a['ts'][series]:+.1f}", None),
@@ -459,8 +473,8 @@ class TriageApp(App[None]):
 
     def _show_detail(self, series: int | None) -> None:
         session = self.session
-        if session is None:
-            return
+        if session is None or not self.screen_stack:
+            return  # not loaded yet, or closing (a last cursor message arrives after the screens)
         title = self._q("#detail-title", Static)
         body = self._q("#detail-text", Static)
         if series is None:
@@ -567,7 +581,8 @@ class TriageApp(App[None]):
                 "bold",
             ),
             f" · cause {fmt.cause_label(self.cause, self.options.root_causes)}"
-            f" · {self.by} order · {shown:,} shown"
+            + (" · auto-advance" if self.auto_advance else "")
+            + f" · {self.by} order · {shown:,} shown"
             + (f" · filter: {fmt.plain(', '.join(filt))}" if filt else ""),
         )
         summary.no_wrap = True
@@ -593,6 +608,7 @@ class TriageApp(App[None]):
 
     def action_toggle_order(self) -> None:
         self.by = "bias" if self.by == "error" else "error"
+        self._q(SeriesList).set_columns(fmt.BIAS_COLUMNS if self.by == "bias" else fmt.LIST_COLUMNS)
         self._apply_order()
 
     def action_filter_text(self) -> None:
@@ -641,20 +657,34 @@ class TriageApp(App[None]):
         if session is None:
             return
 
-        def done(value: str | None) -> None:
-            if not value:
-                return
-            item, _, location = value.partition("@")
-            series = session.find(item.strip(), location.strip())
-            if series is None:
-                self._status(f"no series {value.strip()!r} in this portfolio")
-                return
+        def go(series: int) -> None:
             series_list = self._q(SeriesList)
             hits = np.flatnonzero(series_list.order == series)
             if not len(hits):
                 self.action_clear_filter()
                 hits = np.flatnonzero(series_list.order == series)
             series_list.cursor = int(hits[0])
+
+        def done(value: str | None) -> None:
+            if not value or not value.strip():
+                return
+            item, _, location = value.partition("@")
+            found = session.find_all(item, location)
+            if not len(found):
+                self._status(f"no series {value.strip()!r} in this portfolio (case is ignored)")
+                return
+            self._status("")  # found: an earlier "no series" message goes
+            if len(found) == 1:
+                go(int(found[0]))
+                return
+            choices = [
+                (str(i), " @ ".join(fmt.plain(k) for k in session.key(int(i)) if k))
+                for i in found[:500]
+            ]
+            self.push_screen(
+                ChooseScreen(f"{len(found)} series match; go to", choices),
+                lambda picked: go(int(picked)) if picked is not None else None,
+            )
 
         self.push_screen(PromptScreen("Go to series: item (or item @ location)"), done)
 
@@ -668,6 +698,20 @@ class TriageApp(App[None]):
             self._status("every series shown has a decision this cycle")
             return
         series_list.cursor = position
+
+    def action_toggle_advance(self) -> None:
+        self.auto_advance = not self.auto_advance
+        self._status(
+            "auto-advance on: after each decision, the next series without one"
+            if self.auto_advance
+            else "auto-advance off"
+        )
+        self._refresh_summary()
+
+    def _advance(self) -> None:
+        """With auto-advance on, go to the next series without a decision this cycle."""
+        if self.auto_advance:
+            self.action_next_unreviewed()
 
     def action_chart_zoom(self) -> None:
         chart = self._q("#chart", SeriesChart)
@@ -731,6 +775,7 @@ class TriageApp(App[None]):
             elif isinstance(result, Draft):
                 self.drafts[result.series] = result
                 self._submit(result)
+                self._advance()
 
         self.push_screen(
             DecisionScreen(
@@ -780,7 +825,12 @@ class TriageApp(App[None]):
         if series is None or self.session is None:
             return
         draft = Draft(series=series, outcome=outcome, root_cause=self.cause, note="", adjustment="")
-        self._confirm_other_reviewer(series, "Replace", lambda: self._submit(draft))
+
+        def record() -> None:
+            self._submit(draft)
+            self._advance()
+
+        self._confirm_other_reviewer(series, "Replace", record)
 
     def action_undo(self) -> None:
         series = self._q(SeriesList).current

@@ -68,6 +68,17 @@ LIST_COLUMNS = (
     Column("spark", "dem | fcst", 2 * SPARK_PERIODS + 1, keep=14),
 )
 
+#: Bias order shows what it sorts by: |bias| (value where priced), its share of the portfolio's
+#: total |bias| and the cumulative share in that order, in place of the error columns.
+BIAS_COLUMNS = tuple(
+    {
+        "share": Column("bshare", "bias sh", 7, right=True, keep=17),
+        "cum": Column("bcum", "cum", 5, right=True, keep=5),
+        "error": Column("bsize", "|bias|", 8, right=True, keep=16),
+    }.get(c.key, c)
+    for c in LIST_COLUMNS
+)
+
 
 def clip(text: str, limit: int = 200) -> str:
     """At most ``limit`` characters, with an ellipsis: a 1 MB cell must not stall a repaint.

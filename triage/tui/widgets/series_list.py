@@ -160,6 +160,12 @@ class SeriesList(ScrollView, can_focus=True):
         self.cursor = target
         self.refresh()
 
+    def set_columns(self, columns: Sequence[Column]) -> None:
+        """Show another set of columns (another order shows what it sorts by)."""
+        self._all_columns = tuple(columns)
+        self._fitted_width = -1
+        self.invalidate()
+
     def invalidate(self, series: int | None = None) -> None:
         """Forget cached text for one series (or all) after its data changed, and repaint."""
         if series is None:
