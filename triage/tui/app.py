@@ -431,8 +431,8 @@ class TriageApp(App[None]):
         p = session.portfolio
         return {
             "rank": (str(a["rank"][series]), None),
-            "item": (fmt.clip(a["item"][series], 40), None),
-            "location": (fmt.clip(a["location"][series], 40), None),
+            "item": (fmt.key_text(a["item"][series], 40), None),
+            "location": (fmt.key_text(a["location"][series], 40), None),
             "share": (fmt.pct(a["share"][series]), None),
             "cum": (fmt.pct(a["cum"][series], 0), "dim"),
             "bshare": (fmt.pct(session.bias_share[series]), None),
@@ -483,7 +483,7 @@ class TriageApp(App[None]):
             body.update(Text(""), layout=False)
             return
         card = session.card.iloc[series]
-        key = fmt.clip(" @ ".join(k for k in session.key(series) if k))
+        key = fmt.key_text(session.key(series))
         title.update(
             Text.assemble(
                 (key, "bold"), f"   rank {int(card['rank'])} of {session.portfolio.n_series:,}"
@@ -677,10 +677,7 @@ class TriageApp(App[None]):
             if len(found) == 1:
                 go(int(found[0]))
                 return
-            choices = [
-                (str(i), " @ ".join(fmt.plain(k) for k in session.key(int(i)) if k))
-                for i in found[:500]
-            ]
+            choices = [(str(i), fmt.key_text(session.key(int(i)))) for i in found[:500]]
             self.push_screen(
                 ChooseScreen(f"{len(found)} series match; go to", choices),
                 lambda picked: go(int(picked)) if picked is not None else None,
@@ -968,8 +965,8 @@ class TriageApp(App[None]):
             self._q(SeriesList).invalidate(series)
             if series == self._q(SeriesList).current:
                 self._show_detail(series)
-        key = " @ ".join(k for k in (message.event.item, message.event.location) if k)
-        self._status(f"saved: {fmt.plain(key)} {message.what} (ledger event {message.event.id})")
+        key = fmt.key_text((message.event.item, message.event.location))
+        self._status(f"saved: {key} {message.what} (ledger event {message.event.id})")
         self._refresh_summary()
 
     @on(SaveFailed)

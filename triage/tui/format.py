@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import unicodedata
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
@@ -83,10 +84,31 @@ BIAS_COLUMNS = tuple(
 def clip(text: str, limit: int = 200) -> str:
     """At most ``limit`` characters, with an ellipsis: a 1 MB cell must not stall a repaint.
 
-    Control and bidirectional characters are shown as visible symbols (``text.visible``).
+    Control, bidirectional and invisible characters are shown as visible symbols
+    (``text.visible``).
     """
     text = text if len(text) <= limit else text[: limit - 1] + "…"
     return visible(text)
+
+
+def key_text(parts: tuple[str, ...] | str, limit: int = 200) -> str:
+    """A series key for the screen: ``item @ location``, spaces at either end of each part
+    shown (``A-1 `` and ``A-1`` are different series), clipped like ``clip``."""
+    if isinstance(parts, str):
+        parts = (parts,)
+    shown = [
+        _marks_apart(visible(p if len(p) <= limit else p[: limit - 1] + "…", edges=True))
+        for p in parts
+    ]
+    return " @ ".join(p for p in shown if p)
+
+
+def _marks_apart(text: str) -> str:
+    """A key not in composed form (NFC) shows each combining mark on a dotted circle (U+25CC),
+    the usual way to write a mark alone, so ``e`` + U+0301 does not look like ``é``."""
+    if unicodedata.is_normalized("NFC", text):
+        return text
+    return "".join(f"\u25cc{ch}" if unicodedata.combining(ch) else ch for ch in text)
 
 
 def pct(value: float, digits: int = 1) -> str:

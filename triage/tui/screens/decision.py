@@ -141,7 +141,7 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
         self._kept = kept
 
     def compose(self) -> ComposeResult:
-        key = fmt.clip(" @ ".join(k for k in self._session.key(self._series) if k))
+        key = fmt.key_text(self._session.key(self._series))
         with Vertical(classes="dialog decision"):
             yield Static(
                 Text.assemble(("Decision for ", "bold"), (key, "bold reverse")),
