@@ -19,6 +19,7 @@ from typing import TYPE_CHECKING, Any
 
 from triage.arguments import open_ledger_read_only, portfolio_args, warn
 from triage.core.errors import TriageError
+from triage.core.text import longest_word
 
 if TYPE_CHECKING:
     from triage.core.config import Config
@@ -282,6 +283,7 @@ def _history_table(
             justify=justify,  # type: ignore[arg-type]
             no_wrap=name in one_line,
             overflow="fold",
+            min_width=longest_word(name),
         )
     for e in events:
         if e.kind == UNDO:

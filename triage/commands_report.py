@@ -401,6 +401,7 @@ def _table(
     from triage.core import history
     from triage.core.export import printable
     from triage.core.report import fmt_int, fmt_money, fmt_pct, fmt_ratio, fmt_units
+    from triage.core.text import longest_word
 
     realised = int(status.loc[status["status"] == history.REALISED, "lines"].sum())
     ahead = int(status.loc[status["status"] == history.AHEAD, "lines"].sum())
@@ -431,11 +432,13 @@ def _table(
     counts = {"adjustments", "decisions", "helped", "hurt", "horizon", "event_id"}
     for name in frame.columns:
         numeric = name in formats or name in counts
+        heading = SUMMARY_HEADINGS.get(name, name.replace("_", " "))
         table.add_column(
-            SUMMARY_HEADINGS.get(name, name.replace("_", " ")),
+            heading,
             justify="right" if numeric else "left",
             no_wrap=numeric,
             overflow="fold",
+            min_width=longest_word(heading),
         )
     for row in frame.itertuples(index=False):
         cells = []

@@ -209,6 +209,37 @@ def test_overrides_table_is_readable(scenario: CycleScenario, tmp_path: Path) ->
     assert "periods not counted: series is not in this portfolio" in result.stdout
 
 
+def test_overrides_headings_never_break_inside_a_word(
+    scenario: CycleScenario, tmp_path: Path
+) -> None:
+    # The narrowest table the command prints (100 columns), the widest breakdown (every row of
+    # the detail): headings may wrap between words, never inside one.
+    env_run = subprocess.run(
+        [
+            *triage_command(),
+            "overrides",
+            str(scenario.files[NEWEST]),
+            "--ledger",
+            str(scenario.ledger),
+            "--by",
+            "direction",
+            "--detail",
+        ],
+        capture_output=True,
+        text=True,
+        cwd=tmp_path,
+        timeout=180,
+        env={**os.environ, "COLUMNS": "60", "XDG_CONFIG_HOME": str(tmp_path)},
+    )
+    assert env_run.returncode == 0, env_run.stderr
+    for word in ("direction", "reviewer", "adjusted", "original", "actual", "horizon"):
+        broken = [word[:k] for k in range(3, len(word))]
+        lines = env_run.stdout.splitlines()
+        for line in lines:
+            cells = line.split()
+            assert not any(cell in broken for cell in cells), (word, line)
+
+
 def test_overrides_need_a_ledger(scenario: CycleScenario, tmp_path: Path) -> None:
     lone = tmp_path / "lone.csv"
     lone.write_bytes(scenario.files[NEWEST].read_bytes())

@@ -80,3 +80,9 @@ def visible(text: str, *, multiline: bool = False, edges: bool = False) -> str:
         trail = len(shown) - len(shown.rstrip(" "))
         shown = EDGE_SPACE * lead + core + EDGE_SPACE * trail
     return shown
+
+
+def longest_word(text: str) -> int:
+    """Characters in the longest word of ``text``: a table column at least this wide never
+    breaks its heading inside a word."""
+    return max((len(word) for word in text.split()), default=0)
