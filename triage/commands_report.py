@@ -36,10 +36,11 @@ def add_report_commands(sub: argparse._SubParsersAction) -> None:
     """Add ``report`` and ``overrides`` to the ``triage`` subcommands."""
     report = sub.add_parser(
         "report",
-        help="write the weekly review report (one self-contained HTML file) and print a summary",
-        description="Write the weekly review report of a portfolio: review coverage, decisions, "
-        "bias distribution, top and repeat offenders, active adjustments and the realised value "
-        "of earlier overrides. The HTML file embeds its charts and needs no network to be read.",
+        help="write the review report (one self-contained HTML file) and print a summary",
+        description="Write the review report of a portfolio (weekly or monthly): review "
+        "coverage, decisions, bias distribution, top and repeat offenders, active adjustments "
+        "and the realised value of earlier overrides. The HTML file embeds its charts and "
+        "needs no network to be read.",
     )
     _portfolio_args(report)
     report.add_argument(

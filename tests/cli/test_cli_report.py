@@ -276,3 +276,19 @@ def test_overrides_csv_neutralises_formula_text(tmp_path: Path) -> None:
     assert row["item"] == "=SUM(A1)"
     # |12 - 14| - |11 - 14| = -1, by hand.
     assert float(row["value_added"]) == -1.0
+
+
+def test_report_title_follows_the_calendar(tmp_path: Path) -> None:
+    months = ["2026-01-01", "2026-02-01", "2026-03-01", "2026-04-01", "2026-05-01"]
+    lines = ["item,period,demand,forecast"] + [
+        f"M-{i},{m},{'' if k == 4 else 10 + i + k},{12 + i}"
+        for i in range(3)
+        for k, m in enumerate(months)
+    ]
+    path = tmp_path / "monthly.csv"
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+    result = run("report", str(path), "--to", str(tmp_path / "r.html"), cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    html = (tmp_path / "r.html").read_text(encoding="utf-8")
+    assert "<h1>Monthly forecast review</h1>" in html and "Weekly" not in html
+    assert "Monthly forecast review" in result.stdout

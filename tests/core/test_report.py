@@ -139,7 +139,7 @@ def test_report_file_is_written_with_title_and_caution(
 ) -> None:
     result, tables, document = written
     assert result.bytes == len(document.encode("utf-8"))
-    assert tables.title == f"{report.TITLE}: {result.data.portfolio_name}, cycle 2027-03-01"
+    assert tables.title == f"Weekly forecast review: {result.data.portfolio_name}, cycle 2027-03-01"
     assert "2027-03-02T08:30:00Z" in document
     # The advisory caution is the export's, word for word.
     assert CAUTION in " ".join(document.replace("&#x27;", "'").split())
@@ -572,6 +572,6 @@ def test_report_renders_in_a_real_browser(
     )
     rendered = parse(dom.stdout)
     assert (
-        rendered.title == f"{report.TITLE}: {result.data.portfolio_name}, cycle {result.data.cycle}"
+        rendered.title == f"Weekly forecast review: {result.data.portfolio_name}, cycle {result.data.cycle}"
     )
     assert "realised-direction-size" in rendered.tables

@@ -1,4 +1,5 @@
-"""The weekly review report: one self-contained HTML file and a short text summary.
+"""The review report, weekly or monthly as the calendar is: one self-contained HTML file
+and a short text summary.
 
 ``build_report`` gathers every figure from the core functions (``ranking.scorecard``,
 ``history.*``); ``render_html`` and ``summary_text`` only format them, so each number in the
@@ -53,7 +54,14 @@ NOTE_MAX = 200
 BIAS_STEP = 0.1
 BIAS_LIMIT = 1.0
 
-TITLE = "Weekly forecast review"
+#: The report's title by calendar (``schema.WEEKLY`` / ``schema.MONTHLY``).
+TITLES = {schema.WEEKLY: "Weekly forecast review", schema.MONTHLY: "Monthly forecast review"}
+
+
+def report_title(frequency: str) -> str:
+    """The title for a portfolio's calendar."""
+    return TITLES.get(frequency, "Forecast review")
+
 
 EVIDENCE = (
     "Published evidence: Fildes, Goodwin, Lawrence & Nikolopoulos (2009, International Journal "
@@ -924,7 +932,7 @@ def render_html(data: ReportData) -> str:
     """The report as one HTML document (inline CSS and SVG, no script, no external resource)."""
     with_location = schema.LOCATION in data.card.columns
     cov = data.coverage
-    title = f"{TITLE}: {data.portfolio_name}, cycle {data.cycle}"
+    title = f"{report_title(data.frequency)}: {data.portfolio_name}, cycle {data.cycle}"
     win = data.window
     weighted = "value-weighted " if data.priced else ""
     naive = (
@@ -939,7 +947,7 @@ def render_html(data: ReportData) -> str:
         '<meta name="viewport" content="width=device-width, initial-scale=1">',
         f"<title>{text(title)}</title>",
         f"<style>{CSS}</style></head><body>",
-        f"<h1>{text(TITLE)}</h1>",
+        f"<h1>{text(report_title(data.frequency))}</h1>",
         f'<p class="sub">Portfolio <b>{text(data.portfolio_name)}</b>, review cycle '
         f"<b>{text(data.cycle)}</b> ({text(data.frequency)}), scoring window "
         f"{text(win['first'])} to {text(win['last'])} "
@@ -1122,7 +1130,7 @@ def summary_text(data: ReportData, path: Path | None = None) -> str:
     open_now = int((~data.carried["reviewed_now"].astype(bool)).sum()) if len(data.carried) else 0
     ahead = int(data.active["remaining"].sum()) if len(data.active) else 0
     lines = [
-        f"{TITLE}: {visible(data.portfolio_name)}, cycle {data.cycle}",
+        f"{report_title(data.frequency)}: {visible(data.portfolio_name)}, cycle {data.cycle}",
         f"Coverage: {fmt_int(cov.reviewed)} of {fmt_int(cov.series)} series reviewed, "
         f"{fmt_pct(cov.covered)} of error (target {fmt_pct(cov.target)}); worst-offender set "
         f"{fmt_int(cov.worst)} series, {fmt_int(cov.worst_reviewed)} reviewed.",
