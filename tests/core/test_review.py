@@ -130,3 +130,15 @@ def test_current_decision_is_read_from_the_file(session: ReviewSession, tmp_path
     event, version = session.current_decision(series)
     assert event is not None and event.reviewer == "ana" and version == 3
     assert session.decided_by[series] == "ana"
+
+
+def test_progress_counts_settled_decisions_and_open_ones_apart(session: ReviewSession) -> None:
+    first, second, third = (int(s) for s in session.error_order[:3])
+    decide(session, first, "no_change")
+    decide(session, second, "handed_off")
+    decide(session, third, "deferred")
+    progress = session.progress()
+    # Settled = no change needed or adjusted (common practice: a hand-off is still open work).
+    assert (progress.reviewed, progress.handed_off, progress.deferred) == (1, 1, 1)
+    share = session.card["error_share"].to_numpy()
+    assert progress.covered == pytest.approx(share[first])

@@ -43,7 +43,7 @@ import pandas as pd
 
 from triage.core import metrics, ranking, schema
 from triage.core.errors import TriageError
-from triage.core.ledger import ADJUSTED, OUTCOMES, Decision, Ledger
+from triage.core.ledger import ADJUSTED, OUTCOMES, SETTLED, Decision, Ledger
 from triage.core.portfolio import Portfolio
 
 UP = "up"
@@ -793,7 +793,7 @@ class Coverage:
     """How much of the cycle's error the reviewed series hold."""
 
     reviewed: int
-    """Series of the portfolio with an effective decision in the cycle."""
+    """Series of the portfolio settled in the cycle (no change needed, or adjusted)."""
     series: int
     """Series in the portfolio."""
     covered: float
@@ -806,6 +806,10 @@ class Coverage:
     """Of those, how many are reviewed."""
     not_in_portfolio: int
     """Decisions of the cycle whose series is not in the portfolio."""
+    handed_off: int = 0
+    """Series handed to someone else this cycle (decided, not settled)."""
+    deferred: int = 0
+    """Series put off to a later cycle (decided, not settled)."""
 
 
 def coverage(
@@ -820,9 +824,11 @@ def coverage(
         target_share: Share of total error the review aims to cover.
     """
     decided = ledger.current(portfolio.cycle) if ledger is not None else []
-    pos = series_positions(portfolio, [d.item for d in decided], [d.location for d in decided])
+    settled = [d for d in decided if d.outcome in SETTLED]
+    pos = series_positions(portfolio, [d.item for d in settled], [d.location for d in settled])
     done = np.zeros(portfolio.n_series, dtype=bool)
     done[pos[pos >= 0]] = True
+    everyone = series_positions(portfolio, [d.item for d in decided], [d.location for d in decided])
     aligned = card.sort_index()
     error = aligned["abs_error_value" if "abs_error_value" in aligned else "abs_error"].to_numpy()
     total = float(error.sum())
@@ -834,7 +840,9 @@ def coverage(
         target=target_share,
         worst=int(worst_mask.sum()),
         worst_reviewed=int((worst_mask & done).sum()),
-        not_in_portfolio=int((pos < 0).sum()),
+        not_in_portfolio=int((everyone < 0).sum()),
+        handed_off=sum(d.outcome == "handed_off" for d in decided),
+        deferred=sum(d.outcome == "deferred" for d in decided),
     )
 
 

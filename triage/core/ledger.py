@@ -61,6 +61,8 @@ OUTCOMES: tuple[Choice, ...] = numbered(
     )
 )
 ADJUSTED = "adjusted"
+#: Outcomes that settle a series for the cycle; handed-off and put-off ones are still open.
+SETTLED: tuple[str, ...] = ("no_change", ADJUSTED)
 
 _ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
 

@@ -579,6 +579,8 @@ def _coverage_table(data: ReportData) -> _Table:
     t.add([_t("Series in the portfolio"), _n(fmt_int(c.series))])
     t.add([_t("Series reviewed this cycle"), _n(fmt_int(c.reviewed))])
     t.add([_t("Share of error covered by the reviewed series"), _n(fmt_pct(c.covered))])
+    t.add([_t("Handed to someone else (still open)"), _n(fmt_int(c.handed_off))])
+    t.add([_t("Put off to a later cycle (still open)"), _n(fmt_int(c.deferred))])
     t.add([_t("Target share"), _n(fmt_pct(c.target))])
     t.add([_t("Worst-offender set (series covering the target share)"), _n(fmt_int(c.worst))])
     t.add([_t("Worst offenders reviewed"), _n(fmt_int(c.worst_reviewed))])
@@ -962,7 +964,9 @@ def render_html(data: ReportData) -> str:
         '<section id="coverage"><h2>Review coverage</h2>',
         f"<p>{fmt_int(cov.reviewed)} of {fmt_int(cov.series)} series reviewed this cycle, "
         f"holding {fmt_pct(cov.covered)} of the portfolio's {weighted}absolute error "
-        f"(target {fmt_pct(cov.target)}).</p>",
+        f"(target {fmt_pct(cov.target)}). Reviewed means settled: no change needed, or adjusted; "
+        f"{fmt_int(cov.handed_off)} handed off and {fmt_int(cov.deferred)} put off are still "
+        "open.</p>",
         _coverage_table(data).html(),
         "<h3>Decisions this cycle, by outcome and root cause</h3>",
         _decisions_table(data).html(),
@@ -1132,8 +1136,9 @@ def summary_text(data: ReportData, path: Path | None = None) -> str:
     lines = [
         f"{report_title(data.frequency)}: {visible(data.portfolio_name)}, cycle {data.cycle}",
         f"Coverage: {fmt_int(cov.reviewed)} of {fmt_int(cov.series)} series reviewed, "
-        f"{fmt_pct(cov.covered)} of error (target {fmt_pct(cov.target)}); worst-offender set "
-        f"{fmt_int(cov.worst)} series, {fmt_int(cov.worst_reviewed)} reviewed.",
+        f"{fmt_pct(cov.covered)} of error (target {fmt_pct(cov.target)}); "
+        f"{fmt_int(cov.handed_off)} handed off and {fmt_int(cov.deferred)} put off (still open); "
+        f"worst-offender set {fmt_int(cov.worst)} series, {fmt_int(cov.worst_reviewed)} reviewed.",
         "Decisions this cycle: " + ("; ".join(parts_decided) if parts_decided else "none") + ".",
         f"Repeat offenders: {fmt_int(int(data.repeat['repeat'].sum()))} series in the worst set "
         f"in at least {data.repeat_n} of the last {n_cycles} cycles.",

@@ -33,15 +33,19 @@ class Progress:
     """How far the review has got in this cycle."""
 
     reviewed: int
-    """Series with an effective decision in the cycle."""
+    """Series settled in the cycle: no change needed, or adjusted."""
     series: int
     """Series in the portfolio."""
     covered: float
-    """Share of total ranking error held by the reviewed series (NaN when total error is 0)."""
+    """Share of total ranking error held by the settled series (NaN when total error is 0)."""
     target: float
     """Share the reviewer aims to cover."""
     to_target: int
     """Series still needed, in error order, to reach the target (0 when reached)."""
+    handed_off: int = 0
+    """Series handed to someone else this cycle: decided, not settled."""
+    deferred: int = 0
+    """Series put off to a later cycle: decided, not settled."""
 
 
 @dataclass(frozen=True)
@@ -474,8 +478,11 @@ class ReviewSession:
         return int(earlier[0]) if len(earlier) else None
 
     def progress(self) -> Progress:
-        """Series reviewed and the share of total error they hold, against the target."""
-        done = self.outcome != ""
+        """Series settled and the share of total error they hold, against the target.
+
+        Handed-off and put-off series are counted apart: they still need someone's review.
+        """
+        done = np.isin(self.outcome, ledger_mod.SETTLED)
         total = float(self.error.sum())
         covered = float(self.error[done].sum()) / total if total > 0 else math.nan
         to_target = 0
@@ -491,6 +498,8 @@ class ReviewSession:
             covered=covered,
             target=self.target_share,
             to_target=to_target,
+            handed_off=int((self.outcome == "handed_off").sum()),
+            deferred=int((self.outcome == "deferred").sum()),
         )
 
     def totals(self) -> dict[str, float]:

@@ -580,6 +580,9 @@ class TriageApp(App[None]):
                 f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})",
                 "bold",
             ),
+            f" · handed off {prog.handed_off:,} · later {prog.deferred:,}"
+            if prog.handed_off or prog.deferred
+            else "",
             f" · cause {fmt.cause_label(self.cause, self.options.root_causes)}"
             + (" · auto-advance" if self.auto_advance else "")
             + f" · {self.by} order · {shown:,} shown"
