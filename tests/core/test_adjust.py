@@ -66,7 +66,7 @@ def same(a: np.ndarray, b) -> bool:
         ("MEAN8", Adjustment("mean", count=8)),
         ("Bias", Adjustment("bias")),
         ("100 120 130", Adjustment("values", values=(100.0, 120.0, 130.0))),
-        ("100,120, 130", Adjustment("values", values=(100.0, 120.0, 130.0))),
+        ("100, 120, 130", Adjustment("values", values=(100.0, 120.0, 130.0))),
         ("3: 120", Adjustment("values", values=(120.0,), start=3, end=3)),
         ("2-5: +10%", Adjustment("percent", value=10.0, start=2, end=5)),
         (" 2 - 5 :x1.1 ", Adjustment("multiply", value=1.1, start=2, end=5)),
@@ -90,7 +90,7 @@ def test_parse_every_form(spec: str, expected: Adjustment) -> None:
         ("*2", "x2"),
         ("MEAN   8", "mean 8"),
         ("BIAS", "bias"),
-        ("100,120 ,130", "100 120 130"),
+        ("100 ,120 ,130", "100 120 130"),
         (" 2 - 5 :x1.1 ", "2-5: x1.1"),
         ("1-: +5", "+5"),
         ("3-3: 7", "3: 7"),
@@ -140,7 +140,9 @@ def test_canonical_text_round_trips(range_: str, op: str, gap: str) -> None:
 
 
 @settings(max_examples=100)
-@given(values=st.lists(NUMBER, min_size=1, max_size=12), sep=st.sampled_from([" ", ",", ", "]))
+# A bare comma between digits is refused as ambiguous (see the test below), so lists are
+# separated by spaces or by a comma and a space.
+@given(values=st.lists(NUMBER, min_size=1, max_size=12), sep=st.sampled_from([" ", ", ", " , "]))
 def test_value_lists_round_trip(values: list[str], sep: str) -> None:
     adj = parse(sep.join(values))
     assert adj.values == tuple(float(v) for v in values)
@@ -444,3 +446,17 @@ def test_suggest_matches_a_per_series_reference() -> None:
 def test_suggest_shape_mismatch() -> None:
     with pytest.raises(ValueError, match="shape"):
         suggest(np.ones(3), np.ones(3), np.ones(2), np.ones(3), np.ones(3), np.ones(3))
+
+
+@pytest.mark.parametrize("spec", ["1,200", "=1,5", "x1,1", "1-2: 100,200", "+1,000"])
+def test_a_comma_between_digits_is_refused_as_ambiguous(spec: str) -> None:
+    # 1,200 is a thousand two hundred in English, 1.2 in much of Europe, and a list of two values
+    # in our syntax: refused rather than guessed (common practice for locale-neutral input).
+    with pytest.raises(AdjustSyntaxError, match="ambiguous") as caught:
+        parse(spec)
+    assert "separate values with spaces" in str(caught.value)
+
+
+def test_values_may_be_separated_by_a_comma_and_a_space() -> None:
+    assert parse("100, 120,  130").values == (100.0, 120.0, 130.0)
+    assert parse("1-2: 1200 1300").values == (1200.0, 1300.0)

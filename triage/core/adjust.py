@@ -11,7 +11,8 @@ OP is one of:
 ``+40``         add units per period (``-25`` removes them)
 ``mean 8``      replace with the mean of the last 8 actual demands (missing ones skipped)
 ``bias``        multiply by Σdemand / Σforecast over the scoring window, removing the window bias
-``100 120 130`` one value per period of the range (spaces or commas between them)
+``100 120 130`` one value per period of the range (spaces, or a comma and a space, between
+                them; ``1,200`` is refused as ambiguous)
 ==============  ==============================================================================
 
 Specs are case-insensitive and whitespace-tolerant; ``str(parse(spec))`` is the canonical text
@@ -61,6 +62,9 @@ _ADD = re.compile(rf"([+-])\s*({_NUM})")
 _MEAN = re.compile(r"mean\s*(\d+)")
 _VALUE = re.compile(_NUM)
 _SEPARATORS = re.compile(r"[\s,;]+")
+#: A comma between two digits (``1,200``, ``1,5``): a thousands separator or a decimal comma in
+#: many locales, so it is refused rather than read as two values.
+_DIGIT_COMMA_DIGIT = re.compile(r"\d+,\d+")
 
 
 class AdjustError(TriageError):
@@ -175,6 +179,15 @@ def parse(spec: str) -> Adjustment:
         start, end = _parse_range(spec, spec[:colon])
         op_at = colon + 1
     op_raw = spec[op_at:]
+    if m := _DIGIT_COMMA_DIGIT.search(op_raw):
+        shown = op_raw[m.start() : m.end()].strip()
+        raise AdjustSyntaxError(
+            spec,
+            op_at + m.start(),
+            f"{shown!r} is ambiguous (a thousands separator, a decimal comma or two values): "
+            f"write {shown.replace(',', '')}, or separate values with spaces "
+            f"({shown.replace(',', ' ')}); decimals take a point.",
+        )
     lead = len(op_raw) - len(op_raw.lstrip())
     op_at += lead
     op_text = op_raw.strip().lower()
