@@ -221,3 +221,38 @@ def test_export_errors_exit_2(folder: Path) -> None:
     forced = run("export", portfolio, "--to", str(folder / "up.json"), "--force")
     assert forced.returncode == 0, forced.stderr
     assert json.loads((folder / "up.json").read_text(encoding="utf-8"))["cycle"] == CYCLE
+
+
+def run_limited(limit: int, *args: str) -> subprocess.CompletedProcess[str]:
+    """``run`` under a file-size limit (``ulimit -f``, RLIMIT_FSIZE) of ``limit`` bytes."""
+    import resource
+
+    def limit_size() -> None:
+        resource.setrlimit(resource.RLIMIT_FSIZE, (limit, limit))
+
+    env = {**os.environ, "COLUMNS": "200", "XDG_CONFIG_HOME": str(Path.cwd())}
+    return subprocess.run(
+        [*triage_command(), *args],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+        preexec_fn=limit_size,
+    )
+
+
+def test_reading_under_a_small_file_size_limit_exits_2(folder: Path) -> None:
+    # Opening a WAL database, even read-only, creates its 32 KiB -shm index beside it
+    # (sqlite.org/walformat.html); under a 16 KiB limit that write fails with EFBIG. The
+    # failure is said as such, not hidden behind "cannot commit - no transaction is active".
+    portfolio = str(folder / "week43.csv")
+    for args in (
+        ("history", portfolio),
+        ("export", portfolio, "--to", str(folder / "up.json")),
+    ):
+        result = run_limited(16_384, *args)
+        assert result.returncode == 2, (args, result.stdout, result.stderr)
+        assert result.stderr.startswith("triage: The ledger "), result.stderr
+        assert "could not be opened" in result.stderr and "ulimit -f" in result.stderr
+        assert "cannot commit" not in result.stderr and "Traceback" not in result.stderr
+    assert not (folder / "up.json").exists()
