@@ -871,3 +871,23 @@ def test_export_never_replaces_the_portfolio_even_with_force(tmp_path: Path) -> 
     ):
         export_review(portfolio, ledger, path, force=True)
     assert path.read_bytes() == before
+
+
+def test_flat_files_of_an_earlier_export_are_kept_and_named(scenario: dict, tmp_path: Path) -> None:
+    # Earlier versions wrote NAME-decisions.csv etc. beside each other. They are the user's
+    # now: kept byte for byte, and named in a warning so that no upload reads them by mistake;
+    # their temporary and backup files, left by a crash, are removed.
+    flat = tmp_path / "up-forecast.csv"
+    flat.write_text("last week's forecast", encoding="utf-8")
+    crashed = [tmp_path / ".up-forecast.csv.a1b2c3d4.bak", tmp_path / ".up-README.txt.ab_cd12z.tmp"]
+    for path in crashed:
+        path.write_text("leftover", encoding="utf-8")
+    result = export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    assert flat.read_text(encoding="utf-8") == "last week's forecast"
+    assert not any(p.exists() for p in crashed)
+    assert any(
+        "up-forecast.csv beside the folder up come from an earlier export" in w
+        for w in result.warnings
+    )
+    readme = (tmp_path / "up" / "up-README.txt").read_text(encoding="utf-8")
+    assert "come from an earlier export" in readme
