@@ -186,3 +186,25 @@ def test_a_device_is_written_in_place_and_its_failure_is_a_message(tmp_path: Pat
     with pytest.raises(TriageError, match=r"could not write to .*full\.txt, a device or pipe"):
         write_text_atomic(full, "x" * 100_000, force=True)
     assert full.is_symlink()
+
+
+def test_without_exchange_a_failed_switch_puts_the_old_set_back(
+    tmp_path: Path, monkeypatch
+) -> None:
+    monkeypatch.setattr(files, "_renameat2", lambda *_args: False)
+    folder = tmp_path / "s"
+    write_set(folder, "old")
+    before = listing(tmp_path)
+    real = os.rename
+    calls: list[object] = []
+
+    def second_fails(src: object, dst: object) -> None:
+        calls.append(dst)
+        if len(calls) == 2:  # the new folder into place
+            raise OSError(5, "Input/output error")
+        real(src, dst)  # type: ignore[arg-type]
+
+    monkeypatch.setattr(os, "rename", second_fails)
+    with pytest.raises(TriageError, match="Input/output error; nothing was changed"):
+        write_set(folder, "new")
+    assert len(calls) == 3 and listing(tmp_path) == before

@@ -130,9 +130,10 @@ def write_set_atomic(
     names = [name for name, _ in files]
     parent = _folder_of(target)
     if target.is_symlink() or (target.exists() and not target.is_dir()):
+        kind = "a link" if target.is_symlink() else "not a folder"
         raise TriageError(
-            f"{target} exists and is not a folder; this export writes a folder of that name. "
-            "It was left unchanged.",
+            f"{target} exists and is {kind}; this export writes a folder of that name and "
+            "replaces only such a folder. It was left unchanged.",
             hint="Choose another file name.",
         )
     refuse_existing([target], force=force)
@@ -320,8 +321,13 @@ def _exchange(new: Path, target: Path, scratch: Path) -> None:
     # No atomic exchange here (not Linux, or a file system without it): move the old set
     # aside first. A crash between the two renames leaves no set under the name, and the old
     # one complete in the scratch folder until the next run cleans it (docs/export.md).
-    os.rename(target, scratch / ".old")
-    os.rename(new, target)
+    aside = scratch / ".old"
+    os.rename(target, aside)
+    try:
+        os.rename(new, target)
+    except OSError:
+        os.rename(aside, target)  # put the old set back before the scratch folder goes
+        raise
 
 
 def _renameat2(src: Path, dst: Path, flags: int) -> bool:
