@@ -22,8 +22,10 @@ https://owasp.org/www-community/attacks/CSV_Injection):
 * xlsx text is always a string cell, never a formula, error value or hyperlink; control
   characters xlsx cannot store are replaced by visible symbols; the row and cell-length limits of
   a sheet are checked here, never left to the library (reliability.md §2.4).
-* Files are written through a temporary file and renamed into place; an existing file is kept
-  unless ``force``; a failed export leaves no temporary file and no half of a file set.
+* Files are written all or nothing, also under kill -9 (``triage.core.files``): a file through
+  a scratch folder and one rename; the three files of a CSV export in one folder that replaces
+  the old one in one step. An existing file or folder is kept unless ``force``; a failed export
+  leaves no scratch file, and the next export removes what a killed one left.
 """
 
 from __future__ import annotations
