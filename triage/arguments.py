@@ -42,12 +42,21 @@ def score_args(parser: argparse.ArgumentParser) -> None:
     )
 
 
-def refuse_overwriting(targets: list[Path] | tuple[Path, ...], *protected: Path | None) -> None:
-    """Refuse to write any of ``targets`` over the portfolio, the ledger, or a folder.
+def refuse_overwriting(
+    targets: list[Path] | tuple[Path, ...], *protected: Path | None, force: bool
+) -> None:
+    """Refuse to write any of ``targets`` over the portfolio, the ledger, a folder, or (without
+    ``--force``) any existing file.
+
+    Checked before the portfolio is loaded, so a refusal comes at once; the write itself
+    checks again (``triage.core.files``).
 
     Raises:
-        TriageError: A target is an existing folder, or the same file as a protected one.
+        TriageError: A target is an existing folder, the same file as a protected one (even
+            with ``force``), or an existing file and ``force`` is false.
     """
+    from triage.core.files import refuse_existing
+
     kept = [p for p in protected if p is not None and p.exists()]
     for target in targets:
         if target.is_dir():
@@ -64,6 +73,7 @@ def refuse_overwriting(targets: list[Path] | tuple[Path, ...], *protected: Path 
                     "destroy it. Nothing was written.",
                     hint="Choose another output file name.",
                 )
+    refuse_existing(targets, force=force)
 
 
 def check_score_args(args: argparse.Namespace) -> None:
@@ -84,3 +94,8 @@ def open_ledger_read_only(path: Path, config: Config) -> Ledger:
 def warn(message: str) -> None:
     """A warning on standard error, control characters shown as visible symbols."""
     print(f"triage: warning: {printable(message, multiline=True)}", file=sys.stderr)
+
+
+def force_arg(parser: argparse.ArgumentParser) -> None:
+    """``--force``: replace an output file that exists (without it, an existing file stops)."""
+    parser.add_argument("--force", action="store_true", help="replace the output file if it exists")

@@ -12,7 +12,13 @@ from collections.abc import Iterable, Sequence
 from pathlib import Path
 
 from triage import __version__
-from triage.arguments import check_score_args, portfolio_args, refuse_overwriting, score_args
+from triage.arguments import (
+    check_score_args,
+    force_arg,
+    portfolio_args,
+    refuse_overwriting,
+    score_args,
+)
 from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
@@ -52,6 +58,7 @@ def build_parser() -> argparse.ArgumentParser:
     rank.add_argument(
         "--output", type=Path, metavar="PATH", help="write to PATH instead of standard output"
     )
+    force_arg(rank)
     rank.set_defaults(handler=_cmd_rank)
 
     check = sub.add_parser("check", help="report on the data quality of a portfolio file")
@@ -124,7 +131,7 @@ def _cmd_rank(args: argparse.Namespace) -> int:
 
     check_score_args(args)
     if args.output is not None:
-        refuse_overwriting([args.output], args.portfolio)
+        refuse_overwriting([args.output], args.portfolio, force=args.force)
     if args.top is not None and args.top < 1:
         raise TriageError(f"--top must be at least 1, not {args.top}.")
     if args.cover is not None and not 0 < args.cover <= 1:
@@ -147,13 +154,13 @@ def _cmd_rank(args: argparse.Namespace) -> int:
     if args.format == "csv":
         # CSV needs only the scorecard: the portfolio's dense arrays go before the text is made.
         del portfolio, card
-        _emit_blocks(report.csv_blocks(shown), args.output)
+        _emit_blocks(report.csv_blocks(shown), args.output, force=args.force)
         return 0
     if args.format == "json":
         text = report.to_json(portfolio, shown, args.window, args.season)
     else:
         text = report.rank_table(portfolio, card, shown, args.window, args.season, by=args.by)
-    _emit(text, args.output)
+    _emit(text, args.output, force=args.force)
     return 0
 
 
@@ -230,22 +237,22 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     return 0
 
 
-def _emit(text: str, output: Path | None) -> None:
+def _emit(text: str, output: Path | None, *, force: bool) -> None:
     if output is None:
         sys.stdout.write(text)
         sys.stdout.flush()
         return
     from triage.core.files import write_text_atomic
 
-    write_text_atomic(output, text)
+    write_text_atomic(output, text, force=force)
 
 
-def _emit_blocks(blocks: Iterable[bytes], output: Path | None) -> None:
+def _emit_blocks(blocks: Iterable[bytes], output: Path | None, *, force: bool) -> None:
     """Write UTF-8 blocks as they come: to standard output, or atomically to ``output``."""
     if output is not None:
         from triage.core.files import write_blocks_atomic
 
-        write_blocks_atomic(output, blocks)
+        write_blocks_atomic(output, blocks, force=force)
         return
     sys.stdout.flush()
     raw = getattr(sys.stdout, "buffer", None)

@@ -80,8 +80,9 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
         "export",
         help="write the cycle's decisions and adjusted forward forecast (.csv, .xlsx, .json)",
         description="Write the reviewed decisions of a cycle and the complete adjusted forward "
-        "forecast, for upload to a planning system. A .csv target writes three files: "
-        "NAME-decisions.csv, NAME-forecast.csv and NAME-README.txt.",
+        "forecast, for upload to a planning system. A .csv target writes a folder NAME holding "
+        "three files, NAME-decisions.csv, NAME-forecast.csv and NAME-README.txt, replaced as a "
+        "whole. An existing file or folder is replaced only with --force.",
     )
     portfolio_args(export)
     export.add_argument(
@@ -98,9 +99,11 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
         type=Path,
         required=True,
         metavar="FILE",
-        help="target: NAME.csv (three files), NAME.xlsx or NAME.json",
+        help="target: NAME.csv (a folder NAME of three files), NAME.xlsx or NAME.json",
     )
-    export.add_argument("--force", action="store_true", help="replace files that exist")
+    export.add_argument(
+        "--force", action="store_true", help="replace the file or set folder if it exists"
+    )
     export.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
     export.set_defaults(handler=cmd_export)
 

@@ -19,7 +19,13 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from triage.arguments import check_score_args, open_ledger_read_only, refuse_overwriting, warn
+from triage.arguments import (
+    check_score_args,
+    force_arg,
+    open_ledger_read_only,
+    refuse_overwriting,
+    warn,
+)
 from triage.core.errors import TriageError
 
 if TYPE_CHECKING:
@@ -49,6 +55,7 @@ def add_report_commands(sub: argparse._SubParsersAction) -> None:
         metavar="FILE",
         help="HTML file to write (default: <portfolio>-report-<cycle>.html beside the portfolio)",
     )
+    force_arg(report)
     report.add_argument(
         "--top",
         type=int,
@@ -223,7 +230,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     config = _config(args)
     ledger_path = _ledger_path(args, required=False)
     if args.to is not None:
-        refuse_overwriting([args.to], args.portfolio, ledger_path)
+        refuse_overwriting([args.to], args.portfolio, ledger_path, force=args.force)
     portfolio = _load(args)
     target_share = args.cover if args.cover is not None else config.target_share
     if ledger_path is None:
@@ -250,6 +257,7 @@ def cmd_report(args: argparse.Namespace) -> int:
             repeat_n=repeat_n,
             repeat_m=repeat_m,
             top=args.top,
+            force=args.force,
         )
     sys.stdout.write(printable(summary_text(result.data, result.path), one_line=False))
     sys.stdout.flush()

@@ -8,6 +8,7 @@ import json
 import os
 import subprocess
 import sys
+import zipfile
 from pathlib import Path
 
 import openpyxl
@@ -166,10 +167,10 @@ def test_export_csv_writes_three_files_and_the_caution(folder: Path) -> None:
     result = run("export", str(folder / "week43.csv"), "--to", str(folder / "up.csv"))
     assert result.returncode == 0, result.stderr
     for name in ("up-decisions.csv", "up-forecast.csv", "up-README.txt"):
-        assert f"wrote {folder / name}" in result.stdout
+        assert f"wrote {folder / 'up' / name}" in result.stdout
     assert "Caution: These decisions are advisory" in result.stdout
     assert "1 reviewed series, 6 forecast rows (2 adjusted)" in result.stdout
-    with (folder / "up-forecast.csv").open(encoding="utf-8", newline="") as handle:
+    with (folder / "up" / "up-forecast.csv").open(encoding="utf-8", newline="") as handle:
         rows = list(csv.DictReader(handle))
     adjusted = {(r["item"], r["location"], r["period"]): r for r in rows if r["adjusted"] == "true"}
     assert set(adjusted) == {("A", "Lyon", WEEKS[4]), ("A", "Lyon", WEEKS[5])}
@@ -221,3 +222,102 @@ def test_export_errors_exit_2(folder: Path) -> None:
     forced = run("export", portfolio, "--to", str(folder / "up.json"), "--force")
     assert forced.returncode == 0, forced.stderr
     assert json.loads((folder / "up.json").read_text(encoding="utf-8"))["cycle"] == CYCLE
+
+
+def run_limited(limit: int, *args: str) -> subprocess.CompletedProcess[str]:
+    """``run`` under a file-size limit (``ulimit -f``, RLIMIT_FSIZE) of ``limit`` bytes."""
+    import resource
+
+    def limit_size() -> None:
+        resource.setrlimit(resource.RLIMIT_FSIZE, (limit, limit))
+
+    env = {**os.environ, "COLUMNS": "200", "XDG_CONFIG_HOME": str(Path.cwd())}
+    return subprocess.run(
+        [*triage_command(), *args],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+        preexec_fn=limit_size,
+    )
+
+
+def test_reading_under_a_small_file_size_limit_exits_2(folder: Path) -> None:
+    # Opening a WAL database, even read-only, creates its 32 KiB -shm index beside it
+    # (sqlite.org/walformat.html); under a 16 KiB limit that write fails with EFBIG. The
+    # failure is said as such, not hidden behind "cannot commit - no transaction is active".
+    portfolio = str(folder / "week43.csv")
+    for args in (
+        ("history", portfolio),
+        ("export", portfolio, "--to", str(folder / "up.json")),
+    ):
+        result = run_limited(16_384, *args)
+        assert result.returncode == 2, (args, result.stdout, result.stderr)
+        assert result.stderr.startswith("triage: The ledger "), result.stderr
+        assert "could not be opened" in result.stderr and "ulimit -f" in result.stderr
+        assert "cannot commit" not in result.stderr and "Traceback" not in result.stderr
+    assert not (folder / "up.json").exists()
+
+
+def test_export_to_a_full_device_exits_2_with_a_message(folder: Path) -> None:
+    if not Path("/dev/full").is_char_device():
+        pytest.skip("no /dev/full")
+    for name in ("full.json", "full.xlsx"):
+        target = folder / name
+        target.symlink_to("/dev/full")
+        result = run("export", str(folder / "week43.csv"), "--to", str(target), "--force")
+        assert result.returncode == 2, (name, result.stderr)
+        assert result.stderr.startswith(f"triage: could not write to {target},"), result.stderr
+        assert "No space left on device" in result.stderr
+        assert "Traceback" not in result.stderr and "Exception ignored" not in result.stderr
+
+
+# Sets a file-size limit once the workbook is being written (the ledger's -shm is made by then),
+# then runs the command line: what a disk that fills up during the export looks like.
+LIMITED_XLSX = """
+import resource, sys
+from triage.core import export
+real = export._write_xlsx
+def limited(*args, **kwargs):
+    resource.setrlimit(resource.RLIMIT_FSIZE, (BYTES, BYTES))
+    return real(*args, **kwargs)
+export._write_xlsx = limited
+from triage.cli import main
+sys.exit(main(sys.argv[1:]))
+"""
+
+
+def test_disk_full_during_an_xlsx_export_is_one_message(folder: Path, tmp_path: Path) -> None:
+    # openpyxl leaves its ZipFile open when a write fails; collected later it flushed again and
+    # printed "Exception ignored in ZipFile.__del__" and a traceback after the message
+    # (measured on a full disk). The limit lies between the largest sheet spooled on the way
+    # (each fits) and the workbook (which does not), so the failure comes from the zip itself.
+    portfolio = str(folder / "week43.csv")
+    probe = tmp_path / "probe.xlsx"
+    assert run("export", portfolio, "--to", str(probe)).returncode == 0
+    with zipfile.ZipFile(probe) as book:
+        largest_sheet = max(i.file_size for i in book.infolist() if "worksheets/" in i.filename)
+    workbook = probe.stat().st_size
+    assert largest_sheet < workbook - 512
+    limit = (largest_sheet + workbook) // 2
+    target = folder / "up.xlsx"
+    target.write_bytes(b"last week's workbook")
+    env = {**os.environ, "XDG_CONFIG_HOME": str(folder)}
+    result = subprocess.run(
+        [
+            sys.executable,
+            "-c",
+            LIMITED_XLSX.replace("BYTES", str(limit)),
+            *("export", portfolio, "--to", str(target), "--force"),
+        ],
+        capture_output=True,
+        text=True,
+        env=env,
+        timeout=120,
+    )
+    assert result.returncode == 2, result.stderr
+    assert result.stderr.startswith(f"triage: could not write {target}: File too large;")
+    assert "nothing was changed" in result.stderr
+    assert "Traceback" not in result.stderr and "Exception ignored" not in result.stderr
+    assert target.read_bytes() == b"last week's workbook"
+    assert sorted(p.name for p in folder.iterdir() if p.name.startswith(".")) == []

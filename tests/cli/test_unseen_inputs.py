@@ -715,14 +715,17 @@ def test_cover_reaches_a_boundary_despite_rounding(tmp_path: Path) -> None:
         )
 
 
-def test_output_replaces_an_existing_file(tmp_path: Path) -> None:
+def test_output_replaces_an_existing_file_only_with_force(tmp_path: Path) -> None:
     rows = basic_weekly()
     path = write_text(
         tmp_path / "weekly.csv", ["item", "period", "demand", "forecast"], simple_records(rows)
     )
     target = tmp_path / "out.json"
     target.write_text("old report\n", encoding="utf-8")
-    result = run("rank", str(path), "--format", "json", "--output", str(target))
+    refused = run("rank", str(path), "--format", "json", "--output", str(target))
+    assert refused.returncode == 2 and "already exists" in refused.stderr
+    assert target.read_text(encoding="utf-8") == "old report\n"
+    result = run("rank", str(path), "--format", "json", "--output", str(target), "--force")
     assert result.returncode == 0 and result.stdout == ""
     assert json.loads(target.read_text(encoding="utf-8"))["series"][0]["rank"] == 1
 

@@ -11,6 +11,7 @@ from __future__ import annotations
 
 import csv
 import errno
+import hashlib
 import json
 import os
 import re
@@ -23,6 +24,7 @@ from pathlib import Path
 
 import openpyxl
 import pytest
+from openpyxl.writer import excel
 
 from triage.core import export as export_mod
 from triage.core.config import numbered
@@ -239,11 +241,12 @@ def scenario(tmp_path: Path) -> Iterator[dict[str, object]]:
 
 
 def folder_listing(folder: Path) -> dict[str, bytes]:
-    """Every file in the folder and its bytes, except the ledger (reading it touches -shm)."""
+    """Every file and folder under ``folder`` (hidden ones too) and the bytes of each file,
+    except the ledger (reading it touches -shm)."""
     return {
-        p.name: p.read_bytes()
-        for p in sorted(folder.iterdir())
-        if p.is_file() and ".ledger.sqlite" not in p.name
+        str(p.relative_to(folder)): p.read_bytes() if p.is_file() else b"<folder>"
+        for p in sorted(folder.rglob("*"))
+        if ".ledger.sqlite" not in p.name
     }
 
 
@@ -385,9 +388,12 @@ def test_csv_round_trip_keeps_keys_numbers_and_neutralises_text(
     result = export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
     names = [p.name for p in result.paths]
     assert names == ["up-decisions.csv", "up-forecast.csv", "up-README.txt"]
+    # One folder holds the set (it is what gets replaced as a whole), and nothing else.
+    assert {p.parent for p in result.paths} == {tmp_path / "up"}
+    assert sorted(p.name for p in (tmp_path / "up").iterdir()) == sorted(names)
     assert not (tmp_path / "up.csv").exists()
 
-    decisions = read_csv(tmp_path / "up-decisions.csv")
+    decisions = read_csv(tmp_path / "up" / "up-decisions.csv")
     header, body = decisions[0], decisions[1:]
     assert len(body) == len(scenario["reviewed"])  # no row was split by a line break or CR
     assert all(len(row) == len(header) for row in body)
@@ -407,7 +413,7 @@ def test_csv_round_trip_keeps_keys_numbers_and_neutralises_text(
             if column not in ("item", "location") and isinstance(value, str):
                 assert not value.startswith(TRIGGERS), (column, value)
 
-    forecast = read_csv(tmp_path / "up-forecast.csv")
+    forecast = read_csv(tmp_path / "up" / "up-forecast.csv")
     header, body = forecast[0], forecast[1:]
     assert header == [
         "item",
@@ -433,7 +439,7 @@ def test_csv_round_trip_keeps_keys_numbers_and_neutralises_text(
 
 def test_csv_bare_cr_never_reaches_the_file(scenario: dict, tmp_path: Path) -> None:
     export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
-    raw = (tmp_path / "up-decisions.csv").read_bytes()
+    raw = (tmp_path / "up" / "up-decisions.csv").read_bytes()
     # Records end with CRLF (RFC 4180); any other CR would be a bare CR from a note, the case
     # CPython < 3.11.9 writes unquoted (reliability.md §2.3, gh-67044).
     assert b"\r" not in raw.replace(b"\r\n", b"")
@@ -441,7 +447,7 @@ def test_csv_bare_cr_never_reaches_the_file(scenario: dict, tmp_path: Path) -> N
 
 def test_csv_readme_carries_caution_and_provenance(scenario: dict, tmp_path: Path) -> None:
     export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
-    readme = (tmp_path / "up-README.txt").read_text(encoding="utf-8")
+    readme = (tmp_path / "up" / "up-README.txt").read_text(encoding="utf-8")
     assert "advisory" in CAUTION and "planning system" in CAUTION
     assert CAUTION in readme
     portfolio: Portfolio = scenario["portfolio"]
@@ -454,6 +460,15 @@ def test_csv_readme_carries_caution_and_provenance(scenario: dict, tmp_path: Pat
     ):
         assert text in readme
     assert re.search(r"Exported at \(UTC\)\s+\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ", readme)
+    # The manifest: each data file's size and SHA-256, so an upload can check it read this set.
+    for name in ("up-decisions.csv", "up-forecast.csv"):
+        data = (tmp_path / "up" / name).read_bytes()
+        entry = re.search(
+            re.escape(name) + r":.*\n\s+([\d,]+) bytes, SHA-256 ([0-9a-f]{64})", readme
+        )
+        assert entry, name
+        assert int(entry[1].replace(",", "")) == len(data)
+        assert entry[2] == hashlib.sha256(data).hexdigest()
 
 
 # ---- xlsx -----------------------------------------------------------------------------------
@@ -635,10 +650,14 @@ def test_json_escapes_terminal_controls_but_decodes_exactly(tmp_path: Path, scen
 @pytest.mark.parametrize("name", ["up.xlsx", "up.json", "up.csv"])
 def test_existing_target_is_kept_without_force(scenario: dict, tmp_path: Path, name: str) -> None:
     target = tmp_path / name
-    existing = tmp_path / ("up-README.txt" if name == "up.csv" else name)
+    if name == "up.csv":  # the set's folder is what exists
+        (tmp_path / "up").mkdir()
+        existing, named = tmp_path / "up" / "up-README.txt", tmp_path / "up"
+    else:
+        existing = named = tmp_path / name
     existing.write_bytes(b"old content")
     before = folder_listing(tmp_path)
-    with pytest.raises(TriageError, match=re.escape(str(existing)) + ".*already exist"):
+    with pytest.raises(TriageError, match=re.escape(str(named)) + " already exist"):
         export_review(scenario["portfolio"], scenario["ledger"], target)
     assert folder_listing(tmp_path) == before  # nothing else written either
     result = export_review(scenario["portfolio"], scenario["ledger"], target, force=True)
@@ -665,17 +684,18 @@ def test_xlsx_failure_mid_write_leaves_old_file_and_no_temp(
 ) -> None:
     target = tmp_path / "up.xlsx"
     target.write_bytes(b"old workbook")
-    before = folder_listing(tmp_path)
 
-    def half_save(self: object, filename: str) -> None:
-        Path(filename).write_bytes(b"PK\x03\x04 half a zip")
+    def half_save(self: excel.ExcelWriter) -> None:
+        self._archive.writestr("xl/half.xml", b"half a workbook")
         disk_full()
 
-    # openpyxl spools write-only sheets in the system temp folder: give it one of our own.
+    # openpyxl spools write-only sheets in the system temp folder unless told otherwise:
+    # give it one of our own, to see that nothing is left there either.
     spools = tmp_path / "system-tmp"
     spools.mkdir()
     monkeypatch.setattr(tempfile, "tempdir", str(spools))
-    monkeypatch.setattr(openpyxl.Workbook, "save", half_save)
+    monkeypatch.setattr(excel.ExcelWriter, "save", half_save)
+    before = folder_listing(tmp_path)
     with pytest.raises(TriageError, match=r"No space left on device.*nothing was changed"):
         export_review(scenario["portfolio"], scenario["ledger"], target, force=True)
     assert folder_listing(tmp_path) == before
@@ -705,8 +725,9 @@ def test_csv_set_is_all_or_nothing(
     scenario: dict, tmp_path: Path, monkeypatch, old_files: bool
 ) -> None:
     if old_files:
+        (tmp_path / "up").mkdir()
         for name in ("up-decisions.csv", "up-forecast.csv", "up-README.txt"):
-            (tmp_path / name).write_text(f"old {name}", encoding="utf-8")
+            (tmp_path / "up" / name).write_text(f"old {name}", encoding="utf-8")
     before = folder_listing(tmp_path)
     real = export_mod._write_csv
 
@@ -773,7 +794,7 @@ def test_libreoffice_reads_the_workbook_as_written(scenario: dict, tmp_path: Pat
     book = tmp_path / "up.xlsx"
     export_review(scenario["portfolio"], scenario["ledger"], book)
     export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
-    ours = read_csv(tmp_path / "up-decisions.csv")
+    ours = read_csv(tmp_path / "up" / "up-decisions.csv")
     sheets = libreoffice_csv(book, tmp_path / "lo", tmp_path / "lo-profile")
 
     theirs = sheets["Decisions"]
@@ -822,7 +843,7 @@ def test_chunked_writing_gives_the_same_tables(
     for name in ("up.csv", "up.json", "up.xlsx"):
         export_review(scenario["portfolio"], scenario["ledger"], many / name)
     for name in ("up-decisions.csv", "up-forecast.csv"):
-        assert (one / name).read_bytes() == (many / name).read_bytes()
+        assert (one / "up" / name).read_bytes() == (many / "up" / name).read_bytes()
     a, b = (json.loads((d / "up.json").read_text(encoding="utf-8")) for d in (one, many))
     assert a["decisions"] == b["decisions"] and a["forecast"] == b["forecast"]
     for sheet in ("Decisions", "Forecast"):
@@ -850,3 +871,23 @@ def test_export_never_replaces_the_portfolio_even_with_force(tmp_path: Path) -> 
     ):
         export_review(portfolio, ledger, path, force=True)
     assert path.read_bytes() == before
+
+
+def test_flat_files_of_an_earlier_export_are_kept_and_named(scenario: dict, tmp_path: Path) -> None:
+    # Earlier versions wrote NAME-decisions.csv etc. beside each other. They are the user's
+    # now: kept byte for byte, and named in a warning so that no upload reads them by mistake;
+    # their temporary and backup files, left by a crash, are removed.
+    flat = tmp_path / "up-forecast.csv"
+    flat.write_text("last week's forecast", encoding="utf-8")
+    crashed = [tmp_path / ".up-forecast.csv.a1b2c3d4.bak", tmp_path / ".up-README.txt.ab_cd12z.tmp"]
+    for path in crashed:
+        path.write_text("leftover", encoding="utf-8")
+    result = export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    assert flat.read_text(encoding="utf-8") == "last week's forecast"
+    assert not any(p.exists() for p in crashed)
+    assert any(
+        "up-forecast.csv beside the folder up come from an earlier export" in w
+        for w in result.warnings
+    )
+    readme = (tmp_path / "up" / "up-README.txt").read_text(encoding="utf-8")
+    assert "come from an earlier export" in readme

@@ -22,8 +22,10 @@ https://owasp.org/www-community/attacks/CSV_Injection):
 * xlsx text is always a string cell, never a formula, error value or hyperlink; control
   characters xlsx cannot store are replaced by visible symbols; the row and cell-length limits of
   a sheet are checked here, never left to the library (reliability.md §2.4).
-* Files are written through a temporary file and renamed into place; an existing file is kept
-  unless ``force``; a failed export leaves no temporary file and no half of a file set.
+* Files are written all or nothing, also under kill -9 (``triage.core.files``): a file through
+  a scratch folder and one rename; the three files of a CSV export in one folder that replaces
+  the old one in one step. An existing file or folder is kept unless ``force``; a failed export
+  leaves no scratch file, and the next export removes what a killed one left.
 """
 
 from __future__ import annotations
@@ -33,8 +35,6 @@ import csv
 import json
 import os
 import re
-import secrets
-import shutil
 from collections.abc import Callable, Iterable, Iterator, Sequence
 from dataclasses import dataclass
 from datetime import UTC, datetime
@@ -48,7 +48,14 @@ from triage import __version__
 from triage.core import schema
 from triage.core.config import Choice, default_reviewer
 from triage.core.errors import TriageError
-from triage.core.files import write_atomic
+from triage.core.files import (
+    clean_leftovers,
+    in_scratch,
+    refuse_existing,
+    sha256_of,
+    write_atomic,
+    write_set_atomic,
+)
 from triage.core.ledger import OUTCOMES, Decision, Ledger, describe_series
 from triage.core.portfolio import Portfolio
 
@@ -483,9 +490,10 @@ def review_tables(
 def export_paths(target: str | Path) -> tuple[str, tuple[Path, ...]]:
     """The format of a target and the files it stands for.
 
-    ``x.xlsx`` and ``x.json`` are one file each. ``x.csv`` stands for three files beside it:
-    ``x-decisions.csv``, ``x-forecast.csv`` and ``x-README.txt`` (``x.csv`` itself is not
-    written).
+    ``x.xlsx`` and ``x.json`` are one file each. ``x.csv`` stands for a folder ``x`` holding
+    three files, ``x/x-decisions.csv``, ``x/x-forecast.csv`` and ``x/x-README.txt``: the folder
+    is what is replaced in one step, so it always holds one complete export (``x.csv`` itself
+    is not written).
 
     Raises:
         ExportError: The suffix is not one of ``SUFFIXES``.
@@ -500,11 +508,12 @@ def export_paths(target: str | Path) -> tuple[str, tuple[Path, ...]]:
     fmt = suffix[1:]
     if fmt != "csv":
         return fmt, (path,)
-    stem = path.with_suffix("")
-    return fmt, tuple(
-        stem.with_name(stem.name + tail)
-        for tail in ("-decisions.csv", "-forecast.csv", "-README.txt")
-    )
+    folder = path.with_suffix("")
+    return fmt, tuple(folder / f"{folder.name}{tail}" for tail in _SET_TAILS)
+
+
+#: The files of a CSV export, after ``NAME``.
+_SET_TAILS = ("-decisions.csv", "-forecast.csv", "-README.txt")
 
 
 def export_review(
@@ -521,19 +530,22 @@ def export_review(
     Args:
         portfolio: The portfolio whose forward forecast is exported.
         ledger: The decision ledger.
-        target: ``.csv`` (three files, see ``export_paths``), ``.xlsx`` or ``.json``.
+        target: ``.csv`` (a folder of three files, see ``export_paths``), ``.xlsx`` or
+            ``.json``.
         cycle: Review cycle; default the portfolio's cycle.
-        force: Replace files that exist; otherwise an existing file stops the export.
+        force: Replace what exists; otherwise an existing file or set folder stops the export.
         exported_by: Name recorded as the exporter; default the configured reviewer or login.
 
     Raises:
         ExportError: Unknown suffix, a file exists (without ``force``), the tables do not fit
-            in an xlsx sheet, or the files cannot be written; nothing was left half-written.
+            in an xlsx sheet, or the files cannot be written; nothing was left half-written,
+            also when the process is killed (``triage.core.files``).
     """
     fmt, paths = export_paths(target)
-    for path in paths:
-        if path.is_dir():
-            raise ExportError(f"{path} is a folder; give the name of a file to write.")
+    written = paths[0].parent if fmt == "csv" else paths[0]
+    if fmt != "csv" and written.is_dir():
+        raise ExportError(f"{written} is a folder; give the name of a file to write.")
+    for path in (written, *paths) if fmt == "csv" else paths:
         # Even with force: the portfolio being reviewed and the ledger are never replaced.
         for kept in (portfolio.path, ledger.path):
             if path.exists() and Path(kept).exists() and path.samefile(kept):
@@ -542,15 +554,7 @@ def export_review(
                     "itself; nothing was written.",
                     hint="Choose another file name for the export.",
                 )
-    if not force:
-        existing = [p for p in paths if p.exists()]
-        if existing:
-            names = ", ".join(str(p) for p in existing)
-            raise ExportError(
-                f"{names} already exist{'s' if len(existing) == 1 else ''}; nothing was written "
-                "and the existing file(s) were left unchanged.",
-                hint="Choose another file name, or pass --force to replace them.",
-            )
+    refuse_existing([written], force=force)
     tables = review_tables(portfolio, ledger, cycle=cycle, exported_by=exported_by)
     warnings = list(tables.warnings)
     if fmt == "xlsx":
@@ -567,12 +571,18 @@ def export_review(
         _write_one(paths[0], lambda tmp: _write_json(tmp, tables), force)
     else:
         warnings.extend(_csv_key_warnings(tables))
-        readme = _readme_text(tables, paths, warnings)
-        _write_set(
+        warnings.extend(_flat_set_warnings(written))
+
+        def write_readme(tmp: Path) -> None:
+            data = [tmp.with_name(p.name) for p in paths[:2]]
+            _write_text(tmp, _readme_text(tables, data, warnings))
+
+        write_set_atomic(
+            written,
             [
-                (paths[0], lambda tmp: _write_csv(tmp, tables.decisions)),
-                (paths[1], lambda tmp: _write_csv(tmp, tables.forecast)),
-                (paths[2], lambda tmp: _write_text(tmp, readme)),
+                (paths[0].name, lambda tmp: _write_csv(tmp, tables.decisions)),
+                (paths[1].name, lambda tmp: _write_csv(tmp, tables.forecast)),
+                (paths[2].name, write_readme),
             ],
             force=force,
         )
@@ -588,65 +598,29 @@ def export_review(
 
 
 def _write_one(path: Path, write: Callable[[Path], None], force: bool) -> None:
-    # write_atomic turns OSError into a TriageError and removes its temporary file on any
+    # write_atomic turns OSError into a TriageError and removes its scratch folder on any
     # exception; anything else escaping here is a bug and keeps its traceback.
     write_atomic(path, write, force=force)
 
 
-def _write_set(files: list[tuple[Path, Callable[[Path], None]]], *, force: bool) -> None:
-    """Write several files all or nothing: on any failure every target is as it was before.
+def _flat_set_warnings(folder: Path) -> list[str]:
+    """Earlier versions wrote a CSV export's three files beside each other, not in a folder.
 
-    Each file goes through ``write_atomic``. A file about to be replaced is first hard-linked
-    (or copied) to a hidden name beside it, so a later failure can put it back.
+    Those files are the user's now (never removed), but an upload must not pick them up in
+    place of the new set; the leftovers of a crashed write of them are removed.
     """
-    backups: dict[Path, Path] = {}
-    done: list[Path] = []
-    try:
-        for path, _ in files:
-            if path.exists() and force:
-                backups[path] = _backup(path)
-        for path, write in files:
-            _write_one(path, write, force)
-            done.append(path)
-    except BaseException:
-        for path in reversed(done):
-            with contextlib.suppress(OSError):
-                if path in backups:
-                    os.replace(backups.pop(path), path)
-                else:
-                    path.unlink()
-        raise
-    finally:
-        for spare in backups.values():
-            with contextlib.suppress(OSError):
-                spare.unlink()
-
-
-def _backup(path: Path) -> Path:
-    for _ in range(100):
-        spare = path.with_name(f".{path.name}.{secrets.token_hex(4)}.bak")
-        try:
-            os.link(path, spare)
-            return spare
-        except FileExistsError:
-            continue
-        except OSError:
-            # No hard links on this file system: copy instead.
-            try:
-                with spare.open("xb") as out, path.open("rb") as src:
-                    shutil.copyfileobj(src, out)
-                return spare
-            except FileExistsError:
-                continue
-            except OSError as exc:
-                with contextlib.suppress(OSError):
-                    spare.unlink()
-                raise ExportError(
-                    f"cannot keep a copy of {path} while replacing it: {exc.strerror or exc}; "
-                    "nothing was changed.",
-                    hint="Check the free space and permissions of the folder.",
-                ) from exc
-    raise ExportError(f"cannot find a free backup name beside {path}; nothing was changed.")
+    flat = [folder.with_name(folder.name + tail) for tail in _SET_TAILS]
+    for path in flat:
+        clean_leftovers(path.parent, path.name)
+    found = [p.name for p in flat if p.exists()]
+    if not found:
+        return []
+    return [
+        f"{', '.join(found)} beside the folder {folder.name} come from an earlier export (triage "
+        f"now writes a CSV export as one folder, so that it is replaced as a whole); they are "
+        "not part of this export and were left unchanged. Delete them so that no upload reads "
+        "them."
+    ]
 
 
 # ---- CSV ------------------------------------------------------------------------------------
@@ -718,7 +692,8 @@ def _csv_key_warnings(tables: ReviewTables) -> list[str]:
     return out
 
 
-def _readme_text(tables: ReviewTables, paths: Sequence[Path], warnings: Sequence[str]) -> str:
+def _readme_text(tables: ReviewTables, data: Sequence[Path], warnings: Sequence[str]) -> str:
+    """The README of a CSV export; ``data`` are the decisions and forecast files, written."""
     prov = tables.provenance
     lines = [
         "Forecast review export (triage)",
@@ -728,9 +703,13 @@ def _readme_text(tables: ReviewTables, paths: Sequence[Path], warnings: Sequence
         *_provenance_lines(prov),
         "",
         "Files",
-        f"  {paths[0].name}: {len(tables.decisions):,} reviewed series, one row each",
-        f"  {paths[1].name}: {len(tables.forecast):,} rows, every series x forward period "
+        "  The three files of this folder were written together and are replaced together; an",
+        "  upload can check that it read this export's files by their size and SHA-256.",
+        f"  {data[0].name}: {len(tables.decisions):,} reviewed series, one row each",
+        *_manifest_line(data[0]),
+        f"  {data[1].name}: {len(tables.forecast):,} rows, every series x forward period "
         f"({tables.adjusted_periods:,} adjusted)",
+        *_manifest_line(data[1]),
         "",
         "Text safety",
         *[f"  {line}" for line in _SAFETY_LINES],
@@ -739,6 +718,10 @@ def _readme_text(tables: ReviewTables, paths: Sequence[Path], warnings: Sequence
         lines += ["", "Warnings", *[f"  - {w}" for w in warnings]]
     lines += ["", "Columns", *[f"  {name}: {text}" for name, text in COLUMN_NOTES.items()]]
     return "\n".join(printable(line) for line in lines) + "\n"
+
+
+def _manifest_line(path: Path) -> list[str]:
+    return [f"    {path.stat().st_size:,} bytes, SHA-256 {sha256_of(path)}"]
 
 
 # ---- xlsx -----------------------------------------------------------------------------------
@@ -828,6 +811,7 @@ def _write_xlsx(path: Path, tables: ReviewTables, warnings: list[str]) -> None:
     try:
         for title, frame in (("Decisions", tables.decisions), ("Forecast", tables.forecast)):
             sheet = book.create_sheet(title)
+            _spool_beside(sheet, path)
             sheet.append(list(frame.columns))
             for chunk in _chunks(frame):
                 for values in zip(*_xlsx_columns(sheet, chunk, issues), strict=True):
@@ -836,12 +820,53 @@ def _write_xlsx(path: Path, tables: ReviewTables, warnings: list[str]) -> None:
         # Written last, so it can list what the data sheets needed; its text is made printable
         # first, so it has nothing left for the xlsx rules to replace.
         sheet = book.create_sheet("Read me")
+        _spool_beside(sheet, path)
         for row in _readme_rows(tables, [*tables.warnings, *warnings]):
             texts = _xlsx_text([neutralise_one(printable(v)) for v in row], "Read me", issues)
             sheet.append([_as_string_cell(sheet, v) for v in texts])
-        book.save(path)
+        _save_book(book, path)
     except BaseException:
         _discard_spools(book)
+        raise
+
+
+def _spool_beside(sheet: Any, path: Path) -> None:
+    """Spool a new write-only sheet in the scratch folder of ``path``, when it has one.
+
+    openpyxl spools each sheet to a file in the system temp folder, which a killed export
+    would leave there; in the scratch folder of ``files.write_atomic`` it goes with the rest
+    (and the next export removes it). Set before the first row, as
+    ``WriteOnlyWorksheet._get_writer`` does (openpyxl 3.1.5).
+    """
+    if not in_scratch(path):
+        return
+    from openpyxl.worksheet import _writer as sheet_writer
+
+    spool = str(path.with_name(f"{path.name}.sheet{len(sheet.parent.worksheets)}.xml"))
+    sheet._writer = sheet_writer.WorksheetWriter(sheet, out=spool)
+    # Listed where openpyxl lists its own spools: its clean-up after saving removes it there.
+    sheet_writer.ALL_TEMP_FILES.append(spool)
+    sheet._writer.write_top()
+
+
+def _save_book(book: Any, path: Path) -> None:
+    """``Workbook.save`` (openpyxl 3.1.5 ``save_workbook``), with the archive closed on failure.
+
+    When a write fails (disk full), openpyxl leaves its ``ZipFile`` open; collected later, it
+    tries to flush again and prints "Exception ignored in ZipFile.__del__" with a traceback
+    after triage's own message (measured). Closing it here, quietly, leaves nothing to flush.
+    """
+    from zipfile import ZIP_DEFLATED, ZipFile
+
+    from openpyxl.writer import excel
+
+    archive = ZipFile(path, "w", ZIP_DEFLATED, allowZip64=True)
+    try:
+        book.properties.modified = datetime.now(UTC).replace(tzinfo=None)
+        excel.ExcelWriter(book, archive).save()
+    except BaseException:
+        with contextlib.suppress(Exception):
+            archive.close()
         raise
 
 

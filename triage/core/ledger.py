@@ -440,8 +440,18 @@ def _translate(exc: sqlite3.Error, path: Path, *, saving: str | None = None) -> 
             if name.startswith("SQLITE_FULL")
             else "the disk write failed; the disk may be full, over a size limit or failing"
         )
+        if not saving:
+            # Opening a WAL ledger, even to read it, writes its -shm index beside it
+            # (sqlite.org/walformat.html): a read can fail on a full disk too.
+            return LedgerWriteError(
+                f"The ledger {path} could not be opened: {reason} ({name}: {exc}). Even reading "
+                "a ledger writes small working files beside it (-wal, -shm). Every decision in "
+                "it is kept.",
+                path=path,
+                hint="Free disk space or raise the file-size limit (ulimit -f), then try again.",
+            )
         return LedgerWriteError(
-            f"{lost or 'The ledger could not be written: '}{reason} ({name}: {exc}). "
+            f"{lost}{reason} ({name}: {exc}). "
             f"The ledger {path} still holds every earlier decision.",
             path=path,
             hint="Free disk space (or fix the disk) and save again.",
@@ -1246,7 +1256,9 @@ def _read_header(
             user_version = int(con.execute("PRAGMA user_version").fetchone()[0])
             tables = int(con.execute("SELECT count(*) FROM sqlite_schema").fetchone()[0])
         finally:
-            con.execute("COMMIT")
+            # After an I/O error SQLite has already rolled back: a COMMIT would only hide it.
+            if con.in_transaction:
+                con.execute("COMMIT")
         if app_id == APPLICATION_ID:
             problems = [r[0] for r in con.execute("PRAGMA quick_check(5)").fetchall()]
             if problems != ["ok"]:

@@ -32,7 +32,7 @@ from triage import __version__
 from triage.core import history, schema
 from triage.core.config import DEFAULT_ROOT_CAUSES
 from triage.core.export import CAUTION
-from triage.core.files import write_text_atomic
+from triage.core.files import refuse_existing, write_text_atomic
 from triage.core.ledger import OUTCOMES, Ledger
 from triage.core.output import window_info
 from triage.core.portfolio import Portfolio
@@ -1088,6 +1088,7 @@ def write_report(
     repeat_m: int = 4,
     top: int = TOP_DEFAULT,
     generated_at: datetime | None = None,
+    force: bool = True,
 ) -> ReportResult:
     """Build the report and write it atomically (a reader never sees half a file).
 
@@ -1095,11 +1096,13 @@ def write_report(
         portfolio: The current portfolio.
         ledger: The decision ledger (read-only is enough), or None.
         target: HTML file to write; default ``default_report_path(portfolio)``.
+        force: Replace the file if it exists (``triage report`` passes its ``--force``).
 
     Raises:
         ReportError: The target is not an ``.html``/``.htm`` file (so never the portfolio or the
             ledger).
-        TriageError: The file cannot be written (``files.write_atomic``).
+        TriageError: The file exists and ``force`` is false, or it cannot be written
+            (``files.write_atomic``).
     """
     path = Path(target) if target is not None else default_report_path(portfolio)
     if path.suffix.lower() not in (".html", ".htm"):
@@ -1107,6 +1110,7 @@ def write_report(
             f"the report is an HTML file; {path.name} does not end in .html.",
             hint="Pass --to NAME.html.",
         )
+    refuse_existing([path], force=force)  # before the work, not only at the write
     data = build_report(
         portfolio,
         ledger,
@@ -1119,7 +1123,7 @@ def write_report(
         generated_at=generated_at,
     )
     document = render_html(data)
-    write_text_atomic(path, document)
+    write_text_atomic(path, document, force=force)
     return ReportResult(path=path, data=data, bytes=len(document.encode("utf-8")))
 
 
