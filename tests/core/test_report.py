@@ -572,6 +572,7 @@ def test_report_renders_in_a_real_browser(
     )
     rendered = parse(dom.stdout)
     assert (
-        rendered.title == f"Weekly forecast review: {result.data.portfolio_name}, cycle {result.data.cycle}"
+        rendered.title
+        == f"Weekly forecast review: {result.data.portfolio_name}, cycle {result.data.cycle}"
     )
     assert "realised-direction-size" in rendered.tables
