@@ -10,8 +10,8 @@ from textual.containers import VerticalScroll
 
 from tests.tui.conftest import wait_for, wait_loaded
 from triage.core import ledger as ledger_mod
+from triage.core import words
 from triage.core.config import DEFAULT_ROOT_CAUSES
-from triage.tui import format as fmt
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.dialogs import HelpScreen
 
@@ -23,11 +23,11 @@ CODES = [c.code for c in ledger_mod.OUTCOMES if "_" in c.code] + [
 
 def test_value_added_in_words() -> None:
     # FVA = error removed against naive (Gilliland 2010): positive means the forecast is better.
-    assert fmt.against_naive(23.44, " a week") == "beat naive by 23.4 units a week"
-    assert fmt.against_naive(-5.0) == "5.0 units worse than naive"
-    assert fmt.against_naive(0.01) == "as good as naive"
-    assert "units and value disagree" in fmt.mix_effect(10.0, -3.0)
-    assert fmt.mix_effect(10.0, 3.0) == ""
+    assert words.against_naive(23.44, " a week") == "beat naive by 23.4 units a week"
+    assert words.against_naive(-5.0) == "5.0 units worse than naive"
+    assert words.against_naive(0.01) == "as good as naive"
+    assert "units and value disagree" in words.mix_effect(10.0, -3.0)
+    assert words.mix_effect(10.0, 3.0) == ""
 
 
 async def test_detail_pane_and_help_use_words_and_no_codes(tmp_path: Path) -> None:
@@ -46,8 +46,8 @@ async def test_detail_pane_and_help_use_words_and_no_codes(tmp_path: Path) -> No
         await pilot.pause(0.3)
         detail = str(app.query_one("#detail-text").render())
         assert re.search(r"beat naive by [\d,.]+ units a week|worse than naive", detail), detail
-        assert "MASE" in detail and fmt.MEANINGS["MASE"] in detail
-        assert fmt.MEANINGS["sign test p"][:30] in detail
+        assert "MASE" in detail and words.MEANINGS["MASE"] in detail
+        assert words.MEANINGS["sign test p"][:30] in detail
         screen = app.export_screenshot()
         for code in CODES:
             assert code not in screen, code

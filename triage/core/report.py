@@ -29,7 +29,7 @@ import numpy as np
 import pandas as pd
 
 from triage import __version__
-from triage.core import history, schema
+from triage.core import history, schema, words
 from triage.core.config import DEFAULT_ROOT_CAUSES
 from triage.core.export import CAUTION
 from triage.core.files import refuse_existing, write_text_atomic
@@ -1153,7 +1153,7 @@ def summary_text(data: ReportData, path: Path | None = None) -> str:
     ]
     lines += [f"  {s}" for s in highlights(data)]
     lines.append(
-        f"Forecast value added over naive: {fmt_units(data.fva['value_added'], signed=True)} units "
+        f"Forecast against naive over the window: {words.against_naive(data.fva['value_added'])} "
         f"(relative absolute error {fmt_ratio(data.fva['relative_error'])})."
     )
     if path is not None:

@@ -22,7 +22,7 @@ from textual.widgets import Footer, ProgressBar, Static
 from textual.worker import Worker, WorkerState
 
 from triage.core import ledger as ledger_mod
-from triage.core import schema
+from triage.core import schema, words
 from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.errors import TriageError
 from triage.core.review import FILTER_FIELDS, ReviewSession
@@ -504,9 +504,9 @@ class TriageApp(App[None]):
             else "no counted period in the window",
             f"tracking signal {card['tracking_signal']:+.1f} · run {int(card['bias_run']):+d} · "
             f"{card['pattern']} demand (ADI {card['adi']:.2f}, CV² {card['cv2']:.2f})",
-            f"{fmt.against_naive(card['fva'], per)} (FVA)",
-            f"MASE {card['mase']:.2f}: {fmt.MEANINGS['MASE']}",
-            f"sign test p {card['bias_pvalue']:.3f}: {fmt.MEANINGS['sign test p']}",
+            f"{words.against_naive(card['fva'], per)} (FVA)",
+            f"MASE {card['mase']:.2f}: {words.MEANINGS['MASE']}",
+            f"sign test p {card['bias_pvalue']:.3f}: {words.MEANINGS['sign test p']}",
         ]
         lines.extend(session.across_cycles(series))
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
@@ -1049,7 +1049,7 @@ class TriageApp(App[None]):
         return rows
 
     def action_help(self) -> None:
-        self.push_screen(HelpScreen(self.help_rows(), fmt.MEANINGS))
+        self.push_screen(HelpScreen(self.help_rows(), words.MEANINGS))
 
     def get_system_commands(self, screen):
         """The main review actions, searchable in the command palette (ctrl+p)."""

@@ -14,7 +14,7 @@ from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
 from textual.widgets import Static
 
-from triage.tui import format as fmt
+from triage.core import words
 from triage.tui.screens.base import Dialog
 
 TITLES = {
@@ -109,10 +109,10 @@ class OverridesScreen(Dialog[None]):
                 )
             )
             if self._priced:
-                mix = fmt.mix_effect(total["value_added"], total["value_added_value"])
+                mix = words.mix_effect(total["value_added"], total["value_added_value"])
                 if mix:
                     parts.append(Text(mix.capitalize() + "."))
-            parts.append(Text(f"AvgRelMAE: {fmt.MEANINGS['AvgRelMAE']}.", style="dim"))
+            parts.append(Text(f"AvgRelMAE: {words.MEANINGS['AvgRelMAE']}.", style="dim"))
             for by, frame in self._tables.items():
                 parts.append(Text(""))
                 parts.append(summary_table(by, frame, self._priced))
@@ -121,7 +121,7 @@ class OverridesScreen(Dialog[None]):
         parts.append(
             Text(
                 "For context, this cycle's forecast against the naive forecast: "
-                f"{fmt.against_naive(fva.get('value_added', math.nan))} over the window "
+                f"{words.against_naive(fva.get('value_added', math.nan))} over the window "
                 f"(relative error {fva.get('relative_error', math.nan):.3f}); "
                 f"{int(fva.get('series_worse_than_naive', 0)):,} series worse than naive."
             )
