@@ -72,6 +72,8 @@ def write_workbook(
     *,
     data: list[list[object]] | None = None,
     strings: Iterable[bytes] | None = None,
+    compression: int = zipfile.ZIP_DEFLATED,
+    dimension: bool = False,
 ) -> Path:
     """A one-sheet workbook: ``data`` (default :data:`DATA`) from row 1, then the ``tail`` bytes.
 
@@ -81,9 +83,12 @@ def write_workbook(
         data: The rows written first, as cell values.
         strings: Raw XML of a shared-strings part (inside ``<sst>``), block by block; None
             writes no such part.
+        compression: ``zipfile.ZIP_DEFLATED``, or ``ZIP_STORED`` to change bytes in place.
+        dimension: Write a ``<dimension>`` element before the cells (as Excel does), so that the
+            reader does not parse the sheet when it opens the workbook.
     """
     rows = DATA if data is None else data
-    with zipfile.ZipFile(path, "w", zipfile.ZIP_DEFLATED, compresslevel=9) as archive:
+    with zipfile.ZipFile(path, "w", compression, compresslevel=9) as archive:
         content_types, workbook_rels = CONTENT_TYPES, WORKBOOK_RELS
         if strings is not None:
             content_types = content_types.replace("</Types>", STRINGS_TYPE + "</Types>")
@@ -101,6 +106,8 @@ def write_workbook(
         archive.writestr("xl/_rels/workbook.xml.rels", workbook_rels)
         with archive.open("xl/worksheets/sheet1.xml", "w", force_zip64=True) as sheet:
             sheet.write(f'<?xml version="1.0" encoding="UTF-8"?><worksheet xmlns="{_NS}">'.encode())
+            if dimension:
+                sheet.write(b'<dimension ref="A1:D5"/>')
             sheet.write(b"<sheetData>")
             for number, cells in enumerate(rows, start=1):
                 sheet.write(row_xml(number, cells))

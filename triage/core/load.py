@@ -102,6 +102,9 @@ _SUSPECT_PATTERN = f"{_CONTROL_PATTERN}|{_BIDI_PATTERN}"
 _MAX_MAGNITUDE = float(2**53)
 _ISO_DATE = re.compile(r"^(\d{4})-(\d{2})(?:-(\d{2}))?(?:[T ]00:00(?::00(?:\.0+)?)?)?$")
 _FIRST_YEAR, _LAST_YEAR = 1900, 2199
+#: Largest forecast lag, in periods (almost two centuries of weeks): a larger number is a typo
+#: or another column, and would not fit the integer types lags are held in.
+LAG_MAX = 10_000
 #: Nanoseconds per day, and the day numbers (since 1970-01-01) of the accepted year range.
 _DAY_NS = 86_400 * 10**9
 _FIRST_DAY = (dt.date(_FIRST_YEAR, 1, 1) - dt.date(1970, 1, 1)).days
@@ -1235,7 +1238,7 @@ class StreamSource:
             return days
         if name == schema.LAG:
             lags = chunk.to_numpy()
-            if lags.min() < 0 or lags.max() > np.iinfo(np.int32).max:
+            if lags.min() < 0 or lags.max() > LAG_MAX:
                 raise FastPathDeclined("lag range")
             return lags.astype(np.int64)
         numbers = _float_values(chunk)
@@ -1753,7 +1756,7 @@ def _check_archive(path: Path) -> dict[str, _PartScan]:
                 ):
                     _oversized_part(path, info)
             if strings is not None and strings in names:
-                scan = _scan_part(path, archive, strings, "the shared strings of the workbook")
+                scan = _scan_guarded(path, archive, strings, "the shared strings of the workbook")
                 if scan.strings > XLSX_MAX_CELLS:
                     _fail(
                         path,
@@ -1763,7 +1766,7 @@ def _check_archive(path: Path) -> dict[str, _PartScan]:
                     )
             for title, member in _sheet_parts(archive, workbook) if workbook else []:
                 if member in names and member not in scans:
-                    scan = _scan_part(
+                    scan = _scan_guarded(
                         path, archive, member, f"sheet '{title}'", sheet=title, at_open=True
                     )
                     if scan.complete:
@@ -1823,6 +1826,22 @@ def _sheet_parts(archive: zipfile.ZipFile, workbook: str) -> list[tuple[str, str
             ]
     except _XLSX_DAMAGED:
         return []  # the reader refuses the file with its own message
+
+
+def _scan_guarded(
+    path: Path,
+    archive: zipfile.ZipFile,
+    member: str,
+    where: str,
+    *,
+    sheet: str | None = None,
+    at_open: bool = False,
+) -> _PartScan:
+    """:func:`_scan_part`, with a damaged part (bad CRC, bad deflate data) named as such."""
+    try:
+        return _scan_part(path, archive, member, where, sheet=sheet, at_open=at_open)
+    except (zipfile.BadZipFile, zlib.error, EOFError) as exc:
+        _damaged_workbook(path, where, exc)
 
 
 def _scan_sheet(path: Path, member: str, name: str) -> _PartScan | None:
@@ -2686,6 +2705,8 @@ def _number_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Seri
 def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
     dtype = values.dtype
     if isinstance(dtype, np.dtype) and dtype.kind in "iu":
+        if dtype.kind == "u" and len(values) and values.max() > LAG_MAX:
+            _lag_range_error(ctx, position, np.flatnonzero(values.to_numpy() > LAG_MAX), values)
         lags = values.to_numpy().astype(np.int64, copy=False)
         missing = np.zeros(1, dtype=bool)
         shown: pd.Series = values
@@ -2699,7 +2720,11 @@ def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
         wrong = ~missing & ~(np.isfinite(numbers) & (numbers == np.round(numbers)))
         if wrong.any():
             _lag_error(ctx, position, np.flatnonzero(wrong), values)
-        lags = np.where(missing, -1, numbers).astype(np.int64)
+        # Checked before the cast: a float past the int64 range would wrap around to negative.
+        large = np.flatnonzero(~missing & (numbers > LAG_MAX))
+        if large.size:
+            _lag_range_error(ctx, position, large, values)
+        lags = np.where(missing | (numbers < -LAG_MAX), -1, numbers).astype(np.int64)
         shown = values
     else:
         text, missing_text = _text(values)
@@ -2714,7 +2739,12 @@ def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
         wrong = np.isin(codes, bad_cats) & ~missing
         if wrong.any():
             _lag_error(ctx, position, np.flatnonzero(wrong), text)
-        cat_values = np.where(whole, pd.to_numeric(cats.where(whole, "0")).to_numpy(), -1)
+        # As float64 first: a whole number of any length converts, where int64 would overflow.
+        numbers = pd.to_numeric(cats.where(whole, "0")).to_numpy(dtype=np.float64)
+        too_large = np.isin(codes, np.flatnonzero(whole & (numbers > LAG_MAX)))
+        if too_large.any():
+            _lag_range_error(ctx, position, np.flatnonzero(too_large), text)
+        cat_values = np.where(whole & (numbers >= -LAG_MAX), numbers, -1).astype(np.int64)
         lags = np.where(codes < 0, -1, cat_values[np.maximum(codes, 0)]).astype(np.int64)
         shown = text
     if missing.any():
@@ -2735,7 +2765,20 @@ def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
             shown,
             "A lag counts periods from making the forecast to the period it is for: 0 or more.",
         )
+    if lags.max() > LAG_MAX:
+        _lag_range_error(ctx, position, np.flatnonzero(lags > LAG_MAX), shown)
     return pd.Series(lags, dtype=np.int64, copy=False)
+
+
+def _lag_range_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series) -> NoReturn:
+    ctx.fail(
+        position,
+        f"has lags larger than {LAG_MAX:,} periods",
+        bad,
+        values,
+        "A lag counts periods from making the forecast to the period it is for (0, 1, 2, ...); "
+        "check that this is the lag column (or map another with --columns lag=<column>).",
+    )
 
 
 def _lag_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series) -> NoReturn:
