@@ -51,6 +51,7 @@ import itertools
 import os
 import re
 import threading
+import unicodedata
 import warnings
 import zipfile
 import zlib
@@ -64,6 +65,7 @@ import pandas as pd
 
 from triage.core import schema
 from triage.core.errors import LoadError, TriageError, format_rows
+from triage.core.ledger import TEXT_MAX
 
 __all__ = [
     "SUFFIXES",
@@ -97,10 +99,31 @@ _CONTROL_TABLE: dict[int, str] = {
 # Python's re, per cell), and bidi characters must not appear literally in source code.
 _BIDI_PATTERN = f"[{chr(0x202A)}-{chr(0x202E)}{chr(0x2066)}-{chr(0x2069)}]"
 _SUSPECT_PATTERN = f"{_CONTROL_PATTERN}|{_BIDI_PATTERN}"
+# Look-alike ids (issue 10 §7): ids that differ only in what does not show. Characters that do
+# not show: format characters (Unicode category Cf: zero-width space and joiners, word joiner,
+# byte-order mark, soft hyphen, bidi marks) and the fillers that render blank. Spaces: every
+# Unicode space, line and paragraph separator. Written as code points, for both regex engines.
+_INVISIBLE = "".join(
+    chr(c)
+    for c in (
+        0x00AD, 0x034F, 0x061C, 0x115F, 0x1160, 0x17B4, 0x17B5, 0x180E,
+        *range(0x200B, 0x2010), *range(0x202A, 0x202F), *range(0x2060, 0x2070),
+        0x3164, 0xFEFF, 0xFFA0,
+    )
+)  # fmt: skip
+_SPACES = "".join(
+    chr(c)
+    for c in (0x20, 0x85, 0xA0, 0x1680, *range(0x2000, 0x200B), 0x2028, 0x2029, 0x202F, 0x205F,
+              0x3000)
+)  # fmt: skip
+#: An id that may look like another: not ASCII, or a space at an end or two spaces in a row.
+_LOOKALIKE_CANDIDATE = f"[{chr(0x80)}-{chr(0x10FFFF)}]|^ | $|  "
 
 # float64 holds every whole number exactly only up to 2**53 (IEEE 754 binary64, 53-bit significand).
 _MAX_MAGNITUDE = float(2**53)
-_ISO_DATE = re.compile(r"^(\d{4})-(\d{2})(?:-(\d{2}))?(?:[T ]00:00(?::00(?:\.0+)?)?)?$")
+# Digits are [0-9]: \d would also match Arabic-Indic, full-width and other digits, which
+# Python's float() and int() read but docs/input-format.md does not accept (plain numbers only).
+_ISO_DATE = re.compile(r"^([0-9]{4})-([0-9]{2})(?:-([0-9]{2}))?(?:[T ]00:00(?::00(?:\.0+)?)?)?$")
 _FIRST_YEAR, _LAST_YEAR = 1900, 2199
 #: Largest forecast lag, in periods (almost two centuries of weeks): a larger number is a typo
 #: or another column, and would not fit the integer types lags are held in.
@@ -110,8 +133,8 @@ _DAY_NS = 86_400 * 10**9
 _FIRST_DAY = (dt.date(_FIRST_YEAR, 1, 1) - dt.date(1970, 1, 1)).days
 _LAST_DAY = (dt.date(_LAST_YEAR, 12, 31) - dt.date(1970, 1, 1)).days
 _UNITS_PER_DAY = {"s": 86_400, "ms": 86_400_000, "us": 86_400 * 10**6, "ns": _DAY_NS}
-_NUMBER = r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$|^[+-]?(?:inf|infinity)$"
-_INTEGER = r"^[+-]?\d+(?:\.0*)?$"
+_NUMBER = r"^[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?$|^[+-]?(?:inf|infinity)$"
+_INTEGER = r"^[+-]?[0-9]+(?:\.0*)?$"
 _EXCEL_ERRORS = ("#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#N/A", "#SPILL!")
 _CHUNK = 1 << 23
 _HEADER_BYTES = 1 << 20
@@ -1010,6 +1033,8 @@ class _Dictionary:
     values: list[str] = field(default_factory=list)
     blank: list[bool] = field(default_factory=list)
     has_blank: bool = False
+    lookalikes: dict[str, str] = field(default_factory=dict)
+    """How ids that may look like others look (see :func:`lookalike_keys`) -> the first such id."""
 
     def codes(
         self, chunk: Any, positions: np.ndarray | None = None, out: np.ndarray | None = None
@@ -1059,6 +1084,10 @@ class _Dictionary:
         if pc.any(pc.match_substring_regex(array, pattern)).as_py():
             raise FastPathDeclined("control characters")
         blank = [False] * len(fresh)
+        if self.is_id and pc.max(pc.utf8_length(array)).as_py() > TEXT_MAX:
+            raise FastPathDeclined("id too long")
+        if self.is_id:
+            self._check_lookalikes(array, fresh)
         if self.is_id:
             # Both notions of white space (Python's and Arrow's): whichever the full loader
             # applies, an id this path keeps is one it keeps too.
@@ -1069,6 +1098,27 @@ class _Dictionary:
             self.index[value] = len(self.values)
             self.values.append(value)
         self.blank.extend(blank)
+
+    def _check_lookalikes(self, array: Any, fresh: list[str]) -> None:
+        """Decline when an id looks like another one (the full loader words the notice)."""
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        candidate = pc.match_substring_regex(array, _LOOKALIKE_CANDIDATE)
+        plain = array
+        if pc.any(candidate).as_py():
+            originals = pc.filter(array, candidate).to_pylist()
+            keys = lookalike_keys(pd.Series(originals, dtype=str)).tolist()
+            others = set(fresh)
+            for original, key in zip(originals, keys, strict=True):
+                seen = self.lookalikes.setdefault(key, original)
+                if seen != original or (key != original and (key in self.index or key in others)):
+                    raise FastPathDeclined("look-alike ids")
+            plain = pc.filter(array, pc.invert(candidate))
+        if self.lookalikes and len(plain):
+            known = pa.array(list(self.lookalikes), type=pa.string())
+            if pc.any(pc.is_in(plain, value_set=known)).as_py():
+                raise FastPathDeclined("look-alike ids")
 
 
 @dataclass
@@ -2412,6 +2462,8 @@ def _ids(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.Serie
             f"Every row needs {'an item id' if role == schema.ITEM else 'a location'}: "
             "fill it in, or delete the rows.",
         )
+    _check_id_length(ctx, position, text, role)
+    _note_lookalikes(ctx, position, text)
     if suspect and bool(strings.str.contains(_BIDI_PATTERN, regex=True, na=False).any()):
         ctx.notices.append(
             f"Column {_label(ctx.plan, position)} has ids containing bidirectional text controls "
@@ -2420,6 +2472,106 @@ def _ids(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.Serie
     if role == schema.LOCATION and not isinstance(text.dtype, pd.CategoricalDtype):
         text = text.astype("category")
     return text
+
+
+def _check_id_length(ctx: _Context, position: int, text: pd.Series, role: str) -> None:
+    """Refuse ids the decision ledger could not store, here rather than at every save."""
+    if isinstance(text.dtype, pd.CategoricalDtype):
+        lengths = text.cat.categories.str.len().to_numpy()
+        if not len(lengths) or lengths.max() <= TEXT_MAX:
+            return
+        long_rows = np.isin(_codes(text), np.flatnonzero(lengths > TEXT_MAX))
+    else:
+        lengths = text.str.len().to_numpy(dtype=np.float64, na_value=0)
+        if not len(lengths) or lengths.max() <= TEXT_MAX:
+            return
+        long_rows = lengths > TEXT_MAX
+    if not long_rows.any():
+        return  # only categories no row uses any more (left by skipped blank rows)
+    what = "item ids" if role == schema.ITEM else "locations"
+    ctx.fail(
+        position,
+        f"has {what} longer than {TEXT_MAX:,} characters (the most the decision ledger stores)",
+        np.flatnonzero(long_rows),
+        None,
+        "Shorten those ids, or check that --columns maps the right column to "
+        f"{role} (an id is a code or a short name).",
+        f"The longest is {int(lengths.max()):,} characters.",
+    )
+
+
+def lookalike_keys(ids: pd.Series) -> pd.Series:
+    """How each id looks: NFKC form, invisible characters removed, spaces made one plain space,
+    none at the ends. Ids with the same key look alike on screen (or nearly).
+
+    Args:
+        ids: Distinct ids, as ``str``.
+    """
+    return (
+        ids.str.normalize("NFKC")
+        .str.replace(f"[{_INVISIBLE}]", "", regex=True)
+        .str.replace(f"[{_SPACES}]+", " ", regex=True)
+        .str.strip(" ")
+    )
+
+
+def _lookalike_candidates(ids: pd.Series) -> np.ndarray:
+    """Which ids could look like another (everything else looks like itself only)."""
+    # One pass over all ids joined (C speed) settles the usual case: plain ASCII, single spaces.
+    joined = "\n" + "\n".join(ids.tolist()) + "\n"
+    if joined.isascii() and not any(odd in joined for odd in ("  ", " \n", "\n ")):
+        return np.zeros(len(ids), dtype=bool)
+    return ids.str.contains(_LOOKALIKE_CANDIDATE, regex=True).to_numpy(dtype=bool)
+
+
+def _note_lookalikes(ctx: _Context, position: int, text: pd.Series) -> None:
+    """Notice ids that look alike but differ: kept apart, but the reviewer should know."""
+    if isinstance(text.dtype, pd.CategoricalDtype):
+        codes = _codes(text)
+        used = np.bincount(codes[codes >= 0], minlength=len(text.cat.categories)) > 0
+        ids = pd.Series(text.cat.categories[used], dtype=str)
+    else:
+        ids = pd.Series(pd.unique(text.dropna()), dtype=str)
+    candidate = _lookalike_candidates(ids)
+    if not candidate.any():
+        return
+    originals = ids[candidate]
+    keys = lookalike_keys(originals)
+    plain = ids[~candidate]
+    hits = plain[plain.isin(keys).to_numpy(dtype=bool)]
+    pairs = pd.DataFrame(
+        {"key": pd.concat([keys, hits]).to_numpy(), "id": pd.concat([originals, hits]).to_numpy()}
+    )
+    shared = pairs[pairs["key"].duplicated(keep=False).to_numpy()]
+    if shared.empty:
+        return
+    groups = shared.groupby("key", sort=False)["id"].agg(list)
+    examples = "; ".join(
+        " and ".join(_shown_id(v) for v in sorted(group)[:3]) for group in groups.iloc[:_SHOWN]
+    )
+    ctx.notices.append(
+        f"Column {_label(ctx.plan, position)}: {len(shared)} ids look like another id but "
+        "differ in spaces, Unicode form or invisible characters; each is kept as its own "
+        f"series: {examples}"
+        + (f" and {len(groups) - _SHOWN} more groups" if len(groups) > _SHOWN else "")
+        + ". If they are the same, write them the same way in the file."
+    )
+
+
+def _shown_id(text: str) -> str:
+    """An id quoted, with what does not show written as a code (``\\u200D``)."""
+    out = []
+    for ch in text:
+        kind = unicodedata.category(ch)
+        if (
+            kind in ("Mn", "Me", "Cf", "Zl", "Zp")
+            or (kind == "Zs" and ch != " ")
+            or ch in _INVISIBLE
+        ):
+            out.append(f"\\u{ord(ch):04X}" if ord(ch) <= 0xFFFF else f"\\U{ord(ch):08X}")
+        else:
+            out.append(ch)
+    return "'" + "".join(out) + "'"
 
 
 def _typed_numbers(values: pd.Series) -> int:
@@ -2546,6 +2698,11 @@ def _date_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series
         notes.append("5-digit numbers look like Excel day numbers (dates without a date format).")
     if any(re.fullmatch(r"\d{4}-\d{2}-\d{2}[T ]\d{1,2}:\d{2}.*", s) for s in sample):
         notes.append("Periods are dates, without a time of day.")
+    digits = _foreign_digits(sample)
+    if digits:
+        notes.append(
+            f"Dates are written with the digits 0-9 ({digits} are digits of another script)."
+        )
     invalid = next((s for s in sample if _ISO_DATE.fullmatch(s)), None)
     if invalid:
         notes.append(f"'{invalid}' is not a date in the calendar.")
@@ -2558,6 +2715,17 @@ def _date_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series
         "of the month); in Excel, format the column as yyyy-mm-dd before saving.",
         " ".join(notes),
     )
+
+
+def _foreign_digits(sample: list[str]) -> str:
+    """Digits other than 0-9 in the sample, named for a message ('' when there are none)."""
+    found = list(
+        dict.fromkeys(ch for text in sample for ch in text if ch.isdigit() and not ch.isascii())
+    )
+    if not found:
+        return ""
+    shown = ", ".join(f"'{ch}'" for ch in found[:3])
+    return f"{shown} {'is a digit' if len(found) == 1 else 'are digits'} of another script"
 
 
 def _check_stamps(ctx: _Context, position: int, stamps: pd.Series) -> None:
@@ -2697,6 +2865,9 @@ def _number_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Seri
         hints.append(
             "fix the Excel formulas that give errors (#DIV/0!, #VALUE!), or clear those cells"
         )
+    digits = _foreign_digits(sample)
+    if digits:
+        hints.append(f"write digits as 0-9 ({digits})")
     hints.append("leave a cell empty (or write NA) for a missing value")
     hint = "Use plain numbers such as 12 or -3.5: " + "; ".join(hints) + "."
     ctx.fail(position, "has values that are not numbers", bad, values, hint)
