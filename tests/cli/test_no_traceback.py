@@ -188,3 +188,18 @@ def test_an_unexpected_error_is_reported_even_when_no_log_can_be_written(tmp_pat
 def test_the_empty_rows_workbook_of_the_issue_is_refused(tmp_path: Path) -> None:
     path = write_workbook(tmp_path / "bomb.xlsx", empty_rows(1_100_000))
     refused(run("check", str(path)), "rows (empty rows count too)", "CSV UTF-8 or Parquet")
+
+
+def test_a_reviewer_name_the_ledger_cannot_store_is_refused_before_the_screens_open() -> None:
+    # Issue 10 §6: a 200,000-character name was accepted and every save then failed.
+    from triage.cli import _review_options, build_parser
+    from triage.core.errors import TriageError
+
+    args = build_parser().parse_args(["review", str(SAMPLE), "--reviewer", "a" * 200_000])
+    with pytest.raises(TriageError) as caught:
+        _review_options(args, args.portfolio, None)
+    assert "--reviewer is 200,000 characters long" in str(caught.value)
+    args = build_parser().parse_args(["review", str(SAMPLE), "--reviewer", "Ana\x1b[2J"])
+    with pytest.raises(TriageError) as caught:
+        _review_options(args, args.portfolio, None)
+    assert "U+001B" in str(caught.value)

@@ -44,6 +44,7 @@ import calendar
 import codecs
 import collections
 import concurrent.futures
+import contextlib
 import csv
 import datetime as dt
 import io
@@ -306,6 +307,54 @@ class _Raw:
 
 def _fail(path: Path, message: str, hint: str | None = None) -> NoReturn:
     raise LoadError(path, message, hint=hint)
+
+
+#: Peak memory per row of each way of reading, in bytes: measured at 116M rows
+#: (docs/performance.md: 28, 69, 73 and 130) and rounded up. A Parquet file of a billion
+#: identical rows compresses to a few megabytes; the row count, known before any cell is read,
+#: says what reading it would take.
+BYTES_PER_ROW = {"parquet-streamed": 32, "parquet": 80, "csv-streamed": 80, "csv": 140}
+
+
+def _check_memory(path: Path, rows: int, way: str) -> None:
+    """Refuse a file whose rows would need more memory than this machine (or process) has."""
+    total = _memory_limit()
+    need = rows * BYTES_PER_ROW[way]
+    if total is not None and need > total:
+        _fail(
+            path,
+            f"the file has {rows:,} rows; reading them takes about {_bytes(need)} of memory, "
+            f"and this machine allows {_bytes(total)}.",
+            "Split the file (for example by location or by range of items) and review each "
+            "part, or run triage where more memory is available.",
+        )
+
+
+def _bytes(size: int) -> str:
+    return f"{size / 2**30:,.1f} GB" if size >= 2**30 else f"{size / 2**20:,.1f} MB"
+
+
+def _memory_limit() -> int | None:
+    """Bytes of memory this process may use: physical memory, or a lower container or
+    address-space limit; None when the system does not say."""
+    limits: list[int] = []
+    with contextlib.suppress(AttributeError, ValueError, OSError):
+        limits.append(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
+    try:
+        text = Path("/sys/fs/cgroup/memory.max").read_text().strip()
+        if text.isdigit():
+            limits.append(int(text))
+    except OSError:
+        pass
+    try:
+        import resource
+
+        soft = resource.getrlimit(resource.RLIMIT_AS)[0]
+        if soft != resource.RLIM_INFINITY and soft > 0:
+            limits.append(soft)
+    except (ImportError, AttributeError, ValueError, OSError):
+        pass
+    return min(limits) if limits else None
 
 
 def _positions(index: Any, n: int) -> np.ndarray:
@@ -659,6 +708,7 @@ def _csv_dtypes(plan: _Plan) -> tuple[dict[str, Any], dict[str, list[str]]]:
 def _read_csv(path: Path, mapping: dict[str, str], notices: list[str]) -> _Raw:
     scan = _prescan_csv(path)
     header = _csv_header(path, scan)
+    _check_memory(path, max(scan.lines - 1, 0), "csv")
     plan = _plan_columns(path, header, mapping, notices)
     width = len(header)
     names = [f"c{i}" for i in range(width)]
@@ -889,13 +939,15 @@ def _read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> _R
     import pyarrow.parquet as pq
 
     try:
-        arrow_schema = pq.read_schema(path)
+        metadata = pq.read_metadata(path)
+        arrow_schema = metadata.schema.to_arrow_schema()
     except (pa.ArrowException, OSError) as exc:
         _fail(
             path,
             f"cannot read this as a Parquet file ({exc}).",
             "Check that the file is Parquet and not damaged; export it again if needed.",
         )
+    _check_memory(path, metadata.num_rows, "parquet")
     # pandas stores an unnamed index as '__index_level_N__'; it is not data.
     keep = [
         i for i, f in enumerate(arrow_schema) if not re.fullmatch(r"__index_level_\d+__", f.name)
@@ -1348,6 +1400,7 @@ def scan_parquet(path: str | Path, *, columns: dict[str, str] | None = None) -> 
         raise FastPathDeclined("unreadable") from exc
     if file.metadata.num_rows == 0:
         raise FastPathDeclined("no rows")
+    _check_memory(file_path, file.metadata.num_rows, "parquet-streamed")
     return StreamSource(
         path=file_path,
         file=file,
@@ -1404,6 +1457,7 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
     mapping = _checked_mapping(file_path, columns)
     scan = _prescan_csv(file_path)
     header = _csv_header(file_path, scan)
+    _check_memory(file_path, max(scan.lines - 1, 0), "csv-streamed")
     notices: list[str] = []
     plan = _plan_columns(file_path, header, mapping, notices)
     if plan.unnamed:

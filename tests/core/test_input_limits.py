@@ -1,11 +1,13 @@
-"""Issue 10 §3: hostile or huge workbooks are refused early, with bounded memory; §4: damaged ones
-get a message, never a traceback.
+"""Issue 10 §3: hostile or huge inputs are refused early, with bounded memory; §4: damaged
+workbooks get a message, never a traceback.
 
 The limits are Excel's own (Microsoft, "Excel specifications and limits": 1,048,576 rows by
 16,384 columns) plus a cell count (docs/input-format.md, Limits). A workbook of a few megabytes
 can inflate to gigabytes of empty rows, and the xlsx reader keeps an object per row it has
 parsed: the rows are counted from the sheet's bytes before the reader starts, and again as they
-stream in (row numbers can skip ahead without any bytes).
+stream in (row numbers can skip ahead without any bytes). Parquet files can hold a billion
+identical rows in a few megabytes: their row count is checked against the memory the process
+may use before a cell is read (and CSV files the same way).
 """
 
 from __future__ import annotations
@@ -166,3 +168,89 @@ def test_the_streamed_read_turns_a_damaged_sheet_into_a_message(
     error = load_error(path)
     assert "sheet 'data' cannot be read: the file is damaged or cut short" in error.message
     assert "Bad CRC-32" in error.message
+
+
+# --- Parquet and CSV: rows that would not fit in memory ------------------------------------------
+
+
+def write_parquet_bomb(path: Path, rows: int, block: int = 10_000_000) -> Path:
+    """``rows`` identical rows: run-length encoding makes a few megabytes of them."""
+    import numpy as np
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    size = min(rows, block)
+    table = pa.table(
+        {
+            "item": pa.DictionaryArray.from_arrays(
+                pa.array(np.zeros(size, dtype=np.int32)), pa.array(["A"])
+            ),
+            "period": pa.array(np.full(size, 20_000, dtype=np.int32)).cast(pa.date32()),
+            "demand": pa.array(np.ones(size)),
+            "forecast": pa.array(np.ones(size)),
+        }
+    )
+    with pq.ParquetWriter(path, table.schema, compression="zstd") as writer:
+        for start in range(0, rows, size):
+            writer.write_table(table.slice(0, min(size, rows - start)), row_group_size=size)
+    return path
+
+
+def test_a_parquet_file_of_more_rows_than_memory_holds_is_refused_before_reading(
+    tmp_path: Path,
+) -> None:
+    # 100M identical rows in about 2 MB; the process may use 2 GB (an address-space limit, as
+    # `ulimit -v` sets). Reading them would take over 3 GB: refused from the row count.
+    path = write_parquet_bomb(tmp_path / "rows.parquet", 100_000_000)
+    assert path.stat().st_size < 20_000_000
+    code = (
+        "import resource, sys\n"
+        "resource.setrlimit(resource.RLIMIT_AS, (2 << 30, resource.RLIM_INFINITY))\n"
+        "from triage.cli import main\n"
+        "sys.exit(main(sys.argv[1:]))\n"
+    )
+    done = subprocess.run(
+        [sys.executable, "-c", code, "rank", str(path)],
+        capture_output=True,
+        text=True,
+        cwd=ROOT,
+        timeout=300,
+    )
+    assert done.returncode == 2, done.stderr
+    assert "Traceback" not in done.stderr
+    assert "the file has 100,000,000 rows; reading them takes about" in done.stderr
+    assert "Split the file" in done.stderr
+
+
+@pytest.mark.parametrize("kind", ["csv", "parquet"])
+def test_both_ways_of_reading_check_the_rows_against_memory(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, kind: str
+) -> None:
+    import pandas as pd
+
+    from triage.core.errors import LoadError
+    from triage.core.portfolio import read_portfolio
+
+    frame = pd.DataFrame(
+        {
+            "item": ["A"] * 1000,
+            "period": pd.date_range("2020-01-06", periods=1000, freq="W-MON"),
+            "demand": 1.0,
+            "forecast": 2.0,
+        }
+    )
+    path = tmp_path / f"p.{kind}"
+    if kind == "csv":
+        frame.to_csv(path, index=False, date_format="%Y-%m-%d")
+    else:
+        frame.to_parquet(path, index=False)
+    assert read_portfolio(path).rows == 1000
+    # Enough for the streamed way, not for the full loader.
+    monkeypatch.setattr(load, "_memory_limit", lambda: 1000 * load.BYTES_PER_ROW[kind] - 1)
+    assert read_portfolio(path).rows == 1000
+    with pytest.raises(LoadError) as caught:
+        load_frame(path)
+    assert "the file has 1,000 rows" in str(caught.value)
+    monkeypatch.setattr(load, "_memory_limit", lambda: 1000)
+    with pytest.raises(LoadError):
+        read_portfolio(path)
