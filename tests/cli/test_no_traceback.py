@@ -203,3 +203,34 @@ def test_a_reviewer_name_the_ledger_cannot_store_is_refused_before_the_screens_o
     with pytest.raises(TriageError) as caught:
         _review_options(args, args.portfolio, None)
     assert "U+001B" in str(caught.value)
+
+
+def test_damaged_parquet_pages_are_a_message(tmp_path: Path) -> None:
+    # The footer is intact (the streamed reader opens the file), the first data page is not:
+    # the error comes while row groups are read.
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    table = pa.table(
+        {
+            "item": [f"I{n % 50}" for n in range(5000)],
+            "period": pa.array([20_000 + 7 * (n // 50) for n in range(5000)], pa.int32()).cast(
+                pa.date32()
+            ),
+            "demand": [float(n) for n in range(5000)],
+            "forecast": [float(n) for n in range(5000)],
+        }
+    )
+    path = tmp_path / "p.parquet"
+    pq.write_table(table, path, compression="snappy")
+    assert run("rank", str(path), "--format", "csv").returncode == 0
+    raw = path.read_bytes()
+    path.write_bytes(raw[:100] + bytes(200) + raw[300:])
+    refused(run("rank", str(path)), "cannot read the Parquet data")
+
+
+@pytest.mark.parametrize("option", ["--season", "--window"])
+def test_a_window_or_season_beyond_any_integer_is_a_message(option: str) -> None:
+    result = run("rank", str(SAMPLE), option, "99999999999999999999")
+    assert result.returncode == 2 and "Traceback" not in result.stderr
+    assert f"{option} counts periods: at most 10,000" in result.stderr

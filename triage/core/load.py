@@ -1239,6 +1239,7 @@ class StreamSource:
             last: These columns are not read again: blocks held in memory (CSV) let go of
                 them once converted.
         """
+        import pyarrow as pa
         import pyarrow.parquet as pq
 
         wanted = [self.columns[n] for n in (*names, *sparse)]
@@ -1252,7 +1253,11 @@ class StreamSource:
                 local.file = pq.ParquetFile(
                     self.path, read_dictionary=self._plain_text, metadata=self.file.metadata
                 )
-            return local.file.read_row_group(group, columns=wanted, use_threads=False)
+            try:
+                return local.file.read_row_group(group, columns=wanted, use_threads=False)
+            except (pa.ArrowException, OSError) as exc:
+                # Damaged pages: the full loader reads the file and words the error.
+                raise FastPathDeclined("unreadable row group") from exc
 
         groups = range(len(self.tables) if self.tables is not None else self.file.num_row_groups)
         workers = max(1, min(2, os.cpu_count() or 1))
