@@ -2521,8 +2521,9 @@ def _ids(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.Serie
             f"Every row needs {'an item id' if role == schema.ITEM else 'a location'}: "
             "fill it in, or delete the rows.",
         )
-    _check_id_length(ctx, position, text, role)
-    _note_lookalikes(ctx, position, text)
+    distinct = _distinct_ids(text)
+    _check_id_length(ctx, position, text, distinct, role)
+    _note_lookalikes(ctx, position, distinct)
     if suspect and bool(strings.str.contains(_BIDI_PATTERN, regex=True, na=False).any()):
         ctx.notices.append(
             f"Column {_label(ctx.plan, position)} has ids containing bidirectional text controls "
@@ -2533,20 +2534,23 @@ def _ids(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.Serie
     return text
 
 
-def _check_id_length(ctx: _Context, position: int, text: pd.Series, role: str) -> None:
-    """Refuse ids the decision ledger could not store, here rather than at every save."""
+def _distinct_ids(text: pd.Series) -> pd.Series:
+    """The distinct ids a column holds (categories no row uses are left out)."""
     if isinstance(text.dtype, pd.CategoricalDtype):
-        lengths = text.cat.categories.str.len().to_numpy()
-        if not len(lengths) or lengths.max() <= TEXT_MAX:
-            return
-        long_rows = np.isin(_codes(text), np.flatnonzero(lengths > TEXT_MAX))
-    else:
-        lengths = text.str.len().to_numpy(dtype=np.float64, na_value=0)
-        if not len(lengths) or lengths.max() <= TEXT_MAX:
-            return
-        long_rows = lengths > TEXT_MAX
-    if not long_rows.any():
-        return  # only categories no row uses any more (left by skipped blank rows)
+        codes = _codes(text)
+        used = np.bincount(codes[codes >= 0], minlength=len(text.cat.categories)) > 0
+        return pd.Series(text.cat.categories[used], dtype=str)
+    return pd.Series(pd.unique(text.dropna()), dtype=str)
+
+
+def _check_id_length(
+    ctx: _Context, position: int, text: pd.Series, distinct: pd.Series, role: str
+) -> None:
+    """Refuse ids the decision ledger could not store, here rather than at every save."""
+    lengths = distinct.str.len().to_numpy()
+    if not len(lengths) or lengths.max() <= TEXT_MAX:
+        return
+    long_rows = text.isin(distinct[lengths > TEXT_MAX]).to_numpy(dtype=bool)
     what = "item ids" if role == schema.ITEM else "locations"
     ctx.fail(
         position,
@@ -2583,14 +2587,8 @@ def _lookalike_candidates(ids: pd.Series) -> np.ndarray:
     return ids.str.contains(_LOOKALIKE_CANDIDATE, regex=True).to_numpy(dtype=bool)
 
 
-def _note_lookalikes(ctx: _Context, position: int, text: pd.Series) -> None:
+def _note_lookalikes(ctx: _Context, position: int, ids: pd.Series) -> None:
     """Notice ids that look alike but differ: kept apart, but the reviewer should know."""
-    if isinstance(text.dtype, pd.CategoricalDtype):
-        codes = _codes(text)
-        used = np.bincount(codes[codes >= 0], minlength=len(text.cat.categories)) > 0
-        ids = pd.Series(text.cat.categories[used], dtype=str)
-    else:
-        ids = pd.Series(pd.unique(text.dropna()), dtype=str)
     candidate = _lookalike_candidates(ids)
     if not candidate.any():
         return
