@@ -76,12 +76,18 @@ def refuse_overwriting(
     refuse_existing(targets, force=force)
 
 
+#: Most periods --window and --season may count (almost two centuries of weeks); a larger
+#: number is a typo, and would not fit the integer types of the measures.
+PERIODS_MAX = 10_000
+
+
 def check_score_args(args: argparse.Namespace) -> None:
-    """Refuse a window or season below 1 with the option's name."""
-    if args.window < 1:
-        raise TriageError(f"--window must be at least 1, not {args.window}.")
-    if args.season < 1:
-        raise TriageError(f"--season must be at least 1, not {args.season}.")
+    """Refuse a window or season below 1 or above ``PERIODS_MAX`` with the option's name."""
+    for option, value in (("--window", args.window), ("--season", args.season)):
+        if value < 1:
+            raise TriageError(f"{option} must be at least 1, not {value}.")
+        if value > PERIODS_MAX:
+            raise TriageError(f"{option} counts periods: at most {PERIODS_MAX:,}, not {value}.")
 
 
 def open_ledger_read_only(path: Path, config: Config) -> Ledger:

@@ -100,10 +100,15 @@ def _review_args(parser: argparse.ArgumentParser, *, ledger: bool = True) -> Non
 
 
 def main(argv: Sequence[str] | None = None) -> int:
-    """Entry point of the ``triage`` console script."""
-    parser = build_parser()
-    args = parser.parse_args(argv)
+    """Entry point of the ``triage`` console script.
+
+    Exit codes: 0 done, 2 a problem the user can fix (the message says what to do), 1 an
+    unexpected error (a bug: one line on standard error naming the log file that holds the
+    traceback), 130 interrupted with Ctrl+C.
+    """
     try:
+        parser = build_parser()
+        args = parser.parse_args(argv)
         return int(args.handler(args) or 0)
     except TriageError as exc:
         print(f"triage: {exc}", file=sys.stderr)
@@ -114,6 +119,56 @@ def main(argv: Sequence[str] | None = None) -> int:
         # Output piped into `head` and closed early: not an error for the user.
         sys.stderr.close()
         return 0
+    except Exception as exc:  # the last guard: no traceback reaches the user
+        return _unexpected(exc, sys.argv[1:] if argv is None else list(argv))
+
+
+#: Crash logs kept in the log folder; older ones are removed when a new one is written.
+CRASH_LOGS_KEPT = 20
+
+
+def _unexpected(exc: Exception, argv: list[str]) -> int:
+    """Report an error triage did not expect: one line, and the traceback in a log file."""
+    from triage.core.text import visible
+
+    what = visible(f"{type(exc).__name__}: {exc}")[:300]
+    try:
+        log = _write_crash_log(exc, argv)
+    except Exception as failure:  # the report must get out whatever happens
+        saved = f"The details could not be saved ({visible(str(failure))[:200]})."
+    else:
+        saved = f"The details are in {visible(str(log))}; please send that file with a report."
+    print(
+        f"triage: unexpected error ({what}); this is a fault in triage, not in your data. {saved}",
+        file=sys.stderr,
+    )
+    return 1
+
+
+def _write_crash_log(exc: Exception, argv: list[str]) -> Path:
+    """Write the traceback, the command line and versions to a new file in the log folder."""
+    import datetime as dt
+    import os
+    import platform
+    import traceback
+
+    from platformdirs import user_log_dir
+
+    from triage.core.files import write_text_atomic
+
+    folder = Path(user_log_dir("triage"))
+    folder.mkdir(parents=True, exist_ok=True)
+    stamp = dt.datetime.now(dt.UTC).strftime("%Y%m%dT%H%M%S.%fZ")
+    path = folder / f"crash-{stamp}-{os.getpid()}.log"
+    text = (
+        f"triage {__version__}, Python {platform.python_version()}, {platform.platform()}\n"
+        f"command: triage {argv!r}\n\n" + "".join(traceback.format_exception(exc))
+    )
+    write_text_atomic(path, text, force=False)
+    old = sorted(folder.glob("crash-*.log"))[:-CRASH_LOGS_KEPT]
+    for stale in old:
+        stale.unlink(missing_ok=True)
+    return path
 
 
 def _load(args: argparse.Namespace):
@@ -176,7 +231,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
 
 
 def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | None):
-    from triage.core.config import default_reviewer, load_config
+    from triage.core.config import default_reviewer, load_config, reviewer_problem
     from triage.core.load import parse_column_map
     from triage.tui.app import Options
 
@@ -185,10 +240,15 @@ def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | No
     if not 0 < target <= 1:
         raise TriageError(f"--target must be a share in (0, 1], e.g. 0.8, not {args.target}.")
     columns = parse_column_map(args.columns) if getattr(args, "columns", None) else None
+    reviewer = args.reviewer or default_reviewer(config)
+    problem = reviewer_problem(reviewer)
+    if problem:
+        where = "--reviewer" if args.reviewer else "the login name used as reviewer"
+        raise TriageError(f"{where} {problem}.", hint="Pass a plain name with --reviewer NAME.")
     return Options(
         portfolio=portfolio,
         ledger=ledger,
-        reviewer=args.reviewer or default_reviewer(config),
+        reviewer=reviewer,
         window=getattr(args, "window", 13),
         season=getattr(args, "season", 1),
         columns=columns,

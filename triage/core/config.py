@@ -19,6 +19,7 @@ import getpass
 import math
 import re
 import tomllib
+import unicodedata
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -26,6 +27,8 @@ from typing import Any
 from triage.core.errors import TriageError
 
 CONFIG_NAME = "config.toml"
+#: Largest configuration file read, in bytes.
+CONFIG_MAX_BYTES = 1 << 20
 
 #: Digits offered as shortcuts, in list order ("0" is the tenth entry, as on a keyboard row).
 SHORTCUT_DIGITS = "1234567890"
@@ -124,15 +127,29 @@ def load_config(path: str | Path | None = None) -> Config:
     """
     if path is None:
         file = default_config_path()
-        if not file.is_file():
+        if not file.exists():
             return Config()
     else:
         file = Path(path)
-        if not file.is_file():
-            raise ConfigError(
-                file, None, "no such configuration file", hint="Check the --config path."
-            )
+    if file.is_dir():
+        raise ConfigError(
+            file,
+            None,
+            "is a folder, not a configuration file",
+            hint=f"Give the path of the TOML file itself, e.g. {file / CONFIG_NAME}.",
+        )
+    if not file.is_file():
+        raise ConfigError(file, None, "no such configuration file", hint="Check the --config path.")
     try:
+        size = file.stat().st_size
+        if size > CONFIG_MAX_BYTES:
+            raise ConfigError(
+                file,
+                None,
+                f"is {size:,} bytes long; a configuration file is a few lines (at most "
+                f"{CONFIG_MAX_BYTES:,} bytes are read)",
+                hint="Check that --config names the configuration file, not a data file.",
+            )
         data = tomllib.loads(file.read_text(encoding="utf-8"))
     except UnicodeDecodeError as exc:
         raise ConfigError(file, None, f"is not UTF-8 text ({exc.reason})") from exc
@@ -141,6 +158,14 @@ def load_config(path: str | Path | None = None) -> Config:
     except tomllib.TOMLDecodeError as exc:
         raise ConfigError(
             file, None, f"is not valid TOML: {exc}", hint="Fix the line named above."
+        ) from exc
+    except RecursionError as exc:
+        # The TOML parser descends once per nested array or inline table.
+        raise ConfigError(
+            file,
+            None,
+            "nests arrays or tables too deeply to be read",
+            hint="A configuration needs no nesting beyond [root_causes]; rewrite the file.",
         ) from exc
     return _parse(file, data)
 
@@ -155,6 +180,11 @@ def _parse(file: Path, data: dict[str, Any]) -> Config:
     reviewer = data.get("reviewer")
     if reviewer is not None and (not isinstance(reviewer, str) or not reviewer.strip()):
         raise ConfigError(file, "reviewer", 'must be a non-empty text, e.g. reviewer = "Ana"')
+    problem = reviewer_problem(reviewer) if reviewer is not None else None
+    if problem:
+        raise ConfigError(
+            file, "reviewer", problem, hint='Write a plain name, e.g. reviewer = "Ana".'
+        )
     share = data.get("target_share", DEFAULT_TARGET_SHARE)
     if isinstance(share, bool) or not isinstance(share, int | float):
         raise ConfigError(file, "target_share", f"must be a number, not {share!r}")
@@ -207,6 +237,32 @@ def _parse_causes(file: Path, table: Any) -> tuple[Choice, ...]:
             )
         pairs.append((code, label.strip()))
     return numbered(pairs)
+
+
+def reviewer_problem(name: str) -> str | None:
+    """Why ``name`` cannot be stored as a reviewer's name, or None when it can.
+
+    The ledger stores at most ``ledger.TEXT_MAX`` characters; line breaks, control characters
+    and bidirectional controls would make the name show as something else in the history.
+    """
+    from triage.core.ledger import TEXT_MAX  # ledger imports this module: import when used
+    from triage.core.text import BIDI_CONTROLS
+
+    if len(name) > TEXT_MAX:
+        return f"is {len(name):,} characters long; a reviewer's name may have at most {TEXT_MAX:,}"
+    odd = sorted(
+        {
+            f"U+{ord(ch):04X}"
+            for ch in name
+            if unicodedata.category(ch) in ("Cc", "Zl", "Zp") or ord(ch) in BIDI_CONTROLS
+        }
+    )
+    if odd:
+        return (
+            f"contains control or line-break characters ({', '.join(odd[:5])}), which a name "
+            "shown in the decision history may not hold"
+        )
+    return None
 
 
 def default_reviewer(config: Config | None = None) -> str:

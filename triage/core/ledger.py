@@ -678,6 +678,15 @@ class Ledger:
         """
         target = Path(path).expanduser().absolute()
         causes = tuple(root_causes) if root_causes is not None else DEFAULT_ROOT_CAUSES
+        if target.is_symlink() and not target.exists():
+            # The ledger the link pointed to has moved or gone: a new, empty ledger in its place
+            # would hide the loss of every decision in it.
+            raise LedgerError(
+                f"{target} is a symbolic link to {os.readlink(target)}, which does not exist "
+                "(or the link points to itself); no ledger was opened or created",
+                path=target,
+                hint="Restore the ledger the link points to, or fix or remove the link.",
+            )
         if target.is_dir():
             raise LedgerError(
                 f"{target} is a folder, not a ledger file",

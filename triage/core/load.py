@@ -44,6 +44,7 @@ import calendar
 import codecs
 import collections
 import concurrent.futures
+import contextlib
 import csv
 import datetime as dt
 import io
@@ -51,8 +52,10 @@ import itertools
 import os
 import re
 import threading
+import unicodedata
 import warnings
 import zipfile
+import zlib
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
@@ -63,6 +66,7 @@ import pandas as pd
 
 from triage.core import schema
 from triage.core.errors import LoadError, TriageError, format_rows
+from triage.core.ledger import TEXT_MAX
 
 __all__ = [
     "SUFFIXES",
@@ -96,21 +100,46 @@ _CONTROL_TABLE: dict[int, str] = {
 # Python's re, per cell), and bidi characters must not appear literally in source code.
 _BIDI_PATTERN = f"[{chr(0x202A)}-{chr(0x202E)}{chr(0x2066)}-{chr(0x2069)}]"
 _SUSPECT_PATTERN = f"{_CONTROL_PATTERN}|{_BIDI_PATTERN}"
+# Look-alike ids (issue 10 §7): ids that differ only in what does not show. Characters that do
+# not show: format characters (Unicode category Cf: zero-width space and joiners, word joiner,
+# byte-order mark, soft hyphen, bidi marks) and the fillers that render blank. Spaces: every
+# Unicode space, line and paragraph separator. Written as code points, for both regex engines.
+_INVISIBLE = "".join(
+    chr(c)
+    for c in (
+        0x00AD, 0x034F, 0x061C, 0x115F, 0x1160, 0x17B4, 0x17B5, 0x180E,
+        *range(0x200B, 0x2010), *range(0x202A, 0x202F), *range(0x2060, 0x2070),
+        0x3164, 0xFEFF, 0xFFA0,
+    )
+)  # fmt: skip
+_SPACES = "".join(
+    chr(c)
+    for c in (0x20, 0x85, 0xA0, 0x1680, *range(0x2000, 0x200B), 0x2028, 0x2029, 0x202F, 0x205F,
+              0x3000)
+)  # fmt: skip
+#: An id that may look like another: not ASCII, or a space at an end or two spaces in a row.
+_LOOKALIKE_CANDIDATE = f"[{chr(0x80)}-{chr(0x10FFFF)}]|^ | $|  "
 
 # float64 holds every whole number exactly only up to 2**53 (IEEE 754 binary64, 53-bit significand).
 _MAX_MAGNITUDE = float(2**53)
-_ISO_DATE = re.compile(r"^(\d{4})-(\d{2})(?:-(\d{2}))?(?:[T ]00:00(?::00(?:\.0+)?)?)?$")
+# Digits are [0-9]: \d would also match Arabic-Indic, full-width and other digits, which
+# Python's float() and int() read but docs/input-format.md does not accept (plain numbers only).
+_ISO_DATE = re.compile(r"^([0-9]{4})-([0-9]{2})(?:-([0-9]{2}))?(?:[T ]00:00(?::00(?:\.0+)?)?)?$")
 _FIRST_YEAR, _LAST_YEAR = 1900, 2199
+#: Largest forecast lag, in periods (almost two centuries of weeks): a larger number is a typo
+#: or another column, and would not fit the integer types lags are held in.
+LAG_MAX = 10_000
 #: Nanoseconds per day, and the day numbers (since 1970-01-01) of the accepted year range.
 _DAY_NS = 86_400 * 10**9
 _FIRST_DAY = (dt.date(_FIRST_YEAR, 1, 1) - dt.date(1970, 1, 1)).days
 _LAST_DAY = (dt.date(_LAST_YEAR, 12, 31) - dt.date(1970, 1, 1)).days
 _UNITS_PER_DAY = {"s": 86_400, "ms": 86_400_000, "us": 86_400 * 10**6, "ns": _DAY_NS}
-_NUMBER = r"^[+-]?(?:\d+\.?\d*|\.\d+)(?:[eE][+-]?\d+)?$|^[+-]?(?:inf|infinity)$"
-_INTEGER = r"^[+-]?\d+(?:\.0*)?$"
+_NUMBER = r"^[+-]?(?:[0-9]+\.?[0-9]*|\.[0-9]+)(?:[eE][+-]?[0-9]+)?$|^[+-]?(?:inf|infinity)$"
+_INTEGER = r"^[+-]?[0-9]+(?:\.0*)?$"
 _EXCEL_ERRORS = ("#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#NULL!", "#N/A", "#SPILL!")
 _CHUNK = 1 << 23
 _HEADER_BYTES = 1 << 20
+#: Bytes a workbook may unpack to, all parts together (the size its zip directory declares).
 _MAX_XLSX_UNPACKED = 2 << 30
 _SHOWN = 3
 #: Column order of the canonical frame; attributes follow in file order.
@@ -278,6 +307,54 @@ class _Raw:
 
 def _fail(path: Path, message: str, hint: str | None = None) -> NoReturn:
     raise LoadError(path, message, hint=hint)
+
+
+#: Peak memory per row of each way of reading, in bytes: measured at 116M rows
+#: (docs/performance.md: 28, 69, 73 and 130) and rounded up. A Parquet file of a billion
+#: identical rows compresses to a few megabytes; the row count, known before any cell is read,
+#: says what reading it would take.
+BYTES_PER_ROW = {"parquet-streamed": 32, "parquet": 80, "csv-streamed": 80, "csv": 140}
+
+
+def _check_memory(path: Path, rows: int, way: str) -> None:
+    """Refuse a file whose rows would need more memory than this machine (or process) has."""
+    total = _memory_limit()
+    need = rows * BYTES_PER_ROW[way]
+    if total is not None and need > total:
+        _fail(
+            path,
+            f"the file has {rows:,} rows; reading them takes about {_bytes(need)} of memory, "
+            f"and this machine allows {_bytes(total)}.",
+            "Split the file (for example by location or by range of items) and review each "
+            "part, or run triage where more memory is available.",
+        )
+
+
+def _bytes(size: int) -> str:
+    return f"{size / 2**30:,.1f} GB" if size >= 2**30 else f"{size / 2**20:,.1f} MB"
+
+
+def _memory_limit() -> int | None:
+    """Bytes of memory this process may use: physical memory, or a lower container or
+    address-space limit; None when the system does not say."""
+    limits: list[int] = []
+    with contextlib.suppress(AttributeError, ValueError, OSError):
+        limits.append(os.sysconf("SC_PAGE_SIZE") * os.sysconf("SC_PHYS_PAGES"))
+    try:
+        text = Path("/sys/fs/cgroup/memory.max").read_text().strip()
+        if text.isdigit():
+            limits.append(int(text))
+    except OSError:
+        pass
+    try:
+        import resource
+
+        soft = resource.getrlimit(resource.RLIMIT_AS)[0]
+        if soft != resource.RLIM_INFINITY and soft > 0:
+            limits.append(soft)
+    except (ImportError, AttributeError, ValueError, OSError):
+        pass
+    return min(limits) if limits else None
 
 
 def _positions(index: Any, n: int) -> np.ndarray:
@@ -631,6 +708,7 @@ def _csv_dtypes(plan: _Plan) -> tuple[dict[str, Any], dict[str, list[str]]]:
 def _read_csv(path: Path, mapping: dict[str, str], notices: list[str]) -> _Raw:
     scan = _prescan_csv(path)
     header = _csv_header(path, scan)
+    _check_memory(path, max(scan.lines - 1, 0), "csv")
     plan = _plan_columns(path, header, mapping, notices)
     width = len(header)
     names = [f"c{i}" for i in range(width)]
@@ -861,13 +939,15 @@ def _read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> _R
     import pyarrow.parquet as pq
 
     try:
-        arrow_schema = pq.read_schema(path)
+        metadata = pq.read_metadata(path)
+        arrow_schema = metadata.schema.to_arrow_schema()
     except (pa.ArrowException, OSError) as exc:
         _fail(
             path,
             f"cannot read this as a Parquet file ({exc}).",
             "Check that the file is Parquet and not damaged; export it again if needed.",
         )
+    _check_memory(path, metadata.num_rows, "parquet")
     # pandas stores an unnamed index as '__index_level_N__'; it is not data.
     keep = [
         i for i, f in enumerate(arrow_schema) if not re.fullmatch(r"__index_level_\d+__", f.name)
@@ -1005,6 +1085,8 @@ class _Dictionary:
     values: list[str] = field(default_factory=list)
     blank: list[bool] = field(default_factory=list)
     has_blank: bool = False
+    lookalikes: dict[str, str] = field(default_factory=dict)
+    """How ids that may look like others look (see :func:`lookalike_keys`) -> the first such id."""
 
     def codes(
         self, chunk: Any, positions: np.ndarray | None = None, out: np.ndarray | None = None
@@ -1054,6 +1136,10 @@ class _Dictionary:
         if pc.any(pc.match_substring_regex(array, pattern)).as_py():
             raise FastPathDeclined("control characters")
         blank = [False] * len(fresh)
+        if self.is_id and pc.max(pc.utf8_length(array)).as_py() > TEXT_MAX:
+            raise FastPathDeclined("id too long")
+        if self.is_id:
+            self._check_lookalikes(array, fresh)
         if self.is_id:
             # Both notions of white space (Python's and Arrow's): whichever the full loader
             # applies, an id this path keeps is one it keeps too.
@@ -1064,6 +1150,27 @@ class _Dictionary:
             self.index[value] = len(self.values)
             self.values.append(value)
         self.blank.extend(blank)
+
+    def _check_lookalikes(self, array: Any, fresh: list[str]) -> None:
+        """Decline when an id looks like another one (the full loader words the notice)."""
+        import pyarrow as pa
+        import pyarrow.compute as pc
+
+        candidate = pc.match_substring_regex(array, _LOOKALIKE_CANDIDATE)
+        plain = array
+        if pc.any(candidate).as_py():
+            originals = pc.filter(array, candidate).to_pylist()
+            keys = lookalike_keys(pd.Series(originals, dtype=str)).tolist()
+            others = set(fresh)
+            for original, key in zip(originals, keys, strict=True):
+                seen = self.lookalikes.setdefault(key, original)
+                if seen != original or (key != original and (key in self.index or key in others)):
+                    raise FastPathDeclined("look-alike ids")
+            plain = pc.filter(array, pc.invert(candidate))
+        if self.lookalikes and len(plain):
+            known = pa.array(list(self.lookalikes), type=pa.string())
+            if pc.any(pc.is_in(plain, value_set=known)).as_py():
+                raise FastPathDeclined("look-alike ids")
 
 
 @dataclass
@@ -1132,6 +1239,7 @@ class StreamSource:
             last: These columns are not read again: blocks held in memory (CSV) let go of
                 them once converted.
         """
+        import pyarrow as pa
         import pyarrow.parquet as pq
 
         wanted = [self.columns[n] for n in (*names, *sparse)]
@@ -1145,7 +1253,11 @@ class StreamSource:
                 local.file = pq.ParquetFile(
                     self.path, read_dictionary=self._plain_text, metadata=self.file.metadata
                 )
-            return local.file.read_row_group(group, columns=wanted, use_threads=False)
+            try:
+                return local.file.read_row_group(group, columns=wanted, use_threads=False)
+            except (pa.ArrowException, OSError) as exc:
+                # Damaged pages: the full loader reads the file and words the error.
+                raise FastPathDeclined("unreadable row group") from exc
 
         groups = range(len(self.tables) if self.tables is not None else self.file.num_row_groups)
         workers = max(1, min(2, os.cpu_count() or 1))
@@ -1233,7 +1345,7 @@ class StreamSource:
             return days
         if name == schema.LAG:
             lags = chunk.to_numpy()
-            if lags.min() < 0 or lags.max() > np.iinfo(np.int32).max:
+            if lags.min() < 0 or lags.max() > LAG_MAX:
                 raise FastPathDeclined("lag range")
             return lags.astype(np.int64)
         numbers = _float_values(chunk)
@@ -1293,6 +1405,7 @@ def scan_parquet(path: str | Path, *, columns: dict[str, str] | None = None) -> 
         raise FastPathDeclined("unreadable") from exc
     if file.metadata.num_rows == 0:
         raise FastPathDeclined("no rows")
+    _check_memory(file_path, file.metadata.num_rows, "parquet-streamed")
     return StreamSource(
         path=file_path,
         file=file,
@@ -1349,6 +1462,7 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
     mapping = _checked_mapping(file_path, columns)
     scan = _prescan_csv(file_path)
     header = _csv_header(file_path, scan)
+    _check_memory(file_path, max(scan.lines - 1, 0), "csv-streamed")
     notices: list[str] = []
     plan = _plan_columns(file_path, header, mapping, notices)
     if plan.unnamed:
@@ -1445,6 +1559,57 @@ _CSV_BLOCK_BYTES = 1 << 24
 
 # --- xlsx ----------------------------------------------------------------------------------------
 
+#: Rows and columns of the largest sheet triage reads: Excel's own limits (Microsoft, "Excel
+#: specifications and limits"). Rows are counted as they stream in, empty rows included.
+XLSX_MAX_ROWS = 1_048_576
+XLSX_MAX_COLUMNS = 16_384
+#: Cells read from one sheet, each row counted up to its last cell (empty cells included), and
+#: shared strings in one workbook: what bounds the time and memory of an xlsx read.
+XLSX_MAX_CELLS = 20_000_000
+#: Longest text between two XML tags of a sheet or the shared strings, in bytes. A cell holds at
+#: most 32,767 characters in Excel, at most 10 bytes each as a character reference (&#x10FFFF;).
+_XLSX_MAX_TEXT_BYTES = 1 << 20
+#: Largest part other than worksheets, shared strings and pictures (workbook, styles, content
+#: types, relationships, chart sheets): the reader parses those whole.
+_XLSX_MAX_PART = 64 << 20
+#: Bytes of XML scanned at a time: small, so that the scan's own peak stays low.
+_XLSX_CHUNK = 1 << 20
+#: What the xlsx reader raises on a damaged or malformed part (ParseError is a SyntaxError; a bad
+#: CRC is a BadZipFile; a row or cell it cannot make sense of is a ValueError, KeyError,
+#: IndexError, TypeError or AttributeError from inside the reader).
+_XLSX_DAMAGED: tuple[type[Exception], ...] = (
+    SyntaxError,
+    zipfile.BadZipFile,
+    zlib.error,
+    EOFError,
+    ValueError,
+    KeyError,
+    IndexError,
+    TypeError,
+    AttributeError,
+    OverflowError,
+)
+_XLSX_TOO_LARGE_HINT = (
+    "Save the data as CSV UTF-8 or Parquet, which triage reads in blocks without these limits; "
+    "if the data itself is small, delete the empty rows and columns after it in Excel and save "
+    "again."
+)
+_XLSX_DAMAGED_HINT = (
+    "Open the file in Excel or LibreOffice and save it again, or export the data again (as CSV "
+    "UTF-8 if you can); if the file was downloaded or sent, fetch it again."
+)
+#: Tags the part scan counts: rows, cells, formulas (sheets) and shared strings, any prefix.
+_XML_ELEMENT = re.compile(rb"<(?:[A-Za-z_][\w.\-]*:)?(row|c|f|si)[\s/>]")
+_SHEET_DATA = re.compile(rb"<(/?)(?:[A-Za-z_][\w.\-]*:)?sheetData([\s/>])")
+_SHEET_DATA_END = re.compile(rb"</(?:[A-Za-z_][\w.\-]*:)?sheetData[\s>]")
+_DIMENSION = re.compile(rb"<(?:[A-Za-z_][\w.\-]*:)?dimension[\s/>]")
+#: Tags a cell may take inside <sheetData> (opening and closing: <c><f></f><v></v></c> is 6),
+#: and tags a sheet may hold besides its rows and cells (column widths, merged ranges, links).
+_XLSX_TAGS_PER_CELL = 8
+_XLSX_MAX_OTHER_TAGS = 1_000_000
+_PICTURE_SUFFIXES = (".bin", ".png", ".jpg", ".jpeg", ".gif", ".bmp", ".tif", ".tiff", ".emf",
+                     ".wmf", ".svg", ".wdp")  # fmt: skip
+
 
 def _read_xlsx(
     path: Path, mapping: dict[str, str], sheet: str | None, notices: list[str]
@@ -1452,7 +1617,7 @@ def _read_xlsx(
     import openpyxl
     from openpyxl.utils.exceptions import InvalidFileException
 
-    _check_unpacked_size(path)
+    scans = _check_archive(path)
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", category=UserWarning, module="openpyxl")
         try:
@@ -1463,24 +1628,23 @@ def _read_xlsx(
                 f"cannot open this as an Excel workbook ({exc}).",
                 "Check that it is an .xlsx file saved by Excel or LibreOffice, not damaged.",
             )
+        except _XLSX_DAMAGED as exc:
+            _unopenable(path, exc)
         try:
             worksheet = _pick_sheet(path, book, sheet, notices)
-            worksheet.reset_dimensions()
-            values = list(worksheet.iter_rows(values_only=True))
+            name = worksheet.title
             sheet_path = getattr(worksheet, "_worksheet_path", None)
+            scan = None
+            if sheet_path:
+                scan = scans.get(sheet_path.lstrip("/")) or _scan_sheet(path, sheet_path, name)
+            worksheet.reset_dimensions()
+            rows = _stream_sheet(path, worksheet, name)
         finally:
             book.close()
-    name = worksheet.title
-    header_at = next((i for i, row in enumerate(values) if any(v is not None for v in row)), None)
-    if header_at is None:
-        _fail(path, f"sheet '{name}' is empty.", "Choose the sheet with the data via --sheet.")
-    header_row = list(values[header_at])
-    while header_row and header_row[-1] is None:
-        header_row.pop()
+    header_at, header_row, body = rows.header_at, rows.header, rows.body
     width = len(header_row)
-    body = values[header_at + 1 :]
     filled = [v for v in header_row if v is not None and str(v).strip()]
-    if len(filled) == 1 and any(sum(v is not None for v in row) > 1 for row in body[:5]):
+    if len(filled) == 1 and rows.wide_start:
         _fail(
             path,
             f"sheet '{name}' row {header_at + 1} holds only "
@@ -1489,44 +1653,457 @@ def _read_xlsx(
             "Delete the title row (and any empty rows above the header), or unmerge the title "
             "cells, then save and load the file again.",
         )
-    for offset, row in enumerate(body):
-        if len(row) > width and any(v is not None for v in row[width:]):
-            column = width + next(i for i, v in enumerate(row[width:]) if v is not None) + 1
-            _fail(
-                path,
-                f"sheet '{name}' row {header_at + offset + 2} has a value in column "
-                f"{_column_letter(column)}, right of the last header cell: the header "
-                "is shorter than the data.",
-                "Give every column a name in the header row, or delete the extra cells.",
-            )
-    padded = [tuple(row[:width]) + (None,) * (width - len(row)) for row in body]
-    columns = list(zip(*padded, strict=True)) if padded else [() for _ in range(width)]
+    if rows.beyond is not None:
+        row_number, column = rows.beyond
+        _fail(
+            path,
+            f"sheet '{name}' row {row_number} has a value in column "
+            f"{_column_letter(column)}, right of the last header cell: the header "
+            "is shorter than the data.",
+            "Give every column a name in the header row, or delete the extra cells.",
+        )
+    n_rows = len(body)
+    columns = list(zip(*body, strict=True)) if body else [() for _ in range(width)]
+    body.clear()
     plan = _plan_columns(path, [_header_text(v) for v in header_row], mapping, notices)
     data = {
         i: pd.Series(np.array(col, dtype=object), dtype=object) for i, col in enumerate(columns)
     }
-    if sheet_path is None or _sheet_has_formulas(path, sheet_path):
+    del columns
+    if scan is None or scan.formulas:
         _check_formulas(path, name, data, plan, header_at, notices)
-    file_rows = np.arange(len(body), dtype=np.int64) + header_at + 2
+    file_rows = np.arange(n_rows, dtype=np.int64) + header_at + 2
     return _Raw(plan, data, first_row=header_at + 2, file_rows=file_rows), name
 
 
-def _check_unpacked_size(path: Path) -> None:
+@dataclass
+class _SheetRows:
+    """A sheet's rows as streamed in, with what the checks after reading need."""
+
+    header_at: int
+    """Row index (0-based) of the header, the first non-empty row."""
+    header: list[Any]
+    """Header cells, trailing empty ones dropped."""
+    body: list[tuple[Any, ...]]
+    """Data rows cut or padded to the header's width; empty rows between data rows are kept as
+    rows of None, empty rows after the data are not kept."""
+    beyond: tuple[int, int] | None
+    """The first (sheet row, column number) holding a value right of the header."""
+    wide_start: bool
+    """Whether one of the first five rows below the header has more than one value."""
+
+
+def _stream_sheet(path: Path, worksheet: Any, name: str) -> _SheetRows:
+    """Read the rows of a sheet as they stream in, keeping no empty row after the data."""
+    header_at: int | None = None
+    header_row: list[Any] = []
+    width = 0
+    body: list[tuple[Any, ...]] = []
+    blank = 0
+    beyond: tuple[int, int] | None = None
+    wide_start = False
+    for index, row in enumerate(_sheet_rows(path, worksheet, name)):
+        if header_at is None:
+            if any(v is not None for v in row):
+                header_at = index
+                header_row = list(row)
+                while header_row and header_row[-1] is None:
+                    header_row.pop()
+                width = len(header_row)
+            continue
+        if index - header_at <= 5 and sum(v is not None for v in row) > 1:
+            wide_start = True
+        if len(row) > width:
+            extra = next((i for i, v in enumerate(row[width:]) if v is not None), None)
+            if extra is not None and beyond is None:
+                beyond = (index + 1, width + extra + 1)
+            row = row[:width]
+        if all(v is None for v in row):
+            blank += 1
+            continue
+        if blank:
+            body.extend([(None,) * width] * blank)
+            blank = 0
+        body.append(row if len(row) == width else row + (None,) * (width - len(row)))
+    if header_at is None:
+        _fail(path, f"sheet '{name}' is empty.", "Choose the sheet with the data via --sheet.")
+    return _SheetRows(header_at, header_row, body, beyond, wide_start)
+
+
+def _sheet_rows(path: Path, worksheet: Any, name: str) -> Iterator[tuple[Any, ...]]:
+    """The rows of a sheet (values), counted as they come: refused past the sheet limits.
+
+    A row the reader cannot parse (malformed XML, a bad CRC, a cell it cannot convert) is
+    reported as a damaged sheet; only the reader's own calls are guarded.
+    """
+    rows = iter(worksheet.iter_rows(values_only=True))
+    count = cells = 0
+    while True:
+        try:
+            row = next(rows)
+        except StopIteration:
+            return
+        except _XLSX_DAMAGED as exc:
+            _damaged_workbook(path, f"sheet '{name}'", exc)
+        count += 1
+        cells += len(row)
+        if count > XLSX_MAX_ROWS:
+            _too_many_rows(path, name)
+        if len(row) > XLSX_MAX_COLUMNS:
+            _fail(
+                path,
+                f"sheet '{name}' row {count} has cells beyond column {XLSX_MAX_COLUMNS:,} "
+                f"({_column_letter(XLSX_MAX_COLUMNS)}), the last column of an Excel sheet.",
+                _XLSX_TOO_LARGE_HINT,
+            )
+        if cells > XLSX_MAX_CELLS:
+            _too_many_cells(path, name)
+        yield row
+
+
+def _too_many_rows(path: Path, name: str) -> NoReturn:
+    _fail(
+        path,
+        f"sheet '{name}' has more than {XLSX_MAX_ROWS:,} rows (empty rows count too), the most "
+        "an Excel sheet holds and the most triage reads from one.",
+        _XLSX_TOO_LARGE_HINT,
+    )
+
+
+def _too_many_cells(path: Path, name: str) -> NoReturn:
+    _fail(
+        path,
+        f"sheet '{name}' has more than {XLSX_MAX_CELLS:,} cells (each row counted up to its "
+        "last cell, empty cells too), more than triage reads from an xlsx sheet.",
+        _XLSX_TOO_LARGE_HINT,
+    )
+
+
+def _damaged_workbook(path: Path, where: str, exc: BaseException) -> NoReturn:
+    if isinstance(exc, SyntaxError):
+        what = f"its XML is malformed ({exc})"
+    elif isinstance(exc, zipfile.BadZipFile | zlib.error | EOFError):
+        what = f"the file is damaged or cut short ({exc})"
+    else:
+        what = (
+            f"it holds an entry the xlsx reader cannot make sense of ({type(exc).__name__}: {exc})"
+        )
+    _fail(path, f"{where} cannot be read: {what}.", _XLSX_DAMAGED_HINT)
+
+
+def _unopenable(path: Path, exc: BaseException) -> NoReturn:
+    """A workbook the reader fails on while opening it (before any sheet is read)."""
     try:
         with zipfile.ZipFile(path) as archive:
-            unpacked = sum(info.file_size for info in archive.infolist())
-    except (zipfile.BadZipFile, OSError) as exc:
+            charts = [n for n in archive.namelist() if n.lower().startswith("xl/chartsheets/")]
+    except (zipfile.BadZipFile, OSError):
+        charts = []
+    if isinstance(exc, AttributeError) and charts:
+        _fail(
+            path,
+            "cannot open this workbook: it has a chart sheet whose parts are incomplete, and the "
+            "xlsx reader stops at it before reaching any data sheet.",
+            "Open the file in Excel or LibreOffice and save it again, or delete the chart sheet, "
+            "or save the data sheet as CSV UTF-8.",
+        )
+    _damaged_workbook(path, "the workbook", exc)
+
+
+@dataclass
+class _PartScan:
+    """What one XML part of a workbook holds, counted from its bytes as it inflates."""
+
+    rows: int = 0
+    cells: int = 0
+    widest: int = 0
+    """Most cells in one row."""
+    strings: int = 0
+    formulas: bool = False
+    tags: int = 0
+    """Tags (``<`` bytes) inside ``<sheetData>``."""
+    outside: int = 0
+    """Tags before and after ``<sheetData>`` (columns, merged ranges, formatting, links)."""
+    complete: bool = True
+    """False when the scan stopped at ``<sheetData>`` (see :func:`_scan_part`)."""
+
+
+def _check_archive(path: Path) -> dict[str, _PartScan]:
+    """Refuse a workbook whose parts would take too much memory, before the reader opens it.
+
+    Every part but the worksheets, the shared strings and pictures must unpack to at most
+    ``_XLSX_MAX_PART``; the shared strings are counted; every worksheet the reader will open is
+    scanned (the reader parses a sheet whole when it opens the workbook unless a ``<dimension>``
+    element comes before the cells).
+
+    Returns:
+        The complete scans, by part name.
+    """
+    scans: dict[str, _PartScan] = {}
+    try:
+        with zipfile.ZipFile(path) as archive:
+            infos = archive.infolist()
+            unpacked = sum(info.file_size for info in infos)
+            if unpacked > _MAX_XLSX_UNPACKED:
+                _fail(
+                    path,
+                    f"the workbook unpacks to {unpacked / 2**30:.1f} GB, more than triage reads "
+                    f"from xlsx ({_MAX_XLSX_UNPACKED / 2**30:.0f} GB).",
+                    "Save the data as CSV UTF-8 or Parquet instead.",
+                )
+            names = set(archive.namelist())
+            content_types = next((i for i in infos if i.filename == "[Content_Types].xml"), None)
+            if content_types is not None and content_types.file_size > _XLSX_MAX_PART:
+                _oversized_part(path, content_types)
+            strings, workbook = _package_parts(archive) if content_types else (None, None)
+            for info in infos:
+                lower = info.filename.lower()
+                if (
+                    info.file_size > _XLSX_MAX_PART
+                    and info.filename != strings
+                    and not lower.startswith(("xl/worksheets/", "xl/media/", "xl/embeddings/"))
+                    and not lower.endswith(_PICTURE_SUFFIXES)
+                ):
+                    _oversized_part(path, info)
+            if strings is not None and strings in names:
+                scan = _scan_guarded(path, archive, strings, "the shared strings of the workbook")
+                if scan.strings > XLSX_MAX_CELLS:
+                    _fail(
+                        path,
+                        f"the workbook holds more than {XLSX_MAX_CELLS:,} different texts "
+                        "(shared strings), more than triage reads from an xlsx file.",
+                        _XLSX_TOO_LARGE_HINT,
+                    )
+            for title, member in _sheet_parts(archive, workbook) if workbook else []:
+                if member in names and member not in scans:
+                    scan = _scan_guarded(
+                        path, archive, member, f"sheet '{title}'", sheet=title, at_open=True
+                    )
+                    if scan.complete:
+                        scans[member] = scan
+    except (zipfile.BadZipFile, zlib.error, EOFError, OSError) as exc:
         _fail(
             path,
             f"cannot open this as an Excel workbook ({exc}).",
             "Check that it is an .xlsx file saved by Excel or LibreOffice, not damaged.",
         )
-    if unpacked > _MAX_XLSX_UNPACKED:
+    return scans
+
+
+def _oversized_part(path: Path, info: zipfile.ZipInfo) -> NoReturn:
+    _fail(
+        path,
+        f"the part '{_sanitize_str(info.filename)}' of the workbook unpacks to "
+        f"{info.file_size / 2**20:,.0f} MB; triage reads at most {_XLSX_MAX_PART >> 20} MB for a "
+        "part other than a sheet.",
+        _XLSX_DAMAGED_HINT,
+    )
+
+
+def _package_parts(archive: zipfile.ZipFile) -> tuple[str | None, str | None]:
+    """The shared-strings part and the workbook part, as the xlsx reader finds them.
+
+    None for both when ``[Content_Types].xml`` cannot be read: the reader then refuses the file
+    with its own message.
+    """
+    from openpyxl.packaging.manifest import Manifest
+    from openpyxl.xml.constants import ARC_WORKBOOK, SHARED_STRINGS, XLSM, XLSX, XLTM, XLTX
+    from openpyxl.xml.functions import fromstring
+
+    try:
+        package = Manifest.from_tree(fromstring(archive.read("[Content_Types].xml")))
+    except _XLSX_DAMAGED:
+        return None, None
+    found = package.find(SHARED_STRINGS)
+    strings = str(found.PartName)[1:] if found is not None else None
+    part = next((p for kind in (XLTM, XLTX, XLSM, XLSX) if (p := package.find(kind))), None)
+    return strings, str(part.PartName)[1:] if part is not None else ARC_WORKBOOK
+
+
+def _sheet_parts(archive: zipfile.ZipFile, workbook: str) -> list[tuple[str, str]]:
+    """(title, part) of every worksheet the xlsx reader opens, in workbook order."""
+    from openpyxl.reader.workbook import WorkbookParser
+
+    try:
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            parser = WorkbookParser(archive, workbook, keep_links=False)
+            parser.parse()
+            return [
+                (str(sheet.name), str(rel.target))
+                for sheet, rel in parser.find_sheets()
+                if "chartsheet" not in str(rel.Type)
+            ]
+    except _XLSX_DAMAGED:
+        return []  # the reader refuses the file with its own message
+
+
+def _scan_guarded(
+    path: Path,
+    archive: zipfile.ZipFile,
+    member: str,
+    where: str,
+    *,
+    sheet: str | None = None,
+    at_open: bool = False,
+) -> _PartScan:
+    """:func:`_scan_part`, with a damaged part (bad CRC, bad deflate data) named as such."""
+    try:
+        return _scan_part(path, archive, member, where, sheet=sheet, at_open=at_open)
+    except (zipfile.BadZipFile, zlib.error, EOFError) as exc:
+        _damaged_workbook(path, where, exc)
+
+
+def _scan_sheet(path: Path, member: str, name: str) -> _PartScan | None:
+    """Count a sheet's rows and cells from its XML before the reader parses it; refuse early.
+
+    The reader builds each row whole and keeps an object per row it has parsed, so a sheet of
+    millions of empty rows, or one row of millions of cells, compresses to a small file and
+    would take gigabytes: this byte scan refuses it within the first megabytes. It also tells
+    whether the sheet has formulas at all.
+    """
+    try:
+        with zipfile.ZipFile(path) as archive:
+            return _scan_part(path, archive, member.lstrip("/"), f"sheet '{name}'", sheet=name)
+    except KeyError:
+        return None  # the reader reports the missing part
+    except (zipfile.BadZipFile, zlib.error, EOFError) as exc:
+        _damaged_workbook(path, f"sheet '{name}'", exc)
+
+
+def _scan_part(
+    path: Path,
+    archive: zipfile.ZipFile,
+    member: str,
+    where: str,
+    *,
+    sheet: str | None = None,
+    at_open: bool = False,
+) -> _PartScan:
+    """Count rows, cells, formulas, shared strings and tags of one XML part, chunk by chunk.
+
+    Counting is by tag bytes (regular expressions, numpy and bytes methods, at C speed), and a
+    limit passed is refused at once: the rest of the part is never inflated.
+
+    Args:
+        path: The workbook, for messages.
+        archive: The open workbook.
+        member: The part to scan.
+        where: The part, for messages ("sheet 'Demand'").
+        sheet: The sheet's title when the part is a worksheet: its limits are checked.
+        at_open: Stop at ``<sheetData>`` when a ``<dimension>`` element came before it (the
+            reader then reads no further when it opens the workbook); the scan is then not
+            complete.
+    """
+    scan = _PartScan()
+    in_row = 0
+    text_run = 0
+    carry = b""
+    state = 0  # 0: before <sheetData>, 1: inside, 2: after
+    dimension = False
+    with archive.open(member) as handle:
+        while True:
+            chunk = handle.read(_XLSX_CHUNK)
+            data = carry + chunk
+            carry = b""
+            if chunk:
+                # A tag cut at the chunk's end is counted with the next chunk.
+                cut = data.rfind(b"<", max(0, len(data) - 256))
+                if cut > 0:
+                    data, carry = data[:cut], data[cut:]
+            opens = np.flatnonzero(np.frombuffer(data, dtype=np.uint8) == 60)
+            if opens.size:
+                longest = max(text_run + int(opens[0]), int(np.diff(opens).max(initial=0)))
+                text_run = len(data) - int(opens[-1])
+            else:
+                longest = text_run = text_run + len(data)
+            if longest > _XLSX_MAX_TEXT_BYTES:
+                _fail(
+                    path,
+                    f"{where} holds a text of more than {_XLSX_MAX_TEXT_BYTES >> 20} MB in one "
+                    "piece; an Excel cell holds at most 32,767 characters.",
+                    _XLSX_DAMAGED_HINT,
+                )
+            found = b"".join(_XML_ELEMENT.findall(data))
+            if found:
+                scan.formulas = scan.formulas or b"f" in found
+                scan.strings += found.count(b"si")
+                cells = found.replace(b"f", b"").replace(b"si", b"")
+                parts = cells.split(b"row")
+                in_row += len(parts[0])
+                if len(parts) > 1:
+                    widest = max(map(len, parts[1:-1]), default=0)
+                    scan.widest = max(scan.widest, in_row, widest)
+                    in_row = len(parts[-1])
+                scan.rows += len(parts) - 1
+                scan.cells += len(cells) - 3 * (len(parts) - 1)
+            # Tags outside and inside <sheetData>, by position.
+            position = 0
+            while True:
+                if state == 0:
+                    match = _SHEET_DATA.search(data, position)
+                    end = match.start() if match else len(data)
+                    dimension = dimension or bool(_DIMENSION.search(data, position, end))
+                    scan.outside += _between(opens, position, end)
+                    if match is None:
+                        break
+                    state = 2 if match.group(1) or match.group(2) == b"/" else 1
+                    position = match.end()
+                    if at_open and dimension:
+                        scan.complete = False
+                        return scan
+                elif state == 1:
+                    match = _SHEET_DATA_END.search(data, position)
+                    end = match.start() if match else len(data)
+                    scan.tags += _between(opens, position, end)
+                    if match is None:
+                        break
+                    state, position = 2, match.start()
+                else:
+                    scan.outside += _between(opens, position, len(data))
+                    break
+            if sheet is not None:
+                _check_sheet_scan(path, scan, max(scan.widest, in_row), sheet)
+            elif scan.strings > XLSX_MAX_CELLS:
+                return scan
+            if not chunk:
+                break
+    scan.widest = max(scan.widest, in_row)
+    return scan
+
+
+def _between(positions: np.ndarray, start: int, end: int) -> int:
+    """How many of the sorted ``positions`` are in ``[start, end)``."""
+    return int(np.searchsorted(positions, end) - np.searchsorted(positions, start))
+
+
+def _check_sheet_scan(path: Path, scan: _PartScan, widest: int, sheet: str) -> None:
+    """Refuse a sheet whose counts so far pass a limit."""
+    if scan.rows > XLSX_MAX_ROWS:
+        _too_many_rows(path, sheet)
+    if widest > XLSX_MAX_COLUMNS:
         _fail(
             path,
-            f"the workbook unpacks to {unpacked / 2**30:.1f} GB, more than triage reads "
-            f"from xlsx ({_MAX_XLSX_UNPACKED / 2**30:.0f} GB).",
-            "Save the data as CSV UTF-8 or Parquet instead.",
+            f"a row of sheet '{sheet}' has more than {XLSX_MAX_COLUMNS:,} cells, the most an "
+            "Excel sheet row holds.",
+            _XLSX_TOO_LARGE_HINT,
+        )
+    if scan.cells > XLSX_MAX_CELLS:
+        _too_many_cells(path, sheet)
+    # A cell is at most a few tags (<c><f/><v></v></c>, <c><is><t></t></is></c>); tags beyond
+    # that are elements the reader keeps one object each for.
+    if scan.tags > _XLSX_TAGS_PER_CELL * scan.cells + 2 * scan.rows + _XLSX_MAX_OTHER_TAGS:
+        _fail(
+            path,
+            f"sheet '{sheet}' holds far more XML elements than its {scan.rows:,} rows and "
+            f"{scan.cells:,} cells need.",
+            _XLSX_DAMAGED_HINT,
+        )
+    if scan.outside > _XLSX_MAX_OTHER_TAGS:
+        _fail(
+            path,
+            f"sheet '{sheet}' holds more than {_XLSX_MAX_OTHER_TAGS:,} XML tags around its cells "
+            "(column widths, merged ranges, formatting, links), more than triage reads.",
+            _XLSX_TOO_LARGE_HINT,
         )
 
 
@@ -1585,21 +2162,6 @@ def _column_letter(number: int) -> str:
     return letters
 
 
-def _sheet_has_formulas(path: Path, member: str) -> bool:
-    """Look for a formula element in the sheet XML without parsing it."""
-    pattern = re.compile(rb"<(?:\w+:)?f[\s>/]")
-    tail = b""
-    try:
-        with zipfile.ZipFile(path) as archive, archive.open(member.lstrip("/")) as handle:
-            while chunk := handle.read(_CHUNK):
-                if pattern.search(tail + chunk):
-                    return True
-                tail = chunk[-16:]
-    except (KeyError, zipfile.BadZipFile, OSError):
-        return True
-    return False
-
-
 _PLAIN_CELLS = (int, float, bool, dt.datetime, dt.date, dt.time, dt.timedelta, type(None))
 
 
@@ -1622,28 +2184,41 @@ def _check_formulas(
     reported, since a program that writes formulas without calculating them stores 0."""
     import openpyxl
 
+    n_rows = len(next(iter(data.values()))) if data else 0
+    width = len(data)
+    marked: dict[int, list[int]] = {}
     with warnings.catch_warnings():
         warnings.filterwarnings("ignore", category=UserWarning, module="openpyxl")
-        book = openpyxl.load_workbook(path, read_only=True, data_only=False, keep_links=False)
+        try:
+            book = openpyxl.load_workbook(path, read_only=True, data_only=False, keep_links=False)
+        except _XLSX_DAMAGED as exc:
+            _unopenable(path, exc)
         try:
             worksheet = book[sheet]
             worksheet.reset_dimensions()
-            formulas = list(worksheet.iter_rows(values_only=True))[header_at + 1 :]
+            # Streamed like the values: only the positions of formula cells are kept.
+            for index, row in enumerate(_sheet_rows(path, worksheet, sheet)):
+                offset = index - header_at - 1
+                if offset >= n_rows:
+                    break
+                if offset < 0:
+                    continue
+                for position, value in enumerate(row[:width]):
+                    if value is not None and _is_formula(value):
+                        marked.setdefault(position, []).append(offset)
         finally:
             book.close()
     unset: list[str] = []
     zeros: list[str] = []
-    for position, column in data.items():
-        values = column.tolist()
-        is_formula = np.zeros(len(values), dtype=bool)
-        for k, row in enumerate(formulas[: len(values)]):
-            is_formula[k] = position < len(row) and _is_formula(row[position])
-        if not is_formula.any():
-            continue
+    for position, offsets in marked.items():
+        column = data[position]
+        is_formula = np.zeros(len(column), dtype=bool)
+        is_formula[offsets] = True
         rows = np.flatnonzero(is_formula & pd.isna(column).to_numpy()) + header_at + 2
         if rows.size:
             unset.append(f"column {_label(plan, position)} {format_rows(rows.tolist())}")
         if plan.roles[position] in schema.NUMERIC:
+            values = column.tolist()
             is_zero = np.array([v == 0 and not isinstance(v, bool) for v in values], dtype=bool)
             zero = np.flatnonzero(is_formula & is_zero) + header_at + 2
             if zero.size:
@@ -1946,6 +2521,9 @@ def _ids(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.Serie
             f"Every row needs {'an item id' if role == schema.ITEM else 'a location'}: "
             "fill it in, or delete the rows.",
         )
+    distinct = _distinct_ids(text)
+    _check_id_length(ctx, position, text, distinct, role)
+    _note_lookalikes(ctx, position, distinct)
     if suspect and bool(strings.str.contains(_BIDI_PATTERN, regex=True, na=False).any()):
         ctx.notices.append(
             f"Column {_label(ctx.plan, position)} has ids containing bidirectional text controls "
@@ -1954,6 +2532,103 @@ def _ids(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.Serie
     if role == schema.LOCATION and not isinstance(text.dtype, pd.CategoricalDtype):
         text = text.astype("category")
     return text
+
+
+def _distinct_ids(text: pd.Series) -> pd.Series:
+    """The distinct ids a column holds (categories no row uses are left out)."""
+    if isinstance(text.dtype, pd.CategoricalDtype):
+        codes = _codes(text)
+        used = np.bincount(codes[codes >= 0], minlength=len(text.cat.categories)) > 0
+        return pd.Series(text.cat.categories[used], dtype=str)
+    return pd.Series(pd.unique(text.dropna()), dtype=str)
+
+
+def _check_id_length(
+    ctx: _Context, position: int, text: pd.Series, distinct: pd.Series, role: str
+) -> None:
+    """Refuse ids the decision ledger could not store, here rather than at every save."""
+    lengths = distinct.str.len().to_numpy()
+    if not len(lengths) or lengths.max() <= TEXT_MAX:
+        return
+    long_rows = text.isin(distinct[lengths > TEXT_MAX]).to_numpy(dtype=bool)
+    what = "item ids" if role == schema.ITEM else "locations"
+    ctx.fail(
+        position,
+        f"has {what} longer than {TEXT_MAX:,} characters (the most the decision ledger stores)",
+        np.flatnonzero(long_rows),
+        None,
+        "Shorten those ids, or check that --columns maps the right column to "
+        f"{role} (an id is a code or a short name).",
+        f"The longest is {int(lengths.max()):,} characters.",
+    )
+
+
+def lookalike_keys(ids: pd.Series) -> pd.Series:
+    """How each id looks: NFKC form, invisible characters removed, spaces made one plain space,
+    none at the ends. Ids with the same key look alike on screen (or nearly).
+
+    Args:
+        ids: Distinct ids, as ``str``.
+    """
+    return (
+        ids.str.normalize("NFKC")
+        .str.replace(f"[{_INVISIBLE}]", "", regex=True)
+        .str.replace(f"[{_SPACES}]+", " ", regex=True)
+        .str.strip(" ")
+    )
+
+
+def _lookalike_candidates(ids: pd.Series) -> np.ndarray:
+    """Which ids could look like another (everything else looks like itself only)."""
+    # One pass over all ids joined (C speed) settles the usual case: plain ASCII, single spaces.
+    joined = "\n" + "\n".join(ids.tolist()) + "\n"
+    if joined.isascii() and not any(odd in joined for odd in ("  ", " \n", "\n ")):
+        return np.zeros(len(ids), dtype=bool)
+    return ids.str.contains(_LOOKALIKE_CANDIDATE, regex=True).to_numpy(dtype=bool)
+
+
+def _note_lookalikes(ctx: _Context, position: int, ids: pd.Series) -> None:
+    """Notice ids that look alike but differ: kept apart, but the reviewer should know."""
+    candidate = _lookalike_candidates(ids)
+    if not candidate.any():
+        return
+    originals = ids[candidate]
+    keys = lookalike_keys(originals)
+    plain = ids[~candidate]
+    hits = plain[plain.isin(keys).to_numpy(dtype=bool)]
+    pairs = pd.DataFrame(
+        {"key": pd.concat([keys, hits]).to_numpy(), "id": pd.concat([originals, hits]).to_numpy()}
+    )
+    shared = pairs[pairs["key"].duplicated(keep=False).to_numpy()]
+    if shared.empty:
+        return
+    groups = shared.groupby("key", sort=False)["id"].agg(list)
+    examples = "; ".join(
+        " and ".join(_shown_id(v) for v in sorted(group)[:3]) for group in groups.iloc[:_SHOWN]
+    )
+    ctx.notices.append(
+        f"Column {_label(ctx.plan, position)}: {len(shared)} ids look like another id but "
+        "differ in spaces, Unicode form or invisible characters; each is kept as its own "
+        f"series: {examples}"
+        + (f" and {len(groups) - _SHOWN} more groups" if len(groups) > _SHOWN else "")
+        + ". If they are the same, write them the same way in the file."
+    )
+
+
+def _shown_id(text: str) -> str:
+    """An id quoted, with what does not show written as a code (``\\u200D``)."""
+    out = []
+    for ch in text:
+        kind = unicodedata.category(ch)
+        if (
+            kind in ("Mn", "Me", "Cf", "Zl", "Zp")
+            or (kind == "Zs" and ch != " ")
+            or ch in _INVISIBLE
+        ):
+            out.append(f"\\u{ord(ch):04X}" if ord(ch) <= 0xFFFF else f"\\U{ord(ch):08X}")
+        else:
+            out.append(ch)
+    return "'" + "".join(out) + "'"
 
 
 def _typed_numbers(values: pd.Series) -> int:
@@ -2080,6 +2755,11 @@ def _date_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series
         notes.append("5-digit numbers look like Excel day numbers (dates without a date format).")
     if any(re.fullmatch(r"\d{4}-\d{2}-\d{2}[T ]\d{1,2}:\d{2}.*", s) for s in sample):
         notes.append("Periods are dates, without a time of day.")
+    digits = _foreign_digits(sample)
+    if digits:
+        notes.append(
+            f"Dates are written with the digits 0-9 ({digits} are digits of another script)."
+        )
     invalid = next((s for s in sample if _ISO_DATE.fullmatch(s)), None)
     if invalid:
         notes.append(f"'{invalid}' is not a date in the calendar.")
@@ -2092,6 +2772,17 @@ def _date_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series
         "of the month); in Excel, format the column as yyyy-mm-dd before saving.",
         " ".join(notes),
     )
+
+
+def _foreign_digits(sample: list[str]) -> str:
+    """Digits other than 0-9 in the sample, named for a message ('' when there are none)."""
+    found = list(
+        dict.fromkeys(ch for text in sample for ch in text if ch.isdigit() and not ch.isascii())
+    )
+    if not found:
+        return ""
+    shown = ", ".join(f"'{ch}'" for ch in found[:3])
+    return f"{shown} {'is a digit' if len(found) == 1 else 'are digits'} of another script"
 
 
 def _check_stamps(ctx: _Context, position: int, stamps: pd.Series) -> None:
@@ -2231,6 +2922,9 @@ def _number_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Seri
         hints.append(
             "fix the Excel formulas that give errors (#DIV/0!, #VALUE!), or clear those cells"
         )
+    digits = _foreign_digits(sample)
+    if digits:
+        hints.append(f"write digits as 0-9 ({digits})")
     hints.append("leave a cell empty (or write NA) for a missing value")
     hint = "Use plain numbers such as 12 or -3.5: " + "; ".join(hints) + "."
     ctx.fail(position, "has values that are not numbers", bad, values, hint)
@@ -2239,6 +2933,8 @@ def _number_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Seri
 def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
     dtype = values.dtype
     if isinstance(dtype, np.dtype) and dtype.kind in "iu":
+        if dtype.kind == "u" and len(values) and values.max() > LAG_MAX:
+            _lag_range_error(ctx, position, np.flatnonzero(values.to_numpy() > LAG_MAX), values)
         lags = values.to_numpy().astype(np.int64, copy=False)
         missing = np.zeros(1, dtype=bool)
         shown: pd.Series = values
@@ -2252,7 +2948,11 @@ def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
         wrong = ~missing & ~(np.isfinite(numbers) & (numbers == np.round(numbers)))
         if wrong.any():
             _lag_error(ctx, position, np.flatnonzero(wrong), values)
-        lags = np.where(missing, -1, numbers).astype(np.int64)
+        # Checked before the cast: a float past the int64 range would wrap around to negative.
+        large = np.flatnonzero(~missing & (numbers > LAG_MAX))
+        if large.size:
+            _lag_range_error(ctx, position, large, values)
+        lags = np.where(missing | (numbers < -LAG_MAX), -1, numbers).astype(np.int64)
         shown = values
     else:
         text, missing_text = _text(values)
@@ -2267,7 +2967,12 @@ def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
         wrong = np.isin(codes, bad_cats) & ~missing
         if wrong.any():
             _lag_error(ctx, position, np.flatnonzero(wrong), text)
-        cat_values = np.where(whole, pd.to_numeric(cats.where(whole, "0")).to_numpy(), -1)
+        # As float64 first: a whole number of any length converts, where int64 would overflow.
+        numbers = pd.to_numeric(cats.where(whole, "0")).to_numpy(dtype=np.float64)
+        too_large = np.isin(codes, np.flatnonzero(whole & (numbers > LAG_MAX)))
+        if too_large.any():
+            _lag_range_error(ctx, position, np.flatnonzero(too_large), text)
+        cat_values = np.where(whole & (numbers >= -LAG_MAX), numbers, -1).astype(np.int64)
         lags = np.where(codes < 0, -1, cat_values[np.maximum(codes, 0)]).astype(np.int64)
         shown = text
     if missing.any():
@@ -2288,7 +2993,20 @@ def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
             shown,
             "A lag counts periods from making the forecast to the period it is for: 0 or more.",
         )
+    if lags.max() > LAG_MAX:
+        _lag_range_error(ctx, position, np.flatnonzero(lags > LAG_MAX), shown)
     return pd.Series(lags, dtype=np.int64, copy=False)
+
+
+def _lag_range_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series) -> NoReturn:
+    ctx.fail(
+        position,
+        f"has lags larger than {LAG_MAX:,} periods",
+        bad,
+        values,
+        "A lag counts periods from making the forecast to the period it is for (0, 1, 2, ...); "
+        "check that this is the lag column (or map another with --columns lag=<column>).",
+    )
 
 
 def _lag_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series) -> NoReturn:
