@@ -10,6 +10,7 @@ import argparse
 import sys
 from collections.abc import Iterable, Sequence
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from triage import __version__
 from triage.arguments import (
@@ -22,6 +23,9 @@ from triage.arguments import (
 from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
+
+if TYPE_CHECKING:
+    from triage.tui.app import TriageApp
 
 
 def build_parser() -> argparse.ArgumentParser:
@@ -127,13 +131,19 @@ def main(argv: Sequence[str] | None = None) -> int:
 CRASH_LOGS_KEPT = 20
 
 
-def _unexpected(exc: Exception, argv: list[str]) -> int:
-    """Report an error triage did not expect: one line, and the traceback in a log file."""
+def _unexpected(exc: BaseException, argv: list[str], extra: str = "") -> int:
+    """Report an error triage did not expect: one line, and the traceback in a log file.
+
+    Args:
+        exc: The error.
+        argv: The command line.
+        extra: More for the log (the review screens' unsaved entries), if any.
+    """
     from triage.core.text import visible
 
     what = visible(f"{type(exc).__name__}: {exc}")[:300]
     try:
-        log = _write_crash_log(exc, argv)
+        log = _write_crash_log(exc, argv, extra)
     except Exception as failure:  # the report must get out whatever happens
         saved = f"The details could not be saved ({visible(str(failure))[:200]})."
     else:
@@ -145,7 +155,7 @@ def _unexpected(exc: Exception, argv: list[str]) -> int:
     return 1
 
 
-def _write_crash_log(exc: Exception, argv: list[str]) -> Path:
+def _write_crash_log(exc: BaseException, argv: list[str], extra: str = "") -> Path:
     """Write the traceback, the command line and versions to a new file in the log folder."""
     import datetime as dt
     import os
@@ -162,7 +172,9 @@ def _write_crash_log(exc: Exception, argv: list[str]) -> Path:
     path = folder / f"crash-{stamp}-{os.getpid()}.log"
     text = (
         f"triage {__version__}, Python {platform.python_version()}, {platform.platform()}\n"
-        f"command: triage {argv!r}\n\n" + "".join(traceback.format_exception(exc))
+        f"command: triage {argv!r}\n\n"
+        + "".join(traceback.format_exception(exc))
+        + (f"\n{extra}\n" if extra else "")
     )
     write_text_atomic(path, text, force=False)
     old = sorted(folder.glob("crash-*.log"))[:-CRASH_LOGS_KEPT]
@@ -268,7 +280,14 @@ def _cmd_review(args: argparse.Namespace) -> int:
         )
     from triage.tui.app import TriageApp
 
-    TriageApp(_review_options(args, args.portfolio, args.ledger)).run()
+    return _run_app(TriageApp(_review_options(args, args.portfolio, args.ledger)))
+
+
+def _run_app(app: TriageApp) -> int:
+    """Run the review screens; a fault inside them is reported like any other (one line, log)."""
+    app.run()
+    if app.crashed is not None:
+        return _unexpected(app.crashed, sys.argv[1:], app.unsaved_entries())
     return 0
 
 
@@ -293,8 +312,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
     folder = Path(user_data_dir("triage")) / "demo"
     folder.mkdir(parents=True, exist_ok=True)
     options = _review_options(args, sample_portfolio(), folder / "sample.ledger.sqlite")
-    TriageApp(options).run()
-    return 0
+    return _run_app(TriageApp(options))
 
 
 def _emit(text: str, output: Path | None, *, force: bool) -> None:

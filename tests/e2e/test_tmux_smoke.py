@@ -186,3 +186,54 @@ def test_ten_fast_saves_in_one_send_keys(tmp_path: Path) -> None:
     assert [r[2] for r in rows] == [note for _, note in typed]
     # The ledger keeps the canonical spec; each is the typed percentage.
     assert [r[1] for r in rows] == [f"+{i + 1}%" for i in range(10)]
+
+
+CRASHING_REVIEW = """
+import sys
+from triage import cli
+from triage.tui.app import TriageApp
+from triage.tui.screens.decision import DecisionScreen
+
+def fault(self):  # a fault inside the running app, after the reviewer typed a note
+    raise RuntimeError("injected fault for the test")
+
+DecisionScreen.action_pick_cause = lambda self, index: fault(self)
+sys.exit(cli.main(sys.argv[1:]))
+"""
+
+
+def test_a_fault_inside_the_review_screens_is_one_line_and_a_log(tmp_path: Path) -> None:
+    """No Textual traceback over the terminal: exit 1, one line naming the crash log, and the
+    log holds the traceback and the entry the reviewer had typed."""
+    portfolio = tmp_path / "week.csv"
+    shutil.copy(SAMPLE, portfolio)
+    script = tmp_path / "crash.py"
+    script.write_text(CRASHING_REVIEW, encoding="utf-8")
+    # Textual draws on standard error, so it stays the terminal; the pane is kept after the exit.
+    shell = (
+        f"{sys.executable} {script} review {portfolio} --ledger {tmp_path / 'l.sqlite'} "
+        f"--reviewer smoke; echo $? > {tmp_path / 'rc.txt'}; sleep 60"
+    )
+    term = Tmux(["sh", "-c", shell], tmp_path)
+    try:
+        term.wait_for("reviewed 0")
+        term.keys("enter")
+        term.wait_for("Decision for")
+        term.keys("Tab", "Tab", "Tab", "typed before the fault", "BTab", "BTab", "BTab", "3")
+        deadline = time.monotonic() + 20
+        while not (tmp_path / "rc.txt").exists() and time.monotonic() < deadline:
+            time.sleep(0.2)
+        screen = term.wait_for("unexpected error")
+    finally:
+        term.kill()
+    assert (tmp_path / "rc.txt").read_text().strip() == "1"
+    assert "Traceback" not in screen, screen
+    # The pane is 120 columns wide: a full line continues on the next one.
+    message = "".join(
+        line if len(line) == 120 else line.rstrip() + " " for line in screen.splitlines()
+    )
+    assert "unexpected error (RuntimeError: injected fault for the test)" in message
+    log = Path(message.split("The details are in ")[1].split("; please")[0])
+    text = log.read_text(encoding="utf-8")
+    assert "Traceback" in text and "injected fault" in text
+    assert "typed before the fault" in text  # the unsaved entry is not lost

@@ -274,6 +274,9 @@ class TriageApp(App[None]):
         self._written: dict[int, int] = {}
         """Series -> version of this app's latest committed write (worker threads write it)."""
         self._quit_forced = False
+        self.crashed: BaseException | None = None
+        self._unsaved: str | None = None
+        """A fault that closed the app, for the command line to report (None when none)."""
         self._queued: dict[int, int] = {}
         """Series -> saves asked for and not yet answered (UI thread)."""
         self.drafts: dict[int, Draft] = {}
@@ -282,6 +285,46 @@ class TriageApp(App[None]):
         self._chart_timer: Timer | None = None
         self.key_order = KeyOrder(self, lambda event: App.on_event(self, event))
         """Hands keys on one at a time, in the order typed (see ``triage.tui.keyorder``)."""
+
+    # -- faults -------------------------------------------------------------------------------
+
+    def _handle_exception(self, error: Exception) -> None:
+        """A fault in the app: keep it for the command line's one-line report and crash log."""
+        if self.crashed is None:
+            self.crashed = error
+            try:
+                self._unsaved = self.unsaved_entries()  # now, while the dialog still exists
+            except Exception:  # reporting must not fail on a half-broken app
+                self._unsaved = ""
+        super()._handle_exception(error)
+
+    def _fatal_error(self) -> None:
+        """Close without drawing Textual's traceback over the terminal (the crash log has it)."""
+        self.bell()
+        self._close_messages_no_wait()
+
+    def unsaved_entries(self) -> str:
+        """What the reviewer typed and had not saved, for the crash log (nothing is lost)."""
+        if self.crashed is not None and self._unsaved is not None:
+            return self._unsaved
+        drafts = dict(self.drafts)
+        for screen in self.screen_stack:
+            if isinstance(screen, DecisionScreen):
+                try:
+                    draft = screen.current_draft()
+                except Exception:  # the dialog may be half gone; the kept drafts still count
+                    continue
+                drafts[draft.series] = draft
+        if not drafts or self.session is None:
+            return ""
+        lines = ["Unsaved entries (type them again in triage review):"]
+        for draft in drafts.values():
+            key = " @ ".join(k for k in self.session.key(draft.series) if k)
+            lines.append(
+                f"  {key!r}: outcome {draft.outcome}, root cause {draft.root_cause}, "
+                f"adjustment {draft.adjustment!r}, note {draft.note!r}"
+            )
+        return "\n".join(lines)
 
     async def on_event(self, event: events.Event) -> None:
         """Keys and pastes from the terminal go through ``key_order``; the rest as usual."""

@@ -277,6 +277,10 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
             chart.show(self._session.chart(self._series, result.adjusted))
         return True
 
+    def current_draft(self) -> Draft:
+        """The fields as they are on screen now."""
+        return self._current()
+
     def _current(self) -> Draft:
         outcome_list = self.query_one("#decision-outcome", OptionList)
         cause_list = self.query_one("#decision-cause", OptionList)
