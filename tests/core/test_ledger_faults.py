@@ -364,7 +364,11 @@ def test_read_only_folder_and_file_open_read_only_with_a_notice() -> None:
         out, err = child.communicate(timeout=30)
         assert child.returncode == 0, err
         where = json.loads(out)
-        assert where["path"] == str(data_home / "triage" / "week47.ledger.sqlite")
+        # One stand-in ledger per read-only review folder, in the user data folder.
+        stand_in = Path(where["path"])
+        assert stand_in.name == "triage-ledger.sqlite"
+        assert stand_in.parent.parent == data_home / "triage" / "folders"
+        assert stand_in.parent.name.startswith("shared-")
         assert "is not writable" in where["notice"] and where["path"] in where["notice"]
     finally:
         for folder in base.rglob("*"):
