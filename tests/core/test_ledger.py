@@ -751,12 +751,13 @@ def test_unwritable_folder_falls_back_to_user_data_one_per_folder(
 def test_config_file_values(tmp_path: Path) -> None:
     file = tmp_path / "config.toml"
     file.write_text(
-        'reviewer = "Ana Ruiz"\ntarget_share = 0.9\n'
+        'reviewer = "Ana Ruiz"\ntarget_share = 0.9\nledger = "planning.sqlite"\n'
         '[root_causes]\npromo = "Promotion"\nweather = "Weather"\n',
         encoding="utf-8",
     )
     cfg = load_config(file)
     assert cfg.reviewer == "Ana Ruiz" and cfg.target_share == 0.9 and cfg.path == file
+    assert cfg.ledger == "planning.sqlite"
     assert [(c.code, c.label, c.key) for c in cfg.root_causes] == [
         ("promo", "Promotion", "1"),
         ("weather", "Weather", "2"),
@@ -792,6 +793,10 @@ def test_config_defaults_and_user_folder(tmp_path: Path, monkeypatch) -> None:
         ("[root_causes]\nok = ''\n", "root_causes.ok", "non-empty text label"),
         ("[root_causes]\n", "root_causes", "is empty"),
         ("reviewer = \n", None, "not valid TOML"),
+        ("ledger = ''\n", "ledger", "must name a ledger file"),
+        ("ledger = 3\n", "ledger", "must name a ledger file"),
+        ("ledger = 'team/'\n", "ledger", "must name a ledger file"),
+        ('ledger = "a\\nb"\n', "ledger", "must name a ledger file"),
     ],
 )
 def test_bad_config_names_file_and_key(tmp_path: Path, text: str, key, words: str) -> None:

@@ -5,6 +5,7 @@ The file is TOML, read from ``--config PATH`` or from ``config.toml`` in the use
 
     reviewer = "Ana Ruiz"          # name stored with each decision (default: the login name)
     target_share = 0.8             # share of total error the worst-offender list should cover
+    ledger = "triage-ledger.sqlite"  # the review folder's ledger: a name in the folder, or a path
 
     [root_causes]                  # replaces the whole default list, in this order
     promo = "Promotion or event"
@@ -98,6 +99,10 @@ class Config:
     """Root causes offered, in shortcut order."""
     target_share: float = DEFAULT_TARGET_SHARE
     """Share of total error (0-1] the worst-offender list should cover."""
+    ledger: str | None = None
+    """The ledger of every review folder: a file name kept in the portfolio's folder, or a
+    path (absolute, or with a folder part, relative to the portfolio's folder); None means
+    ``triage.core.ledger.FOLDER_LEDGER`` in the portfolio's folder."""
     path: Path | None = None
     """The file the settings came from, or None when none was read."""
 
@@ -144,7 +149,7 @@ def load_config(path: str | Path | None = None) -> Config:
 
 
 def _parse(file: Path, data: dict[str, Any]) -> Config:
-    known = {"reviewer", "root_causes", "target_share"}
+    known = {"reviewer", "root_causes", "target_share", "ledger"}
     for key in data:
         if key not in known:
             raise ConfigError(
@@ -161,6 +166,20 @@ def _parse(file: Path, data: dict[str, Any]) -> Config:
         raise ConfigError(
             file, "target_share", f"must be above 0 and at most 1 (a share), not {share!r}"
         )
+    ledger = data.get("ledger")
+    if ledger is not None and (
+        not isinstance(ledger, str)
+        or not ledger.strip()
+        or ledger != ledger.strip()
+        or any(ch < " " for ch in ledger)
+        or ledger.endswith(("/", "\\"))
+    ):
+        raise ConfigError(
+            file,
+            "ledger",
+            f'must name a ledger file, e.g. ledger = "triage-ledger.sqlite", not {ledger!r}',
+            hint="A file name is kept in each portfolio's folder; a path names one file.",
+        )
     causes = DEFAULT_ROOT_CAUSES
     if "root_causes" in data:
         causes = _parse_causes(file, data["root_causes"])
@@ -168,6 +187,7 @@ def _parse(file: Path, data: dict[str, Any]) -> Config:
         reviewer=reviewer.strip() if reviewer else None,
         root_causes=causes,
         target_share=share,
+        ledger=ledger,
         path=file,
     )
 
