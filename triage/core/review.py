@@ -772,9 +772,13 @@ class ReviewSession:
         times = int(self.times_in_worst[series])
         if self.cycles_scored:
             mark = "repeat offender: " if self.repeat[series] else ""
+            rescored = sum(how == history.RESCORED for how in self.repeat_sources.values())
+            notes = [f"flag at {n} of {m}"] if self.repeat[series] else []
+            if rescored and self.ledger is not None:
+                notes.append(f"{rescored} re-scored, no stored set")
             lines.append(
                 f"{mark}in the worst-offender set {times} of the last {self.cycles_scored} cycles"
-                + (f" (flag at {n} of {m})" if self.repeat[series] else "")
+                + (f" ({'; '.join(notes)})" if notes else "")
             )
         if self.past_outcome[series]:
             carried = " and still in the worst set: carried over" if self.carried[series] else ""
