@@ -5,7 +5,8 @@
 * **decisions**: one row per reviewed series (its effective decision in the cycle);
 * **forecast**: one row per series and forward period, for *every* series of the portfolio, so the
   file is a complete forward forecast: the ledger's adjusted value where the series' decision
-  adjusted that period, the portfolio's forecast everywhere else.
+  adjusted that period, or where an earlier cycle's adjustment still reaches it (carried, marked
+  in ``adjusted_in_cycle``; docs/history.md), the portfolio's forecast everywhere else.
 
 Every format carries the same caution (``CAUTION``) and the provenance: portfolio file name and
 fingerprint, cycle, ledger, when and by whom it was exported. docs/export.md describes the files.
@@ -1110,7 +1111,8 @@ COLUMN_NOTES: dict[str, str] = {
     "portfolio_name, portfolio_fingerprint": "the portfolio file the decision was made on",
     "period": "forward period start date (ISO)",
     "forecast": "the portfolio's forward forecast; empty where it has none",
-    "adjusted_forecast": "the adjusted value where the decision changed that period, else forecast",
+    "adjusted_forecast": "the adjusted value where a decision (this cycle's, or an earlier one "
+    "carried) changed that period, else forecast",
     "adjusted": "true where adjusted_forecast comes from a decision (this cycle's or carried)",
     "adjusted_in_cycle": "the review cycle whose decision gave adjusted_forecast: this cycle, "
     "or an earlier cycle whose adjustment is carried; empty where not adjusted",
