@@ -145,10 +145,15 @@ def test_review_of_a_folder_opens_the_newest_cycle_with_the_folder_ledger(
     folder = weeks.week1.parent
     # The newest by cycle, even when the older week's file was modified last.
     os.utime(weeks.week1, (4_000_000_000, 4_000_000_000))
-    (folder / "w2-forecast.csv").write_text("item,period,x\nA,2026-11-16,1\n", encoding="utf-8")
+    (folder / "notes.csv").write_text("item,period,x\nA,2026-11-16,1\n", encoding="utf-8")
+    # triage's own exports are not read at all (an xlsx export can be large).
+    for name in ("w2-decisions.csv", "w2-forecast.csv", "w2-README.txt"):
+        (folder / name).write_text("x", encoding="utf-8")
+    (folder / "erp_2026-w2-review-2026-11-09.xlsx").write_bytes(b"not read")
     newest = newest_portfolio(folder)
     assert (newest.path, newest.cycle, newest.candidates) == (weeks.week2, WEEK2, 2)
-    assert any("w2-forecast.csv" in n and "skipped" in n for n in newest.notices)
+    assert any("notes.csv" in n and "skipped" in n for n in newest.notices)
+    assert not any("w2-" in n or "review-2026" in n for n in newest.notices)
     opened = []
     monkeypatch.setattr(
         "triage.tui.app.TriageApp.run", lambda app: opened.append(app.options), raising=True

@@ -12,6 +12,7 @@ recently modified one is opened, and the notice says which others share the cycl
 
 from __future__ import annotations
 
+import re
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -33,16 +34,36 @@ class NewestPortfolio:
     """What to tell the reviewer: which file was opened and why, files skipped, ties."""
 
 
+#: The name the review screens offer for an export (``<stem>-review-<cycle>.xlsx``).
+_REVIEW_EXPORT = re.compile(r".+-review-\d{4}-\d{2}-\d{2}\.xlsx", re.IGNORECASE)
+
+
 def portfolio_files(folder: Path) -> list[Path]:
     """Files in ``folder`` (not below it) that triage could read as a portfolio, by name.
 
-    Hidden files and spreadsheet lock files (``~$week.xlsx``) are left out.
+    Hidden files, spreadsheet lock files (``~$week.xlsx``) and triage's own exports are left
+    out: a CSV export set (``X-decisions.csv`` and ``X-forecast.csv`` beside ``X-README.txt``)
+    and the review screens' default export name (``<stem>-review-<YYYY-MM-DD>.xlsx``), so a
+    large export is never read in search of the newest week.
     """
     return sorted(
         p
         for p in folder.iterdir()
-        if p.is_file() and p.suffix.lower() in SUFFIXES and not p.name.startswith((".", "~$"))
+        if p.is_file()
+        and p.suffix.lower() in SUFFIXES
+        and not p.name.startswith((".", "~$"))
+        and not _is_export(p)
     )
+
+
+def _is_export(path: Path) -> bool:
+    if _REVIEW_EXPORT.fullmatch(path.name):
+        return True
+    for tail in ("-decisions.csv", "-forecast.csv"):
+        if path.name.endswith(tail):
+            stem = path.name[: -len(tail)]
+            return path.with_name(f"{stem}-README.txt").is_file()
+    return False
 
 
 def newest_portfolio(
