@@ -48,7 +48,10 @@ def spawn(*args: object, prefix: tuple[str, ...] = (), env: dict[str, str] | Non
 
 
 def acked(out: str) -> list[str]:
-    return [line.split(" ", 1)[1] for line in out.splitlines() if line.startswith("ACK ")]
+    # Complete lines only: print() may write its parts one by one (unbuffered output), so a kill
+    # can leave "ACK " without its item; that decision then counts as saved without its ACK.
+    complete = out.split("\n")[:-1]
+    return [line.split(" ", 1)[1] for line in complete if line.startswith("ACK ")]
 
 
 def integrity(path: Path) -> list[str]:
@@ -96,7 +99,12 @@ def test_kill9_during_writes_loses_no_acknowledged_decision(tmp_path: Path) -> N
             assert child.stdout.readline().strip() == "READY", child.stderr
             time.sleep(rng.uniform(0.005, 0.2))
         os.kill(child.pid, signal.SIGKILL)
-        out, _ = child.communicate(timeout=10)
+        assert child.stdout is not None and child.stderr is not None
+        # Read through the same buffer readline() used: communicate() reads the pipe itself, so
+        # an ACK that arrived with READY and sits in that buffer would be lost.
+        out = child.stdout.read()
+        child.stderr.read()
+        child.wait(timeout=10)
         assert child.returncode == -signal.SIGKILL
         mine = acked(out)
         acknowledged.update(mine)
