@@ -30,6 +30,7 @@ import numpy as np
 import pandas as pd
 
 from sample import generate
+from triage.core.ledger import FOLDER_LEDGER
 
 #: Seed of the scenario the tests use.
 CYCLES_SEED = 11
@@ -41,7 +42,8 @@ N_LOCATIONS = 2
 N_WEEKS = 40
 N_FORWARD = 8
 N_FILES = 4
-LEDGER_NAME = "hollowmere.ledger.sqlite"
+#: The review folder's ledger, so every command run on a weekly file of the folder finds it.
+LEDGER_NAME = FOLDER_LEDGER
 
 #: Week index (0 = first history week) of the latest actual in the oldest file.
 FIRST_CYCLE_WEEK = N_WEEKS - N_FILES

@@ -105,3 +105,48 @@ def warn(message: str) -> None:
 def force_arg(parser: argparse.ArgumentParser) -> None:
     """``--force``: replace an output file that exists (without it, an existing file stops)."""
     parser.add_argument("--force", action="store_true", help="replace the output file if it exists")
+
+
+def note(message: str) -> None:
+    """Something the user should know (not a problem), on standard error, made printable."""
+    print(f"triage: note: {printable(message, multiline=True)}", file=sys.stderr)
+
+
+def ledger_to_read(
+    portfolio: Path, config: Config, explicit: Path | None, *, required: bool = True
+) -> Path | None:
+    """The ledger a read-only command reads: ``--ledger``, else the review folder's ledger.
+
+    ``triage.core.ledger.locate_ledger`` finds it (the folder's ledger, the configured
+    ``ledger``, or a per-file ledger of the older layout); what it says is printed as notes.
+
+    Args:
+        portfolio: A portfolio file (or a review folder) that exists.
+        config: The configuration (its ``ledger`` setting).
+        explicit: ``--ledger``; it must exist.
+        required: Raise when there is no ledger; otherwise return None.
+
+    Raises:
+        TriageError: ``--ledger`` names no file, or (``required``) no ledger was found.
+    """
+    from triage.core.ledger import locate_ledger
+
+    if explicit is not None:
+        if not explicit.exists():
+            raise TriageError(
+                f"There is no decision ledger at {printable(str(explicit))}.",
+                hint="Check the --ledger path.",
+            )
+        return explicit
+    where = locate_ledger(portfolio, name=config.ledger, for_writing=False)
+    if not where.exists:
+        if required:
+            raise TriageError(
+                f"No decisions have been recorded for {printable(portfolio.name)}: there is no "
+                f"ledger at {printable(str(where.path))}.",
+                hint="Pass --ledger PATH if the decisions are kept in another file.",
+            )
+        return None
+    for text in where.notices:
+        note(text)
+    return where.path

@@ -70,7 +70,13 @@ def build_parser() -> argparse.ArgumentParser:
     score_args(check)
     check.set_defaults(handler=_cmd_check)
 
-    review = sub.add_parser("review", help="open the review screens on a portfolio")
+    review = sub.add_parser(
+        "review",
+        help="open the review screens on a portfolio (or on the newest one in a folder)",
+        description="Open the review screens. Give a portfolio file, or the review folder the "
+        "weekly files are dropped into: its newest file (latest review cycle) is opened. Every "
+        "file in a folder shares the folder's ledger.",
+    )
     portfolio_args(review)
     score_args(review)
     _review_args(review)
@@ -89,7 +95,8 @@ def _review_args(parser: argparse.ArgumentParser, *, ledger: bool = True) -> Non
         parser.add_argument(
             "--ledger",
             type=Path,
-            help="decision ledger (default: <portfolio>.ledger.sqlite beside the portfolio)",
+            help="decision ledger (default: the review folder's ledger, triage-ledger.sqlite "
+            "beside the portfolio, or the config's 'ledger'; see docs/ledger.md)",
         )
     parser.add_argument(
         "--reviewer", help="name stored with each decision (default: config or login name)"
@@ -242,12 +249,19 @@ def _cmd_check(args: argparse.Namespace) -> int:
     return 0
 
 
-def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | None):
+def _review_options(
+    args: argparse.Namespace,
+    portfolio: Path,
+    ledger: Path | None,
+    *,
+    config=None,
+    notices: Sequence[str] = (),
+):
     from triage.core.config import default_reviewer, load_config, reviewer_problem
     from triage.core.load import parse_column_map
     from triage.tui.app import Options
 
-    config = load_config(args.config)
+    config = config if config is not None else load_config(args.config)
     target = config.target_share if args.target is None else args.target
     if not 0 < target <= 1:
         raise TriageError(f"--target must be a share in (0, 1], e.g. 0.8, not {args.target}.")
@@ -269,18 +283,29 @@ def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | No
         target_share=target,
         root_causes=config.root_causes,
         auto_advance=config.auto_advance,
+        notices=list(notices),
     )
 
 
 def _cmd_review(args: argparse.Namespace) -> int:
+    from triage.arguments import note
+    from triage.core.config import load_config
+
     check_score_args(args)
     if not args.portfolio.exists():
         raise TriageError(
             f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file."
         )
+    config = load_config(args.config)
+    portfolio, ledger, notices = _review_target(args, config)
+    for text in notices:
+        # Also on the terminal, where it stays after the review screens close.
+        note(text)
     from triage.tui.app import TriageApp
 
-    return _run_app(TriageApp(_review_options(args, args.portfolio, args.ledger)))
+    return _run_app(
+        TriageApp(_review_options(args, portfolio, ledger, config=config, notices=notices))
+    )
 
 
 def _run_app(app: TriageApp) -> int:
@@ -289,6 +314,36 @@ def _run_app(app: TriageApp) -> int:
     if app.crashed is not None:
         return _unexpected(app.crashed, sys.argv[1:], app.unsaved_entries())
     return 0
+
+
+def _review_target(args: argparse.Namespace, config) -> tuple[Path, Path | None, list[str]]:
+    """The portfolio a review opens (the newest in a folder), its ledger, and what to say.
+
+    Without ``--ledger`` the ledger is the review folder's (``locate_ledger``). When no ledger
+    can be had (neither the folder nor the user data folder is writable) it is left to the
+    review screens, which open without saving and say why.
+    """
+    from triage.core.ledger import locate_ledger
+    from triage.core.load import parse_column_map
+
+    notices: list[str] = []
+    portfolio: Path = args.portfolio
+    if portfolio.is_dir():
+        from triage.core.folder import newest_portfolio
+
+        columns = parse_column_map(args.columns) if args.columns else None
+        newest = newest_portfolio(portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+        portfolio = newest.path
+        notices.extend(newest.notices)
+    ledger: Path | None = args.ledger
+    if ledger is None:
+        try:
+            where = locate_ledger(portfolio, name=config.ledger, for_writing=True)
+        except TriageError:
+            return portfolio, None, notices
+        ledger = where.path
+        notices.extend(where.notices)
+    return portfolio, ledger, notices
 
 
 def sample_portfolio() -> Path:
@@ -304,14 +359,32 @@ def sample_portfolio() -> Path:
     return path
 
 
-def _cmd_demo(args: argparse.Namespace) -> int:
+#: The demo's ledger, in the user data folder (the sample ships read-only with the code).
+DEMO_LEDGER = "sample.ledger.sqlite"
+
+
+def demo_paths() -> tuple[Path, Path]:
+    """The demo's ledger, and the folder its exports are offered in (the sample's)."""
     from platformdirs import user_data_dir
 
+    return Path(user_data_dir("triage")) / "demo" / DEMO_LEDGER, sample_portfolio().parent
+
+
+def _cmd_demo(args: argparse.Namespace) -> int:
+    from triage.arguments import note
     from triage.tui.app import TriageApp
 
-    folder = Path(user_data_dir("triage")) / "demo"
-    folder.mkdir(parents=True, exist_ok=True)
-    options = _review_options(args, sample_portfolio(), folder / "sample.ledger.sqlite")
+    sample = sample_portfolio()
+    ledger, exports = demo_paths()
+    ledger.parent.mkdir(parents=True, exist_ok=True)
+    said = (
+        f"Demo on {sample}: decisions are kept in {ledger}"
+        + (" (new)" if not ledger.exists() else "")
+        + f"; exports (x in the review screens) are offered in {exports}, named "
+        f"{sample.stem}-review-<cycle>.xlsx, and you can type another path."
+    )
+    note(said)
+    options = _review_options(args, sample, ledger, notices=[said])
     return _run_app(TriageApp(options))
 
 

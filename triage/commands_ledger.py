@@ -17,13 +17,13 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from triage.arguments import open_ledger_read_only, portfolio_args, warn
+from triage.arguments import ledger_to_read, open_ledger_read_only, portfolio_args, warn
 from triage.core.errors import TriageError
 from triage.core.text import longest_word
 
 if TYPE_CHECKING:
     from triage.core.config import Config
-    from triage.core.ledger import Event
+    from triage.core.ledger import AdjustmentEnd, Event
 
 #: The first bytes of every SQLite 3 database file (sqlite.org/fileformat.html, §1.3.1).
 SQLITE_MAGIC = b"SQLite format 3\x00"
@@ -46,6 +46,7 @@ HISTORY_COLUMNS = (
     "recorded_at",
     "portfolio_name",
     "portfolio_fingerprint",
+    "target",
 )
 
 
@@ -54,14 +55,15 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
     history = sub.add_parser(
         "history",
         help="list the decisions and undos in a ledger, oldest first, with who and when",
-        description="List the events of a decision ledger, oldest first. Give the ledger file, "
-        "or a portfolio file to read the ledger kept beside it.",
+        description="List the events of a decision ledger, oldest first: decisions, undos, and "
+        "ends of adjustments. Give the ledger file, a portfolio file, or the review folder to "
+        "read the folder's ledger.",
     )
     history.add_argument(
         "source",
         type=Path,
         metavar="PORTFOLIO_OR_LEDGER",
-        help="a ledger file (.ledger.sqlite), or a portfolio file whose ledger to read",
+        help="a ledger file, a portfolio file, or a review folder whose ledger to read",
     )
     history.add_argument("--ledger", type=Path, metavar="PATH", help="ledger file to read")
     history.add_argument("--cycle", metavar="DATE", help="only this review cycle (YYYY-MM-DD)")
@@ -89,7 +91,7 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
         "--ledger",
         type=Path,
         metavar="PATH",
-        help="ledger file (default: the one beside the portfolio)",
+        help="ledger file (default: the review folder's ledger, see docs/ledger.md)",
     )
     export.add_argument(
         "--cycle", metavar="DATE", help="review cycle (default: the portfolio's latest actual)"
@@ -139,28 +141,6 @@ def _is_ledger_file(path: Path) -> bool:
         return False
 
 
-def _ledger_of_portfolio(portfolio: Path) -> Path:
-    """The ledger that belongs to a portfolio, for reading."""
-    from triage.core.ledger import LEDGER_SUFFIX, default_ledger_path
-
-    source = portfolio.expanduser().absolute()
-    beside = source.with_name(f"{source.stem}{LEDGER_SUFFIX}")
-    # A ledger beside the portfolio is read even where that folder is read-only (the default
-    # path then points to the user data folder, where new ledgers would be created).
-    if beside.exists():
-        return beside
-    path, notice = default_ledger_path(source)
-    if not path.exists():
-        raise TriageError(
-            f"No decisions have been recorded for {portfolio.name}: there is no ledger at "
-            f"{beside}" + (f" nor at {path}" if path != beside else "") + ".",
-            hint="Pass --ledger PATH if the decisions are kept in another file.",
-        )
-    if notice:
-        warn(notice)
-    return path
-
-
 # --------------------------------------------------------------------------------------------
 # history
 
@@ -176,15 +156,25 @@ def cmd_history(args: argparse.Namespace) -> int:
         raise TriageError(
             f"{source}: no such file.", hint="Give a ledger file or a portfolio file that exists."
         )
-    elif source.is_dir():
-        raise TriageError(f"{source} is a folder; give a ledger file or a portfolio file.")
-    elif _is_ledger_file(source):
+    elif source.is_file() and _is_ledger_file(source):
         ledger_path = source
     else:
-        ledger_path = _ledger_of_portfolio(source)
+        # A portfolio file, or the review folder itself: the folder's ledger.
+        found = ledger_to_read(source, config, None)
+        assert found is not None
+        ledger_path = found
 
     with open_ledger_read_only(ledger_path, config) as ledger:
-        events = ledger.history(cycle=cycle, item=args.item, location=args.location)
+        events: list[Event | AdjustmentEnd] = [
+            *ledger.history(cycle=cycle, item=args.item, location=args.location),
+            *(
+                e
+                for e in ledger.ends(item=args.item, location=args.location)
+                if cycle is None or e.cycle == cycle
+            ),
+        ]
+        # One journal: decisions, undos, ends and restores share the positions (docs/ledger.md).
+        events.sort(key=lambda e: e.id)
         causes = {c.code: c.label for c in ledger.root_causes}
         if args.format == "json":
             text = _history_json(ledger.path, events, args)
@@ -197,39 +187,52 @@ def cmd_history(args: argparse.Namespace) -> int:
     return 0
 
 
-def _event_record(event: Event) -> dict[str, Any]:
-    return {name: getattr(event, name) for name in HISTORY_COLUMNS}
+def _event_record(event: Event | AdjustmentEnd) -> dict[str, Any]:
+    """One history row. An end or restore of an adjustment names the adjustment in ``target``;
+    a restore's ``undoes`` is the end it reverts; it has no version, outcome or lines."""
+    from triage.core.ledger import AdjustmentEnd
+
+    if isinstance(event, AdjustmentEnd):
+        values: dict[str, Any] = {
+            **{name: None for name in HISTORY_COLUMNS},
+            **{
+                name: getattr(event, name)
+                for name in HISTORY_COLUMNS
+                if name in AdjustmentEnd.__dataclass_fields__
+            },
+            "undoes": event.reverts,
+        }
+        return values
+    return {name: getattr(event, name, None) for name in HISTORY_COLUMNS}
 
 
-def _history_json(path: Path, events: list[Event], args: argparse.Namespace) -> str:
+def _lines(event: Event | AdjustmentEnd) -> list[dict[str, Any]]:
+    return [
+        {"period": ln.period, "original": ln.original, "adjusted": ln.adjusted}
+        for ln in getattr(event, "lines", ())
+    ]
+
+
+def _history_json(path: Path, events: list[Event | AdjustmentEnd], args: argparse.Namespace) -> str:
     from triage.core.export import dumps_json
 
     doc = {
         "ledger": str(path),
         "filters": {"cycle": args.cycle, "item": args.item, "location": args.location},
-        "events": [
-            {
-                **_event_record(e),
-                "lines": [
-                    {"period": ln.period, "original": ln.original, "adjusted": ln.adjusted}
-                    for ln in e.lines
-                ],
-            }
-            for e in events
-        ],
+        "events": [{**_event_record(e), "lines": _lines(e)} for e in events],
     }
     # Control characters are escaped, so printing the document cannot drive the terminal,
     # while it still decodes to the exact text.
     return dumps_json(doc, indent=1) + "\n"
 
 
-def _history_csv(events: list[Event]) -> str:
+def _history_csv(events: list[Event | AdjustmentEnd]) -> str:
     from triage.core.export import neutralise_one, printable
 
     buffer = io.StringIO()
     writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")
     writer.writerow(HISTORY_COLUMNS)
-    numbers = {"id", "version", "undoes"}
+    numbers = {"id", "version", "undoes", "target"}
     for event in events:
         row = []
         for name, value in _event_record(event).items():
@@ -246,14 +249,17 @@ def _history_csv(events: list[Event]) -> str:
 
 
 def _history_table(
-    path: Path, events: list[Event], causes: dict[str, str], args: argparse.Namespace
+    path: Path,
+    events: list[Event | AdjustmentEnd],
+    causes: dict[str, str],
+    args: argparse.Namespace,
 ) -> str:
     from rich.console import Console
     from rich.table import Table
     from rich.text import Text
 
     from triage.core.export import printable
-    from triage.core.ledger import OUTCOMES, UNDO
+    from triage.core.ledger import END, OUTCOMES, UNDO, AdjustmentEnd
 
     outcomes = {c.code: c.label for c in OUTCOMES}
     filters = [
@@ -289,12 +295,22 @@ def _history_table(
             min_width=longest_word(name),
         )
     for e in events:
-        if e.kind == UNDO:
+        version, adjustment = "", ""
+        if isinstance(e, AdjustmentEnd):
+            what = (
+                f"end of adjustment #{e.target}"
+                if e.kind == END
+                else f"restore of adjustment #{e.target} (reverts #{e.reverts})"
+            )
+            cause = ""
+        elif e.kind == UNDO:
             what = f"undo of #{e.undoes}"
             cause = ""
+            version = str(e.version)
         else:
             what = outcomes.get(e.outcome or "", e.outcome or "")
             cause = causes.get(e.root_cause or "", e.root_cause or "")
+            version, adjustment = str(e.version), e.adjustment or ""
         note = printable(e.note)
         if len(note) > TABLE_NOTE_MAX:
             note = note[:TABLE_NOTE_MAX] + "…"
@@ -305,10 +321,10 @@ def _history_table(
             Text(e.cycle),
             Text(printable(e.item)),
             *([Text(printable(e.location))] if with_location else []),
-            Text(str(e.version)),
+            Text(version),
             Text(printable(what)),
             Text(printable(cause)),
-            Text(printable(e.adjustment or "")),
+            Text(printable(adjustment)),
             Text(note),
         ]
         table.add_row(*cells)
@@ -335,12 +351,10 @@ def cmd_export(args: argparse.Namespace) -> int:
     config = _config(args)
     # Check the target before the (possibly long) load of the portfolio.
     export_paths(args.to)
-    if args.ledger is not None:
-        ledger_path = args.ledger
-    else:
-        if not args.portfolio.exists():
-            raise TriageError(f"{args.portfolio}: no such file.")
-        ledger_path = _ledger_of_portfolio(args.portfolio)
+    if args.ledger is None and not args.portfolio.exists():
+        raise TriageError(f"{args.portfolio}: no such file.")
+    ledger_path = ledger_to_read(args.portfolio, config, args.ledger)
+    assert ledger_path is not None
     columns = parse_column_map(args.columns) if args.columns else None
     portfolio = read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
     with open_ledger_read_only(ledger_path, config) as ledger:

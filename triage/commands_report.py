@@ -22,6 +22,7 @@ from typing import TYPE_CHECKING, Any
 from triage.arguments import (
     check_score_args,
     force_arg,
+    ledger_to_read,
     open_ledger_read_only,
     refuse_overwriting,
     warn,
@@ -101,7 +102,7 @@ def _portfolio_args(parser: argparse.ArgumentParser) -> None:
         "--ledger",
         type=Path,
         metavar="PATH",
-        help="decision ledger (default: <portfolio>.ledger.sqlite beside the portfolio)",
+        help="decision ledger (default: the review folder's ledger, see docs/ledger.md)",
     )
     parser.add_argument(
         "--columns",
@@ -179,28 +180,15 @@ def _load(args: argparse.Namespace) -> Portfolio:
     return read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
 
 
-def _ledger_path(args: argparse.Namespace, *, required: bool) -> Path | None:
-    """The ledger to read: ``--ledger``, else the one kept for the portfolio.
+def _ledger_path(args: argparse.Namespace, config: Config, *, required: bool) -> Path | None:
+    """The ledger to read: ``--ledger``, else the review folder's (``ledger_to_read``).
 
     Without ``required`` a portfolio that has no ledger yet gives None (a report without
     decisions); ``--ledger`` must always name an existing file.
     """
-    from triage.commands_ledger import _ledger_of_portfolio
-
-    if args.ledger is not None:
-        if not args.ledger.exists():
-            raise TriageError(
-                f"There is no decision ledger at {args.ledger}.", hint="Check the --ledger path."
-            )
-        return args.ledger
-    if not args.portfolio.exists():
+    if args.ledger is None and not args.portfolio.exists():
         raise TriageError(f"{args.portfolio}: no such file.")
-    try:
-        return _ledger_of_portfolio(args.portfolio)
-    except TriageError:
-        if required:
-            raise
-        return None
+    return ledger_to_read(args.portfolio, config, args.ledger, required=required)
 
 
 def _check_scoring(args: argparse.Namespace) -> None:
@@ -228,7 +216,7 @@ def cmd_report(args: argparse.Namespace) -> int:
         )
     repeat_n, repeat_m = parse_repeat(args.repeat)
     config = _config(args)
-    ledger_path = _ledger_path(args, required=False)
+    ledger_path = _ledger_path(args, config, required=False)
     if args.to is not None:
         refuse_overwriting([args.to], args.portfolio, ledger_path, force=args.force)
     portfolio = _load(args)
@@ -309,7 +297,7 @@ def cmd_overrides(args: argparse.Namespace) -> int:
     from triage.core import history
 
     config = _config(args)
-    ledger_path = _ledger_path(args, required=True)
+    ledger_path = _ledger_path(args, config, required=True)
     assert ledger_path is not None
     portfolio = _load(args)
     with open_ledger_read_only(ledger_path, config) as ledger:

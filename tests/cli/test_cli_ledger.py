@@ -143,7 +143,9 @@ def test_history_csv_uses_the_export_text_rules(folder: Path) -> None:
 
 
 def test_history_errors_exit_2(folder: Path, tmp_path: Path) -> None:
-    other = tmp_path / "other.csv"
+    # In a folder of its own: every file of a folder shares the folder's ledger.
+    other = tmp_path / "elsewhere" / "other.csv"
+    other.parent.mkdir()
     other.write_text("item,period,demand,forecast\nA,2026-10-05,1,1\n", encoding="utf-8")
     for args, needle in [
         ((str(other),), "No decisions have been recorded for other.csv"),

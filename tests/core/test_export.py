@@ -422,17 +422,20 @@ def test_csv_round_trip_keeps_keys_numbers_and_neutralises_text(
         "forecast",
         "adjusted_forecast",
         "adjusted",
+        "adjusted_in_cycle",
         "outcome",
     ]
     assert len(body) == len(series_keys()) * len(FORWARD)
     want = expected_adjusted(scenario)
-    for item, location, period, fc, adj, flag, _ in body:
+    for item, location, period, fc, adj, flag, made_in, _ in body:
         # Keys byte-exact (never prefixed), numbers exact.
         cell = (item, location, period)
         assert cell in scenario["forecast"]
         assert same_number(fc, scenario["forecast"][cell]), cell
         assert same_number(adj, want[cell]), cell
         assert flag in ("true", "false")
+        # Every adjusted cell names the cycle whose decision made it (here: this cycle).
+        assert made_in == (CYCLE if flag == "true" else ""), cell
     assert {(r[0], r[1]) for r in body} == set(series_keys())
     assert any("start with = + - @" in w for w in result.warnings)  # '=SUM(A1)', '-5', '+x'
 
@@ -511,7 +514,7 @@ def test_xlsx_has_no_formula_and_keeps_keys_and_numbers(scenario: dict, tmp_path
     forecast = sheet_rows(book, "Forecast")
     want = expected_adjusted(scenario)
     assert len(forecast) == 1 + len(series_keys()) * len(FORWARD)
-    for item, location, period, fc, adj, flag, _ in forecast[1:]:
+    for item, location, period, fc, adj, flag, _, _ in forecast[1:]:
         cell = (item, location, period)
         assert same_number(fc, scenario["forecast"][cell]), cell
         assert same_number(adj, want[cell]), cell
@@ -821,7 +824,7 @@ def test_libreoffice_reads_the_workbook_as_written(scenario: dict, tmp_path: Pat
     forecast = sheets["Forecast"]
     want_adj = expected_adjusted(scenario)
     assert len(forecast) == 1 + len(series_keys()) * len(FORWARD)
-    for item, location, period, fc, adj, flag, _ in forecast[1:]:
+    for item, location, period, fc, adj, flag, _, _ in forecast[1:]:
         cell = (item, location, period)
         assert lo_number(fc, scenario["forecast"][cell]), cell
         assert lo_number(adj, want_adj[cell]), cell

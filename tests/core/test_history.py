@@ -290,6 +290,27 @@ def test_repeat_offender_windows_equal_each_weeks_own_worst_set(
     assert (table["repeat"] == (table["times_in_worst"] >= 3)).all()
 
 
+def test_stored_worst_sets_are_exactly_what_each_weeks_list_showed(
+    scenario: CycleScenario,
+) -> None:
+    # The sample month opened each week's file in a review session, which stored its set.
+    newest = _portfolio(scenario, NEWEST)
+    with Ledger.open(scenario.ledger, read_only=True) as ledger:
+        table = history.repeat_offenders(newest, n=3, m=4, target_share=0.8, ledger=ledger)
+    assert table.attrs["sources"] == {c: history.SNAPSHOT for c in scenario.cycles}
+    assert history.repeat_notice(table) is None
+    keys = list(zip(table["item"], table["location"], strict=True))
+    gone = scenario.roles[scenario.disappears]
+    for k, cycle in enumerate(scenario.cycles):
+        # Reference: the week's own file as it was, the delisted series included (it weighed
+        # in that week's totals); it is not reported now, being absent from the newest file.
+        own = read_portfolio(scenario.files[k])
+        shown = leading_cover(scorecard(own), 0.8)
+        expected = set(zip(shown["item"], shown["location"], strict=True)) - {gone}
+        got = {key for key, flag in zip(keys, table[f"worst_{cycle}"], strict=True) if flag}
+        assert got == expected, cycle
+
+
 def test_a_series_that_appears_is_counted_only_from_then_and_one_gone_is_absent(
     scenario: CycleScenario,
 ) -> None:
@@ -331,6 +352,46 @@ def test_repeat_offenders_by_hand() -> None:
     assert table["in_worst_now"].tolist() == [True, False, False, True]
     two_of_four = history.repeat_offenders(_hand_portfolio(), n=2, m=4, target_share=0.5, window=1)
     assert two_of_four["repeat"].tolist() == [True, False, False, True]
+
+
+def test_repeat_offenders_count_the_sets_the_list_showed(tmp_path: Path) -> None:
+    # Same hand portfolio as above. The ledger holds the sets the review list showed in weeks 2
+    # and 5 (say the history of week 2 was restated since: the list then showed C, not A).
+    # Weeks 3 and 4 were never opened for review: they are re-scored, {B} and {A, D}.
+    portfolio = _hand_portfolio()
+    week = [d.strftime("%Y-%m-%d") for d in portfolio.calendar.periods]
+    settings_ = {
+        "reviewer": "ana",
+        "portfolio_name": "w.csv",
+        "portfolio_fingerprint": "",
+        "target_share": 0.5,
+        "window": 1,
+        "season": 1,
+        "ranked_by": "units",
+        "series": 4,
+    }
+    with Ledger.open(tmp_path / "l.sqlite") as ledger:
+        ledger.record_worst_set(week[2], ["C"], [""], **settings_)
+        ledger.record_worst_set(week[5], ["A", "D", "gone"], ["", "", ""], **settings_)
+        table = history.repeat_offenders(
+            portfolio, n=2, m=4, target_share=0.5, window=1, ledger=ledger
+        )
+    assert table[f"worst_{week[2]}"].tolist() == [False, False, True, False]
+    assert table[f"worst_{week[5]}"].tolist() == [True, False, False, True]
+    # Counted per weekly cycle: A in weeks 4, 5; B in 3; C in 2; D in 4, 5.
+    assert table["times_in_worst"].tolist() == [2, 1, 1, 2]
+    assert table["repeat"].tolist() == [True, False, False, True]
+    assert table.attrs["sources"] == {
+        week[2]: history.SNAPSHOT,
+        week[3]: history.RESCORED,
+        week[4]: history.RESCORED,
+        week[5]: history.SNAPSHOT,
+    }
+    notice = history.repeat_notice(table)
+    assert notice is not None and f"2 of the last 4 cycles ({week[3]}, {week[4]})" in notice
+    # Without a ledger every cycle is re-scored, as before.
+    plain = history.repeat_offenders(portfolio, n=2, m=4, target_share=0.5, window=1)
+    assert plain["times_in_worst"].tolist() == [3, 1, 0, 2]
 
 
 def test_repeat_offenders_refuse_bad_settings() -> None:

@@ -25,6 +25,7 @@ from triage.core.config import (
 from triage.core.errors import TriageError
 from triage.core.ledger import (
     APPLICATION_ID,
+    FOLDER_LEDGER,
     NOTE_MAX,
     OUTCOMES,
     SCHEMA_VERSION,
@@ -35,6 +36,7 @@ from triage.core.ledger import (
     Line,
     StaleDecisionError,
     default_ledger_path,
+    locate_ledger,
 )
 
 CYCLE = "2026-11-23"
@@ -194,9 +196,9 @@ def test_versions_cannot_skip_even_when_written_by_hand(path: Path, ledger: Ledg
     con = raw(path)
     with pytest.raises(sqlite3.IntegrityError, match="version must follow"):
         con.execute(
-            "INSERT INTO event (cycle, item, location, version, kind, outcome, root_cause, note,"
-            " reviewer, recorded_at, portfolio_name, portfolio_fingerprint) VALUES"
-            " (?, 'A', '', 3, 'decision', 'no_change', 'unknown', '', 'x', 'now', '', '')",
+            "INSERT INTO event (id, cycle, item, location, version, kind, outcome, root_cause,"
+            " note, reviewer, recorded_at, portfolio_name, portfolio_fingerprint) VALUES"
+            " (2, ?, 'A', '', 3, 'decision', 'no_change', 'unknown', '', 'x', 'now', '', '')",
             (CYCLE,),
         )
     con.close()
@@ -232,10 +234,17 @@ def test_schema_version_application_id_and_settings(path: Path, ledger: Ledger) 
     # PRAGMA semantics: https://sqlite.org/pragma.html (application_id, user_version,
     # journal_mode); reliability.md §1.1 recommends WAL + FULL, STRICT, foreign keys.
     assert con.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
-    assert con.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 1
+    assert con.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 2
     assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
-    strict = {r[1]: r[5] for r in con.execute("PRAGMA table_list") if r[1].startswith("event")}
-    assert strict == {"event": 1, "event_line": 1}
+    strict = {r[1]: r[5] for r in con.execute("PRAGMA table_list") if r[2] == "table"}
+    strict = {name: flag for name, flag in strict.items() if not name.startswith("sqlite_")}
+    assert strict == {
+        "event": 1,
+        "event_line": 1,
+        "adjustment_end": 1,
+        "worst_snapshot": 1,
+        "worst_member": 1,
+    }
     con.close()
     own = ledger._con
     assert own.execute("PRAGMA synchronous").fetchone()[0] == 2  # 2 = FULL (pragma.html)
@@ -306,6 +315,220 @@ def test_read_only_on_request(path: Path) -> None:
             decide(viewer, "B")
     with pytest.raises(LedgerError, match="no decision ledger"):
         Ledger.open(path.with_name("absent.sqlite"), read_only=True)
+
+
+def test_read_only_open_leaves_no_wal_or_shm_behind(path: Path) -> None:
+    with Ledger.open(path) as writable:
+        decide(writable, "A")
+    assert sorted(p.name for p in path.parent.iterdir()) == [path.name]
+    before = path.read_bytes()
+    with Ledger.open(path, read_only=True) as viewer:
+        assert [d.item for d in viewer.current(CYCLE)] == ["A"]
+        with pytest.raises(sqlite3.OperationalError, match="readonly"):
+            viewer._con.execute("CREATE TABLE x (y)")
+    assert sorted(p.name for p in path.parent.iterdir()) == [path.name]
+    assert path.read_bytes() == before
+    # While a review session is open, a reader closing does not take its WAL away.
+    with Ledger.open(path) as session:
+        decide(session, "B")
+        with Ledger.open(path, read_only=True) as viewer:
+            assert sorted(d.item for d in viewer.current(CYCLE)) == ["A", "B"]
+        decide(session, "C")
+    with Ledger.open(path, read_only=True) as viewer:
+        assert sorted(d.item for d in viewer.current(CYCLE)) == ["A", "B", "C"]
+    assert sorted(p.name for p in path.parent.iterdir()) == [path.name]
+
+
+# ---- schema 2: migration, ends of adjustments, worst-set snapshots ----------------------------
+
+V1_FIXTURE = Path(__file__).with_name("data") / "ledger-v1.sqlite"
+
+
+def _rows(file: Path) -> dict[str, list[tuple]]:
+    con = sqlite3.connect(f"file:{file}?mode=ro", uri=True)
+    try:
+        return {
+            "event": con.execute("SELECT * FROM event ORDER BY id").fetchall(),
+            "event_line": con.execute("SELECT * FROM event_line ORDER BY 1, 2").fetchall(),
+        }
+    finally:
+        con.close()
+
+
+def _user_version(file: Path) -> int:
+    con = sqlite3.connect(f"file:{file}?mode=ro", uri=True)
+    try:
+        return int(con.execute("PRAGMA user_version").fetchone()[0])
+    finally:
+        con.close()
+
+
+@pytest.fixture
+def v1(tmp_path: Path) -> Path:
+    """A copy of a schema-1 ledger written by the code of commit e0e2877 (tests/core/data)."""
+    copy = tmp_path / "week47.ledger.sqlite"
+    copy.write_bytes(V1_FIXTURE.read_bytes())
+    assert _user_version(copy) == 1
+    return copy
+
+
+def test_v1_ledger_is_read_as_it_is_when_opened_read_only(v1: Path) -> None:
+    before = v1.read_bytes()
+    with Ledger.open(v1, read_only=True) as viewer:
+        assert viewer.schema_version == 1
+        assert [e.kind for e in viewer.history()] == ["decision", "decision", "undo", "decision"]
+        assert viewer.ends() == [] and viewer.standing_ends() == {} and viewer.worst_sets() == {}
+        assert [d.outcome for d in viewer.current(CYCLE)] == ["adjusted", "deferred"]
+    # Not migrated, not touched, and no -wal / -shm left behind.
+    assert v1.read_bytes() == before
+    assert sorted(p.name for p in v1.parent.iterdir()) == [v1.name]
+
+
+def test_v1_ledger_is_migrated_in_place_keeping_every_row(v1: Path) -> None:
+    before = _rows(v1)
+    with Ledger.open(v1) as opened:
+        assert opened.schema_version == SCHEMA_VERSION == 2
+        history = opened.history()
+        assert [e.id for e in history] == [1, 2, 3, 4]
+        assert history[1].note == "=1+2 \x1b[31m"
+        assert history[0].lines == (
+            Line("2026-11-30", 100.0, 110.0),
+            Line("2026-12-07", None, None),
+        )
+        # The new journal continues the positions of the old one.
+        end = opened.end_adjustment(
+            NEXT_CYCLE, "A-100", "Lyon", target=1, reviewer="ana", **PORTFOLIO
+        )
+        assert end.id == 5
+        later = decide(opened, "C", cycle=NEXT_CYCLE)
+        assert later.id == 6
+    assert _user_version(v1) == 2
+    after = _rows(v1)
+    assert after["event"][:4] == before["event"]
+    assert after["event_line"] == before["event_line"]
+    con = raw(v1)
+    assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
+    assert con.execute("PRAGMA foreign_key_check").fetchall() == []
+    con.close()
+
+
+def test_v1_migration_is_one_transaction(v1: Path, monkeypatch) -> None:
+    from triage.core import ledger as ledger_mod
+
+    def half_then_fail(con: sqlite3.Connection) -> None:
+        ledger_mod._migrate_to_v2(con)
+        raise sqlite3.OperationalError("disk I/O error (simulated, after the new tables)")
+
+    monkeypatch.setattr(ledger_mod, "MIGRATIONS", [ledger_mod.MIGRATIONS[0], half_then_fail])
+    before = _rows(v1)
+    with pytest.raises(LedgerError):
+        Ledger.open(v1)
+    assert _user_version(v1) == 1
+    assert _rows(v1) == before
+    con = raw(v1)
+    tables = {r[0] for r in con.execute("SELECT name FROM sqlite_schema WHERE type = 'table'")}
+    con.close()
+    assert tables == {"event", "event_line"}
+    monkeypatch.undo()
+    with Ledger.open(v1) as opened:
+        assert opened.schema_version == 2 and len(opened.history()) == 4
+
+
+def _adjust(ledger: Ledger, item: str = "A", *, cycle: str = CYCLE, version: int = 0):
+    return decide(
+        ledger,
+        item,
+        cycle=cycle,
+        version=version,
+        outcome="adjusted",
+        adjustment="+10",
+        lines=[("2026-12-07", 100, 110), ("2026-12-14", 100, 110)],
+    )
+
+
+def test_ending_an_earlier_adjustment_is_an_append_only_event(path: Path, ledger: Ledger) -> None:
+    made = _adjust(ledger)
+    end = ledger.end_adjustment(
+        NEXT_CYCLE, "A", "", target=made.id, reviewer="Bob", note="promo cancelled", **PORTFOLIO
+    )
+    assert (end.kind, end.target, end.cycle, end.reviewer) == ("end", made.id, NEXT_CYCLE, "Bob")
+    assert end.recorded_at.endswith("Z") and end.note == "promo cancelled"
+    assert ledger.standing_ends() == {made.id: end}
+    # As of the cycle of the adjustment itself, the end is not yet in force.
+    assert ledger.standing_ends(CYCLE) == {}
+    assert ledger.standing_ends(NEXT_CYCLE) == {made.id: end}
+    with pytest.raises(DecisionError, match="already ended by 'Bob'"):
+        ledger.end_adjustment(NEXT_CYCLE, "A", "", target=made.id, reviewer="ana", **PORTFOLIO)
+    with raw(path) as con:
+        for statement in ("UPDATE adjustment_end SET note = 'x'", "DELETE FROM adjustment_end"):
+            with pytest.raises(sqlite3.IntegrityError, match="append-only"):
+                con.execute(statement)
+    back = ledger.restore_adjustment(NEXT_CYCLE, "A", "", end=end.id, reviewer="Bob", **PORTFOLIO)
+    assert back.kind == "restore" and back.reverts == end.id
+    assert ledger.standing_ends() == {}
+    assert [e.id for e in ledger.ends()] == [end.id, back.id]
+    # The decision itself never changed.
+    assert ledger.history() == [made]
+
+
+@pytest.mark.parametrize(
+    ("case", "message"),
+    [
+        ("same_cycle", "only an earlier cycle's adjustment"),
+        ("not_adjusted", "is not an adjustment"),
+        ("other_series", "not of 'B'"),
+        ("replaced", "undone or replaced"),
+        ("unknown", "is not an adjustment"),
+    ],
+)
+def test_only_an_earlier_effective_adjustment_can_be_ended(
+    ledger: Ledger, case: str, message: str
+) -> None:
+    made = _adjust(ledger)
+    plain = decide(ledger, "C")
+    target, item, cycle = made.id, "A", NEXT_CYCLE
+    if case == "same_cycle":
+        cycle = CYCLE
+    elif case == "not_adjusted":
+        target, item = plain.id, "C"
+    elif case == "other_series":
+        item = "B"
+    elif case == "replaced":
+        decide(ledger, "A", version=1, note="no adjustment after all")
+    elif case == "unknown":
+        target = 999
+    with pytest.raises(DecisionError, match=message):
+        ledger.end_adjustment(cycle, item, "", target=target, reviewer="ana", **PORTFOLIO)
+    assert ledger.ends() == []
+
+
+def test_worst_set_snapshot_is_kept_once_per_cycle_in_list_order(
+    path: Path, ledger: Ledger
+) -> None:
+    settings_ = {
+        "reviewer": "ana",
+        "portfolio_name": "week47.csv",
+        "portfolio_fingerprint": "ab" * 32,
+        "target_share": 0.8,
+        "window": 13,
+        "season": 1,
+        "ranked_by": "value",
+        "series": 40,
+    }
+    assert ledger.record_worst_set(CYCLE, ["B", "A", "00123"], ["x", "", "\t"], **settings_)
+    assert not ledger.record_worst_set(CYCLE, ["Z"], [""], **settings_)
+    stored = ledger.worst_sets()[CYCLE]
+    assert stored.items == ("B", "A", "00123") and stored.locations == ("x", "", "\t")
+    assert (stored.target_share, stored.window, stored.ranked_by, stored.series) == (
+        0.8,
+        13,
+        "value",
+        40,
+    )
+    with raw(path) as con:
+        for statement in ("DELETE FROM worst_member", "UPDATE worst_snapshot SET series = 1"):
+            with pytest.raises(sqlite3.IntegrityError, match="append-only"):
+                con.execute(statement)
 
 
 # ---- text fidelity ----------------------------------------------------------------------------
@@ -419,24 +642,107 @@ def test_a_ledger_can_be_used_from_another_thread(ledger: Ledger) -> None:
 # ---- default location -------------------------------------------------------------------------
 
 
-def test_default_ledger_path_is_beside_the_portfolio(tmp_path: Path) -> None:
+def test_every_file_in_a_folder_shares_the_folder_ledger(tmp_path: Path) -> None:
+    week1, week2 = tmp_path / "erp_2025-10.csv", tmp_path / "erp_2025-11.csv"
+    first, second = locate_ledger(week1), locate_ledger(week2)
+    assert first.path == second.path == tmp_path / FOLDER_LEDGER
+    assert not first.exists and not first.legacy
+    # The first run says where the ledger is.
+    assert any(str(first.path) in n for n in first.notices)
+    assert default_ledger_path(week1)[0] == tmp_path / FOLDER_LEDGER
+    Ledger.open(first.path).close()
+    again = locate_ledger(week2)
+    assert again.exists and again.notices == ()
+    # The folder itself names the same ledger (``triage review FOLDER``, ``triage history``).
+    assert locate_ledger(tmp_path).path == first.path
+    reading = locate_ledger(tmp_path / "erp_2025-12.csv", for_writing=False)
+    assert reading.path == first.path and reading.exists
+
+
+def test_reading_a_folder_without_ledger_finds_none_and_says_nothing_new(tmp_path: Path) -> None:
+    where = locate_ledger(tmp_path / "week47.csv", for_writing=False)
+    assert where.path == tmp_path / FOLDER_LEDGER and not where.exists
+    assert where.notices == ()
+    assert not (tmp_path / FOLDER_LEDGER).exists()
+
+
+def _seed(path: Path, item: str) -> None:
+    with Ledger.open(path) as seeded:
+        decide(seeded, item)
+
+
+def test_a_per_file_ledger_of_the_older_layout_keeps_working(tmp_path: Path) -> None:
+    old = tmp_path / "week47.ledger.sqlite"
+    _seed(old, "A")
+    own = locate_ledger(tmp_path / "week47.csv")
+    assert own.path == old and own.exists and own.legacy
+    assert any("rename it to " + FOLDER_LEDGER in n for n in own.notices)
+    # Next week's file in the same folder carries on with the one older ledger there.
+    nxt = locate_ledger(tmp_path / "week48.csv")
+    assert nxt.path == old and nxt.legacy
+    assert locate_ledger(tmp_path / "week48.csv", for_writing=False).path == old
+    # Nothing was renamed or changed.
+    assert sorted(p.name for p in tmp_path.iterdir()) == ["week47.ledger.sqlite"]
+
+
+def test_several_older_ledgers_are_not_guessed_between(tmp_path: Path) -> None:
+    _seed(tmp_path / "week47.ledger.sqlite", "A")
+    _seed(tmp_path / "week48.ledger.sqlite", "B")
+    assert locate_ledger(tmp_path / "week48.csv").path == tmp_path / "week48.ledger.sqlite"
+    new = locate_ledger(tmp_path / "week49.csv")
+    assert new.path == tmp_path / FOLDER_LEDGER and not new.exists
+    listed = " ".join(new.notices)
+    assert "week47.ledger.sqlite" in listed and "week48.ledger.sqlite" in listed
+
+
+def test_the_folder_ledger_wins_over_an_older_one_and_says_so(tmp_path: Path) -> None:
+    _seed(tmp_path / "week47.ledger.sqlite", "A")
+    _seed(tmp_path / FOLDER_LEDGER, "B")
+    where = locate_ledger(tmp_path / "week47.csv")
+    assert where.path == tmp_path / FOLDER_LEDGER and not where.legacy
+    assert any("week47.ledger.sqlite" in n and "not read" in n for n in where.notices)
+
+
+def test_configured_ledger_name_or_path(tmp_path: Path) -> None:
     portfolio = tmp_path / "week47.csv"
-    assert default_ledger_path(portfolio) == (tmp_path / "week47.ledger.sqlite", None)
+    assert locate_ledger(portfolio, name="plan.sqlite").path == tmp_path / "plan.sqlite"
+    elsewhere = tmp_path / "shared" / "team.sqlite"
+    where = locate_ledger(portfolio, name=str(elsewhere))
+    assert where.path == elsewhere and not where.exists
+    # A configured name is never swapped for an older per-file ledger of another file.
+    _seed(tmp_path / "week46.ledger.sqlite", "A")
+    assert locate_ledger(portfolio, name="plan.sqlite").path == tmp_path / "plan.sqlite"
 
 
-def test_default_ledger_path_falls_back_to_user_data(tmp_path: Path, monkeypatch) -> None:
+def test_unwritable_folder_falls_back_to_user_data_one_per_folder(
+    tmp_path: Path, monkeypatch
+) -> None:
     # The real unprivileged run is in test_ledger_faults.py; here the folder check is forced.
     monkeypatch.setenv("XDG_DATA_HOME", str(tmp_path / "data"))
-    locked = tmp_path / "shared"
-    locked.mkdir()
+    locked = tmp_path / "a" / "shared"
+    twin = tmp_path / "b" / "shared"
+    for folder in (locked, twin):
+        folder.mkdir(parents=True)
     real = __import__("triage.core.ledger", fromlist=["_dir_writable"])._dir_writable
     monkeypatch.setattr(
-        "triage.core.ledger._dir_writable", lambda folder: folder != locked and real(folder)
+        "triage.core.ledger._dir_writable",
+        lambda folder: folder not in (locked, twin) and real(folder),
     )
     where, notice = default_ledger_path(locked / "week47.csv")
-    assert where == tmp_path / "data" / "triage" / "week47.ledger.sqlite"
-    assert where.parent.is_dir()
+    assert where.name == FOLDER_LEDGER
+    assert where.parent.parent == tmp_path / "data" / "triage" / "folders"
+    assert where.parent.name.startswith("shared-") and where.parent.is_dir()
     assert notice is not None and str(locked) in notice and str(where) in notice
+    # Two read-only folders with the same name never share a ledger.
+    assert default_ledger_path(twin / "week47.csv")[0] != where
+    # Reading finds what a review of the locked folder recorded.
+    _seed(where, "A")
+    assert locate_ledger(locked / "week48.csv", for_writing=False).path == where
+    # The older per-file fallback is still used when it is all there is.
+    older = tmp_path / "data" / "triage" / "week50.ledger.sqlite"
+    _seed(older, "B")
+    other = default_ledger_path(twin / "week50.csv")
+    assert other[0] == older and other[1] is not None and "earlier triage" in other[1]
 
 
 # ---- config -----------------------------------------------------------------------------------
@@ -445,12 +751,13 @@ def test_default_ledger_path_falls_back_to_user_data(tmp_path: Path, monkeypatch
 def test_config_file_values(tmp_path: Path) -> None:
     file = tmp_path / "config.toml"
     file.write_text(
-        'reviewer = "Ana Ruiz"\ntarget_share = 0.9\n'
+        'reviewer = "Ana Ruiz"\ntarget_share = 0.9\nledger = "planning.sqlite"\n'
         '[root_causes]\npromo = "Promotion"\nweather = "Weather"\n',
         encoding="utf-8",
     )
     cfg = load_config(file)
     assert cfg.reviewer == "Ana Ruiz" and cfg.target_share == 0.9 and cfg.path == file
+    assert cfg.ledger == "planning.sqlite"
     assert [(c.code, c.label, c.key) for c in cfg.root_causes] == [
         ("promo", "Promotion", "1"),
         ("weather", "Weather", "2"),
@@ -486,6 +793,10 @@ def test_config_defaults_and_user_folder(tmp_path: Path, monkeypatch) -> None:
         ("[root_causes]\nok = ''\n", "root_causes.ok", "non-empty text label"),
         ("[root_causes]\n", "root_causes", "is empty"),
         ("reviewer = \n", None, "not valid TOML"),
+        ("ledger = ''\n", "ledger", "must name a ledger file"),
+        ("ledger = 3\n", "ledger", "must name a ledger file"),
+        ("ledger = 'team/'\n", "ledger", "must name a ledger file"),
+        ('ledger = "a\\nb"\n', "ledger", "must name a ledger file"),
     ],
 )
 def test_bad_config_names_file_and_key(tmp_path: Path, text: str, key, words: str) -> None:

@@ -48,7 +48,10 @@ def spawn(*args: object, prefix: tuple[str, ...] = (), env: dict[str, str] | Non
 
 
 def acked(out: str) -> list[str]:
-    return [line.split(" ", 1)[1] for line in out.splitlines() if line.startswith("ACK ")]
+    # Complete lines only: print() may write its parts one by one (unbuffered output), so a kill
+    # can leave "ACK " without its item; that decision then counts as saved without its ACK.
+    complete = out.split("\n")[:-1]
+    return [line.split(" ", 1)[1] for line in complete if line.startswith("ACK ")]
 
 
 def integrity(path: Path) -> list[str]:
@@ -96,7 +99,12 @@ def test_kill9_during_writes_loses_no_acknowledged_decision(tmp_path: Path) -> N
             assert child.stdout.readline().strip() == "READY", child.stderr
             time.sleep(rng.uniform(0.005, 0.2))
         os.kill(child.pid, signal.SIGKILL)
-        out, _ = child.communicate(timeout=10)
+        assert child.stdout is not None and child.stderr is not None
+        # Read through the same buffer readline() used: communicate() reads the pipe itself, so
+        # an ACK that arrived with READY and sits in that buffer would be lost.
+        out = child.stdout.read()
+        child.stderr.read()
+        child.wait(timeout=10)
         assert child.returncode == -signal.SIGKILL
         mine = acked(out)
         acknowledged.update(mine)
@@ -364,7 +372,11 @@ def test_read_only_folder_and_file_open_read_only_with_a_notice() -> None:
         out, err = child.communicate(timeout=30)
         assert child.returncode == 0, err
         where = json.loads(out)
-        assert where["path"] == str(data_home / "triage" / "week47.ledger.sqlite")
+        # One stand-in ledger per read-only review folder, in the user data folder.
+        stand_in = Path(where["path"])
+        assert stand_in.name == "triage-ledger.sqlite"
+        assert stand_in.parent.parent == data_home / "triage" / "folders"
+        assert stand_in.parent.name.startswith("shared-")
         assert "is not writable" in where["notice"] and where["path"] in where["notice"]
     finally:
         for folder in base.rglob("*"):

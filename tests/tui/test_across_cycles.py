@@ -59,3 +59,39 @@ async def test_newest_week_shows_earlier_cycles(scenario, tmp_path: Path) -> Non
         assert int(total["adjustments"]) == len(realised)
         assert total["value_added"] == pytest.approx(sum(line.value_added for line in realised))
         await pilot.press("escape")
+
+
+async def test_week_two_marks_and_details_an_earlier_adjustment_still_carried(
+    tmp_path: Path,
+) -> None:
+    # Week 1 adjusts A (+10) and B (=50) over four weeks; week 2's file, dropped in the same
+    # folder, finds the folder's ledger. A's adjustment is still ahead and carried; B's is
+    # already in week 2's forecast (tests/core/twoweeks.py).
+    from tests.core.twoweeks import WEEK1, write_two_weeks
+    from triage.core.ledger import Ledger, locate_ledger
+    from triage.core.portfolio import read_portfolio
+    from triage.core.review import ReviewSession
+    from triage.tui.format import CARRIED_TINY
+
+    weeks = write_two_weeks(tmp_path / "review")
+    with Ledger.open(locate_ledger(weeks.week1).path) as ledger:
+        week1 = ReviewSession(read_portfolio(weeks.week1), ledger=ledger, reviewer="ana")
+        for item, spec in (("A", "+10"), ("B", "=50")):
+            series = week1.find(item, "Lyon")
+            assert series is not None
+            week1.commit_decision(
+                series, outcome="adjusted", root_cause="promotion", adjustment=spec
+            )
+    app = TriageApp(Options(portfolio=weeks.week2, reviewer="bob"))
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        session = app.session
+        a, b = session.find("A", "Lyon"), session.find("B", "Lyon")
+        assert app._format_row(a)["outcome"][0] == CARRIED_TINY
+        assert app._format_row(b)["outcome"][0] != CARRIED_TINY
+        series_list = app.query_one(SeriesList)
+        while series_list.current != a:
+            await pilot.press("j")
+        detail = str(app.query_one("#detail-text").render())
+        assert f"active adjustment from {WEEK1} (+10, by ana)" in detail
+        assert "carried into this cycle's export for 3 periods" in detail

@@ -14,7 +14,7 @@ import pytest
 from textual.widgets import Input, TextArea
 
 from tests.tui.conftest import wait_for, wait_loaded
-from triage.core.ledger import Ledger
+from triage.core.ledger import FOLDER_LEDGER, Ledger
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.decision import DecisionScreen
 from triage.tui.screens.dialogs import HelpScreen, PromptScreen
@@ -62,7 +62,7 @@ async def test_open_move_and_quick_decision_is_in_the_ledger(portfolio: Path) ->
         await wait_for(pilot, lambda: session.outcome[series] != "", "the decision to be saved")
         assert "saved" in app.status_text
         item, location = session.key(series)
-    rows = ledger_rows(portfolio.with_name("week.ledger.sqlite"))
+    rows = ledger_rows(portfolio.with_name(FOLDER_LEDGER))
     assert rows == [("decision", item, location, "no_change", "stock_out", "", None, "ana")]
 
 
@@ -87,7 +87,7 @@ async def test_decide_with_note_and_adjustment_preview(portfolio: Path) -> None:
         await wait_for(
             pilot, lambda: session.outcome[series] == "adjusted", "the adjusted decision"
         )
-    with Ledger.open(portfolio.with_name("week.ledger.sqlite"), read_only=True) as ledger:
+    with Ledger.open(portfolio.with_name(FOLDER_LEDGER), read_only=True) as ledger:
         events = ledger.history()
     assert len(events) == 1
     event = events[0]
@@ -111,7 +111,7 @@ async def test_bad_adjustment_is_refused_in_the_dialog(portfolio: Path) -> None:
         await pilot.press("escape")
         await pilot.pause(0.1)
         assert not isinstance(app.screen, DecisionScreen)
-    assert ledger_rows(portfolio.with_name("week.ledger.sqlite")) == []
+    assert ledger_rows(portfolio.with_name(FOLDER_LEDGER)) == []
 
 
 async def test_undo_and_next_unreviewed(portfolio: Path) -> None:
@@ -129,7 +129,7 @@ async def test_undo_and_next_unreviewed(portfolio: Path) -> None:
         await pilot.press("u")
         await wait_for(pilot, lambda: session.outcome[first] == "", "the undo")
         assert session.progress().reviewed == 0
-    kinds = [row[0] for row in ledger_rows(portfolio.with_name("week.ledger.sqlite"))]
+    kinds = [row[0] for row in ledger_rows(portfolio.with_name(FOLDER_LEDGER))]
     assert kinds == ["decision", "undo"]  # append-only: the decision is still in the journal
 
 
@@ -252,4 +252,4 @@ async def test_a_file_with_nothing_to_score_says_so_and_opens_no_ledger(tmp_path
         await wait_for(pilot, lambda: "Cannot open" in str(label.render()), "the load error")
         assert "nothing to score" in str(label.render())
         assert app.session is None
-    assert not (tmp_path / "week47.ledger.sqlite").exists()
+    assert not (tmp_path / FOLDER_LEDGER).exists()

@@ -5,6 +5,7 @@ The file is TOML, read from ``--config PATH`` or from ``config.toml`` in the use
 
     reviewer = "Ana Ruiz"          # name stored with each decision (default: the login name)
     target_share = 0.8             # share of total error the worst-offender list should cover
+    ledger = "triage-ledger.sqlite"  # the review folder's ledger: a name in the folder, or a path
 
     [root_causes]                  # replaces the whole default list, in this order
     promo = "Promotion or event"
@@ -103,6 +104,10 @@ class Config:
     """Share of total error (0-1] the worst-offender list should cover."""
     auto_advance: bool = False
     """After a decision, move to the next series without one (``N`` toggles it in the app)."""
+    ledger: str | None = None
+    """The ledger of every review folder: a file name kept in the portfolio's folder, or a
+    path (absolute, or with a folder part, relative to the portfolio's folder); None means
+    ``triage.core.ledger.FOLDER_LEDGER`` in the portfolio's folder."""
     path: Path | None = None
     """The file the settings came from, or None when none was read."""
 
@@ -171,7 +176,7 @@ def load_config(path: str | Path | None = None) -> Config:
 
 
 def _parse(file: Path, data: dict[str, Any]) -> Config:
-    known = {"reviewer", "root_causes", "target_share", "auto_advance"}
+    known = {"reviewer", "root_causes", "target_share", "auto_advance", "ledger"}
     for key in data:
         if key not in known:
             raise ConfigError(
@@ -196,6 +201,20 @@ def _parse(file: Path, data: dict[str, Any]) -> Config:
     advance = data.get("auto_advance", False)
     if not isinstance(advance, bool):
         raise ConfigError(file, "auto_advance", f"must be true or false, not {advance!r}")
+    ledger = data.get("ledger")
+    if ledger is not None and (
+        not isinstance(ledger, str)
+        or not ledger.strip()
+        or ledger != ledger.strip()
+        or any(ch < " " for ch in ledger)
+        or ledger.endswith(("/", "\\"))
+    ):
+        raise ConfigError(
+            file,
+            "ledger",
+            f'must name a ledger file, e.g. ledger = "triage-ledger.sqlite", not {ledger!r}',
+            hint="A file name is kept in each portfolio's folder; a path names one file.",
+        )
     causes = DEFAULT_ROOT_CAUSES
     if "root_causes" in data:
         causes = _parse_causes(file, data["root_causes"])
@@ -204,6 +223,7 @@ def _parse(file: Path, data: dict[str, Any]) -> Config:
         root_causes=causes,
         target_share=share,
         auto_advance=advance,
+        ledger=ledger,
         path=file,
     )
 

@@ -5,7 +5,8 @@
 * **decisions**: one row per reviewed series (its effective decision in the cycle);
 * **forecast**: one row per series and forward period, for *every* series of the portfolio, so the
   file is a complete forward forecast: the ledger's adjusted value where the series' decision
-  adjusted that period, the portfolio's forecast everywhere else.
+  adjusted that period, or where an earlier cycle's adjustment still reaches it (carried, marked
+  in ``adjusted_in_cycle``; docs/history.md), the portfolio's forecast everywhere else.
 
 Every format carries the same caution (``CAUTION``) and the provenance: portfolio file name and
 fingerprint, cycle, ledger, when and by whom it was exported. docs/export.md describes the files.
@@ -36,7 +37,7 @@ import json
 import os
 import re
 from collections.abc import Callable, Iterable, Iterator, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from datetime import UTC, datetime
 from pathlib import Path
 from typing import IO, Any
@@ -45,7 +46,7 @@ import numpy as np
 import pandas as pd
 
 from triage import __version__
-from triage.core import schema
+from triage.core import history, schema
 from triage.core.config import Choice, default_reviewer
 from triage.core.errors import TriageError
 from triage.core.files import (
@@ -114,13 +115,14 @@ FORECAST_COLUMNS: tuple[str, ...] = (
     "forecast",
     "adjusted_forecast",
     "adjusted",
+    "adjusted_in_cycle",
     "outcome",
 )
 _KEYS = frozenset((ITEM, LOCATION))
 _NUMBERS = frozenset(("units_change", "value_change", "forecast", "adjusted_forecast"))
 _FLAGS = frozenset(("adjusted",))
 #: Text written by triage in a fixed format (ISO dates): never starts with a trigger.
-_FIXED = frozenset(("cycle", "period"))
+_FIXED = frozenset(("cycle", "period", "adjusted_in_cycle"))
 
 _EXAMPLES = 5
 #: Rows converted to Python objects at a time when a table is written.
@@ -147,7 +149,12 @@ class ReviewTables:
     warnings: tuple[str, ...]
     """Things the user must know about the content (skipped decisions, stale lines...)."""
     adjusted_periods: int
-    """Forecast rows whose value comes from a ledger adjustment."""
+    """Forecast rows whose value comes from a ledger adjustment (this cycle's or carried)."""
+    carried_periods: int = 0
+    """Of those, rows whose value an earlier cycle's adjustment gives (``adjusted_in_cycle``)."""
+    carried: pd.DataFrame = field(default_factory=pd.DataFrame)
+    """The carried lines applied: ``history.CARRIED_LINE_COLUMNS`` (one row per forecast row
+    an earlier cycle's adjustment gives)."""
 
 
 @dataclass(frozen=True)
@@ -409,6 +416,27 @@ def review_tables(
             "exported."
         )
 
+    # ---- earlier cycles' adjustments still ahead (docs/history.md, "Carrying adjustments into
+    # a new cycle"): applied where this cycle's own decisions did not adjust the period.
+    made_in = np.zeros(forward.shape, dtype=np.int16)  # 0: not adjusted, 1: this cycle
+    made_in[rows, cols] = 1
+    carried_lines = history.carried_adjustments(portfolio, ledger, cycle=cycle)
+    carried_lines = carried_lines.loc[carried_lines["standing"].to_numpy(dtype=bool)]
+    c_rows = carried_lines["series"].to_numpy(dtype=np.int64)
+    c_cols = carried_lines["column"].to_numpy(dtype=np.int64) - first_fwd
+    replaced_now = flag[c_rows, c_cols]
+    already = carried_lines["in_forecast"].to_numpy(dtype=bool) & ~replaced_now
+    applied_mask = ~replaced_now & ~already
+    applied = carried_lines.loc[applied_mask].reset_index(drop=True)
+    made_cycles = [cycle, *sorted(set(applied["cycle"].astype(str)))]
+    if len(applied):
+        a_rows, a_cols = c_rows[applied_mask], c_cols[applied_mask]
+        adjusted_fc[a_rows, a_cols] = applied["adjusted"].to_numpy(dtype=np.float64)
+        flag[a_rows, a_cols] = True
+        code = {c: i + 1 for i, c in enumerate(made_cycles)}
+        made_in[a_rows, a_cols] = applied["cycle"].astype(str).map(code).to_numpy(np.int16)
+    warnings.extend(_carried_warnings(portfolio, carried_lines, applied, already, replaced_now))
+
     outcome_of = np.full(n_series, "", dtype=object)
     if n_dec:
         outcome_of[kept_series] = np.array([d.outcome for d in kept], dtype=object)
@@ -420,10 +448,15 @@ def review_tables(
     forecast_cols["forecast"] = forward.ravel()
     forecast_cols["adjusted_forecast"] = adjusted_fc.ravel()
     forecast_cols["adjusted"] = flag.ravel()
+    # One small code per cell (not a text object per row): at a million series x 13 periods
+    # an object column would take ~100 MB.
+    forecast_cols["adjusted_in_cycle"] = pd.Categorical.from_codes(
+        made_in.ravel(), categories=["", *made_cycles]
+    )
     forecast_cols["outcome"] = np.repeat(outcome_of, n_fwd)
     # copy=False: the columns are fresh arrays already; at a million series each copy is ~100 MB.
     forecast = pd.DataFrame(
-        {k: pd.Series(v, dtype=v.dtype, copy=False) for k, v in forecast_cols.items()},
+        {k: pd.Series(v, copy=False) for k, v in forecast_cols.items()},
         copy=False,
     )
 
@@ -480,7 +513,59 @@ def review_tables(
         provenance=provenance,
         warnings=tuple(warnings),
         adjusted_periods=int(flag.sum()),
+        carried_periods=len(applied),
+        carried=applied,
     )
+
+
+def _carried_warnings(
+    portfolio: Portfolio,
+    lines: pd.DataFrame,
+    applied: pd.DataFrame,
+    already: np.ndarray,
+    replaced_now: np.ndarray,
+) -> list[str]:
+    """What the export says about earlier cycles' adjustments (none when there are none)."""
+    out: list[str] = []
+    name = portfolio.path.name
+
+    def who(frame: pd.DataFrame) -> str:
+        pairs = frame[[ITEM, LOCATION, "cycle"]].drop_duplicates()
+        names = [
+            f"{describe_series(i, loc)} from {c}"
+            for i, loc, c in pairs.itertuples(index=False, name=None)
+        ]
+        return _examples(names, len(names))
+
+    if len(applied):
+        cycles = ", ".join(sorted(set(applied["cycle"].astype(str))))
+        out.append(
+            f"{len(applied)} forward period(s) carry adjustments made in earlier cycles "
+            f"({cycles}), applied as decided then and marked in adjusted_in_cycle: "
+            + who(applied)
+            + ". A reviewer ends one in the review screens; a decision of this cycle that "
+            "adjusts the same period takes precedence."
+        )
+        changed = applied.loc[applied["forecast_changed"].to_numpy(dtype=bool)]
+        if len(changed):
+            out.append(
+                f"{len(changed)} carried period(s) started from a forecast that differs from the "
+                f"one in {name} (the forecast changed since the adjustment was made); the "
+                "adjusted value decided then is exported: " + who(changed) + "."
+            )
+    if already.any():
+        out.append(
+            f"{int(already.sum())} period(s) of earlier adjustments are already in {name}'s "
+            "forecast (it equals the adjusted value), so nothing is applied there: "
+            + who(lines.loc[already])
+            + "."
+        )
+    if replaced_now.any():
+        out.append(
+            f"{int(replaced_now.sum())} period(s) of earlier adjustments are replaced by this "
+            "cycle's own adjustments: " + who(lines.loc[replaced_now]) + "."
+        )
+    return out
 
 
 # --------------------------------------------------------------------------------------------
@@ -1051,7 +1136,10 @@ COLUMN_NOTES: dict[str, str] = {
     "portfolio_name, portfolio_fingerprint": "the portfolio file the decision was made on",
     "period": "forward period start date (ISO)",
     "forecast": "the portfolio's forward forecast; empty where it has none",
-    "adjusted_forecast": "the adjusted value where the decision changed that period, else forecast",
-    "adjusted": "true where adjusted_forecast comes from the decision",
+    "adjusted_forecast": "the adjusted value where a decision (this cycle's, or an earlier one "
+    "carried) changed that period, else forecast",
+    "adjusted": "true where adjusted_forecast comes from a decision (this cycle's or carried)",
+    "adjusted_in_cycle": "the review cycle whose decision gave adjusted_forecast: this cycle, "
+    "or an earlier cycle whose adjustment is carried; empty where not adjusted",
     "outcome (forecast)": "the series' decision outcome this cycle, empty when not reviewed",
 }

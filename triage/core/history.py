@@ -7,7 +7,8 @@ loop with the newer file's actuals:
   the error of the original and of the adjusted forecast, and the value the override added;
 * ``summarise``: those lines by reviewer, root cause, direction, size band or cycle;
 * ``repeat_offenders``: series in the worst-offender set in at least N of the last M cycles,
-  re-scored from the current file alone;
+  as the ledger stored each cycle's set when it was opened for review (re-scored from the
+  current file for cycles without one);
 * ``active_adjustments``: adjustments with forward periods still ahead;
 * ``carried_over``: handed-off and put-off series still among the worst;
 * ``portfolio_fva``: forecast value added over the naive forecast for the cycle.
@@ -74,6 +75,7 @@ NOT_IN_PORTFOLIO = "not_in_portfolio"
 OFF_CALENDAR = "off_calendar"
 UNCHANGED = "unchanged"
 NO_FORECAST = "no_forecast"
+ENDED = "ended"
 LINE_STATUSES: tuple[str, ...] = (
     REALISED,
     AHEAD,
@@ -82,6 +84,7 @@ LINE_STATUSES: tuple[str, ...] = (
     OFF_CALENDAR,
     UNCHANGED,
     NO_FORECAST,
+    ENDED,
 )
 STATUS_TEXT = {
     REALISED: "actual demand is in: value realised",
@@ -91,6 +94,7 @@ STATUS_TEXT = {
     OFF_CALENDAR: "period is not on this portfolio's calendar",
     UNCHANGED: "the adjustment left this period unchanged",
     NO_FORECAST: "original or adjusted forecast missing",
+    ENDED: "a reviewer ended the adjustment before this period",
 }
 
 #: Outcomes that leave a series open for a later cycle.
@@ -194,7 +198,9 @@ def _float(value: float | None) -> float:
     return math.nan if value is None else float(value)
 
 
-def adjustment_lines(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+def adjustment_lines(
+    portfolio: Portfolio, ledger: Ledger | None, *, as_of: str | None = None
+) -> pd.DataFrame:
     """Every line of every effective adjustment, located in the portfolio, with its status.
 
     One row per (decision, period): ``event_id``, ``cycle``, ``item``, ``location``,
@@ -202,6 +208,10 @@ def adjustment_lines(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFram
     ``series`` (portfolio position, -1 if absent), ``column`` (calendar column, -1 if off the
     calendar), ``actual`` (NaN unless realised) and ``status`` (one of ``LINE_STATUSES``).
     The join to the portfolio is one vectorised lookup for the keys and one for the periods.
+
+    A line is ``ended`` when a reviewer ended its adjustment (``Ledger.end_adjustment``) in a
+    cycle before the line's period, and that end is in force as of ``as_of`` (default the
+    portfolio's cycle): the override no longer stood for that period.
     """
     decisions = [d for d in effective_decisions(ledger) if d.outcome == ADJUSTED and d.lines]
     counts = [len(d.lines) for d in decisions]
@@ -239,17 +249,29 @@ def adjustment_lines(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFram
     inside = (series >= 0) & (column >= 0) & (column <= portfolio.last_actual)
     actual[inside] = portfolio.demand[series[inside], column[inside]]
 
-    # Precedence: a missing series or forecast first, then an unchanged period, then time.
+    # The cycle each line's adjustment was ended in ("" when it stands), as of ``as_of``.
+    ends = ledger.standing_ends(as_of or latest) if ledger is not None else {}
+    ended_in = np.full(len(frame), "", dtype=object)
+    if ends:
+        end_cycles = pd.Series({k: e.cycle for k, e in ends.items()}, dtype=object)
+        ended_in = (
+            end_cycles.reindex(frame["event_id"].to_numpy()).fillna("").to_numpy(dtype=object)
+        )
+    ended = (ended_in != "") & (period > ended_in.astype(str))
+
+    # Precedence: a missing series or forecast first, then an unchanged period, then an end,
+    # then time.
     status = np.select(
         [
             series < 0,
             np.isnan(original) | np.isnan(adjusted),
             adjusted == original,
+            ended,
             period > latest,
             column < 0,
             np.isnan(actual),
         ],
-        [NOT_IN_PORTFOLIO, NO_FORECAST, UNCHANGED, AHEAD, OFF_CALENDAR, NO_ACTUAL],
+        [NOT_IN_PORTFOLIO, NO_FORECAST, UNCHANGED, ENDED, AHEAD, OFF_CALENDAR, NO_ACTUAL],
         default=REALISED,
     )
     frame["series"] = series
@@ -478,6 +500,11 @@ def worst_set(error: np.ndarray, target_share: float) -> np.ndarray:
     return mask
 
 
+#: Where a cycle's worst-offender set came from in ``repeat_offenders`` (``attrs["sources"]``).
+SNAPSHOT = "snapshot"
+RESCORED = "rescored"
+
+
 def repeat_offenders(
     portfolio: Portfolio,
     *,
@@ -485,28 +512,33 @@ def repeat_offenders(
     m: int = 4,
     target_share: float = 0.8,
     window: int = 13,
+    ledger: Ledger | None = None,
 ) -> pd.DataFrame:
     """Series in the worst-offender set in at least ``n`` of the last ``m`` cycles.
 
-    The ledger does not store past worst-offender sets, so they are re-scored from this
-    portfolio alone: cycle k (k = 0 the current one) is the scoring window of ``window`` periods
-    with actuals ending at the k-th latest period with any actual demand, ranked by absolute
-    error (in value where priced) as ``scorecard`` ranks; its worst set is the leading set
-    covering ``target_share``. That reproduces what the review list showed in those weeks as
-    long as the history's actuals and forecasts were not restated since.
+    The last ``m`` cycles are the ``m`` latest periods with any actual demand in this portfolio
+    (cycle k = 0 is the current one): distinct weekly (or monthly) cycles, each counted once.
+    A cycle's worst set is, in this order:
 
-    A series counts in a cycle's window only where it has at least one scored period there: a
-    series that appeared later is not counted before it appeared (``windows_seen`` says in how
-    many it was), and can reach the flag only through the windows it was in. A series missing
-    from this portfolio (delisted, dropped from the file) is not reported at all, and its error
-    no longer weighs in the earlier windows' totals, so those sets can differ slightly from what
-    the review list showed while it was still in the file.
+    * the set the review list showed when the cycle was first opened for review, as the ledger
+      stored it (``Ledger.worst_sets``; schema 2 onwards): what the reviewers actually saw;
+    * else re-scored from this portfolio alone: the scoring window of ``window`` periods with
+      actuals ending at that period, ranked by absolute error (in value where priced) as
+      ``scorecard`` ranks, cut at ``target_share``. That reproduces what the list showed as long
+      as the history's actuals and forecasts were not restated and no series left the file
+      since; ``attrs["sources"]`` says which cycles were re-scored (``repeat_notice`` words it).
+
+    A series counts in a cycle only where it has at least one scored period in that cycle's
+    window, or was in its stored set: a series that appeared later is not counted before it
+    appeared (``windows_seen`` says in how many it was). A series missing from this portfolio
+    is not reported at all.
 
     Returns:
         One row per series of the portfolio (index = position): the key columns,
         ``times_in_worst``, ``windows_seen``, ``repeat`` (times_in_worst >= n), ``in_worst_now``
         and one boolean column per cycle, ``worst_<YYYY-MM-DD>``, oldest first. Fewer than ``m``
-        cycle columns when the history holds fewer periods with actuals.
+        cycle columns when the history holds fewer periods with actuals. ``attrs["sources"]``
+        maps each cycle to ``SNAPSHOT`` or ``RESCORED``.
 
     Raises:
         HistoryError: ``n`` or ``m`` below 1, ``n`` above ``m``, or a target share outside (0, 1].
@@ -523,19 +555,29 @@ def repeat_offenders(
     demand, forecast, price = portfolio.demand, portfolio.forecast, portfolio.price
     # The m latest periods with any actual demand, oldest first.
     ends = metrics.window_columns(demand, portfolio.last_actual, m)
+    dates = [portfolio.calendar.periods[int(end)].strftime("%Y-%m-%d") for end in ends]
+    stored = ledger.worst_sets() if ledger is not None else {}
     n_series = portfolio.n_series
     member = np.zeros((n_series, len(ends)), dtype=bool)
     seen = np.zeros((n_series, len(ends)), dtype=bool)
+    sources: dict[str, str] = {}
     for j, end in enumerate(ends):
         # Adjacent columns (the usual case) as a slice: views, not copies of the matrices.
         cols = ranking.as_slice(metrics.window_columns(demand, int(end), window))
         wm = metrics.window_measures(
             demand[:, cols], forecast[:, cols], price[:, cols] if price is not None else None
         )
-        error = wm.abs_error_value if wm.abs_error_value is not None else wm.abs_error
-        member[:, j] = worst_set(error, target_share)
         seen[:, j] = wm.periods > 0
-    member &= seen
+        snapshot = stored.get(dates[j])
+        if snapshot is not None:
+            found = series_positions(portfolio, snapshot.items, snapshot.locations)
+            member[found[found >= 0], j] = True
+            seen[:, j] |= member[:, j]
+            sources[dates[j]] = SNAPSHOT
+            continue
+        error = wm.abs_error_value if wm.abs_error_value is not None else wm.abs_error
+        member[:, j] = worst_set(error, target_share) & seen[:, j]
+        sources[dates[j]] = RESCORED
     data: dict[str, object] = {c: portfolio.keys[c].to_numpy() for c in portfolio.key_columns}
     times = member.sum(axis=1)
     data.update(
@@ -544,9 +586,25 @@ def repeat_offenders(
         repeat=times >= n,
         in_worst_now=member[:, -1] if len(ends) else np.zeros(n_series, dtype=bool),
     )
-    for j, end in enumerate(ends):
-        data[f"worst_{portfolio.calendar.periods[int(end)].strftime('%Y-%m-%d')}"] = member[:, j]
-    return pd.DataFrame(data)
+    for j, date in enumerate(dates):
+        data[f"worst_{date}"] = member[:, j]
+    out = pd.DataFrame(data)
+    out.attrs["sources"] = sources
+    return out
+
+
+def repeat_notice(offenders: pd.DataFrame) -> str | None:
+    """What to tell the reviewer when some cycles' worst sets had to be re-scored, else None."""
+    sources: dict[str, str] = offenders.attrs.get("sources", {})
+    rescored = [c for c, how in sources.items() if how == RESCORED]
+    if not rescored:
+        return None
+    which = ", ".join(rescored)
+    return (
+        f"{len(rescored)} of the last {len(sources)} cycles ({which}) have no worst-offender set "
+        "stored in the ledger (reviewed before triage kept them, or never opened for review), "
+        "so repeat offenders count them as re-scored from this file."
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -577,9 +635,10 @@ def active_adjustments(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFr
 
     A period counts as remaining while it is after the portfolio's cycle, unless a decision of a
     later cycle adjusted the same series and period again: the newer override then stands for
-    that period (``superseded`` counts those). An adjustment with nothing remaining is not
-    listed. Series missing from the portfolio are listed with ``series`` = -1: their override
-    may still stand in the planning system.
+    that period (``superseded`` counts those). An adjustment a reviewer ended
+    (``Ledger.end_adjustment``) has nothing remaining after the cycle it was ended in; one with
+    nothing remaining is not listed. Series missing from the portfolio are listed with
+    ``series`` = -1: their override may still stand in the planning system.
 
     Returns:
         One row per decision (``ACTIVE_COLUMNS``): its cycle, key, ``series`` position,
@@ -589,7 +648,7 @@ def active_adjustments(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFr
         counted as 0) and ``event_id``. Sorted by cycle and key.
     """
     lines = adjustment_lines(portfolio, ledger)
-    lines = lines.loc[lines["status"] != UNCHANGED]
+    lines = lines.loc[~lines["status"].isin((UNCHANGED, ENDED))]
     ahead = _ahead(lines, portfolio.cycle)
     ahead["delta"] = np.nan_to_num(ahead["adjusted"].to_numpy()) - np.nan_to_num(
         ahead["original"].to_numpy()
@@ -651,6 +710,120 @@ def forward_overrides(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFra
     ahead = ahead.loc[ahead["standing"] & (ahead["column"] >= 0)]
     cols = ["series", "column", "period", "original", "adjusted", "cycle", "event_id"]
     return ahead[cols].sort_values(["series", "column"], kind="stable").reset_index(drop=True)
+
+
+#: A carried adjustment is already in the forecast where the file's forecast is within this
+#: many units of the adjusted value (planning systems commonly keep two decimals), or within a
+#: billionth of it.
+IN_FORECAST_UNITS = 0.005
+IN_FORECAST_RELATIVE = 1e-9
+
+CARRIED_LINE_COLUMNS: tuple[str, ...] = (
+    "series",
+    schema.ITEM,
+    schema.LOCATION,
+    "column",
+    "period",
+    "original",
+    "adjusted",
+    "forecast",
+    "cycle",
+    "event_id",
+    "adjustment",
+    "reviewer",
+    "root_cause",
+    "ended",
+    "standing",
+    "in_forecast",
+    "forecast_changed",
+)
+
+
+def in_forecast(forecast: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
+    """Where the file's forecast already equals the adjusted value (``IN_FORECAST_*``)."""
+    forecast = np.asarray(forecast, dtype=np.float64)
+    adjusted = np.asarray(adjusted, dtype=np.float64)
+    with np.errstate(invalid="ignore"):
+        return np.isclose(
+            forecast, adjusted, rtol=IN_FORECAST_RELATIVE, atol=IN_FORECAST_UNITS, equal_nan=False
+        )
+
+
+def carried_adjustments(
+    portfolio: Portfolio,
+    ledger: Ledger | None,
+    *,
+    cycle: str | None = None,
+    keep_ended: bool = False,
+) -> pd.DataFrame:
+    """Adjustments of cycles before ``cycle`` that still reach into the portfolio's forward periods.
+
+    The rule a new cycle's export and review screens follow (docs/history.md, "Carrying
+    adjustments into a new cycle"):
+
+    * a line is carried when its adjustment is the effective decision of an earlier cycle, it
+      changed the forecast (adjusted != original, both present), its period is a forward period
+      of this portfolio, its series is in the portfolio, and no end is in force for it as of
+      ``cycle`` (``Ledger.end_adjustment``; an end recorded in cycle E stops the periods after E);
+    * for each series and period the newest earlier cycle's line stands (``standing``), then the
+      newest event; a decision of ``cycle`` itself that adjusts the period takes precedence over
+      all of them (the caller applies that, it is not in this table);
+    * ``in_forecast``: the file's forward forecast already equals the adjusted value (within
+      ``IN_FORECAST_UNITS``), so there is nothing left to apply there;
+    * ``forecast_changed``: the file's forecast differs from both the original the adjustment
+      started from and the adjusted value: the stored adjusted value is still the one carried.
+
+    Args:
+        portfolio: The new cycle's portfolio.
+        ledger: The ledger, or None (nothing is carried).
+        cycle: The review cycle carried into; default the portfolio's cycle.
+        keep_ended: Keep the lines of ended adjustments too, with ``ended`` True (never
+            ``standing``), so a caller can end or restore one without reading the ledger again.
+
+    Returns:
+        ``CARRIED_LINE_COLUMNS``, one row per carried line, sorted by series and period, newest
+        cycle first within a period. ``column`` is the calendar column.
+    """
+    cycle = cycle or portfolio.cycle
+    lines = adjustment_lines(portfolio, ledger, as_of=cycle)
+    status = lines["status"].to_numpy(dtype=object)
+    keep = (
+        (lines["cycle"].to_numpy(dtype=object).astype(str) < cycle)
+        & ((status == AHEAD) | ((status == ENDED) & keep_ended))
+        & (lines["column"].to_numpy() > portfolio.last_actual)
+    )
+    carried = lines.loc[keep].sort_values(
+        ["series", "column", "cycle", "event_id"],
+        ascending=[True, True, False, False],
+        kind="stable",
+    )
+    series = carried["series"].to_numpy(dtype=np.int64)
+    column = carried["column"].to_numpy(dtype=np.int64)
+    forecast = portfolio.forecast[series, column] if len(carried) else np.empty(0)
+    adjusted = carried["adjusted"].to_numpy(dtype=np.float64)
+    original = carried["original"].to_numpy(dtype=np.float64)
+    already = in_forecast(forecast, adjusted)
+    out = carried.assign(
+        forecast=forecast,
+        ended=carried["status"].to_numpy(dtype=object) == ENDED,
+        standing=False,
+        in_forecast=already,
+        forecast_changed=~already & ~in_forecast(forecast, original),
+    ).reset_index(drop=True)
+    out["standing"] = standing_lines(out)
+    return out[list(CARRIED_LINE_COLUMNS)]
+
+
+def standing_lines(lines: pd.DataFrame) -> np.ndarray:
+    """Which carried lines stand: per series and period the first one not ended.
+
+    ``lines`` is sorted as ``carried_adjustments`` sorts it (newest cycle, then event, first).
+    """
+    standing = np.zeros(len(lines), dtype=bool)
+    alive = ~lines["ended"].to_numpy(dtype=bool)
+    first = ~lines.loc[alive].duplicated(["series", "column"], keep="first").to_numpy(dtype=bool)
+    standing[np.flatnonzero(alive)[first]] = True
+    return standing
 
 
 CARRIED_COLUMNS: tuple[str, ...] = (

@@ -21,7 +21,10 @@ Durability (docs/ledger.md explains each choice):
 
 from __future__ import annotations
 
+import hashlib
+import itertools
 import math
+import operator
 import os
 import re
 import sqlite3
@@ -46,10 +49,17 @@ APPLICATION_ID = 0x54524C47
 NOTE_MAX = 10_000
 #: Longest item, location, reviewer or portfolio text accepted, in characters.
 TEXT_MAX = 1_000
+#: Ending of a per-file ledger of the older layout (``week47.ledger.sqlite``), still read.
 LEDGER_SUFFIX = ".ledger.sqlite"
+#: The ledger of a review folder: every portfolio file in the folder shares it.
+FOLDER_LEDGER = "triage-ledger.sqlite"
 
 DECISION = "decision"
 UNDO = "undo"
+#: Kinds of the ``adjustment_end`` journal: a reviewer ends an earlier cycle's adjustment, or
+#: restores one ended by mistake.
+END = "end"
+RESTORE = "restore"
 
 #: What a reviewer concluded about a series, in shortcut order.
 OUTCOMES: tuple[Choice, ...] = numbered(
@@ -233,6 +243,66 @@ class Decision:
     """Forward periods of the adjustment."""
 
 
+@dataclass(frozen=True)
+class AdjustmentEnd:
+    """One row of the ``adjustment_end`` journal: an adjustment ended, or an end restored."""
+
+    id: int
+    """Journal position (one sequence with ``Event.id``)."""
+    kind: str
+    """``"end"`` or ``"restore"``."""
+    target: int
+    """Id of the adjusting decision event this row is about."""
+    reverts: int | None
+    """For a restore, the id of the end it reverts; None for an end."""
+    cycle: str
+    """Review cycle in which it was recorded (the adjustment was made in an earlier one)."""
+    item: str
+    """Item of the series."""
+    location: str
+    """Location of the series, ``""`` when none."""
+    note: str
+    """Free text, ``""`` when none."""
+    reviewer: str
+    """Who recorded it."""
+    recorded_at: str
+    """When it was committed, UTC ISO 8601 with ``Z``."""
+    portfolio_name: str
+    """File name of the portfolio under review then."""
+    portfolio_fingerprint: str
+    """Digest of that portfolio's content."""
+
+
+@dataclass(frozen=True)
+class WorstSet:
+    """The worst-offender set the review list showed when a cycle was first opened."""
+
+    cycle: str
+    """Review cycle."""
+    items: tuple[str, ...]
+    """Items of the members, in list order (worst first)."""
+    locations: tuple[str, ...]
+    """Locations of the members, ``""`` where none."""
+    target_share: float
+    """Share of total error the set covers (the reviewer's target then)."""
+    window: int
+    """Scoring window in periods."""
+    season: int
+    """Seasonal period of the naive baseline."""
+    ranked_by: str
+    """``"value"`` (priced portfolio) or ``"units"``."""
+    series: int
+    """Series in the portfolio then."""
+    reviewer: str
+    """Who opened the cycle for review."""
+    recorded_at: str
+    """When, UTC ISO 8601 with ``Z``."""
+    portfolio_name: str
+    """File name of the portfolio."""
+    portfolio_fingerprint: str
+    """Digest of the portfolio's content."""
+
+
 # --------------------------------------------------------------------------------------------
 # Schema and migrations
 
@@ -318,8 +388,118 @@ def _split_sql(script: str) -> list[str]:
     return statements
 
 
+# Version 2 adds two journals beside ``event``, both append-only like it:
+#
+# * ``adjustment_end``: a reviewer ends an earlier cycle's adjustment (it stops being carried
+#   into later exports), or restores one ended by mistake. Its ids continue the journal
+#   positions of ``event`` (one sequence across both tables, given explicitly by the writer), so
+#   the two read as one journal in order. ``event``'s own CHECK on ``kind`` cannot change
+#   without copying the table, which this migration never does.
+# * ``worst_snapshot`` and ``worst_member``: the worst-offender set the review list showed when a
+#   cycle was first opened for review, so repeat offenders count what reviewers saw.
+_SCHEMA_V2 = """
+CREATE TABLE adjustment_end (
+    id INTEGER PRIMARY KEY,
+    kind TEXT NOT NULL CHECK (kind IN ('end', 'restore')),
+    target INTEGER NOT NULL REFERENCES event (id),
+    reverts INTEGER UNIQUE REFERENCES adjustment_end (id),
+    cycle TEXT NOT NULL CHECK (cycle GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]'),
+    item TEXT NOT NULL,
+    location TEXT NOT NULL,
+    note TEXT NOT NULL,
+    reviewer TEXT NOT NULL CHECK (reviewer <> ''),
+    recorded_at TEXT NOT NULL,
+    portfolio_name TEXT NOT NULL,
+    portfolio_fingerprint TEXT NOT NULL,
+    CHECK ((kind = 'end' AND reverts IS NULL) OR (kind = 'restore' AND reverts IS NOT NULL))
+) STRICT;
+
+CREATE INDEX adjustment_end_by_target ON adjustment_end (target);
+
+CREATE TRIGGER adjustment_end_no_update BEFORE UPDATE ON adjustment_end
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: ends cannot be changed'); END;
+CREATE TRIGGER adjustment_end_no_delete BEFORE DELETE ON adjustment_end
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: ends cannot be deleted'); END;
+
+-- One journal: every new row, in either table, takes the next position.
+CREATE TRIGGER adjustment_end_next_id BEFORE INSERT ON adjustment_end
+WHEN NEW.id < 1
+  OR NEW.id <= (SELECT coalesce(max(id), 0) FROM event)
+  OR NEW.id <= (SELECT coalesce(max(id), 0) FROM adjustment_end)
+BEGIN SELECT RAISE(ABORT, 'a journal position must follow the latest one'); END;
+CREATE TRIGGER event_next_id BEFORE INSERT ON event
+WHEN NEW.id < 1 OR NEW.id <= (SELECT coalesce(max(id), 0) FROM adjustment_end)
+BEGIN SELECT RAISE(ABORT, 'a journal position must follow the latest one'); END;
+
+-- An end points at an adjustment of the same series made in an earlier cycle.
+CREATE TRIGGER adjustment_end_target BEFORE INSERT ON adjustment_end
+WHEN NEW.kind = 'end' AND NOT EXISTS (
+    SELECT 1 FROM event AS d
+    WHERE d.id = NEW.target AND d.kind = 'decision' AND d.outcome = 'adjusted'
+      AND d.item = NEW.item AND d.location = NEW.location AND d.cycle < NEW.cycle)
+BEGIN SELECT RAISE(ABORT, 'an end must point at an earlier cycle''s adjustment of the series');
+END;
+-- An adjustment is ended once until restored.
+CREATE TRIGGER adjustment_end_once BEFORE INSERT ON adjustment_end
+WHEN NEW.kind = 'end' AND EXISTS (
+    SELECT 1 FROM adjustment_end AS e
+    WHERE e.target = NEW.target AND e.kind = 'end'
+      AND NOT EXISTS (SELECT 1 FROM adjustment_end AS r WHERE r.reverts = e.id))
+BEGIN SELECT RAISE(ABORT, 'the adjustment is already ended'); END;
+-- A restore reverts an end of the same adjustment.
+CREATE TRIGGER adjustment_restore_end BEFORE INSERT ON adjustment_end
+WHEN NEW.kind = 'restore' AND NOT EXISTS (
+    SELECT 1 FROM adjustment_end AS e
+    WHERE e.id = NEW.reverts AND e.kind = 'end' AND e.target = NEW.target
+      AND e.item = NEW.item AND e.location = NEW.location)
+BEGIN SELECT RAISE(ABORT, 'a restore must revert an end of the same adjustment'); END;
+
+CREATE TABLE worst_snapshot (
+    cycle TEXT PRIMARY KEY
+        CHECK (cycle GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]'),
+    recorded_at TEXT NOT NULL,
+    reviewer TEXT NOT NULL,
+    portfolio_name TEXT NOT NULL,
+    portfolio_fingerprint TEXT NOT NULL,
+    target_share REAL NOT NULL CHECK (target_share > 0 AND target_share <= 1),
+    window_periods INTEGER NOT NULL CHECK (window_periods >= 1),
+    season INTEGER NOT NULL CHECK (season >= 1),
+    ranked_by TEXT NOT NULL CHECK (ranked_by IN ('value', 'units')),
+    series INTEGER NOT NULL CHECK (series >= 0),
+    members INTEGER NOT NULL CHECK (members >= 0)
+) STRICT, WITHOUT ROWID;
+
+CREATE TABLE worst_member (
+    cycle TEXT NOT NULL REFERENCES worst_snapshot (cycle),
+    item TEXT NOT NULL,
+    location TEXT NOT NULL,
+    position INTEGER NOT NULL CHECK (position >= 1),
+    PRIMARY KEY (cycle, item, location)
+) STRICT, WITHOUT ROWID;
+
+CREATE TRIGGER worst_snapshot_no_update BEFORE UPDATE ON worst_snapshot
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: snapshots cannot be changed');
+END;
+CREATE TRIGGER worst_snapshot_no_delete BEFORE DELETE ON worst_snapshot
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: snapshots cannot be deleted');
+END;
+CREATE TRIGGER worst_member_no_update BEFORE UPDATE ON worst_member
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: snapshots cannot be changed');
+END;
+CREATE TRIGGER worst_member_no_delete BEFORE DELETE ON worst_member
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: snapshots cannot be deleted');
+END;
+"""
+
+
+def _migrate_to_v2(con: sqlite3.Connection) -> None:
+    """Add the end-of-adjustment journal and the worst-set snapshots (no existing row moves)."""
+    for statement in _split_sql(_SCHEMA_V2):
+        con.execute(statement)
+
+
 #: ``MIGRATIONS[i]`` brings a ledger from schema version ``i`` to ``i + 1``. Append only.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_migrate_to_v1]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_migrate_to_v1, _migrate_to_v2]
 #: Schema version written by this code (``PRAGMA user_version``).
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -346,41 +526,179 @@ def _dir_writable(folder: Path) -> bool:
     return True
 
 
-def default_ledger_path(portfolio_path: str | Path) -> tuple[Path, str | None]:
-    """Where the ledger of a portfolio lives, and a notice when it is not the usual place.
+@dataclass(frozen=True)
+class LedgerLocation:
+    """Where the ledger of a portfolio (or of a review folder) is, and what to tell the user."""
 
-    The ledger is ``<portfolio stem>.ledger.sqlite`` beside the portfolio, so it travels with the
-    data. When that folder is not writable, it is kept in the user data folder instead
-    (``platformdirs.user_data_dir("triage")``) and the notice says so.
+    path: Path
+    """The ledger file."""
+    exists: bool
+    """Whether the file exists now (a review creates it when it does not)."""
+    notices: tuple[str, ...] = ()
+    """Things the reviewer should know: a new ledger, an older per-file ledger, a fallback."""
+    legacy: bool = False
+    """The file is a per-file ledger of the older layout (``<portfolio stem>.ledger.sqlite``)."""
 
-    Raises:
-        LedgerError: Neither folder can be written.
+
+def _fallback_folder(folder: Path) -> Path:
+    """The user-data folder that stands in for a review folder nobody may write to.
+
+    One per review folder (its name and a digest of its absolute path), so two read-only
+    folders never share a ledger.
     """
-    source = Path(portfolio_path).expanduser().absolute()
-    name = f"{source.stem}{LEDGER_SUFFIX}"
-    beside = source.parent / name
-    if _dir_writable(source.parent):
-        return beside, None
     from platformdirs import user_data_dir
 
-    folder = Path(user_data_dir("triage"))
-    fallback = folder / name
+    digest = hashlib.sha256(os.fsencode(str(folder))).hexdigest()[:12]
+    label = re.sub(r"[^A-Za-z0-9._-]", "_", folder.name)[:40] or "root"
+    return Path(user_data_dir("triage")) / "folders" / f"{label}-{digest}"
+
+
+def locate_ledger(
+    portfolio_path: str | Path, *, name: str | None = None, for_writing: bool = True
+) -> LedgerLocation:
+    """Find the ledger of a portfolio: one ledger per review folder.
+
+    A planner drops each week's file into one folder; every file there shares the folder's
+    ledger, ``FOLDER_LEDGER`` (or ``name``, the ``ledger`` setting of the configuration: a file
+    name kept in the folder, or a path). In order:
+
+    1. the folder ledger, when it exists;
+    2. else the portfolio's own per-file ledger of the older layout,
+       ``<portfolio stem>.ledger.sqlite`` beside it, when it exists (a notice says how to make
+       it the folder's ledger; docs/ledger.md);
+    3. else, without a configured name, the one per-file ledger in the folder when there is
+       exactly one (an earlier week's: its decisions carry on);
+    4. else the folder ledger, new (a notice says where it is). When the folder cannot be
+       written a ledger in the user data folder stands in for it (``_fallback_folder``), and
+       an older per-file fallback (``<stem>.ledger.sqlite`` there) is still used when present.
+
+    Args:
+        portfolio_path: A portfolio file, or the review folder itself.
+        name: The configured ledger name or path; default ``FOLDER_LEDGER``.
+        for_writing: Look for a ledger to record decisions in (a review); False for commands
+            that only read (they never get the user-data fallback of a folder they could read).
+
+    Raises:
+        LedgerError: For writing, neither the folder nor the user data folder can be written.
+    """
+    source = Path(portfolio_path).expanduser().absolute()
+    is_folder = source.is_dir()
+    folder = source if is_folder else source.parent
+    configured = Path(name).expanduser() if name else None
+    target = folder / FOLDER_LEDGER
+    if configured is not None:
+        target = configured if configured.is_absolute() else folder / configured
+    if configured is not None and (configured.is_absolute() or len(configured.parts) > 1):
+        # A path of its own: the configuration decides, nothing else is looked for.
+        notices = () if target.exists() or not for_writing else (_new_notice(target, folder),)
+        return LedgerLocation(target, target.exists(), notices)
+
+    writable = _dir_writable(folder) if for_writing else True
+    own = None if is_folder else folder / f"{source.stem}{LEDGER_SUFFIX}"
+    others = sorted(
+        p for p in folder.glob(f"*{LEDGER_SUFFIX}") if p.is_file() and p not in (target, own)
+    )
+    if not writable:
+        return _unwritable_folder(source, folder, target, own)
+    if target.exists():
+        notices = ()
+        if own is not None and own.exists():
+            notices = (
+                f"{own.name} (a per-file ledger of an earlier triage) is not read: this folder's "
+                f"decisions are kept in {target.name}. Read the older file with "
+                f"`triage history {own}`; docs/ledger.md says how to bring it along.",
+            )
+        return LedgerLocation(target, True, notices)
+    if own is not None and own.exists():
+        return LedgerLocation(own, True, (_legacy_notice(own, target),), legacy=True)
+    if configured is None and len(others) == 1:
+        return LedgerLocation(others[0], True, (_legacy_notice(others[0], target),), legacy=True)
+    if not for_writing:
+        # A review of this folder that could not write it kept its decisions here.
+        from platformdirs import user_data_dir
+
+        stand_ins = [_fallback_folder(folder) / target.name]
+        if own is not None:
+            stand_ins.append(Path(user_data_dir("triage")) / own.name)
+        for stand_in in stand_ins:
+            if stand_in.exists():
+                return LedgerLocation(
+                    stand_in,
+                    True,
+                    (f"Reading {stand_in}, where reviews of {folder} keep their decisions.",),
+                    legacy=stand_in.name.endswith(LEDGER_SUFFIX),
+                )
+    notices_list: list[str] = []
+    if for_writing:
+        notices_list.append(_new_notice(target, folder))
+    if others:
+        notices_list.append(
+            f"The per-file ledgers of an earlier triage in {folder} ("
+            + ", ".join(p.name for p in others[:5])
+            + (f" and {len(others) - 5} more" if len(others) > 5 else "")
+            + f") are not read; read them with `triage history FILE`, or see docs/ledger.md "
+            f"to bring one along as {target.name}."
+        )
+    return LedgerLocation(target, False, tuple(notices_list))
+
+
+def _new_notice(target: Path, folder: Path) -> str:
+    return (
+        f"Decisions are kept in {target}: one ledger for every portfolio file in {folder}, so "
+        "next week's file finds this week's decisions."
+    )
+
+
+def _legacy_notice(old: Path, target: Path) -> str:
+    return (
+        f"Using {old}, a per-file ledger of an earlier triage. To make it the ledger of every "
+        f"file in this folder, rename it to {target.name} when no triage session is open "
+        "(docs/ledger.md, 'Moving to one ledger per folder'); nothing in it changes."
+    )
+
+
+def _unwritable_folder(
+    source: Path, folder: Path, target: Path, own: Path | None
+) -> LedgerLocation:
+    """A review in a folder nobody may write: a ledger in the user data folder stands in."""
+    stand_in = _fallback_folder(folder)
+    fallback = stand_in / target.name
+    older = None
+    if own is not None:
+        from platformdirs import user_data_dir
+
+        older = Path(user_data_dir("triage")) / own.name
+    chosen, legacy = fallback, False
+    if not fallback.exists() and older is not None and older.exists():
+        chosen, legacy = older, True
     try:
-        folder.mkdir(parents=True, exist_ok=True)
+        chosen.parent.mkdir(parents=True, exist_ok=True)
     except OSError as exc:
         raise LedgerError(
-            f"Cannot keep decisions for {source.name}: {source.parent} is not writable and "
-            f"{folder} cannot be created ({exc.strerror}).",
-            path=fallback,
+            f"Cannot keep decisions for {source.name}: {folder} is not writable and "
+            f"{chosen.parent} cannot be created ({exc.strerror}).",
+            path=chosen,
             hint="Pass --ledger PATH with a file in a folder you can write to.",
         ) from exc
-    notice = (
-        f"The folder {source.parent} is not writable, so decisions for {source.name} are kept "
-        f"in {fallback}."
+    notice = f"The folder {folder} is not writable, so its decisions are kept in {chosen}" + (
+        " (a per-file ledger of an earlier triage)." if legacy else "."
     )
-    if beside.exists():
-        notice += f" The read-only ledger {beside} was not used."
-    return fallback, notice
+    unused = [p for p in (target, own) if p is not None and p.exists()]
+    if unused:
+        notice += " The read-only ledger " + " and ".join(map(str, unused)) + " was not used."
+    return LedgerLocation(chosen, chosen.exists(), (notice,), legacy=legacy)
+
+
+def default_ledger_path(portfolio_path: str | Path) -> tuple[Path, str | None]:
+    """Where a review of the portfolio records decisions, and what to tell the reviewer.
+
+    ``locate_ledger`` for writing, without a configured name; its notices joined.
+
+    Raises:
+        LedgerError: Neither the folder nor the user data folder can be written.
+    """
+    where = locate_ledger(portfolio_path, for_writing=True)
+    return where.path, " ".join(where.notices) or None
 
 
 def _sidecars(path: Path) -> list[Path]:
@@ -589,6 +907,25 @@ def _check_version(value: object) -> int:
     return value
 
 
+def _next_position(con: sqlite3.Connection) -> int:
+    """The next journal position, shared by ``event`` and ``adjustment_end`` (in a write)."""
+    row = con.execute(
+        "SELECT max(coalesce((SELECT max(id) FROM event), 0),"
+        " coalesce((SELECT max(id) FROM adjustment_end), 0)) + 1"
+    ).fetchone()
+    return int(row[0])
+
+
+def _check_id(value: object, what: str) -> int:
+    number = None
+    if not isinstance(value, bool):
+        with suppress(TypeError):
+            number = operator.index(value)  # type: ignore[arg-type]
+    if number is None or number < 1:
+        raise DecisionError(f"{what} must be a ledger id (a whole number >= 1), not {value!r}")
+    return number
+
+
 def _utc_now() -> str:
     return datetime.now(UTC).isoformat(timespec="milliseconds").replace("+00:00", "Z")
 
@@ -633,6 +970,9 @@ class Ledger:
         read_only: Whether decisions can be saved through this object.
         notice: Why the ledger was opened read-only although writing was asked for, or None.
         root_causes: Root causes accepted by ``record``.
+        schema_version: Schema of the file as opened. A ledger opened for writing is always at
+            ``SCHEMA_VERSION``; one opened read-only is read as it is, never migrated (schema 1
+            has no ends of adjustments and no worst-set snapshots: they read as none).
     """
 
     def __init__(
@@ -643,6 +983,7 @@ class Ledger:
         read_only: bool,
         notice: str | None,
         root_causes: tuple[Choice, ...],
+        schema_version: int = SCHEMA_VERSION,
     ) -> None:
         self._con = con
         self._lock = threading.RLock()
@@ -650,6 +991,7 @@ class Ledger:
         self.read_only = read_only
         self.notice = notice
         self.root_causes = root_causes
+        self.schema_version = schema_version
         self._ro_reason = notice
 
     # ---- opening ---------------------------------------------------------------------------
@@ -741,16 +1083,12 @@ class Ledger:
                 hint="Upgrade triage to work with this ledger.",
             )
 
-        reason = "opened read-only on request" if read_only else _unwritable_reason(target)
-        if reason is None:
+        unwritable = _unwritable_reason(target)
+        if not read_only and unwritable is None:
             return cls._open_rw(target, timeout, causes)
-        if info.user_version < SCHEMA_VERSION:
-            raise LedgerError(
-                f"{target} has ledger schema {info.user_version} and must be upgraded to "
-                f"{SCHEMA_VERSION}, but {reason}.",
-                path=target,
-                hint="Open it once where it can be written.",
-            )
+        if read_only and unwritable is None:
+            return cls._open_query_only(target, timeout, causes)
+        reason = "opened read-only on request" if read_only else unwritable
         con = _connect(target, "ro", timeout, immutable=info.immutable)
         notice = None
         if not read_only:
@@ -760,8 +1098,48 @@ class Ledger:
             )
             if info.immutable and info.wal_bytes:
                 notice += " Decisions saved moments ago by another session may be missing."
-        ledger = cls(con, target, read_only=True, notice=notice, root_causes=causes)
+            if info.user_version < SCHEMA_VERSION:
+                notice += (
+                    f" It has ledger schema {info.user_version} and is read as it is (ended "
+                    "adjustments and worst-set snapshots need schema "
+                    f"{SCHEMA_VERSION}; it is upgraded when it is next opened where it can be "
+                    "written)."
+                )
+        ledger = cls(
+            con,
+            target,
+            read_only=True,
+            notice=notice,
+            root_causes=causes,
+            schema_version=info.user_version,
+        )
         ledger._ro_reason = reason
+        return ledger
+
+    @classmethod
+    def _open_query_only(cls, path: Path, timeout: float, causes: tuple[Choice, ...]) -> Ledger:
+        """Read a ledger that could be written, without changing it or leaving files behind.
+
+        A ``mode=ro`` connection cannot remove the ``-wal`` and ``-shm`` files WAL mode creates
+        beside the database, so they would stay after every read-only command. A read-write
+        connection with ``query_only`` refuses every change through SQL, does not migrate the
+        schema, and as the last connection to close it removes both files, as SQLite does for
+        any WAL database (sqlite.org/wal.html, "The WAL File"; sqlite.org/pragma.html,
+        query_only). Older schemas are read as they are.
+        """
+        con = _connect(path, "rw", timeout)
+        try:
+            con.execute("PRAGMA query_only = ON")
+            with suppress(sqlite3.Error):
+                con.execute("PRAGMA foreign_keys = ON")
+            version = int(con.execute("PRAGMA user_version").fetchone()[0])
+        except sqlite3.Error as exc:
+            con.close()
+            raise _translate(exc, path) from exc
+        ledger = cls(
+            con, path, read_only=True, notice=None, root_causes=causes, schema_version=version
+        )
+        ledger._ro_reason = "opened read-only on request"
         return ledger
 
     @classmethod
@@ -883,11 +1261,12 @@ class Ledger:
             version = self._claim_version(con, cycle, item, location, expected_version)
             recorded_at = _utc_now()
             event_id = con.execute(
-                "INSERT INTO event (cycle, item, location, version, kind, undoes, outcome, "
+                "INSERT INTO event (id, cycle, item, location, version, kind, undoes, outcome, "
                 "root_cause, note, adjustment, reviewer, recorded_at, portfolio_name, "
-                "portfolio_fingerprint) VALUES (?, ?, ?, ?, 'decision', NULL, ?, ?, ?, ?, ?, ?, "
-                "?, ?)",
+                "portfolio_fingerprint) VALUES (?, ?, ?, ?, ?, 'decision', NULL, ?, ?, ?, ?, ?, "
+                "?, ?, ?)",
                 (
+                    _next_position(con),
                     cycle,
                     item,
                     location,
@@ -976,11 +1355,12 @@ class Ledger:
             target = int(row[0])
             recorded_at = _utc_now()
             event_id = con.execute(
-                "INSERT INTO event (cycle, item, location, version, kind, undoes, outcome, "
+                "INSERT INTO event (id, cycle, item, location, version, kind, undoes, outcome, "
                 "root_cause, note, adjustment, reviewer, recorded_at, portfolio_name, "
-                "portfolio_fingerprint) VALUES (?, ?, ?, ?, 'undo', ?, NULL, NULL, ?, NULL, ?, ?,"
-                " ?, ?)",
+                "portfolio_fingerprint) VALUES (?, ?, ?, ?, ?, 'undo', ?, NULL, NULL, ?, NULL, ?,"
+                " ?, ?, ?)",
                 (
+                    _next_position(con),
                     cycle,
                     item,
                     location,
@@ -1012,6 +1392,294 @@ class Ledger:
             portfolio_fingerprint,
             (),
         )
+
+    def end_adjustment(
+        self,
+        cycle: str,
+        item: str,
+        location: str,
+        *,
+        target: int,
+        reviewer: str,
+        portfolio_name: str,
+        portfolio_fingerprint: str,
+        note: str = "",
+    ) -> AdjustmentEnd:
+        """End an earlier cycle's adjustment: from ``cycle`` on it is no longer carried.
+
+        The adjustment stays in the journal as it was; an ``end`` row says who ended it, when,
+        and in which cycle. ``restore_adjustment`` reverts an end.
+
+        Args:
+            cycle: The review cycle in which the reviewer ends it.
+            item: Item of the series.
+            location: Location of the series, ``""`` when none.
+            target: Id of the adjusting decision (an effective ``adjusted`` decision of the
+                same series in an earlier cycle).
+            reviewer: Who ends it.
+            portfolio_name: File name of the portfolio under review.
+            portfolio_fingerprint: Digest of that portfolio's content.
+            note: Why, free text.
+
+        Raises:
+            DecisionError: ``target`` is not such an adjustment, or it is already ended.
+            LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was saved.
+        """
+        self._check_writable("end of the adjustment")
+        cycle = _check_date(cycle, "cycle")
+        item = _check_text(item, "item", allow_empty=False)
+        location = _check_text(location, "location", allow_empty=True)
+        reviewer = _check_reviewer(reviewer)
+        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
+        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
+        portfolio_fingerprint = _check_text(
+            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        )
+        target = _check_id(target, "target")
+        series = describe_series(item, location)
+        with self._write("end of the adjustment") as con:
+            row = con.execute(
+                "SELECT cycle, item, location, kind, outcome FROM event WHERE id = ?", (target,)
+            ).fetchone()
+            if row is None or row[3] != DECISION or row[4] != ADJUSTED:
+                raise DecisionError(f"ledger event #{target} is not an adjustment")
+            if (row[1], row[2]) != (item, location):
+                raise DecisionError(
+                    f"ledger event #{target} is an adjustment of "
+                    f"{describe_series(row[1], row[2])}, not of {series}"
+                )
+            if row[0] >= cycle:
+                raise DecisionError(
+                    f"the adjustment #{target} of {series} was made in cycle {row[0]}; only an "
+                    f"earlier cycle's adjustment can be ended in cycle {cycle}",
+                    hint="Undo a decision of this cycle instead.",
+                )
+            effective = con.execute(
+                _EFFECTIVE + "SELECT id FROM effective WHERE newest = 1 AND item = :item"
+                " AND location = :location",
+                {"cycle": row[0], "item": item, "location": location},
+            ).fetchone()
+            if effective is None or int(effective[0]) != target:
+                raise DecisionError(
+                    f"the adjustment #{target} of {series} was undone or replaced in its cycle "
+                    f"{row[0]}, so there is nothing to end"
+                )
+            standing = self._standing_end(con, target)
+            if standing is not None:
+                raise DecisionError(
+                    f"the adjustment #{target} of {series} was already ended by "
+                    f"{standing.reviewer!r} at {standing.recorded_at} (cycle {standing.cycle})"
+                )
+            record = self._insert_end(
+                con,
+                END,
+                target,
+                None,
+                cycle,
+                item,
+                location,
+                note,
+                reviewer,
+                portfolio_name,
+                portfolio_fingerprint,
+            )
+        return record
+
+    def restore_adjustment(
+        self,
+        cycle: str,
+        item: str,
+        location: str,
+        *,
+        end: int,
+        reviewer: str,
+        portfolio_name: str,
+        portfolio_fingerprint: str,
+        note: str = "",
+    ) -> AdjustmentEnd:
+        """Revert an end (``end_adjustment``): the adjustment is carried again.
+
+        Raises:
+            DecisionError: ``end`` is not a standing end of the series' adjustment.
+            LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was saved.
+        """
+        self._check_writable("restore of the adjustment")
+        cycle = _check_date(cycle, "cycle")
+        item = _check_text(item, "item", allow_empty=False)
+        location = _check_text(location, "location", allow_empty=True)
+        reviewer = _check_reviewer(reviewer)
+        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
+        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
+        portfolio_fingerprint = _check_text(
+            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        )
+        end = _check_id(end, "end")
+        with self._write("restore of the adjustment") as con:
+            row = con.execute(
+                f"SELECT {_END_COLUMNS} FROM adjustment_end WHERE id = ?", (end,)
+            ).fetchone()
+            found = _end(row) if row is not None else None
+            if (
+                found is None
+                or found.kind != END
+                or (found.item, found.location)
+                != (
+                    item,
+                    location,
+                )
+            ):
+                raise DecisionError(
+                    f"ledger entry #{end} is not an end of an adjustment of "
+                    f"{describe_series(item, location)}"
+                )
+            if found.cycle > cycle:
+                raise DecisionError(
+                    f"the end #{end} was recorded in cycle {found.cycle}, after cycle {cycle}"
+                )
+            standing = self._standing_end(con, found.target)
+            if standing is None or standing.id != end:
+                raise DecisionError(f"the end #{end} was already restored")
+            record = self._insert_end(
+                con,
+                RESTORE,
+                found.target,
+                end,
+                cycle,
+                item,
+                location,
+                note,
+                reviewer,
+                portfolio_name,
+                portfolio_fingerprint,
+            )
+        return record
+
+    @staticmethod
+    def _standing_end(con: sqlite3.Connection, target: int) -> AdjustmentEnd | None:
+        row = con.execute(
+            f"SELECT {_END_COLUMNS} FROM adjustment_end AS e WHERE e.target = ? AND e.kind = 'end'"
+            " AND NOT EXISTS (SELECT 1 FROM adjustment_end AS r WHERE r.reverts = e.id)"
+            " ORDER BY e.id DESC LIMIT 1",
+            (target,),
+        ).fetchone()
+        return _end(row) if row is not None else None
+
+    @staticmethod
+    def _insert_end(
+        con: sqlite3.Connection,
+        kind: str,
+        target: int,
+        reverts: int | None,
+        cycle: str,
+        item: str,
+        location: str,
+        note: str,
+        reviewer: str,
+        portfolio_name: str,
+        portfolio_fingerprint: str,
+    ) -> AdjustmentEnd:
+        position = _next_position(con)
+        recorded_at = _utc_now()
+        con.execute(
+            f"INSERT INTO adjustment_end ({_END_COLUMNS}) VALUES "
+            "(?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+            (
+                position,
+                kind,
+                target,
+                reverts,
+                cycle,
+                item,
+                location,
+                note,
+                reviewer,
+                recorded_at,
+                portfolio_name,
+                portfolio_fingerprint,
+            ),
+        )
+        return AdjustmentEnd(
+            position,
+            kind,
+            target,
+            reverts,
+            cycle,
+            item,
+            location,
+            note,
+            reviewer,
+            recorded_at,
+            portfolio_name,
+            portfolio_fingerprint,
+        )
+
+    def record_worst_set(
+        self,
+        cycle: str,
+        items: Sequence[str],
+        locations: Sequence[str],
+        *,
+        reviewer: str,
+        portfolio_name: str,
+        portfolio_fingerprint: str,
+        target_share: float,
+        window: int,
+        season: int,
+        ranked_by: str,
+        series: int,
+    ) -> bool:
+        """Keep the cycle's worst-offender set, as the review list shows it, once per cycle.
+
+        The first snapshot of a cycle stands; later calls change nothing and return False.
+        Members are stored in list order (``position`` 1 = worst).
+
+        Raises:
+            DecisionError: Mismatched lengths or a setting out of range.
+            LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was saved.
+        """
+        self._check_writable("worst-offender set")
+        cycle = _check_date(cycle, "cycle")
+        reviewer = _check_reviewer(reviewer)
+        if len(items) != len(locations):
+            raise DecisionError(f"{len(items)} items but {len(locations)} locations")
+        if ranked_by not in ("value", "units"):
+            raise DecisionError(f"ranked_by must be 'value' or 'units', not {ranked_by!r}")
+        if not 0 < target_share <= 1 or window < 1 or season < 1 or series < 0:
+            raise DecisionError(
+                f"snapshot settings out of range: share {target_share}, window {window}, "
+                f"season {season}, series {series}"
+            )
+        with self._write("worst-offender set") as con:
+            if con.execute("SELECT 1 FROM worst_snapshot WHERE cycle = ?", (cycle,)).fetchone():
+                return False
+            con.execute(
+                "INSERT INTO worst_snapshot (cycle, recorded_at, reviewer, portfolio_name, "
+                "portfolio_fingerprint, target_share, window_periods, season, ranked_by, series, "
+                "members) VALUES (?, ?, ?, ?, ?, ?, ?, ?, ?, ?, ?)",
+                (
+                    cycle,
+                    _utc_now(),
+                    reviewer,
+                    portfolio_name,
+                    portfolio_fingerprint,
+                    float(target_share),
+                    int(window),
+                    int(season),
+                    ranked_by,
+                    int(series),
+                    len(items),
+                ),
+            )
+            con.executemany(
+                "INSERT INTO worst_member (cycle, item, location, position) VALUES (?, ?, ?, ?)",
+                zip(
+                    itertools.repeat(cycle),
+                    map(str, items),
+                    map(str, locations),
+                    itertools.count(1),
+                ),
+            )
+        return True
 
     def _check_writable(self, what: str) -> None:
         if self.read_only:
@@ -1164,6 +1832,72 @@ class Ledger:
             )
         return [_event(r, lines.get(r[0], ())) for r in rows]
 
+    def ends(self, item: str | None = None, location: str | None = None) -> list[AdjustmentEnd]:
+        """Every end and restore of adjustments (of one series when given), oldest first.
+
+        Empty for a schema-1 ledger opened read-only (it has no such journal yet).
+        """
+        if self.schema_version < 2:
+            return []
+        where: list[str] = []
+        params: dict[str, str] = {}
+        for column, value in (("item", item), ("location", location)):
+            if value is not None:
+                where.append(f"{column} = :{column}")
+                params[column] = value
+        clause = f" WHERE {' AND '.join(where)}" if where else ""
+        with self._read() as con:
+            rows = con.execute(
+                f"SELECT {_END_COLUMNS} FROM adjustment_end{clause} ORDER BY id", params
+            ).fetchall()
+        return [_end(r) for r in rows]
+
+    def standing_ends(self, cycle: str | None = None) -> dict[int, AdjustmentEnd]:
+        """Ends in force as of ``cycle``, by the id of the adjustment they end.
+
+        An end counts from the cycle it was recorded in (on or before ``cycle``; every end
+        when None) until a restore recorded on or before ``cycle`` reverts it.
+        """
+        ends = self.ends()
+        if cycle is not None:
+            ends = [e for e in ends if e.cycle <= cycle]
+        reverted = {e.reverts for e in ends if e.kind == RESTORE}
+        return {e.target: e for e in ends if e.kind == END and e.id not in reverted}
+
+    def worst_sets(self) -> dict[str, WorstSet]:
+        """Every stored worst-offender set by cycle (empty for a schema-1 ledger)."""
+        if self.schema_version < 2:
+            return {}
+        with self._read() as con:
+            heads = con.execute(
+                "SELECT cycle, target_share, window_periods, season, ranked_by, series, reviewer,"
+                " recorded_at, portfolio_name, portfolio_fingerprint FROM worst_snapshot"
+                " ORDER BY cycle"
+            ).fetchall()
+            members: dict[str, tuple[list[str], list[str]]] = {h[0]: ([], []) for h in heads}
+            for cycle, item, location in con.execute(
+                "SELECT cycle, item, location FROM worst_member ORDER BY cycle, position"
+            ):
+                members[cycle][0].append(item)
+                members[cycle][1].append(location)
+        return {
+            h[0]: WorstSet(
+                cycle=h[0],
+                items=tuple(members[h[0]][0]),
+                locations=tuple(members[h[0]][1]),
+                target_share=float(h[1]),
+                window=int(h[2]),
+                season=int(h[3]),
+                ranked_by=h[4],
+                series=int(h[5]),
+                reviewer=h[6],
+                recorded_at=h[7],
+                portfolio_name=h[8],
+                portfolio_fingerprint=h[9],
+            )
+            for h in heads
+        }
+
     def cycles(self) -> list[str]:
         """Review cycles with at least one event, oldest first."""
         with self._read() as con:
@@ -1178,6 +1912,17 @@ class Ledger:
         for event_id, period, original, adjusted in con.execute(sql, params):
             grouped.setdefault(event_id, []).append(Line(period, original, adjusted))
         return {k: tuple(v) for k, v in grouped.items()}
+
+
+_END_COLUMNS = (
+    "id, kind, target, reverts, cycle, item, location, note, reviewer, recorded_at, "
+    "portfolio_name, portfolio_fingerprint"
+)
+
+
+def _end(row: Sequence[Any]) -> AdjustmentEnd:
+    """An AdjustmentEnd from a row of ``_END_COLUMNS``."""
+    return AdjustmentEnd(*row)
 
 
 def _event(row: Sequence[Any], lines: tuple[Line, ...]) -> Event:

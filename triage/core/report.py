@@ -218,7 +218,12 @@ def build_report(
         raise ReportError(f"the target share must be in (0, 1], not {target_share}.")
     card = scorecard(portfolio, window, season)
     repeat = history.repeat_offenders(
-        portfolio, n=repeat_n, m=repeat_m, target_share=target_share, window=window
+        portfolio,
+        n=repeat_n,
+        m=repeat_m,
+        target_share=target_share,
+        window=window,
+        ledger=ledger,
     )
     cov = history.coverage(portfolio, ledger, card, target_share)
     worst = card.loc[
@@ -239,6 +244,10 @@ def build_report(
     notices = list(portfolio.notices)
     if ledger is None:
         notices.append("No decision ledger was given, so no decision or override is shown.")
+    else:
+        repeat_note = history.repeat_notice(repeat)
+        if repeat_note:
+            notices.append(repeat_note)
     return ReportData(
         portfolio_name=portfolio.path.name,
         portfolio_fingerprint=portfolio.fingerprint,

@@ -17,7 +17,7 @@ import pandas as pd
 
 from triage.core import adjust, history, metrics, schema
 from triage.core import ledger as ledger_mod
-from triage.core.ledger import Event, Ledger
+from triage.core.ledger import AdjustmentEnd, Event, Ledger
 from triage.core.portfolio import Portfolio
 from triage.core.ranking import BY_BIAS, BY_ERROR, error_shares, scorecard
 
@@ -66,6 +66,42 @@ class ChartSeries:
     """Last period with actuals; forward periods follow it."""
 
 
+@dataclass(frozen=True)
+class ActiveAdjustment:
+    """An earlier cycle's adjustment of one series that reaches into this file's forward periods.
+
+    Periods are ISO dates of this portfolio's forward periods; every period the adjustment
+    changed and that lies ahead is in exactly one of ``applied``, ``in_forecast``,
+    ``replaced_now`` and ``superseded`` (all empty when it was ended).
+    """
+
+    event_id: int
+    """Ledger id of the adjusting decision."""
+    cycle: str
+    """Cycle it was made in."""
+    adjustment: str
+    """Its spec as written (docs/adjustments.md)."""
+    reviewer: str
+    """Who made it."""
+    periods: tuple[str, ...]
+    """Its forward periods in this file that it changed."""
+    applied: tuple[str, ...]
+    """Periods whose adjusted value this cycle's export carries (``adjusted_in_cycle``)."""
+    in_forecast: tuple[str, ...]
+    """Periods where this file's forecast already equals the adjusted value: nothing to apply."""
+    replaced_now: tuple[str, ...]
+    """Periods this cycle's own adjustment of the series replaces."""
+    superseded: tuple[str, ...]
+    """Periods a newer earlier cycle's adjustment of the series stands for."""
+    ended: AdjustmentEnd | None
+    """The end in force (who ended it, when, in which cycle), or None."""
+
+    @property
+    def active(self) -> bool:
+        """Whether the export of this cycle applies it to at least one period."""
+        return bool(self.applied)
+
+
 class ReviewSession:
     """Everything the review screens need about one portfolio and one ledger.
 
@@ -77,6 +113,8 @@ class ReviewSession:
         season: Seasonal period of the naive baseline.
         target_share: Share of total error the reviewer aims to cover.
         repeat: ``(N, M)``: a repeat offender is in the worst set in N of the last M cycles.
+        record_worst_set: Store this cycle's worst-offender set in a writable ledger when the
+            cycle has none yet (opening a cycle for review does; the first set stands).
     """
 
     def __init__(
@@ -89,6 +127,7 @@ class ReviewSession:
         season: int = 1,
         target_share: float = 0.8,
         repeat: tuple[int, int] = (REPEAT_N, REPEAT_M),
+        record_worst_set: bool = True,
     ) -> None:
         self.portfolio = portfolio
         self.ledger = ledger
@@ -137,24 +176,45 @@ class ReviewSession:
         self._key_index = self._build_key_index()
         self._search: np.ndarray | None = None
         self._folded: dict[str, np.ndarray] | None = None
+        self.notices: list[str] = []
+        """Things the reviewer should know about this session (shown by the screens)."""
+        self.worst = history.worst_set(self.error, target_share)
+        """This cycle's worst-offender set (the leading set covering the target share)."""
+        if record_worst_set:
+            self._record_worst_set()
         offenders = history.repeat_offenders(
-            portfolio, n=repeat[0], m=repeat[1], target_share=target_share, window=window
+            portfolio,
+            n=repeat[0],
+            m=repeat[1],
+            target_share=target_share,
+            window=window,
+            ledger=ledger,
         )
+        notice = history.repeat_notice(offenders) if ledger is not None else None
+        if notice:
+            self.notices.append(notice)
         self.repeat_nm = repeat
         self.times_in_worst = offenders["times_in_worst"].to_numpy(dtype=np.int64)
         """Cycles (of the last M) the series was in the worst-offender set."""
         self.cycles_scored = sum(c.startswith("worst_") for c in offenders.columns)
+        self.repeat_sources: dict[str, str] = dict(offenders.attrs.get("sources", {}))
+        """Per cycle counted: ``"snapshot"`` (the stored set) or ``"rescored"``."""
         self.repeat = offenders["repeat"].to_numpy(dtype=bool)
         """Repeat offender flag per series."""
-        self.worst = history.worst_set(self.error, target_share)
-        """This cycle's worst-offender set (the leading set covering the target share)."""
         self.past_outcome = np.full(n, "", dtype=object)
         """Latest effective outcome from an earlier cycle, ``""`` when none."""
         self.past_cycle = np.full(n, "", dtype=object)
         self.carried = np.zeros(n, dtype=bool)
         """Handed off or put off in an earlier cycle and still in the worst set."""
-        self.active: dict[int, list[str]] = {}
-        """Per series, a line for each earlier adjustment with forward periods still to come."""
+        self.earlier_lines = pd.DataFrame(columns=list(history.CARRIED_LINE_COLUMNS))
+        """Earlier cycles' adjustment lines reaching into the forward periods, ended ones too
+        (``history.carried_adjustments``); the source of ``active_adjustments``."""
+        self.carries = np.zeros(n, dtype=bool)
+        """Per series: an earlier cycle's adjustment is carried into this cycle's export for at
+        least one period (before this cycle's own adjustments take precedence): the list
+        marker."""
+        self._ends: dict[int, AdjustmentEnd] = {}
+        self._lines_of: dict[int, np.ndarray] = {}
         self.forward_labels = tuple(
             portfolio.calendar.label(i)
             for i in range(portfolio.last_actual + 1, len(portfolio.calendar.periods))
@@ -237,7 +297,6 @@ class ReviewSession:
         self.past_outcome[:] = ""
         self.past_cycle[:] = ""
         self.carried[:] = False
-        self.active = {}
         earlier = history.effective_decisions(self.ledger, before=self.cycle)
         if earlier:
             # Oldest cycle first, so the latest decision per series is written last.
@@ -247,14 +306,69 @@ class ReviewSession:
             self.past_cycle[idx[ok]] = np.array([d.cycle for d in earlier], dtype=object)[ok]
             carried = history.carried_over(self.portfolio, self.ledger, np.flatnonzero(self.worst))
             self.carried[carried["series"].to_numpy(dtype=np.int64)] = True
-        active = history.active_adjustments(self.portfolio, self.ledger)
-        for row in active.itertuples(index=False):
-            if row.series >= 0:
-                self.active.setdefault(int(row.series), []).append(
-                    f"active adjustment from {row.cycle} ({row.adjustment}): {row.remaining} of "
-                    f"{row.periods} periods still ahead, "
-                    f"{row.first_remaining} .. {row.last_remaining}"
-                )
+        self._reload_carried()
+
+    def _reload_carried(self) -> None:
+        """Earlier cycles' adjustments reaching into this file's forward periods, and ends."""
+        self._ends = self.ledger.standing_ends(self.cycle) if self.ledger is not None else {}
+        self.earlier_lines = history.carried_adjustments(
+            self.portfolio, self.ledger, cycle=self.cycle, keep_ended=True
+        )
+        self._derive_carried()
+
+    def _derive_carried(self) -> None:
+        """Standing lines, per-series index and the list marker, from ``earlier_lines``."""
+        lines = self.earlier_lines
+        if len(lines):
+            ended = lines["event_id"].isin(list(self._ends)).to_numpy(dtype=bool)
+            lines = lines.assign(ended=ended)
+            lines["standing"] = history.standing_lines(lines)
+            self.earlier_lines = lines
+        series = lines["series"].to_numpy(dtype=np.int64)
+        self._lines_of = (
+            {int(k): v for k, v in pd.Series(np.arange(len(lines))).groupby(series).groups.items()}
+            if len(lines)
+            else {}
+        )
+        self.carries[:] = False
+        live = lines["standing"].to_numpy(dtype=bool) & ~lines["in_forecast"].to_numpy(dtype=bool)
+        self.carries[series[live]] = True
+
+    def _record_worst_set(self) -> None:
+        """Keep the worst-offender set this list shows, once per cycle, in a writable ledger.
+
+        A ledger that cannot take it (busy, disk full) costs the snapshot, never the session:
+        the reason is added to ``notices`` and repeat offenders re-score this cycle.
+        """
+        if not self.can_save:
+            return
+        assert self.ledger is not None
+        members = self.error_order[self.worst[self.error_order]]
+        keys = self.portfolio.keys
+        items = keys[schema.ITEM].to_numpy(dtype=object)[members]
+        if schema.LOCATION in keys:
+            locations = keys[schema.LOCATION].to_numpy(dtype=object)[members]
+        else:
+            locations = np.full(len(members), "", dtype=object)
+        try:
+            self.ledger.record_worst_set(
+                self.cycle,
+                items.tolist(),
+                locations.tolist(),
+                reviewer=self.reviewer,
+                portfolio_name=self.portfolio.path.name,
+                portfolio_fingerprint=self.portfolio.fingerprint,
+                target_share=self.target_share,
+                window=self.window,
+                season=self.season,
+                ranked_by="value" if self.priced else "units",
+                series=self.portfolio.n_series,
+            )
+        except ledger_mod.LedgerError as exc:
+            self.notices.append(
+                f"This cycle's worst-offender set was not stored ({exc}); repeat offenders "
+                "re-score it."
+            )
 
     def _indexer(self, pairs: list[tuple[str, str]]) -> np.ndarray:
         if isinstance(self._key_index, pd.MultiIndex):
@@ -338,6 +452,137 @@ class ReviewSession:
             portfolio_name=self.portfolio.path.name,
             portfolio_fingerprint=self.portfolio.fingerprint,
         )
+
+    def commit_end_adjustment(self, series: int, event_id: int, note: str = "") -> AdjustmentEnd:
+        """End an earlier cycle's adjustment of the series (``Ledger.end_adjustment``).
+
+        From this cycle on the adjustment is no longer carried into exports. In-memory state is
+        not touched; pass the result to ``apply_end``.
+
+        Raises:
+            DecisionError, LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was
+                saved.
+        """
+        ledger = self._require_ledger()
+        item, location = self.key(series)
+        return ledger.end_adjustment(
+            self.cycle,
+            item,
+            location,
+            target=event_id,
+            reviewer=self.reviewer,
+            note=note,
+            portfolio_name=self.portfolio.path.name,
+            portfolio_fingerprint=self.portfolio.fingerprint,
+        )
+
+    def commit_restore_adjustment(self, series: int, end_id: int, note: str = "") -> AdjustmentEnd:
+        """Revert an end recorded for the series (``Ledger.restore_adjustment``).
+
+        Raises:
+            DecisionError, LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was
+                saved.
+        """
+        ledger = self._require_ledger()
+        item, location = self.key(series)
+        return ledger.restore_adjustment(
+            self.cycle,
+            item,
+            location,
+            end=end_id,
+            reviewer=self.reviewer,
+            note=note,
+            portfolio_name=self.portfolio.path.name,
+            portfolio_fingerprint=self.portfolio.fingerprint,
+        )
+
+    def apply_end(self, record: AdjustmentEnd) -> int | None:
+        """Bring the in-memory state in line with a committed end or restore; returns its series.
+
+        Works on the lines already in memory: no re-reading of the ledger or the portfolio.
+        """
+        series = self.find(record.item, record.location)
+        if record.cycle > self.cycle:
+            return series
+        if record.kind == ledger_mod.END:
+            self._ends[record.target] = record
+        else:
+            self._ends.pop(record.target, None)
+        self._derive_carried()
+        return series
+
+    def active_adjustments(self, series: int) -> list[ActiveAdjustment]:
+        """Earlier cycles' adjustments of the series reaching into this file's forward periods.
+
+        Oldest cycle first, ended ones included (``ended`` set). A period this cycle's own
+        adjustment covers is ``replaced_now`` (that decision takes precedence); the rest follow
+        ``history.carried_adjustments``.
+        """
+        rows = self._lines_of.get(series)
+        if rows is None or not len(rows):
+            return []
+        lines = self.earlier_lines.iloc[np.asarray(rows, dtype=np.int64)]
+        now = self._adjusted_now(series)
+        out = []
+        for event_id, part in lines.groupby("event_id", sort=False):
+            periods = part["period"].to_numpy(dtype=object).astype(str)
+            standing = part["standing"].to_numpy(dtype=bool)
+            already = part["in_forecast"].to_numpy(dtype=bool)
+            replaced = np.isin(periods, list(now))
+            ended = self._ends.get(int(event_id))
+            first = part.iloc[0]
+
+            def pick(mask: np.ndarray, periods: np.ndarray = periods) -> tuple[str, ...]:
+                return tuple(sorted(periods[mask].tolist()))
+
+            live = standing & (ended is None)
+            out.append(
+                ActiveAdjustment(
+                    event_id=int(event_id),
+                    cycle=str(first["cycle"]),
+                    adjustment=str(first["adjustment"]),
+                    reviewer=str(first["reviewer"]),
+                    periods=tuple(sorted(periods.tolist())),
+                    applied=pick(live & ~already & ~replaced),
+                    in_forecast=pick(live & already & ~replaced),
+                    replaced_now=pick(live & replaced),
+                    superseded=pick(~standing & (ended is None)),
+                    ended=ended,
+                )
+            )
+        return sorted(out, key=lambda a: (a.cycle, a.event_id))
+
+    def carried_forward(self, series: int) -> np.ndarray | None:
+        """The series' forward forecast as this cycle's export carries earlier adjustments.
+
+        NaN where no earlier adjustment is applied; None when none is. This cycle's own
+        adjustment takes precedence over every carried value.
+        """
+        rows = self._lines_of.get(series)
+        if rows is None or not len(rows):
+            return None
+        lines = self.earlier_lines.iloc[np.asarray(rows, dtype=np.int64)]
+        live = lines["standing"].to_numpy(dtype=bool) & ~lines["in_forecast"].to_numpy(dtype=bool)
+        now = self._adjusted_now(series)
+        live &= ~np.isin(lines["period"].to_numpy(dtype=object).astype(str), list(now))
+        if not live.any():
+            return None
+        out = np.full(self.portfolio.forecast.shape[1] - self.portfolio.last_actual - 1, np.nan)
+        cols = lines["column"].to_numpy(dtype=np.int64)[live] - self.portfolio.last_actual - 1
+        out[cols] = lines["adjusted"].to_numpy(dtype=np.float64)[live]
+        return out
+
+    def _adjusted_now(self, series: int) -> set[str]:
+        """Periods this cycle's effective decision of the series adjusts (empty when none)."""
+        if self.outcome[series] != ledger_mod.ADJUSTED or self.ledger is None:
+            return set()
+        item, location = self.key(series)
+        events = self.ledger.history(cycle=self.cycle, item=item, location=location)
+        undone = {e.undoes for e in events if e.kind == ledger_mod.UNDO}
+        standing = [e for e in events if e.kind == ledger_mod.DECISION and e.id not in undone]
+        if not standing or standing[-1].outcome != ledger_mod.ADJUSTED:
+            return set()
+        return {ln.period for ln in standing[-1].lines}
 
     def apply_event(self, event: Event) -> int | None:
         """Bring the in-memory state in line with a committed event; returns its series."""
@@ -535,10 +780,17 @@ class ReviewSession:
         )
 
     def chart(self, series: int, adjusted: np.ndarray | None = None) -> ChartSeries:
-        """Demand, forecast and (optionally) adjusted forward values of one series."""
+        """Demand, forecast and adjusted forward values of one series.
+
+        ``adjusted`` is a preview; without one, the earlier cycles' adjustments this cycle's
+        export carries are shown (``carried_forward``), if any.
+        """
         p = self.portfolio
         labels = tuple(p.calendar.label(i) for i in range(len(p.calendar.periods)))
         adj = None
+        if adjusted is None:
+            # Without a preview, the earlier adjustments this cycle's export carries.
+            adjusted = self.carried_forward(series)
         if adjusted is not None:
             adj = np.full(len(labels), np.nan)
             adj[p.last_actual + 1 :] = adjusted
@@ -598,14 +850,60 @@ class ReviewSession:
         times = int(self.times_in_worst[series])
         if self.cycles_scored:
             mark = "repeat offender: " if self.repeat[series] else ""
+            rescored = sum(how == history.RESCORED for how in self.repeat_sources.values())
+            notes = [f"flag at {n} of {m}"] if self.repeat[series] else []
+            if rescored and self.ledger is not None:
+                notes.append(f"{rescored} re-scored, no stored set")
             lines.append(
                 f"{mark}in the worst-offender set {times} of the last {self.cycles_scored} cycles"
-                + (f" (flag at {n} of {m})" if self.repeat[series] else "")
+                + (f" ({'; '.join(notes)})" if notes else "")
             )
         if self.past_outcome[series]:
             carried = " and still in the worst set: carried over" if self.carried[series] else ""
             lines.append(
                 f"last decided {self.past_cycle[series]}: {self.past_outcome[series]}{carried}"
             )
-        lines.extend(self.active.get(series, []))
+        lines.extend(self.active_lines(series))
         return lines
+
+    def active_lines(self, series: int) -> list[str]:
+        """One line per earlier adjustment reaching into this cycle (``active_adjustments``)."""
+        out = []
+        for a in self.active_adjustments(series):
+            head = f"adjustment from {a.cycle} ({a.adjustment}, by {a.reviewer})"
+            if a.ended is not None:
+                out.append(
+                    f"{head}: ended by {a.ended.reviewer} at {a.ended.recorded_at} "
+                    f"(cycle {a.ended.cycle}); not carried"
+                )
+                continue
+            parts = []
+            if a.applied:
+                parts.append(
+                    f"carried into this cycle's export for {_count(a.applied, 'period')} "
+                    f"({_span(a.applied)})"
+                )
+            if a.in_forecast:
+                parts.append(
+                    f"already in this file's forecast for {_count(a.in_forecast, 'period')}"
+                    f" ({_span(a.in_forecast)})"
+                )
+            if a.replaced_now:
+                parts.append(
+                    f"replaced by this cycle's adjustment for {_count(a.replaced_now, 'period')}"
+                )
+            if a.superseded:
+                parts.append(
+                    f"a later cycle's adjustment stands for {_count(a.superseded, 'period')}"
+                )
+            label = "active " if a.active else ""
+            out.append(f"{label}{head}: " + "; ".join(parts))
+        return out
+
+
+def _count(periods: tuple[str, ...], word: str) -> str:
+    return f"{len(periods)} {word}{'' if len(periods) == 1 else 's'}"
+
+
+def _span(periods: tuple[str, ...]) -> str:
+    return periods[0] if len(periods) == 1 else f"{periods[0]} .. {periods[-1]}"

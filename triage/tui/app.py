@@ -501,10 +501,13 @@ class TriageApp(App[None]):
         }
 
     def _review_cell(self, series: int, outcome: str) -> fmt.Cell:
-        """This cycle's outcome, else a marker of the latest earlier decision."""
+        """This cycle's outcome, else an earlier adjustment still carried, else a marker of the
+        latest earlier decision."""
         assert self.session is not None
         if outcome:
             return (fmt.OUTCOME_TINY[outcome], "done")
+        if self.session.carries[series]:
+            return (fmt.CARRIED_TINY, "flag")
         past = self.session.past_outcome[series]
         if past:
             return (fmt.PAST_TINY.get(past, "↺"), "flag" if self.session.carried[series] else "dim")

@@ -35,6 +35,8 @@ PAST_TINY = {
     "handed_off": "↺ hand",
     "deferred": "↺ later",
 }
+#: An earlier cycle's adjustment still carried into this cycle's export (``session.carries``).
+CARRIED_TINY = "⇢ adj"
 #: The review column's words, short enough for an 80-column terminal.
 OUTCOME_TINY = {
     "no_change": "✓ ok",
