@@ -63,7 +63,7 @@ def test_two_week_flow_carries_week_one_adjustments_into_week_two_export(
     result = run("export", str(weeks.week2), "--to", str(out / "w2.csv"))
     assert result.returncode == 0, result.stderr
     assert "0 reviewed series, 16 forecast rows (6 adjusted)" in result.stdout
-    rows = _forecast_rows(out / "w2-forecast.csv")
+    rows = _forecast_rows(out / "w2" / "w2-forecast.csv")
     for period in weeks.forward2[:3]:
         assert rows[("A", period)]["adjusted_forecast"] == "110.0"
         assert rows[("A", period)]["adjusted_in_cycle"] == WEEK1
@@ -72,7 +72,7 @@ def test_two_week_flow_carries_week_one_adjustments_into_week_two_export(
         assert rows[("B", period)]["adjusted"] == "false"
     assert rows[("A", weeks.forward2[3])]["adjusted"] == "false"
     assert "already in erp_2026-w2.csv's forecast" in result.stderr
-    readme = (out / "w2-README.txt").read_text(encoding="utf-8")
+    readme = (out / "w2" / "w2-README.txt").read_text(encoding="utf-8")
     assert "carry adjustments made in earlier cycles" in readme and "adjusted_in_cycle" in readme
     # Reading did not change the ledger nor leave -wal/-shm files beside it.
     assert ledger.read_bytes() == before

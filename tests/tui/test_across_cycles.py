@@ -95,3 +95,47 @@ async def test_week_two_marks_and_details_an_earlier_adjustment_still_carried(
         detail = str(app.query_one("#detail-text").render())
         assert f"active adjustment from {WEEK1} (+10, by ana)" in detail
         assert "carried into this cycle's export for 3 periods" in detail
+
+
+async def test_end_key_stops_carrying_an_earlier_adjustment_and_the_export_follows(
+    tmp_path: Path,
+) -> None:
+    # Week 1 adjusts A by +10 for four weeks; in week 2 the reviewer ends it with e and y.
+    # The ledger holds the end (who, when) and week 2's export no longer applies it.
+    from tests.core.twoweeks import write_two_weeks
+    from triage.core.export import review_tables
+    from triage.core.ledger import Ledger, locate_ledger
+    from triage.core.portfolio import read_portfolio
+    from triage.core.review import ReviewSession
+    from triage.tui.format import CARRIED_TINY
+    from triage.tui.screens.dialogs import ConfirmScreen
+
+    weeks = write_two_weeks(tmp_path / "review")
+    ledger_path = locate_ledger(weeks.week1).path
+    with Ledger.open(ledger_path) as ledger:
+        week1 = ReviewSession(read_portfolio(weeks.week1), ledger=ledger, reviewer="ana")
+        series = week1.find("A", "Lyon")
+        assert series is not None
+        week1.commit_decision(series, outcome="adjusted", root_cause="promotion", adjustment="+10")
+    app = TriageApp(Options(portfolio=weeks.week2, reviewer="bob"))
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        session = app.session
+        a = session.find("A", "Lyon")
+        series_list = app.query_one(SeriesList)
+        while series_list.current != a:
+            await pilot.press("j")
+        await pilot.press("e")
+        await wait_for(pilot, lambda: isinstance(app.screen, ConfirmScreen), "the question")
+        assert "from 2026-11-02 (+10, by ana)" in str(
+            app.screen.query_one(".dialog-title").render()
+        )
+        await pilot.press("y")
+        await wait_for(pilot, lambda: not session.carries[a], "the end")
+        assert app._format_row(a)["outcome"][0] != CARRIED_TINY
+        assert "ended by bob" in str(app.query_one("#detail-text").render())
+    with Ledger.open(ledger_path, read_only=True) as ledger:
+        tables = review_tables(read_portfolio(weeks.week2), ledger)
+    rows = tables.forecast[tables.forecast["item"] == "A"]
+    assert rows["adjusted_in_cycle"].isna().all() or (rows["adjusted_in_cycle"] == "").all()
+    assert (rows["adjusted_forecast"] == rows["forecast"]).all()

@@ -71,6 +71,16 @@ OUTCOMES: tuple[Choice, ...] = numbered(
     )
 )
 ADJUSTED = "adjusted"
+
+
+def outcome_label(code: str | None) -> str:
+    """The words for an outcome code (never the code itself on a screen or in a report)."""
+    for choice in OUTCOMES:
+        if choice.code == code:
+            return choice.label
+    return str(code or "")
+
+
 #: Outcomes that settle a series for the cycle; handed-off and put-off ones are still open.
 SETTLED: tuple[str, ...] = ("no_change", ADJUSTED)
 

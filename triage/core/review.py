@@ -860,9 +860,8 @@ class ReviewSession:
             )
         if self.past_outcome[series]:
             carried = " and still in the worst set: carried over" if self.carried[series] else ""
-            lines.append(
-                f"last decided {self.past_cycle[series]}: {self.past_outcome[series]}{carried}"
-            )
+            outcome = ledger_mod.outcome_label(self.past_outcome[series]).lower()
+            lines.append(f"last decided {self.past_cycle[series]}: {outcome}{carried}")
         lines.extend(self.active_lines(series))
         return lines
 

@@ -25,11 +25,11 @@ from triage.core import ledger as ledger_mod
 from triage.core import schema, words
 from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.errors import TriageError
-from triage.core.review import FILTER_FIELDS, ReviewSession
+from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
 from triage.core.text import visible
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
-from triage.tui.messages import Exported, Loaded, LoadStep, Saved, SaveFailed
+from triage.tui.messages import Ended, Exported, Loaded, LoadStep, Saved, SaveFailed
 from triage.tui.screens.decision import UNCHANGED, DecisionScreen, Draft, draft_of
 from triage.tui.screens.dialogs import ChooseScreen, ConfirmScreen, HelpScreen, PromptScreen
 from triage.tui.screens.overrides import OverridesScreen
@@ -220,6 +220,14 @@ class TriageApp(App[None]):
             show=False,
             id="app.export",
             tooltip="Export decisions and the adjusted forward forecast",
+        ),
+        Binding(
+            "e",
+            "end_adjustment",
+            "End carried adjustment",
+            show=False,
+            id="review.end_adjustment",
+            tooltip="Stop carrying an earlier cycle's adjustment into exports (or restore one)",
         ),
         Binding(
             "N",
@@ -413,6 +421,7 @@ class TriageApp(App[None]):
         self.post_message(LoadStep(3, steps, "indexing for search"))
         session.prepare()
         self.post_message(LoadStep(4, steps, "drawing"))
+        notices.extend(session.notices)
         self.post_message(Loaded(session, tuple(notices)))
 
     @on(LoadStep)
@@ -888,6 +897,85 @@ class TriageApp(App[None]):
         self._confirm_other_reviewer(series, "Undo", lambda: self._submit_undo(series))
 
     # -- saving: one write at a time, in the order decided -------------------------------------
+
+    def action_end_adjustment(self) -> None:
+        """End an earlier cycle's adjustment still carried for the series, or restore one."""
+        session = self.session
+        series = self._q(SeriesList).current
+        if session is None or series is None:
+            return
+        found = session.active_adjustments(series)
+        live = [a for a in found if a.active or a.in_forecast]
+        ended = [a for a in found if a.ended is not None]
+        if not live and not ended:
+            self._status("no earlier adjustment reaches into this cycle for this series")
+            return
+
+        def describe(a: ActiveAdjustment) -> str:
+            spec, who = fmt.plain(a.adjustment), fmt.plain(a.reviewer)
+            return f"the adjustment from {a.cycle} ({spec}, by {who})"
+
+        def ask(a: ActiveAdjustment) -> None:
+            if a.ended is None:
+                question = Text(
+                    f"End {describe(a)}? Its periods will no longer be carried into exports."
+                )
+                job = lambda: self._submit_end(series, a.event_id, restore=False)  # noqa: E731
+            else:
+                question = Text(f"Restore {describe(a)}, ended by {fmt.plain(a.ended.reviewer)}?")
+                end_id = a.ended.id
+                job = lambda: self._submit_end(series, end_id, restore=True)  # noqa: E731
+            self.push_screen(ConfirmScreen(question), lambda yes: job() if yes else None)
+
+        choices = live or ended
+        if len(choices) == 1:
+            ask(choices[0])
+            return
+        by_id = {str(a.event_id): a for a in choices}
+        self.push_screen(
+            ChooseScreen(
+                "End which adjustment?" if live else "Restore which adjustment?",
+                [(k, describe(a)) for k, a in by_id.items()],
+            ),
+            lambda picked: ask(by_id[picked]) if picked is not None else None,
+        )
+
+    def _submit_end(self, series: int, target: int, *, restore: bool) -> None:
+        self._status("saving…")
+        self._queued[series] = self._queued.get(series, 0) + 1
+        self.end_adjustment(series, target, restore, self._take_ticket())
+
+    @work(thread=True, exit_on_error=False, group="ledger")
+    def end_adjustment(self, series: int, target: int, restore: bool, ticket: int) -> None:
+        """Record the end (or restore) of an earlier adjustment off the UI thread."""
+        session = self.session
+        assert session is not None
+        with self._my_turn(ticket):
+            try:
+                if restore:
+                    record = session.commit_restore_adjustment(series, target)
+                else:
+                    record = session.commit_end_adjustment(series, target)
+            except TriageError as exc:
+                self.post_message(SaveFailed(series, str(exc)))
+                return
+        self.post_message(Ended(record))
+
+    @on(Ended)
+    def _ended(self, message: Ended) -> None:
+        session = self.session
+        assert session is not None
+        series = session.apply_end(message.record)
+        if series is not None:
+            self._dequeue(series)
+            self._q(SeriesList).invalidate(series)
+            if series == self._q(SeriesList).current:
+                self._show_detail(series)
+        what = "restored" if message.record.kind == ledger_mod.RESTORE else "ended"
+        self._status(
+            f"saved: adjustment {what} (ledger entry {message.record.id}); "
+            "exports of this cycle follow it"
+        )
 
     def _take_ticket(self) -> int:
         with self._turn:

@@ -185,13 +185,10 @@ def when(recorded_at: str) -> str:
 
 
 def outcome_label(code: str | None) -> str:
-    """The words for an outcome code (the ledger's vocabulary); never the code itself."""
-    from triage.core.ledger import OUTCOMES
+    """The words for an outcome code (the ledger's vocabulary), made safe to show."""
+    from triage.core.ledger import outcome_label as label
 
-    for choice in OUTCOMES:
-        if choice.code == code:
-            return choice.label
-    return visible(str(code or ""))
+    return visible(label(code))
 
 
 def cause_label(code: str | None, causes: tuple[Choice, ...]) -> str:

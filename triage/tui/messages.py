@@ -4,7 +4,7 @@ from __future__ import annotations
 
 from textual.message import Message
 
-from triage.core.ledger import Event
+from triage.core.ledger import AdjustmentEnd, Event
 from triage.core.review import ReviewSession
 
 
@@ -61,3 +61,12 @@ class Exported(Message):
         super().__init__()
         self.summary = summary
         """What was written."""
+
+
+class Ended(Message):
+    """An earlier adjustment's end (or its restore) is durably in the ledger."""
+
+    def __init__(self, record: AdjustmentEnd) -> None:
+        super().__init__()
+        self.record = record
+        """The committed end or restore."""
