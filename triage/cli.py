@@ -20,6 +20,7 @@ from triage.arguments import (
     refuse_overwriting,
     score_args,
 )
+from triage.commands_decide import add_decide_command
 from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
@@ -87,6 +88,7 @@ def build_parser() -> argparse.ArgumentParser:
     demo.set_defaults(handler=_cmd_demo)
     add_ledger_commands(sub)
     add_report_commands(sub)
+    add_decide_command(sub)
     return parser
 
 

@@ -997,6 +997,7 @@ class Ledger:
     ) -> None:
         self._con = con
         self._lock = threading.RLock()
+        self._batch: sqlite3.Connection | None = None
         self.path = path
         self.read_only = read_only
         self.notice = notice
@@ -1267,7 +1268,7 @@ class Ledger:
         )
         expected_version = _check_version(expected_version)
 
-        with self._write("decision") as con:
+        with self._writing("decision") as con:
             version = self._claim_version(con, cycle, item, location, expected_version)
             recorded_at = _utc_now()
             event_id = con.execute(
@@ -1722,6 +1723,30 @@ class Ledger:
                 recorded_at=row[2] if row else "(never)",
             )
         return current + 1
+
+    @contextmanager
+    def batch(self, what: str) -> Iterator[None]:
+        """Every ``record`` inside is part of one transaction: all are saved, or none.
+
+        For a batch of decisions prepared in a file (``triage decide``): a failure on any row
+        (a stale version, a full disk) rolls every row back.
+        """
+        with self._write(what) as con:
+            self._batch = con
+            try:
+                yield
+            finally:
+                self._batch = None
+
+    @contextmanager
+    def _writing(self, what: str) -> Iterator[sqlite3.Connection]:
+        """The open batch's transaction, or a transaction of its own."""
+        if self._batch is not None:
+            with self._lock:
+                yield self._batch
+            return
+        with self._write(what) as con:
+            yield con
 
     @contextmanager
     def _write(self, what: str) -> Iterator[sqlite3.Connection]:

@@ -10,7 +10,9 @@ call it where the state is owned). Nothing here imports Textual.
 from __future__ import annotations
 
 import math
+from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Protocol
 
 import numpy as np
 import pandas as pd
@@ -100,6 +102,21 @@ class ActiveAdjustment:
     def active(self) -> bool:
         """Whether the export of this cycle applies it to at least one period."""
         return bool(self.applied)
+
+
+class BatchDecision(Protocol):
+    """One decision of a batch (``triage.core.decide.BatchRow`` is one)."""
+
+    @property
+    def series(self) -> int: ...
+    @property
+    def outcome(self) -> str: ...
+    @property
+    def root_cause(self) -> str: ...
+    @property
+    def note(self) -> str: ...
+    @property
+    def adjustment(self) -> str: ...
 
 
 class ReviewSession:
@@ -436,6 +453,29 @@ class ReviewSession:
                 self.version[series] if expected_version is None else expected_version
             ),
         )
+
+    def commit_batch(self, rows: Sequence[BatchDecision]) -> list[Event]:
+        """Save many decisions in one transaction (all or none); in-memory state is not touched.
+
+        Each row goes through ``commit_decision``, the path the review screens use.
+
+        Raises:
+            as ``commit_decision``: nothing was saved.
+        """
+        ledger = self._require_ledger()
+        events = []
+        with ledger.batch(f"{len(rows):,} decisions"):
+            for row in rows:
+                events.append(
+                    self.commit_decision(
+                        row.series,
+                        outcome=row.outcome,
+                        root_cause=row.root_cause,
+                        note=row.note,
+                        adjustment=row.adjustment or None,
+                    )
+                )
+        return events
 
     def commit_undo(self, series: int, *, expected_version: int | None = None) -> Event:
         """Append an undo of the series' effective decision; in-memory state is not touched."""
