@@ -237,3 +237,72 @@ def test_a_fault_inside_the_review_screens_is_one_line_and_a_log(tmp_path: Path)
     text = log.read_text(encoding="utf-8")
     assert "Traceback" in text and "injected fault" in text
     assert "typed before the fault" in text  # the unsaved entry is not lost
+
+
+def _quit(term: Tmux) -> None:
+    term.keys("q")
+    deadline = time.monotonic() + 15
+    while term.alive() and time.monotonic() < deadline:
+        time.sleep(0.2)
+    assert not term.alive(), f"the app did not quit on q:\n{term.screen()}"
+
+
+def test_two_weeks_in_one_review_folder(tmp_path: Path) -> None:
+    """Week 1: adjust with a note, quit, reopen and revisit the decision. Week 2's file dropped
+    in the same folder finds the ledger with no flag, shows the carried adjustment, and its
+    export carries it (tests/core/twoweeks.py: A's forward forecast is 100 a week)."""
+    import csv
+
+    from tests.core.twoweeks import WEEK1, write_two_weeks
+
+    weeks = write_two_weeks(tmp_path / "review")
+    folder = weeks.week1.parent
+    triage = str(Path(sys.executable).with_name("triage"))
+
+    def review(target: Path) -> Tmux:
+        return Tmux([triage, "review", str(target), "--reviewer", "smoke"], tmp_path)
+
+    term = review(weeks.week1)
+    try:
+        term.wait_for("reviewed 0")
+        term.keys("g", "A", "Enter")
+        term.wait_for("A @ Lyon")
+        term.keys("a", "+10", "Tab", "promo in week 46", "C-s")
+        term.wait_for("saved:")
+        _quit(term)
+    finally:
+        term.kill()
+    term = review(weeks.week1)
+    try:
+        term.wait_for("reviewed 1")
+        term.keys("g", "A", "Enter", "Enter")
+        screen = term.wait_for("current decision")
+        assert "Forward forecast adjusted" in screen and "by smoke" in screen
+        assert "+10" in screen and "promo in week 46" in screen
+        term.keys("Escape")
+        # A terminal cannot tell ESC then q from alt+q when they arrive together: a pause.
+        term.wait_for("c No change")
+        time.sleep(0.3)
+        _quit(term)
+    finally:
+        term.kill()
+    term = review(folder)  # the folder: its newest file, week 2
+    try:
+        screen = term.wait_for("reviewed 0")
+        assert weeks.week2.name in screen
+        term.keys("g", "A", "Enter")
+        screen = term.wait_for(f"adjustment from {WEEK1}")
+        assert "⇢ adj" in screen  # the list marks the carried adjustment
+        term.keys("x")
+        term.wait_for("Export decisions")
+        term.keys("C-a", "C-k", str(tmp_path / "w2.csv"), "Enter")
+        term.wait_for("exported")
+        _quit(term)
+    finally:
+        term.kill()
+    with (tmp_path / "w2" / "w2-forecast.csv").open(encoding="utf-8", newline="") as handle:
+        rows = [r for r in csv.DictReader(handle) if r["item"] == "A"]
+    carried = [r for r in rows if r["adjusted_in_cycle"] == WEEK1]
+    assert len(carried) == 3  # four weeks adjusted in week 1, three still ahead in week 2
+    assert {r["adjusted_forecast"] for r in carried} == {"110.0"}
+    assert (folder / "triage-ledger.sqlite").exists()

@@ -884,8 +884,9 @@ class ReviewSession:
         return tables, fva
 
     def across_cycles(self, series: int) -> list[str]:
-        """Lines about the series' earlier cycles: repeat offender, carried over, overrides."""
-        lines = []
+        """Lines about the series' earlier cycles: adjustments still carried first (they change
+        this cycle's export), then repeat offender and the last earlier decision."""
+        lines = list(self.active_lines(series))
         n, m = self.repeat_nm
         times = int(self.times_in_worst[series])
         if self.cycles_scored:
@@ -902,7 +903,6 @@ class ReviewSession:
             carried = " and still in the worst set: carried over" if self.carried[series] else ""
             outcome = ledger_mod.outcome_label(self.past_outcome[series]).lower()
             lines.append(f"last decided {self.past_cycle[series]}: {outcome}{carried}")
-        lines.extend(self.active_lines(series))
         return lines
 
     def active_lines(self, series: int) -> list[str]:

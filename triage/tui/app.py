@@ -551,8 +551,13 @@ class TriageApp(App[None]):
         self._chart_timer = self.set_timer(CHART_SETTLE, lambda: self._draw_chart(series))
         value = f" (value {fmt.compact(card['abs_error_value'])})" if session.priced else ""
         per = " a week" if session.portfolio.calendar.freq == schema.WEEKLY else " a month"
-        lines = [
-            session.describe(series),
+        # What to act on first (earlier cycles, carried adjustments, the suggestion), then the
+        # measures: a short pane at 80x24 still shows the first lines.
+        lines = [session.describe(series), *session.across_cycles(series)]
+        spec, reason = session.suggest_spec[series], session.suggest_reason[series]
+        if spec:
+            lines.append(f"suggested: {spec} ({reason}); press s to take it")
+        lines += [
             f"abs error {fmt.compact(card['abs_error'])}{value} · WAPE {fmt.pct(card['wape'])} · "
             f"MAE {card['mae']:.1f} · RMSE {card['rmse']:.1f}"
             if card["periods"]
@@ -563,10 +568,6 @@ class TriageApp(App[None]):
             f"MASE {card['mase']:.2f}: {words.MEANINGS['MASE']}",
             f"sign test p {card['bias_pvalue']:.3f}: {words.MEANINGS['sign test p']}",
         ]
-        lines.extend(session.across_cycles(series))
-        spec, reason = session.suggest_spec[series], session.suggest_reason[series]
-        if spec:
-            lines.append(f"suggested: {spec} ({reason}); press s to take it")
         attrs = [
             f"{name}: {fmt.clip(str(session.portfolio.keys[name].iat[series]))}"
             for name in session.portfolio.attributes
