@@ -174,7 +174,9 @@ async def test_reopen_resumes_where_the_reviewer_stopped(portfolio: Path) -> Non
     async with again.run_test(size=(160, 48)) as pilot:
         await wait_loaded(again, pilot)
         assert again.session.outcome[series] == "deferred"
-        assert again.session.progress().reviewed == 1
+        # Put off is decided but not settled (issue: reviewed counts no change and adjusted).
+        progress = again.session.progress()
+        assert (progress.reviewed, progress.deferred) == (0, 1)
 
 
 async def test_help_lists_every_binding(portfolio: Path) -> None:
