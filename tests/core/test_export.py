@@ -463,6 +463,8 @@ def test_csv_readme_carries_caution_and_provenance(scenario: dict, tmp_path: Pat
     ):
         assert text in readme
     assert re.search(r"Exported at \(UTC\)\s+\d{4}-\d\d-\d\dT\d\d:\d\d:\d\dZ", readme)
+    # The CSV keeps control characters of notes exactly, so the README warns against a raw print.
+    assert "never print them raw to a" in readme and "terminal" in readme
     # The manifest: each data file's size and SHA-256, so an upload can check it read this set.
     for name in ("up-decisions.csv", "up-forecast.csv"):
         data = (tmp_path / "up" / name).read_bytes()

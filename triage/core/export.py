@@ -1120,6 +1120,9 @@ _SAFETY_LINES = (
     "= + - @, a tab or a line break starts with an apostrophe ('), so no spreadsheet reads it as",
     "a formula. item and location are never changed, so they join back in the planning system.",
     "Line breaks inside notes are LF.",
+    "The CSV files hold every text exactly, control characters included (an ESC or NUL typed",
+    "in a note stays): read them with a spreadsheet or a program; never print them raw to a",
+    "terminal, where such characters act as commands.",
 )
 
 #: One line per column, for the README and the "Read me" sheet (docs/export.md has the same).
