@@ -58,6 +58,15 @@ async def test_newest_week_shows_earlier_cycles(scenario, tmp_path: Path) -> Non
         realised = scenario.realised_in(len(scenario.files) - 1)
         assert int(total["adjustments"]) == len(realised)
         assert total["value_added"] == pytest.approx(sum(line.value_added for line in realised))
+        # Root causes by their labels; no code reaches the screen.
+        from triage.tui.screens.overrides import summary_table
+
+        table = summary_table(
+            "root_cause", app.screen._tables["root_cause"], session.priced, app.options.root_causes
+        )
+        cells = [str(c) for col in table.columns for c in col._cells]
+        assert "Promotion or event" in cells and "promotion" not in cells
+        assert "model_miss" not in cells
         await pilot.press("escape")
 
 

@@ -1166,7 +1166,9 @@ class TriageApp(App[None]):
     def _show_override_value(self, tables, fva) -> None:
         assert self.session is not None
         self._status("")
-        self.push_screen(OverridesScreen(tables, fva, self.session.priced))
+        self.push_screen(
+            OverridesScreen(tables, fva, self.session.priced, self.options.root_causes)
+        )
 
     @on(Exported)
     def _exported(self, message: Exported) -> None:

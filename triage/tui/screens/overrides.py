@@ -15,6 +15,8 @@ from textual.containers import Vertical, VerticalScroll
 from textual.widgets import Static
 
 from triage.core import words
+from triage.core.config import Choice
+from triage.tui import format as fmt
 from triage.tui.screens.base import Dialog
 
 TITLES = {
@@ -34,11 +36,16 @@ def _num(value: float, fmt: str = ",.1f") -> str:
     )
 
 
-def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
-    """One grouping of ``history.summarise`` as a Rich table (data as ``Text``, never markup)."""
+def summary_table(
+    by: str, frame: pd.DataFrame, priced: bool, causes: tuple[Choice, ...] = ()
+) -> Table:
+    """One grouping of ``history.summarise`` as a Rich table (data as ``Text``, never markup).
+
+    Root causes appear as their labels, never as codes.
+    """
     table = Table(title=TITLES.get(by, by), title_justify="left", box=None, header_style="bold")
     for name, right in [
-        (by, False),
+        (by.replace("_", " "), False),
         ("periods", True),
         ("decisions", True),
         ("helped", True),
@@ -50,8 +57,11 @@ def summary_table(by: str, frame: pd.DataFrame, priced: bool) -> Table:
         table.add_column(name, justify="right" if right else "left")
     for row in frame.itertuples(index=False):
         rec = row._asdict()
+        shown = str(rec[by])
+        if by == "root_cause":
+            shown = fmt.cause_label(shown, causes)
         table.add_row(
-            Text(str(rec[by])),
+            Text(fmt.plain(shown)),
             str(int(rec["adjustments"])),
             str(int(rec["decisions"])),
             str(int(rec["helped"])),
@@ -83,12 +93,17 @@ class OverridesScreen(Dialog[None]):
     ]
 
     def __init__(
-        self, tables: dict[str, pd.DataFrame], fva: dict[str, float], priced: bool
+        self,
+        tables: dict[str, pd.DataFrame],
+        fva: dict[str, float],
+        priced: bool,
+        causes: tuple[Choice, ...] = (),
     ) -> None:
         super().__init__()
         self._tables = tables
         self._fva = fva
         self._priced = priced
+        self._causes = causes
 
     def compose(self) -> ComposeResult:
         overall = self._tables.get("direction")
@@ -115,7 +130,7 @@ class OverridesScreen(Dialog[None]):
             parts.append(Text(f"AvgRelMAE: {words.MEANINGS['AvgRelMAE']}.", style="dim"))
             for by, frame in self._tables.items():
                 parts.append(Text(""))
-                parts.append(summary_table(by, frame, self._priced))
+                parts.append(summary_table(by, frame, self._priced, self._causes))
         fva = self._fva
         parts.append(Text(""))
         parts.append(
