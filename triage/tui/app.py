@@ -63,20 +63,6 @@ class Options:
     notices: list[str] = field(default_factory=list)
 
 
-def _cause_bindings() -> list[Binding]:
-    return [
-        Binding(
-            digit,
-            f"cause({i})",
-            f"Root cause {digit}",
-            show=False,
-            id=f"review.cause_{digit}",
-            tooltip="Root cause of the quick decisions (kept until changed; shown in the header)",
-        )
-        for i, digit in enumerate("1234567890")
-    ]
-
-
 class TriageApp(App[None]):
     """Review one portfolio's worst offenders and record decisions in the ledger.
 
@@ -180,7 +166,11 @@ class TriageApp(App[None]):
             id="review.suggestion",
             tooltip="Open the dialog with the suggested adjustment filled in",
         ),
-        *_cause_bindings(),
+        *fmt.digit_bindings(
+            "cause",
+            "review",
+            "Root cause of the quick decisions (kept until changed; shown in the header)",
+        ),
         Binding(
             "f",
             "filter_field",
@@ -966,12 +956,7 @@ class TriageApp(App[None]):
     def _ended(self, message: Ended) -> None:
         session = self.session
         assert session is not None
-        series = session.apply_end(message.record)
-        if series is not None:
-            self._dequeue(series)
-            self._q(SeriesList).invalidate(series)
-            if series == self._q(SeriesList).current:
-                self._show_detail(series)
+        self._written_for(session.apply_end(message.record))
         what = "restored" if message.record.kind == ledger_mod.RESTORE else "ended"
         self._status(
             f"saved: adjustment {what} (ledger entry {message.record.id}); "
@@ -1092,17 +1077,23 @@ class TriageApp(App[None]):
                 return
         self.exit()
 
+    def _written_for(self, series: int | None) -> None:
+        """A write of the series reached the ledger: redraw its row and, if shown, its detail."""
+        if series is None:
+            return
+        self._dequeue(series)
+        self._q(SeriesList).invalidate(series)
+        if series == self._q(SeriesList).current:
+            self._show_detail(series)
+
     @on(Saved)
     def _saved(self, message: Saved) -> None:
         session = self.session
         assert session is not None
         series = session.apply_event(message.event)
         if series is not None:
-            self._dequeue(series)
             self.drafts.pop(series, None)
-            self._q(SeriesList).invalidate(series)
-            if series == self._q(SeriesList).current:
-                self._show_detail(series)
+        self._written_for(series)
         key = fmt.key_text((message.event.item, message.event.location))
         self._status(f"saved: {key} {message.what} (ledger event {message.event.id})")
         self._refresh_summary()

@@ -7,6 +7,7 @@ import unicodedata
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
+from textual.binding import Binding
 
 from triage.core.text import visible
 from triage.tui.widgets.series_list import Cell, Column
@@ -220,3 +221,18 @@ def toast(
     if len(text) > TOAST_MAX:
         text = text[: TOAST_MAX - 1] + "…"
     app.notify(text, severity=severity, timeout=timeout, markup=False)
+
+
+def digit_bindings(action: str, scope: str, tooltip: str) -> list[Binding]:
+    """Bindings ``1``..``9``, ``0`` to ``action(0)``..``action(9)``: the root-cause shortcuts."""
+    return [
+        Binding(
+            digit,
+            f"{action}({i})",
+            f"Root cause {digit}",
+            show=False,
+            id=f"{scope}.cause_{digit}",
+            tooltip=tooltip,
+        )
+        for i, digit in enumerate("1234567890")
+    ]

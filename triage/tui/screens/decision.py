@@ -68,20 +68,6 @@ def draft_of(event: Event, series: int, version: int) -> Draft:
     )
 
 
-def _cause_bindings() -> list[Binding]:
-    return [
-        Binding(
-            digit,
-            f"pick_cause({i})",
-            f"Root cause {digit}",
-            show=False,
-            id=f"decision.cause_{digit}",
-            tooltip="Pick a root cause (when the adjustment and note fields are not focused)",
-        )
-        for i, digit in enumerate("1234567890")
-    ]
-
-
 class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
     """Record a decision for one series.
 
@@ -110,7 +96,11 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
             id="decision.cancel",
             tooltip="Close without saving",
         ),
-        *_cause_bindings(),
+        *fmt.digit_bindings(
+            "pick_cause",
+            "decision",
+            "Pick a root cause (when the adjustment and note fields are not focused)",
+        ),
     ]
 
     def __init__(
