@@ -190,3 +190,19 @@ def test_each_cycle_keeps_the_worst_set_its_list_showed(weeks: TwoWeeks) -> None
         rescored = sum(how == history.RESCORED for how in week2.repeat_sources.values())
         repeat_line = next(line for line in week2.across_cycles(0) if "worst-offender set" in line)
         assert f"{rescored} re-scored, no stored set)" in repeat_line
+
+
+def test_the_set_just_stored_counts_as_the_set_read_back(weeks: TwoWeeks) -> None:
+    # First opening stores the cycle's set and counts it without reading it back; a second
+    # opening reads it from the ledger. Both must count the same (the stored set is the shown one).
+    folder = weeks.week1.parent
+    with Ledger.open(folder / FOLDER_LEDGER) as ledger:
+        first = _session(weeks.week2, ledger)
+        second = _session(weeks.week2, ledger)
+        assert first.repeat_sources == second.repeat_sources
+        np.testing.assert_array_equal(first.times_in_worst, second.times_in_worst)
+        np.testing.assert_array_equal(first.repeat, second.repeat)
+        # Only the cycles asked for are read.
+        assert list(ledger.worst_sets([WEEK2])) == [WEEK2]
+        assert ledger.worst_sets([]) == {}
+        assert set(ledger.worst_sets()) >= {WEEK1, WEEK2}

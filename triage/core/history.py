@@ -513,8 +513,13 @@ def repeat_offenders(
     target_share: float = 0.8,
     window: int = 13,
     ledger: Ledger | None = None,
+    current: np.ndarray | None = None,
 ) -> pd.DataFrame:
     """Series in the worst-offender set in at least ``n`` of the last ``m`` cycles.
+
+    ``current``, when given, is the current cycle's worst set as just stored by the caller
+    (``ReviewSession`` on first opening a cycle): used as the stored set without reading it
+    back.
 
     The last ``m`` cycles are the ``m`` latest periods with any actual demand in this portfolio
     (cycle k = 0 is the current one): distinct weekly (or monthly) cycles, each counted once.
@@ -556,7 +561,11 @@ def repeat_offenders(
     # The m latest periods with any actual demand, oldest first.
     ends = metrics.window_columns(demand, portfolio.last_actual, m)
     dates = [portfolio.calendar.periods[int(end)].strftime("%Y-%m-%d") for end in ends]
-    stored = ledger.worst_sets() if ledger is not None else {}
+    stored = (
+        ledger.worst_sets(dates[:-1] if current is not None else dates)
+        if ledger is not None
+        else {}
+    )
     n_series = portfolio.n_series
     member = np.zeros((n_series, len(ends)), dtype=bool)
     seen = np.zeros((n_series, len(ends)), dtype=bool)
@@ -568,6 +577,11 @@ def repeat_offenders(
             demand[:, cols], forecast[:, cols], price[:, cols] if price is not None else None
         )
         seen[:, j] = wm.periods > 0
+        if current is not None and j == len(ends) - 1:
+            member[:, j] = current
+            seen[:, j] |= current
+            sources[dates[j]] = SNAPSHOT
+            continue
         snapshot = stored.get(dates[j])
         if snapshot is not None:
             found = series_positions(portfolio, snapshot.items, snapshot.locations)

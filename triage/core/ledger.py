@@ -1899,20 +1899,39 @@ class Ledger:
         reverted = {e.reverts for e in ends if e.kind == RESTORE}
         return {e.target: e for e in ends if e.kind == END and e.id not in reverted}
 
-    def worst_sets(self) -> dict[str, WorstSet]:
-        """Every stored worst-offender set by cycle (empty for a schema-1 ledger)."""
+    def worst_sets(self, cycles: Iterable[str] | None = None) -> dict[str, WorstSet]:
+        """Stored worst-offender sets by cycle (empty for a schema-1 ledger).
+
+        Args:
+            cycles: Only these cycles (a review reads the last few, never the whole year);
+                None reads every stored set.
+        """
         if self.schema_version < 2:
             return {}
+        wanted = None if cycles is None else sorted(set(cycles))
+        where = ""
+        params: tuple[str, ...] = ()
+        if wanted is not None:
+            if not wanted:
+                return {}
+            where = f" WHERE cycle IN ({', '.join('?' * len(wanted))})"
+            params = tuple(wanted)
         with self._read() as con:
             heads = con.execute(
                 "SELECT cycle, target_share, window_periods, season, ranked_by, series, reviewer,"
                 " recorded_at, portfolio_name, portfolio_fingerprint FROM worst_snapshot"
-                " ORDER BY cycle"
+                + where
+                + " ORDER BY cycle",
+                params,
             ).fetchall()
             members: dict[str, tuple[list[str], list[str]]] = {h[0]: ([], []) for h in heads}
-            for cycle, item, location in con.execute(
-                "SELECT cycle, item, location FROM worst_member ORDER BY cycle, position"
-            ):
+            rows = con.execute(
+                "SELECT cycle, item, location FROM worst_member"
+                + where
+                + " ORDER BY cycle, position",
+                params,
+            ).fetchall()
+            for cycle, item, location in rows:
                 members[cycle][0].append(item)
                 members[cycle][1].append(location)
         return {

@@ -197,8 +197,7 @@ class ReviewSession:
         """Things the reviewer should know about this session (shown by the screens)."""
         self.worst = history.worst_set(self.error, target_share)
         """This cycle's worst-offender set (the leading set covering the target share)."""
-        if record_worst_set:
-            self._record_worst_set()
+        stored_now = self._record_worst_set() if record_worst_set else False
         offenders = history.repeat_offenders(
             portfolio,
             n=repeat[0],
@@ -206,6 +205,8 @@ class ReviewSession:
             target_share=target_share,
             window=window,
             ledger=ledger,
+            # Just stored: the set in hand is the stored one, no need to read it back.
+            current=self.worst if stored_now else None,
         )
         notice = history.repeat_notice(offenders) if ledger is not None else None
         if notice:
@@ -351,14 +352,17 @@ class ReviewSession:
         live = lines["standing"].to_numpy(dtype=bool) & ~lines["in_forecast"].to_numpy(dtype=bool)
         self.carries[series[live]] = True
 
-    def _record_worst_set(self) -> None:
+    def _record_worst_set(self) -> bool:
         """Keep the worst-offender set this list shows, once per cycle, in a writable ledger.
 
         A ledger that cannot take it (busy, disk full) costs the snapshot, never the session:
         the reason is added to ``notices`` and repeat offenders re-score this cycle.
+
+        Returns:
+            Whether this call stored it (False: stored before, or not storable).
         """
         if not self.can_save:
-            return
+            return False
         assert self.ledger is not None
         members = self.error_order[self.worst[self.error_order]]
         keys = self.portfolio.keys
@@ -368,7 +372,7 @@ class ReviewSession:
         else:
             locations = np.full(len(members), "", dtype=object)
         try:
-            self.ledger.record_worst_set(
+            return self.ledger.record_worst_set(
                 self.cycle,
                 items.tolist(),
                 locations.tolist(),
@@ -386,6 +390,7 @@ class ReviewSession:
                 f"This cycle's worst-offender set was not stored ({exc}); repeat offenders "
                 "re-score it."
             )
+            return False
 
     def _indexer(self, pairs: list[tuple[str, str]]) -> np.ndarray:
         if isinstance(self._key_index, pd.MultiIndex):
