@@ -20,6 +20,7 @@ import subprocess
 import tempfile
 import zipfile
 from collections.abc import Iterator
+from decimal import ROUND_HALF_UP, Decimal
 from pathlib import Path
 
 import openpyxl
@@ -32,6 +33,7 @@ from triage.core.errors import TriageError
 from triage.core.export import CAUTION, ExportError, export_review, review_tables
 from triage.core.ledger import Ledger
 from triage.core.portfolio import Portfolio, read_portfolio
+from triage.core.rounding import MAX_DECIMALS
 
 HISTORY = ["2026-10-05", "2026-10-12", "2026-10-19", "2026-10-26"]
 FORWARD = ["2026-11-02", "2026-11-09", "2026-11-16"]
@@ -250,12 +252,25 @@ def folder_listing(folder: Path) -> dict[str, bytes]:
     }
 
 
+#: The scenario's forward forecasts need 17 significant digits, more decimals than an export
+#: keeps: adjusted values are rounded to the cap (docs/export.md, "Precision").
+DECIMALS = MAX_DECIMALS
+
+
+def rounded(value: float, decimals: int = DECIMALS) -> float:
+    """The precision rule by the ``decimal`` module: the shortest decimal form of the value,
+    rounded half away from zero (ROUND_HALF_UP)."""
+    step = Decimal(1).scaleb(-decimals)
+    return float(Decimal(repr(value)).quantize(step, ROUND_HALF_UP)) + 0.0
+
+
 def expected_adjusted(scenario: dict) -> dict[tuple[str, str, str], float | None]:
-    """adjusted_forecast per cell: the ledger lines of effective decisions, else the forecast."""
+    """adjusted_forecast per cell: the ledger lines of effective decisions at the export's
+    precision, else the forecast as in the file."""
     out = dict(scenario["forecast"])
     for key, lines in scenario["lines"].items():
         for period, _, adjusted in lines:
-            out[(*key, period)] = adjusted
+            out[(*key, period)] = rounded(adjusted)
     return out
 
 
@@ -302,14 +317,18 @@ def test_units_and_value_change_follow_their_definition(scenario: dict) -> None:
     dec = tables.decisions.set_index(["item", "location"])
     for key, lines in scenario["lines"].items():
         # Definition (docs/export.md): Σ (adjusted − original), and Σ (adjusted − original) ×
-        # the price of that period; summed in period order like the export.
+        # the price of that period, with the adjusted values as exported; summed in period
+        # order like the export, then rounded: units to the decimals of the export or of the
+        # originals, whichever is more (no float noise), value to those plus the prices' (3
+        # here: 2.5 + 0.25 p + s / 8), at most the cap.
         units = 0.0
         value = 0.0
         for period, original, adjusted in lines:
-            units += adjusted - original
-            value += (adjusted - original) * scenario["price_of"](key, period)
-        assert dec.loc[key, "units_change"] == pytest.approx(units, rel=1e-12)
-        assert dec.loc[key, "value_change"] == pytest.approx(value, rel=1e-12)
+            units += rounded(adjusted) - original
+            value += (rounded(adjusted) - original) * scenario["price_of"](key, period)
+        assert repr(float(dec.loc[key, "units_change"])) == repr(rounded(units))
+        want_value = rounded(value, min(DECIMALS + 3, MAX_DECIMALS))
+        assert repr(float(dec.loc[key, "value_change"])) == repr(want_value)
     assert dec.loc[("H01", "L1"), "units_change"] == 0.0
     assert set(map(tuple, dec.index)) == scenario["reviewed"]
 
@@ -512,7 +531,7 @@ def test_xlsx_has_no_formula_and_keeps_keys_and_numbers(scenario: dict, tmp_path
     want = expected_adjusted(scenario)
     assert len(forecast) == 1 + len(series_keys()) * len(FORWARD)
     for item, location, period, fc, adj, flag, _ in forecast[1:]:
-        cell = (item, location, period)
+        cell = (item, location, period.date().isoformat())  # periods are date cells
         assert same_number(fc, scenario["forecast"][cell]), cell
         assert same_number(adj, want[cell]), cell
         assert isinstance(flag, bool)
