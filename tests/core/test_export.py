@@ -910,3 +910,43 @@ def test_flat_files_of_an_earlier_export_are_kept_and_named(scenario: dict, tmp_
     )
     readme = (tmp_path / "up" / "up-README.txt").read_text(encoding="utf-8")
     assert "come from an earlier export" in readme
+
+
+# ---- CSV style: the one place a separator and decimal mark are set ---------------------------
+
+
+def test_csv_style_sets_separator_and_decimal_mark_in_one_place(
+    scenario: dict, tmp_path: Path
+) -> None:
+    tables = review_tables(scenario["portfolio"], scenario["ledger"])
+    _, forecast, _ = export_mod.file_tables(tables)
+    style = export_mod.CsvStyle(sep=";", decimal=",")
+    export_mod._write_csv(tmp_path / "semi.csv", forecast, style)
+    export_mod._write_csv(tmp_path / "plain.csv", forecast)
+    with (tmp_path / "semi.csv").open(encoding="utf-8", newline="") as handle:
+        semi = list(csv.reader(handle, delimiter=";"))
+    plain = read_csv(tmp_path / "plain.csv")
+    assert semi[0] == plain[0] and len(semi) == len(plain)
+    raw = (tmp_path / "semi.csv").read_text(encoding="utf-8")
+    for mine, theirs in zip(plain[1:], semi[1:], strict=True):
+        for a, b in zip(mine, theirs, strict=True):
+            if isinstance(a, float):
+                # Unquoted, with a decimal comma, the same number.
+                assert float(b.replace(",", ".")) == a and "." not in b
+                assert f";{b};" in raw or raw.count(f";{b}\r\n")
+            else:
+                assert b == a
+    assert '"Lyon, FR"' in raw  # text stays quoted, separators inside it too
+    for bad in ({"sep": ","}, {"sep": ";;"}, {"decimal": "·"}, {"sep": '"'}):
+        with pytest.raises(ExportError):
+            export_mod.CsvStyle(**{"decimal": ",", **bad})
+
+
+def test_whole_numbers_are_written_without_a_decimal_point(scenario: dict, tmp_path: Path) -> None:
+    export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    raw = (tmp_path / "up" / "up-forecast.csv").read_text(encoding="utf-8")
+    # =SUM(A1) was set to 120; +x has the forecast -5 in the file.
+    assert f'"=SUM(A1)","L1","{FORWARD[0]}",' in raw
+    line = next(ln for ln in raw.splitlines() if ln.startswith(f'"=SUM(A1)","L1","{FORWARD[0]}"'))
+    assert line.split(",")[4] == "120"
+    assert f'"+x","L1","{FORWARD[0]}",-5,-5,"false"' in raw
