@@ -10,6 +10,12 @@
 Every format carries the same caution (``CAUTION``) and the provenance: portfolio file name and
 fingerprint, cycle, ledger, when and by whom it was exported. docs/export.md describes the files.
 
+``review_tables`` builds both tables with triage's column names; adjusted values are rounded
+there, by ``triage.core.rounding`` (the one rule; the ledger keeps what was decided).
+``file_tables`` then shapes them for the files: the portfolio's own headers where ``--columns``
+mapped them, and the forecast long or wide. Every writer reads those same ``FileTable`` objects,
+so CSV, xlsx and JSON hold the same columns and numbers.
+
 Safety rules (reliability.md §2, OWASP "CSV Injection",
 https://owasp.org/www-community/attacks/CSV_Injection):
 
