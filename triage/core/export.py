@@ -1112,7 +1112,7 @@ def _xlsx_columns(
         elif kind == FLAG:
             columns.append(values.to_numpy(dtype=bool).tolist())
         elif kind == DATE:
-            columns.append(_xlsx_dates(values))
+            columns.append(_xlsx_dates(sheet, values))
         else:
             text = values.tolist() if kind in (KEY, FIXED) else neutralise(values)
             columns.append(
@@ -1121,12 +1121,22 @@ def _xlsx_columns(
     return columns
 
 
-def _xlsx_dates(values: pd.Series) -> list[Any]:
-    """ISO dates as ``datetime.date`` values: openpyxl writes a date as a number cell with the
-    format ``yyyy-mm-dd`` (``XLSX_DATE_FORMAT``; openpyxl 3.1.5 ``cell.TIME_FORMATS``)."""
+def _xlsx_dates(sheet: Any, values: pd.Series) -> list[Any]:
+    """ISO dates as date cells: number cells with the format ``yyyy-mm-dd``.
+
+    openpyxl gives a ``datetime.date`` that format (3.1.5 ``cell.TIME_FORMATS``), but a plain
+    value with a style makes the write-only sheet build a new cell for it, row after row. One
+    styled cell per distinct date is built here instead and handed over for each of its rows:
+    openpyxl writes a handed-over cell at once (``WriteOnlyWorksheet._values_to_row``), so the
+    same cell can stand in every row.
+    """
+    from openpyxl.cell import WriteOnlyCell
+
     codes, uniques = pd.factorize(values)
-    dates = np.array([date.fromisoformat(str(v)) for v in uniques] + [None], dtype=object)
-    return dates[codes].tolist()
+    cells = [WriteOnlyCell(sheet, value=date.fromisoformat(str(v))) for v in uniques]
+    for cell in cells:
+        cell.number_format = XLSX_DATE_FORMAT
+    return np.array([*cells, None], dtype=object)[codes].tolist()
 
 
 def _xlsx_header(sheet: Any, table: FileTable, issues: _XlsxIssues) -> list[Any]:
