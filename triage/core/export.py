@@ -699,8 +699,8 @@ def file_tables(
         )
     else:
         what = (
-            f"{n_fc:,} rows, one per series, the {len(tables.periods)} forward periods as "
-            f"columns ({tables.adjusted_periods:,} adjusted periods)"
+            f"{n_fc:,} rows, one per series, the forward periods as columns "
+            f"({len(tables.periods)}; {tables.adjusted_periods:,} adjusted periods)"
         )
     return decisions, replace(forecast, describe=what), warnings
 
