@@ -106,6 +106,18 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
     export.add_argument(
         "--force", action="store_true", help="replace the file or set folder if it exists"
     )
+    export.add_argument(
+        "--layout",
+        choices=("long", "wide"),
+        help="forecast table: long, one row per series and period (default); wide, one row per "
+        "series with the forward periods as columns",
+    )
+    export.add_argument(
+        "--round",
+        metavar="PRECISION",
+        help="decimals of adjusted values: file, as many as the portfolio's forecast uses "
+        "(default); units, whole units; or a number from 0 to 6",
+    )
     export.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
     export.set_defaults(handler=cmd_export)
 
@@ -346,8 +358,15 @@ def cmd_export(args: argparse.Namespace) -> int:
     from triage.core.export import CAUTION, export_paths, export_review, printable
     from triage.core.load import parse_column_map
     from triage.core.portfolio import read_portfolio
+    from triage.core.rounding import parse_rounding
 
     cycle = _check_cycle(args.cycle)
+    # Defaults are core's (export_review): only what was given is passed on.
+    options: dict[str, Any] = {}
+    if args.layout is not None:
+        options["layout"] = args.layout
+    if args.round is not None:
+        options["rounding"] = parse_rounding(args.round)
     config = _config(args)
     # Check the target before the (possibly long) load of the portfolio.
     export_paths(args.to)
@@ -365,12 +384,20 @@ def cmd_export(args: argparse.Namespace) -> int:
             cycle=cycle,
             force=args.force,
             exported_by=default_reviewer(config),
+            headers=columns,
+            **options,
         )
+    rows = (
+        f"{result.forecast_rows:,} forecast rows ({result.adjusted_periods:,} adjusted)"
+        if result.layout == "long"
+        else f"{result.forecast_rows:,} forecast rows, one per series "
+        f"({result.adjusted_periods:,} adjusted periods)"
+    )
     print(
         f"Exported cycle {result.cycle} of {printable(portfolio.path.name)}: "
-        f"{result.decisions:,} reviewed series, {result.forecast_rows:,} forecast rows "
-        f"({result.adjusted_periods:,} adjusted)."
+        f"{result.decisions:,} reviewed series, {rows}."
     )
+    print(f"Adjusted values rounded to {result.precision}.")
     for path in result.paths:
         print(f"  wrote {printable(str(path))}")
     for warning in result.warnings:

@@ -65,9 +65,9 @@ def test_two_week_flow_carries_week_one_adjustments_into_week_two_export(
     assert "0 reviewed series, 16 forecast rows (6 adjusted)" in result.stdout
     rows = _forecast_rows(out / "w2" / "w2-forecast.csv")
     for period in weeks.forward2[:3]:
-        assert rows[("A", period)]["adjusted_forecast"] == "110.0"
+        assert rows[("A", period)]["adjusted_forecast"] == "110"
         assert rows[("A", period)]["adjusted_in_cycle"] == WEEK1
-        assert rows[("C", period)]["adjusted_forecast"] == "35.0"
+        assert rows[("C", period)]["adjusted_forecast"] == "35"
         # B's "=50" is already in week 2's forecast: nothing applied, and it is said.
         assert rows[("B", period)]["adjusted"] == "false"
     assert rows[("A", weeks.forward2[3])]["adjusted"] == "false"

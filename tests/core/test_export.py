@@ -20,6 +20,7 @@ import subprocess
 import tempfile
 import zipfile
 from collections.abc import Iterator
+from decimal import ROUND_HALF_UP, Decimal
 from pathlib import Path
 
 import openpyxl
@@ -32,6 +33,7 @@ from triage.core.errors import TriageError
 from triage.core.export import CAUTION, ExportError, export_review, review_tables
 from triage.core.ledger import Ledger
 from triage.core.portfolio import Portfolio, read_portfolio
+from triage.core.rounding import MAX_DECIMALS
 
 HISTORY = ["2026-10-05", "2026-10-12", "2026-10-19", "2026-10-26"]
 FORWARD = ["2026-11-02", "2026-11-09", "2026-11-16"]
@@ -250,12 +252,25 @@ def folder_listing(folder: Path) -> dict[str, bytes]:
     }
 
 
+#: The scenario's forward forecasts need 17 significant digits, more decimals than an export
+#: keeps: adjusted values are rounded to the cap (docs/export.md, "Precision").
+DECIMALS = MAX_DECIMALS
+
+
+def rounded(value: float, decimals: int = DECIMALS) -> float:
+    """The precision rule by the ``decimal`` module: the shortest decimal form of the value,
+    rounded half away from zero (ROUND_HALF_UP)."""
+    step = Decimal(1).scaleb(-decimals)
+    return float(Decimal(repr(value)).quantize(step, ROUND_HALF_UP)) + 0.0
+
+
 def expected_adjusted(scenario: dict) -> dict[tuple[str, str, str], float | None]:
-    """adjusted_forecast per cell: the ledger lines of effective decisions, else the forecast."""
+    """adjusted_forecast per cell: the ledger lines of effective decisions at the export's
+    precision, else the forecast as in the file."""
     out = dict(scenario["forecast"])
     for key, lines in scenario["lines"].items():
         for period, _, adjusted in lines:
-            out[(*key, period)] = adjusted
+            out[(*key, period)] = rounded(adjusted)
     return out
 
 
@@ -302,14 +317,18 @@ def test_units_and_value_change_follow_their_definition(scenario: dict) -> None:
     dec = tables.decisions.set_index(["item", "location"])
     for key, lines in scenario["lines"].items():
         # Definition (docs/export.md): Σ (adjusted − original), and Σ (adjusted − original) ×
-        # the price of that period; summed in period order like the export.
+        # the price of that period, with the adjusted values as exported; summed in period
+        # order like the export, then rounded: units to the decimals of the export or of the
+        # originals, whichever is more (no float noise), value to those plus the prices' (3
+        # here: 2.5 + 0.25 p + s / 8), at most the cap.
         units = 0.0
         value = 0.0
         for period, original, adjusted in lines:
-            units += adjusted - original
-            value += (adjusted - original) * scenario["price_of"](key, period)
-        assert dec.loc[key, "units_change"] == pytest.approx(units, rel=1e-12)
-        assert dec.loc[key, "value_change"] == pytest.approx(value, rel=1e-12)
+            units += rounded(adjusted) - original
+            value += (rounded(adjusted) - original) * scenario["price_of"](key, period)
+        assert repr(float(dec.loc[key, "units_change"])) == repr(rounded(units))
+        want_value = rounded(value, min(DECIMALS + 3, MAX_DECIMALS))
+        assert repr(float(dec.loc[key, "value_change"])) == repr(want_value)
     assert dec.loc[("H01", "L1"), "units_change"] == 0.0
     assert set(map(tuple, dec.index)) == scenario["reviewed"]
 
@@ -517,7 +536,7 @@ def test_xlsx_has_no_formula_and_keeps_keys_and_numbers(scenario: dict, tmp_path
     want = expected_adjusted(scenario)
     assert len(forecast) == 1 + len(series_keys()) * len(FORWARD)
     for item, location, period, fc, adj, flag, _, _ in forecast[1:]:
-        cell = (item, location, period)
+        cell = (item, location, period.date().isoformat())  # periods are date cells
         assert same_number(fc, scenario["forecast"][cell]), cell
         assert same_number(adj, want[cell]), cell
         assert isinstance(flag, bool)
@@ -896,3 +915,43 @@ def test_flat_files_of_an_earlier_export_are_kept_and_named(scenario: dict, tmp_
     )
     readme = (tmp_path / "up" / "up-README.txt").read_text(encoding="utf-8")
     assert "come from an earlier export" in readme
+
+
+# ---- CSV style: the one place a separator and decimal mark are set ---------------------------
+
+
+def test_csv_style_sets_separator_and_decimal_mark_in_one_place(
+    scenario: dict, tmp_path: Path
+) -> None:
+    tables = review_tables(scenario["portfolio"], scenario["ledger"])
+    _, forecast, _ = export_mod.file_tables(tables)
+    style = export_mod.CsvStyle(sep=";", decimal=",")
+    export_mod._write_csv(tmp_path / "semi.csv", forecast, style)
+    export_mod._write_csv(tmp_path / "plain.csv", forecast)
+    with (tmp_path / "semi.csv").open(encoding="utf-8", newline="") as handle:
+        semi = list(csv.reader(handle, delimiter=";"))
+    plain = read_csv(tmp_path / "plain.csv")
+    assert semi[0] == plain[0] and len(semi) == len(plain)
+    raw = (tmp_path / "semi.csv").read_text(encoding="utf-8")
+    for mine, theirs in zip(plain[1:], semi[1:], strict=True):
+        for a, b in zip(mine, theirs, strict=True):
+            if isinstance(a, float):
+                # Unquoted, with a decimal comma, the same number.
+                assert float(b.replace(",", ".")) == a and "." not in b
+                assert f";{b};" in raw or raw.count(f";{b}\r\n")
+            else:
+                assert b == a
+    assert '"Lyon, FR"' in raw  # text stays quoted, separators inside it too
+    for bad in ({"sep": ","}, {"sep": ";;"}, {"decimal": "·"}, {"sep": '"'}):
+        with pytest.raises(ExportError):
+            export_mod.CsvStyle(**{"decimal": ",", **bad})
+
+
+def test_whole_numbers_are_written_without_a_decimal_point(scenario: dict, tmp_path: Path) -> None:
+    export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    raw = (tmp_path / "up" / "up-forecast.csv").read_text(encoding="utf-8")
+    # =SUM(A1) was set to 120; +x has the forecast -5 in the file.
+    assert f'"=SUM(A1)","L1","{FORWARD[0]}",' in raw
+    line = next(ln for ln in raw.splitlines() if ln.startswith(f'"=SUM(A1)","L1","{FORWARD[0]}"'))
+    assert line.split(",")[4] == "120"
+    assert f'"+x","L1","{FORWARD[0]}",-5,-5,"false"' in raw

@@ -304,5 +304,5 @@ def test_two_weeks_in_one_review_folder(tmp_path: Path) -> None:
         rows = [r for r in csv.DictReader(handle) if r["item"] == "A"]
     carried = [r for r in rows if r["adjusted_in_cycle"] == WEEK1]
     assert len(carried) == 3  # four weeks adjusted in week 1, three still ahead in week 2
-    assert {r["adjusted_forecast"] for r in carried} == {"110.0"}
+    assert {r["adjusted_forecast"] for r in carried} == {"110"}
     assert (folder / "triage-ledger.sqlite").exists()

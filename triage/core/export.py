@@ -11,6 +11,12 @@
 Every format carries the same caution (``CAUTION``) and the provenance: portfolio file name and
 fingerprint, cycle, ledger, when and by whom it was exported. docs/export.md describes the files.
 
+``review_tables`` builds both tables with triage's column names; adjusted values are rounded
+there, by ``triage.core.rounding`` (the one rule; the ledger keeps what was decided).
+``file_tables`` then shapes them for the files: the portfolio's own headers where ``--columns``
+mapped them, and the forecast long or wide. Every writer reads those same ``FileTable`` objects,
+so CSV, xlsx and JSON hold the same columns and numbers.
+
 Safety rules (reliability.md §2, OWASP "CSV Injection",
 https://owasp.org/www-community/attacks/CSV_Injection):
 
@@ -36,9 +42,10 @@ import csv
 import json
 import os
 import re
-from collections.abc import Callable, Iterable, Iterator, Sequence
-from dataclasses import dataclass, field
-from datetime import UTC, datetime
+from collections import Counter
+from collections.abc import Callable, Iterable, Iterator, Mapping, Sequence
+from dataclasses import dataclass, field, replace
+from datetime import UTC, date, datetime
 from pathlib import Path
 from typing import IO, Any
 
@@ -59,6 +66,17 @@ from triage.core.files import (
 )
 from triage.core.ledger import OUTCOMES, Decision, Ledger, describe_series
 from triage.core.portfolio import Portfolio
+from triage.core.rounding import (
+    DEFAULT as DEFAULT_ROUNDING,
+)
+from triage.core.rounding import (
+    MAX_DECIMALS,
+    Rounding,
+    decimals_for,
+    decimals_used,
+    describe,
+    round_half_away,
+)
 
 #: Shown in every export, in every format, and by the command line after writing one.
 CAUTION = (
@@ -77,6 +95,8 @@ _TRIGGER_START = re.compile(r"[=+\-@\t\r\n\x00]")
 XLSX_MAX_ROWS = 1_048_576
 #: Characters in one Excel cell (UTF-16 code units). openpyxl cuts longer text silently.
 XLSX_MAX_CELL = 32_767
+#: Columns in an Excel sheet (Excel specifications and limits: 16,384, column XFD).
+XLSX_MAX_COLUMNS = 16_384
 
 #: Strings openpyxl would store as error values rather than text (``openpyxl.cell.cell``).
 _XLSX_ERROR_CODES = frozenset(("#NULL!", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#N/A"))
@@ -118,11 +138,39 @@ FORECAST_COLUMNS: tuple[str, ...] = (
     "adjusted_in_cycle",
     "outcome",
 )
-_KEYS = frozenset((ITEM, LOCATION))
 _NUMBERS = frozenset(("units_change", "value_change", "forecast", "adjusted_forecast"))
-_FLAGS = frozenset(("adjusted",))
-#: Text written by triage in a fixed format (ISO dates): never starts with a trigger.
-_FIXED = frozenset(("cycle", "period", "adjusted_in_cycle"))
+
+#: How a column is written (``FileTable.kinds``). KEY: text exactly as in the portfolio;
+#: TEXT: free text, neutralised in CSV and xlsx; FIXED: text triage writes in a fixed format
+#: (an ISO date) that never starts with a trigger; DATE: a period start date, ISO text in CSV
+#: and JSON, a date cell in xlsx; NUMBER: a float, empty where missing; COUNT: a whole number;
+#: FLAG: true/false.
+KEY, TEXT, FIXED, DATE, NUMBER, COUNT, FLAG = (
+    "key",
+    "text",
+    "fixed",
+    "date",
+    "number",
+    "count",
+    "flag",
+)
+_KIND_OF: dict[str, str] = {
+    ITEM: KEY,
+    LOCATION: KEY,
+    "cycle": FIXED,
+    "adjusted_in_cycle": FIXED,
+    "period": DATE,
+    **dict.fromkeys(_NUMBERS, NUMBER),
+    "adjusted": FLAG,
+    "adjusted_periods": COUNT,
+}
+
+#: Forecast table layouts: one row per series and period, or one row per series.
+LONG = "long"
+WIDE = "wide"
+LAYOUTS = (LONG, WIDE)
+#: Canonical columns whose header in a file follows the portfolio's own (``--columns``).
+_FILE_NAMED = (ITEM, LOCATION, schema.PERIOD, schema.FORECAST)
 
 _EXAMPLES = 5
 #: Rows converted to Python objects at a time when a table is written.
@@ -134,6 +182,80 @@ _JSON_ESCAPES = {code: f"\\u{code:04x}" for code in (0x7F, *range(0x80, 0xA0))}
 
 class ExportError(TriageError):
     """An export cannot be written as asked; nothing was written or changed."""
+
+
+@dataclass(frozen=True)
+class CsvStyle:
+    """How a CSV export writes fields: the one place regional options set.
+
+    Text fields are always quoted (``csv.QUOTE_NONNUMERIC``), numbers never, so a decimal comma
+    cannot be taken for a separator as long as the two differ.
+    """
+
+    sep: str = ","
+    """Field separator."""
+    decimal: str = "."
+    """Decimal mark of numbers."""
+
+    def __post_init__(self) -> None:
+        if len(self.sep) != 1 or self.sep in '"\r\n' or self.sep.isalnum():
+            raise ExportError(f"{self.sep!r} cannot separate CSV fields.")
+        if self.decimal not in (".", ","):
+            raise ExportError(f"{self.decimal!r} is not a decimal mark; use . or ,.")
+        if self.decimal == self.sep:
+            raise ExportError(
+                f"the decimal mark and the field separator are both {self.sep!r}.",
+                hint="With a decimal comma, separate fields with ; (or a tab).",
+            )
+
+    def numbers(self, array: np.ndarray) -> list[Any]:
+        """Cells for a column of numbers (see ``_number_cells``), with this decimal mark."""
+        cells = _number_cells(array)
+        if self.decimal == ".":
+            return cells
+        return [
+            _Bare(repr(c).replace(".", self.decimal)) if isinstance(c, float) else c for c in cells
+        ]
+
+
+class _Bare(str):
+    """Text the CSV writer leaves unquoted: a number in another notation (``3,5``).
+
+    ``csv.QUOTE_NONNUMERIC`` quotes a field unless it is a number object (CPython
+    ``Modules/_csv.c``: ``PyNumber_Check``), and a ``str`` subclass with ``__float__`` is one;
+    its text is written as it is.
+    """
+
+    __slots__ = ()
+
+    def __float__(self) -> float:
+        return float(self.replace(",", "."))
+
+
+#: The CSV export's style. The command line has no options for it yet; regional ones go here.
+CSV_STYLE = CsvStyle()
+
+
+@dataclass(frozen=True)
+class FileTable:
+    """A table as a file holds it: its columns, their headers, and how each is written."""
+
+    frame: pd.DataFrame
+    """The values, one column per header; column labels are internal (unique) names."""
+    headers: tuple[str, ...]
+    """The header written for each column."""
+    kinds: tuple[str, ...]
+    """How each column is written: ``KEY``, ``TEXT``, ``FIXED``, ``DATE``, ``NUMBER``..."""
+    dated_headers: frozenset[str] = frozenset()
+    """Headers that are period start dates (xlsx writes them as date cells)."""
+    describe: str = ""
+    """What the rows are, for the README: ``60 rows, every series x forward period``."""
+
+    def __len__(self) -> int:
+        return len(self.frame)
+
+    def __contains__(self, name: object) -> bool:
+        return name in self.frame.columns
 
 
 @dataclass(frozen=True)
@@ -155,6 +277,12 @@ class ReviewTables:
     carried: pd.DataFrame = field(default_factory=pd.DataFrame)
     """The carried lines applied: ``history.CARRIED_LINE_COLUMNS`` (one row per forecast row
     an earlier cycle's adjustment gives)."""
+    periods: tuple[str, ...] = ()
+    """The forward periods' start dates (ISO), in order: the forecast table's periods."""
+    decimals: int | None = None
+    """Decimals of the values triage computed (``triage.core.rounding``); None: not rounded."""
+    precision: str = ""
+    """The rounding rule in words, for the README."""
 
 
 @dataclass(frozen=True)
@@ -173,6 +301,10 @@ class ExportResult:
     """Rows of the forecast table (series x forward periods)."""
     adjusted_periods: int
     """Forecast rows whose value comes from an adjustment."""
+    layout: str
+    """``LONG`` or ``WIDE``: whether ``forecast_rows`` counts series x periods or series."""
+    precision: str
+    """The precision of the values triage computed, in words (``triage.core.rounding``)."""
     warnings: tuple[str, ...]
     """Everything the user should know: content and format warnings."""
     caution: str = CAUTION
@@ -285,6 +417,7 @@ def review_tables(
     cycle: str | None = None,
     exported_by: str | None = None,
     exported_at: datetime | None = None,
+    rounding: Rounding = DEFAULT_ROUNDING,
 ) -> ReviewTables:
     """The decisions and forecast tables of a cycle, before any file format is applied.
 
@@ -294,6 +427,8 @@ def review_tables(
         cycle: Review cycle; default the portfolio's cycle.
         exported_by: Name recorded as the exporter; default the configured reviewer or login.
         exported_at: Export time (UTC); default now.
+        rounding: Precision of the values triage computes: the adjusted periods and the units
+            and value changes (``triage.core.rounding``; the file's forecast is not changed).
 
     Raises:
         ExportError: ``cycle`` is not an ISO date.
@@ -368,10 +503,16 @@ def review_tables(
     line_period = pd.Index([ln.period for d in kept for ln in d.lines], dtype=object)
     line_orig = _floats(ln.original for d in kept for ln in d.lines)
     line_adj = _floats(ln.adjusted for d in kept for ln in d.lines)
+    # ---- precision (triage.core.rounding): the ledger keeps what was decided, files get this
+    decimals = decimals_for(rounding, portfolio.forecast[:, first_fwd:])
+    line_adj = round_half_away(line_adj, decimals)
     line_series = kept_series[line_dec] if len(line_dec) else np.empty(0, dtype=np.int64)
     # Missing counted as 0, as triage.core.adjust counts Σ adjusted − Σ original.
     delta = np.nan_to_num(line_adj) - np.nan_to_num(line_orig)
     units_change = np.bincount(line_dec, weights=delta, minlength=n_dec).astype(np.float64)
+    # Exact sums without float noise: originals may have more decimals than the export keeps.
+    change_decimals = max(decimals, decimals_used(line_orig))
+    units_change = round_half_away(units_change, change_decimals)
 
     cal_col = all_dates.get_indexer(line_period) if len(line_dec) else np.empty(0, np.int64)
     if portfolio.price is not None:
@@ -379,7 +520,9 @@ def review_tables(
         inside = cal_col >= 0
         price[inside] = portfolio.price[line_series[inside], cal_col[inside]]
         value_change = np.bincount(line_dec, weights=delta * price, minlength=n_dec)
-        value_change = value_change.astype(np.float64)
+        # Units with d decimals times prices with p decimals have d + p (capped).
+        value_decimals = min(change_decimals + decimals_used(price), MAX_DECIMALS)
+        value_change = round_half_away(value_change.astype(np.float64), value_decimals)
         if not inside.all():
             warnings.append(
                 f"{int((~inside).sum())} adjusted period(s) are outside the calendar of "
@@ -436,6 +579,8 @@ def review_tables(
         code = {c: i + 1 for i, c in enumerate(made_cycles)}
         made_in[a_rows, a_cols] = applied["cycle"].astype(str).map(code).to_numpy(np.int16)
     warnings.extend(_carried_warnings(portfolio, carried_lines, applied, already, replaced_now))
+    # Every adjusted cell at the export's precision, whichever cycle's decision it comes from.
+    adjusted_fc[flag] = round_half_away(adjusted_fc[flag], decimals)
 
     outcome_of = np.full(n_series, "", dtype=object)
     if n_dec:
@@ -515,6 +660,9 @@ def review_tables(
         adjusted_periods=int(flag.sum()),
         carried_periods=len(applied),
         carried=applied,
+        periods=tuple(fwd_dates),
+        decimals=decimals,
+        precision=describe(rounding, decimals),
     )
 
 
@@ -569,6 +717,147 @@ def _carried_warnings(
 
 
 # --------------------------------------------------------------------------------------------
+# The tables as files hold them: the portfolio's own headers, long or wide
+
+
+def file_headers(headers: Mapping[str, str] | None) -> dict[str, str]:
+    """Canonical column -> header in the files, from the ``--columns`` mapping.
+
+    The key columns, the period and the forecast take the portfolio file's headers where
+    ``--columns`` named them; the adjusted forecast is ``adjusted_<forecast header>``. Every
+    other column keeps triage's name.
+    """
+    names = {name: name for name in (*_FILE_NAMED, "adjusted_forecast")}
+    for name, header in (headers or {}).items():
+        if name in _FILE_NAMED:
+            names[name] = header
+    if names[schema.FORECAST] != schema.FORECAST:
+        names["adjusted_forecast"] = f"adjusted_{names[schema.FORECAST]}"
+    return names
+
+
+def file_tables(
+    tables: ReviewTables,
+    *,
+    headers: Mapping[str, str] | None = None,
+    layout: str = LONG,
+) -> tuple[FileTable, FileTable, list[str]]:
+    """The decisions and forecast tables as the files hold them, and what to warn about.
+
+    Args:
+        tables: The review tables.
+        headers: The ``--columns`` mapping (canonical -> the portfolio file's header).
+        layout: ``LONG`` (one forecast row per series and period) or ``WIDE`` (one row per
+            series, one column per forward period).
+
+    A file header that would repeat another column's header (case-insensitively) is not used:
+    that column keeps triage's name, with a warning.
+
+    Raises:
+        ExportError: ``layout`` is not one of ``LAYOUTS``.
+    """
+    if layout not in LAYOUTS:
+        raise ExportError(
+            f"unknown layout {layout!r}.", hint=f"Choose one of {', '.join(LAYOUTS)}."
+        )
+    mapped = dict(headers or {})
+    warnings: list[str] = []
+    while True:
+        names = file_headers(mapped)
+        decisions = _long_table(tables.decisions, names)
+        if layout == LONG:
+            forecast = _long_table(tables.forecast, names)
+        else:
+            forecast = _wide_table(tables, names)
+        clash = _clashing(mapped, names, (decisions.headers, forecast.headers))
+        if clash is None:
+            break
+        warnings.append(
+            f"The portfolio's header {names[clash]!r} for {clash} is also the name of another "
+            f"column of the export, so the export calls that column {clash!r}."
+        )
+        del mapped[clash]
+    n_dec, n_fc = len(decisions), len(forecast)
+    decisions = replace(decisions, describe=f"{n_dec:,} reviewed series, one row each")
+    if layout == LONG:
+        what = (
+            f"{n_fc:,} rows, every series x forward period ({tables.adjusted_periods:,} adjusted)"
+        )
+    else:
+        what = (
+            f"{n_fc:,} rows, one per series, the forward periods as columns "
+            f"({len(tables.periods)}; {tables.adjusted_periods:,} adjusted periods)"
+        )
+    return decisions, replace(forecast, describe=what), warnings
+
+
+def _clashing(
+    mapped: Mapping[str, str], names: Mapping[str, str], tables: Iterable[Sequence[str]]
+) -> str | None:
+    """The first mapped column one of whose headers repeats another header of a table."""
+    for table in tables:
+        count = Counter(h.casefold() for h in table)
+        for owner in _FILE_NAMED:
+            if owner not in mapped:
+                continue
+            own = [names[owner]]
+            if owner == schema.FORECAST:
+                own += [names["adjusted_forecast"]]
+                own += [h for h in table if h.startswith(f"{names[owner]} ")]
+            if any(count[h.casefold()] > 1 for h in own):
+                return owner
+    return None
+
+
+def _long_table(frame: pd.DataFrame, names: Mapping[str, str]) -> FileTable:
+    columns = [str(c) for c in frame.columns]
+    return FileTable(
+        frame=frame,
+        headers=tuple(names.get(c, c) for c in columns),
+        kinds=tuple(_KIND_OF.get(c, TEXT) for c in columns),
+    )
+
+
+def _wide_table(tables: ReviewTables, names: Mapping[str, str]) -> FileTable:
+    """One row per series: its key, outcome and number of adjusted periods, then the adjusted
+    forecast of each forward period (headed by the period's start date), then the portfolio's
+    forecast of each (headed ``<forecast header> <date>``)."""
+    long = tables.forecast
+    periods = list(tables.periods)
+    width = len(periods)
+    n_series = len(long) // width if width else 0
+    grid = long["period"].to_numpy(dtype=object).reshape(n_series, width)
+    if n_series and not (grid == np.array(periods, dtype=object)).all():
+        raise RuntimeError("the forecast table is not every series x forward period in order")
+    firsts = long.iloc[::width] if width else long.iloc[:0]
+    columns: dict[str, Any] = {}
+    headers: list[str] = []
+    kinds: list[str] = []
+
+    def add(name: str, header: str, kind: str, values: Any) -> None:
+        columns[name] = values
+        headers.append(header)
+        kinds.append(kind)
+
+    for name in (ITEM, LOCATION, "outcome"):
+        if name in long:
+            add(name, names.get(name, name), _KIND_OF.get(name, TEXT), firsts[name].to_numpy())
+    flags = long["adjusted"].to_numpy(dtype=bool).reshape(n_series, width)
+    add("adjusted_periods", "adjusted_periods", COUNT, flags.sum(axis=1).astype(np.int64))
+    adjusted = long["adjusted_forecast"].to_numpy(dtype=np.float64).reshape(n_series, width)
+    original = long["forecast"].to_numpy(dtype=np.float64).reshape(n_series, width)
+    for j, period in enumerate(periods):
+        add(f"adjusted_forecast {period}", period, NUMBER, adjusted[:, j])
+    for j, period in enumerate(periods):
+        add(f"forecast {period}", f"{names[schema.FORECAST]} {period}", NUMBER, original[:, j])
+    frame = pd.DataFrame(
+        {k: pd.Series(v, dtype=getattr(v, "dtype", None), copy=False) for k, v in columns.items()},
+        copy=False,
+    )
+    return FileTable(frame, tuple(headers), tuple(kinds), dated_headers=frozenset(periods))
+
+
+# --------------------------------------------------------------------------------------------
 # Exporting
 
 
@@ -609,6 +898,9 @@ def export_review(
     cycle: str | None = None,
     force: bool = False,
     exported_by: str | None = None,
+    headers: Mapping[str, str] | None = None,
+    layout: str = LONG,
+    rounding: Rounding = DEFAULT_ROUNDING,
 ) -> ExportResult:
     """Write the decisions and the adjusted forward forecast of a cycle for upload.
 
@@ -620,12 +912,20 @@ def export_review(
         cycle: Review cycle; default the portfolio's cycle.
         force: Replace what exists; otherwise an existing file or set folder stops the export.
         exported_by: Name recorded as the exporter; default the configured reviewer or login.
+        headers: The ``--columns`` mapping the portfolio was read with: the files name the key,
+            period and forecast columns with the portfolio's own headers (``file_headers``).
+        layout: ``LONG`` or ``WIDE`` forecast table (``file_tables``).
+        rounding: Precision of the values triage computes (``triage.core.rounding``).
 
     Raises:
-        ExportError: Unknown suffix, a file exists (without ``force``), the tables do not fit
-            in an xlsx sheet, or the files cannot be written; nothing was left half-written,
-            also when the process is killed (``triage.core.files``).
+        ExportError: Unknown suffix or layout, a file exists (without ``force``), the tables do
+            not fit in an xlsx sheet, or the files cannot be written; nothing was left
+            half-written, also when the process is killed (``triage.core.files``).
     """
+    if layout not in LAYOUTS:
+        raise ExportError(
+            f"unknown layout {layout!r}.", hint=f"Choose one of {', '.join(LAYOUTS)}."
+        )
     fmt, paths = export_paths(target)
     written = paths[0].parent if fmt == "csv" else paths[0]
     if fmt != "csv" and written.is_dir():
@@ -640,33 +940,38 @@ def export_review(
                     hint="Choose another file name for the export.",
                 )
     refuse_existing([written], force=force)
-    tables = review_tables(portfolio, ledger, cycle=cycle, exported_by=exported_by)
+    tables = review_tables(
+        portfolio, ledger, cycle=cycle, exported_by=exported_by, rounding=rounding
+    )
+    decisions, forecast, header_warnings = file_tables(tables, headers=headers, layout=layout)
+    tables = replace(tables, warnings=(*tables.warnings, *header_warnings))
+    sheets = (decisions, forecast)
     warnings = list(tables.warnings)
     if fmt == "xlsx":
-        _check_sheet_rows(tables, paths[0])
+        _check_sheet_size(sheets, paths[0])
         book_warnings: list[str] = []
 
         def write_book(tmp: Path) -> None:
             book_warnings.clear()  # one attempt's findings only
-            _write_xlsx(tmp, tables, book_warnings)
+            _write_xlsx(tmp, tables, sheets, book_warnings)
 
         _write_one(paths[0], write_book, force)
         warnings.extend(book_warnings)
     elif fmt == "json":
-        _write_one(paths[0], lambda tmp: _write_json(tmp, tables), force)
+        _write_one(paths[0], lambda tmp: _write_json(tmp, tables, sheets), force)
     else:
-        warnings.extend(_csv_key_warnings(tables))
+        warnings.extend(_csv_key_warnings(sheets))
         warnings.extend(_flat_set_warnings(written))
 
         def write_readme(tmp: Path) -> None:
             data = [tmp.with_name(p.name) for p in paths[:2]]
-            _write_text(tmp, _readme_text(tables, data, warnings))
+            _write_text(tmp, _readme_text(tables, sheets, data, warnings))
 
         write_set_atomic(
             written,
             [
-                (paths[0].name, lambda tmp: _write_csv(tmp, tables.decisions)),
-                (paths[1].name, lambda tmp: _write_csv(tmp, tables.forecast)),
+                (paths[0].name, lambda tmp: _write_csv(tmp, decisions)),
+                (paths[1].name, lambda tmp: _write_csv(tmp, forecast)),
                 (paths[2].name, write_readme),
             ],
             force=force,
@@ -675,8 +980,10 @@ def export_review(
         paths=paths,
         format=fmt,
         cycle=tables.provenance["cycle"],
-        decisions=len(tables.decisions),
-        forecast_rows=len(tables.forecast),
+        decisions=len(decisions),
+        forecast_rows=len(forecast),
+        layout=layout,
+        precision=tables.precision,
         adjusted_periods=tables.adjusted_periods,
         warnings=tuple(warnings),
     )
@@ -717,40 +1024,51 @@ def _chunks(frame: pd.DataFrame) -> Iterator[pd.DataFrame]:
         yield frame.iloc[start : start + _CHUNK_ROWS]
 
 
-def _number_cells(values: pd.Series) -> list[float | None]:
-    array = values.to_numpy(dtype=np.float64)
+def _number_cells(array: np.ndarray) -> list[float | int | None]:
+    """Numbers as Python objects for a CSV or JSON writer: None where missing, an int where the
+    value is whole (``110``, not ``110.0``), else the float (written with its ``repr``)."""
+    array = np.asarray(array, dtype=np.float64)
     cells = array.astype(object)
     cells[np.isnan(array)] = None
+    whole = np.isfinite(array) & (np.abs(array) < 2.0**53)
+    whole[whole] = array[whole] == np.trunc(array[whole])
+    if whole.any():
+        cells[whole] = array[whole].astype(np.int64).astype(object)
     return cells.tolist()
 
 
-def _csv_columns(frame: pd.DataFrame) -> list[list[Any]]:
+def _csv_columns(frame: pd.DataFrame, kinds: Sequence[str], style: CsvStyle) -> list[list[Any]]:
     columns: list[list[Any]] = []
-    for name in frame.columns:
+    for name, kind in zip(frame.columns, kinds, strict=True):
         values = frame[name]
-        if name in _NUMBERS:
-            columns.append(_number_cells(values))
-        elif name in _FLAGS:
+        if kind == NUMBER:
+            columns.append(style.numbers(values.to_numpy(dtype=np.float64)))
+        elif kind == COUNT:
+            columns.append(values.to_numpy(dtype=np.int64).tolist())
+        elif kind == FLAG:
             columns.append(np.where(values.to_numpy(dtype=bool), "true", "false").tolist())
-        elif name in _KEYS or name in _FIXED:
+        elif kind in (KEY, FIXED, DATE):
             columns.append(values.tolist())
         else:
             columns.append(neutralise(values).tolist())
     return columns
 
 
-def _write_csv(path: Path, frame: pd.DataFrame) -> None:
+def _write_csv(path: Path, table: FileTable, style: CsvStyle = CSV_STYLE) -> None:
     """One table as RFC 4180 CSV, UTF-8 without BOM, CRLF between records.
 
     QUOTE_NONNUMERIC quotes every text field (so a bare CR or a separator inside one can never
-    split a row, reliability.md §2.3) and leaves floats unquoted, written with ``repr`` (the
-    shortest text that reads back as the same float); a missing number is ``""``.
+    split a row, reliability.md §2.3) and leaves numbers unquoted: a whole number as an integer,
+    any other with ``repr`` (the shortest text that reads back as the same float); a missing
+    number is ``""``. ``style`` sets the separator and decimal mark (``CsvStyle``).
     """
     with path.open("w", encoding="utf-8", newline="") as handle:
-        writer = csv.writer(handle, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\r\n")
-        writer.writerow(list(frame.columns))
-        for chunk in _chunks(frame):
-            writer.writerows(zip(*_csv_columns(chunk), strict=True))
+        writer = csv.writer(
+            handle, delimiter=style.sep, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\r\n"
+        )
+        writer.writerow(list(table.headers))
+        for chunk in _chunks(table.frame):
+            writer.writerows(zip(*_csv_columns(chunk, table.kinds, style), strict=True))
 
 
 def _write_text(path: Path, text: str) -> None:
@@ -758,14 +1076,15 @@ def _write_text(path: Path, text: str) -> None:
         handle.write(text)
 
 
-def _csv_key_warnings(tables: ReviewTables) -> list[str]:
+def _csv_key_warnings(sheets: Sequence[FileTable]) -> list[str]:
     """Keys are written unchanged; say so when one would look like a formula to a spreadsheet."""
     out = []
-    keys = tables.forecast if len(tables.forecast) else tables.decisions
-    for name in (ITEM, LOCATION):
-        if name not in keys:
+    decisions, forecast = sheets
+    keys = forecast if len(forecast) else decisions
+    for column, name in zip(keys.frame.columns, keys.headers, strict=True):
+        if column not in (ITEM, LOCATION):
             continue
-        values = pd.Series(keys[name].unique(), dtype=object)
+        values = pd.Series(keys.frame[column].unique(), dtype=object)
         risky = values[values.str.match(_TRIGGER_START).to_numpy(dtype=bool)]
         if len(risky):
             out.append(
@@ -777,7 +1096,12 @@ def _csv_key_warnings(tables: ReviewTables) -> list[str]:
     return out
 
 
-def _readme_text(tables: ReviewTables, data: Sequence[Path], warnings: Sequence[str]) -> str:
+def _readme_text(
+    tables: ReviewTables,
+    sheets: Sequence[FileTable],
+    data: Sequence[Path],
+    warnings: Sequence[str],
+) -> str:
     """The README of a CSV export; ``data`` are the decisions and forecast files, written."""
     prov = tables.provenance
     lines = [
@@ -790,18 +1114,20 @@ def _readme_text(tables: ReviewTables, data: Sequence[Path], warnings: Sequence[
         "Files",
         "  The three files of this folder were written together and are replaced together; an",
         "  upload can check that it read this export's files by their size and SHA-256.",
-        f"  {data[0].name}: {len(tables.decisions):,} reviewed series, one row each",
+        f"  {data[0].name}: {sheets[0].describe}",
         *_manifest_line(data[0]),
-        f"  {data[1].name}: {len(tables.forecast):,} rows, every series x forward period "
-        f"({tables.adjusted_periods:,} adjusted)",
+        f"  {data[1].name}: {sheets[1].describe}",
         *_manifest_line(data[1]),
+        "",
+        "Numbers",
+        f"  {_precision_line(tables)}",
         "",
         "Text safety",
         *[f"  {line}" for line in _SAFETY_LINES],
     ]
     if warnings:
         lines += ["", "Warnings", *[f"  - {w}" for w in warnings]]
-    lines += ["", "Columns", *[f"  {name}: {text}" for name, text in COLUMN_NOTES.items()]]
+    lines += ["", "Columns", *[f"  {name}: {text}" for name, text in column_notes(sheets)]]
     return "\n".join(printable(line) for line in lines) + "\n"
 
 
@@ -812,16 +1138,28 @@ def _manifest_line(path: Path) -> list[str]:
 # ---- xlsx -----------------------------------------------------------------------------------
 
 
-def _check_sheet_rows(tables: ReviewTables, path: Path) -> None:
-    for sheet, frame in (("Decisions", tables.decisions), ("Forecast", tables.forecast)):
-        rows = len(frame) + 1
+def _check_sheet_size(sheets: Sequence[FileTable], path: Path) -> None:
+    for title, table in zip(_SHEET_TITLES, sheets, strict=True):
+        rows = len(table) + 1
         if rows > XLSX_MAX_ROWS:
             raise ExportError(
-                f"cannot write {path}: the {sheet} sheet would need {rows:,} rows (header "
+                f"cannot write {path}: the {title} sheet would need {rows:,} rows (header "
                 f"included) and a sheet holds at most {XLSX_MAX_ROWS:,}; nothing was written.",
                 hint=f"Export to CSV instead (e.g. {path.with_suffix('.csv').name}), which has "
                 "no row limit.",
             )
+        if len(table.headers) > XLSX_MAX_COLUMNS:
+            raise ExportError(
+                f"cannot write {path}: the {title} sheet would need {len(table.headers):,} "
+                f"columns and a sheet holds at most {XLSX_MAX_COLUMNS:,}; nothing was written.",
+                hint="Use --layout long, or export to CSV.",
+            )
+
+
+#: The data sheets of a workbook, in the order of the tables.
+_SHEET_TITLES = ("Decisions", "Forecast")
+#: Number format of period cells in a workbook.
+XLSX_DATE_FORMAT = "yyyy-mm-dd"
 
 
 @dataclass
@@ -849,20 +1187,54 @@ def _xlsx_text(values: Sequence[str], column: str, issues: _XlsxIssues) -> list[
     return out
 
 
-def _xlsx_columns(sheet: Any, frame: pd.DataFrame, issues: _XlsxIssues) -> list[list[Any]]:
+def _xlsx_columns(
+    sheet: Any, frame: pd.DataFrame, kinds: Sequence[str], issues: _XlsxIssues
+) -> list[list[Any]]:
     columns: list[list[Any]] = []
-    for name in frame.columns:
+    for name, kind in zip(frame.columns, kinds, strict=True):
         values = frame[name]
-        if name in _NUMBERS:
+        if kind in (NUMBER, COUNT):
             columns.append(_xlsx_numbers(sheet, values.to_numpy(dtype=np.float64)))
-        elif name in _FLAGS:
+        elif kind == FLAG:
             columns.append(values.to_numpy(dtype=bool).tolist())
+        elif kind == DATE:
+            columns.append(_xlsx_dates(sheet, values))
         else:
-            text = values.tolist() if name in _KEYS or name in _FIXED else neutralise(values)
+            text = values.tolist() if kind in (KEY, FIXED) else neutralise(values)
             columns.append(
                 [_as_string_cell(sheet, v) for v in _xlsx_text(list(text), name, issues)]
             )
     return columns
+
+
+def _xlsx_dates(sheet: Any, values: pd.Series) -> list[Any]:
+    """ISO dates as date cells: number cells with the format ``yyyy-mm-dd``.
+
+    openpyxl gives a ``datetime.date`` that format (3.1.5 ``cell.TIME_FORMATS``), but a plain
+    value with a style makes the write-only sheet build a new cell for it, row after row. One
+    styled cell per distinct date is built here instead and handed over for each of its rows:
+    openpyxl writes a handed-over cell at once (``WriteOnlyWorksheet._values_to_row``), so the
+    same cell can stand in every row.
+    """
+    from openpyxl.cell import WriteOnlyCell
+
+    codes, uniques = pd.factorize(values)
+    cells = [WriteOnlyCell(sheet, value=date.fromisoformat(str(v))) for v in uniques]
+    for cell in cells:
+        cell.number_format = XLSX_DATE_FORMAT
+    return np.array([*cells, None], dtype=object)[codes].tolist()
+
+
+def _xlsx_header(sheet: Any, table: FileTable, issues: _XlsxIssues) -> list[Any]:
+    """The header row: text cells, and date cells for headers that are period dates."""
+    cells: list[Any] = []
+    for header in table.headers:
+        if header in table.dated_headers:
+            cells.append(date.fromisoformat(header))
+        else:
+            (text,) = _xlsx_text([header], "header", issues)
+            cells.append(_as_string_cell(sheet, text))
+    return cells
 
 
 def _xlsx_numbers(sheet: Any, array: np.ndarray) -> list[Any]:
@@ -888,25 +1260,35 @@ def _xlsx_numbers(sheet: Any, array: np.ndarray) -> list[Any]:
     return cells.tolist()
 
 
-def _write_xlsx(path: Path, tables: ReviewTables, warnings: list[str]) -> None:
+def _write_xlsx(
+    path: Path, tables: ReviewTables, sheets: Sequence[FileTable], warnings: list[str]
+) -> None:
+    """The workbook: a data sheet per table (header row frozen, auto-filter over the table,
+    periods as date cells), then the "Read me" sheet."""
     from openpyxl import Workbook
+    from openpyxl.utils import get_column_letter
 
     issues = _XlsxIssues({}, {})
     book = Workbook(write_only=True)
     try:
-        for title, frame in (("Decisions", tables.decisions), ("Forecast", tables.forecast)):
+        for title, table in zip(_SHEET_TITLES, sheets, strict=True):
             sheet = book.create_sheet(title)
+            # Part of the sheet's head, which is written before the first row.
+            sheet.freeze_panes = "A2"
             _spool_beside(sheet, path)
-            sheet.append(list(frame.columns))
-            for chunk in _chunks(frame):
-                for values in zip(*_xlsx_columns(sheet, chunk, issues), strict=True):
+            sheet.append(_xlsx_header(sheet, table, issues))
+            for chunk in _chunks(table.frame):
+                for values in zip(*_xlsx_columns(sheet, chunk, table.kinds, issues), strict=True):
                     sheet.append(values)
+            # Written after the rows (openpyxl 3.1.5 WorksheetWriter.write_tail).
+            last = get_column_letter(len(table.headers))
+            sheet.auto_filter.ref = f"A1:{last}{len(table) + 1}"
         warnings.extend(_xlsx_warnings(issues))
         # Written last, so it can list what the data sheets needed; its text is made printable
         # first, so it has nothing left for the xlsx rules to replace.
         sheet = book.create_sheet("Read me")
         _spool_beside(sheet, path)
-        for row in _readme_rows(tables, [*tables.warnings, *warnings]):
+        for row in _readme_rows(tables, sheets, [*tables.warnings, *warnings]):
             texts = _xlsx_text([neutralise_one(printable(v)) for v in row], "Read me", issues)
             sheet.append([_as_string_cell(sheet, v) for v in texts])
         _save_book(book, path)
@@ -1012,37 +1394,38 @@ def _as_string_cell(sheet: Any, value: str) -> Any:
     return value
 
 
-def _readme_rows(tables: ReviewTables, warnings: Sequence[str]) -> list[list[str]]:
+def _readme_rows(
+    tables: ReviewTables, sheets: Sequence[FileTable], warnings: Sequence[str]
+) -> list[list[str]]:
     prov = tables.provenance
     rows = [
         ["Caution", CAUTION],
         [],
         *[[label, prov[key]] for key, label in _PROVENANCE_LABELS.items()],
-        ["Decisions sheet", f"{len(tables.decisions):,} reviewed series, one row each"],
-        [
-            "Forecast sheet",
-            f"{len(tables.forecast):,} rows, every series x forward period "
-            f"({tables.adjusted_periods:,} adjusted)",
-        ],
+        ["Decisions sheet", sheets[0].describe],
+        ["Forecast sheet", sheets[1].describe],
+        ["Numbers", _precision_line(tables)],
         [],
         ["Text safety", " ".join(_SAFETY_LINES)],
     ]
     if warnings:
         rows += [[], *[["Warning", w] for w in warnings]]
-    rows += [[], ["Column", "Meaning"], *[[k, v] for k, v in COLUMN_NOTES.items()]]
+    rows += [[], ["Column", "Meaning"], *[[k, v] for k, v in column_notes(sheets)]]
     return rows
 
 
 # ---- JSON -----------------------------------------------------------------------------------
 
 
-def _json_columns(frame: pd.DataFrame) -> list[list[Any]]:
+def _json_columns(frame: pd.DataFrame, kinds: Sequence[str]) -> list[list[Any]]:
     columns: list[list[Any]] = []
-    for name in frame.columns:
+    for name, kind in zip(frame.columns, kinds, strict=True):
         values = frame[name]
-        if name in _NUMBERS:
-            columns.append(_number_cells(values))
-        elif name in _FLAGS:
+        if kind == NUMBER:
+            columns.append(_number_cells(values.to_numpy(dtype=np.float64)))
+        elif kind == COUNT:
+            columns.append(values.to_numpy(dtype=np.int64).tolist())
+        elif kind == FLAG:
             columns.append(values.to_numpy(dtype=bool).tolist())
         else:
             columns.append([str(v) for v in values.tolist()])
@@ -1063,17 +1446,17 @@ def dumps_json(value: Any, *, indent: int | None = None) -> str:
 _dumps = dumps_json
 
 
-def _write_records(handle: IO[str], frame: pd.DataFrame) -> None:
-    names = list(frame.columns)
-    for number, chunk in enumerate(_chunks(frame)):
-        rows = zip(*_json_columns(chunk), strict=True)
+def _write_records(handle: IO[str], table: FileTable) -> None:
+    names = list(table.headers)
+    for number, chunk in enumerate(_chunks(table.frame)):
+        rows = zip(*_json_columns(chunk, table.kinds), strict=True)
         lines = (_dumps(dict(zip(names, row, strict=True))) for row in rows)
         handle.write(("," if number else "") + "\n  " + ",\n  ".join(lines))
-    if len(frame):
+    if len(table):
         handle.write("\n ")
 
 
-def _write_json(path: Path, tables: ReviewTables) -> None:
+def _write_json(path: Path, tables: ReviewTables, sheets: Sequence[FileTable]) -> None:
     """One JSON document, streamed so that a large forecast table is never held as text."""
     prov = tables.provenance
     head = {
@@ -1091,9 +1474,9 @@ def _write_json(path: Path, tables: ReviewTables) -> None:
         for key, value in head.items():
             handle.write(f" {_dumps(key)}: {_dumps(value)},\n")
         handle.write(' "decisions": [')
-        _write_records(handle, tables.decisions)
+        _write_records(handle, sheets[0])
         handle.write('],\n "forecast": [')
-        _write_records(handle, tables.forecast)
+        _write_records(handle, sheets[1])
         handle.write("]\n}\n")
 
 
@@ -1125,18 +1508,24 @@ _SAFETY_LINES = (
     "terminal, where such characters act as commands.",
 )
 
-#: One line per column, for the README and the "Read me" sheet (docs/export.md has the same).
+#: What each column means, for the README and the "Read me" sheet (docs/export.md has the
+#: same); ``outcome`` of the forecast table has its own entry, ``outcome (forecast)``.
 COLUMN_NOTES: dict[str, str] = {
-    "item, location": "the series key, exactly as in the portfolio file",
+    "item": "the series' item, exactly as in the portfolio file",
+    "location": "the series' location, exactly as in the portfolio file",
     "cycle": "review cycle: ISO date of the portfolio's latest actual period",
-    "outcome, outcome_label": "what the reviewer concluded (code and words)",
-    "root_cause, root_cause_label": "why the forecast missed (code and words)",
+    "outcome": "what the reviewer concluded (code)",
+    "outcome_label": "what the reviewer concluded (words)",
+    "root_cause": "why the forecast missed (code)",
+    "root_cause_label": "why the forecast missed (words)",
     "note": "the reviewer's note",
-    "reviewer, recorded_at": "who decided, and when (UTC)",
+    "reviewer": "who decided",
+    "recorded_at": "when it was decided (UTC)",
     "adjustment": "the change to the forward forecast as written in triage, empty when none",
     "units_change": "sum of (adjusted - original) forecast over the adjusted periods, units",
     "value_change": "the same in value: each period's change times its price; empty without price",
-    "portfolio_name, portfolio_fingerprint": "the portfolio file the decision was made on",
+    "portfolio_name": "the portfolio file the decision was made on",
+    "portfolio_fingerprint": "SHA-256 of that portfolio file",
     "period": "forward period start date (ISO)",
     "forecast": "the portfolio's forward forecast; empty where it has none",
     "adjusted_forecast": "the adjusted value where a decision (this cycle's, or an earlier one "
@@ -1145,4 +1534,47 @@ COLUMN_NOTES: dict[str, str] = {
     "adjusted_in_cycle": "the review cycle whose decision gave adjusted_forecast: this cycle, "
     "or an earlier cycle whose adjustment is carried; empty where not adjusted",
     "outcome (forecast)": "the series' decision outcome this cycle, empty when not reviewed",
+    "adjusted_periods": "how many of the series' forward periods the decision changed",
+    "adjusted per period": "one column per forward period, headed by its start date: the "
+    "adjusted value where the decision changed that period, else the portfolio's forecast",
+    "forecast per period": "one column per forward period: the portfolio's forward forecast; "
+    "empty where it has none",
 }
+
+
+def column_notes(sheets: Sequence[FileTable]) -> list[tuple[str, str]]:
+    """(header, meaning) of every column of the decisions and forecast tables, in file order.
+
+    The period columns of a wide table are one entry per block (``2026-11-02 ... 2027-01-25``).
+    """
+    notes: list[tuple[str, str]] = []
+    listed: set[str] = set()
+    for number, table in enumerate(sheets):
+        blocks: dict[str, list[str]] = {}
+        for column, header in zip(table.frame.columns, table.headers, strict=True):
+            name, _, period = str(column).partition(" ")
+            if period:  # a period column of a wide table
+                key = (
+                    "adjusted per period" if name == "adjusted_forecast" else "forecast per period"
+                )
+                blocks.setdefault(key, []).append(header)
+                continue
+            if number and name == "outcome":
+                notes.append((f"{header} (forecast)", COLUMN_NOTES["outcome (forecast)"]))
+            elif header not in listed:  # the keys are in both tables
+                notes.append((header, COLUMN_NOTES.get(name, "")))
+            listed.add(header)
+        for key, headers in blocks.items():
+            shown = headers[0] if len(headers) == 1 else f"{headers[0]} ... {headers[-1]}"
+            notes.append((shown, COLUMN_NOTES[key]))
+    return notes
+
+
+def _precision_line(tables: ReviewTables) -> str:
+    if tables.decimals is None:
+        return "Numbers are written as computed."
+    return (
+        f"Adjusted values are rounded to {tables.precision}, half away from zero; "
+        "units_change and value_change are computed from them, without float noise; the "
+        "portfolio's own forecast is written as in the file."
+    )

@@ -1137,7 +1137,11 @@ class TriageApp(App[None]):
         if session.ledger is None:
             raise TriageError("no ledger is open, so there are no decisions to export.")
         self.call_from_thread(self._status, f"exporting to {target}…")
-        result = export_review(session.portfolio, session.ledger, target, force=False)
+        # The long layout and the default precision; the file's own headers, as on the command
+        # line.
+        result = export_review(
+            session.portfolio, session.ledger, target, force=False, headers=self.options.columns
+        )
         written = ", ".join(str(p) for p in result.paths)
         self.post_message(Exported(f"exported: {written}. {CAUTION}"))
 
