@@ -299,7 +299,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 
 def _emit(text: str, output: Path | None, *, force: bool) -> None:
     if output is None:
-        sys.stdout.write(text)
+        sys.stdout.write(_on_terminal(text))
         sys.stdout.flush()
         return
     from triage.core.files import write_text_atomic
@@ -316,12 +316,24 @@ def _emit_blocks(blocks: Iterable[bytes], output: Path | None, *, force: bool) -
         return
     sys.stdout.flush()
     raw = getattr(sys.stdout, "buffer", None)
+    if sys.stdout.isatty():
+        blocks = (_on_terminal(block.decode("utf-8")).encode("utf-8") for block in blocks)
     for block in blocks:
         if raw is None:
             sys.stdout.write(block.decode("utf-8"))
         else:
             raw.write(block)
     (raw or sys.stdout).flush()
+
+
+def _on_terminal(text: str) -> str:
+    """Output for standard output: exact when it goes to a file or a pipe; on a terminal, the
+    control characters that ids keep (CSV and JSON are exact) are shown as visible symbols."""
+    if not sys.stdout.isatty():
+        return text
+    from triage.core.text import visible
+
+    return visible(text, multiline=True)
 
 
 if __name__ == "__main__":

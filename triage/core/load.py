@@ -20,11 +20,13 @@ Types of the canonical frame:
 * ``lag`` (optional): ``int64``, whole numbers from 0 up, never missing.
 * every other column: a text attribute, ``category`` with ``str`` categories, missing as ``""``.
 
-Control characters are replaced at load, in every text cell and header, so that no byte from the
-file can drive the terminal (reliability.md §3.2): C0 ``\\x00``-``\\x1f`` become the Unicode
-control pictures ``␀``-``␟`` (tab ``␉``, line feed ``␊``, escape ``␛``), DEL becomes ``␡`` and
-the C1 range ``\\x80``-``\\x9f`` becomes ``�``. Ids are one-line, so tabs and line breaks are
-replaced too.
+Ids and attribute cells keep their control characters (C0 ``\\x00``-``\\x1f``, DEL, C1
+``\\x80``-``\\x9f``) exactly as written, with a notice counting the cells: machine-readable
+output (CSV, JSON, exports, the ledger) must join back with the file byte for byte. Whatever
+shows them in a terminal replaces them (``triage.core.text.visible``).
+Headers are names, not data: their control characters are replaced at load by the Unicode
+control pictures ``␀``-``␟`` (tab ``␉``, line feed ``␊``, escape ``␛``), ``␡`` for DEL and
+``�`` for C1, as are cells quoted in messages.
 
 File row numbers in messages count the header as row 1, as a spreadsheet does. In a CSV file a
 row is a record: it is the line number unless a quoted cell holds a line break.
@@ -2352,9 +2354,10 @@ def _build(path: Path, raw: _Raw, notices: list[str], sheet: str | None) -> Load
         total = sum(ctx.control_cells.values())
         where = _quote_list(list(ctx.control_cells))
         notices.append(
-            f"{total} {'cell' if total == 1 else 'cells'} contained control characters (column "
-            f"{where}); they are shown as visible symbols: ␀-␟ for C0 (tab ␉, line feed ␊, "
-            "escape ␛), ␡ for DEL, � for C1."
+            f"{total} {'cell' if total == 1 else 'cells'} contain control characters (column "
+            f"{where}). They are kept exactly in CSV, JSON, exports and the ledger, and shown "
+            "as visible symbols on screen: ␀-␟ for C0 (tab ␉, line feed ␊, escape ␛), ␡ for "
+            "DEL, � for C1."
         )
     order = [name for name in _ORDER if name in columns] + attributes
     # copy=False keeps each column as its own block instead of copying into 2-D blocks.
@@ -2475,8 +2478,16 @@ def _from_codes(codes: np.ndarray, labels: Sequence[str] | pd.Index) -> pd.Serie
     return pd.Series(pd.Categorical.from_codes(mapped, categories=pd.Index(uniques, dtype=str)))
 
 
-def _clean_controls(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
-    """Replace control characters, counting the cells changed (checked vectorised first)."""
+def _clean_controls(
+    ctx: _Context, position: int, values: pd.Series, *, replace: bool = False
+) -> pd.Series:
+    """Count the cells holding control characters (checked vectorised first), for the notice.
+
+    Ids and attributes keep them: the text stays exactly as written, so that machine-readable
+    output joins back with the file; whatever shows it in a terminal makes them visible
+    (``triage.core.text.visible``). With ``replace`` (periods, which are parsed, never written
+    back) they are replaced by visible symbols, so that a message quoting the cell is safe.
+    """
     name = ctx.plan.headers[position]
     if isinstance(values.dtype, pd.CategoricalDtype):
         cats = values.cat.categories
@@ -2484,14 +2495,20 @@ def _clean_controls(ctx: _Context, position: int, values: pd.Series) -> pd.Serie
         if not dirty.any():
             return values
         count = int(np.isin(_codes(values), np.flatnonzero(dirty)).sum())
-        cleaned = _recode(values, pd.Index(cats.str.translate(_CONTROL_TABLE), dtype=str))
+        cleaned = (
+            _recode(values, pd.Index(cats.str.translate(_CONTROL_TABLE), dtype=str))
+            if replace
+            else values
+        )
     else:
         mask = values.str.contains(_CONTROL_PATTERN, regex=True, na=False).to_numpy(dtype=bool)
         if not mask.any():
             return values
         count = int(mask.sum())
-        cleaned = values.copy()
-        cleaned.loc[mask] = values.loc[mask].str.translate(_CONTROL_TABLE)
+        cleaned = values
+        if replace:
+            cleaned = values.copy()
+            cleaned.loc[mask] = values.loc[mask].str.translate(_CONTROL_TABLE)
     if count:
         ctx.control_cells[name] = ctx.control_cells.get(name, 0) + count
     return cleaned
@@ -2616,12 +2633,13 @@ def _note_lookalikes(ctx: _Context, position: int, ids: pd.Series) -> None:
 
 
 def _shown_id(text: str) -> str:
-    """An id quoted, with what does not show written as a code (``\\u200D``)."""
+    """An id quoted, with what does not show (and control characters) written as a code
+    (``\\u200D``, ``\\u001B``)."""
     out = []
     for ch in text:
         kind = unicodedata.category(ch)
         if (
-            kind in ("Mn", "Me", "Cf", "Zl", "Zp")
+            kind in ("Cc", "Mn", "Me", "Cf", "Zl", "Zp")
             or (kind == "Zs" and ch != " ")
             or ch in _INVISIBLE
         ):
@@ -2665,7 +2683,7 @@ def _periods(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
     if pd.api.types.is_numeric_dtype(values.dtype):
         _date_error(ctx, position, np.arange(len(values)), values)
     text, missing = _text(values)
-    text = _clean_controls(ctx, position, text)
+    text = _clean_controls(ctx, position, text, replace=True)
     if not isinstance(text.dtype, pd.CategoricalDtype):
         text = text.astype("category")
     cats = pd.Series(text.cat.categories, dtype=str)

@@ -35,6 +35,7 @@ import pandas as pd
 
 from triage.core import schema
 from triage.core.errors import LoadError, format_rows
+from triage.core.text import visible
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Sequence
@@ -263,8 +264,9 @@ class Portfolio:
         return digest.hexdigest()
 
     def key_text(self, index: int) -> str:
-        """``item`` or ``item @ location`` of series ``index``, for messages."""
-        return " @ ".join(str(self.keys.iloc[index][c]) for c in self.key_columns)
+        """``item`` or ``item @ location`` of series ``index``, for messages (control
+        characters shown as visible symbols)."""
+        return " @ ".join(visible(str(self.keys.iloc[index][c])) for c in self.key_columns)
 
     def text_column(self, name: str, order: np.ndarray) -> pd.api.extensions.ExtensionArray:
         """Key or attribute column ``name`` of the series ``order``, as a ``str`` array.
@@ -1003,7 +1005,8 @@ def _check_duplicates(
     for value in dup_cells[:EXAMPLES]:
         positions = order[sorted_cells == value]
         row = frame.iloc[positions[0]]
-        key = " @ ".join(str(row[c]) for c in key_columns)
+        # Ids keep their control characters; a message shows them as visible symbols.
+        key = " @ ".join(visible(str(row[c])) for c in key_columns)
         stamp = pd.Timestamp(row[schema.PERIOD]).strftime("%Y-%m-%d")
         lag_note = f", lag {int(row[schema.LAG])}" if schema.LAG in frame.columns else ""
         demands = ", ".join(_fmt(v) for v in frame[schema.DEMAND].to_numpy()[positions])
@@ -1092,7 +1095,8 @@ def _refuse_unpriced(
     if not missing.size:
         return
     names = ", ".join(
-        " @ ".join(str(keys_unique.iloc[i][c]) for c in key_columns) for i in missing[:EXAMPLES]
+        " @ ".join(visible(str(keys_unique.iloc[i][c])) for c in key_columns)
+        for i in missing[:EXAMPLES]
     )
     raise LoadError(
         path,
