@@ -171,12 +171,14 @@ def _write_crash_log(exc: Exception, argv: list[str]) -> Path:
     return path
 
 
-def _load(args: argparse.Namespace):
+def _load(args: argparse.Namespace, *, smallest_lag: bool = False):
     from triage.core.load import parse_column_map
     from triage.core.portfolio import read_portfolio
 
     columns = parse_column_map(args.columns) if args.columns else None
-    return read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+    return read_portfolio(
+        args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag, smallest_lag=smallest_lag
+    )
 
 
 def _cmd_rank(args: argparse.Namespace) -> int:
@@ -224,8 +226,9 @@ def _cmd_check(args: argparse.Namespace) -> int:
     from triage.core.ranking import require_scorable
 
     check_score_args(args)
-    portfolio = _load(args)
-    print(report.check_text(portfolio, args.window, args.season))
+    # Several lags are reported (with the --lag choice), not refused.
+    portfolio = _load(args, smallest_lag=True)
+    print(report.check_text(portfolio, args.window, args.season, lag_given=args.lag is not None))
     require_scorable(portfolio, args.window)
     return 0
 

@@ -453,8 +453,18 @@ def _run_text(run: int) -> str:
     return f"{abs(run)} {'over' if run > 0 else 'under'}"
 
 
-def check_text(portfolio: Portfolio, window: int, season: int) -> str:
-    """The data-quality report of ``triage check``."""
+def check_text(portfolio: Portfolio, window: int, season: int, *, lag_given: bool = True) -> str:
+    """The data-quality report of ``triage check``.
+
+    Args:
+        portfolio: The portfolio; with several lags and ``lag_given`` false, built scoring the
+            smallest lag (``read_portfolio(..., smallest_lag=True)``).
+        window: Latest periods with actual demand to score.
+        season: Seasonal period of the naive baseline.
+        lag_given: Whether ``--lag`` chose the lag. Without it, a file of several lags is
+            reported with its lags and the choice to make, not refused.
+    """
+    choose = len(portfolio.lags) > 1 and not lag_given
     demand = portfolio.demand
     hist = demand[:, : portfolio.last_actual + 1]
     cal = portfolio.calendar
@@ -485,7 +495,10 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
         f"asked for {window}), naive season {season}",
         "lags           "
         + (
-            f"{', '.join(map(str, portfolio.lags))}; scoring lag {portfolio.lag}"
+            f"{', '.join(map(str, portfolio.lags))}; no --lag given, so this report scores "
+            f"lag {portfolio.lag} (the smallest)"
+            if choose
+            else f"{', '.join(map(str, portfolio.lags))}; scoring lag {portfolio.lag}"
             if portfolio.lags
             else "no lag column (one forecast per period)"
         ),
@@ -520,5 +533,15 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
         lines.extend(f"note: {visible(n, multiline=True)}" for n in portfolio.notices)
     lines.append("")
     problem = ranking.unscorable(portfolio, window)
-    lines.append("ok: the file can be scored" if problem is None else f"not ok: {problem}")
+    if problem is not None:
+        lines.append(f"not ok: {problem}")
+    elif choose:
+        listed = ", ".join(map(str, portfolio.lags[:-1])) + f" or {portfolio.lags[-1]}"
+        lines.append(
+            f"ok: the file can be scored one lag at a time: the history holds "
+            f"{len(portfolio.lags)} forecast lags and metrics never mix them, so rank, review, "
+            f"report and export need --lag {listed} (e.g. --lag {portfolio.lag})"
+        )
+    else:
+        lines.append("ok: the file can be scored")
     return "\n".join(lines)

@@ -288,7 +288,11 @@ class Portfolio:
 
 
 def build_portfolio(
-    loaded: LoadedLike, *, lag: int | None = None, consume: bool = False
+    loaded: LoadedLike,
+    *,
+    lag: int | None = None,
+    consume: bool = False,
+    smallest_lag: bool = False,
 ) -> Portfolio:
     """Check the whole-portfolio rules and scatter the long rows into dense arrays.
 
@@ -299,6 +303,9 @@ def build_portfolio(
             been scattered, so that the long rows and the dense arrays are not both held in
             full. The frame is left with its attribute columns only; pass True only when nothing
             reads it afterwards.
+        smallest_lag: With several lags in the history and no ``lag``, score the smallest one
+            instead of refusing (``triage check`` reports the lags and the choice); ``lags``
+            lists them all.
 
     Raises:
         LoadError: Irregular calendar, duplicate rows, several lags without ``lag``, an unknown
@@ -340,7 +347,7 @@ def build_portfolio(
             "in it is of one (unnamed) lag.",
             hint="Leave out --lag, or load the file that holds the forecast lags.",
         )
-    chosen = _choose_lag(path, lags, lag) if has_lag else None
+    chosen = _choose_lag(path, lags, lag, smallest=smallest_lag) if has_lag else None
 
     # The later steps need the keys' codes only; the rows' key columns can go.
     attribute_rows = (
@@ -428,6 +435,7 @@ def read_portfolio(
     columns: dict[str, str] | None = None,
     sheet: str | None = None,
     lag: int | None = None,
+    smallest_lag: bool = False,
 ) -> Portfolio:
     """Load a portfolio file and build its arrays (see ``load.load_frame`` and ``build_portfolio``).
 
@@ -448,7 +456,7 @@ def read_portfolio(
         except FastPathDeclined:
             pass
     loaded = load_frame(path, columns=columns, sheet=sheet)
-    return build_portfolio(loaded, lag=lag, consume=True)
+    return build_portfolio(loaded, lag=lag, consume=True, smallest_lag=smallest_lag)
 
 
 # --- the streamed way: Parquet row groups straight into the dense arrays -------------------------
@@ -1022,8 +1030,10 @@ def _check_duplicates(
     )
 
 
-def _choose_lag(path: Path, lags: tuple[int, ...], lag: int | None) -> int | None:
-    """The lag to score; metrics never mix lags."""
+def _choose_lag(
+    path: Path, lags: tuple[int, ...], lag: int | None, *, smallest: bool = False
+) -> int | None:
+    """The lag to score; metrics never mix lags. Several lags need ``lag`` (or ``smallest``)."""
     if lag is not None:
         if lag not in lags:
             raise LoadError(
@@ -1032,7 +1042,7 @@ def _choose_lag(path: Path, lags: tuple[int, ...], lag: int | None) -> int | Non
                 hint="Choose one of those with --lag.",
             )
         return lag
-    if len(lags) > 1:
+    if len(lags) > 1 and not smallest:
         raise LoadError(
             path,
             f"the history holds {len(lags)} forecast lags ({', '.join(map(str, lags))}); "
