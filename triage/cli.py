@@ -16,6 +16,7 @@ from triage.arguments import (
     check_score_args,
     force_arg,
     portfolio_args,
+    read_args,
     refuse_overwriting,
     score_args,
 )
@@ -172,13 +173,9 @@ def _write_crash_log(exc: Exception, argv: list[str]) -> Path:
 
 
 def _load(args: argparse.Namespace, *, smallest_lag: bool = False):
-    from triage.core.load import parse_column_map
     from triage.core.portfolio import read_portfolio
 
-    columns = parse_column_map(args.columns) if args.columns else None
-    return read_portfolio(
-        args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag, smallest_lag=smallest_lag
-    )
+    return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **read_args(args))
 
 
 def _cmd_rank(args: argparse.Namespace) -> int:
@@ -235,14 +232,14 @@ def _cmd_check(args: argparse.Namespace) -> int:
 
 def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | None):
     from triage.core.config import default_reviewer, load_config, reviewer_problem
-    from triage.core.load import parse_column_map
     from triage.tui.app import Options
 
     config = load_config(args.config)
     target = config.target_share if args.target is None else args.target
     if not 0 < target <= 1:
         raise TriageError(f"--target must be a share in (0, 1], e.g. 0.8, not {args.target}.")
-    columns = parse_column_map(args.columns) if getattr(args, "columns", None) else None
+    # `triage demo` reads the bundled sample: no portfolio options.
+    reading = read_args(args) if hasattr(args, "portfolio") else {}
     reviewer = args.reviewer or default_reviewer(config)
     problem = reviewer_problem(reviewer)
     if problem:
@@ -254,9 +251,10 @@ def _review_options(args: argparse.Namespace, portfolio: Path, ledger: Path | No
         reviewer=reviewer,
         window=getattr(args, "window", 13),
         season=getattr(args, "season", 1),
-        columns=columns,
-        sheet=getattr(args, "sheet", None),
-        lag=getattr(args, "lag", None),
+        columns=reading.get("columns"),
+        sheet=reading.get("sheet"),
+        lag=reading.get("lag"),
+        file_options=reading.get("options"),
         target_share=target,
         root_causes=config.root_causes,
         auto_advance=config.auto_advance,

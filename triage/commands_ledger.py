@@ -17,7 +17,7 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from triage.arguments import open_ledger_read_only, portfolio_args, warn
+from triage.arguments import open_ledger_read_only, portfolio_args, read_args, warn
 from triage.core.errors import TriageError
 from triage.core.text import longest_word
 
@@ -328,7 +328,6 @@ def cmd_export(args: argparse.Namespace) -> int:
     """``triage export``: decisions and adjusted forward forecast of a cycle, for upload."""
     from triage.core.config import default_reviewer
     from triage.core.export import CAUTION, export_paths, export_review, printable
-    from triage.core.load import parse_column_map
     from triage.core.portfolio import read_portfolio
 
     cycle = _check_cycle(args.cycle)
@@ -341,8 +340,7 @@ def cmd_export(args: argparse.Namespace) -> int:
         if not args.portfolio.exists():
             raise TriageError(f"{args.portfolio}: no such file.")
         ledger_path = _ledger_of_portfolio(args.portfolio)
-    columns = parse_column_map(args.columns) if args.columns else None
-    portfolio = read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+    portfolio = read_portfolio(args.portfolio, **read_args(args))
     with open_ledger_read_only(ledger_path, config) as ledger:
         result = export_review(
             portfolio,

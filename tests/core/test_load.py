@@ -360,8 +360,10 @@ def test_semicolon_separated_file(write_csv: WriteCsv) -> None:
     # reliability.md §4 (pandas 3.1.1): with sep=',' a ';' file reads as one column 'item;qty'.
     path = write_csv("item;period;demand;forecast\nA;2024-01-01;1,5;2\n")
     error = load_error(path)
-    assert "only 1 column was found" in error.message
+    assert "the header is not split by ','" in error.message
     assert "semicolon-separated file with decimal commas (e.g. '1,5')" in error.message
+    # Issue 9 §5: refused as before, with the exact options that read it.
+    assert "Read it with --sep ';' --decimal ,." in (error.hint or "")
     assert "CSV UTF-8 (Comma delimited)" in (error.hint or "")
 
 
@@ -652,8 +654,9 @@ def test_xlsx_title_row_above_the_header_is_named_as_such(tmp_path: Path) -> Non
         ["A", "2024-01-01", 1, 1],
     ]
     error = load_error(write_book(tmp_path / "p.xlsx", {"S": rows}))
-    assert "row 1 holds only 'Forecast review week 47', which looks like a title" in error.message
-    assert "Delete the title row" in (error.hint or "")
+    assert "row 1 holds 'Forecast review week 47', which looks like a title" in error.message
+    assert "the header (item, period, demand, forecast) is on row 2" in error.message
+    assert "--header-row 2" in (error.hint or "") and "delete the title rows" in (error.hint or "")
 
 
 def test_xlsx_header_shorter_than_data(tmp_path: Path) -> None:

@@ -40,6 +40,7 @@ from triage.core.text import visible
 if TYPE_CHECKING:
     from collections.abc import Callable, Sequence
 
+    from triage.core.dialect import FileOptions
     from triage.core.load import StreamSource
 
 #: How many example rows an error message shows.
@@ -436,8 +437,12 @@ def read_portfolio(
     sheet: str | None = None,
     lag: int | None = None,
     smallest_lag: bool = False,
+    options: FileOptions | None = None,
 ) -> Portfolio:
     """Load a portfolio file and build its arrays (see ``load.load_frame`` and ``build_portfolio``).
+
+    ``options`` say how the file writes its cells (``--sep``, ``--decimal``, ``--date-format``,
+    ``--header-row``; see ``triage.core.dialect``); both ways read them.
 
     A Parquet or CSV file is first read the streamed way (``load.scan_parquet``,
     ``load.scan_csv``): one block of rows at a time, straight into the dense arrays, without
@@ -452,10 +457,10 @@ def read_portfolio(
     )
     if sheet is None and scan is not None:
         try:
-            return _build_streamed(scan(path, columns=columns), lag)
+            return _build_streamed(scan(path, columns=columns, options=options), lag)
         except FastPathDeclined:
             pass
-    loaded = load_frame(path, columns=columns, sheet=sheet)
+    loaded = load_frame(path, columns=columns, sheet=sheet, options=options)
     return build_portfolio(loaded, lag=lag, consume=True, smallest_lag=smallest_lag)
 
 
