@@ -3168,8 +3168,10 @@ def _periods_from_cells(ctx: _Context, position: int, values: pd.Series) -> pd.S
 def _date_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series) -> NoReturn:
     sample = [str(v).strip() for v in values.iloc[bad[:200]].tolist()]
     notes = []
-    slash = next((s for s in sample if re.fullmatch(r"\d{1,2}[/.]\d{1,2}[/.]\d{2,4}", s)), None)
-    if slash:
+    slash = next(
+        (s for s in sample if re.fullmatch(r"[0-9]{1,2}[/.][0-9]{1,2}[/.][0-9]{2,4}", s)), None
+    )
+    if slash and ctx.options.date_format is None:
         first, second = (int(x) for x in re.split(r"[/.]", slash)[:2])
         if 1 <= first <= 12 and 1 <= second <= 12:
             notes.append(
@@ -3184,9 +3186,7 @@ def _date_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series
         notes.append("Periods are dates, without a time of day.")
     digits = _foreign_digits(sample)
     if digits:
-        notes.append(
-            f"Dates are written with the digits 0-9 ({digits} are digits of another script)."
-        )
+        notes.append(f"Dates are written with the digits 0-9 ({digits}).")
     date_format = ctx.options.date_format
     invalid = next((s for s in sample if _ISO_DATE.fullmatch(s)), None)
     if invalid and date_format is None:
