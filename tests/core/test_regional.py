@@ -252,6 +252,17 @@ def test_options_that_do_not_apply_to_the_file_type_are_refused(tmp_path: Path) 
         "--sep was given, but this is a xlsx file"
         in load_error(book, options=FileOptions(sep=";")).message
     )
+    # A decimal comma in a comma-separated file: refused for CSV (1,5 would be two fields).
+    csv_path = tmp_path / "p.csv"
+    csv_path.write_text("item,period,demand,forecast\nA,2025-10-06,1,2\n", encoding="utf-8")
+    error = load_error(csv_path, options=file_options(decimal=","))
+    assert "separated by ',' too" in error.message and "--sep ';'" in (error.hint or "")
+    with pytest.raises(LoadError) as fast:
+        scan_csv(csv_path, options=file_options(decimal=","))
+    assert str(fast.value) == str(error)
+    # --header-row past the end of the file.
+    error = load_error(csv_path, options=FileOptions(header_row=9))
+    assert "--header-row 9 was given, but the file has only 2 lines" in error.message
     parquet = tmp_path / "p.parquet"
     garden_rows(seed=25, n_items=2).to_parquet(parquet)
     error = load_error(parquet, options=FileOptions(header_row=2))
@@ -348,3 +359,44 @@ def test_a_title_block_of_several_cells_is_named_with_the_header_row(
     plain = load_frame(write_book(tmp_path / "plain.xlsx", {"S": DEMAND_ROWS}))
     loaded = load_frame(path, options=FileOptions(header_row=4))
     pd.testing.assert_frame_equal(loaded.frame, plain.frame)
+
+
+HEADER = "item;period;demand;forecast\n"
+
+
+@pytest.mark.parametrize(
+    ("text", "why"),
+    [
+        (HEADER + "A;06.10.2025;1,5;2\nA;13.10.2025;+2,5;,5\nA;20.10.2025;5,;1e1\n", "forms"),
+        (HEADER + "A;06.10.2025;NA;2\nA;13.10.2025;;-\nA;20.10.2025;3;n/a\n", "missing words"),
+        (HEADER + '"A;1";06.10.2025;1;2\n"A;1";13.10.2025;1;2\n', "quoted separator"),
+        (HEADER + "A;6.10.2025;1;2\nA;13.10.2025;1;2\n", "one-digit day"),
+        (HEADER + "A; 06.10.2025 ;1;2\nA;13.10.2025;1;2\n", "spaces around a date"),
+        (HEADER + "A;06.10.2025;1.500;2\nA;13.10.2025;1;2\n", "point with decimal comma"),
+        (HEADER + "A;2025-10-06;1;2\nA;13.10.2025;1;2\n", "ISO date with a format"),
+        (HEADER + "A;31.02.2025;1;2\nA;13.10.2025;1;2\n", "no such day"),
+        (HEADER + "A;;1;2\nA;13.10.2025;1;2\n", "empty period"),
+        (HEADER + "A;06.10.2025;1;2\n\nA;13.10.2025;1;2\n", "blank line"),
+        (HEADER + "A;06.10.1825;1;2\nA;13.10.2025;1;2\n", "year out of range"),
+        (HEADER + "A;06.10.2025;1,5;2;9\nA;13.10.2025;1;2\n", "long line"),
+        (HEADER + "A;06.10.2025;1;2\nA;06.10.2025;1;2\n", "duplicate"),
+    ],
+)
+def test_both_ways_give_the_same_answer_with_options(tmp_path: Path, text: str, why: str) -> None:
+    path = tmp_path / "odd.csv"
+    path.write_text(text, encoding="utf-8")
+    try:
+        expected: Portfolio | str = build_portfolio(load_frame(path, options=REGIONAL))
+    except LoadError as exc:
+        expected = str(exc)
+    try:
+        got: Portfolio | str = read_portfolio(path, options=REGIONAL)
+    except LoadError as exc:
+        got = str(exc)
+    if isinstance(expected, str):
+        assert got == expected, why
+        with pytest.raises((FastPathDeclined, LoadError)):
+            _build_streamed(scan_csv(path, options=REGIONAL), None)
+    else:
+        assert isinstance(got, Portfolio), why
+        assert_same(got, expected)

@@ -133,7 +133,7 @@ def file_options(
                 f"--decimal {decimal!r} is not a decimal mark triage reads.",
                 hint="Write --decimal , for numbers such as 1,5, or leave it out for 1.5.",
             )
-    if chosen_sep == chosen_decimal:
+    if sep is not None and chosen_sep == chosen_decimal:
         raise TriageError(
             f"--sep and --decimal are both '{chosen_sep}': a number such as 1{chosen_sep}5 "
             "would be two fields.",

@@ -303,6 +303,14 @@ def _checked_options(path: Path, kind: str, options: FileOptions | None) -> File
     """The options, refused where they do not apply to this kind of file (never ignored)."""
     if options is None:
         return FileOptions()
+    if kind == "csv" and options.sep == options.decimal:
+        _fail(
+            path,
+            f"--decimal {options.decimal} was given for a file whose fields are separated by "
+            f"'{options.sep}' too: 1{options.sep}5 would be two fields.",
+            "Files with decimal commas separate their fields with semicolons: add --sep ';' "
+            "(or tab, '|') as the file does.",
+        )
     if options.sep != "," and kind != "csv":
         _fail(
             path,
@@ -651,9 +659,12 @@ def _line_start(path: Path, line: int) -> int:
 
     Lines end with LF or CRLF, or with CR alone in a file without any LF (old Mac exports).
     """
+    lines = 0
     for newline in (b"\n", b"\r"):
-        seen = offset = 0
+        seen = 0
+        last = b""
         with path.open("rb") as handle:
+            offset = 0
             while chunk := handle.read(_CHUNK):
                 count = chunk.count(newline)
                 if seen + count >= line - 1:
@@ -663,12 +674,14 @@ def _line_start(path: Path, line: int) -> int:
                     return offset + at + 1
                 seen += count
                 offset += len(chunk)
+                last = chunk[-1:]
+        # Lines: line ends, plus a last line without one.
+        lines = seen + (last not in (b"", newline))
         if seen:
             break
     _fail(
         path,
-        f"--header-row {line} was given, but the file has only {seen + (offset > 0)} "
-        f"{'line' if seen + (offset > 0) == 1 else 'lines'}.",
+        f"--header-row {line} was given, but the file has only {_plural(lines, 'line')}.",
         "Give the line number of the header as a text editor shows it, or leave out "
         "--header-row when the header is on the first line.",
     )
