@@ -400,3 +400,17 @@ def test_both_ways_give_the_same_answer_with_options(tmp_path: Path, text: str, 
     else:
         assert isinstance(got, Portfolio), why
         assert_same(got, expected)
+
+
+def test_a_title_above_a_mapped_header(tmp_path: Path) -> None:
+    # With --columns the header is found by the file's own names, and named so.
+    path = tmp_path / "mapped.csv"
+    path.write_text(
+        "Weekly extract\nsku,week,qty,fc\nA,2025-10-06,1,2\nA,2025-10-13,1,2\n", encoding="utf-8"
+    )
+    columns = {"item": "sku", "period": "week", "demand": "qty", "forecast": "fc"}
+    error = load_error(path, columns=columns)
+    assert "the header (sku, week, qty, fc) is on line 2" in error.message
+    assert "--header-row 2" in (error.hint or "")
+    loaded = load_frame(path, columns=columns, options=FileOptions(header_row=2))
+    assert loaded.frame["demand"].tolist() == [1.0, 1.0] and loaded.first_row == 3

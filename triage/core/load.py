@@ -859,6 +859,7 @@ def _find_header(
             title,
             f"line {skipped + 1 + found}",
             FileOptions(options.sep, options.decimal, options.date_format, skipped + 1 + found),
+            mapping,
         )
     for sep in SEPARATORS:
         if sep == options.sep:
@@ -876,14 +877,20 @@ def _has_required(cells: Sequence[Any], mapping: dict[str, str]) -> bool:
 
 
 def _title_block(
-    path: Path, where: str, cells: list[Any], header_at: str, options: FileOptions
+    path: Path,
+    where: str,
+    cells: list[Any],
+    header_at: str,
+    options: FileOptions,
+    mapping: dict[str, str],
 ) -> NoReturn:
     """Refuse rows above the header (a title block), naming the option that skips them."""
     shown = ", ".join(f"'{_sanitize_str(_header_text(c))[:80]}'" for c in cells[:3])
+    names = ", ".join(_sanitize_str(mapping.get(n, n)) for n in schema.REQUIRED)
     _fail(
         path,
         f"{where} holds {shown or 'nothing'}, which looks like a title, not the header: the "
-        f"header ({', '.join(schema.REQUIRED)}) is on {header_at}.",
+        f"header ({names}) is on {header_at}.",
         f"Read the file with {options.command_line()} (the rows above it are skipped), or "
         "delete the title rows (and unmerge the title cells), save and load it again.",
     )
@@ -1095,7 +1102,8 @@ def _raise_ragged(
             f"line {first_line + 1} has {fields} fields, expected {width}: the header has fewer "
             "names than the data rows have cells, so a column name is probably missing.",
             f"Give every column a name in the header (line {first_line}), or remove the extra "
-            "cells.",
+            f"cells; if line {first_line} is a title above the header, read the file with "
+            "--header-row N (N: the line of the header).",
         )
     listed = "; ".join(f"line {n} has {k}" for n, k in bad[1 : _SHOWN + 1])
     more = f" and {len(bad) - _SHOWN - 1} more lines" if len(bad) > _SHOWN + 1 else ""
@@ -2015,6 +2023,7 @@ def _read_xlsx(
                 filled,
                 f"row {found + 1}",
                 FileOptions(options.sep, options.decimal, options.date_format, found + 1),
+                mapping,
             )
     if len(filled) == 1 and rows.wide_start and options.header_row is None:
         _fail(
