@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
-from typing import TYPE_CHECKING
+from typing import TYPE_CHECKING, Any
 
 from triage.core.errors import TriageError
 from triage.core.text import visible as printable
@@ -16,7 +16,8 @@ if TYPE_CHECKING:
 
 
 def portfolio_args(parser: argparse.ArgumentParser) -> None:
-    """The portfolio file and how to read it: ``PORTFOLIO --columns --sheet --lag``."""
+    """The portfolio file and how to read it: ``PORTFOLIO --columns --sheet --lag`` and the
+    file's own conventions ``--sep --decimal --date-format --header-row`` (``read_args``)."""
     parser.add_argument("portfolio", type=Path, help="portfolio file: .csv, .parquet or .xlsx")
     parser.add_argument(
         "--columns",
@@ -27,6 +28,45 @@ def portfolio_args(parser: argparse.ArgumentParser) -> None:
     parser.add_argument(
         "--lag", type=int, help="forecast lag to score, when the file holds several"
     )
+    parser.add_argument(
+        "--sep", metavar="CHAR", help="CSV field separator: ';', '|' or tab (default ',')"
+    )
+    parser.add_argument(
+        "--decimal", metavar="CHAR", help="decimal mark of numbers: ',' for 1,5 (default '.')"
+    )
+    parser.add_argument(
+        "--date-format",
+        metavar="FORMAT",
+        help="how periods are written, e.g. %%d.%%m.%%Y for 01.10.2025 (default YYYY-MM-DD)",
+    )
+    parser.add_argument(
+        "--header-row",
+        type=int,
+        metavar="N",
+        help="row (CSV: line) of the header, below a title block (default: the first row)",
+    )
+
+
+def read_args(args: argparse.Namespace) -> dict[str, Any]:
+    """Keyword arguments of ``read_portfolio`` from the options of ``portfolio_args``.
+
+    Raises:
+        TriageError: A bad ``--columns`` map or file option, with what to write instead.
+    """
+    from triage.core.dialect import file_options
+    from triage.core.load import parse_column_map
+
+    return {
+        "columns": parse_column_map(args.columns) if args.columns else None,
+        "sheet": args.sheet,
+        "lag": args.lag,
+        "options": file_options(
+            sep=args.sep,
+            decimal=args.decimal,
+            date_format=args.date_format,
+            header_row=args.header_row,
+        ),
+    }
 
 
 def score_args(parser: argparse.ArgumentParser) -> None:

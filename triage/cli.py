@@ -17,6 +17,7 @@ from triage.arguments import (
     check_score_args,
     force_arg,
     portfolio_args,
+    read_args,
     refuse_overwriting,
     score_args,
 )
@@ -192,12 +193,10 @@ def _write_crash_log(exc: BaseException, argv: list[str], extra: str = "") -> Pa
     return path
 
 
-def _load(args: argparse.Namespace):
-    from triage.core.load import parse_column_map
+def _load(args: argparse.Namespace, *, smallest_lag: bool = False):
     from triage.core.portfolio import read_portfolio
 
-    columns = parse_column_map(args.columns) if args.columns else None
-    return read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+    return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **read_args(args))
 
 
 def _cmd_rank(args: argparse.Namespace) -> int:
@@ -245,8 +244,9 @@ def _cmd_check(args: argparse.Namespace) -> int:
     from triage.core.ranking import require_scorable
 
     check_score_args(args)
-    portfolio = _load(args)
-    print(report.check_text(portfolio, args.window, args.season))
+    # Several lags are reported (with the --lag choice), not refused.
+    portfolio = _load(args, smallest_lag=True)
+    print(report.check_text(portfolio, args.window, args.season, lag_given=args.lag is not None))
     require_scorable(portfolio, args.window)
     return 0
 
@@ -260,14 +260,14 @@ def _review_options(
     notices: Sequence[str] = (),
 ):
     from triage.core.config import default_reviewer, load_config, reviewer_problem
-    from triage.core.load import parse_column_map
     from triage.tui.app import Options
 
     config = config if config is not None else load_config(args.config)
     target = config.target_share if args.target is None else args.target
     if not 0 < target <= 1:
         raise TriageError(f"--target must be a share in (0, 1], e.g. 0.8, not {args.target}.")
-    columns = parse_column_map(args.columns) if getattr(args, "columns", None) else None
+    # `triage demo` reads the bundled sample: no portfolio options.
+    reading = read_args(args) if hasattr(args, "portfolio") else {}
     reviewer = args.reviewer or default_reviewer(config)
     problem = reviewer_problem(reviewer)
     if problem:
@@ -279,9 +279,10 @@ def _review_options(
         reviewer=reviewer,
         window=getattr(args, "window", 13),
         season=getattr(args, "season", 1),
-        columns=columns,
-        sheet=getattr(args, "sheet", None),
-        lag=getattr(args, "lag", None),
+        columns=reading.get("columns"),
+        sheet=reading.get("sheet"),
+        lag=reading.get("lag"),
+        file_options=reading.get("options"),
         target_share=target,
         root_causes=config.root_causes,
         auto_advance=config.auto_advance,
@@ -326,15 +327,20 @@ def _review_target(args: argparse.Namespace, config) -> tuple[Path, Path | None,
     review screens, which open without saving and say why.
     """
     from triage.core.ledger import locate_ledger
-    from triage.core.load import parse_column_map
 
     notices: list[str] = []
     portfolio: Path = args.portfolio
     if portfolio.is_dir():
         from triage.core.folder import newest_portfolio
 
-        columns = parse_column_map(args.columns) if args.columns else None
-        newest = newest_portfolio(portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+        reading = read_args(args)
+        newest = newest_portfolio(
+            portfolio,
+            columns=reading["columns"],
+            sheet=reading["sheet"],
+            lag=reading["lag"],
+            options=reading["options"],
+        )
         portfolio = newest.path
         notices.extend(newest.notices)
     ledger: Path | None = args.ledger
@@ -392,7 +398,7 @@ def _cmd_demo(args: argparse.Namespace) -> int:
 
 def _emit(text: str, output: Path | None, *, force: bool) -> None:
     if output is None:
-        sys.stdout.write(text)
+        sys.stdout.write(_on_terminal(text))
         sys.stdout.flush()
         return
     from triage.core.files import write_text_atomic
@@ -409,12 +415,24 @@ def _emit_blocks(blocks: Iterable[bytes], output: Path | None, *, force: bool) -
         return
     sys.stdout.flush()
     raw = getattr(sys.stdout, "buffer", None)
+    if sys.stdout.isatty():
+        blocks = (_on_terminal(block.decode("utf-8")).encode("utf-8") for block in blocks)
     for block in blocks:
         if raw is None:
             sys.stdout.write(block.decode("utf-8"))
         else:
             raw.write(block)
     (raw or sys.stdout).flush()
+
+
+def _on_terminal(text: str) -> str:
+    """Output for standard output: exact when it goes to a file or a pipe; on a terminal, the
+    control characters that ids keep (CSV and JSON are exact) are shown as visible symbols."""
+    if not sys.stdout.isatty():
+        return text
+    from triage.core.text import visible
+
+    return visible(text, multiline=True)
 
 
 if __name__ == "__main__":

@@ -17,7 +17,13 @@ import sys
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
-from triage.arguments import ledger_to_read, open_ledger_read_only, portfolio_args, warn
+from triage.arguments import (
+    ledger_to_read,
+    open_ledger_read_only,
+    portfolio_args,
+    read_args,
+    warn,
+)
 from triage.core.errors import TriageError
 from triage.core.text import longest_word
 
@@ -356,7 +362,6 @@ def cmd_export(args: argparse.Namespace) -> int:
     """``triage export``: decisions and adjusted forward forecast of a cycle, for upload."""
     from triage.core.config import default_reviewer
     from triage.core.export import CAUTION, export_paths, export_review, printable
-    from triage.core.load import parse_column_map
     from triage.core.portfolio import read_portfolio
     from triage.core.rounding import parse_rounding
 
@@ -374,8 +379,9 @@ def cmd_export(args: argparse.Namespace) -> int:
         raise TriageError(f"{args.portfolio}: no such file.")
     ledger_path = ledger_to_read(args.portfolio, config, args.ledger)
     assert ledger_path is not None
-    columns = parse_column_map(args.columns) if args.columns else None
-    portfolio = read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+    reading = read_args(args)
+    columns = reading.get("columns")
+    portfolio = read_portfolio(args.portfolio, **reading)
     with open_ledger_read_only(ledger_path, config) as ledger:
         result = export_review(
             portfolio,

@@ -24,6 +24,8 @@ from triage.arguments import (
     force_arg,
     ledger_to_read,
     open_ledger_read_only,
+    portfolio_args,
+    read_args,
     refuse_overwriting,
     warn,
 )
@@ -97,21 +99,12 @@ def add_report_commands(sub: argparse._SubParsersAction) -> None:
 
 
 def _portfolio_args(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument("portfolio", type=Path, help="portfolio file: .csv, .parquet or .xlsx")
+    portfolio_args(parser)
     parser.add_argument(
         "--ledger",
         type=Path,
         metavar="PATH",
         help="decision ledger (default: the review folder's ledger, see docs/ledger.md)",
-    )
-    parser.add_argument(
-        "--columns",
-        metavar="MAP",
-        help="map our column names to the file's headers, e.g. demand=qty_shipped,item=sku",
-    )
-    parser.add_argument("--sheet", help="xlsx sheet to read (default: the first visible sheet)")
-    parser.add_argument(
-        "--lag", type=int, help="forecast lag to score, when the file holds several"
     )
 
 
@@ -169,15 +162,13 @@ def parse_repeat(value: str) -> tuple[int, int]:
 
 
 def _load(args: argparse.Namespace) -> Portfolio:
-    from triage.core.load import parse_column_map
     from triage.core.portfolio import read_portfolio
 
     if not args.portfolio.exists():
         raise TriageError(
             f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file."
         )
-    columns = parse_column_map(args.columns) if args.columns else None
-    return read_portfolio(args.portfolio, columns=columns, sheet=args.sheet, lag=args.lag)
+    return read_portfolio(args.portfolio, **read_args(args))
 
 
 def _ledger_path(args: argparse.Namespace, config: Config, *, required: bool) -> Path | None:

@@ -127,6 +127,8 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
 
 #: Files that load but cannot be scored: `check` still prints its report, then says "not ok".
 REPORT_FIRST = {"no forecast in the window"}
+#: Files `check` reports on (issue 9 §6: the lags and the --lag choice), which `rank` refuses.
+CHECK_REPORTS = {"several lags without --lag"}
 
 
 @pytest.mark.parametrize("name", sorted(CASES))
@@ -136,6 +138,10 @@ def test_bad_input_exits_2_with_a_message(tmp_path: Path, name: str, command: st
     path = tmp_path / "portfolio.csv"
     path.write_bytes(content)
     result = run(command, str(path))
+    if command == "check" and name in CHECK_REPORTS:
+        assert result.returncode == 0, (name, result.stdout, result.stderr)
+        assert all(needle in result.stdout for needle in needles), (name, result.stdout)
+        return
     assert result.returncode == 2, (name, result.stdout, result.stderr)
     if command == "check" and name in REPORT_FIRST:
         assert result.stdout.rstrip().splitlines()[-1].startswith("not ok:")

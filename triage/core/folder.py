@@ -15,9 +15,13 @@ from __future__ import annotations
 import re
 from dataclasses import dataclass
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from triage.core.errors import TriageError
 from triage.core.load import SUFFIXES
+
+if TYPE_CHECKING:
+    from triage.core.dialect import FileOptions
 
 
 @dataclass(frozen=True)
@@ -72,6 +76,7 @@ def newest_portfolio(
     columns: dict[str, str] | None = None,
     sheet: str | None = None,
     lag: int | None = None,
+    options: FileOptions | None = None,
 ) -> NewestPortfolio:
     """The portfolio file of ``folder`` with the latest review cycle.
 
@@ -96,7 +101,9 @@ def newest_portfolio(
     skipped: list[str] = []
     for path in files:
         try:
-            cycles[path] = read_portfolio(path, columns=columns, sheet=sheet, lag=lag).cycle
+            cycles[path] = read_portfolio(
+                path, columns=columns, sheet=sheet, lag=lag, options=options
+            ).cycle
         except TriageError as exc:
             skipped.append(f"{path.name} ({_first_line(str(exc))})")
     if not cycles:

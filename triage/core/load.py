@@ -20,11 +20,13 @@ Types of the canonical frame:
 * ``lag`` (optional): ``int64``, whole numbers from 0 up, never missing.
 * every other column: a text attribute, ``category`` with ``str`` categories, missing as ``""``.
 
-Control characters are replaced at load, in every text cell and header, so that no byte from the
-file can drive the terminal (reliability.md §3.2): C0 ``\\x00``-``\\x1f`` become the Unicode
-control pictures ``␀``-``␟`` (tab ``␉``, line feed ``␊``, escape ``␛``), DEL becomes ``␡`` and
-the C1 range ``\\x80``-``\\x9f`` becomes ``�``. Ids are one-line, so tabs and line breaks are
-replaced too.
+Ids and attribute cells keep their control characters (C0 ``\\x00``-``\\x1f``, DEL, C1
+``\\x80``-``\\x9f``) exactly as written, with a notice counting the cells: machine-readable
+output (CSV, JSON, exports, the ledger) must join back with the file byte for byte. Whatever
+shows them in a terminal replaces them (``triage.core.text.visible``).
+Headers are names, not data: their control characters are replaced at load by the Unicode
+control pictures ``␀``-``␟`` (tab ``␉``, line feed ``␊``, escape ``␛``), ``␡`` for DEL and
+``�`` for C1, as are cells quoted in messages.
 
 File row numbers in messages count the header as row 1, as a spreadsheet does. In a CSV file a
 row is a record: it is the line number unless a quoted cell holds a line break.
@@ -65,6 +67,13 @@ import numpy as np
 import pandas as pd
 
 from triage.core import schema
+from triage.core.dialect import (
+    SEPARATORS,
+    FileOptions,
+    date_format_advice,
+    date_formats,
+    looks_like_decimal_comma,
+)
 from triage.core.errors import LoadError, TriageError, format_rows
 from triage.core.ledger import TEXT_MAX
 
@@ -75,6 +84,8 @@ __all__ = [
     "StreamSource",
     "load_frame",
     "parse_column_map",
+    "parse_periods",
+    "scan_csv",
     "scan_parquet",
 ]
 
@@ -237,7 +248,11 @@ def parse_column_map(text: str) -> dict[str, str]:
 
 
 def load_frame(
-    path: str | Path, *, columns: dict[str, str] | None = None, sheet: str | None = None
+    path: str | Path,
+    *,
+    columns: dict[str, str] | None = None,
+    sheet: str | None = None,
+    options: FileOptions | None = None,
 ) -> LoadedFrame:
     """Read and validate a portfolio file.
 
@@ -247,6 +262,8 @@ def load_frame(
         columns: Canonical name -> file header, applied before headers are matched by name
             (see :func:`parse_column_map`).
         sheet: The xlsx sheet to read; default the first visible one.
+        options: How the cells are written, when not triage's default (separator, decimal mark,
+            date format, header row; see :class:`~triage.core.dialect.FileOptions`).
 
     Returns:
         The canonical frame with its file row numbers and notices.
@@ -262,23 +279,53 @@ def load_frame(
             f"--sheet {sheet!r} was given, but this is a {kind} file, which has no sheets.",
             "Leave out --sheet, or point to the .xlsx file.",
         )
+    dialect = _checked_options(file, kind, options)
     mapping = _checked_mapping(file, columns)
     notices: list[str] = []
     sheet_used: str | None = None
     try:
         if kind == "csv":
-            raw = _read_csv(file, mapping, notices)
+            raw = _read_csv(file, mapping, notices, dialect)
         elif kind == "parquet":
             raw = _read_parquet(file, mapping, notices)
         else:
-            raw, sheet_used = _read_xlsx(file, mapping, sheet, notices)
+            raw, sheet_used = _read_xlsx(file, mapping, sheet, notices, dialect)
     except OSError as exc:
         _fail(
             file,
             f"the file cannot be read ({exc.strerror or exc}).",
             "Check that you may read the file and that no other program has it locked.",
         )
-    return _build(file, raw, notices, sheet_used)
+    return _build(file, raw, notices, sheet_used, dialect)
+
+
+def _checked_options(path: Path, kind: str, options: FileOptions | None) -> FileOptions:
+    """The options, refused where they do not apply to this kind of file (never ignored)."""
+    if options is None:
+        return FileOptions()
+    if kind == "csv" and options.sep == options.decimal:
+        _fail(
+            path,
+            f"--decimal {options.decimal} was given for a file whose fields are separated by "
+            f"'{options.sep}' too: 1{options.sep}5 would be two fields.",
+            "Files with decimal commas separate their fields with semicolons: add --sep ';' "
+            "(or tab, '|') as the file does.",
+        )
+    if options.sep != "," and kind != "csv":
+        _fail(
+            path,
+            f"--sep was given, but this is a {kind} file, whose cells are not separated by a "
+            "character.",
+            "Leave out --sep; it is for CSV files.",
+        )
+    if options.header_row is not None and kind == "parquet":
+        _fail(
+            path,
+            "--header-row was given, but a Parquet file has no header row: its column names "
+            "are stored apart from the data.",
+            "Leave out --header-row; it is for CSV and xlsx files.",
+        )
+    return options
 
 
 # --- shared plumbing -----------------------------------------------------------------------------
@@ -536,19 +583,35 @@ def _plan_columns(
 
 @dataclass
 class _CsvScan:
-    """Byte counts from one pass over a CSV file."""
+    """Byte counts from one pass over a CSV file (from the header line on)."""
 
     size: int
     commas: int
+    """Separator bytes (commas, or the ``--sep`` character)."""
     has_quotes: bool
     newline: int
     head: bytes
     lines: int = 0
     """Records if no quoted cell holds a line break: line ends, plus a last unended line."""
+    sep: str = ","
+    start: int = 0
+    """Byte offset of the header line (``--header-row``): the lines above it are skipped."""
+    skipped: int = 0
+    """Lines above the header; a line or record number in a message adds them."""
 
 
-def _prescan_csv(path: Path) -> _CsvScan:
-    """Check the encoding and count delimiters in one streaming pass (C-speed bytes methods)."""
+def _prescan_csv(path: Path, options: FileOptions | None = None) -> _CsvScan:
+    """Check the encoding and count delimiters in one streaming pass (C-speed bytes methods).
+
+    The whole file is checked for its encoding; separators, line ends and quotes are counted
+    from the header line on (``--header-row``).
+    """
+    options = options or FileOptions()
+    sep = options.sep.encode()
+    start = skipped = 0
+    if options.header_row is not None and options.header_row > 1:
+        skipped = options.header_row - 1
+        start = _line_start(path, options.header_row)
     decoder = codecs.getincrementaldecoder("utf-8")("strict")
     commas = line_feeds = returns = 0
     last = b""
@@ -557,8 +620,6 @@ def _prescan_csv(path: Path) -> _CsvScan:
     head = b""
     with path.open("rb") as handle:
         while chunk := handle.read(_CHUNK):
-            if len(head) < _HEADER_BYTES:
-                head += chunk[: _HEADER_BYTES - len(head)]
             if not size:
                 _refuse_binary(path, chunk)
             if not size and chunk.startswith((codecs.BOM_UTF16_LE, codecs.BOM_UTF16_BE)):
@@ -573,19 +634,64 @@ def _prescan_csv(path: Path) -> _CsvScan:
                     decoder.decode(chunk)
                 except UnicodeDecodeError:
                     _not_utf8(path)
-            commas += chunk.count(b",")
-            line_feeds += chunk.count(b"\n")
-            returns += chunk.count(b"\r")
-            last = chunk[-1:]
-            has_quotes = has_quotes or b'"' in chunk
+            counted = chunk if size >= start else chunk[start - size :]
             size += len(chunk)
+            if not counted:
+                continue
+            if len(head) < _HEADER_BYTES:
+                head += counted[: _HEADER_BYTES - len(head)]
+            commas += counted.count(sep)
+            line_feeds += counted.count(b"\n")
+            returns += counted.count(b"\r")
+            last = counted[-1:]
+            has_quotes = has_quotes or b'"' in counted
     try:
         decoder.decode(b"", final=True)
     except UnicodeDecodeError:
         _not_utf8(path)
     newline = 13 if returns and not line_feeds else 10
     lines = (returns if newline == 13 else line_feeds) + (last not in (b"", b"\n", b"\r"))
-    return _CsvScan(size, commas, has_quotes, newline, head, lines)
+    return _CsvScan(size, commas, has_quotes, newline, head, lines, options.sep, start, skipped)
+
+
+def _line_start(path: Path, line: int) -> int:
+    """Byte offset where line ``line`` (counted from 1) begins; refused past the last line.
+
+    Lines end with LF or CRLF, or with CR alone in a file without any LF (old Mac exports).
+    """
+    lines = 0
+    for newline in (b"\n", b"\r"):
+        seen = 0
+        last = b""
+        with path.open("rb") as handle:
+            offset = 0
+            while chunk := handle.read(_CHUNK):
+                count = chunk.count(newline)
+                if seen + count >= line - 1:
+                    at = -1
+                    for _ in range(line - 1 - seen):
+                        at = chunk.index(newline, at + 1)
+                    return offset + at + 1
+                seen += count
+                offset += len(chunk)
+                last = chunk[-1:]
+        # Lines: line ends, plus a last line without one.
+        lines = seen + (last not in (b"", newline))
+        if seen:
+            break
+    _fail(
+        path,
+        f"--header-row {line} was given, but the file has only {_plural(lines, 'line')}.",
+        "Give the line number of the header as a text editor shows it, or leave out "
+        "--header-row when the header is on the first line.",
+    )
+
+
+def _open_at(path: Path, scan: _CsvScan) -> Any:
+    """The file as UTF-8 text from the header line on (for the csv module)."""
+    handle = path.open("rb")
+    handle.seek(scan.start)
+    return io.TextIOWrapper(handle, encoding="utf-8-sig", newline="")
 
 
 #: File signatures of formats that are not CSV text: (leading bytes, what it is, what to do).
@@ -636,9 +742,21 @@ def _not_utf8(path: Path) -> NoReturn:
     )
 
 
-def _csv_header(path: Path, scan: _CsvScan) -> list[str]:
+def _csv_header(
+    path: Path,
+    scan: _CsvScan,
+    options: FileOptions | None = None,
+    mapping: dict[str, str] | None = None,
+) -> list[str]:
     head = scan.head[3:] if scan.head.startswith(codecs.BOM_UTF8) else scan.head
     if not head.strip():
+        if scan.skipped:
+            _fail(
+                path,
+                f"--header-row {scan.skipped + 1} was given, but nothing follows line "
+                f"{scan.skipped}.",
+                "Give the line number of the header as a text editor shows it.",
+            )
         _fail(
             path,
             "the file is empty.",
@@ -651,41 +769,209 @@ def _csv_header(path: Path, scan: _CsvScan) -> list[str]:
     limit = csv.field_size_limit()
     csv.field_size_limit(max(limit, len(text) + 1))
     try:
-        return _parse_csv_header(path, text)
+        return _parse_csv_header(
+            path, text, options or FileOptions(), mapping or {}, scan.skipped, len(head)
+        )
     finally:
         csv.field_size_limit(limit)
 
 
-def _parse_csv_header(path: Path, text: str) -> list[str]:
-    reader = csv.reader(io.StringIO(text, newline=""))
+#: Rows (lines, records) searched for the header below a title block.
+_TITLE_ROWS = 50
+
+
+def _parse_csv_header(
+    path: Path,
+    text: str,
+    options: FileOptions,
+    mapping: dict[str, str],
+    skipped: int,
+    sample_bytes: int,
+) -> list[str]:
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=options.sep)
     header = next(reader, [])
+    first = skipped + 1
     if not header:
+        if skipped:
+            _fail(
+                path,
+                f"line {first} is empty, but --header-row {first} says the header is there.",
+                "Give the line number of the header as a text editor shows it.",
+            )
         _fail(
             path,
             "the first line is empty; the header must be on line 1.",
-            "Delete the empty lines above the header.",
+            "Delete the empty lines above the header, or give its line with --header-row N.",
         )
-    if len(header) == 1 and (";" in header[0] or "\t" in header[0]):
-        sep, name = (";", "semicolon") if ";" in header[0] else ("\t", "tab")
-        body = text[len(header[0]) :]
-        decimal = re.search(r"\d,\d", body) if sep == ";" else None
-        detail = f" with decimal commas (e.g. '{decimal.group(0)}')" if decimal else ""
-        _fail(
-            path,
-            f"only 1 column was found and its header '{_sanitize_str(header[0][:80])}' "
-            f"contains '{_sanitize_str(sep)}': this looks like a {name}-separated "
-            f"file{detail}. triage reads comma-separated CSV with '.' as decimal point.",
-            "Save it from Excel as 'CSV UTF-8 (Comma delimited)' with '.' as the decimal "
-            "separator (Windows region settings), or save it as .xlsx and load that.",
-        )
+    if not _has_required(header, mapping):
+        # Whole records of the sample only: the last one may be cut off at its end.
+        cut = sample_bytes >= _HEADER_BYTES
+        _find_header(path, text, options, mapping, skipped, cut)
+        if len(header) == 1:
+            other = next((c for c in SEPARATORS if c != options.sep and c in header[0]), None)
+            if other is not None:
+                _wrong_separator(path, text, other, 0, options, mapping, skipped, cut)
     # Checked before the columns are matched: a missing header name would otherwise show up as
     # a missing required column. The last record of the sample may be cut off, so it is left out.
     sample = [len(row) for row in itertools.islice(reader, 6)][:5]
     if sample and sample[0] > len(header):
         short = len(set(sample)) == 1
-        bad = [(line, k) for line, k in enumerate(sample, start=2) if k != len(header)]
-        _raise_ragged(path, bad, len(header), header_short=short)
+        bad = [(line, k) for line, k in enumerate(sample, start=first + 1) if k != len(header)]
+        _raise_ragged(path, bad, len(header), header_short=short, first_line=first)
     return header
+
+
+def _records(text: str, sep: str, limit: int, cut: bool) -> list[tuple[int, list[str]]]:
+    """The first ``limit`` records of the sample, each with the line it starts on (from 0)."""
+    reader = csv.reader(io.StringIO(text, newline=""), delimiter=sep)
+    out = []
+    line = 0
+    try:
+        for row in itertools.islice(reader, limit + cut):
+            out.append((line, row))
+            line = reader.line_num
+    except csv.Error:
+        pass
+    return out[:-1] if cut and len(out) > limit else out
+
+
+def _find_header(
+    path: Path,
+    text: str,
+    options: FileOptions,
+    mapping: dict[str, str],
+    skipped: int,
+    cut: bool,
+) -> None:
+    """When the first line is not the header: refuse, naming the options that read the file.
+
+    The header is looked for in the first lines: below a title block (``--header-row``), or
+    split by another separator (``--sep``, with the decimal mark and date format its cells
+    show). Nothing is read that way: the user runs the command again with the options.
+    """
+    rows = _records(text, options.sep, _TITLE_ROWS, cut)
+    found = next((line for line, row in rows[1:] if _has_required(row, mapping)), None)
+    if found is not None:
+        title = [c for c in rows[0][1] if c.strip()]
+        _title_block(
+            path,
+            f"line {skipped + 1}",
+            title,
+            f"line {skipped + 1 + found}",
+            FileOptions(options.sep, options.decimal, options.date_format, skipped + 1 + found),
+            mapping,
+        )
+    for sep in SEPARATORS:
+        if sep == options.sep:
+            continue
+        rows = _records(text, sep, _TITLE_ROWS, cut)
+        found = next((line for line, row in rows if _has_required(row, mapping)), None)
+        if found is not None:
+            _wrong_separator(path, text, sep, found, options, mapping, skipped, cut)
+
+
+def _has_required(cells: Sequence[Any], mapping: dict[str, str]) -> bool:
+    """Whether a row names every required column (as ``--columns`` maps them)."""
+    names = {_header_text(c).strip().lower() for c in cells}
+    return all(mapping.get(name, name).lower() in names for name in schema.REQUIRED)
+
+
+def _title_block(
+    path: Path,
+    where: str,
+    cells: list[Any],
+    header_at: str,
+    options: FileOptions,
+    mapping: dict[str, str],
+) -> NoReturn:
+    """Refuse rows above the header (a title block), naming the option that skips them."""
+    shown = ", ".join(f"'{_sanitize_str(_header_text(c))[:80]}'" for c in cells[:3])
+    names = ", ".join(_sanitize_str(mapping.get(n, n)) for n in schema.REQUIRED)
+    _fail(
+        path,
+        f"{where} holds {shown or 'nothing'}, which looks like a title, not the header: the "
+        f"header ({names}) is on {header_at}.",
+        f"Read the file with {options.command_line()} (the rows above it are skipped), or "
+        "delete the title rows (and unmerge the title cells), save and load it again.",
+    )
+
+
+def _wrong_separator(
+    path: Path,
+    text: str,
+    sep: str,
+    at: int,
+    options: FileOptions,
+    mapping: dict[str, str],
+    skipped: int,
+    cut: bool,
+) -> NoReturn:
+    """Fields split by another separator: refuse, naming the options that read the file.
+
+    Args:
+        path: The file.
+        text: The sample, from the header line given (or the first line) on.
+        sep: The separator the header is split by.
+        at: The sample's line (from 0) that holds the header.
+        options: The options given.
+        mapping: ``--columns``.
+        skipped: Lines above the sample.
+        cut: Whether the sample's last record may be cut off.
+
+    The options are worked out from the first records (the header, number and period cells)
+    and printed, never applied: the user runs the command again with them.
+    """
+    records = _records(text, sep, 200 + at, cut)
+    header_index = next(i for i, (line, _) in enumerate(records) if line == at)
+    rows = [row for _, row in records[header_index:]]
+    names = [_header_text(c).strip().lower() for c in rows[0]]
+
+    def cells(name: str) -> list[str]:
+        wanted = mapping.get(name, name).lower()
+        if wanted not in names:
+            return []
+        column = names.index(wanted)
+        return [row[column] for row in rows[1:] if column < len(row)]
+
+    decimal = options.decimal
+    numbers = [v for name in schema.NUMERIC for v in cells(name)]
+    if decimal == "." and sep != "," and looks_like_decimal_comma(numbers):
+        decimal = ","
+    periods = [v for v in cells(schema.PERIOD) if v.strip()]
+    date_format = options.date_format
+    advice = ""
+    if date_format is None and periods and not all(_ISO_DATE.match(v.strip()) for v in periods):
+        fits = date_formats(periods)
+        if fits:
+            date_format = fits[0]
+        if len(fits) > 1:
+            advice = " " + date_format_advice(periods)
+    header_row = skipped + 1 + at if at else options.header_row
+    suggested = FileOptions(sep, decimal, date_format, header_row)
+    details = []
+    if decimal == "," and options.decimal != ",":
+        example = next(v.strip() for v in numbers if "," in v)
+        details.append(f"decimal commas (e.g. '{_sanitize_str(example)}')")
+    if date_format is not None and options.date_format is None:
+        details.append(f"dates such as '{_sanitize_str(periods[0].strip())}'")
+    detail = f" with {' and '.join(details)}" if details else ""
+    where = f" below a title block (line {header_row})" if at else ""
+    command = suggested.command_line()
+    if sep == "," and command:
+        todo = f"Leave out --sep '{_sanitize_str(options.sep)}' and read it with {command}."
+    elif sep == ",":
+        todo = f"Leave out --sep '{_sanitize_str(options.sep)}'."
+    else:
+        todo = f"Read it with {command}."
+    shown = _sanitize_str(text[: text.find("\n")] if "\n" in text else text)[:80]
+    _fail(
+        path,
+        f"the header is not split by '{_sanitize_str(options.sep)}' (line {skipped + 1} reads "
+        f"'{shown}'): this looks like a {SEPARATORS[sep]}-separated file{detail}{where}."
+        f"{advice}",
+        f"{todo} (Or save it from the spreadsheet as 'CSV UTF-8 (Comma delimited)' with '.' as "
+        "the decimal mark, or as .xlsx.)",
+    )
 
 
 def _csv_dtypes(plan: _Plan) -> tuple[dict[str, Any], dict[str, list[str]]]:
@@ -705,9 +991,11 @@ def _csv_dtypes(plan: _Plan) -> tuple[dict[str, Any], dict[str, list[str]]]:
     return dtypes, na_values
 
 
-def _read_csv(path: Path, mapping: dict[str, str], notices: list[str]) -> _Raw:
-    scan = _prescan_csv(path)
-    header = _csv_header(path, scan)
+def _read_csv(
+    path: Path, mapping: dict[str, str], notices: list[str], options: FileOptions
+) -> _Raw:
+    scan = _prescan_csv(path, options)
+    header = _csv_header(path, scan, options, mapping)
     _check_memory(path, max(scan.lines - 1, 0), "csv")
     plan = _plan_columns(path, header, mapping, notices)
     width = len(header)
@@ -715,12 +1003,18 @@ def _read_csv(path: Path, mapping: dict[str, str], notices: list[str]) -> _Raw:
     dtypes, na_values = _csv_dtypes(plan)
 
     def read(dtype: dict[str, Any], na: dict[str, list[str]]) -> pd.DataFrame:
-        with warnings.catch_warnings(record=True) as caught:
+        with contextlib.ExitStack() as stack:
+            source: Any = path
+            if scan.start:
+                source = stack.enter_context(path.open("rb"))
+                source.seek(scan.start)
+            caught = stack.enter_context(warnings.catch_warnings(record=True))
             warnings.simplefilter("always", pd.errors.ParserWarning)
             try:
                 frame = pd.read_csv(
-                    path,
-                    sep=",",
+                    source,
+                    sep=scan.sep,
+                    decimal=options.decimal,
                     header=0,
                     names=names,
                     index_col=False,
@@ -758,7 +1052,7 @@ def _read_csv(path: Path, mapping: dict[str, str], notices: list[str]) -> _Raw:
     if scan.has_quotes or scan.commas != expected:
         _check_field_counts(path, scan, width, len(frame) + 1)
     data = {position: frame[f"c{position}"] for position in range(width)}
-    return _Raw(plan, data, first_row=2)
+    return _Raw(plan, data, first_row=scan.skipped + 2)
 
 
 def _ragged(path: Path, scan: _CsvScan, width: int, parser_message: str) -> NoReturn:
@@ -770,11 +1064,15 @@ def _ragged(path: Path, scan: _CsvScan, width: int, parser_message: str) -> NoRe
     if not bad:
         match = re.search(r"Expected (\d+) fields in line (\d+), saw (\d+)", parser_message)
         if match:
-            bad = [(int(match.group(2)), int(match.group(3)))]
+            bad = [(int(match.group(2)) + scan.skipped, int(match.group(3)))]
         elif "EOF inside string" in parser_message:
             start = re.search(r"row (\d+)", parser_message)
             # pandas counts records from 0 at the header; file rows count it as 1.
-            where = f" (the cell starts in row {int(start.group(1)) + 1})" if start else ""
+            where = (
+                f" (the cell starts in row {int(start.group(1)) + 1 + scan.skipped})"
+                if start
+                else ""
+            )
             _fail(
                 path,
                 f"a quoted cell is never closed{where}: a '\"' is missing.",
@@ -790,15 +1088,22 @@ def _ragged(path: Path, scan: _CsvScan, width: int, parser_message: str) -> NoRe
 
 
 def _raise_ragged(
-    path: Path, bad: list[tuple[int, int]], width: int, *, header_short: bool = False
+    path: Path,
+    bad: list[tuple[int, int]],
+    width: int,
+    *,
+    header_short: bool = False,
+    first_line: int = 1,
 ) -> NoReturn:
     line, fields = bad[0]
     if header_short:
         _fail(
             path,
-            f"line 2 has {fields} fields, expected {width}: the header has fewer names "
-            "than the data rows have cells, so a column name is probably missing.",
-            "Give every column a name in the header (line 1), or remove the extra cells.",
+            f"line {first_line + 1} has {fields} fields, expected {width}: the header has fewer "
+            "names than the data rows have cells, so a column name is probably missing.",
+            f"Give every column a name in the header (line {first_line}), or remove the extra "
+            f"cells; if line {first_line} is a title above the header, read the file with "
+            "--header-row N (N: the line of the header).",
         )
     listed = "; ".join(f"line {n} has {k}" for n, k in bad[1 : _SHOWN + 1])
     more = f" and {len(bad) - _SHOWN - 1} more lines" if len(bad) > _SHOWN + 1 else ""
@@ -807,8 +1112,8 @@ def _raise_ragged(
         path,
         f"line {line} has {_plural(fields, 'field')}, expected {width} (one per header "
         f"column).{others}",
-        "Put cells that contain commas in double quotes, and give every line one cell per "
-        "header column (empty cells are fine: write nothing between the commas).",
+        "Put cells that contain the separator in double quotes, and give every line one cell "
+        "per header column (empty cells are fine: write nothing between the separators).",
     )
 
 
@@ -832,9 +1137,9 @@ def _refuse_open_quote(path: Path, scan: _CsvScan) -> None:
     pandas and the csv module (non-strict) read such a cell as one long last field and report a
     short line; the strict csv reader stops at the end of the data inside the quotes.
     """
-    with path.open(encoding="utf-8-sig", newline="") as handle:
+    with _open_at(path, scan) as handle:
         source = handle if scan.newline == 10 else io.StringIO(handle.read().replace("\r", "\n"))
-        reader = csv.reader(source, strict=True)
+        reader = csv.reader(source, strict=True, delimiter=scan.sep)
         limit = csv.field_size_limit()
         csv.field_size_limit(max(limit, scan.size + 1))
         started = 1
@@ -850,8 +1155,8 @@ def _refuse_open_quote(path: Path, scan: _CsvScan) -> None:
             csv.field_size_limit(limit)
     _fail(
         path,
-        f"a quoted cell is never closed (the cell starts in row {started}): a '\"' is missing, "
-        "so everything after it, to the end of the file, would be one cell.",
+        f"a quoted cell is never closed (the cell starts in row {started + scan.skipped}): a "
+        "'\"' is missing, so everything after it, to the end of the file, would be one cell.",
         "Close the quote, or remove the stray '\"' character.",
     )
 
@@ -859,10 +1164,11 @@ def _refuse_open_quote(path: Path, scan: _CsvScan) -> None:
 def _numpy_counts(
     path: Path, scan: _CsvScan, width: int
 ) -> tuple[list[tuple[int, int]], int, bool]:
-    """Fields per record from byte positions of commas, line ends and quotes, chunk by chunk.
+    """Fields per record from byte positions of separators, line ends and quotes, by chunk.
 
-    Returns the records (numbered from 1 at the header) whose field count is not ``width``, up to
-    100 per chunk, the number of records, and whether the quotes balance. Empty lines are skipped.
+    Returns the records (numbered from 1 at the file's first line) whose field count is not
+    ``width``, up to 100 per chunk, the number of records from the header on, and whether the
+    quotes balance. Empty lines are skipped.
     """
     bad: list[tuple[int, int]] = []
     records = 0
@@ -872,11 +1178,13 @@ def _numpy_counts(
     last_byte = 0
     offset = 0
     newline = scan.newline
+    separator = ord(scan.sep)
     with path.open("rb") as handle:
+        handle.seek(scan.start)
         while chunk := handle.read(_CHUNK):
             array = np.frombuffer(chunk, dtype=np.uint8)
             is_end = array == newline
-            is_comma = array == 44
+            is_comma = array == separator
             if scan.has_quotes:
                 # Inside quotes after an odd number of quote bytes: a running XOR of the quote
                 # bytes is that parity at every byte, in one pass (a position lookup per comma
@@ -899,7 +1207,7 @@ def _numpy_counts(
                 previous = np.where(ends > 0, array[np.maximum(ends - 1, 0)], last_byte)
                 blank = (length == 0) | ((length == 1) & (previous == 13))
                 wrong = np.flatnonzero((fields != width) & ~blank)
-                bad += [(records + int(i) + 1, int(fields[i])) for i in wrong[:100]]
+                bad += [(records + int(i) + 1 + scan.skipped, int(fields[i])) for i in wrong[:100]]
                 records += ends.size
                 last_newline = int(ends[-1]) + offset
             else:
@@ -910,7 +1218,7 @@ def _numpy_counts(
     if tail > 1 or (tail == 1 and last_byte != 13):
         records += 1
         if carry + 1 != width:
-            bad.append((records, carry + 1))
+            bad.append((records + scan.skipped, carry + 1))
     return bad, records, parity == 0
 
 
@@ -918,17 +1226,17 @@ def _csv_module_counts(path: Path, scan: _CsvScan, width: int) -> list[tuple[int
     limit = csv.field_size_limit()
     csv.field_size_limit(max(limit, scan.size + 1))
     try:
-        with path.open(encoding="utf-8-sig", newline="") as handle:
+        with _open_at(path, scan) as handle:
             source = (
                 handle if scan.newline == 10 else io.StringIO(handle.read().replace("\r", "\n"))
             )
-            counts = np.fromiter(map(len, csv.reader(source)), dtype=np.int64)
+            counts = np.fromiter(map(len, csv.reader(source, delimiter=scan.sep)), dtype=np.int64)
     except csv.Error:
         return None
     finally:
         csv.field_size_limit(limit)
     wrong = np.flatnonzero((counts != width) & (counts != 0))
-    return [(int(i) + 1, int(counts[i])) for i in wrong[:100]]
+    return [(int(i) + 1 + scan.skipped, int(counts[i])) for i in wrong[:100]]
 
 
 # --- Parquet -------------------------------------------------------------------------------------
@@ -1209,7 +1517,11 @@ class StreamSource:
     """File columns of plain text, read dictionary-encoded."""
     tables: list[Any] | None = None
     """The blocks, already in memory (CSV), one ``pyarrow.Table`` each."""
+    date_format: str | None = None
+    """``--date-format``: periods arrive as text and are parsed per distinct text."""
     _dictionaries: dict[str, _Dictionary] = field(default_factory=dict)
+    _period_days: dict[str, int] = field(default_factory=dict)
+    """Day number of each distinct period text parsed so far (with ``date_format``)."""
 
     def values(self, name: str) -> list[str]:
         """The distinct values of text column ``name`` read so far, in code order."""
@@ -1330,7 +1642,9 @@ class StreamSource:
         if chunk.null_count and name in (schema.PERIOD, schema.LAG):
             raise FastPathDeclined(f"missing {name}")
         if name == schema.PERIOD:
-            if pa.types.is_date32(kind):
+            if pa.types.is_dictionary(kind):
+                days = _text_days(self, chunk)
+            elif pa.types.is_date32(kind):
                 days = chunk.view(pa.int32()).to_numpy()
             else:
                 per_day = _UNITS_PER_DAY["ms" if pa.types.is_date64(kind) else kind.unit]
@@ -1357,8 +1671,34 @@ class StreamSource:
         return numbers
 
 
-def scan_parquet(path: str | Path, *, columns: dict[str, str] | None = None) -> StreamSource:
+def _text_days(source: StreamSource, chunk: Any) -> np.ndarray:
+    """Day numbers (since 1970-01-01) of a block of period texts, parsed once per distinct text
+    by :func:`parse_periods` with the source's date format; anything else declines."""
+    local = chunk.dictionary.to_pylist()
+    fresh = [v for v in dict.fromkeys(local) if v not in source._period_days]
+    if fresh:
+        parsed = parse_periods(pd.Series(fresh, dtype=str), source.date_format)
+        stamps = parsed.to_numpy()
+        if np.isnat(stamps).any():
+            raise FastPathDeclined("period not in the date format")
+        days = stamps.astype("datetime64[D]").astype(np.int64)
+        if days.min() < _FIRST_DAY or days.max() > _LAST_DAY:
+            raise FastPathDeclined("year range")
+        source._period_days.update(zip(fresh, days.tolist(), strict=True))
+    lut = np.fromiter((source._period_days[v] for v in local), dtype=np.int32, count=len(local))
+    return np.take(lut, chunk.indices.to_numpy(zero_copy_only=False))
+
+
+def scan_parquet(
+    path: str | Path,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> StreamSource:
     """Open a Parquet portfolio for the streamed reader (reads the footer and schema only).
+
+    ``options`` matter for text cells only (a decimal mark, a date format), and columns of
+    text where numbers or dates belong decline this path: the full loader reads them.
 
     Raises:
         LoadError: The errors :func:`load_frame` raises before it reads any cell (file type,
@@ -1369,7 +1709,9 @@ def scan_parquet(path: str | Path, *, columns: dict[str, str] | None = None) -> 
     import pyarrow.parquet as pq
 
     file_path = Path(path)
-    if _file_kind(file_path) != "parquet":
+    kind = _file_kind(file_path)
+    _checked_options(file_path, kind, options)
+    if kind != "parquet":
         raise FastPathDeclined("not parquet")
     mapping = _checked_mapping(file_path, columns)
     try:
@@ -1437,8 +1779,17 @@ def _streamable(role: str | None, kind: Any) -> bool:
     return pa.types.is_floating(kind) or pa.types.is_integer(kind)
 
 
-def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> StreamSource:
+def scan_csv(
+    path: str | Path,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> StreamSource:
     """Parse a CSV portfolio with Arrow's multi-threaded reader, for the streamed build.
+
+    ``options`` (separator, decimal mark, header row) are Arrow's own parse options; with a
+    date format the periods are read as text and each distinct text is parsed by the full
+    loader's :func:`parse_periods`, so both ways read the same dates.
 
     The checks that come before any cell is read (encoding, separator, header, ``--columns``)
     are the full loader's own, with its messages. Then the used columns are parsed with fixed
@@ -1457,11 +1808,13 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
     import pyarrow.csv as pa_csv
 
     file_path = Path(path)
-    if _file_kind(file_path) != "csv":
+    kind = _file_kind(file_path)
+    dialect = _checked_options(file_path, kind, options)
+    if kind != "csv":
         raise FastPathDeclined("not csv")
     mapping = _checked_mapping(file_path, columns)
-    scan = _prescan_csv(file_path)
-    header = _csv_header(file_path, scan)
+    scan = _prescan_csv(file_path, dialect)
+    header = _csv_header(file_path, scan, dialect, mapping)
     _check_memory(file_path, max(scan.lines - 1, 0), "csv-streamed")
     notices: list[str] = []
     plan = _plan_columns(file_path, header, mapping, notices)
@@ -1469,7 +1822,10 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
         raise FastPathDeclined("unnamed column")
     positions = [f"c{i}" for i in range(len(header))]
     text = pa.dictionary(pa.int32(), pa.string())
-    kinds = {schema.PERIOD: pa.date32(), schema.LAG: pa.int64()}
+    kinds = {
+        schema.PERIOD: pa.date32() if dialect.date_format is None else text,
+        schema.LAG: pa.int64(),
+    }
     names: dict[str, str] = {}
     types: dict[str, Any] = {}
     for position, role in enumerate(plan.roles):
@@ -1486,13 +1842,18 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
 
     def parse(newlines_in_values: bool) -> Any:
         try:
+            source: Any = file_path
+            if scan.start:
+                # From the header line on (--header-row): the lines above it are not CSV.
+                source = pa.OSFile(str(file_path))
+                source.seek(scan.start)
             return pa_csv.read_csv(
-                file_path,
+                source,
                 read_options=pa_csv.ReadOptions(
                     skip_rows=1, column_names=positions, block_size=_CSV_BLOCK_BYTES
                 ),
                 parse_options=pa_csv.ParseOptions(
-                    delimiter=",",
+                    delimiter=scan.sep,
                     quote_char='"',
                     double_quote=True,
                     newlines_in_values=newlines_in_values,
@@ -1504,6 +1865,7 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
                     null_values=list(schema.NUMERIC_MISSING),
                     strings_can_be_null=False,
                     quoted_strings_can_be_null=True,  # pandas reads "" and "NA" as it reads NA
+                    decimal_point=dialect.decimal,
                 ),
             )
         except (pa.ArrowException, OSError) as exc:
@@ -1536,6 +1898,7 @@ def scan_csv(path: str | Path, *, columns: dict[str, str] | None = None) -> Stre
         notices=tuple(notices),
         n_rows=table.num_rows,
         tables=[pa.Table.from_batches([batch]) for batch in table.to_batches()],
+        date_format=dialect.date_format,
     )
 
 
@@ -1612,8 +1975,13 @@ _PICTURE_SUFFIXES = (".bin", ".png", ".jpg", ".jpeg", ".gif", ".bmp", ".tif", ".
 
 
 def _read_xlsx(
-    path: Path, mapping: dict[str, str], sheet: str | None, notices: list[str]
+    path: Path,
+    mapping: dict[str, str],
+    sheet: str | None,
+    notices: list[str],
+    options: FileOptions | None = None,
 ) -> tuple[_Raw, str]:
+    options = options or FileOptions()
     import openpyxl
     from openpyxl.utils.exceptions import InvalidFileException
 
@@ -1638,20 +2006,34 @@ def _read_xlsx(
             if sheet_path:
                 scan = scans.get(sheet_path.lstrip("/")) or _scan_sheet(path, sheet_path, name)
             worksheet.reset_dimensions()
-            rows = _stream_sheet(path, worksheet, name)
+            rows = _stream_sheet(path, worksheet, name, options.header_row)
         finally:
             book.close()
     header_at, header_row, body = rows.header_at, rows.header, rows.body
     width = len(header_row)
     filled = [v for v in header_row if v is not None and str(v).strip()]
-    if len(filled) == 1 and rows.wide_start:
+    if options.header_row is None and not _has_required(header_row, mapping):
+        # A title block above the header (one cell or several, merged or not): the header is
+        # the first row below it that names the required columns.
+        found = next((i for i, row in rows.early if _has_required(row, mapping)), None)
+        if found is not None:
+            _title_block(
+                path,
+                f"sheet '{name}' row {header_at + 1}",
+                filled,
+                f"row {found + 1}",
+                FileOptions(options.sep, options.decimal, options.date_format, found + 1),
+                mapping,
+            )
+    if len(filled) == 1 and rows.wide_start and options.header_row is None:
         _fail(
             path,
             f"sheet '{name}' row {header_at + 1} holds only "
             f"'{_sanitize_str(str(filled[0]))[:80]}', which looks like a title, not the "
             "header: the header must be the first non-empty row, with one name per column.",
-            "Delete the title row (and any empty rows above the header), or unmerge the title "
-            "cells, then save and load the file again.",
+            "Read the header from its row with --header-row N (the rows above it are skipped), "
+            "or delete the title rows (and unmerge the title cells), then save and load the "
+            "file again.",
         )
     if rows.beyond is not None:
         row_number, column = rows.beyond
@@ -1681,7 +2063,7 @@ class _SheetRows:
     """A sheet's rows as streamed in, with what the checks after reading need."""
 
     header_at: int
-    """Row index (0-based) of the header, the first non-empty row."""
+    """Row index (0-based) of the header, the first non-empty row (or ``--header-row``)."""
     header: list[Any]
     """Header cells, trailing empty ones dropped."""
     body: list[tuple[Any, ...]]
@@ -1691,26 +2073,47 @@ class _SheetRows:
     """The first (sheet row, column number) holding a value right of the header."""
     wide_start: bool
     """Whether one of the first five rows below the header has more than one value."""
+    early: list[tuple[int, tuple[Any, ...]]] = field(default_factory=list)
+    """The first rows below the header as they are (row index, cells), to find a header below
+    a title block."""
 
 
-def _stream_sheet(path: Path, worksheet: Any, name: str) -> _SheetRows:
-    """Read the rows of a sheet as they stream in, keeping no empty row after the data."""
+def _stream_sheet(
+    path: Path, worksheet: Any, name: str, header_row: int | None = None
+) -> _SheetRows:
+    """Read the rows of a sheet as they stream in, keeping no empty row after the data.
+
+    The header is the first non-empty row, or row ``header_row`` (from 1) when given: the rows
+    above it are skipped as they are.
+    """
     header_at: int | None = None
-    header_row: list[Any] = []
+    header_row_cells: list[Any] = []
     width = 0
     body: list[tuple[Any, ...]] = []
     blank = 0
     beyond: tuple[int, int] | None = None
     wide_start = False
+    early: list[tuple[int, tuple[Any, ...]]] = []
     for index, row in enumerate(_sheet_rows(path, worksheet, name)):
         if header_at is None:
+            if header_row is not None and index < header_row - 1:
+                continue
             if any(v is not None for v in row):
                 header_at = index
-                header_row = list(row)
-                while header_row and header_row[-1] is None:
-                    header_row.pop()
-                width = len(header_row)
+                header_row_cells = list(row)
+                while header_row_cells and header_row_cells[-1] is None:
+                    header_row_cells.pop()
+                width = len(header_row_cells)
+            elif header_row is not None:
+                _fail(
+                    path,
+                    f"sheet '{name}' row {header_row} is empty, but --header-row {header_row} "
+                    "says the header is there.",
+                    "Give the row number of the header as the spreadsheet shows it.",
+                )
             continue
+        if index - header_at <= _TITLE_ROWS:
+            early.append((index, row))
         if index - header_at <= 5 and sum(v is not None for v in row) > 1:
             wide_start = True
         if len(row) > width:
@@ -1726,8 +2129,14 @@ def _stream_sheet(path: Path, worksheet: Any, name: str) -> _SheetRows:
             blank = 0
         body.append(row if len(row) == width else row + (None,) * (width - len(row)))
     if header_at is None:
+        if header_row is not None:
+            _fail(
+                path,
+                f"sheet '{name}' has no row {header_row}, which --header-row names as the header.",
+                "Give the row number of the header as the spreadsheet shows it.",
+            )
         _fail(path, f"sheet '{name}' is empty.", "Choose the sheet with the data via --sheet.")
-    return _SheetRows(header_at, header_row, body, beyond, wide_start)
+    return _SheetRows(header_at, header_row_cells, body, beyond, wide_start, early)
 
 
 def _sheet_rows(path: Path, worksheet: Any, name: str) -> Iterator[tuple[Any, ...]]:
@@ -2251,6 +2660,7 @@ class _Context:
     rows: Callable[[np.ndarray], list[int]]
     notices: list[str]
     control_cells: dict[str, int] = field(default_factory=dict)
+    options: FileOptions = field(default_factory=FileOptions)
 
     def fail(
         self,
@@ -2285,7 +2695,13 @@ def _examples(values: pd.Series, bad: np.ndarray, rows: list[int]) -> str:
     return "e.g. " + ", ".join(f"'{text}' (row {row})" for text, row in shown.items())
 
 
-def _build(path: Path, raw: _Raw, notices: list[str], sheet: str | None) -> LoadedFrame:
+def _build(
+    path: Path,
+    raw: _Raw,
+    notices: list[str],
+    sheet: str | None,
+    options: FileOptions | None = None,
+) -> LoadedFrame:
     plan, data = raw.plan, raw.data
     n = len(next(iter(data.values()))) if data else 0
     keep: np.ndarray | None = None
@@ -2323,7 +2739,7 @@ def _build(path: Path, raw: _Raw, notices: list[str], sheet: str | None) -> Load
         positions = np.asarray(positions, dtype=np.int64)
         return (file_rows[positions] if file_rows is not None else positions + first_row).tolist()
 
-    ctx = _Context(path, plan, rows, notices)
+    ctx = _Context(path, plan, rows, notices, options=options or FileOptions())
     for position in plan.unnamed:
         text, missing = _text(data[position])
         if not (missing | _is_blank(text)).all():
@@ -2352,9 +2768,10 @@ def _build(path: Path, raw: _Raw, notices: list[str], sheet: str | None) -> Load
         total = sum(ctx.control_cells.values())
         where = _quote_list(list(ctx.control_cells))
         notices.append(
-            f"{total} {'cell' if total == 1 else 'cells'} contained control characters (column "
-            f"{where}); they are shown as visible symbols: ␀-␟ for C0 (tab ␉, line feed ␊, "
-            "escape ␛), ␡ for DEL, � for C1."
+            f"{total} {'cell' if total == 1 else 'cells'} contain control characters (column "
+            f"{where}). They are kept exactly in CSV, JSON, exports and the ledger, and shown "
+            "as visible symbols on screen: ␀-␟ for C0 (tab ␉, line feed ␊, escape ␛), ␡ for "
+            "DEL, � for C1."
         )
     order = [name for name in _ORDER if name in columns] + attributes
     # copy=False keeps each column as its own block instead of copying into 2-D blocks.
@@ -2475,8 +2892,16 @@ def _from_codes(codes: np.ndarray, labels: Sequence[str] | pd.Index) -> pd.Serie
     return pd.Series(pd.Categorical.from_codes(mapped, categories=pd.Index(uniques, dtype=str)))
 
 
-def _clean_controls(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
-    """Replace control characters, counting the cells changed (checked vectorised first)."""
+def _clean_controls(
+    ctx: _Context, position: int, values: pd.Series, *, replace: bool = False
+) -> pd.Series:
+    """Count the cells holding control characters (checked vectorised first), for the notice.
+
+    Ids and attributes keep them: the text stays exactly as written, so that machine-readable
+    output joins back with the file; whatever shows it in a terminal makes them visible
+    (``triage.core.text.visible``). With ``replace`` (periods, which are parsed, never written
+    back) they are replaced by visible symbols, so that a message quoting the cell is safe.
+    """
     name = ctx.plan.headers[position]
     if isinstance(values.dtype, pd.CategoricalDtype):
         cats = values.cat.categories
@@ -2484,14 +2909,20 @@ def _clean_controls(ctx: _Context, position: int, values: pd.Series) -> pd.Serie
         if not dirty.any():
             return values
         count = int(np.isin(_codes(values), np.flatnonzero(dirty)).sum())
-        cleaned = _recode(values, pd.Index(cats.str.translate(_CONTROL_TABLE), dtype=str))
+        cleaned = (
+            _recode(values, pd.Index(cats.str.translate(_CONTROL_TABLE), dtype=str))
+            if replace
+            else values
+        )
     else:
         mask = values.str.contains(_CONTROL_PATTERN, regex=True, na=False).to_numpy(dtype=bool)
         if not mask.any():
             return values
         count = int(mask.sum())
-        cleaned = values.copy()
-        cleaned.loc[mask] = values.loc[mask].str.translate(_CONTROL_TABLE)
+        cleaned = values
+        if replace:
+            cleaned = values.copy()
+            cleaned.loc[mask] = values.loc[mask].str.translate(_CONTROL_TABLE)
     if count:
         ctx.control_cells[name] = ctx.control_cells.get(name, 0) + count
     return cleaned
@@ -2616,12 +3047,13 @@ def _note_lookalikes(ctx: _Context, position: int, ids: pd.Series) -> None:
 
 
 def _shown_id(text: str) -> str:
-    """An id quoted, with what does not show written as a code (``\\u200D``)."""
+    """An id quoted, with what does not show (and control characters) written as a code
+    (``\\u200D``, ``\\u001B``)."""
     out = []
     for ch in text:
         kind = unicodedata.category(ch)
         if (
-            kind in ("Mn", "Me", "Cf", "Zl", "Zp")
+            kind in ("Cc", "Mn", "Me", "Cf", "Zl", "Zp")
             or (kind == "Zs" and ch != " ")
             or ch in _INVISIBLE
         ):
@@ -2665,11 +3097,11 @@ def _periods(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
     if pd.api.types.is_numeric_dtype(values.dtype):
         _date_error(ctx, position, np.arange(len(values)), values)
     text, missing = _text(values)
-    text = _clean_controls(ctx, position, text)
+    text = _clean_controls(ctx, position, text, replace=True)
     if not isinstance(text.dtype, pd.CategoricalDtype):
         text = text.astype("category")
     cats = pd.Series(text.cat.categories, dtype=str)
-    parsed = _parse_iso(cats)
+    parsed = parse_periods(cats, ctx.options.date_format)
     codes = _codes(text)
     empty = missing | np.isin(codes, np.flatnonzero((cats.str.strip() == "").to_numpy()))
     if empty.any():
@@ -2689,6 +3121,23 @@ def _periods(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
     result = pd.Series(parsed.to_numpy()[codes], copy=False)
     _check_stamps(ctx, position, result)
     return result.astype("datetime64[ns]")
+
+
+def parse_periods(texts: pd.Series, date_format: str | None = None) -> pd.Series:
+    """Period texts -> ``datetime64[us]``, NaT where a text is not a period.
+
+    Without ``date_format``: ISO ``YYYY-MM-DD`` / ``YYYY-MM`` only. With it (``--date-format``,
+    e.g. ``%d.%m.%Y``): exactly that pattern, as ``datetime.strptime`` reads it, digits 0-9
+    only; a format without a day reads the first of the month. Spaces around a text are
+    ignored. Both read paths parse periods here, once per distinct text.
+    """
+    if date_format is None:
+        return _parse_iso(texts)
+    stripped = texts.str.strip()
+    # \d is any script's digit in Python's re: a digit that is not 0-9 is refused.
+    foreign = stripped.str.contains(r"(?![0-9])\d", regex=True, na=False).to_numpy(dtype=bool)
+    out = pd.to_datetime(stripped.where(~foreign), format=date_format, errors="coerce")
+    return pd.Series(np.asarray(out, dtype="datetime64[us]"), copy=False)
 
 
 def _parse_iso(texts: pd.Series) -> pd.Series:
@@ -2728,7 +3177,7 @@ def _periods_from_cells(ctx: _Context, position: int, values: pd.Series) -> pd.S
         result[is_date] = dates.to_numpy(dtype="datetime64[us]")
     if is_text.any():
         text = pd.Series([_sanitize_str(cells[i]) for i in np.flatnonzero(is_text)], dtype=str)
-        parsed = _parse_iso(text)
+        parsed = parse_periods(text, ctx.options.date_format)
         wrong[np.flatnonzero(is_text)[parsed.isna().to_numpy()]] = True
         result[is_text] = parsed.to_numpy()
     if wrong.any():
@@ -2741,8 +3190,10 @@ def _periods_from_cells(ctx: _Context, position: int, values: pd.Series) -> pd.S
 def _date_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series) -> NoReturn:
     sample = [str(v).strip() for v in values.iloc[bad[:200]].tolist()]
     notes = []
-    slash = next((s for s in sample if re.fullmatch(r"\d{1,2}[/.]\d{1,2}[/.]\d{2,4}", s)), None)
-    if slash:
+    slash = next(
+        (s for s in sample if re.fullmatch(r"[0-9]{1,2}[/.][0-9]{1,2}[/.][0-9]{2,4}", s)), None
+    )
+    if slash and ctx.options.date_format is None:
         first, second = (int(x) for x in re.split(r"[/.]", slash)[:2])
         if 1 <= first <= 12 and 1 <= second <= 12:
             notes.append(
@@ -2757,20 +3208,36 @@ def _date_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series
         notes.append("Periods are dates, without a time of day.")
     digits = _foreign_digits(sample)
     if digits:
-        notes.append(
-            f"Dates are written with the digits 0-9 ({digits} are digits of another script)."
-        )
+        notes.append(f"Dates are written with the digits 0-9 ({digits}).")
+    date_format = ctx.options.date_format
     invalid = next((s for s in sample if _ISO_DATE.fullmatch(s)), None)
-    if invalid:
+    if invalid and date_format is None:
         notes.append(f"'{invalid}' is not a date in the calendar.")
+    # Which --date-format would read them (advice only: several may fit, none is applied).
+    advice = date_format_advice(sample) if not digits else ""
+    if date_format is not None:
+        if advice and f"--date-format {date_format} " in f"{advice} ":
+            advice = ""  # the format given fits the pattern: the dates themselves are wrong
+        if not advice and not digits:
+            notes.append("They do not exist in the calendar or are written another way.")
+        ctx.fail(
+            position,
+            f"has dates that do not match --date-format {date_format}",
+            bad,
+            values,
+            "Give --date-format the pattern of the file's periods (%d day, %m month, %Y year: "
+            "%d.%m.%Y reads 01.10.2025), or correct those cells.",
+            " ".join([*notes, advice]).strip(),
+        )
     ctx.fail(
         position,
         "has dates that are ambiguous or not ISO",
         bad,
         values,
         "Write dates as YYYY-MM-DD (e.g. 2024-03-04), or YYYY-MM for months (read as the first "
-        "of the month); in Excel, format the column as yyyy-mm-dd before saving.",
-        " ".join(notes),
+        "of the month); in Excel, format the column as yyyy-mm-dd before saving"
+        + ("; or read them as they are with --date-format (see above)." if advice else "."),
+        " ".join([*notes, advice]).strip(),
     )
 
 
@@ -2838,7 +3305,7 @@ def _numbers(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.S
         numbers = values.to_numpy(dtype=np.float64, na_value=np.nan)
         raw = None
     else:
-        numbers, bad = _numbers_from_text(values)
+        numbers, bad = _numbers_from_text(values, ctx.options.decimal)
         if bad.any():
             _number_error(ctx, position, np.flatnonzero(bad), values)
         raw = values
@@ -2869,8 +3336,12 @@ def _numbers(ctx: _Context, position: int, values: pd.Series, role: str) -> pd.S
     return pd.Series(numbers, dtype=np.float64, copy=False)
 
 
-def _numbers_from_text(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
-    """Parse text (or mixed xlsx cells) as numbers: returns float64 values and a bad-cell mask."""
+def _numbers_from_text(values: pd.Series, decimal: str = ".") -> tuple[np.ndarray, np.ndarray]:
+    """Parse text (or mixed xlsx cells) as numbers: returns float64 values and a bad-cell mask.
+
+    With ``decimal`` ``","`` a number is written ``1,5`` (``1.5`` is refused: a point could be
+    a thousands separator), as pandas reads ``decimal=","``.
+    """
     if values.dtype == object:
         cells = values.tolist()
         kind = np.array(
@@ -2892,29 +3363,40 @@ def _numbers_from_text(values: pd.Series) -> tuple[np.ndarray, np.ndarray]:
         texts = np.flatnonzero(kind == 2)
         bad = kind == 3
         if texts.size:
-            parsed, wrong = _numbers_from_text(pd.Series([cells[i] for i in texts], dtype=str))
+            parsed, wrong = _numbers_from_text(
+                pd.Series([cells[i] for i in texts], dtype=str), decimal
+            )
             numbers[texts] = parsed
             bad[texts] = wrong
         return numbers, bad
     text = values.astype(str) if not isinstance(values.dtype, pd.StringDtype) else values
     stripped = text.str.strip()
     missing = (stripped.isin(schema.NUMERIC_MISSING) | text.isna()).to_numpy(dtype=bool)
-    valid = stripped.str.fullmatch(_NUMBER, case=False).to_numpy(dtype=bool, na_value=False)
+    pattern = _NUMBER if decimal == "." else _NUMBER.replace("\\.", ",")
+    valid = stripped.str.fullmatch(pattern, case=False).to_numpy(dtype=bool, na_value=False)
     bad = ~missing & ~valid
     numbers = np.full(len(text), np.nan)
     good = valid & ~missing
+    written = stripped[good] if decimal == "." else stripped[good].str.replace(",", ".")
     # float() per cell: accepts 1e400 (-> inf, reported as not finite) like the CSV parser does.
-    numbers[good] = np.asarray(stripped[good].to_numpy(dtype=object), dtype=np.float64)
+    numbers[good] = np.asarray(written.to_numpy(dtype=object), dtype=np.float64)
     return numbers, bad
 
 
 def _number_error(ctx: _Context, position: int, bad: np.ndarray, values: pd.Series) -> NoReturn:
     sample = [str(v).strip() for v in values.iloc[bad[:200]].tolist()]
     hints = []
-    if any(re.fullmatch(r"[+-]?\d+,\d+", s) for s in sample):
+    comma = ctx.options.decimal == ","
+    if comma and any(re.fullmatch(r"[+-]?[0-9]*[.][0-9]+(?:,[0-9]*)?", s) for s in sample):
+        hints.append(
+            "with --decimal , a number is written 1,5 and without thousands separators "
+            "(1500, not 1.500: a point could be either, so it is not read)"
+        )
+    elif not comma and any(re.fullmatch(r"[+-]?[0-9]*,[0-9]+", s) for s in sample):
         hints.append(
             "write decimals with a point and no thousands separator (1.5 and 1234, not "
-            "1,5 or 1,234); a file from a European Excel uses decimal commas"
+            "1,5 or 1,234); or, if the file writes decimal commas, read it with --decimal , "
+            "(such files usually separate their fields with semicolons: --sep ';')"
         )
     if any(re.fullmatch(r"\(\s*[\d.,]+\s*\)", s) for s in sample):
         hints.append("write negative numbers (returns) with a minus sign: -5, not (5)")
@@ -2962,13 +3444,16 @@ def _lags(ctx: _Context, position: int, values: pd.Series) -> pd.Series:
         codes = _codes(text)
         empty_cats = np.flatnonzero(cats.isin(schema.NUMERIC_MISSING).to_numpy())
         missing = missing_text | np.isin(codes, empty_cats)
-        whole = cats.str.fullmatch(_INTEGER).to_numpy(dtype=bool, na_value=False)
+        integer = _INTEGER if ctx.options.decimal == "." else _INTEGER.replace("\\.", ",")
+        whole = cats.str.fullmatch(integer).to_numpy(dtype=bool, na_value=False)
         bad_cats = np.flatnonzero(~whole & ~cats.isin(schema.NUMERIC_MISSING).to_numpy())
         wrong = np.isin(codes, bad_cats) & ~missing
         if wrong.any():
             _lag_error(ctx, position, np.flatnonzero(wrong), text)
         # As float64 first: a whole number of any length converts, where int64 would overflow.
-        numbers = pd.to_numeric(cats.where(whole, "0")).to_numpy(dtype=np.float64)
+        numbers = pd.to_numeric(cats.where(whole, "0").str.replace(",", ".")).to_numpy(
+            dtype=np.float64
+        )
         too_large = np.isin(codes, np.flatnonzero(whole & (numbers > LAG_MAX)))
         if too_large.any():
             _lag_range_error(ctx, position, np.flatnonzero(too_large), text)

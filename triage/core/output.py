@@ -10,7 +10,6 @@ import collections
 import concurrent.futures
 import functools
 import io
-import json
 import math
 import os
 import re
@@ -25,6 +24,7 @@ from rich.table import Table
 from rich.text import Text
 
 from triage.core import metrics, ranking, schema
+from triage.core.export import dumps_json
 from triage.core.portfolio import Portfolio
 from triage.core.text import visible
 
@@ -42,10 +42,13 @@ def csv_blocks(card: pd.DataFrame) -> Iterator[bytes]:
 
     Joined, the blocks are exactly what ``DataFrame.to_csv(index=False, lineterminator="\\n")``
     writes: floats in their shortest round-trip form (``repr``), missing values empty, text
-    quoted only where needed. Number, text and categorical columns are formatted column by
-    column in Arrow (several times faster than pandas' per-cell formatting), a few blocks ahead
-    on every core; a frame with any other column type is written by pandas, in one block.
-    Writing the blocks as they come keeps one block's text in memory, not the whole file's.
+    quoted only where needed, and text kept exactly (ids with tabs, escapes or NUL join back
+    with the file). One difference: a field holding a carriage return is quoted, which the csv
+    writer of CPython before 3.11.9 does not do, so that a reader never splits the row there.
+    Number, text and categorical columns are formatted column by column in Arrow (several times
+    faster than pandas' per-cell formatting), a few blocks ahead on every core; a frame with
+    any other column type is written by pandas, in one block. Writing the blocks as they come
+    keeps one block's text in memory, not the whole file's.
     """
     sources = _arrow_sources(card)
     if sources is None:
@@ -69,8 +72,9 @@ def csv_blocks(card: pd.DataFrame) -> Iterator[bytes]:
             yield pending.popleft().result()
 
 
-#: Characters that make Python's csv writer (QUOTE_MINIMAL, line terminator "\n") quote a field.
-_CSV_SPECIAL = '[,"\n]'
+#: Characters that make a field quoted: what Python's csv writer quotes (QUOTE_MINIMAL, line
+#: terminator "\n"), and a carriage return, which any CSV reader takes for a line end.
+_CSV_SPECIAL = '[,"\n\r]'
 
 
 def _arrow_sources(card: pd.DataFrame) -> list[tuple[str, Any]] | None:
@@ -252,7 +256,8 @@ def to_json(portfolio: Portfolio, card: pd.DataFrame, window: int, season: int) 
         "ranked_by": "abs_error_value" if portfolio.price is not None else "abs_error",
         "series": records,
     }
-    return json.dumps(doc, ensure_ascii=False, allow_nan=False, indent=1) + "\n"
+    # Text exactly as in the file; DEL and C1 escaped as JSON allows (the export's writer).
+    return dumps_json(doc, indent=1) + "\n"
 
 
 def _json_value(value: object) -> object:
@@ -448,8 +453,18 @@ def _run_text(run: int) -> str:
     return f"{abs(run)} {'over' if run > 0 else 'under'}"
 
 
-def check_text(portfolio: Portfolio, window: int, season: int) -> str:
-    """The data-quality report of ``triage check``."""
+def check_text(portfolio: Portfolio, window: int, season: int, *, lag_given: bool = True) -> str:
+    """The data-quality report of ``triage check``.
+
+    Args:
+        portfolio: The portfolio; with several lags and ``lag_given`` false, built scoring the
+            smallest lag (``read_portfolio(..., smallest_lag=True)``).
+        window: Latest periods with actual demand to score.
+        season: Seasonal period of the naive baseline.
+        lag_given: Whether ``--lag`` chose the lag. Without it, a file of several lags is
+            reported with its lags and the choice to make, not refused.
+    """
+    choose = len(portfolio.lags) > 1 and not lag_given
     demand = portfolio.demand
     hist = demand[:, : portfolio.last_actual + 1]
     cal = portfolio.calendar
@@ -480,7 +495,10 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
         f"asked for {window}), naive season {season}",
         "lags           "
         + (
-            f"{', '.join(map(str, portfolio.lags))}; scoring lag {portfolio.lag}"
+            f"{', '.join(map(str, portfolio.lags))}; no --lag given, so this report scores "
+            f"lag {portfolio.lag} (the smallest)"
+            if choose
+            else f"{', '.join(map(str, portfolio.lags))}; scoring lag {portfolio.lag}"
             if portfolio.lags
             else "no lag column (one forecast per period)"
         ),
@@ -512,8 +530,18 @@ def check_text(portfolio: Portfolio, window: int, season: int) -> str:
     ]
     if portfolio.notices:
         lines.append("")
-        lines.extend(f"note: {n}" for n in portfolio.notices)
+        lines.extend(f"note: {visible(n, multiline=True)}" for n in portfolio.notices)
     lines.append("")
     problem = ranking.unscorable(portfolio, window)
-    lines.append("ok: the file can be scored" if problem is None else f"not ok: {problem}")
+    if problem is not None:
+        lines.append(f"not ok: {problem}")
+    elif choose:
+        listed = ", ".join(map(str, portfolio.lags[:-1])) + f" or {portfolio.lags[-1]}"
+        lines.append(
+            f"ok: the file can be scored one lag at a time: the history holds "
+            f"{len(portfolio.lags)} forecast lags and metrics never mix them, so rank, review, "
+            f"report and export need --lag {listed} (e.g. --lag {portfolio.lag})"
+        )
+    else:
+        lines.append("ok: the file can be scored")
     return "\n".join(lines)

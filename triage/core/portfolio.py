@@ -35,10 +35,12 @@ import pandas as pd
 
 from triage.core import schema
 from triage.core.errors import LoadError, format_rows
+from triage.core.text import visible
 
 if TYPE_CHECKING:
     from collections.abc import Callable, Sequence
 
+    from triage.core.dialect import FileOptions
     from triage.core.load import StreamSource
 
 #: How many example rows an error message shows.
@@ -263,8 +265,9 @@ class Portfolio:
         return digest.hexdigest()
 
     def key_text(self, index: int) -> str:
-        """``item`` or ``item @ location`` of series ``index``, for messages."""
-        return " @ ".join(str(self.keys.iloc[index][c]) for c in self.key_columns)
+        """``item`` or ``item @ location`` of series ``index``, for messages (control
+        characters shown as visible symbols)."""
+        return " @ ".join(visible(str(self.keys.iloc[index][c])) for c in self.key_columns)
 
     def text_column(self, name: str, order: np.ndarray) -> pd.api.extensions.ExtensionArray:
         """Key or attribute column ``name`` of the series ``order``, as a ``str`` array.
@@ -286,7 +289,11 @@ class Portfolio:
 
 
 def build_portfolio(
-    loaded: LoadedLike, *, lag: int | None = None, consume: bool = False
+    loaded: LoadedLike,
+    *,
+    lag: int | None = None,
+    consume: bool = False,
+    smallest_lag: bool = False,
 ) -> Portfolio:
     """Check the whole-portfolio rules and scatter the long rows into dense arrays.
 
@@ -297,6 +304,9 @@ def build_portfolio(
             been scattered, so that the long rows and the dense arrays are not both held in
             full. The frame is left with its attribute columns only; pass True only when nothing
             reads it afterwards.
+        smallest_lag: With several lags in the history and no ``lag``, score the smallest one
+            instead of refusing (``triage check`` reports the lags and the choice); ``lags``
+            lists them all.
 
     Raises:
         LoadError: Irregular calendar, duplicate rows, several lags without ``lag``, an unknown
@@ -338,7 +348,7 @@ def build_portfolio(
             "in it is of one (unnamed) lag.",
             hint="Leave out --lag, or load the file that holds the forecast lags.",
         )
-    chosen = _choose_lag(path, lags, lag) if has_lag else None
+    chosen = _choose_lag(path, lags, lag, smallest=smallest_lag) if has_lag else None
 
     # The later steps need the keys' codes only; the rows' key columns can go.
     attribute_rows = (
@@ -426,8 +436,13 @@ def read_portfolio(
     columns: dict[str, str] | None = None,
     sheet: str | None = None,
     lag: int | None = None,
+    smallest_lag: bool = False,
+    options: FileOptions | None = None,
 ) -> Portfolio:
     """Load a portfolio file and build its arrays (see ``load.load_frame`` and ``build_portfolio``).
+
+    ``options`` say how the file writes its cells (``--sep``, ``--decimal``, ``--date-format``,
+    ``--header-row``; see ``triage.core.dialect``); both ways read them.
 
     A Parquet or CSV file is first read the streamed way (``load.scan_parquet``,
     ``load.scan_csv``): one block of rows at a time, straight into the dense arrays, without
@@ -442,11 +457,11 @@ def read_portfolio(
     )
     if sheet is None and scan is not None:
         try:
-            return _build_streamed(scan(path, columns=columns), lag)
+            return _build_streamed(scan(path, columns=columns, options=options), lag)
         except FastPathDeclined:
             pass
-    loaded = load_frame(path, columns=columns, sheet=sheet)
-    return build_portfolio(loaded, lag=lag, consume=True)
+    loaded = load_frame(path, columns=columns, sheet=sheet, options=options)
+    return build_portfolio(loaded, lag=lag, consume=True, smallest_lag=smallest_lag)
 
 
 # --- the streamed way: Parquet row groups straight into the dense arrays -------------------------
@@ -1003,7 +1018,8 @@ def _check_duplicates(
     for value in dup_cells[:EXAMPLES]:
         positions = order[sorted_cells == value]
         row = frame.iloc[positions[0]]
-        key = " @ ".join(str(row[c]) for c in key_columns)
+        # Ids keep their control characters; a message shows them as visible symbols.
+        key = " @ ".join(visible(str(row[c])) for c in key_columns)
         stamp = pd.Timestamp(row[schema.PERIOD]).strftime("%Y-%m-%d")
         lag_note = f", lag {int(row[schema.LAG])}" if schema.LAG in frame.columns else ""
         demands = ", ".join(_fmt(v) for v in frame[schema.DEMAND].to_numpy()[positions])
@@ -1019,8 +1035,10 @@ def _check_duplicates(
     )
 
 
-def _choose_lag(path: Path, lags: tuple[int, ...], lag: int | None) -> int | None:
-    """The lag to score; metrics never mix lags."""
+def _choose_lag(
+    path: Path, lags: tuple[int, ...], lag: int | None, *, smallest: bool = False
+) -> int | None:
+    """The lag to score; metrics never mix lags. Several lags need ``lag`` (or ``smallest``)."""
     if lag is not None:
         if lag not in lags:
             raise LoadError(
@@ -1029,7 +1047,7 @@ def _choose_lag(path: Path, lags: tuple[int, ...], lag: int | None) -> int | Non
                 hint="Choose one of those with --lag.",
             )
         return lag
-    if len(lags) > 1:
+    if len(lags) > 1 and not smallest:
         raise LoadError(
             path,
             f"the history holds {len(lags)} forecast lags ({', '.join(map(str, lags))}); "
@@ -1092,7 +1110,8 @@ def _refuse_unpriced(
     if not missing.size:
         return
     names = ", ".join(
-        " @ ".join(str(keys_unique.iloc[i][c]) for c in key_columns) for i in missing[:EXAMPLES]
+        " @ ".join(visible(str(keys_unique.iloc[i][c])) for c in key_columns)
+        for i in missing[:EXAMPLES]
     )
     raise LoadError(
         path,

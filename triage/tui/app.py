@@ -24,6 +24,7 @@ from textual.worker import Worker, WorkerState
 from triage.core import ledger as ledger_mod
 from triage.core import schema, words
 from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
+from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
 from triage.core.text import visible
@@ -57,6 +58,9 @@ class Options:
     columns: dict[str, str] | None = None
     sheet: str | None = None
     lag: int | None = None
+    file_options: FileOptions | None = None
+    """How the file writes its cells (``--sep``, ``--decimal``, ``--date-format``,
+    ``--header-row``)."""
     target_share: float = 0.8
     root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
     auto_advance: bool = False
@@ -382,7 +386,11 @@ class TriageApp(App[None]):
         steps = 5
         self.post_message(LoadStep(0, steps, f"reading {opts.portfolio.name}"))
         portfolio = read_portfolio(
-            opts.portfolio, columns=opts.columns, sheet=opts.sheet, lag=opts.lag
+            opts.portfolio,
+            columns=opts.columns,
+            sheet=opts.sheet,
+            lag=opts.lag,
+            options=opts.file_options,
         )
         require_scorable(portfolio, opts.window)
         self.post_message(LoadStep(1, steps, "opening the ledger"))
