@@ -644,6 +644,14 @@ class ReviewSession:
             self.decided_by[series] = standing.reviewer if standing else ""
         return series
 
+    def refresh_series(self, series: int) -> None:
+        """Read the series' state in this cycle again from the ledger (after another session
+        wrote it): outcome, who decided, and the version the next write must expect."""
+        standing, version = self.current_decision(series)
+        self.version[series] = version
+        self.outcome[series] = (standing.outcome or "") if standing else ""
+        self.decided_by[series] = standing.reviewer if standing else ""
+
     def current_decision(self, series: int) -> tuple[Event | None, int]:
         """The series' effective decision in this cycle as the ledger holds it now.
 

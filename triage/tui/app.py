@@ -6,7 +6,7 @@ import asyncio
 import math
 import threading
 from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from contextlib import contextmanager, suppress
 from dataclasses import dataclass, field, replace
 from pathlib import Path
 from typing import ClassVar
@@ -65,6 +65,10 @@ class Options:
     root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
     auto_advance: bool = False
     notices: list[str] = field(default_factory=list)
+
+
+def _stale(exc: TriageError) -> bool:
+    return isinstance(exc, ledger_mod.StaleDecisionError)
 
 
 class TriageApp(App[None]):
@@ -425,7 +429,7 @@ class TriageApp(App[None]):
     @on(LoadStep)
     def _load_step(self, message: LoadStep) -> None:
         self._q("#loading-bar", ProgressBar).update(total=message.total, progress=message.step)
-        self._q("#loading-label", Static).update(Text(f"Loading: {message.label}…"))
+        self._q("#loading-label", Static).update(Text(f"Loading: {visible(message.label)}…"))
 
     @on(Loaded)
     def _loaded(self, message: Loaded) -> None:
@@ -567,10 +571,10 @@ class TriageApp(App[None]):
             f"sign test p {card['bias_pvalue']:.3f}: {words.MEANINGS['sign test p']}",
         ]
         attrs = [
-            f"{name}: {fmt.clip(str(session.portfolio.keys[name].iat[series]))}"
+            f"{fmt.plain(name)}: {fmt.clip(str(session.portfolio.keys[name].iat[series]))}"
             for name in session.portfolio.attributes
         ]
-        text = Text("\n".join(lines))
+        text = Text("\n".join(visible(line) for line in lines))
         if attrs:
             text.append("\n" + " · ".join(attrs), style="dim")
         text.append("\n")
@@ -648,7 +652,8 @@ class TriageApp(App[None]):
 
     def _status(self, text: str) -> None:
         self.status_text = text
-        self._q("#status", Static).update(Text(visible(text)))
+        # One line: a message's own line breaks (before "What to do") become spaces.
+        self._q("#status", Static).update(Text(visible(" ".join(text.split()))))
 
     def _apply_order(self) -> None:
         session = self.session
@@ -696,11 +701,14 @@ class TriageApp(App[None]):
                 return
             values = session.filter_values(field_name)
             self.push_screen(
-                ChooseScreen(f"Show only {field_name} =", [(v, v) for v in values[:500]]),
+                ChooseScreen(
+                    f"Show only {fmt.plain(field_name)} =",
+                    [(v, fmt.plain(v)) for v in values[:500]],
+                ),
                 lambda v: chose_value(field_name, v),
             )
 
-        fields = [(f, f) for f in session.filter_fields()]
+        fields = [(f, fmt.plain(f)) for f in session.filter_fields()]
         self.push_screen(ChooseScreen("Filter by", fields), chose_field)
 
     def action_clear_filter(self) -> None:
@@ -725,8 +733,12 @@ class TriageApp(App[None]):
         def done(value: str | None) -> None:
             if not value or not value.strip():
                 return
-            item, _, location = value.partition("@")
-            found = session.find_all(item, location)
+            # The whole text as an item first ("sku@site"), then "item @ location" split at
+            # the last "@" (an item may hold "@" itself).
+            found = session.find_all(value)
+            if not len(found) and "@" in value:
+                item, _, location = value.rpartition("@")
+                found = session.find_all(item, location)
             if not len(found):
                 self._status(f"no series {value.strip()!r} in this portfolio (case is ignored)")
                 return
@@ -811,8 +823,13 @@ class TriageApp(App[None]):
             draft = replace(kept, expected_version=version)
         elif base is not None:
             draft = draft_of(base, series, version)
-            if adjustment and not draft.adjustment:
-                draft = replace(draft, outcome=ledger_mod.ADJUSTED, adjustment=adjustment)
+            if outcome == ledger_mod.ADJUSTED:
+                # a (or s) means "adjust": the dialog opens on the adjustment field.
+                draft = replace(
+                    draft,
+                    outcome=ledger_mod.ADJUSTED,
+                    adjustment=draft.adjustment or adjustment,
+                )
         else:
             draft = Draft(
                 series=series,
@@ -956,7 +973,7 @@ class TriageApp(App[None]):
                 else:
                     record = session.commit_end_adjustment(series, target)
             except TriageError as exc:
-                self.post_message(SaveFailed(series, str(exc)))
+                self.post_message(SaveFailed(series, str(exc), stale=_stale(exc)))
                 return
         self.post_message(Ended(record))
 
@@ -1030,7 +1047,7 @@ class TriageApp(App[None]):
                     expected_version=self._expected(draft.series, draft.expected_version),
                 )
             except TriageError as exc:
-                self.post_message(SaveFailed(draft.series, str(exc)))
+                self.post_message(SaveFailed(draft.series, str(exc), stale=_stale(exc)))
                 return
             self._written[draft.series] = event.version
         self.post_message(Saved(event, fmt.outcome_label(draft.outcome).lower()))
@@ -1044,7 +1061,7 @@ class TriageApp(App[None]):
             try:
                 event = session.commit_undo(series, expected_version=self._expected(series, None))
             except TriageError as exc:
-                self.post_message(SaveFailed(series, str(exc)))
+                self.post_message(SaveFailed(series, str(exc), stale=_stale(exc)))
                 return
             self._written[series] = event.version
         self.post_message(Saved(event, "undone"))
@@ -1110,6 +1127,14 @@ class TriageApp(App[None]):
     def _save_failed(self, message: SaveFailed) -> None:
         self._dequeue(message.series)
         self._written.pop(message.series, None)
+        if message.stale and self.session is not None:
+            # Another session wrote the series: show what it holds now, so the next try
+            # replaces it knowingly (and asks, naming the other reviewer).
+            with suppress(TriageError):
+                self.session.refresh_series(message.series)
+            self._q(SeriesList).invalidate(message.series)
+            if message.series == self._q(SeriesList).current:
+                self._show_detail(message.series)
         self._status(f"NOT saved: {message.error} (your entry is kept: press enter to retry)")
         fmt.toast(self, f"Not saved: {message.error}", severity="error", timeout=15)
 
@@ -1120,7 +1145,8 @@ class TriageApp(App[None]):
         if session is None:
             return
         p = session.portfolio
-        default = str(p.path.with_name(f"{p.path.stem}-review-{session.cycle}.xlsx"))
+        # Shown in an input field, so no control character (a folder named with an ESC).
+        default = visible(str(p.path.with_name(f"{p.path.stem}-review-{session.cycle}.xlsx")))
 
         def done(value: str | None) -> None:
             if value:

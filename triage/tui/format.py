@@ -100,10 +100,21 @@ def key_text(parts: tuple[str, ...] | str, limit: int = 200) -> str:
     if isinstance(parts, str):
         parts = (parts,)
     shown = [
-        _marks_apart(visible(p if len(p) <= limit else p[: limit - 1] + "…", edges=True))
+        _marks_apart(
+            visible(p if len(p) <= limit else p[: limit - 1] + "…", edges=True).translate(
+                ODD_SPACES
+            )
+        )
         for p in parts
     ]
     return " @ ".join(p for p in shown if p)
+
+
+#: Spaces that look like a plain space but are other characters (no-break, figure, narrow
+#: no-break, ideographic, ...): in a key they are shown as U+237D so "A B" and "A<NBSP>B" differ.
+ODD_SPACES = str.maketrans(
+    dict.fromkeys([0x00A0, 0x2007, 0x202F, 0x3000, *range(0x2000, 0x200B), 0x205F], "\u237d")
+)
 
 
 def _marks_apart(text: str) -> str:

@@ -46,12 +46,14 @@ class Saved(Message):
 class SaveFailed(Message):
     """A decision could not be saved; nothing was written."""
 
-    def __init__(self, series: int, error: str) -> None:
+    def __init__(self, series: int, error: str, *, stale: bool = False) -> None:
         super().__init__()
         self.series = series
         """Portfolio index of the series."""
         self.error = error
         """Why, in words for the reviewer."""
+        self.stale = stale
+        """Another session changed the series: its state is read again from the ledger."""
 
 
 class Exported(Message):

@@ -23,6 +23,7 @@ from triage.core.adjust import AdjustError
 from triage.core.config import Choice
 from triage.core.ledger import Event
 from triage.core.review import ReviewSession
+from triage.core.text import visible
 from triage.tui import format as fmt
 from triage.tui.screens.base import Dialog
 from triage.tui.screens.dialogs import ConfirmScreen
@@ -54,6 +55,14 @@ class Draft:
             other.note,
             other.adjustment,
         )
+
+
+class NoteArea(TextArea):
+    """The note editor: pasted text shows control characters as symbols, never raw."""
+
+    async def _on_paste(self, event: events.Paste) -> None:
+        # Textual calls this before TextArea's own handler (which inserts the text).
+        event.text = visible(event.text, multiline=True)
 
 
 def draft_of(event: Event, series: int, version: int) -> Draft:
@@ -129,6 +138,8 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
         self._outcomes = ledger_mod.OUTCOMES
         self._base = base
         self._kept = kept
+        # The note as the editor shows it: control characters (an ESC from a file) as symbols.
+        self._shown_note = visible(draft.note, multiline=True)
 
     def compose(self) -> ComposeResult:
         key = fmt.key_text(self._session.key(self._series))
@@ -157,7 +168,10 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
                 id="decision-outcome",
             )
             yield OptionList(
-                *[Option(Text(f"{c.key or ' '} {c.label}"), id=c.code) for c in self._causes],
+                *[
+                    Option(Text(f"{c.key or ' '} {fmt.plain(c.label)}"), id=c.code)
+                    for c in self._causes
+                ],
                 id="decision-cause",
             )
         suggestion = self._session.suggest_spec[self._series]
@@ -169,8 +183,8 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
         )
         yield Static(Text(""), id="decision-preview")
         yield SeriesChart(id="decision-chart")
-        yield TextArea(
-            self._draft.note, id="decision-note", soft_wrap=True, show_line_numbers=False
+        yield NoteArea(
+            self._shown_note, id="decision-note", soft_wrap=True, show_line_numbers=False
         )
 
     def _current_text(self) -> Text:
@@ -282,10 +296,15 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
             series=self._series,
             outcome=outcome,
             root_cause=cause,
-            note=self.query_one("#decision-note", TextArea).text,
+            note=self._note_text(),
             adjustment=self.query_one("#decision-adjust", Input).value.strip(),
             expected_version=self._draft.expected_version,
         )
+
+    def _note_text(self) -> str:
+        """The note to save: the recorded text itself while the editor still shows it."""
+        shown = self.query_one("#decision-note", TextArea).text
+        return self._draft.note if shown == self._shown_note else shown
 
     def _refuse(self, words: str) -> None:
         self.query_one("#decision-preview", Static).update(Text(words, style="bold red"))
