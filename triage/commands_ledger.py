@@ -124,12 +124,30 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
         help="decimals of adjusted values: file, as many as the portfolio's forecast uses "
         "(default); units, whole units; or a number from 0 to 6",
     )
+    export.add_argument(
+        "--like-input",
+        action="store_true",
+        help="write a CSV export with the portfolio's own --sep, --decimal and --date-format "
+        "(default: comma, decimal point, ISO dates)",
+    )
     export.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
     export.set_defaults(handler=cmd_export)
 
 
 # --------------------------------------------------------------------------------------------
 # Shared
+
+
+def _like_input(args: argparse.Namespace, reading: dict[str, Any]) -> dict[str, Any]:
+    """``style=`` for ``export_review`` when ``--like-input`` asks for the file's conventions."""
+    if not getattr(args, "like_input", False):
+        return {}
+    from triage.core.export import CsvStyle
+
+    opts = reading.get("options")
+    if opts is None:
+        return {}
+    return {"style": CsvStyle(sep=opts.sep, decimal=opts.decimal, date_format=opts.date_format)}
 
 
 def _config(args: argparse.Namespace) -> Config:
@@ -392,6 +410,7 @@ def cmd_export(args: argparse.Namespace) -> int:
             exported_by=default_reviewer(config),
             headers=columns,
             **options,
+            **_like_input(args, reading),
         )
     rows = (
         f"{result.forecast_rows:,} forecast rows ({result.adjusted_periods:,} adjusted)"

@@ -99,3 +99,51 @@ def test_bad_options_exit_2_before_reading(tmp_path: Path) -> None:
     result = run("check", str(regional), "--date-format", "%d.%B.%Y")
     assert result.returncode == 2 and "'%B' is not a directive" in result.stderr
     assert "Traceback" not in result.stderr
+
+
+def test_export_like_input_writes_the_files_own_conventions(tmp_path: Path) -> None:
+    # The same portfolio exported plainly and --like-input: read back with pandas in each
+    # file's own convention (pandas.read_csv sep/decimal, the outside reference), the tables
+    # are equal, and the periods are written day first as in the file.
+    from triage.core.ledger import Ledger
+    from triage.core.portfolio import read_portfolio
+    from triage.core.review import ReviewSession
+
+    plain, regional = write_pair(tmp_path)
+    opts = ["--sep", ";", "--decimal", ",", "--date-format", "%d.%m.%Y", "--header-row", "4"]
+    ledger = tmp_path / "l.sqlite"
+    with Ledger.open(ledger) as opened:
+        session = ReviewSession(read_portfolio(plain), ledger=opened, reviewer="ana")
+        series = int(session.error_order[0])
+        session.commit_decision(
+            series, outcome="adjusted", root_cause="promotion", adjustment="+7%"
+        )
+    out_plain = run(
+        "export", str(plain), "--ledger", str(ledger), "--to", str(tmp_path / "a.csv"), cwd=tmp_path
+    )
+    assert out_plain.returncode == 0, out_plain.stderr
+    out_local = run(
+        "export",
+        str(regional),
+        *opts,
+        "--like-input",
+        "--ledger",
+        str(ledger),
+        "--to",
+        str(tmp_path / "b.csv"),
+        cwd=tmp_path,
+    )
+    assert out_local.returncode == 0, out_local.stderr
+    a = pd.read_csv(tmp_path / "a" / "a-forecast.csv", dtype={"item": str, "location": str})
+    b = pd.read_csv(
+        tmp_path / "b" / "b-forecast.csv",
+        sep=";",
+        decimal=",",
+        dtype={"item": str, "location": str},
+    )
+    assert b["period"].str.fullmatch(r"\d\d\.\d\d\.\d{4}").all()
+    b["period"] = pd.to_datetime(b["period"], format="%d.%m.%Y").dt.strftime("%Y-%m-%d")
+    pd.testing.assert_frame_equal(a.drop(columns="outcome"), b.drop(columns="outcome"))
+    assert (a["adjusted"]).any()
+    raw = (tmp_path / "b" / "b-forecast.csv").read_text(encoding="utf-8")
+    assert raw.splitlines()[0].count(";") >= 5 and "," not in raw.splitlines()[0]

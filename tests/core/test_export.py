@@ -755,12 +755,12 @@ def test_csv_set_is_all_or_nothing(
     before = folder_listing(tmp_path)
     real = export_mod._write_csv
 
-    def second_fails(path: Path, frame) -> None:
+    def second_fails(path: Path, frame, style=export_mod.CSV_STYLE) -> None:
         if "adjusted_forecast" in frame:  # the forecast file, written after the decisions
             with path.open("w", encoding="utf-8") as handle:
                 handle.write("item,location\nhalf")
             disk_full()
-        real(path, frame)
+        real(path, frame, style)
 
     monkeypatch.setattr(export_mod, "_write_csv", second_fails)
     with pytest.raises(TriageError, match=r"up-forecast\.csv.*No space left"):

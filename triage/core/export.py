@@ -196,6 +196,8 @@ class CsvStyle:
     """Field separator."""
     decimal: str = "."
     """Decimal mark of numbers."""
+    date_format: str | None = None
+    """How period dates are written (``strftime``), e.g. ``%d.%m.%Y``; None: ISO."""
 
     def __post_init__(self) -> None:
         if len(self.sep) != 1 or self.sep in '"\r\n' or self.sep.isalnum():
@@ -232,7 +234,8 @@ class _Bare(str):
         return float(self.replace(",", "."))
 
 
-#: The CSV export's style. The command line has no options for it yet; regional ones go here.
+#: The CSV export's default style: comma, decimal point, ISO dates (``--like-input`` follows
+#: the portfolio file's own instead).
 CSV_STYLE = CsvStyle()
 
 
@@ -901,8 +904,12 @@ def export_review(
     headers: Mapping[str, str] | None = None,
     layout: str = LONG,
     rounding: Rounding = DEFAULT_ROUNDING,
+    style: CsvStyle = CSV_STYLE,
 ) -> ExportResult:
     """Write the decisions and the adjusted forward forecast of a cycle for upload.
+
+    ``style`` sets a CSV export's separator, decimal mark and date format (``CsvStyle``;
+    ``--like-input`` takes the portfolio's own); xlsx and JSON have no such conventions.
 
     Args:
         portfolio: The portfolio whose forward forecast is exported.
@@ -970,8 +977,8 @@ def export_review(
         write_set_atomic(
             written,
             [
-                (paths[0].name, lambda tmp: _write_csv(tmp, decisions)),
-                (paths[1].name, lambda tmp: _write_csv(tmp, forecast)),
+                (paths[0].name, lambda tmp: _write_csv(tmp, decisions, style)),
+                (paths[1].name, lambda tmp: _write_csv(tmp, forecast, style)),
                 (paths[2].name, write_readme),
             ],
             force=force,
@@ -1047,6 +1054,12 @@ def _csv_columns(frame: pd.DataFrame, kinds: Sequence[str], style: CsvStyle) -> 
             columns.append(values.to_numpy(dtype=np.int64).tolist())
         elif kind == FLAG:
             columns.append(np.where(values.to_numpy(dtype=bool), "true", "false").tolist())
+        elif kind == DATE and style.date_format:
+            formatted = {
+                d: date.fromisoformat(str(d)).strftime(style.date_format) if d else d
+                for d in pd.unique(values)
+            }
+            columns.append([formatted[d] for d in values.tolist()])
         elif kind in (KEY, FIXED, DATE):
             columns.append(values.tolist())
         else:
