@@ -1004,6 +1004,12 @@ class Ledger:
         self.root_causes = root_causes
         self.schema_version = schema_version
         self._ro_reason = notice
+        # The (device, inode) of the file and its -wal as opened for writing: a save checks the
+        # path still names them, so a ledger deleted or replaced meanwhile is not written into
+        # an unlinked file and reported as saved.
+        self._identity: tuple[tuple[int, int] | None, ...] | None = (
+            None if read_only else _identity(path)
+        )
 
     # ---- opening ---------------------------------------------------------------------------
 
@@ -1701,6 +1707,21 @@ class Ledger:
                 hint="Open a ledger in a folder you can write to (--ledger PATH).",
             )
 
+    def _check_same_file(self, what: str) -> None:
+        """Raise LedgerWriteError when the path no longer names the file opened for writing."""
+        if self._identity is None:
+            return
+        now = _identity(self.path)
+        # A -wal that did not exist at opening may appear; one that existed must stay the same.
+        if now[0] == self._identity[0] and self._identity[1] in (None, now[1]):
+            return
+        raise LedgerWriteError(
+            f"The {what} was NOT saved: the decision ledger {self.path} was deleted, moved or "
+            "replaced while it was open, so anything written now would be lost.",
+            path=self.path,
+            hint="Restore the ledger (or its folder), then open it again and save again.",
+        )
+
     def _claim_version(
         self, con: sqlite3.Connection, cycle: str, item: str, location: str, expected: int
     ) -> int:
@@ -1760,8 +1781,11 @@ class Ledger:
             except sqlite3.Error as exc:
                 raise _translate(exc, self.path, saving=what) from exc
             try:
+                self._check_same_file(what)
                 yield con
+                self._check_same_file(what)
                 con.execute("COMMIT")
+                self._check_same_file(what)
             except BaseException as exc:
                 # After an I/O error SQLite may already have rolled back on its own.
                 if con.in_transaction:
@@ -2021,6 +2045,19 @@ def _connect(
     except sqlite3.Error as exc:
         raise _translate(exc, path) from exc
     return con
+
+
+def _identity(path: Path) -> tuple[tuple[int, int] | None, ...]:
+    """(device, inode) of the ledger file and of its ``-wal``, None for one that is missing."""
+    found: list[tuple[int, int] | None] = []
+    for name in (str(path), f"{path}-wal"):
+        try:
+            info = os.stat(name)
+        except OSError:
+            found.append(None)
+        else:
+            found.append((info.st_dev, info.st_ino))
+    return tuple(found)
 
 
 def _inspect(path: Path, timeout: float) -> _Inspection:
