@@ -548,6 +548,9 @@ class LedgerLocation:
     """Things the reviewer should know: a new ledger, an older per-file ledger, a fallback."""
     legacy: bool = False
     """The file is a per-file ledger of the older layout (``<portfolio stem>.ledger.sqlite``)."""
+    stand_in_for: Path | None = None
+    """The folder's own ledger, when the folder cannot be written and ``path`` (in the user data
+    folder) stands in for it; None when ``path`` is the folder's ledger."""
 
 
 def _fallback_folder(folder: Path) -> Path:
@@ -696,7 +699,7 @@ def _unwritable_folder(
     unused = [p for p in (target, own) if p is not None and p.exists()]
     if unused:
         notice += " The read-only ledger " + " and ".join(map(str, unused)) + " was not used."
-    return LedgerLocation(chosen, chosen.exists(), (notice,), legacy=legacy)
+    return LedgerLocation(chosen, chosen.exists(), (notice,), legacy=legacy, stand_in_for=target)
 
 
 def default_ledger_path(portfolio_path: str | Path) -> tuple[Path, str | None]:
