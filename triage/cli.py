@@ -319,12 +319,24 @@ def _run_app(app: TriageApp) -> int:
     return 0
 
 
-def _review_target(args: argparse.Namespace, config) -> tuple[Path, Path | None, list[str]]:
+def _review_target(
+    args: argparse.Namespace, config, *, stand_in: bool = True
+) -> tuple[Path, Path | None, list[str]]:
     """The portfolio a review opens (the newest in a folder), its ledger, and what to say.
 
     Without ``--ledger`` the ledger is the review folder's (``locate_ledger``). When no ledger
     can be had (neither the folder nor the user data folder is writable) it is left to the
     review screens, which open without saving and say why.
+
+    Args:
+        args: The parsed command line.
+        config: The configuration.
+        stand_in: Accept a ledger in the user data folder standing in for the ledger of a folder
+            that cannot be written; when False that is refused naming the folder's ledger (a
+            batch recorded there would never reach the folder's exports).
+
+    Raises:
+        TriageError: ``stand_in`` is False and the folder's ledger cannot be written.
     """
     from triage.core.ledger import locate_ledger
 
@@ -349,6 +361,14 @@ def _review_target(args: argparse.Namespace, config) -> tuple[Path, Path | None,
             where = locate_ledger(portfolio, name=config.ledger, for_writing=True)
         except TriageError:
             return portfolio, None, notices
+        if where.stand_in_for is not None and not stand_in:
+            raise TriageError(
+                f"the decision ledger of this folder, {where.stand_in_for}, cannot "
+                f"be written: the folder {where.stand_in_for.parent} is not "
+                "writable; nothing was recorded.",
+                hint="Ask for write access to the folder, or pass --ledger PATH to record the "
+                "decisions in another ledger on purpose.",
+            )
         ledger = where.path
         notices.extend(where.notices)
     return portfolio, ledger, notices

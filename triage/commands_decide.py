@@ -78,7 +78,7 @@ def cmd_decide(args: argparse.Namespace) -> int:
     if problem:
         raise TriageError(f"--reviewer {problem}.", hint="Pass a plain name with --reviewer NAME.")
     header, rows = read_batch(args.source)
-    _, ledger_path, notices = _review_target(args, config)
+    _, ledger_path, notices = _review_target(args, config, stand_in=False)
     if ledger_path is None:
         raise TriageError(
             "no writable decision ledger could be found for this portfolio.",

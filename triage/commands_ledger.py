@@ -2,7 +2,7 @@
 
 Both open the ledger read-only, so neither can change a decision. Every problem is raised as a
 ``TriageError``; ``triage.cli.main`` prints it as ``triage: <message>`` on stderr, exit 2.
-Text from the ledger reaches the terminal through ``printable`` and Rich ``Text`` objects only,
+Text from the ledger reaches the terminal through ``visible`` and Rich ``Text`` objects only,
 never as markup (reliability.md §3.1, §3.2).
 """
 
@@ -263,7 +263,8 @@ def _history_json(path: Path, events: list[Event | AdjustmentEnd], args: argpars
 
 
 def _history_csv(events: list[Event | AdjustmentEnd]) -> str:
-    from triage.core.export import neutralise_one, printable
+    from triage.core.export import neutralise_one
+    from triage.core.text import visible
 
     buffer = io.StringIO()
     writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")
@@ -276,10 +277,10 @@ def _history_csv(events: list[Event | AdjustmentEnd]) -> str:
                 row.append(value)
             elif name in ("item", "location"):
                 # Keys exactly as stored, but never raw control bytes on a terminal.
-                row.append(printable(value))
+                row.append(visible(value))
             else:
                 # Same text rules as the CSV export (OWASP CSV Injection; reliability.md §2.3).
-                row.append(printable(neutralise_one(value or ""), one_line=False))
+                row.append(visible(neutralise_one(value or ""), multiline=True))
         writer.writerow(row)
     return buffer.getvalue()
 
@@ -294,16 +295,16 @@ def _history_table(
     from rich.table import Table
     from rich.text import Text
 
-    from triage.core.export import printable
     from triage.core.ledger import END, OUTCOMES, UNDO, AdjustmentEnd
+    from triage.core.text import visible
 
     outcomes = {c.code: c.label for c in OUTCOMES}
     filters = [
-        f"{name} {printable(value)!r}"
+        f"{name} {visible(value)!r}"
         for name, value in (("cycle", args.cycle), ("item", args.item), ("location", args.location))
         if value is not None
     ]
-    header = f"{printable(str(path))}: {len(events):,} event{'s' if len(events) != 1 else ''}"
+    header = f"{visible(str(path))}: {len(events):,} event{'s' if len(events) != 1 else ''}"
     header += f" ({', '.join(filters)})" if filters else ""
     if not events:
         return header + "\n"
@@ -347,20 +348,20 @@ def _history_table(
             what = outcomes.get(e.outcome or "", e.outcome or "")
             cause = causes.get(e.root_cause or "", e.root_cause or "")
             version, adjustment = str(e.version), e.adjustment or ""
-        note = printable(e.note)
+        note = visible(e.note)
         if len(note) > TABLE_NOTE_MAX:
             note = note[:TABLE_NOTE_MAX] + "…"
         cells = [
             Text(str(e.id)),
             Text(e.recorded_at.replace("T", " ")[:19]),
-            Text(printable(e.reviewer)),
+            Text(visible(e.reviewer)),
             Text(e.cycle),
-            Text(printable(e.item)),
-            *([Text(printable(e.location))] if with_location else []),
+            Text(visible(e.item)),
+            *([Text(visible(e.location))] if with_location else []),
             Text(version),
-            Text(printable(what)),
-            Text(printable(cause)),
-            Text(printable(adjustment)),
+            Text(visible(what)),
+            Text(visible(cause)),
+            Text(visible(adjustment)),
             Text(note),
         ]
         table.add_row(*cells)
@@ -379,9 +380,10 @@ def _history_table(
 def cmd_export(args: argparse.Namespace) -> int:
     """``triage export``: decisions and adjusted forward forecast of a cycle, for upload."""
     from triage.core.config import default_reviewer
-    from triage.core.export import CAUTION, export_paths, export_review, printable
+    from triage.core.export import CAUTION, export_paths, export_review
     from triage.core.portfolio import read_portfolio
     from triage.core.rounding import parse_rounding
+    from triage.core.text import visible
 
     cycle = _check_cycle(args.cycle)
     # Defaults are core's (export_review): only what was given is passed on.
@@ -419,12 +421,12 @@ def cmd_export(args: argparse.Namespace) -> int:
         f"({result.adjusted_periods:,} adjusted periods)"
     )
     print(
-        f"Exported cycle {result.cycle} of {printable(portfolio.path.name)}: "
+        f"Exported cycle {result.cycle} of {visible(portfolio.path.name)}: "
         f"{result.decisions:,} reviewed series, {rows}."
     )
     print(f"Adjusted values rounded to {result.precision}.")
     for path in result.paths:
-        print(f"  wrote {printable(str(path))}")
+        print(f"  wrote {visible(str(path))}")
     for warning in result.warnings:
         warn(warning)
     print(f"Caution: {CAUTION}")

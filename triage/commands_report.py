@@ -3,7 +3,7 @@
 Both open the ledger read-only and only read the portfolio; the report is the one file written,
 atomically. Every problem is raised as a ``TriageError``; ``triage.cli.main`` prints it as
 ``triage: <message>`` on stderr, exit 2. Ledger text reaches the terminal only through
-``printable`` and Rich ``Text`` objects (reliability.md §3), and CSV text cells are neutralised
+``visible`` and Rich ``Text`` objects (reliability.md §3), and CSV text cells are neutralised
 against formula injection like every other export (reliability.md §2).
 """
 
@@ -194,8 +194,8 @@ def _check_scoring(args: argparse.Namespace) -> None:
 
 def cmd_report(args: argparse.Namespace) -> int:
     """``triage report``: write the HTML report and print its short summary."""
-    from triage.core.export import printable
     from triage.core.report import summary_text, write_report
+    from triage.core.text import visible
 
     _check_scoring(args)
     if args.top < 1:
@@ -214,7 +214,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     target_share = args.cover if args.cover is not None else config.target_share
     if ledger_path is None:
         warn(
-            f"No decisions have been recorded for {printable(portfolio.path.name)}; "
+            f"No decisions have been recorded for {visible(portfolio.path.name)}; "
             "the report has no "
             "decisions or overrides. Pass --ledger PATH if they are kept elsewhere."
         )
@@ -238,7 +238,7 @@ def cmd_report(args: argparse.Namespace) -> int:
             top=args.top,
             force=args.force,
         )
-    sys.stdout.write(printable(summary_text(result.data, result.path), one_line=False))
+    sys.stdout.write(visible(summary_text(result.data, result.path), multiline=True))
     sys.stdout.flush()
     return 0
 
@@ -330,7 +330,8 @@ def _cell(value: Any) -> Any:
 
 
 def _csv(frame: pd.DataFrame) -> str:
-    from triage.core.export import neutralise_one, printable
+    from triage.core.export import neutralise_one
+    from triage.core.text import visible
 
     buffer = io.StringIO()
     writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")
@@ -342,7 +343,7 @@ def _csv(frame: pd.DataFrame) -> str:
             value = _cell(value)
             if isinstance(value, str):
                 # Keys exactly as stored; other text as every CSV export writes it.
-                value = printable(value) if name in keys else printable(neutralise_one(value))
+                value = visible(value) if name in keys else visible(neutralise_one(value))
             out.append("" if value is None else value)
         writer.writerow(out)
     return buffer.getvalue()
@@ -387,14 +388,13 @@ def _table(
     from rich.text import Text
 
     from triage.core import history
-    from triage.core.export import printable
     from triage.core.report import fmt_int, fmt_money, fmt_pct, fmt_ratio, fmt_units
-    from triage.core.text import longest_word
+    from triage.core.text import longest_word, visible
 
     realised = int(status.loc[status["status"] == history.REALISED, "lines"].sum())
     ahead = int(status.loc[status["status"] == history.AHEAD, "lines"].sum())
     header = [
-        f"{printable(portfolio.path.name)}, cycle {portfolio.cycle}: {realised:,} overridden "
+        f"{visible(portfolio.path.name)}, cycle {portfolio.cycle}: {realised:,} overridden "
         f"periods with actuals, {ahead:,} still ahead",
         "error removed = |original - actual| - |adjusted - actual|; positive = the override helped",
     ]
@@ -441,7 +441,7 @@ def _table(
                 shown = "yes" if value else "no"
             else:
                 shown = str(value)
-            cells.append(Text(printable(shown)))
+            cells.append(Text(visible(shown)))
         table.add_row(*cells)
     width = max(100, shutil.get_terminal_size((140, 24)).columns)
     buffer = io.StringIO()

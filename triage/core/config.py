@@ -155,7 +155,8 @@ def load_config(path: str | Path | None = None) -> Config:
                 f"{CONFIG_MAX_BYTES:,} bytes are read)",
                 hint="Check that --config names the configuration file, not a data file.",
             )
-        data = tomllib.loads(file.read_text(encoding="utf-8"))
+        # utf-8-sig: Windows editors save "UTF-8 with BOM"; the mark is not part of the TOML.
+        data = tomllib.loads(file.read_text(encoding="utf-8-sig"))
     except UnicodeDecodeError as exc:
         raise ConfigError(file, None, f"is not UTF-8 text ({exc.reason})") from exc
     except OSError as exc:

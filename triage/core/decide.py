@@ -12,6 +12,7 @@ from __future__ import annotations
 
 import csv
 import io
+from collections.abc import Iterable, Iterator
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -42,7 +43,7 @@ class BatchRow:
     """One checked row of a decisions file."""
 
     line: int
-    """Row number in the file (the header is row 1)."""
+    """Row number in the file as a spreadsheet shows it (empty rows counted)."""
     series: int
     """Portfolio index of the series."""
     outcome: str
@@ -57,11 +58,15 @@ class BatchRow:
     """Reviewer whose decision in this cycle the row replaces, ``""`` when none."""
 
 
-def read_batch(path: Path) -> tuple[list[str], list[list[str]]]:
-    """Header and rows of a decisions file (CSV, UTF-8 with or without BOM, or xlsx).
+def read_batch(path: Path) -> tuple[list[str], list[tuple[int, list[str]]]]:
+    """Header and numbered rows of a decisions file (CSV, UTF-8 with or without BOM, or xlsx).
+
+    Rows are numbered as a spreadsheet shows them (the first row is 1): empty rows are skipped
+    but counted, so a bad row is named by the number the reviewer sees.
 
     Raises:
         BatchError: Missing, too large, not text, not a workbook, or empty.
+        LoadError: A workbook that is damaged or beyond the sheet limits.
     """
     name = visible(str(path))
     if path.is_dir():
@@ -76,16 +81,19 @@ def read_batch(path: Path) -> tuple[list[str], list[list[str]]]:
             f"{MAX_BYTES // 2**20} MB.",
             hint="Split the batch into several files.",
         )
-    if path.suffix.lower() in (".xlsx", ".xlsm"):
-        rows = _xlsx_rows(path, name)
-    else:
-        rows = _csv_rows(path, name)
-    rows = [r for r in rows if any(cell.strip() for cell in r)]
-    if not rows:
+    xlsx = path.suffix.lower() in (".xlsx", ".xlsm")
+    rows: Iterable[list[str]] = _xlsx_rows(path) if xlsx else _csv_rows(path, name)
+    numbered: list[tuple[int, list[str]]] = []
+    for line, row in enumerate(rows, start=1):
+        if any(cell.strip() for cell in row):
+            numbered.append((line, row))
+            if len(numbered) > MAX_ROWS + 1:
+                break
+    if not numbered:
         raise BatchError(f"{name} is empty; give a header row and one row per decision.")
-    if len(rows) - 1 > MAX_ROWS:
-        raise BatchError(f"{name} has {len(rows) - 1:,} rows; at most {MAX_ROWS:,} per batch.")
-    return [h.strip().lower() for h in rows[0]], rows[1:]
+    if len(numbered) - 1 > MAX_ROWS:
+        raise BatchError(f"{name} has more than {MAX_ROWS:,} rows; at most {MAX_ROWS:,} per batch.")
+    return [h.strip().lower() for h in numbered[0][1]], numbered[1:]
 
 
 def _csv_rows(path: Path, name: str) -> list[list[str]]:
@@ -104,27 +112,24 @@ def _csv_rows(path: Path, name: str) -> list[list[str]]:
         raise BatchError(f"{name} is not valid CSV: {exc}.") from exc
 
 
-def _xlsx_rows(path: Path, name: str) -> list[list[str]]:
-    import zipfile
+def _xlsx_rows(path: Path) -> Iterator[list[str]]:
+    """The first visible sheet's rows as text, cut to the header's width as they stream in.
 
-    from openpyxl import load_workbook
+    Read with the portfolio loader's bounded reader (``load.xlsx_rows``), so the loader's
+    sheet limits hold here too.
+    """
+    from triage.core.load import xlsx_rows
 
-    try:
-        book = load_workbook(path, read_only=True, data_only=True)
-    except (zipfile.BadZipFile, OSError, KeyError, ValueError) as exc:
-        raise BatchError(f"{name} is not a readable xlsx workbook ({exc}).") from exc
-    try:
-        sheet = book.worksheets[0]
-        rows = []
-        for values in sheet.iter_rows(values_only=True):
-            rows.append(["" if v is None else _cell_text(v) for v in values])
-            if len(rows) > MAX_ROWS + 1:
-                break
-        return rows
-    except Exception as exc:  # a damaged sheet can fail in many ways inside openpyxl
-        raise BatchError(f"{name}: the first sheet cannot be read ({exc}).") from exc
-    finally:
-        book.close()
+    width: int | None = None
+    for values in xlsx_rows(path):
+        if width is None:
+            if values.count(None) == len(values):
+                yield []
+                continue
+            width = len(values)
+            while values[width - 1] is None:
+                width -= 1
+        yield ["" if v is None else _cell_text(v) for v in values[:width]]
 
 
 def _cell_text(value: object) -> str:
@@ -145,7 +150,7 @@ def _lookup(choices: tuple[Choice, ...]) -> dict[str, str]:
 def check_batch(
     session: ReviewSession,
     header: list[str],
-    rows: list[list[str]],
+    rows: list[tuple[int, list[str]]],
     root_causes: tuple[Choice, ...],
     *,
     replace: bool = False,
@@ -155,7 +160,7 @@ def check_batch(
     Args:
         session: The review session of the portfolio the decisions are for.
         header: Column names, lower case.
-        rows: The data rows.
+        rows: The data rows with their row numbers in the file (``read_batch``).
         root_causes: The configured root causes (codes or labels are accepted).
         replace: Allow rows that replace another reviewer's decision in this cycle.
 
@@ -188,11 +193,12 @@ def check_batch(
         i = at.get(name)
         return row[i] if i is not None and i < len(row) else ""
 
-    for n, row in enumerate(rows, start=2):
-        item, location = cell(row, "item").strip(), cell(row, "location").strip()
+    for n, row in rows:
+        # Ids are exact, as in the portfolio: 'A' and 'A ' are two series.
+        item, location = cell(row, "item"), cell(row, "location")
         where = f"row {n}"
         found = session.find(item, location if has_location else "")
-        if not item:
+        if found is None and not item.strip():
             errors.append(f"{where}: no item")
             continue
         if found is None:

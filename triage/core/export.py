@@ -77,6 +77,7 @@ from triage.core.rounding import (
     describe,
     round_half_away,
 )
+from triage.core.text import visible
 
 #: Shown in every export, in every format, and by the command line after writing one.
 CAUTION = (
@@ -343,31 +344,6 @@ def neutralise(values: pd.Series | Sequence[str]) -> pd.Series:
 def neutralise_one(value: str) -> str:
     """``neutralise`` for a single text."""
     return str(neutralise([value]).iat[0])
-
-
-def printable(text: str, *, one_line: bool = True) -> str:
-    """Text safe to print on a terminal: control characters shown as visible symbols.
-
-    Rich strips only BEL, BS, VT, FF and CR, so ESC, NUL, DEL and C1 reach the terminal raw and
-    can set titles or hyperlinks (reliability.md §3.2). C0 controls become the Unicode control
-    pictures U+2400-U+241F (as the file loader does), DEL ``␡``, C1 ``�``. With ``one_line``,
-    tab and line feed are replaced too (``␉``, ``␊``); otherwise they are kept.
-    """
-    out = []
-    for ch in text:
-        code = ord(ch)
-        if code < 0x20:
-            if not one_line and ch in "\t\n":
-                out.append(ch)
-            else:
-                out.append(chr(0x2400 + code))
-        elif code == 0x7F:
-            out.append("\u2421")
-        elif 0x80 <= code < 0xA0:
-            out.append("\ufffd")
-        else:
-            out.append(ch)
-    return "".join(out)
 
 
 def _utf16_len(text: str) -> int:
@@ -1141,7 +1117,7 @@ def _readme_text(
     if warnings:
         lines += ["", "Warnings", *[f"  - {w}" for w in warnings]]
     lines += ["", "Columns", *[f"  {name}: {text}" for name, text in column_notes(sheets)]]
-    return "\n".join(printable(line) for line in lines) + "\n"
+    return "\n".join(visible(line) for line in lines) + "\n"
 
 
 def _manifest_line(path: Path) -> list[str]:
@@ -1302,7 +1278,7 @@ def _write_xlsx(
         sheet = book.create_sheet("Read me")
         _spool_beside(sheet, path)
         for row in _readme_rows(tables, sheets, [*tables.warnings, *warnings]):
-            texts = _xlsx_text([neutralise_one(printable(v)) for v in row], "Read me", issues)
+            texts = _xlsx_text([neutralise_one(visible(v)) for v in row], "Read me", issues)
             sheet.append([_as_string_cell(sheet, v) for v in texts])
         _save_book(book, path)
     except BaseException:

@@ -548,6 +548,9 @@ class LedgerLocation:
     """Things the reviewer should know: a new ledger, an older per-file ledger, a fallback."""
     legacy: bool = False
     """The file is a per-file ledger of the older layout (``<portfolio stem>.ledger.sqlite``)."""
+    stand_in_for: Path | None = None
+    """The folder's own ledger, when the folder cannot be written and ``path`` (in the user data
+    folder) stands in for it; None when ``path`` is the folder's ledger."""
 
 
 def _fallback_folder(folder: Path) -> Path:
@@ -696,7 +699,7 @@ def _unwritable_folder(
     unused = [p for p in (target, own) if p is not None and p.exists()]
     if unused:
         notice += " The read-only ledger " + " and ".join(map(str, unused)) + " was not used."
-    return LedgerLocation(chosen, chosen.exists(), (notice,), legacy=legacy)
+    return LedgerLocation(chosen, chosen.exists(), (notice,), legacy=legacy, stand_in_for=target)
 
 
 def default_ledger_path(portfolio_path: str | Path) -> tuple[Path, str | None]:
@@ -1004,6 +1007,12 @@ class Ledger:
         self.root_causes = root_causes
         self.schema_version = schema_version
         self._ro_reason = notice
+        # The (device, inode) of the file and its -wal as opened for writing: a save checks the
+        # path still names them, so a ledger deleted or replaced meanwhile is not written into
+        # an unlinked file and reported as saved.
+        self._identity: tuple[tuple[int, int] | None, ...] | None = (
+            None if read_only else _identity(path)
+        )
 
     # ---- opening ---------------------------------------------------------------------------
 
@@ -1701,6 +1710,21 @@ class Ledger:
                 hint="Open a ledger in a folder you can write to (--ledger PATH).",
             )
 
+    def _check_same_file(self, what: str) -> None:
+        """Raise LedgerWriteError when the path no longer names the file opened for writing."""
+        if self._identity is None:
+            return
+        now = _identity(self.path)
+        # A -wal that did not exist at opening may appear; one that existed must stay the same.
+        if now[0] == self._identity[0] and self._identity[1] in (None, now[1]):
+            return
+        raise LedgerWriteError(
+            f"The {what} was NOT saved: the decision ledger {self.path} was deleted, moved or "
+            "replaced while it was open, so anything written now would be lost.",
+            path=self.path,
+            hint="Restore the ledger (or its folder), then open it again and save again.",
+        )
+
     def _claim_version(
         self, con: sqlite3.Connection, cycle: str, item: str, location: str, expected: int
     ) -> int:
@@ -1760,8 +1784,11 @@ class Ledger:
             except sqlite3.Error as exc:
                 raise _translate(exc, self.path, saving=what) from exc
             try:
+                self._check_same_file(what)
                 yield con
+                self._check_same_file(what)
                 con.execute("COMMIT")
+                self._check_same_file(what)
             except BaseException as exc:
                 # After an I/O error SQLite may already have rolled back on its own.
                 if con.in_transaction:
@@ -2021,6 +2048,19 @@ def _connect(
     except sqlite3.Error as exc:
         raise _translate(exc, path) from exc
     return con
+
+
+def _identity(path: Path) -> tuple[tuple[int, int] | None, ...]:
+    """(device, inode) of the ledger file and of its ``-wal``, None for one that is missing."""
+    found: list[tuple[int, int] | None] = []
+    for name in (str(path), f"{path}-wal"):
+        try:
+            info = os.stat(name)
+        except OSError:
+            found.append(None)
+        else:
+            found.append((info.st_dev, info.st_ino))
+    return tuple(found)
 
 
 def _inspect(path: Path, timeout: float) -> _Inspection:

@@ -2139,6 +2139,45 @@ def _stream_sheet(
     return _SheetRows(header_at, header_row_cells, body, beyond, wide_start, early)
 
 
+def xlsx_rows(path: Path) -> Iterator[tuple[Any, ...]]:
+    """The rows (values) of a workbook's first visible sheet, under the loader's xlsx limits.
+
+    For small workbooks read whole elsewhere (a batch of decisions): the archive is checked and
+    the rows are counted as they stream in, exactly as for a portfolio, so a small file of wide
+    empty rows is refused before it takes memory. Rows come as the reader gives them (padded to
+    their last cell); the caller keeps only the cells it needs.
+
+    Raises:
+        LoadError: Not a workbook, damaged, or beyond the sheet limits.
+    """
+    import openpyxl
+    from openpyxl.utils.exceptions import InvalidFileException
+
+    scans = _check_archive(path)
+    with warnings.catch_warnings():
+        warnings.filterwarnings("ignore", category=UserWarning, module="openpyxl")
+        try:
+            book = openpyxl.load_workbook(path, read_only=True, data_only=True, keep_links=False)
+        except (zipfile.BadZipFile, OSError, KeyError, ValueError, InvalidFileException) as exc:
+            _fail(
+                path,
+                f"cannot open this as an Excel workbook ({exc}).",
+                "Check that it is an .xlsx file saved by Excel or LibreOffice, not damaged.",
+            )
+        except _XLSX_DAMAGED as exc:
+            _unopenable(path, exc)
+        try:
+            worksheet = _pick_sheet(path, book, None, [])
+            name = worksheet.title
+            sheet_path = getattr(worksheet, "_worksheet_path", None)
+            if sheet_path and sheet_path.lstrip("/") not in scans:
+                _scan_sheet(path, sheet_path, name)
+            worksheet.reset_dimensions()
+            yield from _sheet_rows(path, worksheet, name)
+        finally:
+            book.close()
+
+
 def _sheet_rows(path: Path, worksheet: Any, name: str) -> Iterator[tuple[Any, ...]]:
     """The rows of a sheet (values), counted as they come: refused past the sheet limits.
 
