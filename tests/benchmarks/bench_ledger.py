@@ -7,7 +7,7 @@ Run by hand (pytest does not collect ``bench_*.py``)::
 Both sides use the same durability settings (WAL, ``synchronous=FULL``, one ``BEGIN IMMEDIATE
 ... COMMIT`` per call), so the ratio shows what the ledger adds per decision (the event row, its
 child rows, the triggers). A per-record integrity check, an extra fsync or a reopen would cost
-multiples. Anchor: ``/work/shared/reference/performance-notes.md``, Ledger.
+multiples. Earlier figures: docs/performance.md, "Ledger".
 """
 
 from __future__ import annotations

@@ -1,8 +1,7 @@
 """Tests for triage.core.load: reading CSV, xlsx and Parquet portfolios, and every bad-input case.
 
 Files are invented (a garden-supply wholesaler) and written in each test. Where a test pins a pandas
-behaviour the loader has to work around, the comment cites the measurement in
-/work/shared/reference/reliability.md (§4, "measured with pandas 3.1.1").
+behaviour the loader has to work around, the comment says what was measured (pandas 3.1.1).
 """
 
 from __future__ import annotations
