@@ -914,6 +914,27 @@ def _check_lines(lines: Iterable[Line | Sequence[Any]] | None) -> tuple[Line, ..
     return tuple(sorted(out, key=lambda line: line.period))
 
 
+def _checked_row_fields(
+    cycle: object,
+    item: object,
+    location: object,
+    reviewer: object,
+    note: object,
+    portfolio_name: object,
+    portfolio_fingerprint: object,
+) -> tuple[str, str, str, str, str, str, str]:
+    """The fields an undo, an end and a restore share, checked as a decision's are."""
+    return (
+        _check_date(cycle, "cycle"),
+        _check_text(item, "item", allow_empty=False),
+        _check_text(location, "location", allow_empty=True),
+        _check_reviewer(reviewer),
+        _check_text(note, "note", allow_empty=True, limit=NOTE_MAX),
+        _check_text(portfolio_name, "portfolio name", allow_empty=True),
+        _check_text(portfolio_fingerprint, "portfolio fingerprint", allow_empty=True),
+    )
+
+
 def _check_version(value: object) -> int:
     if isinstance(value, bool) or not isinstance(value, int) or value < 0:
         raise DecisionError(f"expected_version must be a whole number >= 0, not {value!r}")
@@ -1347,14 +1368,10 @@ class Ledger:
                 ``record``; nothing was saved.
         """
         self._check_writable("undo")
-        cycle = _check_date(cycle, "cycle")
-        item = _check_text(item, "item", allow_empty=False)
-        location = _check_text(location, "location", allow_empty=True)
-        reviewer = _check_reviewer(reviewer)
-        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
-        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
-        portfolio_fingerprint = _check_text(
-            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        cycle, item, location, reviewer, note, portfolio_name, portfolio_fingerprint = (
+            _checked_row_fields(
+                cycle, item, location, reviewer, note, portfolio_name, portfolio_fingerprint
+            )
         )
         expected_version = _check_version(expected_version)
 
@@ -1446,14 +1463,10 @@ class Ledger:
             LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was saved.
         """
         self._check_writable("end of the adjustment")
-        cycle = _check_date(cycle, "cycle")
-        item = _check_text(item, "item", allow_empty=False)
-        location = _check_text(location, "location", allow_empty=True)
-        reviewer = _check_reviewer(reviewer)
-        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
-        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
-        portfolio_fingerprint = _check_text(
-            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        cycle, item, location, reviewer, note, portfolio_name, portfolio_fingerprint = (
+            _checked_row_fields(
+                cycle, item, location, reviewer, note, portfolio_name, portfolio_fingerprint
+            )
         )
         target = _check_id(target, "target")
         series = describe_series(item, location)
@@ -1524,14 +1537,10 @@ class Ledger:
             LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was saved.
         """
         self._check_writable("restore of the adjustment")
-        cycle = _check_date(cycle, "cycle")
-        item = _check_text(item, "item", allow_empty=False)
-        location = _check_text(location, "location", allow_empty=True)
-        reviewer = _check_reviewer(reviewer)
-        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
-        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
-        portfolio_fingerprint = _check_text(
-            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        cycle, item, location, reviewer, note, portfolio_name, portfolio_fingerprint = (
+            _checked_row_fields(
+                cycle, item, location, reviewer, note, portfolio_name, portfolio_fingerprint
+            )
         )
         end = _check_id(end, "end")
         with self._write("restore of the adjustment") as con:
