@@ -1982,22 +1982,8 @@ def _read_xlsx(
     options: FileOptions | None = None,
 ) -> tuple[_Raw, str]:
     options = options or FileOptions()
-    import openpyxl
-    from openpyxl.utils.exceptions import InvalidFileException
 
-    scans = _check_archive(path)
-    with warnings.catch_warnings():
-        warnings.filterwarnings("ignore", category=UserWarning, module="openpyxl")
-        try:
-            book = openpyxl.load_workbook(path, read_only=True, data_only=True, keep_links=False)
-        except (zipfile.BadZipFile, OSError, KeyError, ValueError, InvalidFileException) as exc:
-            _fail(
-                path,
-                f"cannot open this as an Excel workbook ({exc}).",
-                "Check that it is an .xlsx file saved by Excel or LibreOffice, not damaged.",
-            )
-        except _XLSX_DAMAGED as exc:
-            _unopenable(path, exc)
+    with _open_book(path) as (book, scans):
         try:
             worksheet = _pick_sheet(path, book, sheet, notices)
             name = worksheet.title
@@ -2150,6 +2136,25 @@ def xlsx_rows(path: Path) -> Iterator[tuple[Any, ...]]:
     Raises:
         LoadError: Not a workbook, damaged, or beyond the sheet limits.
     """
+
+    with _open_book(path) as (book, scans):
+        try:
+            worksheet = _pick_sheet(path, book, None, [])
+            name = worksheet.title
+            sheet_path = getattr(worksheet, "_worksheet_path", None)
+            if sheet_path and sheet_path.lstrip("/") not in scans:
+                _scan_sheet(path, sheet_path, name)
+            worksheet.reset_dimensions()
+            yield from _sheet_rows(path, worksheet, name)
+        finally:
+            book.close()
+
+
+@contextlib.contextmanager
+def _open_book(path: Path) -> Iterator[tuple[Any, dict[str, Any]]]:
+    """The workbook opened read-only after its archive is checked (``_check_archive``), and the
+    sheet scans made; openpyxl's warnings are silenced while the caller reads it. The caller
+    closes the book."""
     import openpyxl
     from openpyxl.utils.exceptions import InvalidFileException
 
@@ -2166,16 +2171,7 @@ def xlsx_rows(path: Path) -> Iterator[tuple[Any, ...]]:
             )
         except _XLSX_DAMAGED as exc:
             _unopenable(path, exc)
-        try:
-            worksheet = _pick_sheet(path, book, None, [])
-            name = worksheet.title
-            sheet_path = getattr(worksheet, "_worksheet_path", None)
-            if sheet_path and sheet_path.lstrip("/") not in scans:
-                _scan_sheet(path, sheet_path, name)
-            worksheet.reset_dimensions()
-            yield from _sheet_rows(path, worksheet, name)
-        finally:
-            book.close()
+        yield book, scans
 
 
 def _sheet_rows(path: Path, worksheet: Any, name: str) -> Iterator[tuple[Any, ...]]:
