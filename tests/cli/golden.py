@@ -89,7 +89,16 @@ def produce(work: Path) -> dict[str, str]:
     for name, text in _files(exports / "week"):
         out[f"export-csv/{name}"] = text
     out["export-csv-wide"] = _run(
-        ["export", newest, "--to", str(exports / "wide.csv"), "--layout", "wide", "--round", "units"]
+        [
+            "export",
+            newest,
+            "--to",
+            str(exports / "wide.csv"),
+            "--layout",
+            "wide",
+            "--round",
+            "units",
+        ]
     )
     for name, text in _files(exports / "wide"):
         out[f"export-csv-wide/{name}"] = text
