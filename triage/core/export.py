@@ -438,18 +438,9 @@ def review_tables(
     decided = ledger.current(cycle)
     items = keys[ITEM].to_numpy(dtype=object)
     locations = keys[LOCATION].to_numpy(dtype=object) if has_location else None
-    decided_items = [d.item for d in decided]
-    decided_locations = [d.location for d in decided]
-    if not decided:
-        series = np.empty(0, dtype=np.int64)
-    elif has_location:
-        index = pd.MultiIndex.from_arrays([items, locations])
-        probe = pd.MultiIndex.from_arrays([decided_items, decided_locations])
-        series = np.asarray(index.get_indexer(probe), dtype=np.int64)
-    else:
-        series = np.asarray(pd.Index(items).get_indexer(decided_items), dtype=np.int64)
-        # Without a location column a series is found only by a decision without location.
-        series[np.array(decided_locations, dtype=object) != ""] = -1
+    series = portfolio.series_index.positions(
+        [d.item for d in decided], [d.location for d in decided]
+    )
     unmatched = [d for d, s in zip(decided, series, strict=True) if s < 0]
     if unmatched:
         warnings.append(

@@ -146,35 +146,11 @@ class HistoryError(TriageError):
 # Joining ledger text to the portfolio
 
 
-def key_index(portfolio: Portfolio) -> pd.Index:
-    """The portfolio's series keys as an index (MultiIndex with a location column)."""
-    keys = portfolio.keys
-    if schema.LOCATION in portfolio.key_columns:
-        return pd.MultiIndex.from_arrays(
-            [keys[schema.ITEM].to_numpy(dtype=object), keys[schema.LOCATION].to_numpy(dtype=object)]
-        )
-    return pd.Index(keys[schema.ITEM].to_numpy(dtype=object))
-
-
 def series_positions(
     portfolio: Portfolio, items: Sequence[str] | np.ndarray, locations: Sequence[str] | np.ndarray
 ) -> np.ndarray:
-    """Portfolio position of each (item, location), -1 where the series is not in it.
-
-    Without a location column a ledger key matches only with an empty location, as the review
-    screens store it.
-    """
-    items = np.asarray(items, dtype=object)
-    locations = np.asarray(locations, dtype=object)
-    if len(items) == 0:
-        return np.empty(0, dtype=np.int64)
-    index = key_index(portfolio)
-    if isinstance(index, pd.MultiIndex):
-        probe = pd.MultiIndex.from_arrays([items, locations])
-        return np.asarray(index.get_indexer(probe), dtype=np.int64)
-    found = np.asarray(index.get_indexer(items), dtype=np.int64)
-    found[locations != ""] = -1
-    return found
+    """Portfolio position of each (item, location), -1 where absent (``Portfolio.series_index``)."""
+    return portfolio.series_index.positions(items, locations)
 
 
 def period_dates(portfolio: Portfolio) -> pd.Index:

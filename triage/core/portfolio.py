@@ -264,6 +264,18 @@ class Portfolio:
                 digest.update(chunk)
         return digest.hexdigest()
 
+    @cached_property
+    def series_index(self) -> SeriesIndex:
+        """The one lookup from a ledger key (item, location) to the series' position."""
+        return SeriesIndex(self.keys, self.key_columns)
+
+    def key(self, series: int) -> tuple[str, str]:
+        """``(item, location)`` of a series as the ledger stores it (location ``""`` if none)."""
+        location = (
+            self.keys[schema.LOCATION].iat[series] if schema.LOCATION in self.key_columns else ""
+        )
+        return str(self.keys[schema.ITEM].iat[series]), str(location)
+
     def key_text(self, index: int) -> str:
         """``item`` or ``item @ location`` of series ``index``, for messages (control
         characters shown as visible symbols)."""
@@ -286,6 +298,45 @@ class Portfolio:
         _, codes, labels = coded
         taken = labels.take(pa.array(codes[order]))
         return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+
+
+class SeriesIndex:
+    """Positions of series keys in a portfolio, as the ledger names a series: (item, location).
+
+    Without a location column a ledger key matches only with an empty location, as the review
+    screens store it; keys are matched exactly (no trimming, no case folding).
+    """
+
+    def __init__(self, keys: pd.DataFrame, key_columns: tuple[str, ...]) -> None:
+        items = keys[schema.ITEM].to_numpy(dtype=object)
+        self._located = schema.LOCATION in key_columns
+        self._index: pd.Index = (
+            pd.MultiIndex.from_arrays([items, keys[schema.LOCATION].to_numpy(dtype=object)])
+            if self._located
+            else pd.Index(items)
+        )
+
+    def positions(
+        self,
+        items: Sequence[str] | npt.NDArray[Any] | pd.Series,
+        locations: Sequence[str] | npt.NDArray[Any] | pd.Series,
+    ) -> npt.NDArray[np.int64]:
+        """Portfolio position of each (item, location), -1 where the series is not in it."""
+        items = np.asarray(items, dtype=object)
+        locations = np.asarray(locations, dtype=object)
+        if len(items) == 0:
+            return np.empty(0, dtype=np.int64)
+        if self._located:
+            probe = pd.MultiIndex.from_arrays([items, locations])
+            return np.asarray(self._index.get_indexer(probe), dtype=np.int64)
+        found = np.asarray(self._index.get_indexer(items), dtype=np.int64)
+        found[locations != ""] = -1
+        return found
+
+    def find(self, item: str, location: str = "") -> int | None:
+        """Position of one series, None when it is not in the portfolio."""
+        found = int(self.positions([item], [location])[0])
+        return None if found < 0 else found
 
 
 def build_portfolio(

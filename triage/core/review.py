@@ -190,7 +190,6 @@ class ReviewSession:
         """Ledger version per series in this cycle (what the next write must expect)."""
         self.decided_by = np.full(n, "", dtype=object)
         """Who recorded the series' effective decision in this cycle, ``""`` when none."""
-        self._key_index = self._build_key_index()
         self._search: np.ndarray | None = None
         self._folded: dict[str, np.ndarray] | None = None
         self.notices: list[str] = []
@@ -246,26 +245,13 @@ class ReviewSession:
 
     # -- keys ---------------------------------------------------------------------------------
 
-    def _build_key_index(self) -> pd.Index:
-        keys = self.portfolio.keys
-        if schema.LOCATION in self.portfolio.key_columns:
-            return pd.MultiIndex.from_arrays([keys[schema.ITEM], keys[schema.LOCATION]])
-        return pd.Index(keys[schema.ITEM])
-
     def key(self, series: int) -> tuple[str, str]:
         """``(item, location)`` of a series as the ledger stores it (location ``""`` if none)."""
-        keys = self.portfolio.keys
-        location = keys[schema.LOCATION].iat[series] if schema.LOCATION in keys else ""
-        return str(keys[schema.ITEM].iat[series]), str(location)
+        return self.portfolio.key(series)
 
     def find(self, item: str, location: str = "") -> int | None:
         """Portfolio index of a series by key, None when it is not in the portfolio."""
-        probe = (item, location) if isinstance(self._key_index, pd.MultiIndex) else item
-        try:
-            found = self._key_index.get_loc(probe)
-        except KeyError:
-            return None
-        return int(found) if isinstance(found, (int, np.integer)) else None
+        return self.portfolio.series_index.find(item, location)
 
     def find_all(self, item: str, location: str = "") -> np.ndarray:
         """Series whose item (and location, when given) match, ignoring case; in key order.
@@ -393,9 +379,7 @@ class ReviewSession:
             return False
 
     def _indexer(self, pairs: list[tuple[str, str]]) -> np.ndarray:
-        if isinstance(self._key_index, pd.MultiIndex):
-            return self._key_index.get_indexer(pd.MultiIndex.from_tuples(pairs))
-        return self._key_index.get_indexer([p[0] for p in pairs])
+        return self.portfolio.series_index.positions([p[0] for p in pairs], [p[1] for p in pairs])
 
     @property
     def can_save(self) -> bool:
