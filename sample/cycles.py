@@ -248,6 +248,7 @@ def build_cycles(folder: str | Path, *, seed: int = CYCLES_SEED) -> CycleScenari
         RuntimeError: The seed does not give a scenario with the promised properties (a plan
             series outside the worst set, an adjustment line that is not the planned one).
     """
+    from triage.core.cycle import ReviewCycle
     from triage.core.ledger import Ledger
     from triage.core.portfolio import read_portfolio
     from triage.core.ranking import leading_cover
@@ -359,7 +360,7 @@ def build_cycles(folder: str | Path, *, seed: int = CYCLES_SEED) -> CycleScenari
     with Ledger.open(ledger_path) as ledger:
         for k, path in enumerate(files):
             portfolio = read_portfolio(path)
-            session = ReviewSession(portfolio, ledger=ledger, reviewer="planner")
+            session = ReviewSession(ReviewCycle(portfolio, ledger), reviewer="planner")
             for plan in (p for p in PLAN if p.cycle == k):
                 index = session.find(*keys[plan.role])
                 if index is None:

@@ -120,15 +120,16 @@ def cmd_decide(args: argparse.Namespace) -> int:
 
 
 def _session(args, portfolio, ledger, reviewer, config):
+    from triage.core.cycle import ReviewCycle
     from triage.core.review import ReviewSession
+    from triage.core.settings import ScoreSettings
 
+    settings = ScoreSettings(
+        window=args.window, season=args.season, target_share=config.target_share
+    )
     return ReviewSession(
-        portfolio,
-        ledger=ledger,
+        ReviewCycle(portfolio, ledger, settings),
         reviewer=reviewer,
-        window=args.window,
-        season=args.season,
-        target_share=config.target_share,
         record_worst_set=ledger is not None and not ledger.read_only,
     )
 

@@ -380,6 +380,7 @@ def _history_table(
 def cmd_export(args: argparse.Namespace) -> int:
     """``triage export``: decisions and adjusted forward forecast of a cycle, for upload."""
     from triage.core.config import default_reviewer
+    from triage.core.cycle import ReviewCycle
     from triage.core.export import CAUTION, export_paths, export_review
     from triage.core.portfolio import read_portfolio
     from triage.core.rounding import parse_rounding
@@ -404,10 +405,8 @@ def cmd_export(args: argparse.Namespace) -> int:
     portfolio = read_portfolio(args.portfolio, **reading)
     with open_ledger_read_only(ledger_path, config) as ledger:
         result = export_review(
-            portfolio,
-            ledger,
+            ReviewCycle(portfolio, ledger, name=cycle),
             args.to,
-            cycle=cycle,
             force=args.force,
             exported_by=default_reviewer(config),
             headers=columns,

@@ -194,7 +194,9 @@ def _check_scoring(args: argparse.Namespace) -> None:
 
 def cmd_report(args: argparse.Namespace) -> int:
     """``triage report``: write the HTML report and print its short summary."""
+    from triage.core.cycle import ReviewCycle
     from triage.core.report import summary_text, write_report
+    from triage.core.settings import ScoreSettings
     from triage.core.text import visible
 
     _check_scoring(args)
@@ -226,15 +228,15 @@ def cmd_report(args: argparse.Namespace) -> int:
     with opened as ledger:
         if ledger is not None and ledger.notice:
             warn(ledger.notice)
-        result = write_report(
-            portfolio,
-            ledger,
-            args.to,
+        settings = ScoreSettings(
             window=args.window,
             season=args.season,
             target_share=target_share,
-            repeat_n=repeat_n,
-            repeat_m=repeat_m,
+            repeat=(repeat_n, repeat_m),
+        )
+        result = write_report(
+            ReviewCycle(portfolio, ledger, settings),
+            args.to,
             top=args.top,
             force=args.force,
         )
@@ -286,14 +288,16 @@ DETAIL_COLUMNS = (
 def cmd_overrides(args: argparse.Namespace) -> int:
     """``triage overrides``: the realised value of earlier overrides."""
     from triage.core import history
+    from triage.core.cycle import ReviewCycle
 
     config = _config(args)
     ledger_path = _ledger_path(args, config, required=True)
     assert ledger_path is not None
     portfolio = _load(args)
     with open_ledger_read_only(ledger_path, config) as ledger:
-        realised = history.realised_value(portfolio, ledger)
-        status = history.line_status(portfolio, ledger)
+        review = ReviewCycle(portfolio, ledger)
+        realised = review.realised
+        status = review.line_status
         causes = {c.code: c.label for c in ledger.root_causes}
     priced = portfolio.price is not None
     if args.detail:

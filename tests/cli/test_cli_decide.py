@@ -13,6 +13,7 @@ import pytest
 
 from tests.cli.test_cli import run
 from tests.core.twoweeks import TwoWeeks, write_two_weeks
+from triage.core.cycle import ReviewCycle
 from triage.core.ledger import FOLDER_LEDGER, Ledger
 from triage.core.portfolio import read_portfolio
 from triage.core.review import ReviewSession
@@ -104,7 +105,7 @@ def test_replacing_another_reviewers_decision_needs_replace(
 ) -> None:
     ledger = weeks.week1.parent / FOLDER_LEDGER
     with Ledger.open(ledger) as opened:
-        session = ReviewSession(read_portfolio(weeks.week1), ledger=opened, reviewer="bob")
+        session = ReviewSession(ReviewCycle(read_portfolio(weeks.week1), opened), reviewer="bob")
         series = session.find("A", "Lyon")
         assert series is not None
         session.commit_decision(series, outcome="deferred", root_cause="unknown")

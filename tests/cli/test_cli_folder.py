@@ -17,6 +17,7 @@ import pytest
 from tests.cli.test_cli import run
 from tests.core.twoweeks import WEEK1, WEEK2, TwoWeeks, write_two_weeks
 from triage import cli
+from triage.core.cycle import ReviewCycle
 from triage.core.folder import newest_portfolio
 from triage.core.ledger import FOLDER_LEDGER, Ledger, locate_ledger
 from triage.core.portfolio import read_portfolio
@@ -37,7 +38,7 @@ def _adjust(session: ReviewSession, item: str, spec: str) -> None:
 def weeks(tmp_path: Path) -> TwoWeeks:
     weeks = write_two_weeks(tmp_path / "review")
     with Ledger.open(locate_ledger(weeks.week1).path) as ledger:
-        session = ReviewSession(read_portfolio(weeks.week1), ledger=ledger, reviewer="ana")
+        session = ReviewSession(ReviewCycle(read_portfolio(weeks.week1), ledger), reviewer="ana")
         for item, spec in {"A": "+10", "B": "=50", "C": "+5"}.items():
             _adjust(session, item, spec)
     return weeks
@@ -80,7 +81,7 @@ def test_two_week_flow_carries_week_one_adjustments_into_week_two_export(
 
     # Week 2: the reviewer ends C's adjustment; the next export no longer carries it.
     with Ledger.open(ledger) as opened:
-        session = ReviewSession(read_portfolio(weeks.week2), ledger=opened, reviewer="bob")
+        session = ReviewSession(ReviewCycle(read_portfolio(weeks.week2), opened), reviewer="bob")
         c = session.find("C", "Lyon")
         assert c is not None
         (active,) = session.active_adjustments(c)

@@ -20,6 +20,7 @@ import pytest
 
 from sample.cycles import CYCLES_SEED, N_FILES, CycleScenario, build_cycles
 from triage.core import history, report
+from triage.core.cycle import ReviewCycle
 from triage.core.ledger import Ledger
 from triage.core.portfolio import read_portfolio
 from triage.core.review import ReviewSession
@@ -74,7 +75,7 @@ def scenario(tmp_path_factory: pytest.TempPathFactory) -> CycleScenario:
 def _core(scenario: CycleScenario) -> report.ReportData:
     portfolio = read_portfolio(scenario.files[NEWEST])
     with Ledger.open(scenario.ledger, read_only=True) as ledger:
-        return report.build_report(portfolio, ledger)
+        return report.build_report(ReviewCycle(portfolio, ledger))
 
 
 def test_report_writes_the_default_file_and_prints_the_summary(scenario: CycleScenario) -> None:
@@ -261,7 +262,7 @@ def test_overrides_csv_neutralises_formula_text(tmp_path: Path) -> None:
 
     write(3)
     with Ledger.open(tmp_path / "w.ledger.sqlite") as ledger:
-        session = ReviewSession(read_portfolio(path), ledger=ledger, reviewer="@evil\x1b[31m")
+        session = ReviewSession(ReviewCycle(read_portfolio(path), ledger), reviewer="@evil\x1b[31m")
         session.commit_decision(0, outcome="adjusted", root_cause="promotion", adjustment="1: -1")
     write(4)
     result = run("overrides", str(path), "--by", "reviewer", "--format", "csv", cwd=tmp_path)

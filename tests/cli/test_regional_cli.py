@@ -105,6 +105,7 @@ def test_export_like_input_writes_the_files_own_conventions(tmp_path: Path) -> N
     # The same portfolio exported plainly and --like-input: read back with pandas in each
     # file's own convention (pandas.read_csv sep/decimal, the outside reference), the tables
     # are equal, and the periods are written day first as in the file.
+    from triage.core.cycle import ReviewCycle
     from triage.core.ledger import Ledger
     from triage.core.portfolio import read_portfolio
     from triage.core.review import ReviewSession
@@ -113,7 +114,7 @@ def test_export_like_input_writes_the_files_own_conventions(tmp_path: Path) -> N
     opts = ["--sep", ";", "--decimal", ",", "--date-format", "%d.%m.%Y", "--header-row", "4"]
     ledger = tmp_path / "l.sqlite"
     with Ledger.open(ledger) as opened:
-        session = ReviewSession(read_portfolio(plain), ledger=opened, reviewer="ana")
+        session = ReviewSession(ReviewCycle(read_portfolio(plain), opened), reviewer="ana")
         series = int(session.error_order[0])
         session.commit_decision(
             series, outcome="adjusted", root_cause="promotion", adjustment="+7%"

@@ -16,6 +16,7 @@ import pytest
 
 from tests.core.twoweeks import WEEK1, WEEK2, TwoWeeks, write_two_weeks
 from triage.core import history
+from triage.core.cycle import ReviewCycle
 from triage.core.export import review_tables
 from triage.core.ledger import FOLDER_LEDGER, DecisionError, Ledger, locate_ledger
 from triage.core.portfolio import read_portfolio
@@ -26,7 +27,7 @@ WEEK1_SPECS = {"A": "+10", "B": "=50", "C": "+5", "D": "+20"}
 
 
 def _session(path: Path, ledger: Ledger, reviewer: str = "ana") -> ReviewSession:
-    return ReviewSession(read_portfolio(path), ledger=ledger, reviewer=reviewer)
+    return ReviewSession(ReviewCycle(read_portfolio(path), ledger), reviewer=reviewer)
 
 
 def _adjust(session: ReviewSession, item: str, spec: str) -> None:
@@ -62,7 +63,7 @@ def test_week_two_finds_the_folder_ledger_and_carries_what_is_still_ahead(
     where = locate_ledger(weeks.week2, for_writing=False)
     assert where.path == weeks.week1.parent / FOLDER_LEDGER and where.exists
     with Ledger.open(where.path, read_only=True) as ledger:
-        tables = review_tables(read_portfolio(weeks.week2), ledger)
+        tables = review_tables(ReviewCycle(read_portfolio(weeks.week2), ledger))
     ahead = list(weeks.forward2[:3])  # 11-16 .. 11-30: week 1's last three forward weeks
     last = weeks.forward2[3]  # 12-07: beyond week 1's horizon
     a = _forecast(tables, "A")
@@ -95,7 +96,7 @@ def test_a_decision_of_the_new_cycle_takes_precedence_period_by_period(weeks: Tw
         carried = week2.carried_forward(d)
         assert carried is not None
         np.testing.assert_array_equal(carried, [np.nan, np.nan, 220.0, np.nan])
-        tables = review_tables(week2.portfolio, ledger)
+        tables = review_tables(ReviewCycle(week2.portfolio, ledger))
     rows = _forecast(tables, "D")
     assert rows["adjusted_forecast"].tolist() == [250.0, 250.0, 220.0, 200.0]
     assert rows["adjusted_in_cycle"].astype(str).tolist() == [WEEK2, WEEK2, WEEK1, ""]
@@ -139,7 +140,7 @@ def test_ending_an_adjustment_removes_it_from_the_export_and_restoring_brings_it
         (ended,) = week2.active_adjustments(c)
         assert ended.ended == end and not ended.active
         assert f"ended by bob at {end.recorded_at}" in "\n".join(week2.across_cycles(c))
-        rows = _forecast(review_tables(week2.portfolio, ledger), "C")
+        rows = _forecast(review_tables(ReviewCycle(week2.portfolio, ledger)), "C")
         assert rows["adjusted_forecast"].tolist() == [30.0] * 4 and not rows["adjusted"].any()
         # A fresh session reads the same from the ledger.
         again = _session(weeks.week2, ledger)
@@ -149,7 +150,7 @@ def test_ending_an_adjustment_removes_it_from_the_export_and_restoring_brings_it
         back = week2.commit_restore_adjustment(c, end.id)
         week2.apply_end(back)
         assert week2.carries[c]
-        rows = _forecast(review_tables(week2.portfolio, ledger), "C")
+        rows = _forecast(review_tables(ReviewCycle(week2.portfolio, ledger)), "C")
         assert rows["adjusted_forecast"].tolist() == [35.0, 35.0, 35.0, 30.0]
 
 
@@ -160,13 +161,13 @@ def test_an_ended_adjustment_counts_no_value_after_its_end(weeks: TwoWeeks) -> N
         assert c is not None
         (active,) = week2.active_adjustments(c)
         week2.apply_end(week2.commit_end_adjustment(c, active.event_id))
-        lines = history.adjustment_lines(week2.portfolio, ledger)
+        lines = ReviewCycle(week2.portfolio, ledger).lines
     mine = lines.loc[lines["item"] == "C"].set_index("period")["status"]
     # 11-09 had its actual before the end (cycle 11-09): realised; the rest is ended.
     assert mine.loc[weeks.forward1[0]] == history.REALISED
     assert mine.loc[list(weeks.forward1[1:])].tolist() == [history.ENDED] * 3
     with Ledger.open(weeks.week1.parent / FOLDER_LEDGER, read_only=True) as ledger:
-        active = history.active_adjustments(read_portfolio(weeks.week2), ledger)
+        active = ReviewCycle(read_portfolio(weeks.week2), ledger).active
     assert "C" not in set(active["item"])
 
 

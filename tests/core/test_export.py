@@ -29,6 +29,7 @@ from openpyxl.writer import excel
 
 from triage.core import export as export_mod
 from triage.core.config import numbered
+from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.export import CAUTION, ExportError, export_review, review_tables
 from triage.core.ledger import Ledger
@@ -290,7 +291,7 @@ def same_number(got: object, want: float | None) -> bool:
 
 
 def test_tables_apply_exactly_the_effective_adjustments(scenario: dict) -> None:
-    tables = review_tables(scenario["portfolio"], scenario["ledger"])
+    tables = review_tables(ReviewCycle(scenario["portfolio"], scenario["ledger"]))
     fc = tables.forecast
     assert len(fc) == len(series_keys()) * len(FORWARD)
     want = expected_adjusted(scenario)
@@ -313,7 +314,7 @@ def test_tables_apply_exactly_the_effective_adjustments(scenario: dict) -> None:
 
 
 def test_units_and_value_change_follow_their_definition(scenario: dict) -> None:
-    tables = review_tables(scenario["portfolio"], scenario["ledger"])
+    tables = review_tables(ReviewCycle(scenario["portfolio"], scenario["ledger"]))
     dec = tables.decisions.set_index(["item", "location"])
     for key, lines in scenario["lines"].items():
         # Definition (docs/export.md): Σ (adjusted − original), and Σ (adjusted − original) ×
@@ -348,14 +349,14 @@ def test_other_cycle_and_unknown_series_are_reported(scenario: dict) -> None:
         portfolio_fingerprint="0" * 64,
         expected_version=0,
     )
-    tables = review_tables(portfolio, ledger)
+    tables = review_tables(ReviewCycle(portfolio, ledger))
     assert "GHOST" not in set(tables.decisions["item"])
     assert any("not in week44.csv" in w and "'GHOST'" in w for w in tables.warnings)
-    old = review_tables(portfolio, ledger, cycle=OLD_CYCLE)
+    old = review_tables(ReviewCycle(portfolio, ledger, name=OLD_CYCLE))
     assert list(old.decisions["item"]) == ["+x"] and list(old.decisions["outcome"]) == ["deferred"]
     assert any(f"Cycle {OLD_CYCLE} is not the cycle" in w for w in old.warnings)
     with pytest.raises(ExportError, match="not an ISO date"):
-        review_tables(portfolio, ledger, cycle="last week")
+        review_tables(ReviewCycle(portfolio, ledger, name="last week"))
 
 
 def test_portfolio_without_location_has_no_location_column(tmp_path: Path) -> None:
@@ -381,8 +382,8 @@ def test_portfolio_without_location_has_no_location_column(tmp_path: Path) -> No
             portfolio_fingerprint=portfolio.fingerprint,
             expected_version=0,
         )
-        tables = review_tables(portfolio, ledger)
-        result = export_review(portfolio, ledger, tmp_path / "out.json")
+        tables = review_tables(ReviewCycle(portfolio, ledger))
+        result = export_review(ReviewCycle(portfolio, ledger), tmp_path / "out.json")
     assert "location" not in tables.decisions and "location" not in tables.forecast
     assert tables.forecast["adjusted_forecast"].tolist() == [3.0, 5.0]
     # No price column: the value change is unknown, never 0 (empty in CSV, null in JSON).
@@ -404,7 +405,9 @@ def read_csv(path: Path) -> list[list[object]]:
 def test_csv_round_trip_keeps_keys_numbers_and_neutralises_text(
     scenario: dict, tmp_path: Path
 ) -> None:
-    result = export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    result = export_review(
+        ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "up.csv"
+    )
     names = [p.name for p in result.paths]
     assert names == ["up-decisions.csv", "up-forecast.csv", "up-README.txt"]
     # One folder holds the set (it is what gets replaced as a whole), and nothing else.
@@ -460,7 +463,7 @@ def test_csv_round_trip_keeps_keys_numbers_and_neutralises_text(
 
 
 def test_csv_bare_cr_never_reaches_the_file(scenario: dict, tmp_path: Path) -> None:
-    export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "up.csv")
     raw = (tmp_path / "up" / "up-decisions.csv").read_bytes()
     # Records end with CRLF (RFC 4180); any other CR would be a bare CR from a note, the case
     # CPython < 3.11.9 writes unquoted (reliability.md §2.3, gh-67044).
@@ -468,7 +471,7 @@ def test_csv_bare_cr_never_reaches_the_file(scenario: dict, tmp_path: Path) -> N
 
 
 def test_csv_readme_carries_caution_and_provenance(scenario: dict, tmp_path: Path) -> None:
-    export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "up.csv")
     readme = (tmp_path / "up" / "up-README.txt").read_text(encoding="utf-8")
     assert "advisory" in CAUTION and "planning system" in CAUTION
     assert CAUTION in readme
@@ -504,7 +507,7 @@ def sheet_rows(book: openpyxl.Workbook, name: str) -> list[list[object]]:
 
 def test_xlsx_has_no_formula_and_keeps_keys_and_numbers(scenario: dict, tmp_path: Path) -> None:
     target = tmp_path / "up.xlsx"
-    result = export_review(scenario["portfolio"], scenario["ledger"], target)
+    result = export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), target)
     assert result.paths == (target,)
     with zipfile.ZipFile(target) as archive:
         sheets = [n for n in archive.namelist() if n.startswith("xl/worksheets/")]
@@ -549,7 +552,9 @@ def test_xlsx_has_no_formula_and_keeps_keys_and_numbers(scenario: dict, tmp_path
 
 def test_xlsx_read_me_has_caution_and_provenance(scenario: dict, tmp_path: Path) -> None:
     target = tmp_path / "up.xlsx"
-    export_review(scenario["portfolio"], scenario["ledger"], target, exported_by="=boss")
+    export_review(
+        ReviewCycle(scenario["portfolio"], scenario["ledger"]), target, exported_by="=boss"
+    )
     readme = sheet_rows(openpyxl.load_workbook(target), "Read me")
     values = {r[0]: r[1] for r in readme if r and r[0]}
     assert values["Caution"] == CAUTION
@@ -568,7 +573,7 @@ def test_xlsx_refuses_more_rows_than_a_sheet_holds(
     monkeypatch.setattr(export_mod, "XLSX_MAX_ROWS", len(series_keys()) * len(FORWARD))
     target = tmp_path / "big.xlsx"
     with pytest.raises(ExportError, match=r"(?s)at most 60.*Export to CSV instead"):
-        export_review(scenario["portfolio"], scenario["ledger"], target)
+        export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), target)
     assert not target.exists()
     assert not [p for p in tmp_path.iterdir() if p.name.startswith(".big.xlsx")]
 
@@ -591,14 +596,14 @@ def test_xlsx_cuts_long_cells_with_a_marker_and_a_warning(
         expected_version=0,
     )
     monkeypatch.setattr(export_mod, "XLSX_MAX_CELL", 120)
-    result = export_review(scenario["portfolio"], ledger, tmp_path / "cut.xlsx")
+    result = export_review(ReviewCycle(scenario["portfolio"], ledger), tmp_path / "cut.xlsx")
     rows = sheet_rows(openpyxl.load_workbook(tmp_path / "cut.xlsx"), "Decisions")
     note = next(r[7] for r in rows if r[0] == "+x")
     assert len(note.encode("utf-16-le")) // 2 <= 120
     assert note.startswith("😀") and "cut: 153 characters" in note
     assert any("were cut" in w for w in result.warnings)
     # CSV and JSON keep the whole note.
-    export_review(scenario["portfolio"], ledger, tmp_path / "cut.json")
+    export_review(ReviewCycle(scenario["portfolio"], ledger), tmp_path / "cut.json")
     doc = json.loads((tmp_path / "cut.json").read_text(encoding="utf-8"))
     assert next(d for d in doc["decisions"] if d["item"] == "+x")["note"] == long_note
 
@@ -608,7 +613,7 @@ def test_xlsx_cuts_long_cells_with_a_marker_and_a_warning(
 
 def test_json_round_trip_is_exact(scenario: dict, tmp_path: Path) -> None:
     target = tmp_path / "up.json"
-    export_review(scenario["portfolio"], scenario["ledger"], target)
+    export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), target)
     text = target.read_text(encoding="utf-8")
     assert "NaN" not in text and "Infinity" not in text
     doc = json.loads(text)
@@ -661,7 +666,7 @@ def test_json_escapes_terminal_controls_but_decodes_exactly(tmp_path: Path, scen
         portfolio_fingerprint=scenario["portfolio"].fingerprint,
         expected_version=0,
     )
-    export_review(scenario["portfolio"], ledger, tmp_path / "c.json")
+    export_review(ReviewCycle(scenario["portfolio"], ledger), tmp_path / "c.json")
     text = (tmp_path / "c.json").read_text(encoding="utf-8")
     assert not re.search("[\x00-\x1f\x7f-\x9f]", text.replace("\n", ""))
     doc = json.loads(text)
@@ -682,9 +687,11 @@ def test_existing_target_is_kept_without_force(scenario: dict, tmp_path: Path, n
     existing.write_bytes(b"old content")
     before = folder_listing(tmp_path)
     with pytest.raises(TriageError, match=re.escape(str(named)) + " already exist"):
-        export_review(scenario["portfolio"], scenario["ledger"], target)
+        export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), target)
     assert folder_listing(tmp_path) == before  # nothing else written either
-    result = export_review(scenario["portfolio"], scenario["ledger"], target, force=True)
+    result = export_review(
+        ReviewCycle(scenario["portfolio"], scenario["ledger"]), target, force=True
+    )
     assert existing.read_bytes() != b"old content"
     assert all(p.exists() for p in result.paths)
 
@@ -693,10 +700,10 @@ def test_unknown_suffix_and_folder_targets_are_refused(scenario: dict, tmp_path:
     with pytest.raises(
         ExportError, match=r"unknown file type '\.txt'.*\n.*\.csv, \.xlsx or \.json"
     ):
-        export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "x.txt")
+        export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "x.txt")
     (tmp_path / "dir.json").mkdir()
     with pytest.raises(ExportError, match="is a folder"):
-        export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "dir.json")
+        export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "dir.json")
 
 
 def disk_full(*_args: object, **_kwargs: object) -> None:
@@ -721,7 +728,7 @@ def test_xlsx_failure_mid_write_leaves_old_file_and_no_temp(
     monkeypatch.setattr(excel.ExcelWriter, "save", half_save)
     before = folder_listing(tmp_path)
     with pytest.raises(TriageError, match=r"No space left on device.*nothing was changed"):
-        export_review(scenario["portfolio"], scenario["ledger"], target, force=True)
+        export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), target, force=True)
     assert folder_listing(tmp_path) == before
     assert list(spools.iterdir()) == []
 
@@ -739,7 +746,7 @@ def test_json_failure_mid_write_leaves_no_temp(scenario: dict, tmp_path: Path, m
     monkeypatch.setattr(export_mod, "_dumps", failing)
     before = folder_listing(tmp_path)
     with pytest.raises(TriageError, match="No space left"):
-        export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.json")
+        export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "up.json")
     assert calls["n"] > 20
     assert folder_listing(tmp_path) == before
 
@@ -765,7 +772,9 @@ def test_csv_set_is_all_or_nothing(
     monkeypatch.setattr(export_mod, "_write_csv", second_fails)
     with pytest.raises(TriageError, match=r"up-forecast\.csv.*No space left"):
         export_review(
-            scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv", force=old_files
+            ReviewCycle(scenario["portfolio"], scenario["ledger"]),
+            tmp_path / "up.csv",
+            force=old_files,
         )
     # The decisions file written first is gone again (or the old one is back), no temp or
     # backup file is left, and the old files are byte-identical.
@@ -816,8 +825,8 @@ def lo_number(text: str, want: float | None) -> bool:
 )
 def test_libreoffice_reads_the_workbook_as_written(scenario: dict, tmp_path: Path) -> None:
     book = tmp_path / "up.xlsx"
-    export_review(scenario["portfolio"], scenario["ledger"], book)
-    export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), book)
+    export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "up.csv")
     ours = read_csv(tmp_path / "up" / "up-decisions.csv")
     sheets = libreoffice_csv(book, tmp_path / "lo", tmp_path / "lo-profile")
 
@@ -861,11 +870,11 @@ def test_chunked_writing_gives_the_same_tables(
     one.mkdir()
     many.mkdir()
     for name in ("up.csv", "up.json", "up.xlsx"):
-        export_review(scenario["portfolio"], scenario["ledger"], one / name)
+        export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), one / name)
     # 7 rows per chunk: the forecast table (60 rows) spans nine chunks, with a partial last one.
     monkeypatch.setattr(export_mod, "_CHUNK_ROWS", 7)
     for name in ("up.csv", "up.json", "up.xlsx"):
-        export_review(scenario["portfolio"], scenario["ledger"], many / name)
+        export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), many / name)
     for name in ("up-decisions.csv", "up-forecast.csv"):
         assert (one / "up" / name).read_bytes() == (many / "up" / name).read_bytes()
     a, b = (json.loads((d / "up.json").read_text(encoding="utf-8")) for d in (one, many))
@@ -893,7 +902,7 @@ def test_export_never_replaces_the_portfolio_even_with_force(tmp_path: Path) -> 
         Ledger.open(tmp_path / "week44.ledger.sqlite") as ledger,
         pytest.raises(ExportError, match="is the portfolio itself"),
     ):
-        export_review(portfolio, ledger, path, force=True)
+        export_review(ReviewCycle(portfolio, ledger), path, force=True)
     assert path.read_bytes() == before
 
 
@@ -906,7 +915,9 @@ def test_flat_files_of_an_earlier_export_are_kept_and_named(scenario: dict, tmp_
     crashed = [tmp_path / ".up-forecast.csv.a1b2c3d4.bak", tmp_path / ".up-README.txt.ab_cd12z.tmp"]
     for path in crashed:
         path.write_text("leftover", encoding="utf-8")
-    result = export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    result = export_review(
+        ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "up.csv"
+    )
     assert flat.read_text(encoding="utf-8") == "last week's forecast"
     assert not any(p.exists() for p in crashed)
     assert any(
@@ -923,7 +934,7 @@ def test_flat_files_of_an_earlier_export_are_kept_and_named(scenario: dict, tmp_
 def test_csv_style_sets_separator_and_decimal_mark_in_one_place(
     scenario: dict, tmp_path: Path
 ) -> None:
-    tables = review_tables(scenario["portfolio"], scenario["ledger"])
+    tables = review_tables(ReviewCycle(scenario["portfolio"], scenario["ledger"]))
     _, forecast, _ = export_mod.file_tables(tables)
     style = export_mod.CsvStyle(sep=";", decimal=",")
     export_mod._write_csv(tmp_path / "semi.csv", forecast, style)
@@ -948,7 +959,7 @@ def test_csv_style_sets_separator_and_decimal_mark_in_one_place(
 
 
 def test_whole_numbers_are_written_without_a_decimal_point(scenario: dict, tmp_path: Path) -> None:
-    export_review(scenario["portfolio"], scenario["ledger"], tmp_path / "up.csv")
+    export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "up.csv")
     raw = (tmp_path / "up" / "up-forecast.csv").read_text(encoding="utf-8")
     # =SUM(A1) was set to 120; +x has the forecast -5 in the file.
     assert f'"=SUM(A1)","L1","{FORWARD[0]}",' in raw

@@ -30,6 +30,7 @@ import openpyxl
 import pytest
 
 from tests.core import export_kill as kill
+from triage.core.cycle import ReviewCycle
 from triage.core.export import export_review
 from triage.core.ledger import Ledger
 from triage.core.portfolio import Portfolio, read_portfolio
@@ -107,7 +108,7 @@ def scene(tmp_path_factory: pytest.TempPathFactory) -> dict:
 
 def export_with(portfolio: Portfolio, ledger_path: Path, target: Path) -> None:
     with Ledger.open(ledger_path, read_only=True) as ledger:
-        export_review(portfolio, ledger, target, force=True, exported_by="kill-test")
+        export_review(ReviewCycle(portfolio, ledger), target, force=True, exported_by="kill-test")
 
 
 def single_file_state(path: Path, old: bytes) -> str:

@@ -36,6 +36,7 @@ from sample.cycles import (
     build_cycles,
 )
 from triage.core import history, schema
+from triage.core.cycle import ReviewCycle
 from triage.core.ledger import Ledger
 from triage.core.metrics import window_columns
 from triage.core.portfolio import read_portfolio
@@ -85,7 +86,7 @@ def test_realised_values_match_the_construction_exactly(
     scenario: CycleScenario, ledger: Ledger, k: int
 ) -> None:
     portfolio = _portfolio(scenario, k)
-    realised = history.realised_value(portfolio, ledger)
+    realised = ReviewCycle(portfolio, ledger).realised
     expected = {_key(dataclasses.asdict(e)): e for e in scenario.realised_in(k)}
     assert len(expected) > 0
     got = {_key(r): r for r in realised.to_dict("records")}
@@ -113,7 +114,7 @@ def test_undone_and_replaced_decisions_do_not_count(
     scenario: CycleScenario, ledger: Ledger
 ) -> None:
     portfolio = _portfolio(scenario, NEWEST)
-    realised = history.realised_value(portfolio, ledger)
+    realised = ReviewCycle(portfolio, ledger).realised
     s4 = scenario.roles["S4"]
     assert not ((realised["item"] == s4[0]) & (realised["location"] == s4[1])).any()
     s2 = scenario.roles["S2"]
@@ -133,19 +134,19 @@ def test_a_disappearing_series_is_counted_where_it_still_is(
 ) -> None:
     item, location = scenario.roles[scenario.disappears]
     newest = _portfolio(scenario, NEWEST)
-    status = history.line_status(newest, ledger).set_index("status")
+    status = ReviewCycle(newest, ledger).line_status.set_index("status")
     assert status.loc[history.NOT_IN_PORTFOLIO, "lines"] == 2
     assert status.loc[history.NOT_IN_PORTFOLIO, "decisions"] == 1
     assert status.loc[history.REALISED, "lines"] == len(scenario.realised_in(NEWEST))
-    assert not (history.realised_value(newest, ledger)["item"] == item).any()
-    before = history.realised_value(_portfolio(scenario, NEWEST - 1), ledger)
+    assert not (ReviewCycle(newest, ledger).realised["item"] == item).any()
+    before = ReviewCycle(_portfolio(scenario, NEWEST - 1), ledger).realised
     mine = before.loc[(before["item"] == item) & (before["location"] == location)]
     assert mine["value_added"].tolist() == [3.0 * scenario.scale[scenario.disappears]]
 
 
 def test_line_status_accounts_for_every_line(scenario: CycleScenario, ledger: Ledger) -> None:
     newest = _portfolio(scenario, NEWEST)
-    status = history.line_status(newest, ledger)
+    status = ReviewCycle(newest, ledger).line_status
     assert status["status"].tolist() == list(history.LINE_STATUSES)
     assert int(status["lines"].sum()) == len(scenario.lines)
     ahead = [e for e in scenario.lines if e.actual is None]
@@ -191,7 +192,7 @@ def test_summaries_match_plain_sums_of_the_hand_values(
     scenario: CycleScenario, ledger: Ledger, by: str
 ) -> None:
     portfolio = _portfolio(scenario, NEWEST)
-    realised = history.realised_value(portfolio, ledger)
+    realised = ReviewCycle(portfolio, ledger).realised
     event_of = {(r.cycle, r.item, r.location): r.event_id for r in realised.itertuples(index=False)}
     lines = scenario.realised_in(NEWEST)
     summary = history.summarise(realised, by)
@@ -213,7 +214,7 @@ def test_summaries_match_plain_sums_of_the_hand_values(
 def test_summary_orders_bands_and_directions_and_crosses(
     scenario: CycleScenario, ledger: Ledger
 ) -> None:
-    realised = history.realised_value(_portfolio(scenario, NEWEST), ledger)
+    realised = ReviewCycle(_portfolio(scenario, NEWEST), ledger).realised
     size = history.summarise(realised, "size")["size"].tolist()
     assert size == [b for b in history.SIZE_BANDS if b in size[:-1]] + [history.ALL]
     assert history.summarise(realised, "direction")["direction"].tolist() == ["up", "down", "all"]
@@ -424,7 +425,7 @@ def test_repeat_windows_equal_scorecards_of_the_truncated_sample() -> None:
 
 def test_active_adjustments_of_the_newest_week(scenario: CycleScenario, ledger: Ledger) -> None:
     newest = _portfolio(scenario, NEWEST)
-    active = history.active_adjustments(newest, ledger)
+    active = ReviewCycle(newest, ledger).active
     s2, s3 = scenario.roles["S2"], scenario.roles["S3"]
     got = {(r.cycle, r.item, r.location): r for r in active.itertuples(index=False)}
     c0, c2, c3 = scenario.cycles[0], scenario.cycles[2], scenario.cycles[3]
@@ -450,7 +451,7 @@ def test_an_adjustment_fully_replaced_later_is_not_active(
     scenario: CycleScenario, ledger: Ledger
 ) -> None:
     week38 = _portfolio(scenario, NEWEST - 1)
-    active = history.active_adjustments(week38, ledger)
+    active = ReviewCycle(week38, ledger).active
     s1 = scenario.roles["S1"]
     mine = active.loc[(active["item"] == s1[0]) & (active["location"] == s1[1])]
     # Cycle 0 covered one week still ahead (week 39); cycle 1 adjusted it again.
@@ -465,7 +466,7 @@ def test_carried_over_are_open_series_still_among_the_worst(
 ) -> None:
     newest = _portfolio(scenario, NEWEST)
     worst = leading_cover(scorecard(newest), 0.8)
-    carried = history.carried_over(newest, ledger, worst)
+    carried = history.carried_over(newest, ReviewCycle(newest, ledger).log, worst)
     roles = [scenario.roles[r] for r in scenario.carried]
     keys = list(zip(carried["item"], carried["location"], strict=True))
     assert sorted(keys) == sorted(roles)
@@ -476,7 +477,9 @@ def test_carried_over_are_open_series_still_among_the_worst(
     assert set(carried["outcome"]) <= set(history.OPEN_OUTCOMES)
     for role in scenario.not_carried:
         assert scenario.roles[role] not in keys
-    by_position = history.carried_over(newest, ledger, worst.index.to_numpy())
+    by_position = history.carried_over(
+        newest, ReviewCycle(newest, ledger).log, worst.index.to_numpy()
+    )
     assert by_position["series"].tolist() == carried["series"].tolist()
 
 
@@ -487,11 +490,11 @@ def test_carried_over_reviewed_now_and_listed_first(
     shutil.copy(scenario.ledger, copy)
     newest = _portfolio(scenario, NEWEST)
     with Ledger.open(copy) as ledger:
-        session = ReviewSession(newest, ledger=ledger, reviewer="Ines")
+        session = ReviewSession(ReviewCycle(newest, ledger), reviewer="Ines")
         s5 = session.find(*scenario.roles["S5"])
         session.commit_decision(s5, outcome="no_change", root_cause="unknown")
         worst = leading_cover(scorecard(newest), 0.8)
-        carried = history.carried_over(newest, ledger, worst)
+        carried = history.carried_over(newest, ReviewCycle(newest, ledger).log, worst)
     flags = dict(zip(carried["series"], carried["reviewed_now"], strict=True))
     assert flags[s5]
     assert sum(flags.values()) == 1
@@ -506,10 +509,13 @@ def test_carried_over_reviewed_now_and_listed_first(
 
 def test_nothing_is_carried_or_active_without_a_ledger(scenario: CycleScenario) -> None:
     newest = _portfolio(scenario, NEWEST)
-    assert history.realised_value(newest, None).empty
-    assert history.active_adjustments(newest, None).empty
-    assert history.carried_over(newest, None, [0, 1]).empty
-    assert history.coverage(newest, None, scorecard(newest)).reviewed == 0
+    assert ReviewCycle(newest, None).realised.empty
+    assert ReviewCycle(newest, None).active.empty
+    assert history.carried_over(newest, ReviewCycle(newest, None).log, [0, 1]).empty
+    assert (
+        history.coverage(newest, ReviewCycle(newest, None).log, scorecard(newest), 0.8).reviewed
+        == 0
+    )
 
 
 # --------------------------------------------------------------------------------------------
@@ -563,8 +569,8 @@ def test_portfolio_fva_equals_plain_loops_and_the_scorecard(scenario: CycleScena
 def test_coverage_is_the_review_screens_progress(scenario: CycleScenario, ledger: Ledger) -> None:
     portfolio = _portfolio(scenario, NEWEST)
     card = scorecard(portfolio)
-    cov = history.coverage(portfolio, ledger, card, 0.8)
-    progress = ReviewSession(portfolio, ledger=ledger, reviewer="x", target_share=0.8).progress()
+    cov = history.coverage(portfolio, ReviewCycle(portfolio, ledger).log, card, 0.8)
+    progress = ReviewSession(ReviewCycle(portfolio, ledger), reviewer="x").progress()
     assert cov.reviewed == progress.reviewed == len(scenario.reviewed_now)
     assert cov.covered == pytest.approx(progress.covered, rel=1e-12)
     assert cov.worst == len(leading_cover(card, 0.8))
@@ -572,7 +578,9 @@ def test_coverage_is_the_review_screens_progress(scenario: CycleScenario, ledger
 
 
 def test_decision_counts_of_the_first_week(scenario: CycleScenario, ledger: Ledger) -> None:
-    table = history.decision_counts(ledger, scenario.cycles[0])
+    table = history.decision_counts(
+        history.DecisionLog.read(ledger, scenario.cycles[0]), scenario.cycles[0]
+    )
     # By hand from sample/cycles.PLAN: S1 model_miss, S2 and S3 promotion adjusted (S2's first
     # decision replaced, S4's undone), S5 put off (unknown), S6 handed off (large_order).
     assert table.loc["adjusted", "promotion"] == 2
@@ -581,7 +589,12 @@ def test_decision_counts_of_the_first_week(scenario: CycleScenario, ledger: Ledg
     assert table.loc["handed_off", "large_order"] == 1
     assert table.loc["total", "total"] == 5
     assert table.index.tolist() == ["no_change", "adjusted", "handed_off", "deferred", "total"]
-    assert history.decision_counts(None, scenario.cycles[0]).loc["total", "total"] == 0
+    assert (
+        history.decision_counts(
+            history.DecisionLog.read(None, scenario.cycles[0]), scenario.cycles[0]
+        ).loc["total", "total"]
+        == 0
+    )
 
 
 def test_a_monthly_portfolio_without_locations(tmp_path: Path) -> None:
@@ -599,10 +612,10 @@ def test_a_monthly_portfolio_without_locations(tmp_path: Path) -> None:
 
     first = read_portfolio(write("march.csv", [40, 60, 50, "", ""]))
     with Ledger.open(tmp_path / "m.ledger.sqlite") as ledger:
-        session = ReviewSession(first, ledger=ledger, reviewer="Kofi")
+        session = ReviewSession(ReviewCycle(first, ledger), reviewer="Kofi")
         session.commit_decision(0, outcome="adjusted", root_cause="promotion", adjustment="1: +10")
         later = read_portfolio(write("april.csv", [40, 60, 50, 58, ""]))
-        realised = history.realised_value(later, ledger)
+        realised = ReviewCycle(later, ledger).realised
         assert schema.LOCATION not in later.key_columns
     # |50 - 58| - |60 - 58| = 6, by hand.
     assert realised["value_added"].tolist() == [6.0]

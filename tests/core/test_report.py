@@ -24,6 +24,7 @@ import pytest
 
 from sample.cycles import CYCLES_SEED, N_FILES, CycleScenario, build_cycles
 from triage.core import history, report
+from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.export import CAUTION
 from triage.core.ledger import OUTCOMES, Ledger
@@ -128,7 +129,9 @@ def written(scenario: CycleScenario) -> tuple[report.ReportResult, Tables, str]:
     portfolio = read_portfolio(scenario.files[NEWEST])
     with Ledger.open(scenario.ledger, read_only=True) as ledger:
         result = report.write_report(
-            portfolio, ledger, scenario.ledger.parent / "weekly.html", generated_at=STAMP
+            ReviewCycle(portfolio, ledger),
+            scenario.ledger.parent / "weekly.html",
+            generated_at=STAMP,
         )
     document = result.path.read_text(encoding="utf-8")
     return result, parse(document), document
@@ -172,8 +175,12 @@ def test_coverage_decisions_and_fva_tables(
     data = result.data
     portfolio = read_portfolio(scenario.files[NEWEST])
     with Ledger.open(scenario.ledger, read_only=True) as ledger:
-        cov = history.coverage(portfolio, ledger, scorecard(portfolio), 0.8)
-        counts = history.decision_counts(ledger, portfolio.cycle)
+        cov = history.coverage(
+            portfolio, ReviewCycle(portfolio, ledger).log, scorecard(portfolio), 0.8
+        )
+        counts = history.decision_counts(
+            history.DecisionLog.read(ledger, portfolio.cycle), portfolio.cycle
+        )
     fva = history.portfolio_fva(portfolio)
     rows = {r[0]: r[1] for r in tables.tables["coverage-table"][1:]}
     assert number(rows["Series in the portfolio"]) == cov.series
@@ -398,7 +405,7 @@ def hostile_files(folder: Path) -> tuple[Path, Path, Path]:
     portfolio = read_portfolio(first)
     ledger_path = folder / "w.ledger.sqlite"
     with Ledger.open(ledger_path) as ledger:
-        session = ReviewSession(portfolio, ledger=ledger, reviewer=HOSTILE_REVIEWER)
+        session = ReviewSession(ReviewCycle(portfolio, ledger), reviewer=HOSTILE_REVIEWER)
         index = session.find(HOSTILE_ITEM, HOSTILE_LOCATION)
         session.commit_decision(
             index,
@@ -416,7 +423,7 @@ def test_data_text_is_escaped(tmp_path: Path) -> None:
     _, second, ledger_path = hostile_files(tmp_path)
     portfolio = read_portfolio(second)
     with Ledger.open(ledger_path, read_only=True) as ledger:
-        result = report.write_report(portfolio, ledger, tmp_path / "r.html")
+        result = report.write_report(ReviewCycle(portfolio, ledger), tmp_path / "r.html")
     document = result.path.read_text(encoding="utf-8")
     assert "<script" not in document.lower()
     assert "<img" not in document.lower()
@@ -444,14 +451,14 @@ def test_bad_targets_leave_everything_unchanged(scenario: CycleScenario, tmp_pat
     before = scenario.files[NEWEST].read_bytes()
     with Ledger.open(scenario.ledger, read_only=True) as ledger:
         with pytest.raises(report.ReportError, match=r"does not end in \.html"):
-            report.write_report(portfolio, ledger, tmp_path / "r.txt")
+            report.write_report(ReviewCycle(portfolio, ledger), tmp_path / "r.txt")
         # The portfolio itself is never a target: it is not an .html file.
         with pytest.raises(report.ReportError, match=r"does not end in \.html"):
-            report.write_report(portfolio, ledger, scenario.files[NEWEST])
+            report.write_report(ReviewCycle(portfolio, ledger), scenario.files[NEWEST])
         with pytest.raises(TriageError, match="cannot write"):
-            report.write_report(portfolio, ledger, tmp_path / "missing" / "r.html")
+            report.write_report(ReviewCycle(portfolio, ledger), tmp_path / "missing" / "r.html")
         with pytest.raises(report.ReportError, match="top offenders"):
-            report.build_report(portfolio, ledger, top=0)
+            report.build_report(ReviewCycle(portfolio, ledger), top=0)
     assert scenario.files[NEWEST].read_bytes() == before
     assert not (tmp_path / "r.txt").exists()
     assert not list((tmp_path).glob(".r.html.*"))
@@ -463,7 +470,7 @@ def test_long_tables_are_cut_with_a_note(
     monkeypatch.setattr(report, "TABLE_MAX", 2)
     portfolio = read_portfolio(scenario.files[NEWEST])
     with Ledger.open(scenario.ledger, read_only=True) as ledger:
-        result = report.write_report(portfolio, ledger, tmp_path / "cut.html")
+        result = report.write_report(ReviewCycle(portfolio, ledger), tmp_path / "cut.html")
     document = result.path.read_text(encoding="utf-8")
     tables = parse(document)
     flagged = int(result.data.repeat["repeat"].sum())
@@ -483,7 +490,7 @@ def test_default_target_is_beside_the_portfolio(scenario: CycleScenario) -> None
 
 def test_report_without_a_ledger(scenario: CycleScenario, tmp_path: Path) -> None:
     portfolio = read_portfolio(scenario.files[NEWEST])
-    result = report.write_report(portfolio, None, tmp_path / "plain.html")
+    result = report.write_report(ReviewCycle(portfolio, None), tmp_path / "plain.html")
     tables = parse(result.path.read_text(encoding="utf-8"))
     rows = {r[0]: r[1] for r in tables.tables["coverage-table"][1:]}
     assert number(rows["Series reviewed this cycle"]) == 0

@@ -8,6 +8,7 @@ from pathlib import Path
 import numpy as np
 import pytest
 
+from triage.core.cycle import ReviewCycle
 from triage.core.ledger import Ledger
 from triage.core.portfolio import read_portfolio
 from triage.core.ranking import leading_cover, scorecard
@@ -21,7 +22,7 @@ def session(tmp_path: Path):
     path = tmp_path / "week.csv"
     shutil.copy(SAMPLE, path)
     ledger = Ledger.open(tmp_path / "week.ledger.sqlite")
-    yield ReviewSession(read_portfolio(path), ledger=ledger, reviewer="ana")
+    yield ReviewSession(ReviewCycle(read_portfolio(path), ledger), reviewer="ana")
     ledger.close()
 
 
@@ -115,7 +116,7 @@ def test_current_decision_is_read_from_the_file(session: ReviewSession, tmp_path
     assert session.current_decision(series) == (None, 0)
     decide(session, series, "no_change", note="first")
     # Another session (another reviewer) writes the same series.
-    other = ReviewSession(session.portfolio, ledger=session.ledger, reviewer="bob")
+    other = ReviewSession(ReviewCycle(session.portfolio, session.ledger), reviewer="bob")
     other.apply_event(
         other.commit_decision(series, outcome="deferred", root_cause="promotion", note="b")
     )

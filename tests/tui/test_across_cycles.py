@@ -14,6 +14,7 @@ import pytest
 from sample.cycles import build_cycles
 from tests.tui.conftest import wait_for, wait_loaded
 from triage.core import history
+from triage.core.cycle import ReviewCycle
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.series_list import SeriesList
@@ -51,7 +52,7 @@ async def test_newest_week_shows_earlier_cycles(scenario, tmp_path: Path) -> Non
         )
         shown = app.screen._tables["direction"]
         expected = history.summarise(
-            history.realised_value(session.portfolio, session.ledger), "direction"
+            ReviewCycle(session.portfolio, session.ledger).realised, "direction"
         )
         assert shown.equals(expected)
         total = expected.iloc[-1]
@@ -77,6 +78,7 @@ async def test_week_two_marks_and_details_an_earlier_adjustment_still_carried(
     # folder, finds the folder's ledger. A's adjustment is still ahead and carried; B's is
     # already in week 2's forecast (tests/core/twoweeks.py).
     from tests.core.twoweeks import WEEK1, write_two_weeks
+    from triage.core.cycle import ReviewCycle
     from triage.core.ledger import Ledger, locate_ledger
     from triage.core.portfolio import read_portfolio
     from triage.core.review import ReviewSession
@@ -84,7 +86,7 @@ async def test_week_two_marks_and_details_an_earlier_adjustment_still_carried(
 
     weeks = write_two_weeks(tmp_path / "review")
     with Ledger.open(locate_ledger(weeks.week1).path) as ledger:
-        week1 = ReviewSession(read_portfolio(weeks.week1), ledger=ledger, reviewer="ana")
+        week1 = ReviewSession(ReviewCycle(read_portfolio(weeks.week1), ledger), reviewer="ana")
         for item, spec in (("A", "+10"), ("B", "=50")):
             series = week1.find(item, "Lyon")
             assert series is not None
@@ -112,6 +114,7 @@ async def test_end_key_stops_carrying_an_earlier_adjustment_and_the_export_follo
     # Week 1 adjusts A by +10 for four weeks; in week 2 the reviewer ends it with e and y.
     # The ledger holds the end (who, when) and week 2's export no longer applies it.
     from tests.core.twoweeks import write_two_weeks
+    from triage.core.cycle import ReviewCycle
     from triage.core.export import review_tables
     from triage.core.ledger import Ledger, locate_ledger
     from triage.core.portfolio import read_portfolio
@@ -122,7 +125,7 @@ async def test_end_key_stops_carrying_an_earlier_adjustment_and_the_export_follo
     weeks = write_two_weeks(tmp_path / "review")
     ledger_path = locate_ledger(weeks.week1).path
     with Ledger.open(ledger_path) as ledger:
-        week1 = ReviewSession(read_portfolio(weeks.week1), ledger=ledger, reviewer="ana")
+        week1 = ReviewSession(ReviewCycle(read_portfolio(weeks.week1), ledger), reviewer="ana")
         series = week1.find("A", "Lyon")
         assert series is not None
         week1.commit_decision(series, outcome="adjusted", root_cause="promotion", adjustment="+10")
@@ -144,7 +147,7 @@ async def test_end_key_stops_carrying_an_earlier_adjustment_and_the_export_follo
         assert app._format_row(a)["outcome"][0] != CARRIED_TINY
         assert "ended by bob" in str(app.query_one("#detail-text").render())
     with Ledger.open(ledger_path, read_only=True) as ledger:
-        tables = review_tables(read_portfolio(weeks.week2), ledger)
+        tables = review_tables(ReviewCycle(read_portfolio(weeks.week2), ledger))
     rows = tables.forecast[tables.forecast["item"] == "A"]
     assert rows["adjusted_in_cycle"].isna().all() or (rows["adjusted_in_cycle"] == "").all()
     assert (rows["adjusted_forecast"] == rows["forecast"]).all()

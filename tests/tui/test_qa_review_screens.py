@@ -256,6 +256,7 @@ async def test_qa_detail_pane_quotes_a_carried_adjustments_reviewer_raw(tmp_path
     it is, while the decision history just below shows the same name with its controls made
     visible. The ledger stores text as given (any program may write it)."""
     from tests.core.twoweeks import write_two_weeks
+    from triage.core.cycle import ReviewCycle
     from triage.core.ledger import locate_ledger
     from triage.core.portfolio import read_portfolio
     from triage.core.review import ReviewSession
@@ -263,7 +264,7 @@ async def test_qa_detail_pane_quotes_a_carried_adjustments_reviewer_raw(tmp_path
     weeks = write_two_weeks(tmp_path / "review")
     with Ledger.open(locate_ledger(weeks.week1).path) as ledger:
         week1 = ReviewSession(
-            read_portfolio(weeks.week1), ledger=ledger, reviewer="bo\x1b]0;PWNED\x07\u202eb"
+            ReviewCycle(read_portfolio(weeks.week1), ledger), reviewer="bo\x1b]0;PWNED\x07\u202eb"
         )
         series = week1.find("A", "Lyon")
         assert series is not None

@@ -53,8 +53,9 @@ import numpy as np
 import pandas as pd
 
 from triage import __version__
-from triage.core import history, schema
+from triage.core import schema
 from triage.core.config import Choice, default_reviewer
+from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.files import (
     clean_leftovers,
@@ -64,7 +65,7 @@ from triage.core.files import (
     write_atomic,
     write_set_atomic,
 )
-from triage.core.ledger import OUTCOMES, Decision, Ledger, describe_series
+from triage.core.ledger import OUTCOMES, Decision, describe_series
 from triage.core.portfolio import Portfolio
 from triage.core.rounding import (
     DEFAULT as DEFAULT_ROUNDING,
@@ -390,10 +391,8 @@ def _floats(values: Iterable[float | None]) -> np.ndarray:
 
 
 def review_tables(
-    portfolio: Portfolio,
-    ledger: Ledger,
+    review: ReviewCycle,
     *,
-    cycle: str | None = None,
     exported_by: str | None = None,
     exported_at: datetime | None = None,
     rounding: Rounding = DEFAULT_ROUNDING,
@@ -401,9 +400,9 @@ def review_tables(
     """The decisions and forecast tables of a cycle, before any file format is applied.
 
     Args:
-        portfolio: The portfolio whose forward forecast is exported.
-        ledger: The decision ledger (read-only is enough).
-        cycle: Review cycle; default the portfolio's cycle.
+        review: The review cycle to export (``ReviewCycle.name``; an earlier cycle than the
+            portfolio's is allowed) on the portfolio whose forward forecast is exported, with
+            its ledger (read-only is enough).
         exported_by: Name recorded as the exporter; default the configured reviewer or login.
         exported_at: Export time (UTC); default now.
         rounding: Precision of the values triage computes: the adjusted periods and the units
@@ -412,7 +411,10 @@ def review_tables(
     Raises:
         ExportError: ``cycle`` is not an ISO date.
     """
-    cycle = _check_cycle(portfolio.cycle if cycle is None else cycle)
+    portfolio, ledger = review.portfolio, review.ledger
+    if ledger is None:
+        raise ExportError("no ledger is open, so there are no decisions to export.")
+    cycle = _check_cycle(review.name)
     warnings: list[str] = []
     has_location = LOCATION in portfolio.key_columns
     keys = portfolio.keys
@@ -435,7 +437,7 @@ def review_tables(
         )
 
     # ---- decisions matched to the portfolio's series (vectorised lookup over the decisions)
-    decided = ledger.current(cycle)
+    decided = review.decisions()
     items = keys[ITEM].to_numpy(dtype=object)
     locations = keys[LOCATION].to_numpy(dtype=object) if has_location else None
     series = portfolio.series_index.positions(
@@ -533,7 +535,7 @@ def review_tables(
     # a new cycle"): applied where this cycle's own decisions did not adjust the period.
     made_in = np.zeros(forward.shape, dtype=np.int16)  # 0: not adjusted, 1: this cycle
     made_in[rows, cols] = 1
-    carried_lines = history.carried_adjustments(portfolio, ledger, cycle=cycle)
+    carried_lines = review.carried_lines
     carried_lines = carried_lines.loc[carried_lines["standing"].to_numpy(dtype=bool)]
     c_rows = carried_lines["series"].to_numpy(dtype=np.int64)
     c_cols = carried_lines["column"].to_numpy(dtype=np.int64) - first_fwd
@@ -861,11 +863,9 @@ _SET_TAILS = ("-decisions.csv", "-forecast.csv", "-README.txt")
 
 
 def export_review(
-    portfolio: Portfolio,
-    ledger: Ledger,
+    review: ReviewCycle,
     target: str | Path,
     *,
-    cycle: str | None = None,
     force: bool = False,
     exported_by: str | None = None,
     headers: Mapping[str, str] | None = None,
@@ -879,11 +879,9 @@ def export_review(
     ``--like-input`` takes the portfolio's own); xlsx and JSON have no such conventions.
 
     Args:
-        portfolio: The portfolio whose forward forecast is exported.
-        ledger: The decision ledger.
+        review: The review cycle to export, on its portfolio and ledger (``review_tables``).
         target: ``.csv`` (a folder of three files, see ``export_paths``), ``.xlsx`` or
             ``.json``.
-        cycle: Review cycle; default the portfolio's cycle.
         force: Replace what exists; otherwise an existing file or set folder stops the export.
         exported_by: Name recorded as the exporter; default the configured reviewer or login.
         headers: The ``--columns`` mapping the portfolio was read with: the files name the key,
@@ -900,6 +898,9 @@ def export_review(
         raise ExportError(
             f"unknown layout {layout!r}.", hint=f"Choose one of {', '.join(LAYOUTS)}."
         )
+    portfolio, ledger = review.portfolio, review.ledger
+    if ledger is None:
+        raise ExportError("no ledger is open, so there are no decisions to export.")
     fmt, paths = export_paths(target)
     written = paths[0].parent if fmt == "csv" else paths[0]
     if fmt != "csv" and written.is_dir():
@@ -914,9 +915,7 @@ def export_review(
                     hint="Choose another file name for the export.",
                 )
     refuse_existing([written], force=force)
-    tables = review_tables(
-        portfolio, ledger, cycle=cycle, exported_by=exported_by, rounding=rounding
-    )
+    tables = review_tables(review, exported_by=exported_by, rounding=rounding)
     decisions, forecast, header_warnings = file_tables(tables, headers=headers, layout=layout)
     tables = replace(tables, warnings=(*tables.warnings, *header_warnings))
     sheets = (decisions, forecast)

@@ -36,15 +36,16 @@ from __future__ import annotations
 
 import itertools
 import math
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
 from triage.core import metrics, ranking, schema
+from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.errors import TriageError
-from triage.core.ledger import ADJUSTED, OUTCOMES, SETTLED, Decision, Ledger
+from triage.core.ledger import ADJUSTED, OUTCOMES, SETTLED, AdjustmentEnd, Decision, Ledger
 from triage.core.portfolio import Portfolio
 
 UP = "up"
@@ -158,25 +159,47 @@ def period_dates(portfolio: Portfolio) -> pd.Index:
     return pd.Index(portfolio.calendar.periods.strftime("%Y-%m-%d"), dtype=object)
 
 
-def effective_decisions(ledger: Ledger | None, *, before: str | None = None) -> list[Decision]:
-    """Every cycle's effective decisions, oldest cycle first (only cycles before ``before``)."""
-    if ledger is None:
-        return []
-    out: list[Decision] = []
-    for cycle in ledger.cycles():
-        if before is not None and cycle >= before:
-            continue
-        out.extend(ledger.current(cycle))
-    return out
+@dataclass(frozen=True)
+class DecisionLog:
+    """A ledger's decisions read once: every cycle's effective decisions and the ends in force.
+
+    Decisions count as the ledger defines them: in each cycle, each series' latest decision that
+    has not been undone (``Ledger.current``).
+    """
+
+    decisions: tuple[Decision, ...]
+    """Every cycle's effective decisions, oldest cycle first (each cycle by item, location)."""
+    ends: Mapping[int, AdjustmentEnd]
+    """Ends of adjustments in force as of ``as_of`` (``Ledger.standing_ends``), by event id."""
+    as_of: str
+    """The review cycle the ends were read for."""
+    root_causes: tuple[Choice, ...]
+    """The ledger's root-cause vocabulary (the default one without a ledger)."""
+
+    @classmethod
+    def read(cls, ledger: Ledger | None, as_of: str) -> DecisionLog:
+        """Read the log of ``ledger`` (an empty one for None) as of review cycle ``as_of``."""
+        if ledger is None:
+            return cls((), {}, as_of, DEFAULT_ROOT_CAUSES)
+        decisions: list[Decision] = []
+        for cycle in ledger.cycles():
+            decisions.extend(ledger.current(cycle))
+        return cls(tuple(decisions), ledger.standing_ends(as_of), as_of, ledger.root_causes)
+
+    def current(self, cycle: str) -> list[Decision]:
+        """The effective decisions of one cycle (``Ledger.current``)."""
+        return [d for d in self.decisions if d.cycle == cycle]
+
+    def before(self, cycle: str) -> list[Decision]:
+        """Every earlier cycle's effective decisions, oldest cycle first."""
+        return [d for d in self.decisions if d.cycle < cycle]
 
 
 def _float(value: float | None) -> float:
     return math.nan if value is None else float(value)
 
 
-def adjustment_lines(
-    portfolio: Portfolio, ledger: Ledger | None, *, as_of: str | None = None
-) -> pd.DataFrame:
+def adjustment_lines(portfolio: Portfolio, log: DecisionLog) -> pd.DataFrame:
     """Every line of every effective adjustment, located in the portfolio, with its status.
 
     One row per (decision, period): ``event_id``, ``cycle``, ``item``, ``location``,
@@ -186,10 +209,10 @@ def adjustment_lines(
     The join to the portfolio is one vectorised lookup for the keys and one for the periods.
 
     A line is ``ended`` when a reviewer ended its adjustment (``Ledger.end_adjustment``) in a
-    cycle before the line's period, and that end is in force as of ``as_of`` (default the
-    portfolio's cycle): the override no longer stood for that period.
+    cycle before the line's period, and that end is in force as of the log's cycle
+    (``DecisionLog.as_of``): the override no longer stood for that period.
     """
-    decisions = [d for d in effective_decisions(ledger) if d.outcome == ADJUSTED and d.lines]
+    decisions = [d for d in log.decisions if d.outcome == ADJUSTED and d.lines]
     counts = [len(d.lines) for d in decisions]
 
     def repeat(values: list[object]) -> np.ndarray:
@@ -225,8 +248,8 @@ def adjustment_lines(
     inside = (series >= 0) & (column >= 0) & (column <= portfolio.last_actual)
     actual[inside] = portfolio.demand[series[inside], column[inside]]
 
-    # The cycle each line's adjustment was ended in ("" when it stands), as of ``as_of``.
-    ends = ledger.standing_ends(as_of or latest) if ledger is not None else {}
+    # The cycle each line's adjustment was ended in ("" when it stands), as of the log's cycle.
+    ends = log.ends
     ended_in = np.full(len(frame), "", dtype=object)
     if ends:
         end_cycles = pd.Series({k: e.cycle for k, e in ends.items()}, dtype=object)
@@ -257,9 +280,9 @@ def adjustment_lines(
     return frame
 
 
-def line_status(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
-    """How many adjustment lines and decisions are in each state (``LINE_STATUSES`` order)."""
-    lines = adjustment_lines(portfolio, ledger)
+def line_status(lines: pd.DataFrame) -> pd.DataFrame:
+    """How many adjustment lines (``adjustment_lines``) and decisions are in each state
+    (``LINE_STATUSES`` order)."""
     grouped = lines.groupby("status")
     out = pd.DataFrame(
         {
@@ -295,7 +318,7 @@ def size_band(original: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
     return np.asarray(SIZE_BANDS, dtype=object)[band]
 
 
-def realised_value(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+def realised_value(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFrame:
     """One row per effective adjustment line whose period now has actual demand.
 
     Columns (``REALISED_COLUMNS``): ``cycle`` of the decision, the key, ``period`` (ISO),
@@ -311,8 +334,11 @@ def realised_value(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
     counts), periods the adjustment did not change (no override there), periods without an
     original or adjusted value, and lines whose series or actual is not in ``portfolio``
     (``line_status`` counts them). Rows are sorted by cycle, key and period.
+
+    Args:
+        portfolio: The portfolio whose actuals judge the overrides.
+        lines: Its ``adjustment_lines``.
     """
-    lines = adjustment_lines(portfolio, ledger)
     done = lines.loc[lines["status"] == REALISED].reset_index(drop=True)
     original = done["original"].to_numpy()
     adjusted = done["adjusted"].to_numpy()
@@ -620,7 +646,7 @@ ACTIVE_COLUMNS: tuple[str, ...] = (
 )
 
 
-def active_adjustments(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+def active_adjustments(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFrame:
     """Effective adjustments with forward periods still ahead of the portfolio's latest actual.
 
     A period counts as remaining while it is after the portfolio's cycle, unless a decision of a
@@ -637,7 +663,6 @@ def active_adjustments(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFr
         dates), ``units_change`` (Σ adjusted − original over the remaining periods, missing
         counted as 0) and ``event_id``. Sorted by cycle and key.
     """
-    lines = adjustment_lines(portfolio, ledger)
     lines = lines.loc[~lines["status"].isin((UNCHANGED, ENDED))]
     ahead = _ahead(lines, portfolio.cycle)
     ahead["delta"] = np.nan_to_num(ahead["adjusted"].to_numpy()) - np.nan_to_num(
@@ -688,14 +713,14 @@ def _ahead(lines: pd.DataFrame, cycle: str) -> pd.DataFrame:
     return ahead
 
 
-def forward_overrides(portfolio: Portfolio, ledger: Ledger | None) -> pd.DataFrame:
+def forward_overrides(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFrame:
     """The override in force for each adjusted forward period of the portfolio's series.
 
     Same rule as ``active_adjustments`` (a later cycle's line replaces an earlier one for the
     same period). Columns: ``series``, ``column`` (calendar column), ``period``, ``original``,
-    ``adjusted``, ``cycle``, ``event_id``; only series and periods in the portfolio.
+    ``adjusted``, ``cycle``, ``event_id``; only series and periods in the portfolio. ``lines``
+    are the portfolio's ``adjustment_lines``.
     """
-    lines = adjustment_lines(portfolio, ledger)
     ahead = _ahead(lines.loc[lines["status"] == AHEAD], portfolio.cycle)
     ahead = ahead.loc[ahead["standing"] & (ahead["column"] >= 0)]
     cols = ["series", "column", "period", "original", "adjusted", "cycle", "event_id"]
@@ -741,9 +766,9 @@ def in_forecast(forecast: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
 
 def carried_adjustments(
     portfolio: Portfolio,
-    ledger: Ledger | None,
+    lines: pd.DataFrame,
+    cycle: str,
     *,
-    cycle: str | None = None,
     keep_ended: bool = False,
 ) -> pd.DataFrame:
     """Adjustments of cycles before ``cycle`` that still reach into the portfolio's forward periods.
@@ -765,8 +790,8 @@ def carried_adjustments(
 
     Args:
         portfolio: The new cycle's portfolio.
-        ledger: The ledger, or None (nothing is carried).
-        cycle: The review cycle carried into; default the portfolio's cycle.
+        lines: Its ``adjustment_lines`` from a log read as of ``cycle``.
+        cycle: The review cycle carried into.
         keep_ended: Keep the lines of ended adjustments too, with ``ended`` True (never
             ``standing``), so a caller can end or restore one without reading the ledger again.
 
@@ -774,8 +799,6 @@ def carried_adjustments(
         ``CARRIED_LINE_COLUMNS``, one row per carried line, sorted by series and period, newest
         cycle first within a period. ``column`` is the calendar column.
     """
-    cycle = cycle or portfolio.cycle
-    lines = adjustment_lines(portfolio, ledger, as_of=cycle)
     status = lines["status"].to_numpy(dtype=object)
     keep = (
         (lines["cycle"].to_numpy(dtype=object).astype(str) < cycle)
@@ -832,7 +855,7 @@ CARRIED_COLUMNS: tuple[str, ...] = (
 
 def carried_over(
     portfolio: Portfolio,
-    ledger: Ledger | None,
+    log: DecisionLog,
     worst: pd.DataFrame | Sequence[int] | np.ndarray,
 ) -> pd.DataFrame:
     """Handed-off and put-off series from earlier cycles that are still in the worst set.
@@ -844,7 +867,7 @@ def carried_over(
 
     Args:
         portfolio: The current portfolio.
-        ledger: The ledger, or None (nothing is carried).
+        log: The ledger's decisions (empty without a ledger: nothing is carried).
         worst: The worst-offender set, as a scorecard slice (its index = portfolio positions,
             e.g. ``leading_cover(card, 0.8)``) or as positions; its order is kept.
 
@@ -855,7 +878,7 @@ def carried_over(
     positions = np.asarray(
         worst.index if isinstance(worst, pd.DataFrame) else worst, dtype=np.int64
     )
-    earlier = effective_decisions(ledger, before=portfolio.cycle)
+    earlier = log.before(portfolio.cycle)
     if not earlier or not len(positions):
         return pd.DataFrame(columns=list(CARRIED_COLUMNS))
     frame = pd.DataFrame(
@@ -880,7 +903,7 @@ def carried_over(
     rank = pd.Series(np.arange(len(positions)), index=positions)
     latest = latest.loc[latest["series"].isin(positions)]
     latest = latest.assign(order=rank.reindex(latest["series"]).to_numpy()).sort_values("order")
-    now = {(d.item, d.location) for d in (ledger.current(portfolio.cycle) if ledger else [])}
+    now = {(d.item, d.location) for d in log.current(portfolio.cycle)}
     latest["reviewed_now"] = [
         (i, loc) in now for i, loc in zip(latest[schema.ITEM], latest[schema.LOCATION], strict=True)
     ]
@@ -976,17 +999,17 @@ class Coverage:
 
 
 def coverage(
-    portfolio: Portfolio, ledger: Ledger | None, card: pd.DataFrame, target_share: float = 0.8
+    portfolio: Portfolio, log: DecisionLog, card: pd.DataFrame, target_share: float
 ) -> Coverage:
     """Review coverage of the portfolio's cycle (the review screens' progress figure).
 
     Args:
         portfolio: The portfolio.
-        ledger: The ledger, or None (nothing reviewed).
+        log: The ledger's decisions (empty without a ledger: nothing reviewed).
         card: Its scorecard (any order; index = portfolio positions).
         target_share: Share of total error the review aims to cover.
     """
-    decided = ledger.current(portfolio.cycle) if ledger is not None else []
+    decided = log.current(portfolio.cycle)
     settled = [d for d in decided if d.outcome in SETTLED]
     pos = series_positions(portfolio, [d.item for d in settled], [d.location for d in settled])
     done = np.zeros(portfolio.n_series, dtype=bool)
@@ -1009,15 +1032,15 @@ def coverage(
     )
 
 
-def decision_counts(ledger: Ledger | None, cycle: str) -> pd.DataFrame:
+def decision_counts(log: DecisionLog, cycle: str) -> pd.DataFrame:
     """Effective decisions of a cycle: outcomes (rows, ``OUTCOMES`` order) by root cause.
 
     Columns are the root-cause codes used, in the ledger's vocabulary order (codes no longer in
     it last, sorted), then ``total``; a last row ``total`` sums the columns.
     """
-    decided = ledger.current(cycle) if ledger is not None else []
+    decided = log.current(cycle)
     outcomes = [c.code for c in OUTCOMES]
-    vocabulary = [c.code for c in ledger.root_causes] if ledger is not None else []
+    vocabulary = [c.code for c in log.root_causes]
     used = {d.root_cause for d in decided}
     causes = [c for c in vocabulary if c in used] + sorted(used - set(vocabulary))
     counts = pd.crosstab(

@@ -30,13 +30,12 @@ import pandas as pd
 
 from triage import __version__
 from triage.core import history, schema, words
-from triage.core.config import DEFAULT_ROOT_CAUSES
+from triage.core.cycle import ReviewCycle
 from triage.core.export import CAUTION
 from triage.core.files import refuse_existing, write_text_atomic
-from triage.core.ledger import OUTCOMES, Ledger
+from triage.core.ledger import OUTCOMES
 from triage.core.output import window_info
 from triage.core.portfolio import Portfolio
-from triage.core.ranking import scorecard
 from triage.core.text import visible
 
 #: Top offenders shown with a chart.
@@ -194,50 +193,32 @@ SUMMARY_BY: dict[str, str | tuple[str, ...]] = {
 
 
 def build_report(
-    portfolio: Portfolio,
-    ledger: Ledger | None,
+    review: ReviewCycle,
     *,
-    window: int = 13,
-    season: int = 1,
-    target_share: float = 0.8,
-    repeat_n: int = 3,
-    repeat_m: int = 4,
     top: int = TOP_DEFAULT,
     generated_at: datetime | None = None,
 ) -> ReportData:
-    """Gather the report's figures from the core functions (nothing is written).
+    """Gather the report's figures from the review cycle (nothing is written).
 
     Raises:
         HistoryError: Settings out of range (window, season, share, N of M, top).
     """
+    portfolio, ledger, settings = review.portfolio, review.ledger, review.settings
+    window, season, target_share = settings.window, settings.season, settings.target_share
+    repeat_n, repeat_m = settings.repeat
     if top < 1:
         raise ReportError(f"the number of top offenders must be at least 1, not {top}.")
     if window < 1 or season < 1:
         raise ReportError(f"window and season must be at least 1, not {window} and {season}.")
     if not 0 < target_share <= 1:
         raise ReportError(f"the target share must be in (0, 1], not {target_share}.")
-    card = scorecard(portfolio, window, season)
-    repeat = history.repeat_offenders(
-        portfolio,
-        n=repeat_n,
-        m=repeat_m,
-        target_share=target_share,
-        window=window,
-        ledger=ledger,
-    )
-    cov = history.coverage(portfolio, ledger, card, target_share)
-    worst = card.loc[
-        history.worst_set(card.sort_index()[_error_column(card)].to_numpy(), target_share)[
-            card.index
-        ]
-    ]
-    realised = history.realised_value(portfolio, ledger)
+    card = review.card
+    repeat = review.repeat_offenders()
+    worst = card.loc[review.worst[card.index]]
+    realised = review.realised
     summaries = {name: history.summarise(realised, by) for name, by in SUMMARY_BY.items()}
-    causes = ledger.root_causes if ledger is not None else DEFAULT_ROOT_CAUSES
-    current = ledger.current(portfolio.cycle) if ledger is not None else []
-    pos = history.series_positions(
-        portfolio, [d.item for d in current], [d.location for d in current]
-    )
+    current = review.decisions()
+    pos = portfolio.series_index.positions([d.item for d in current], [d.location for d in current])
     current_outcome = {int(p): d.outcome for p, d in zip(pos, current, strict=True) if p >= 0}
     head = card.iloc[:top]
     stamp = (generated_at or datetime.now(UTC)).astimezone(UTC)
@@ -262,21 +243,21 @@ def build_report(
         priced=portfolio.price is not None,
         generated_at=stamp.isoformat(timespec="seconds").replace("+00:00", "Z"),
         card=card,
-        coverage=cov,
-        decisions=history.decision_counts(ledger, portfolio.cycle),
+        coverage=review.coverage,
+        decisions=review.decision_counts,
         outcome_labels={c.code: c.label for c in OUTCOMES},
-        cause_labels={c.code: c.label for c in causes},
+        cause_labels={c.code: c.label for c in review.log.root_causes},
         bias=bias_distribution(card),
         top=head,
-        charts=tuple(_offender_charts(portfolio, ledger, head.index.to_numpy())),
+        charts=tuple(_offender_charts(review, head.index.to_numpy())),
         current_outcome=current_outcome,
         repeat=repeat,
-        carried=history.carried_over(portfolio, ledger, worst),
-        active=history.active_adjustments(portfolio, ledger),
+        carried=history.carried_over(portfolio, review.log, worst),
+        active=review.active,
         realised=realised,
-        status=history.line_status(portfolio, ledger),
+        status=review.line_status,
         summaries=summaries,
-        fva=history.portfolio_fva(portfolio, window=window, season=season),
+        fva=review.fva,
         notices=tuple(notices),
     )
 
@@ -285,14 +266,13 @@ def _error_column(card: pd.DataFrame) -> str:
     return "abs_error_value" if "abs_error_value" in card else "abs_error"
 
 
-def _offender_charts(
-    portfolio: Portfolio, ledger: Ledger | None, series: np.ndarray
-) -> list[OffenderChart]:
+def _offender_charts(review: ReviewCycle, series: np.ndarray) -> list[OffenderChart]:
+    portfolio = review.portfolio
     last = portfolio.last_actual
     lo = max(0, last + 1 - CHART_HISTORY)
     cols = np.arange(lo, len(portfolio.calendar.periods))
     labels = tuple(portfolio.calendar.label(int(c)) for c in cols)
-    overrides = history.forward_overrides(portfolio, ledger)
+    overrides = review.forward_overrides
     out = []
     for s in series:
         adjusted = np.full(len(cols), np.nan)
@@ -1086,15 +1066,9 @@ def default_report_path(portfolio: Portfolio) -> Path:
 
 
 def write_report(
-    portfolio: Portfolio,
-    ledger: Ledger | None,
+    review: ReviewCycle,
     target: str | Path | None = None,
     *,
-    window: int = 13,
-    season: int = 1,
-    target_share: float = 0.8,
-    repeat_n: int = 3,
-    repeat_m: int = 4,
     top: int = TOP_DEFAULT,
     generated_at: datetime | None = None,
     force: bool = True,
@@ -1102,8 +1076,8 @@ def write_report(
     """Build the report and write it atomically (a reader never sees half a file).
 
     Args:
-        portfolio: The current portfolio.
-        ledger: The decision ledger (read-only is enough), or None.
+        review: The current portfolio's review cycle, with its ledger (read-only is enough, or
+            None) and settings.
         target: HTML file to write; default ``default_report_path(portfolio)``.
         force: Replace the file if it exists (``triage report`` passes its ``--force``).
 
@@ -1113,24 +1087,14 @@ def write_report(
         TriageError: The file exists and ``force`` is false, or it cannot be written
             (``files.write_atomic``).
     """
-    path = Path(target) if target is not None else default_report_path(portfolio)
+    path = Path(target) if target is not None else default_report_path(review.portfolio)
     if path.suffix.lower() not in (".html", ".htm"):
         raise ReportError(
             f"the report is an HTML file; {path.name} does not end in .html.",
             hint="Pass --to NAME.html.",
         )
     refuse_existing([path], force=force)  # before the work, not only at the write
-    data = build_report(
-        portfolio,
-        ledger,
-        window=window,
-        season=season,
-        target_share=target_share,
-        repeat_n=repeat_n,
-        repeat_m=repeat_m,
-        top=top,
-        generated_at=generated_at,
-    )
+    data = build_report(review, top=top, generated_at=generated_at)
     document = render_html(data)
     write_text_atomic(path, document, force=force)
     return ReportResult(path=path, data=data, bytes=len(document.encode("utf-8")))

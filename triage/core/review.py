@@ -17,17 +17,15 @@ from typing import Protocol
 import numpy as np
 import pandas as pd
 
-from triage.core import adjust, history, metrics, schema
+from triage.core import adjust, history, schema
 from triage.core import ledger as ledger_mod
+from triage.core.cycle import ReviewCycle
 from triage.core.ledger import AdjustmentEnd, Event, Ledger
-from triage.core.portfolio import Portfolio
-from triage.core.ranking import BY_BIAS, BY_ERROR, error_shares, scorecard
+from triage.core.ranking import BY_BIAS, BY_ERROR, error_shares
 
 #: Fields a reviewer can filter on besides the attribute columns.
 FILTER_FIELDS = ("pattern", "flag", "outcome", "repeat", "carried")
 UNREVIEWED = "unreviewed"
-#: Repeat offender: in the worst-offender set in at least N of the last M cycles.
-REPEAT_N, REPEAT_M = 3, 4
 
 
 @dataclass(frozen=True)
@@ -120,40 +118,35 @@ class BatchDecision(Protocol):
 
 
 class ReviewSession:
-    """Everything the review screens need about one portfolio and one ledger.
+    """Everything the review screens need about one review cycle.
 
     Args:
-        portfolio: The loaded portfolio.
-        ledger: The open ledger, or None to review without saving (read-only view).
+        cycle: The review cycle opened on a portfolio, its ledger (None to review without
+            saving: a read-only view) and the settings (window, season, target share,
+            repeat N of M).
         reviewer: Name stored with each decision.
-        window: Scoring window (periods with actuals).
-        season: Seasonal period of the naive baseline.
-        target_share: Share of total error the reviewer aims to cover.
-        repeat: ``(N, M)``: a repeat offender is in the worst set in N of the last M cycles.
         record_worst_set: Store this cycle's worst-offender set in a writable ledger when the
             cycle has none yet (opening a cycle for review does; the first set stands).
     """
 
     def __init__(
         self,
-        portfolio: Portfolio,
+        cycle: ReviewCycle,
         *,
-        ledger: Ledger | None,
         reviewer: str,
-        window: int = 13,
-        season: int = 1,
-        target_share: float = 0.8,
-        repeat: tuple[int, int] = (REPEAT_N, REPEAT_M),
         record_worst_set: bool = True,
     ) -> None:
-        self.portfolio = portfolio
-        self.ledger = ledger
+        self.review_cycle = cycle
+        """The cycle this session reviews: scorecard, settings and the ledger read once."""
+        portfolio = self.portfolio = cycle.portfolio
+        self.ledger = cycle.ledger
         self.reviewer = reviewer
-        self.window = window
-        self.season = season
-        self.target_share = target_share
-        self.cycle = portfolio.cycle
-        card = scorecard(portfolio, window, season)
+        settings = cycle.settings
+        self.window = settings.window
+        self.season = settings.season
+        self.target_share = settings.target_share
+        self.cycle = cycle.name
+        card = cycle.card
         self.error_order = card.index.to_numpy(dtype=np.int64)
         self.card = card.sort_index()
         """Scorecard aligned on portfolio index (row i = series i)."""
@@ -174,7 +167,7 @@ class ReviewSession:
             np.nan_to_num(self.bias_size), self.bias_order
         )
         """Share of the portfolio's total |bias|, and the cumulative share in bias order."""
-        self.window_cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+        self.window_cols = cycle.window_cols
         self.suggest_spec, self.suggest_reason = adjust.suggest(
             self.card["bias"].to_numpy(),
             self.card["demand"].to_numpy(),
@@ -194,23 +187,15 @@ class ReviewSession:
         self._folded: dict[str, np.ndarray] | None = None
         self.notices: list[str] = []
         """Things the reviewer should know about this session (shown by the screens)."""
-        self.worst = history.worst_set(self.error, target_share)
+        self.worst = cycle.worst
         """This cycle's worst-offender set (the leading set covering the target share)."""
         stored_now = self._record_worst_set() if record_worst_set else False
-        offenders = history.repeat_offenders(
-            portfolio,
-            n=repeat[0],
-            m=repeat[1],
-            target_share=target_share,
-            window=window,
-            ledger=ledger,
-            # Just stored: the set in hand is the stored one, no need to read it back.
-            current=self.worst if stored_now else None,
-        )
-        notice = history.repeat_notice(offenders) if ledger is not None else None
+        # Just stored: the set in hand is the stored one, no need to read it back.
+        offenders = cycle.repeat_offenders(current=self.worst if stored_now else None)
+        notice = history.repeat_notice(offenders) if self.ledger is not None else None
         if notice:
             self.notices.append(notice)
-        self.repeat_nm = repeat
+        self.repeat_nm = settings.repeat
         self.times_in_worst = offenders["times_in_worst"].to_numpy(dtype=np.int64)
         """Cycles (of the last M) the series was in the worst-offender set."""
         self.cycles_scored = sum(c.startswith("worst_") for c in offenders.columns)
@@ -240,7 +225,7 @@ class ReviewSession:
             portfolio.calendar.periods[i].strftime("%Y-%m-%d")
             for i in range(portfolio.last_actual + 1, len(portfolio.calendar.periods))
         )
-        if ledger is not None:
+        if self.ledger is not None:
             self.reload()
 
     # -- keys ---------------------------------------------------------------------------------
@@ -286,7 +271,8 @@ class ReviewSession:
             vals = np.fromiter(versions.values(), dtype=np.int64, count=len(versions))
             ok = idx >= 0
             self.version[idx[ok]] = vals[ok]
-        decisions = self.ledger.current(self.cycle)
+        self.review_cycle.refresh()
+        decisions = self.review_cycle.decisions()
         if decisions:
             idx = self._indexer([(d.item, d.location) for d in decisions])
             outcomes = np.array([d.outcome for d in decisions], dtype=object)
@@ -301,23 +287,21 @@ class ReviewSession:
         self.past_outcome[:] = ""
         self.past_cycle[:] = ""
         self.carried[:] = False
-        earlier = history.effective_decisions(self.ledger, before=self.cycle)
+        earlier = self.review_cycle.log.before(self.cycle)
         if earlier:
             # Oldest cycle first, so the latest decision per series is written last.
             idx = self._indexer([(d.item, d.location) for d in earlier])
             ok = idx >= 0
             self.past_outcome[idx[ok]] = np.array([d.outcome for d in earlier], dtype=object)[ok]
             self.past_cycle[idx[ok]] = np.array([d.cycle for d in earlier], dtype=object)[ok]
-            carried = history.carried_over(self.portfolio, self.ledger, np.flatnonzero(self.worst))
+            carried = self.review_cycle.carried_over
             self.carried[carried["series"].to_numpy(dtype=np.int64)] = True
         self._reload_carried()
 
     def _reload_carried(self) -> None:
         """Earlier cycles' adjustments reaching into this file's forward periods, and ends."""
-        self._ends = self.ledger.standing_ends(self.cycle) if self.ledger is not None else {}
-        self.earlier_lines = history.carried_adjustments(
-            self.portfolio, self.ledger, cycle=self.cycle, keep_ended=True
-        )
+        self._ends = dict(self.review_cycle.log.ends)
+        self.earlier_lines = self.review_cycle.carried_lines
         self._derive_carried()
 
     def _derive_carried(self) -> None:
@@ -875,10 +859,10 @@ class ReviewSession:
             ``{grouping: history.summarise(...)}`` for every grouping in ``history.GROUPINGS``
             (empty frames without a ledger or realised lines), and ``history.portfolio_fva``.
         """
-        realised = history.realised_value(self.portfolio, self.ledger)
-        tables = {by: history.summarise(realised, by) for by in history.GROUPINGS}
-        fva = history.portfolio_fva(self.portfolio, window=self.window, season=self.season)
-        return tables, fva
+        # Read afresh (this runs on a worker thread): the decisions saved until now count.
+        fresh = self.review_cycle.reread()
+        tables = {by: history.summarise(fresh.realised, by) for by in history.GROUPINGS}
+        return tables, fresh.fva
 
     def across_cycles(self, series: int) -> list[str]:
         """Lines about the series' earlier cycles: adjustments still carried first (they change

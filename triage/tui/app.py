@@ -24,9 +24,11 @@ from textual.worker import Worker, WorkerState
 from triage.core import ledger as ledger_mod
 from triage.core import schema, words
 from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
+from triage.core.cycle import ReviewCycle
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
+from triage.core.settings import ScoreSettings
 from triage.core.text import visible
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
@@ -412,14 +414,10 @@ class TriageApp(App[None]):
         except TriageError as exc:
             notices.append(f"{exc} Decisions cannot be saved in this session.")
         self.post_message(LoadStep(2, steps, "scoring every series"))
-        session = ReviewSession(
-            portfolio,
-            ledger=ledger,
-            reviewer=opts.reviewer,
-            window=opts.window,
-            season=opts.season,
-            target_share=opts.target_share,
+        settings = ScoreSettings(
+            window=opts.window, season=opts.season, target_share=opts.target_share
         )
+        session = ReviewSession(ReviewCycle(portfolio, ledger, settings), reviewer=opts.reviewer)
         self.post_message(LoadStep(3, steps, "indexing for search"))
         session.prepare()
         self.post_message(LoadStep(4, steps, "drawing"))
@@ -1173,8 +1171,9 @@ class TriageApp(App[None]):
         self.call_from_thread(self._status, f"exporting to {target}…")
         # The long layout and the default precision; the file's own headers, as on the command
         # line.
+        # A cycle read afresh on this thread: the decisions saved until now, every one of them.
         result = export_review(
-            session.portfolio, session.ledger, target, force=False, headers=self.options.columns
+            session.review_cycle.reread(), target, force=False, headers=self.options.columns
         )
         written = ", ".join(str(p) for p in result.paths)
         self.post_message(Exported(f"exported: {written}. {CAUTION}"))
