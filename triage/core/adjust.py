@@ -304,6 +304,13 @@ def _parse_values(spec: str, text: str, at: int) -> tuple[float, ...]:
 # Applying
 
 
+def units_change(original: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
+    """Adjusted − original per period, a missing value counted as 0: the change in units an
+    adjustment makes (its sum is what the review shows, the export and the ledger's reports
+    count)."""
+    return np.nan_to_num(adjusted, nan=0.0) - np.nan_to_num(original, nan=0.0)
+
+
 @dataclass(frozen=True, eq=False)
 class AdjustResult:
     """What an adjustment does to one series' forward forecast."""
@@ -452,9 +459,7 @@ def apply(
         adjusted[below] = 0.0
         message = f"{count} period(s) would fall below zero and were set to 0"
 
-    before = np.nan_to_num(original[lo:hi], nan=0.0)
-    after = np.nan_to_num(adjusted[lo:hi], nan=0.0)
-    change = after - before
+    change = units_change(original[lo:hi], adjusted[lo:hi])
     delta_units = float(change.sum())
     delta_value = _value_impact(change, price, horizon, lo, hi, notes)
 

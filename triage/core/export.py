@@ -53,7 +53,7 @@ import numpy as np
 import pandas as pd
 
 from triage import __version__
-from triage.core import schema
+from triage.core import adjust, schema
 from triage.core.config import Choice, default_reviewer
 from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
@@ -479,8 +479,7 @@ def review_tables(
     decimals = decimals_for(rounding, portfolio.forecast[:, first_fwd:])
     line_adj = round_half_away(line_adj, decimals)
     line_series = kept_series[line_dec] if len(line_dec) else np.empty(0, dtype=np.int64)
-    # Missing counted as 0, as triage.core.adjust counts Σ adjusted − Σ original.
-    delta = np.nan_to_num(line_adj) - np.nan_to_num(line_orig)
+    delta = adjust.units_change(line_orig, line_adj)
     units_change = np.bincount(line_dec, weights=delta, minlength=n_dec).astype(np.float64)
     # Exact sums without float noise: originals may have more decimals than the export keeps.
     change_decimals = max(decimals, decimals_used(line_orig))

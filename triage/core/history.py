@@ -42,7 +42,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from triage.core import metrics, ranking, schema
+from triage.core import adjust, metrics, ranking, schema
 from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.errors import TriageError
 from triage.core.ledger import ADJUSTED, OUTCOMES, SETTLED, AdjustmentEnd, Decision, Ledger
@@ -665,9 +665,7 @@ def active_adjustments(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFram
     """
     lines = lines.loc[~lines["status"].isin((UNCHANGED, ENDED))]
     ahead = _ahead(lines, portfolio.cycle)
-    ahead["delta"] = np.nan_to_num(ahead["adjusted"].to_numpy()) - np.nan_to_num(
-        ahead["original"].to_numpy()
-    )
+    ahead["delta"] = adjust.units_change(ahead["original"].to_numpy(), ahead["adjusted"].to_numpy())
     total = lines.groupby("event_id").size()
     rows = []
     for event_id, part in ahead.groupby("event_id", sort=False):

@@ -477,16 +477,8 @@ class ReviewSession:
                 saved.
         """
         ledger = self._require_ledger()
-        item, location = self.key(series)
         return ledger.end_adjustment(
-            self.cycle,
-            item,
-            location,
-            target=event_id,
-            reviewer=self.reviewer,
-            note=note,
-            portfolio_name=self.portfolio.path.name,
-            portfolio_fingerprint=self.portfolio.fingerprint,
+            self.cycle, *self.key(series), target=event_id, **self._signed(note)
         )
 
     def commit_restore_adjustment(self, series: int, end_id: int, note: str = "") -> AdjustmentEnd:
@@ -497,17 +489,18 @@ class ReviewSession:
                 saved.
         """
         ledger = self._require_ledger()
-        item, location = self.key(series)
         return ledger.restore_adjustment(
-            self.cycle,
-            item,
-            location,
-            end=end_id,
-            reviewer=self.reviewer,
-            note=note,
-            portfolio_name=self.portfolio.path.name,
-            portfolio_fingerprint=self.portfolio.fingerprint,
+            self.cycle, *self.key(series), end=end_id, **self._signed(note)
         )
+
+    def _signed(self, note: str) -> dict[str, str]:
+        """Who ends or restores, why, and on which file: what the ledger records with it."""
+        return {
+            "reviewer": self.reviewer,
+            "note": note,
+            "portfolio_name": self.portfolio.path.name,
+            "portfolio_fingerprint": self.portfolio.fingerprint,
+        }
 
     def apply_end(self, record: AdjustmentEnd) -> int | None:
         """Bring the in-memory state in line with a committed end or restore; returns its series.
