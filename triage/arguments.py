@@ -116,18 +116,12 @@ def refuse_overwriting(
     refuse_existing(targets, force=force)
 
 
-#: Most periods --window and --season may count (almost two centuries of weeks); a larger
-#: number is a typo, and would not fit the integer types of the measures.
-PERIODS_MAX = 10_000
-
-
 def check_score_args(args: argparse.Namespace) -> None:
     """Refuse a window or season below 1 or above ``PERIODS_MAX`` with the option's name."""
-    for option, value in (("--window", args.window), ("--season", args.season)):
-        if value < 1:
-            raise TriageError(f"{option} must be at least 1, not {value}.")
-        if value > PERIODS_MAX:
-            raise TriageError(f"{option} counts periods: at most {PERIODS_MAX:,}, not {value}.")
+    from triage.core.settings import SEASON, WINDOW
+
+    for setting in (WINDOW, SEASON):
+        setting.check(getattr(args, setting.name), setting.flag)
 
 
 def open_ledger_read_only(path: Path, config: Config) -> Ledger:

@@ -13,7 +13,6 @@ import argparse
 import contextlib
 import csv
 import io
-import re
 import shutil
 import sys
 from pathlib import Path
@@ -149,16 +148,9 @@ def parse_repeat(value: str) -> tuple[int, int]:
     Raises:
         TriageError: Not two whole numbers with 1 <= N <= M.
     """
-    match = re.fullmatch(r"\s*(\d+)\s*/\s*(\d+)\s*", value or "")
-    if not match:
-        raise TriageError(
-            f"--repeat must be N/M, e.g. 3/4, not {value!r}.",
-            hint="N/M: in the worst set in at least N of the last M cycles.",
-        )
-    n, m = int(match[1]), int(match[2])
-    if not 1 <= n <= m:
-        raise TriageError(f"--repeat {value}: N must be between 1 and M.", hint="For example 3/4.")
-    return n, m
+    from triage.core.settings import REPEAT
+
+    return REPEAT.check(value, REPEAT.flag)
 
 
 def _load(args: argparse.Namespace) -> Portfolio:

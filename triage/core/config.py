@@ -17,7 +17,6 @@ Root causes are offered in list order; the first ten get the digit shortcuts 1-9
 from __future__ import annotations
 
 import getpass
-import math
 import re
 import tomllib
 import unicodedata
@@ -26,6 +25,7 @@ from pathlib import Path
 from typing import Any
 
 from triage.core.errors import TriageError
+from triage.core.settings import TARGET_SHARE, is_share
 
 CONFIG_NAME = "config.toml"
 #: Largest configuration file read, in bytes.
@@ -89,8 +89,6 @@ DEFAULT_ROOT_CAUSES: tuple[Choice, ...] = numbered(
     )
 )
 
-DEFAULT_TARGET_SHARE = 0.8
-
 
 @dataclass(frozen=True)
 class Config:
@@ -100,7 +98,7 @@ class Config:
     """Name recorded with each decision; None means the login name."""
     root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
     """Root causes offered, in shortcut order."""
-    target_share: float = DEFAULT_TARGET_SHARE
+    target_share: float = TARGET_SHARE.default
     """Share of total error (0-1] the worst-offender list should cover."""
     auto_advance: bool = False
     """After a decision, move to the next series without one (``N`` toggles it in the app)."""
@@ -191,11 +189,11 @@ def _parse(file: Path, data: dict[str, Any]) -> Config:
         raise ConfigError(
             file, "reviewer", problem, hint='Write a plain name, e.g. reviewer = "Ana".'
         )
-    share = data.get("target_share", DEFAULT_TARGET_SHARE)
+    share = data.get("target_share", TARGET_SHARE.default)
     if isinstance(share, bool) or not isinstance(share, int | float):
         raise ConfigError(file, "target_share", f"must be a number, not {share!r}")
     share = float(share)
-    if not (math.isfinite(share) and 0.0 < share <= 1.0):
+    if not is_share(share):
         raise ConfigError(
             file, "target_share", f"must be above 0 and at most 1 (a share), not {share!r}"
         )

@@ -9,7 +9,6 @@ reward forecasts that are too low.
 from __future__ import annotations
 
 import concurrent.futures
-from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -18,6 +17,7 @@ import pandas as pd
 from triage.core import metrics
 from triage.core.errors import TriageError
 from triage.core.portfolio import Portfolio
+from triage.core.settings import SEASON, WINDOW
 
 BY_ERROR = "error"
 BY_BIAS = "bias"
@@ -26,20 +26,10 @@ ORDERS = (BY_ERROR, BY_BIAS)
 FLAG_TEXT = {1: "over", -1: "under", 0: ""}
 
 
-@dataclass(frozen=True)
-class ScoreSettings:
-    """How a portfolio is scored."""
-
-    window: int = 13
-    """Latest calendar periods with any actual demand that make up the scoring window."""
-    season: int = 1
-    """Seasonal period m of the naive baseline (1 = last period's actual)."""
-
-
 def scorecard(
     portfolio: Portfolio,
-    window: int = 13,
-    season: int = 1,
+    window: int = WINDOW.default,
+    season: int = SEASON.default,
     *,
     by: str = BY_ERROR,
 ) -> pd.DataFrame:
