@@ -47,6 +47,7 @@ from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.errors import TriageError
 from triage.core.ledger import ADJUSTED, OUTCOMES, SETTLED, AdjustmentEnd, Decision, Ledger
 from triage.core.portfolio import Portfolio
+from triage.core.settings import REPEAT, SEASON, TARGET_SHARE, WINDOW
 
 UP = "up"
 DOWN = "down"
@@ -510,10 +511,10 @@ RESCORED = "rescored"
 def repeat_offenders(
     portfolio: Portfolio,
     *,
-    n: int = 3,
-    m: int = 4,
-    target_share: float = 0.8,
-    window: int = 13,
+    n: int = REPEAT.default[0],
+    m: int = REPEAT.default[1],
+    target_share: float = TARGET_SHARE.default,
+    window: int = WINDOW.default,
     ledger: Ledger | None = None,
     current: np.ndarray | None = None,
 ) -> pd.DataFrame:
@@ -919,7 +920,9 @@ def carried_first(order: np.ndarray, carried: np.ndarray | Sequence[int]) -> np.
 # Context for the cycle
 
 
-def portfolio_fva(portfolio: Portfolio, *, window: int = 13, season: int = 1) -> dict[str, float]:
+def portfolio_fva(
+    portfolio: Portfolio, *, window: int = WINDOW.default, season: int = SEASON.default
+) -> dict[str, float]:
     """Portfolio forecast value added over the (seasonal) naive forecast in the scoring window.
 
     Over every window cell where demand D_t, forecast F_t and the naive forecast D_{t−m} exist
