@@ -92,7 +92,8 @@ class ReviewCycle:
     def error(self) -> np.ndarray:
         """Absolute error per series (value where priced), by position: what ranking sorts."""
         aligned = self.card.sort_index()
-        return aligned["abs_error_value" if self.priced else "abs_error"].to_numpy()
+        column = aligned["abs_error_value" if self.priced else "abs_error"]
+        return np.asarray(column.to_numpy(), dtype=np.float64)
 
     @cached_property
     def worst(self) -> np.ndarray:
