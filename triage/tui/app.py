@@ -27,6 +27,7 @@ from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
+from triage.core.settings import ScoreSettings
 from triage.core.text import visible
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
@@ -53,15 +54,13 @@ class Options:
     portfolio: Path
     ledger: Path | None = None
     reviewer: str = ""
-    window: int = 13
-    season: int = 1
+    settings: ScoreSettings = field(default_factory=ScoreSettings)
+    """Window, season, target share, repeat offenders and lag (``triage.core.settings``)."""
     columns: dict[str, str] | None = None
     sheet: str | None = None
-    lag: int | None = None
     file_options: FileOptions | None = None
     """How the file writes its cells (``--sep``, ``--decimal``, ``--date-format``,
     ``--header-row``)."""
-    target_share: float = 0.8
     root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
     auto_advance: bool = False
     notices: list[str] = field(default_factory=list)
@@ -393,10 +392,10 @@ class TriageApp(App[None]):
             opts.portfolio,
             columns=opts.columns,
             sheet=opts.sheet,
-            lag=opts.lag,
+            lag=opts.settings.lag,
             options=opts.file_options,
         )
-        require_scorable(portfolio, opts.window)
+        require_scorable(portfolio, opts.settings.window)
         self.post_message(LoadStep(1, steps, "opening the ledger"))
         notices = list(opts.notices) + list(portfolio.notices)
         ledger = None
@@ -416,9 +415,9 @@ class TriageApp(App[None]):
             portfolio,
             ledger=ledger,
             reviewer=opts.reviewer,
-            window=opts.window,
-            season=opts.season,
-            target_share=opts.target_share,
+            window=opts.settings.window,
+            season=opts.settings.season,
+            target_share=opts.settings.target_share,
         )
         self.post_message(LoadStep(3, steps, "indexing for search"))
         session.prepare()
