@@ -8,11 +8,42 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from triage.core.errors import TriageError
+from triage.core.settings import LAG, SEASON, WINDOW, Setting
 from triage.core.text import visible as printable
 
 if TYPE_CHECKING:
     from triage.core.config import Config
     from triage.core.ledger import Ledger
+    from triage.core.portfolio import Portfolio
+
+
+def setting_arg(
+    parser: argparse.ArgumentParser | argparse._ArgumentGroup,
+    setting: Setting[Any],
+    *,
+    flag: str | None = None,
+    help: str | None = None,
+) -> None:
+    """The option of a declared setting (``triage.core.settings``): its type, placeholder and
+    help (the default written in) from the declaration.
+
+    The parsed value is None unless the option was typed: ``ScoreSettings.from_args`` applies
+    the configuration and the declared default.
+
+    Args:
+        parser: The parser or group to add the option to.
+        setting: The declaration.
+        flag: One of the setting's other options (``--target``), instead of its usual one.
+        help: Help of a command that uses the setting in its own way; ``{default}`` is
+            replaced by the default.
+    """
+    assert flag is None or flag in setting.flags, flag
+    parser.add_argument(
+        flag or setting.flag,
+        type=setting.convert,
+        metavar=setting.metavar,
+        help=(help or setting.help).format(default=setting.shown()),
+    )
 
 
 def portfolio_args(parser: argparse.ArgumentParser) -> None:
@@ -25,9 +56,7 @@ def portfolio_args(parser: argparse.ArgumentParser) -> None:
         help="map our column names to the file's headers, e.g. demand=qty_shipped,item=sku",
     )
     parser.add_argument("--sheet", help="xlsx sheet to read (default: the first visible sheet)")
-    parser.add_argument(
-        "--lag", type=int, help="forecast lag to score, when the file holds several"
-    )
+    setting_arg(parser, LAG)
     parser.add_argument(
         "--sep", metavar="CHAR", help="CSV field separator: ';', '|' or tab (default ',')"
     )
@@ -71,15 +100,62 @@ def read_args(args: argparse.Namespace) -> dict[str, Any]:
 
 def score_args(parser: argparse.ArgumentParser) -> None:
     """How series are scored: ``--window --season``."""
+    setting_arg(parser, WINDOW)
+    setting_arg(parser, SEASON)
+
+
+def config_arg(parser: argparse.ArgumentParser) -> None:
+    """``--config PATH``: the configuration file (default: the user's, when there is one)."""
+    parser.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+
+
+def ledger_arg(parser: argparse.ArgumentParser) -> None:
+    """``--ledger PATH``: the decision ledger (default: the review folder's ledger)."""
     parser.add_argument(
-        "--window",
-        type=int,
-        default=13,
-        help="latest periods with actual demand to score (default 13)",
+        "--ledger",
+        type=Path,
+        metavar="PATH",
+        help="decision ledger (default: the review folder's ledger, see docs/ledger.md)",
     )
+
+
+def reviewer_arg(parser: argparse.ArgumentParser) -> None:
+    """``--reviewer NAME``: the name stored with each decision."""
     parser.add_argument(
-        "--season", type=int, default=1, help="seasonal period of the naive baseline (default 1)"
+        "--reviewer", help="name stored with each decision (default: config or login name)"
     )
+
+
+def format_arg(parser: argparse.ArgumentParser) -> None:
+    """``--format``: a table for reading, or CSV or JSON for a program."""
+    parser.add_argument(
+        "--format",
+        choices=("table", "csv", "json"),
+        default="table",
+        help="output format (default table)",
+    )
+
+
+def load_config_of(args: argparse.Namespace) -> Config:
+    """The configuration named by ``--config``, else the user's (``load_config``).
+
+    Raises:
+        ConfigError: The file cannot be used as written.
+    """
+    from triage.core.config import load_config
+
+    return load_config(getattr(args, "config", None))
+
+
+def load_portfolio(args: argparse.Namespace, *, smallest_lag: bool = False) -> Portfolio:
+    """The portfolio named on the command line, read with the options of ``portfolio_args``.
+
+    Raises:
+        TriageError: The file cannot be read or scored as it is (the loader's message).
+    """
+    from triage.core.portfolio import read_portfolio
+
+    return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **read_args(args))
 
 
 def refuse_overwriting(
@@ -114,14 +190,6 @@ def refuse_overwriting(
                     hint="Choose another output file name.",
                 )
     refuse_existing(targets, force=force)
-
-
-def check_score_args(args: argparse.Namespace) -> None:
-    """Refuse a window or season below 1 or above ``PERIODS_MAX`` with the option's name."""
-    from triage.core.settings import SEASON, WINDOW
-
-    for setting in (WINDOW, SEASON):
-        setting.check(getattr(args, setting.name), setting.flag)
 
 
 def open_ledger_read_only(path: Path, config: Config) -> Ledger:
@@ -184,3 +252,58 @@ def ledger_to_read(
     for text in where.notices:
         note(text)
     return where.path
+
+
+def review_target(
+    args: argparse.Namespace, config: Config, *, stand_in: bool = True
+) -> tuple[Path, Path | None, list[str]]:
+    """The portfolio a review opens (the newest in a folder), its ledger, and what to say.
+
+    Without ``--ledger`` the ledger is the review folder's (``locate_ledger``). When no ledger
+    can be had (neither the folder nor the user data folder is writable) it is left to the
+    review screens, which open without saving and say why.
+
+    Args:
+        args: The parsed command line.
+        config: The configuration.
+        stand_in: Accept a ledger in the user data folder standing in for the ledger of a folder
+            that cannot be written; when False that is refused naming the folder's ledger (a
+            batch recorded there would never reach the folder's exports).
+
+    Raises:
+        TriageError: ``stand_in`` is False and the folder's ledger cannot be written.
+    """
+    from triage.core.ledger import locate_ledger
+
+    notices: list[str] = []
+    portfolio: Path = args.portfolio
+    if portfolio.is_dir():
+        from triage.core.folder import newest_portfolio
+
+        reading = read_args(args)
+        newest = newest_portfolio(
+            portfolio,
+            columns=reading["columns"],
+            sheet=reading["sheet"],
+            lag=reading["lag"],
+            options=reading["options"],
+        )
+        portfolio = newest.path
+        notices.extend(newest.notices)
+    ledger: Path | None = args.ledger
+    if ledger is None:
+        try:
+            where = locate_ledger(portfolio, name=config.ledger, for_writing=True)
+        except TriageError:
+            return portfolio, None, notices
+        if where.stand_in_for is not None and not stand_in:
+            raise TriageError(
+                f"the decision ledger of this folder, {where.stand_in_for}, cannot "
+                f"be written: the folder {where.stand_in_for.parent} is not "
+                "writable; nothing was recorded.",
+                hint="Ask for write access to the folder, or pass --ledger PATH to record the "
+                "decisions in another ledger on purpose.",
+            )
+        ledger = where.path
+        notices.extend(where.notices)
+    return portfolio, ledger, notices

@@ -14,19 +14,28 @@ from typing import TYPE_CHECKING
 
 from triage import __version__
 from triage.arguments import (
-    check_score_args,
+    config_arg,
     force_arg,
+    format_arg,
+    ledger_arg,
+    load_config_of,
+    load_portfolio,
     portfolio_args,
     read_args,
     refuse_overwriting,
+    review_target,
+    reviewer_arg,
     score_args,
+    setting_arg,
 )
 from triage.commands_decide import add_decide_command
 from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
+from triage.core.settings import TARGET_SHARE, ScoreSettings
 
 if TYPE_CHECKING:
+    from triage.core.config import Config
     from triage.tui.app import TriageApp
 
 
@@ -47,19 +56,14 @@ def build_parser() -> argparse.ArgumentParser:
     rank.add_argument(
         "--by", choices=("error", "bias"), default="error", help="order (default error)"
     )
-    rank.add_argument(
-        "--format",
-        choices=("table", "csv", "json"),
-        default="table",
-        help="output format (default table)",
-    )
+    format_arg(rank)
     limit = rank.add_mutually_exclusive_group()
     limit.add_argument("--top", type=int, metavar="K", help="only the first K series")
-    limit.add_argument(
-        "--cover",
-        type=float,
-        metavar="F",
-        help="only the smallest leading set whose cumulative error share reaches F (e.g. 0.8)",
+    setting_arg(
+        limit,
+        TARGET_SHARE,
+        help="only the smallest leading set whose cumulative error share reaches F "
+        "(e.g. {default})",
     )
     rank.add_argument(
         "--output", type=Path, metavar="PATH", help="write to PATH instead of standard output"
@@ -95,22 +99,10 @@ def build_parser() -> argparse.ArgumentParser:
 
 def _review_args(parser: argparse.ArgumentParser, *, ledger: bool = True) -> None:
     if ledger:
-        parser.add_argument(
-            "--ledger",
-            type=Path,
-            help="decision ledger (default: the review folder's ledger, triage-ledger.sqlite "
-            "beside the portfolio, or the config's 'ledger'; see docs/ledger.md)",
-        )
-    parser.add_argument(
-        "--reviewer", help="name stored with each decision (default: config or login name)"
-    )
-    parser.add_argument("--config", type=Path, help="configuration file (TOML)")
-    parser.add_argument(
-        "--target",
-        type=float,
-        metavar="F",
-        help="share of total error the review aims to cover (default: config, else 0.8)",
-    )
+        ledger_arg(parser)
+    reviewer_arg(parser)
+    config_arg(parser)
+    setting_arg(parser, TARGET_SHARE, flag="--target")
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -193,34 +185,27 @@ def _write_crash_log(exc: BaseException, argv: list[str], extra: str = "") -> Pa
     return path
 
 
-def _load(args: argparse.Namespace, *, smallest_lag: bool = False):
-    from triage.core.portfolio import read_portfolio
-
-    return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **read_args(args))
-
-
 def _cmd_rank(args: argparse.Namespace) -> int:
     from triage.core import output as report
     from triage.core.ranking import leading_cover, require_scorable, scorecard
     from triage.core.text import visible
 
-    check_score_args(args)
+    # --cover is checked here; the configuration's target share does not apply to rank.
+    settings = ScoreSettings.from_args(args)
     if args.output is not None:
         refuse_overwriting([args.output], args.portfolio, force=args.force)
     if args.top is not None and args.top < 1:
         raise TriageError(f"--top must be at least 1, not {args.top}.")
-    if args.cover is not None and not 0 < args.cover <= 1:
-        raise TriageError(f"--cover must be a fraction in (0, 1], e.g. 0.8, not {args.cover}.")
-    portfolio = _load(args)
+    portfolio = load_portfolio(args)
     for notice in portfolio.notices:
         # What the loader changed or skipped (ids kept as text, replaced control characters, a
         # hidden sheet, renamed columns) is said on standard error, whatever the format.
         print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
-    require_scorable(portfolio, args.window)
-    card = scorecard(portfolio, args.window, args.season, by=args.by)
+    require_scorable(portfolio, settings.window)
+    card = scorecard(portfolio, settings.window, settings.season, by=args.by)
     shown = card
     if args.cover is not None:
-        shown = leading_cover(card, args.cover)
+        shown = leading_cover(card, settings.target_share)
     elif args.top is not None:
         shown = card.iloc[: args.top]
     elif args.format == "table":
@@ -232,9 +217,11 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         _emit_blocks(report.csv_blocks(shown), args.output, force=args.force)
         return 0
     if args.format == "json":
-        text = report.to_json(portfolio, shown, args.window, args.season)
+        text = report.to_json(portfolio, shown, settings.window, settings.season)
     else:
-        text = report.rank_table(portfolio, card, shown, args.window, args.season, by=args.by)
+        text = report.rank_table(
+            portfolio, card, shown, settings.window, settings.season, by=args.by
+        )
     _emit(text, args.output, force=args.force)
     return 0
 
@@ -243,11 +230,15 @@ def _cmd_check(args: argparse.Namespace) -> int:
     from triage.core import output as report
     from triage.core.ranking import require_scorable
 
-    check_score_args(args)
+    settings = ScoreSettings.from_args(args)
     # Several lags are reported (with the --lag choice), not refused.
-    portfolio = _load(args, smallest_lag=True)
-    print(report.check_text(portfolio, args.window, args.season, lag_given=args.lag is not None))
-    require_scorable(portfolio, args.window)
+    portfolio = load_portfolio(args, smallest_lag=True)
+    print(
+        report.check_text(
+            portfolio, settings.window, settings.season, lag_given=settings.lag is not None
+        )
+    )
+    require_scorable(portfolio, settings.window)
     return 0
 
 
@@ -256,16 +247,15 @@ def _review_options(
     portfolio: Path,
     ledger: Path | None,
     *,
-    config=None,
+    config: Config | None = None,
+    settings: ScoreSettings | None = None,
     notices: Sequence[str] = (),
 ):
-    from triage.core.config import default_reviewer, load_config, reviewer_problem
+    from triage.core.config import default_reviewer, reviewer_problem
     from triage.tui.app import Options
 
-    config = config if config is not None else load_config(args.config)
-    target = config.target_share if args.target is None else args.target
-    if not 0 < target <= 1:
-        raise TriageError(f"--target must be a share in (0, 1], e.g. 0.8, not {args.target}.")
+    config = config if config is not None else load_config_of(args)
+    settings = settings if settings is not None else ScoreSettings.from_args(args, config)
     # `triage demo` reads the bundled sample: no portfolio options.
     reading = read_args(args) if hasattr(args, "portfolio") else {}
     reviewer = args.reviewer or default_reviewer(config)
@@ -277,13 +267,10 @@ def _review_options(
         portfolio=portfolio,
         ledger=ledger,
         reviewer=reviewer,
-        window=getattr(args, "window", 13),
-        season=getattr(args, "season", 1),
+        settings=settings,
         columns=reading.get("columns"),
         sheet=reading.get("sheet"),
-        lag=reading.get("lag"),
         file_options=reading.get("options"),
-        target_share=target,
         root_causes=config.root_causes,
         auto_advance=config.auto_advance,
         notices=list(notices),
@@ -292,23 +279,23 @@ def _review_options(
 
 def _cmd_review(args: argparse.Namespace) -> int:
     from triage.arguments import note
-    from triage.core.config import load_config
 
-    check_score_args(args)
+    config = load_config_of(args)
+    settings = ScoreSettings.from_args(args, config)
     if not args.portfolio.exists():
         raise TriageError(
             f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file."
         )
-    config = load_config(args.config)
-    portfolio, ledger, notices = _review_target(args, config)
+    portfolio, ledger, notices = review_target(args, config)
     for text in notices:
         # Also on the terminal, where it stays after the review screens close.
         note(text)
     from triage.tui.app import TriageApp
 
-    return _run_app(
-        TriageApp(_review_options(args, portfolio, ledger, config=config, notices=notices))
+    options = _review_options(
+        args, portfolio, ledger, config=config, settings=settings, notices=notices
     )
+    return _run_app(TriageApp(options))
 
 
 def _run_app(app: TriageApp) -> int:
@@ -317,61 +304,6 @@ def _run_app(app: TriageApp) -> int:
     if app.crashed is not None:
         return _unexpected(app.crashed, sys.argv[1:], app.unsaved_entries())
     return 0
-
-
-def _review_target(
-    args: argparse.Namespace, config, *, stand_in: bool = True
-) -> tuple[Path, Path | None, list[str]]:
-    """The portfolio a review opens (the newest in a folder), its ledger, and what to say.
-
-    Without ``--ledger`` the ledger is the review folder's (``locate_ledger``). When no ledger
-    can be had (neither the folder nor the user data folder is writable) it is left to the
-    review screens, which open without saving and say why.
-
-    Args:
-        args: The parsed command line.
-        config: The configuration.
-        stand_in: Accept a ledger in the user data folder standing in for the ledger of a folder
-            that cannot be written; when False that is refused naming the folder's ledger (a
-            batch recorded there would never reach the folder's exports).
-
-    Raises:
-        TriageError: ``stand_in`` is False and the folder's ledger cannot be written.
-    """
-    from triage.core.ledger import locate_ledger
-
-    notices: list[str] = []
-    portfolio: Path = args.portfolio
-    if portfolio.is_dir():
-        from triage.core.folder import newest_portfolio
-
-        reading = read_args(args)
-        newest = newest_portfolio(
-            portfolio,
-            columns=reading["columns"],
-            sheet=reading["sheet"],
-            lag=reading["lag"],
-            options=reading["options"],
-        )
-        portfolio = newest.path
-        notices.extend(newest.notices)
-    ledger: Path | None = args.ledger
-    if ledger is None:
-        try:
-            where = locate_ledger(portfolio, name=config.ledger, for_writing=True)
-        except TriageError:
-            return portfolio, None, notices
-        if where.stand_in_for is not None and not stand_in:
-            raise TriageError(
-                f"the decision ledger of this folder, {where.stand_in_for}, cannot "
-                f"be written: the folder {where.stand_in_for.parent} is not "
-                "writable; nothing was recorded.",
-                hint="Ask for write access to the folder, or pass --ledger PATH to record the "
-                "decisions in another ledger on purpose.",
-            )
-        ledger = where.path
-        notices.extend(where.notices)
-    return portfolio, ledger, notices
 
 
 def sample_portfolio() -> Path:

@@ -12,8 +12,19 @@ import argparse
 import sys
 from pathlib import Path
 
-from triage.arguments import check_score_args, note, portfolio_args, score_args
+from triage.arguments import (
+    config_arg,
+    ledger_arg,
+    load_config_of,
+    load_portfolio,
+    note,
+    portfolio_args,
+    review_target,
+    reviewer_arg,
+    score_args,
+)
 from triage.core.errors import TriageError
+from triage.core.settings import ScoreSettings
 from triage.core.text import visible
 
 ADVISORY = (
@@ -43,59 +54,54 @@ def add_decide_command(sub: argparse._SubParsersAction) -> None:
         metavar="FILE",
         help="the decisions file (.csv UTF-8 or .xlsx, first sheet)",
     )
-    decide.add_argument(
-        "--ledger", type=Path, help="decision ledger (default: the review folder's ledger)"
-    )
-    decide.add_argument(
-        "--reviewer", help="name stored with each decision (default: config or login name)"
-    )
+    ledger_arg(decide)
+    reviewer_arg(decide)
     decide.add_argument(
         "--replace",
         action="store_true",
         help="allow rows that replace another reviewer's decision in this cycle",
     )
-    decide.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+    config_arg(decide)
     decide.set_defaults(handler=cmd_decide)
 
 
 def cmd_decide(args: argparse.Namespace) -> int:
     """Check the whole batch, then record it in one transaction."""
-    from triage.cli import _load, _review_target
-    from triage.core.config import default_reviewer, load_config, reviewer_problem
+    from triage.core.config import default_reviewer, reviewer_problem
     from triage.core.decide import check_batch, read_batch
     from triage.core.ledger import Ledger
     from triage.core.ranking import require_scorable
 
-    check_score_args(args)
+    config = load_config_of(args)
+    settings = ScoreSettings.from_args(args, config)
     if not args.portfolio.is_file():
         raise TriageError(
             f"{visible(str(args.portfolio))}: no such portfolio file.",
             hint="Give the portfolio file the decisions are for.",
         )
-    config = load_config(args.config)
     reviewer = args.reviewer or default_reviewer(config)
     problem = reviewer_problem(reviewer)
     if problem:
         raise TriageError(f"--reviewer {problem}.", hint="Pass a plain name with --reviewer NAME.")
     header, rows = read_batch(args.source)
-    _, ledger_path, notices = _review_target(args, config, stand_in=False)
+    _, ledger_path, notices = review_target(args, config, stand_in=False)
     if ledger_path is None:
         raise TriageError(
             "no writable decision ledger could be found for this portfolio.",
             hint="Pass --ledger PATH in a folder you can write to.",
         )
-    portfolio = _load(args)
-    require_scorable(portfolio, args.window)
+    portfolio = load_portfolio(args)
+    require_scorable(portfolio, settings.window)
     for text in notices:
         note(text)
     # Checked first without writing anything: against the ledger read-only when it exists.
     if ledger_path.exists():
         with Ledger.open(ledger_path, read_only=True, root_causes=config.root_causes) as ledger:
-            _check(args, portfolio, ledger, reviewer, config, header, rows)
+            _check(args, portfolio, ledger, reviewer, config, settings, header, rows)
     else:
-        _check(args, portfolio, None, reviewer, config, header, rows)
+        _check(args, portfolio, None, reviewer, config, settings, header, rows)
     with Ledger.open(ledger_path, root_causes=config.root_causes) as ledger:
-        session = _session(args, portfolio, ledger, reviewer, config)
+        session = _session(portfolio, ledger, reviewer, settings)
         # Checked again inside the writing session: another reviewer may have decided since.
         checked = check_batch(session, header, rows, config.root_causes, replace=args.replace)
         events = session.commit_batch(checked)
@@ -119,14 +125,10 @@ def cmd_decide(args: argparse.Namespace) -> int:
     return 0
 
 
-def _session(args, portfolio, ledger, reviewer, config):
+def _session(portfolio, ledger, reviewer, settings: ScoreSettings):
     from triage.core.cycle import ReviewCycle
     from triage.core.review import ReviewSession
-    from triage.core.settings import ScoreSettings
 
-    settings = ScoreSettings(
-        window=args.window, season=args.season, target_share=config.target_share
-    )
     return ReviewSession(
         ReviewCycle(portfolio, ledger, settings),
         reviewer=reviewer,
@@ -134,8 +136,8 @@ def _session(args, portfolio, ledger, reviewer, config):
     )
 
 
-def _check(args, portfolio, ledger, reviewer, config, header, rows) -> None:
+def _check(args, portfolio, ledger, reviewer, config, settings, header, rows) -> None:
     from triage.core.decide import check_batch
 
-    session = _session(args, portfolio, ledger, reviewer, config)
+    session = _session(portfolio, ledger, reviewer, settings)
     check_batch(session, header, rows, config.root_causes, replace=args.replace)

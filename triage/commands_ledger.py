@@ -18,7 +18,11 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from triage.arguments import (
+    config_arg,
+    format_arg,
+    ledger_arg,
     ledger_to_read,
+    load_config_of,
     open_ledger_read_only,
     portfolio_args,
     read_args,
@@ -28,7 +32,6 @@ from triage.core.errors import TriageError
 from triage.core.text import longest_word
 
 if TYPE_CHECKING:
-    from triage.core.config import Config
     from triage.core.ledger import AdjustmentEnd, Event
 
 #: The first bytes of every SQLite 3 database file (sqlite.org/fileformat.html, §1.3.1).
@@ -75,13 +78,8 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
     history.add_argument("--cycle", metavar="DATE", help="only this review cycle (YYYY-MM-DD)")
     history.add_argument("--item", help="only this item (exact text)")
     history.add_argument("--location", help="only this location (exact text)")
-    history.add_argument(
-        "--format",
-        choices=("table", "csv", "json"),
-        default="table",
-        help="output format (default table)",
-    )
-    history.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+    format_arg(history)
+    config_arg(history)
     history.set_defaults(handler=cmd_history)
 
     export = sub.add_parser(
@@ -93,12 +91,7 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
         "whole. An existing file or folder is replaced only with --force.",
     )
     portfolio_args(export)
-    export.add_argument(
-        "--ledger",
-        type=Path,
-        metavar="PATH",
-        help="ledger file (default: the review folder's ledger, see docs/ledger.md)",
-    )
+    ledger_arg(export)
     export.add_argument(
         "--cycle", metavar="DATE", help="review cycle (default: the portfolio's latest actual)"
     )
@@ -130,7 +123,7 @@ def add_ledger_commands(sub: argparse._SubParsersAction) -> None:
         help="write a CSV export with the portfolio's own --sep, --decimal and --date-format "
         "(default: comma, decimal point, ISO dates)",
     )
-    export.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+    config_arg(export)
     export.set_defaults(handler=cmd_export)
 
 
@@ -148,12 +141,6 @@ def _like_input(args: argparse.Namespace, reading: dict[str, Any]) -> dict[str, 
     if opts is None:
         return {}
     return {"style": CsvStyle(sep=opts.sep, decimal=opts.decimal, date_format=opts.date_format)}
-
-
-def _config(args: argparse.Namespace) -> Config:
-    from triage.core.config import load_config
-
-    return load_config(args.config)
 
 
 def _check_cycle(value: str | None) -> str | None:
@@ -184,7 +171,7 @@ def _is_ledger_file(path: Path) -> bool:
 def cmd_history(args: argparse.Namespace) -> int:
     """``triage history``: the ledger's events, oldest first."""
     cycle = _check_cycle(args.cycle)
-    config = _config(args)
+    config = load_config_of(args)
     source: Path = args.source
     if args.ledger is not None:
         ledger_path = args.ledger
@@ -393,7 +380,7 @@ def cmd_export(args: argparse.Namespace) -> int:
         options["layout"] = args.layout
     if args.round is not None:
         options["rounding"] = parse_rounding(args.round)
-    config = _config(args)
+    config = load_config_of(args)
     # Check the target before the (possibly long) load of the portfolio.
     export_paths(args.to)
     if args.ledger is None and not args.portfolio.exists():

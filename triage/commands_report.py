@@ -19,16 +19,22 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from triage.arguments import (
-    check_score_args,
+    config_arg,
     force_arg,
+    format_arg,
+    ledger_arg,
     ledger_to_read,
+    load_config_of,
+    load_portfolio,
     open_ledger_read_only,
     portfolio_args,
-    read_args,
     refuse_overwriting,
+    score_args,
+    setting_arg,
     warn,
 )
 from triage.core.errors import TriageError
+from triage.core.settings import REPEAT, TARGET_SHARE, ScoreSettings
 
 if TYPE_CHECKING:
     import pandas as pd
@@ -65,7 +71,10 @@ def add_report_commands(sub: argparse._SubParsersAction) -> None:
         metavar="K",
         help="top offenders shown with a chart (default 10)",
     )
-    _history_args(report)
+    score_args(report)
+    setting_arg(report, TARGET_SHARE)
+    setting_arg(report, REPEAT)
+    config_arg(report)
     report.set_defaults(handler=cmd_report)
 
     overrides = sub.add_parser(
@@ -87,80 +96,14 @@ def add_report_commands(sub: argparse._SubParsersAction) -> None:
         action="store_true",
         help="one row per overridden period instead of the breakdown",
     )
-    overrides.add_argument(
-        "--format",
-        choices=("table", "csv", "json"),
-        default="table",
-        help="output format (default table)",
-    )
-    overrides.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
+    format_arg(overrides)
+    config_arg(overrides)
     overrides.set_defaults(handler=cmd_overrides)
 
 
 def _portfolio_args(parser: argparse.ArgumentParser) -> None:
     portfolio_args(parser)
-    parser.add_argument(
-        "--ledger",
-        type=Path,
-        metavar="PATH",
-        help="decision ledger (default: the review folder's ledger, see docs/ledger.md)",
-    )
-
-
-def _history_args(parser: argparse.ArgumentParser) -> None:
-    parser.add_argument(
-        "--window",
-        type=int,
-        default=13,
-        help="latest periods with actual demand to score (default 13)",
-    )
-    parser.add_argument(
-        "--season", type=int, default=1, help="seasonal period of the naive baseline (default 1)"
-    )
-    parser.add_argument(
-        "--cover",
-        type=float,
-        metavar="F",
-        help="share of total error the worst-offender set covers (default: config, else 0.8)",
-    )
-    parser.add_argument(
-        "--repeat",
-        default="3/4",
-        metavar="N/M",
-        help="repeat offender: in the worst set in at least N of the last M cycles (default 3/4)",
-    )
-    parser.add_argument("--config", type=Path, metavar="PATH", help="configuration file")
-
-
-# --------------------------------------------------------------------------------------------
-# Shared
-
-
-def _config(args: argparse.Namespace) -> Config:
-    from triage.core.config import load_config
-
-    return load_config(args.config)
-
-
-def parse_repeat(value: str) -> tuple[int, int]:
-    """``"3/4"`` -> (3, 4).
-
-    Raises:
-        TriageError: Not two whole numbers with 1 <= N <= M.
-    """
-    from triage.core.settings import REPEAT
-
-    return REPEAT.check(value, REPEAT.flag)
-
-
-def _load(args: argparse.Namespace) -> Portfolio:
-    from triage.core.portfolio import read_portfolio
-
-    if not args.portfolio.exists():
-        raise TriageError(
-            f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file."
-        )
-    return read_portfolio(args.portfolio, **read_args(args))
+    ledger_arg(parser)
 
 
 def _ledger_path(args: argparse.Namespace, config: Config, *, required: bool) -> Path | None:
@@ -174,12 +117,6 @@ def _ledger_path(args: argparse.Namespace, config: Config, *, required: bool) ->
     return ledger_to_read(args.portfolio, config, args.ledger, required=required)
 
 
-def _check_scoring(args: argparse.Namespace) -> None:
-    check_score_args(args)
-    if args.cover is not None and not 0 < args.cover <= 1:
-        raise TriageError(f"--cover must be a fraction in (0, 1], e.g. 0.8, not {args.cover}.")
-
-
 # --------------------------------------------------------------------------------------------
 # report
 
@@ -188,10 +125,10 @@ def cmd_report(args: argparse.Namespace) -> int:
     """``triage report``: write the HTML report and print its short summary."""
     from triage.core.cycle import ReviewCycle
     from triage.core.report import summary_text, write_report
-    from triage.core.settings import ScoreSettings
     from triage.core.text import visible
 
-    _check_scoring(args)
+    config = load_config_of(args)
+    settings = ScoreSettings.from_args(args, config)
     if args.top < 1:
         raise TriageError(f"--top must be at least 1, not {args.top}.")
     if args.to is not None and args.to.suffix.lower() not in (".html", ".htm"):
@@ -199,13 +136,10 @@ def cmd_report(args: argparse.Namespace) -> int:
             f"--to {args.to}: the report is an HTML file; use a name ending in .html.",
             hint="For example --to weekly-report.html.",
         )
-    repeat_n, repeat_m = parse_repeat(args.repeat)
-    config = _config(args)
     ledger_path = _ledger_path(args, config, required=False)
     if args.to is not None:
         refuse_overwriting([args.to], args.portfolio, ledger_path, force=args.force)
-    portfolio = _load(args)
-    target_share = args.cover if args.cover is not None else config.target_share
+    portfolio = load_portfolio(args)
     if ledger_path is None:
         warn(
             f"No decisions have been recorded for {visible(portfolio.path.name)}; "
@@ -220,12 +154,6 @@ def cmd_report(args: argparse.Namespace) -> int:
     with opened as ledger:
         if ledger is not None and ledger.notice:
             warn(ledger.notice)
-        settings = ScoreSettings(
-            window=args.window,
-            season=args.season,
-            target_share=target_share,
-            repeat=(repeat_n, repeat_m),
-        )
         result = write_report(
             ReviewCycle(portfolio, ledger, settings),
             args.to,
@@ -282,10 +210,10 @@ def cmd_overrides(args: argparse.Namespace) -> int:
     from triage.core import history
     from triage.core.cycle import ReviewCycle
 
-    config = _config(args)
+    config = load_config_of(args)
     ledger_path = _ledger_path(args, config, required=True)
     assert ledger_path is not None
-    portfolio = _load(args)
+    portfolio = load_portfolio(args)
     with open_ledger_read_only(ledger_path, config) as ledger:
         review = ReviewCycle(portfolio, ledger)
         realised = review.realised

@@ -55,15 +55,13 @@ class Options:
     portfolio: Path
     ledger: Path | None = None
     reviewer: str = ""
-    window: int = 13
-    season: int = 1
+    settings: ScoreSettings = field(default_factory=ScoreSettings)
+    """Window, season, target share, repeat offenders and lag (``triage.core.settings``)."""
     columns: dict[str, str] | None = None
     sheet: str | None = None
-    lag: int | None = None
     file_options: FileOptions | None = None
     """How the file writes its cells (``--sep``, ``--decimal``, ``--date-format``,
     ``--header-row``)."""
-    target_share: float = 0.8
     root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
     auto_advance: bool = False
     notices: list[str] = field(default_factory=list)
@@ -395,10 +393,10 @@ class TriageApp(App[None]):
             opts.portfolio,
             columns=opts.columns,
             sheet=opts.sheet,
-            lag=opts.lag,
+            lag=opts.settings.lag,
             options=opts.file_options,
         )
-        require_scorable(portfolio, opts.window)
+        require_scorable(portfolio, opts.settings.window)
         self.post_message(LoadStep(1, steps, "opening the ledger"))
         notices = list(opts.notices) + list(portfolio.notices)
         ledger = None
@@ -414,10 +412,9 @@ class TriageApp(App[None]):
         except TriageError as exc:
             notices.append(f"{exc} Decisions cannot be saved in this session.")
         self.post_message(LoadStep(2, steps, "scoring every series"))
-        settings = ScoreSettings(
-            window=opts.window, season=opts.season, target_share=opts.target_share
+        session = ReviewSession(
+            ReviewCycle(portfolio, ledger, opts.settings), reviewer=opts.reviewer
         )
-        session = ReviewSession(ReviewCycle(portfolio, ledger, settings), reviewer=opts.reviewer)
         self.post_message(LoadStep(3, steps, "indexing for search"))
         session.prepare()
         self.post_message(LoadStep(4, steps, "drawing"))
