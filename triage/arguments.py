@@ -54,7 +54,7 @@ def read_args(args: argparse.Namespace) -> dict[str, Any]:
         TriageError: A bad ``--columns`` map or file option, with what to write instead.
     """
     from triage.core.dialect import file_options
-    from triage.core.load import parse_column_map
+    from triage.core.read import parse_column_map
 
     return {
         "columns": parse_column_map(args.columns) if args.columns else None,

@@ -194,7 +194,7 @@ def _write_crash_log(exc: BaseException, argv: list[str], extra: str = "") -> Pa
 
 
 def _load(args: argparse.Namespace, *, smallest_lag: bool = False):
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
 
     return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **read_args(args))
 

@@ -381,7 +381,7 @@ def cmd_export(args: argparse.Namespace) -> int:
     """``triage export``: decisions and adjusted forward forecast of a cycle, for upload."""
     from triage.core.config import default_reviewer
     from triage.core.export import CAUTION, export_paths, export_review
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
     from triage.core.rounding import parse_rounding
     from triage.core.text import visible
 

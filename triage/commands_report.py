@@ -162,7 +162,7 @@ def parse_repeat(value: str) -> tuple[int, int]:
 
 
 def _load(args: argparse.Namespace) -> Portfolio:
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
 
     if not args.portfolio.exists():
         raise TriageError(

@@ -205,8 +205,8 @@ def stage_read(path: Path, repeat: int) -> dict[str, Any]:
 
 def stage_kernel(path: Path, repeat: int, window: int) -> dict[str, Any]:
     """Time ``read_portfolio`` once and ``scorecard`` ``repeat`` times, in-process."""
-    from triage.core.portfolio import read_portfolio
     from triage.core.ranking import scorecard
+    from triage.core.read import read_portfolio
 
     started = time.perf_counter()
     portfolio = read_portfolio(path)
@@ -450,8 +450,8 @@ def cross_check(frame: Any, scores: Any, window: int) -> dict[str, Any]:
     import pandas as pd
 
     try:
-        from triage.core.portfolio import read_portfolio
         from triage.core.ranking import scorecard
+        from triage.core.read import read_portfolio
     except ImportError as exc:
         return {"skipped": f"triage core not importable: {exc}"}
     with tempfile.TemporaryDirectory() as tmp:

@@ -18,7 +18,7 @@ from tests.core.twoweeks import WEEK1, WEEK2, TwoWeeks, write_two_weeks
 from triage.core import history
 from triage.core.export import review_tables
 from triage.core.ledger import FOLDER_LEDGER, DecisionError, Ledger, locate_ledger
-from triage.core.portfolio import read_portfolio
+from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
 
 #: Week 1's decisions: spec per item (every one covers the four forward weeks).

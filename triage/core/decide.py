@@ -118,7 +118,7 @@ def _xlsx_rows(path: Path) -> Iterator[list[str]]:
     Read with the portfolio loader's bounded reader (``load.xlsx_rows``), so the loader's
     sheet limits hold here too.
     """
-    from triage.core.load import xlsx_rows
+    from triage.core.read import xlsx_rows
 
     width: int | None = None
     for values in xlsx_rows(path):
