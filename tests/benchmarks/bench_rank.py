@@ -11,7 +11,7 @@ measures, each step in a fresh process so that its peak memory is its own:
 * ``cli``: ``triage rank FILE --format csv --output /dev/null`` end to end, interpreter start-up
   included;
 * ``read``: ``pyarrow.parquet.read_table`` of the whole file;
-* ``kernel``: ``triage.core.portfolio.read_portfolio`` (reported as ``load``) and then
+* ``kernel``: ``triage.core.read.read_portfolio`` (reported as ``load``) and then
   ``triage.core.ranking.scorecard(portfolio, window=13)``, timed in-process;
 * ``baseline``: the same scoring done by a per-series ``groupby().apply`` on the first
   ``--baseline-series`` series, scaled linearly to the full count: every scorecard column
