@@ -165,7 +165,8 @@ def is_blank(values: pd.Series) -> np.ndarray:
         if not blank_codes.size:
             return codes < 0
         return (codes < 0) | np.isin(codes, blank_codes)
-    return (values.str.strip() == "").to_numpy(dtype=bool, na_value=True)
+    out: np.ndarray = (values.str.strip() == "").to_numpy(dtype=bool, na_value=True)
+    return out
 
 
 def as_text(values: pd.Series) -> tuple[pd.Series, np.ndarray]:
@@ -352,7 +353,8 @@ def _lookalike_candidates(ids: pd.Series) -> np.ndarray:
     joined = "\n" + "\n".join(ids.tolist()) + "\n"
     if joined.isascii() and not any(odd in joined for odd in ("  ", " \n", "\n ")):
         return np.zeros(len(ids), dtype=bool)
-    return ids.str.contains(LOOKALIKE_CANDIDATE, regex=True).to_numpy(dtype=bool)
+    out: np.ndarray = ids.str.contains(LOOKALIKE_CANDIDATE, regex=True).to_numpy(dtype=bool)
+    return out
 
 
 def _note_lookalikes(ctx: CellContext, position: int, ids: pd.Series) -> None:

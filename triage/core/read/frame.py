@@ -112,8 +112,10 @@ class LoadedFrame:
         """
         positions = _positions(index, len(self.frame))
         if self._file_rows is not None:
-            return self._file_rows[positions].tolist()
-        return (positions + self.first_row).tolist()
+            rows: list[int] = self._file_rows[positions].tolist()
+        else:
+            rows = (positions + self.first_row).tolist()
+        return rows
 
 
 def load_frame(
@@ -219,7 +221,10 @@ def _build(
 
     def rows(positions: np.ndarray) -> list[int]:
         positions = np.asarray(positions, dtype=np.int64)
-        return (file_rows[positions] if file_rows is not None else positions + first_row).tolist()
+        numbers: list[int] = (
+            file_rows[positions] if file_rows is not None else positions + first_row
+        ).tolist()
+        return numbers
 
     ctx = CellContext(path, plan, rows, notices, options=options or FileOptions())
     for position in plan.unnamed:
@@ -300,5 +305,7 @@ def _empty_cells(values: pd.Series) -> np.ndarray:
             dtype=bool,
         )
     if isinstance(values.dtype, pd.StringDtype):
-        return (values == "").to_numpy(dtype=bool, na_value=True)
-    return values.isna().to_numpy()
+        out: np.ndarray = (values == "").to_numpy(dtype=bool, na_value=True)
+    else:
+        out = values.isna().to_numpy()
+    return out

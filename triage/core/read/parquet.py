@@ -220,7 +220,7 @@ def _streamable(role: str | None, kind: Any) -> bool:
     import pyarrow as pa
 
     def text(t: Any) -> bool:
-        return pa.types.is_string(t) or pa.types.is_large_string(t)
+        return bool(pa.types.is_string(t) or pa.types.is_large_string(t))
 
     if role in (schema.ITEM, schema.LOCATION, None):
         return text(kind) or (pa.types.is_dictionary(kind) and text(kind.value_type))
@@ -231,5 +231,5 @@ def _streamable(role: str | None, kind: Any) -> bool:
             or (pa.types.is_timestamp(kind) and kind.tz is None)
         )
     if role == schema.LAG:
-        return pa.types.is_integer(kind)
-    return pa.types.is_floating(kind) or pa.types.is_integer(kind)
+        return bool(pa.types.is_integer(kind))
+    return bool(pa.types.is_floating(kind) or pa.types.is_integer(kind))

@@ -71,7 +71,8 @@ def float_values(array: Any) -> np.ndarray:
         array = pc.cast(array, pa.float64(), safe=False)
     if array.null_count:
         array = pc.fill_null(array, np.nan)
-    return array.to_numpy(zero_copy_only=False)
+    out: np.ndarray = array.to_numpy(zero_copy_only=False)
+    return out
 
 
 class FastPathDeclined(Exception):
@@ -361,7 +362,8 @@ class StreamSource:
             lags = chunk.to_numpy()
             if lags.min() < 0 or lags.max() > LAG_MAX:
                 raise FastPathDeclined("lag range")
-            return lags.astype(np.int64)
+            as_int64: np.ndarray = lags.astype(np.int64)
+            return as_int64
         numbers = float_values(chunk)
         low, high = np.fmin.reduce(numbers), np.fmax.reduce(numbers)
         if not np.isnan(low) and not (low > -MAX_MAGNITUDE and high < MAX_MAGNITUDE):
@@ -386,7 +388,8 @@ def _text_days(source: StreamSource, chunk: Any) -> np.ndarray:
             raise FastPathDeclined("year range")
         source._period_days.update(zip(fresh, days.tolist(), strict=True))
     lut = np.fromiter((source._period_days[v] for v in local), dtype=np.int32, count=len(local))
-    return np.take(lut, chunk.indices.to_numpy(zero_copy_only=False))
+    out: np.ndarray = np.take(lut, chunk.indices.to_numpy(zero_copy_only=False))
+    return out
 
 
 def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
