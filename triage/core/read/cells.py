@@ -159,6 +159,7 @@ def _examples(values: pd.Series, bad: np.ndarray, rows: list[int]) -> str:
 
 
 def is_blank(values: pd.Series) -> np.ndarray:
+    """Which cells are missing or only white space."""
     if isinstance(values.dtype, pd.CategoricalDtype):
         codes = category_codes(values)
         blank_codes = np.flatnonzero(np.asarray(values.cat.categories.str.strip() == ""))
@@ -266,6 +267,8 @@ def _clean_controls(
 
 
 def checked_ids(ctx: CellContext, position: int, values: pd.Series, role: str) -> pd.Series:
+    """An item or location column: never empty, not longer than the ledger stores; notices for
+    ids stored as numbers, control characters, bidi controls and look-alike ids."""
     numeric = _typed_numbers(values)
     if numeric:
         ctx.notices.append(
@@ -417,6 +420,7 @@ def _typed_numbers(values: pd.Series) -> int:
 
 
 def checked_attribute(ctx: CellContext, position: int, values: pd.Series) -> pd.Series:
+    """An attribute column as categorical text, missing as ``""`` (control characters counted)."""
     text, missing = as_text(values)
     if isinstance(text.dtype, pd.CategoricalDtype):
         if missing.any():
@@ -429,6 +433,8 @@ def checked_attribute(ctx: CellContext, position: int, values: pd.Series) -> pd.
 
 
 def checked_periods(ctx: CellContext, position: int, values: pd.Series) -> pd.Series:
+    """A period column as ``datetime64[ns]`` at midnight: ISO text (or ``--date-format``) or date
+    cells, never empty, in the accepted years."""
     if pd.api.types.is_datetime64_any_dtype(values.dtype):
         stamps = values.reset_index(drop=True)
         if stamps.dt.tz is not None:
@@ -632,6 +638,8 @@ def _check_stamps(ctx: CellContext, position: int, stamps: pd.Series) -> None:
 
 
 def checked_numbers(ctx: CellContext, position: int, values: pd.Series, role: str) -> pd.Series:
+    """A demand, forecast or price column as float64 (NaN for missing): finite, below 2**53 in
+    size, prices not negative."""
     if values.dtype == np.float64:
         numbers = values.to_numpy()
         raw = None
@@ -757,6 +765,7 @@ def _number_error(ctx: CellContext, position: int, bad: np.ndarray, values: pd.S
 
 
 def checked_lags(ctx: CellContext, position: int, values: pd.Series) -> pd.Series:
+    """A lag column as int64: whole numbers from 0 to ``LAG_MAX``, never missing."""
     dtype = values.dtype
     if isinstance(dtype, np.dtype) and dtype.kind in "iu":
         if dtype.kind == "u" and len(values) and values.max() > LAG_MAX:

@@ -125,6 +125,8 @@ class RawColumns:
 
 
 def file_kind(path: Path) -> str:
+    """The reader for the file (``csv``, ``xlsx``, ``parquet``); refuses a missing file, a folder
+    and an unknown type."""
     suffix = path.suffix.lower()
     if not path.exists():
         fail(path, "file not found.", f"Check the path (the current folder is {Path.cwd()}).")
@@ -147,6 +149,8 @@ def file_kind(path: Path) -> str:
 
 
 def checked_mapping(path: Path, columns: dict[str, str] | None) -> dict[str, str]:
+    """``--columns`` with canonical names in lower case (refused when unknown) and headers as the
+    column plan compares them."""
     if not columns:
         return {}
     mapping: dict[str, str] = {}
@@ -163,6 +167,7 @@ def checked_mapping(path: Path, columns: dict[str, str] | None) -> dict[str, str
 
 
 def column_label(plan: ColumnPlan, position: int) -> str:
+    """A column as a message names it: its header, and the canonical name it was mapped to."""
     header, role = plan.headers[position], plan.roles[position]
     if role is None or role not in schema.KNOWN or header == role:
         return f"'{header}'"
@@ -307,6 +312,7 @@ def refuse_title_block(
 
 
 def header_text(value: Any) -> str:
+    """A header cell as text (an xlsx number header 2024.0 as ``2024``)."""
     if value is None:
         return ""
     if isinstance(value, float) and value.is_integer():

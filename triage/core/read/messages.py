@@ -18,17 +18,21 @@ EXAMPLES_SHOWN = 3
 
 
 def fail(path: Path, message: str, hint: str | None = None) -> NoReturn:
+    """Refuse the file: a :class:`~triage.core.errors.LoadError` naming it, and what to do."""
     raise LoadError(path, message, hint=hint)
 
 
 def sanitized(text: str) -> str:
+    """``text`` with its C0, DEL and C1 control characters shown as visible symbols."""
     return text.translate(STORED_TABLE)
 
 
 def plural(count: int, noun: str) -> str:
+    """``1 row``, ``2 rows``."""
     return f"{count} {noun}" + ("" if count == 1 else "s")
 
 
 def quote_list(names: Sequence[str], limit: int = 30) -> str:
+    """Names quoted and joined by commas, the first ``limit`` of them and how many more."""
     shown = ", ".join(f"'{n}'" for n in names[:limit])
     return shown + (f" and {len(names) - limit} more" if len(names) > limit else "")

@@ -211,7 +211,7 @@ def scan_parquet(
         attributes=tuple(plan.attributes.values()),
         notices=tuple(notices),
         n_rows=file.metadata.num_rows,
-        _plain_text=plain_text,
+        plain_text=plain_text,
     )
 
 

@@ -214,7 +214,7 @@ class StreamSource:
     attributes: tuple[str, ...]
     notices: tuple[str, ...]
     n_rows: int
-    _plain_text: list[str] = field(default_factory=list)
+    plain_text: list[str] = field(default_factory=list)
     """File columns of plain text, read dictionary-encoded."""
     tables: list[Any] | None = None
     """The blocks, already in memory (CSV), one ``pyarrow.Table`` each."""
@@ -264,7 +264,7 @@ class StreamSource:
             if not hasattr(local, "file"):
                 # One reader per thread; the parsed footer is shared.
                 local.file = pq.ParquetFile(
-                    self.path, read_dictionary=self._plain_text, metadata=self.file.metadata
+                    self.path, read_dictionary=self.plain_text, metadata=self.file.metadata
                 )
             try:
                 return local.file.read_row_group(group, columns=wanted, use_threads=False)
