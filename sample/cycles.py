@@ -228,8 +228,8 @@ def _week_dates(design: generate.Design) -> list[str]:
 
 def _scorecard_order(path: Path) -> tuple[np.ndarray, float, pd.DataFrame]:
     """Series positions by error rank, total ranking error, and the scorecard of a file."""
-    from triage.core.portfolio import read_portfolio
     from triage.core.ranking import scorecard
+    from triage.core.read import read_portfolio
 
     card = scorecard(read_portfolio(path))
     error = card["abs_error_value" if "abs_error_value" in card else "abs_error"]
@@ -250,8 +250,8 @@ def build_cycles(folder: str | Path, *, seed: int = CYCLES_SEED) -> CycleScenari
     """
     from triage.core.cycle import ReviewCycle
     from triage.core.ledger import Ledger
-    from triage.core.portfolio import read_portfolio
     from triage.core.ranking import leading_cover
+    from triage.core.read import read_portfolio
     from triage.core.review import ReviewSession
 
     folder = Path(folder)

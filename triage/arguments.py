@@ -83,7 +83,7 @@ def read_args(args: argparse.Namespace) -> dict[str, Any]:
         TriageError: A bad ``--columns`` map or file option, with what to write instead.
     """
     from triage.core.dialect import file_options
-    from triage.core.load import parse_column_map
+    from triage.core.read import parse_column_map
 
     return {
         "columns": parse_column_map(args.columns) if args.columns else None,
@@ -153,7 +153,7 @@ def load_portfolio(args: argparse.Namespace, *, smallest_lag: bool = False) -> P
     Raises:
         TriageError: The file cannot be read or scored as it is (the loader's message).
     """
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
 
     return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **read_args(args))
 

@@ -369,7 +369,7 @@ def cmd_export(args: argparse.Namespace) -> int:
     from triage.core.config import default_reviewer
     from triage.core.cycle import ReviewCycle
     from triage.core.export import CAUTION, export_paths, export_review
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
     from triage.core.rounding import parse_rounding
     from triage.core.text import visible
 

@@ -32,7 +32,7 @@ import openpyxl
 from tests.benchmarks.bench_rank import ROOT, measure
 from tests.core.hostile_xlsx import empty_rows, row_xml, write_workbook
 from tests.core.test_input_limits import write_parquet_bomb
-from triage.core.load import XLSX_MAX_ROWS
+from triage.core.read import XLSX_MAX_ROWS
 
 
 def sample_workbook(path: Path) -> Path:

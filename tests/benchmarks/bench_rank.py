@@ -11,7 +11,7 @@ measures, each step in a fresh process so that its peak memory is its own:
 * ``cli``: ``triage rank FILE --format csv --output /dev/null`` end to end, interpreter start-up
   included;
 * ``read``: ``pyarrow.parquet.read_table`` of the whole file;
-* ``kernel``: ``triage.core.portfolio.read_portfolio`` (reported as ``load``) and then
+* ``kernel``: ``triage.core.read.read_portfolio`` (reported as ``load``) and then
   ``triage.core.ranking.scorecard(portfolio, window=13)``, timed in-process;
 * ``baseline``: the same scoring done by a per-series ``groupby().apply`` on the first
   ``--baseline-series`` series, scaled linearly to the full count: every scorecard column
@@ -205,8 +205,8 @@ def stage_read(path: Path, repeat: int) -> dict[str, Any]:
 
 def stage_kernel(path: Path, repeat: int, window: int) -> dict[str, Any]:
     """Time ``read_portfolio`` once and ``scorecard`` ``repeat`` times, in-process."""
-    from triage.core.portfolio import read_portfolio
     from triage.core.ranking import scorecard
+    from triage.core.read import read_portfolio
 
     started = time.perf_counter()
     portfolio = read_portfolio(path)
@@ -450,8 +450,8 @@ def cross_check(frame: Any, scores: Any, window: int) -> dict[str, Any]:
     import pandas as pd
 
     try:
-        from triage.core.portfolio import read_portfolio
         from triage.core.ranking import scorecard
+        from triage.core.read import read_portfolio
     except ImportError as exc:
         return {"skipped": f"triage core not importable: {exc}"}
     with tempfile.TemporaryDirectory() as tmp:

@@ -62,8 +62,9 @@ def write_files(folder: Path, series: int, weeks: int) -> tuple[Path, Path]:
 _STAGE = """
 import json, sys, time
 from triage.core.dialect import file_options
-from triage.core.load import load_frame
-from triage.core.portfolio import build_portfolio, read_portfolio
+from triage.core.read import load_frame
+from triage.core.portfolio import build_portfolio
+from triage.core.read import read_portfolio
 path, way = sys.argv[1], sys.argv[2]
 options = file_options(sep=";", decimal=",", date_format="%d.%m.%Y", header_row=4)
 started = time.perf_counter()

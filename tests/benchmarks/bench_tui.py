@@ -138,8 +138,8 @@ async def datatable_baseline(path: Path) -> float:
     from textual.app import App, ComposeResult
     from textual.widgets import DataTable
 
-    from triage.core.portfolio import read_portfolio
     from triage.core.ranking import scorecard
+    from triage.core.read import read_portfolio
 
     card = scorecard(read_portfolio(path))
     columns = [

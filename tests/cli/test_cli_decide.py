@@ -15,7 +15,7 @@ from tests.cli.test_cli import run
 from tests.core.twoweeks import TwoWeeks, write_two_weeks
 from triage.core.cycle import ReviewCycle
 from triage.core.ledger import FOLDER_LEDGER, Ledger
-from triage.core.portfolio import read_portfolio
+from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
 
 

@@ -20,7 +20,7 @@ from triage import cli
 from triage.core.cycle import ReviewCycle
 from triage.core.folder import newest_portfolio
 from triage.core.ledger import FOLDER_LEDGER, Ledger, locate_ledger
-from triage.core.portfolio import read_portfolio
+from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
 
 V1_FIXTURE = Path(__file__).resolve().parents[1] / "core" / "data" / "ledger-v1.sqlite"

@@ -15,7 +15,7 @@ import openpyxl
 import pytest
 
 from triage.core.ledger import Ledger
-from triage.core.portfolio import read_portfolio
+from triage.core.read import read_portfolio
 
 WEEKS = ["2026-10-05", "2026-10-12", "2026-10-19", "2026-10-26", "2026-11-02", "2026-11-09"]
 CYCLE = "2026-10-26"  # latest week with actual demand

@@ -22,7 +22,7 @@ from sample.cycles import CYCLES_SEED, N_FILES, CycleScenario, build_cycles
 from triage.core import history, report
 from triage.core.cycle import ReviewCycle
 from triage.core.ledger import Ledger
-from triage.core.portfolio import read_portfolio
+from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
 
 NEWEST = N_FILES - 1

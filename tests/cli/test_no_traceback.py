@@ -130,10 +130,10 @@ def test_a_ledger_that_is_a_dangling_link_is_a_message(tmp_path: Path) -> None:
 
 _FAIL_INSIDE = (
     "import sys\n"
-    "import triage.core.portfolio as portfolio\n"
+    "import triage.core.read as read\n"
     "def fail(*args, **kwargs):\n"
     "    raise {error}\n"
-    "portfolio.read_portfolio = fail\n"
+    "read.read_portfolio = fail\n"
     "from triage.cli import main\n"
     "sys.exit(main(sys.argv[1:]))\n"
 )

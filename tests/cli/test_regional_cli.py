@@ -107,7 +107,7 @@ def test_export_like_input_writes_the_files_own_conventions(tmp_path: Path) -> N
     # are equal, and the periods are written day first as in the file.
     from triage.core.cycle import ReviewCycle
     from triage.core.ledger import Ledger
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
     from triage.core.review import ReviewSession
 
     plain, regional = write_pair(tmp_path)

@@ -26,7 +26,7 @@ from datetime import date, timedelta
 from pathlib import Path
 
 from triage.core.ledger import Ledger
-from triage.core.portfolio import read_portfolio
+from triage.core.read import read_portfolio
 
 ROOT = Path(__file__).resolve().parents[2]
 SET_NAMES = ("up-decisions.csv", "up-forecast.csv", "up-README.txt")

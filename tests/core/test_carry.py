@@ -19,7 +19,7 @@ from triage.core import history
 from triage.core.cycle import ReviewCycle
 from triage.core.export import review_tables
 from triage.core.ledger import FOLDER_LEDGER, DecisionError, Ledger, locate_ledger
-from triage.core.portfolio import read_portfolio
+from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
 
 #: Week 1's decisions: spec per item (every one covers the four forward weeks).

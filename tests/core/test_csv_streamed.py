@@ -1,8 +1,8 @@
 """The streamed CSV reader of ``read_portfolio`` against the full loader and against pandas.
 
 ``read_portfolio`` parses a CSV file with Arrow's reader and builds the dense arrays block by
-block (``load.scan_csv`` + ``portfolio._build_streamed``); it falls back to the full loader
-(``load.load_frame`` + ``build_portfolio``, which parses with ``pandas.read_csv``) whenever Arrow
+block (``read.scan_csv`` + ``read.stream.build_streamed``); it falls back to the full loader
+(``read.load_frame`` + ``build_portfolio``, which parses with ``pandas.read_csv``) whenever Arrow
 refuses the file or the streamed build cannot vouch for it. Both must give the same portfolio or
 the same error. The reference for the numbers is pandas itself: the full loader's
 ``pandas.read_csv`` and ``pandas.DataFrame.pivot`` of the rows. Files are invented (a
@@ -20,11 +20,11 @@ import pandas as pd
 import pytest
 
 from tests.core.test_parquet_streamed import assert_same, garden_rows, pivot_reference
-from triage.core import load
 from triage.core.errors import LoadError
-from triage.core.load import FastPathDeclined, load_frame, scan_csv
-from triage.core.portfolio import Portfolio, _build_streamed, build_portfolio, read_portfolio
+from triage.core.portfolio import Portfolio, build_portfolio
 from triage.core.ranking import scorecard
+from triage.core.read import FastPathDeclined, delimited, load_frame, read_portfolio, scan_csv
+from triage.core.read.stream import build_streamed
 
 
 def to_csv(rows: pd.DataFrame, path: Path, **options: object) -> Path:
@@ -38,7 +38,7 @@ def full_way(path: Path, lag: int | None = None) -> Portfolio:
 
 
 def streamed_way(path: Path, lag: int | None = None) -> Portfolio:
-    return _build_streamed(scan_csv(path), lag)
+    return build_streamed(scan_csv(path), lag)
 
 
 def test_exported_rows_give_the_same_portfolio_both_ways(tmp_path: Path) -> None:
@@ -79,10 +79,10 @@ def test_small_blocks_and_row_order_change_nothing(
     path = to_csv(rows.sample(frac=1.0, random_state=3), tmp_path / "shuffled.csv")
     reference = full_way(to_csv(rows, tmp_path / "sorted.csv"))
     # Blocks of 4 KiB: many record batches, each with its own text dictionaries.
-    monkeypatch.setattr(load, "_CSV_BLOCK_BYTES", 4096)
+    monkeypatch.setattr(delimited, "_CSV_BLOCK_BYTES", 4096)
     source = scan_csv(path)
     assert source.tables is not None and len(source.tables) > 10
-    assert_same(_build_streamed(source, None), full_way(path))
+    assert_same(build_streamed(source, None), full_way(path))
     pd.testing.assert_frame_equal(
         scorecard(streamed_way(path)).reset_index(drop=True),
         scorecard(reference).reset_index(drop=True),
@@ -197,7 +197,7 @@ def test_quoted_line_breaks_at_any_block_boundary_never_split_a_record(
     lines[81] = '"I40",2025-03-03,1,2,"fa\n,2025-03-10,3,4,x"'
     path = tmp_path / "breaks.csv"
     path.write_text("\n".join(lines) + "\n", encoding="utf-8")
-    monkeypatch.setattr(load, "_CSV_BLOCK_BYTES", block)
+    monkeypatch.setattr(delimited, "_CSV_BLOCK_BYTES", block)
     reference = full_way(path)
     assert_same(read_portfolio(path), reference)
     assert "I40" in set(reference.keys["item"]) and reference.n_series == 60

@@ -33,7 +33,8 @@ from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.export import CAUTION, ExportError, export_review, review_tables
 from triage.core.ledger import Ledger
-from triage.core.portfolio import Portfolio, read_portfolio
+from triage.core.portfolio import Portfolio
+from triage.core.read import read_portfolio
 from triage.core.rounding import MAX_DECIMALS
 
 HISTORY = ["2026-10-05", "2026-10-12", "2026-10-19", "2026-10-26"]

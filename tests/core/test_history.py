@@ -39,8 +39,8 @@ from triage.core import history, schema
 from triage.core.cycle import ReviewCycle
 from triage.core.ledger import Ledger
 from triage.core.metrics import window_columns
-from triage.core.portfolio import read_portfolio
 from triage.core.ranking import leading_cover, scorecard
+from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
 
 ROOT = Path(__file__).resolve().parents[2]

@@ -23,8 +23,7 @@ import pytest
 from tests.cli.test_cli import ROOT
 from tests.core.hostile_xlsx import empty_rows, row_xml, write_workbook
 from tests.core.test_load import load_error
-from triage.core import load
-from triage.core.load import XLSX_MAX_COLUMNS, XLSX_MAX_ROWS, load_frame
+from triage.core.read import XLSX_MAX_COLUMNS, XLSX_MAX_ROWS, load_frame, memory, workbook
 
 _PEAK = (
     "import resource, sys\n"
@@ -93,10 +92,10 @@ def test_the_cell_limit_is_checked_by_the_scan_and_by_the_stream(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     path = write_workbook(tmp_path / "cells.xlsx")
-    monkeypatch.setattr(load, "XLSX_MAX_CELLS", 12)
+    monkeypatch.setattr(workbook, "XLSX_MAX_CELLS", 12)
     assert "more than 12 cells" in load_error(path).message
     # Without the byte scan (a sheet part it cannot find), the streamed count still refuses.
-    monkeypatch.setattr(load, "_scan_sheet", lambda *args: None)
+    monkeypatch.setattr(workbook, "_scan_sheet", lambda *args: None)
     assert "more than 12 cells" in load_error(path).message
 
 
@@ -106,7 +105,7 @@ def test_too_many_shared_strings_are_refused_before_the_reader_loads_them(
     texts = [b"<si><t>%d</t></si>" % i for i in range(30)]
     path = write_workbook(tmp_path / "strings.xlsx", strings=texts)
     assert load_frame(path).frame["item"].tolist() == ["A", "A", "B", "B"]
-    monkeypatch.setattr(load, "XLSX_MAX_CELLS", 25)
+    monkeypatch.setattr(workbook, "XLSX_MAX_CELLS", 25)
     assert "more than 25 different texts (shared strings)" in load_error(path).message
 
 
@@ -119,7 +118,7 @@ def test_an_oversized_part_other_than_a_sheet_is_refused(
         for info in old.infolist():
             new.writestr(info.filename, old.read(info))
         new.writestr("xl/styles.xml", b"<styleSheet>" + b" " * 4096 + b"</styleSheet>")
-    monkeypatch.setattr(load, "_XLSX_MAX_PART", 4000)
+    monkeypatch.setattr(workbook, "_XLSX_MAX_PART", 4000)
     error = load_error(path)
     assert "the part 'xl/styles.xml' of the workbook unpacks to" in error.message
 
@@ -163,8 +162,8 @@ def test_the_streamed_read_turns_a_damaged_sheet_into_a_message(
     raw = bytearray(path.read_bytes())
     raw[raw.index(b"<v>2999</v>") + 3] = ord("8")
     path.write_bytes(bytes(raw))
-    monkeypatch.setattr(load, "_check_archive", lambda path: {})
-    monkeypatch.setattr(load, "_scan_sheet", lambda *args: None)
+    monkeypatch.setattr(workbook, "_check_archive", lambda path: {})
+    monkeypatch.setattr(workbook, "_scan_sheet", lambda *args: None)
     error = load_error(path)
     assert "sheet 'data' cannot be read: the file is damaged or cut short" in error.message
     assert "Bad CRC-32" in error.message
@@ -229,7 +228,7 @@ def test_both_ways_of_reading_check_the_rows_against_memory(
     import pandas as pd
 
     from triage.core.errors import LoadError
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
 
     frame = pd.DataFrame(
         {
@@ -246,11 +245,11 @@ def test_both_ways_of_reading_check_the_rows_against_memory(
         frame.to_parquet(path, index=False)
     assert read_portfolio(path).rows == 1000
     # Enough for the streamed way, not for the full loader.
-    monkeypatch.setattr(load, "_memory_limit", lambda: 1000 * load.BYTES_PER_ROW[kind] - 1)
+    monkeypatch.setattr(memory, "_memory_limit", lambda: 1000 * memory.BYTES_PER_ROW[kind] - 1)
     assert read_portfolio(path).rows == 1000
     with pytest.raises(LoadError) as caught:
         load_frame(path)
     assert "the file has 1,000 rows" in str(caught.value)
-    monkeypatch.setattr(load, "_memory_limit", lambda: 1000)
+    monkeypatch.setattr(memory, "_memory_limit", lambda: 1000)
     with pytest.raises(LoadError):
         read_portfolio(path)

@@ -18,12 +18,18 @@ import pyarrow.parquet as pq
 import pytest
 
 from tests.core.test_load import load_error
-from triage.core import load
 from triage.core.config import ConfigError, load_config
 from triage.core.errors import LoadError
 from triage.core.ledger import TEXT_MAX
-from triage.core.load import FastPathDeclined, lookalike_keys, scan_csv, scan_parquet
-from triage.core.portfolio import _build_streamed, read_portfolio
+from triage.core.read import (
+    FastPathDeclined,
+    delimited,
+    lookalike_keys,
+    read_portfolio,
+    scan_csv,
+    scan_parquet,
+)
+from triage.core.read.stream import build_streamed
 
 WEEKS = ["2026-10-05", "2026-10-12"]
 
@@ -57,7 +63,7 @@ def write_all(frame: pd.DataFrame, folder: Path) -> dict[str, Path]:
 
 def streamed(path: Path) -> object:
     scan = scan_csv if path.suffix == ".csv" else scan_parquet
-    return _build_streamed(scan(path), None)
+    return build_streamed(scan(path), None)
 
 
 # --- §6: ids the ledger cannot store ------------------------------------------------------------
@@ -161,7 +167,7 @@ def test_lookalikes_in_different_blocks_of_a_streamed_file_are_found(
     ids = ["A", *[f"S{n:05d}" for n in range(3000)], "A "]
     path = tmp_path / "p.csv"
     rows_of(ids).to_csv(path, index=False)
-    monkeypatch.setattr(load, "_CSV_BLOCK_BYTES", 4096)
+    monkeypatch.setattr(delimited, "_CSV_BLOCK_BYTES", 4096)
     assert len(scan_csv(path).tables or []) > 10
     with pytest.raises(FastPathDeclined):
         streamed(path)

@@ -1,4 +1,4 @@
-"""Tests for triage.core.load: reading CSV, xlsx and Parquet portfolios, and every bad-input case.
+"""Tests for triage.core.read: reading CSV, xlsx and Parquet portfolios, and every bad-input case.
 
 Files are invented (a garden-supply wholesaler) and written in each test. Where a test pins a pandas
 behaviour the loader has to work around, the comment says what was measured (pandas 3.1.1).
@@ -22,7 +22,7 @@ import pytest
 
 from triage.core import schema
 from triage.core.errors import LoadError, TriageError
-from triage.core.load import LoadedFrame, load_frame, parse_column_map
+from triage.core.read import LoadedFrame, load_frame, parse_column_map
 
 CsvRows = Callable[..., Path]
 WriteCsv = Callable[..., Path]
@@ -870,9 +870,9 @@ def test_streaming_checks_do_not_depend_on_chunk_size(
 ) -> None:
     # The encoding check and the field counts stream the file in chunks; a multi-byte UTF-8
     # character, a quoted line break or a CRLF may straddle a chunk boundary.
-    from triage.core import load
+    from triage.core.read import delimited
 
-    monkeypatch.setattr(load, "_CHUNK", chunk)
+    monkeypatch.setattr(delimited, "_CHUNK", chunk)
     good = csv_rows(
         'Gießkanne,2024-01-01,1,2,"a,\r\nb"',
         "Schäler,2024-01-01,1,2,ö",

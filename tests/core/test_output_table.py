@@ -12,8 +12,8 @@ from pathlib import Path
 import pytest
 
 from triage.core import output
-from triage.core.portfolio import read_portfolio
 from triage.core.ranking import scorecard
+from triage.core.read import read_portfolio
 
 SAMPLE = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"
 

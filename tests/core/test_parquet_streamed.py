@@ -1,8 +1,8 @@
 """The streamed Parquet reader of ``read_portfolio`` against the full loader and against pandas.
 
 ``read_portfolio`` reads a Parquet file one row group at a time straight into the dense arrays
-(``load.scan_parquet`` + ``portfolio._build_streamed``) and falls back to the full loader
-(``load.load_frame`` + ``build_portfolio``) whenever it cannot vouch for a file. Both must give the
+(``read.scan_parquet`` + ``read.stream.build_streamed``) and falls back to the full loader
+(``read.load_frame`` + ``build_portfolio``) whenever it cannot vouch for a file. Both must give the
 same portfolio, or the same error. The dense arrays are also checked against
 ``pandas.DataFrame.pivot`` of the file's rows (a reference library), so that the two paths cannot
 agree on a wrong layout. Files are invented (a garden-supply wholesaler).
@@ -23,9 +23,10 @@ import pytest
 from sample.generate import write_parquet as write_sample_parquet
 from triage.core import schema
 from triage.core.errors import LoadError
-from triage.core.load import FastPathDeclined, load_frame, scan_parquet
-from triage.core.portfolio import Portfolio, _build_streamed, build_portfolio, read_portfolio
+from triage.core.portfolio import Portfolio, build_portfolio
 from triage.core.ranking import scorecard
+from triage.core.read import FastPathDeclined, load_frame, read_portfolio, scan_parquet
+from triage.core.read.stream import build_streamed
 
 MONDAY = dt.date(2025, 3, 3)
 
@@ -89,7 +90,7 @@ def full_way(path: Path, lag: int | None = None) -> Portfolio:
 
 
 def streamed_way(path: Path, lag: int | None = None) -> Portfolio:
-    return _build_streamed(scan_parquet(path), lag)
+    return build_streamed(scan_parquet(path), lag)
 
 
 def assert_same(a: Portfolio, b: Portfolio) -> None:

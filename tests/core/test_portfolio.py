@@ -336,7 +336,7 @@ def test_a_wide_file_of_attributes_is_built_without_a_copy_per_column(tmp_path: 
     # at a time, copies the frame per column (pandas block manager), quadratic in the columns.
     # The check is by counts, not a stopwatch: the keys table holds every attribute, and the
     # work done per attribute is one column take (pandas DataFrame.__setitem__ is not called).
-    from triage.core.load import load_frame
+    from triage.core.read import load_frame
 
     header = ["item", "period", "demand", "forecast", *[f"a{i}" for i in range(400)]]
     rows = [

@@ -26,8 +26,9 @@ from tests.core.test_load import DEMAND_ROWS, load_error, write_book
 from tests.core.test_parquet_streamed import assert_same, garden_rows
 from triage.core.dialect import FileOptions, file_options
 from triage.core.errors import LoadError, TriageError
-from triage.core.load import FastPathDeclined, load_frame, scan_csv, scan_parquet
-from triage.core.portfolio import Portfolio, _build_streamed, build_portfolio, read_portfolio
+from triage.core.portfolio import Portfolio, build_portfolio
+from triage.core.read import FastPathDeclined, load_frame, read_portfolio, scan_csv, scan_parquet
+from triage.core.read.stream import build_streamed
 
 REGIONAL = FileOptions(sep=";", decimal=",", date_format="%d.%m.%Y")
 
@@ -47,7 +48,7 @@ def regional_csv(
 
 
 def both_ways(path: Path, options: FileOptions | None) -> tuple[Portfolio, Portfolio]:
-    streamed = _build_streamed(scan_csv(path, options=options), None)
+    streamed = build_streamed(scan_csv(path, options=options), None)
     full = build_portfolio(load_frame(path, options=options))
     return streamed, full
 
@@ -93,7 +94,7 @@ def test_rows_in_messages_count_the_title_lines(tmp_path: Path) -> None:
     )
     options = dataclasses.replace(REGIONAL, header_row=3)
     with pytest.raises(FastPathDeclined):
-        _build_streamed(scan_csv(path, options=options), None)
+        build_streamed(scan_csv(path, options=options), None)
     error = load_error(path, options=options)
     assert "column 'demand' has values that are not numbers in 1 row (row 7): e.g. '1.500'" in (
         error.message
@@ -224,7 +225,7 @@ def test_digits_of_other_scripts_remain_refused(tmp_path: Path) -> None:
     )
     assert "could be" not in error.message
     with pytest.raises(FastPathDeclined):
-        _build_streamed(scan_csv(path, options=REGIONAL), None)
+        build_streamed(scan_csv(path, options=REGIONAL), None)
 
 
 @pytest.mark.parametrize(
@@ -396,7 +397,7 @@ def test_both_ways_give_the_same_answer_with_options(tmp_path: Path, text: str, 
     if isinstance(expected, str):
         assert got == expected, why
         with pytest.raises((FastPathDeclined, LoadError)):
-            _build_streamed(scan_csv(path, options=REGIONAL), None)
+            build_streamed(scan_csv(path, options=REGIONAL), None)
     else:
         assert isinstance(got, Portfolio), why
         assert_same(got, expected)

@@ -28,8 +28,8 @@ from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.export import CAUTION
 from triage.core.ledger import OUTCOMES, Ledger
-from triage.core.portfolio import read_portfolio
 from triage.core.ranking import scorecard
+from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
 
 NEWEST = N_FILES - 1

@@ -10,8 +10,8 @@ import pytest
 
 from triage.core.cycle import ReviewCycle
 from triage.core.ledger import Ledger
-from triage.core.portfolio import read_portfolio
 from triage.core.ranking import leading_cover, scorecard
+from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
 
 SAMPLE = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"

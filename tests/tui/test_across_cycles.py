@@ -80,7 +80,7 @@ async def test_week_two_marks_and_details_an_earlier_adjustment_still_carried(
     from tests.core.twoweeks import WEEK1, write_two_weeks
     from triage.core.cycle import ReviewCycle
     from triage.core.ledger import Ledger, locate_ledger
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
     from triage.core.review import ReviewSession
     from triage.tui.format import CARRIED_TINY
 
@@ -117,7 +117,7 @@ async def test_end_key_stops_carrying_an_earlier_adjustment_and_the_export_follo
     from triage.core.cycle import ReviewCycle
     from triage.core.export import review_tables
     from triage.core.ledger import Ledger, locate_ledger
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
     from triage.core.review import ReviewSession
     from triage.tui.format import CARRIED_TINY
     from triage.tui.screens.dialogs import ConfirmScreen

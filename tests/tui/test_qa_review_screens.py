@@ -258,7 +258,7 @@ async def test_qa_detail_pane_quotes_a_carried_adjustments_reviewer_raw(tmp_path
     from tests.core.twoweeks import write_two_weeks
     from triage.core.cycle import ReviewCycle
     from triage.core.ledger import locate_ledger
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
     from triage.core.review import ReviewSession
 
     weeks = write_two_weeks(tmp_path / "review")

@@ -115,10 +115,10 @@ def _csv_rows(path: Path, name: str) -> list[list[str]]:
 def _xlsx_rows(path: Path) -> Iterator[list[str]]:
     """The first visible sheet's rows as text, cut to the header's width as they stream in.
 
-    Read with the portfolio loader's bounded reader (``load.xlsx_rows``), so the loader's
+    Read with the portfolio loader's bounded reader (``read.xlsx_rows``), so the loader's
     sheet limits hold here too.
     """
-    from triage.core.load import xlsx_rows
+    from triage.core.read import xlsx_rows
 
     width: int | None = None
     for values in xlsx_rows(path):

@@ -8,7 +8,7 @@ one of these and the options are missing, the loader refuses it and names the op
 would read it (:func:`date_formats` and :meth:`FileOptions.command_line` word that advice).
 
 This module owns the options: their defaults, what each accepts, and how they are written on a
-command line. Cells are parsed by ``triage.core.load`` (numbers, dates), which reads them with
+command line. Cells are parsed by ``triage.core.read`` (numbers, dates), which reads them with
 the options given here. Writing files with the same conventions (exports "as the file came") is
 meant to go through :meth:`FileOptions.format_number` and :meth:`FileOptions.format_period`.
 """

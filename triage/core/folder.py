@@ -18,7 +18,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING
 
 from triage.core.errors import TriageError
-from triage.core.load import SUFFIXES
+from triage.core.read import SUFFIXES
 
 if TYPE_CHECKING:
     from triage.core.dialect import FileOptions
@@ -88,7 +88,7 @@ def newest_portfolio(
         TriageError: The folder holds no file that reads as a portfolio (each skipped file is
             named with its reason).
     """
-    from triage.core.portfolio import read_portfolio
+    from triage.core.read import read_portfolio
 
     root = Path(folder)
     files = portfolio_files(root)

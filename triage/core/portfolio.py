@@ -10,10 +10,12 @@ forecast is the forward forecast a reviewer may override. A history row with emp
 missing actual, never a zero.
 
 Two ways build the same :class:`Portfolio`. :func:`build_portfolio` scatters a loaded long frame
-(any file type). :func:`read_portfolio` first tries the streamed way for Parquet: two passes over
-the row groups fill the arrays directly, and integer codes stand in for the text, so a million
-series never exist as 116 million Python objects or as a long frame. Files it cannot vouch for go
-the first way, which gives the same result or the same error (tests/core/test_parquet_streamed.py).
+(any file type). ``triage.core.read.read_portfolio`` first tries the streamed way for Parquet and
+CSV (``triage.core.read.stream.build_streamed``, which uses the building blocks below): passes
+over blocks of rows fill the arrays directly, and integer codes stand in for the text, so a
+million series never exist as 116 million Python objects or as a long frame. Files it cannot vouch
+for go the first way, which gives the same result or the same error
+(tests/core/test_parquet_streamed.py).
 
 Memory at scale (docs/performance.md): rows are numbered with int32 codes where they fit, row
 passes run in blocks, and prices are kept per series (:class:`UnitPrices`) except for the series
@@ -22,7 +24,6 @@ whose price changes.
 
 from __future__ import annotations
 
-import concurrent.futures
 import hashlib
 from dataclasses import dataclass, field
 from functools import cached_property
@@ -40,8 +41,6 @@ from triage.core.text import visible
 if TYPE_CHECKING:
     from collections.abc import Callable, Sequence
 
-    from triage.core.dialect import FileOptions
-    from triage.core.load import StreamSource
 
 #: How many example rows an error message shows.
 EXAMPLES = 5
@@ -50,7 +49,7 @@ DAY_NS = 86_400 * 10**9
 
 
 class LoadedLike(Protocol):
-    """What the builder needs from a loaded file (see ``triage.core.load.LoadedFrame``)."""
+    """What the builder needs from a loaded file (see ``triage.core.read.LoadedFrame``)."""
 
     @property
     def frame(self) -> pd.DataFrame: ...
@@ -454,11 +453,11 @@ def build_portfolio(
         missing_rows = _scatter_prices(flat, cell, price_col)
         del price_col
         dense = flat.reshape(n_series, n_periods)
-        _refuse_unpriced(path, _fill_prices(dense), keys_unique, key_columns)
+        _refuse_unpriced(path, fill_prices(dense), keys_unique, key_columns)
         price = UnitPrices.from_dense(dense)
         del dense, flat
         if missing_rows:
-            notices.append(_price_note(missing_rows))
+            notices.append(price_note(missing_rows))
     del cell
 
     keys = _series_table(frame, keys_unique, key_columns, loaded.attributes, attribute_rows)
@@ -481,253 +480,10 @@ def build_portfolio(
     )
 
 
-def read_portfolio(
-    path: str | Path,
-    *,
-    columns: dict[str, str] | None = None,
-    sheet: str | None = None,
-    lag: int | None = None,
-    smallest_lag: bool = False,
-    options: FileOptions | None = None,
-) -> Portfolio:
-    """Load a portfolio file and build its arrays (see ``load.load_frame`` and ``build_portfolio``).
-
-    ``options`` say how the file writes its cells (``--sep``, ``--decimal``, ``--date-format``,
-    ``--header-row``; see ``triage.core.dialect``); both ways read them.
-
-    A Parquet or CSV file is first read the streamed way (``load.scan_parquet``,
-    ``load.scan_csv``): one block of rows at a time, straight into the dense arrays, without
-    the long frame. Whenever that reader cannot vouch for the file (a bad or unusual cell,
-    several lags, duplicate rows, ...) the file is read the full way, which gives the same
-    portfolio or the same error.
-    """
-    from triage.core.load import FastPathDeclined, load_frame, scan_csv, scan_parquet
-
-    scan = {".parquet": scan_parquet, ".pq": scan_parquet, ".csv": scan_csv}.get(
-        Path(path).suffix.lower()
-    )
-    if sheet is None and scan is not None:
-        try:
-            return _build_streamed(scan(path, columns=columns, options=options), lag)
-        except FastPathDeclined:
-            pass
-    loaded = load_frame(path, columns=columns, sheet=sheet, options=options)
-    return build_portfolio(loaded, lag=lag, consume=True, smallest_lag=smallest_lag)
-
-
-# --- the streamed way: Parquet row groups straight into the dense arrays -------------------------
-
-
-def _build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
-    """Build from a Parquet file in two passes over its row groups, without the long frame.
-
-    Pass 1 reads the keys and periods and numbers every row's cell; pass 2 reads the numbers and
-    attributes and scatters them. Only files with one row per (series, period) and one history
-    lag take this way; for anything else :class:`~triage.core.load.FastPathDeclined` sends the
-    file to the full loader, which gives the same result or the same error.
-    """
-    from triage.core.load import FastPathDeclined
-
-    n_rows = source.n_rows
-    has_location = schema.LOCATION in source.columns
-    has_lag = schema.LAG in source.columns
-    has_price = schema.PRICE in source.columns
-    key_columns = (schema.ITEM, schema.LOCATION) if has_location else (schema.ITEM,)
-    small = np.iinfo(np.int16)
-    if lag is not None and not has_lag:
-        raise FastPathDeclined("--lag without a lag column")
-
-    # Pass 1: keys and periods. Day numbers are kept as int16 offsets from the first row's.
-    item = np.empty(n_rows, dtype=np.int32)
-    loc = np.empty(n_rows if has_location else 0, dtype=np.int16)
-    day = np.empty(n_rows, dtype=np.int16)
-    base: int | None = None
-    days_seen: set[int] = set()
-    lag_first_day: dict[int, int] = {}
-    names = [*key_columns, schema.PERIOD, *([schema.LAG] if has_lag else [])]
-    into: dict[str, np.ndarray] = {schema.ITEM: item, schema.LOCATION: loc}
-    for chunk in source.chunks(names, into=into, last=True):
-        start, stop = chunk.start, chunk.start + chunk.size
-        days = chunk.columns[schema.PERIOD]
-        low, high = int(days.min()), int(days.max())
-        base = low if base is None else base
-        if low - base < small.min or high - base > small.max:
-            raise FastPathDeclined("periods too far apart")
-        np.subtract(days, base, out=day[start:stop], casting="unsafe")
-        days_seen.update((np.flatnonzero(np.bincount(days - low)) + low).tolist())
-        if has_lag:
-            row_lags = chunk.columns[schema.LAG]
-            if row_lags.max() >= 1 << 16:
-                raise FastPathDeclined("large lags")
-            first = np.full(int(row_lags.max()) + 1, np.iinfo(np.int32).max, dtype=np.int32)
-            np.minimum.at(first, row_lags, days)
-            for value in np.flatnonzero(first < np.iinfo(np.int32).max).tolist():
-                lag_first_day[value] = min(
-                    lag_first_day.get(value, first[value]), int(first[value])
-                )
-    assert base is not None  # the file has rows
-
-    # Series numbers: every (item, location) pair in use, in key order. Only the pairs are
-    # sorted; the rows pass twice (pair code, then cell) and are updated in place.
-    item_text = np.array(source.values(schema.ITEM), dtype=object)
-    loc_text = np.array(source.values(schema.LOCATION) if has_location else [""], dtype=object)
-    n_loc = len(loc_text)
-    if len(item_text) * n_loc >= np.iinfo(np.int32).max:
-        raise FastPathDeclined("too many key pairs")
-    pair = item
-    used = np.zeros(len(item_text) * n_loc, dtype=bool)
-    for lo in range(0, n_rows, _ROWS):
-        block = pair[lo : lo + _ROWS]
-        if has_location:
-            block *= n_loc
-            block += loc[lo : lo + _ROWS]
-        used[block] = True
-    del loc, item
-    pairs = np.flatnonzero(used)
-    del used
-    item_rank = _text_rank(item_text)
-    loc_rank = _text_rank(loc_text)
-    pairs = pairs[np.lexsort((loc_rank[pairs % n_loc], item_rank[pairs // n_loc]))]
-    n_series = len(pairs)
-    text_codes = {schema.ITEM: (item_text, (pairs // n_loc).astype(np.int32))}
-    if has_location:
-        text_codes[schema.LOCATION] = (loc_text, (pairs % n_loc).astype(np.int32))
-    keys_unique = pd.DataFrame({k: _str_array(*v) for k, v in text_codes.items()})
-
-    uniques = np.array(sorted(days_seen), dtype=np.int64)
-    found = _calendar_from_uniques(
-        pd.DatetimeIndex(uniques.astype("datetime64[D]").astype("datetime64[ns]"))
-    )
-    if found is None:
-        raise FastPathDeclined("irregular calendar")
-    calendar, unique_codes = found
-    if _calendar_problem(calendar, unique_codes, n_rows, n_series) is not None:
-        raise FastPathDeclined("calendar")
-    n_periods = len(calendar.periods)
-    if n_series * n_periods >= np.iinfo(np.int32).max or n_periods > small.max:
-        raise FastPathDeclined("too many cells")
-    # The two dense arrays are allocated and NaN-filled on a worker thread while this one
-    # numbers the cells: first touching a GB of memory is mostly kernel time, which the other
-    # core can take.
-    allocating = concurrent.futures.ThreadPoolExecutor(max_workers=1)
-    dense_job = allocating.submit(
-        lambda: (np.full(n_series * n_periods, np.nan), np.full(n_series * n_periods, np.nan))
-    )
-    allocating.shutdown(wait=False)
-    # Row -> cell in one pass through two lookup tables: pair -> first cell of its series,
-    # day offset -> calendar column. The cells overwrite the pair codes.
-    first_cell = np.zeros(len(item_text) * n_loc, dtype=np.int32)
-    first_cell[pairs] = np.arange(n_series, dtype=np.int32) * n_periods
-    shift = int(uniques[0]) - base
-    column_of_day = np.full(int(uniques[-1] - uniques[0]) + 1, -1, dtype=np.int32)
-    column_of_day[uniques - uniques[0]] = unique_codes
-    cell = pair
-    filled = np.zeros(n_series * n_periods, dtype=bool)
-    for lo in range(0, n_rows, _ROWS):
-        block = cell[lo : lo + _ROWS]
-        offsets = day[lo : lo + _ROWS].astype(np.int32)
-        offsets -= shift
-        np.take(first_cell, block, out=block)
-        block += column_of_day[offsets]
-        filled[block] = True
-    del day, pair, first_cell, pairs
-    if np.count_nonzero(filled) != n_rows:
-        raise FastPathDeclined("several rows for one series and period")
-    is_latest = None
-    if source.attributes:
-        # The bitmap turns into "is the latest cell of its series": attributes come from there.
-        last = _last_filled(filled.reshape(n_series, n_periods))
-        filled[:] = False
-        filled[np.arange(n_series, dtype=np.int64) * n_periods + last] = True
-        is_latest = filled
-    else:
-        del filled
-
-    # Pass 2: prices first, into the buffer that will then hold the forecasts: the dense price
-    # matrix lives only until it is compressed (most series have one price throughout).
-    buffer, demand = dense_job.result()
-    del dense_job
-    price = None
-    missing_prices = 0
-    if has_price:
-        for chunk in source.chunks([schema.PRICE], last=True):
-            values = chunk.columns[schema.PRICE]
-            # numpy converts an int32 index to intp on every use: convert once per chunk.
-            buffer[cell[chunk.start : chunk.start + chunk.size].astype(np.intp)] = values
-            missing_prices += int(np.count_nonzero(np.isnan(values)))
-        dense = buffer.reshape(n_series, n_periods)
-        if _fill_prices(dense).size:
-            raise FastPathDeclined("series without a price")
-        price = UnitPrices.from_dense(dense)
-        del dense
-        buffer.fill(np.nan)
-
-    # Pass 3: demand, forecast and attributes, scattered into their cells.
-    forecast = buffer
-    attribute_codes = {name: np.full(n_series, -1, dtype=np.int32) for name in source.attributes}
-
-    select = _rows_marked(is_latest, cell) if is_latest is not None else None
-    names = [schema.DEMAND, schema.FORECAST]
-    for chunk in source.chunks(names, sparse=source.attributes, select=select, last=True):
-        cells = cell[chunk.start : chunk.start + chunk.size].astype(np.intp)
-        demand[cells] = chunk.columns[schema.DEMAND]
-        forecast[cells] = chunk.columns[schema.FORECAST]
-        if chunk.selected is not None:
-            owners = cells[chunk.selected] // n_periods
-            for name, codes in attribute_codes.items():
-                codes[owners] = chunk.columns[name]
-    del cell, is_latest, select
-    demand_grid = demand.reshape(n_series, n_periods)
-    last_actual = _last_actual_column(demand_grid)
-    if last_actual < 0:
-        raise FastPathDeclined("no actual demand")
-
-    chosen = None
-    lags: tuple[int, ...] = ()
-    if has_lag:
-        lags = tuple(
-            sorted(
-                v
-                for v, first in lag_first_day.items()
-                if column_of_day[first - int(uniques[0])] <= last_actual
-            )
-        )
-        if len(lags) != 1 or (lag is not None and lag not in lags):
-            raise FastPathDeclined("lag choice")
-        chosen = lags[0]
-
-    notices = list(source.notices)
-    if missing_prices:
-        notices.append(_price_note(missing_prices))
-
-    keys = keys_unique
-    for name, codes in attribute_codes.items():
-        text_codes[name] = (np.array(source.values(name), dtype=object), codes)
-        keys[name] = _str_array(*text_codes[name])
-    return Portfolio(
-        path=source.path,
-        keys=keys,
-        key_columns=key_columns,
-        attributes=source.attributes,
-        calendar=calendar,
-        demand=demand_grid,
-        forecast=forecast.reshape(n_series, n_periods),
-        price=price,
-        last_actual=last_actual,
-        lag=chosen,
-        lags=lags,
-        rows=n_rows,
-        notices=tuple(notices),
-        _text_codes={
-            k: (keys, codes, _large_text(values)) for k, (values, codes) in text_codes.items()
-        },
-    )
-
-
 # --- building blocks shared by both ways of building ---------------------------------------------
 
 #: Rows per block where a whole-column pass would otherwise allocate full-length temporaries.
-_ROWS = 1 << 20
+BLOCK_ROWS = 1 << 20
 #: Series per block when a pass runs over the dense arrays.
 _SERIES = 1 << 15
 
@@ -760,8 +516,8 @@ def _sorted_codes(raw: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.n
     """
     order = np.argsort(values.astype(str), kind="stable")
     used = np.zeros(len(values), dtype=bool)
-    for lo in range(0, len(raw), _ROWS):
-        used[raw[lo : lo + _ROWS]] = True
+    for lo in range(0, len(raw), BLOCK_ROWS):
+        used[raw[lo : lo + BLOCK_ROWS]] = True
     rank = np.empty(len(values), dtype=_index_dtype(len(values)))
     rank[order] = np.cumsum(used[order]) - 1
     return rank, values[order][used[order]]
@@ -797,16 +553,16 @@ def _pair_codes(
     series = (
         out if out is not None and out.dtype == dtype else np.empty(len(item_codes), dtype=dtype)
     )
-    for lo in range(0, len(item_codes), _ROWS):
-        block = item_codes[lo : lo + _ROWS].astype(dtype) * n_loc
-        block += loc_codes[lo : lo + _ROWS]
+    for lo in range(0, len(item_codes), BLOCK_ROWS):
+        block = item_codes[lo : lo + BLOCK_ROWS].astype(dtype) * n_loc
+        block += loc_codes[lo : lo + BLOCK_ROWS]
         used[block] = True
-        series[lo : lo + _ROWS] = block
+        series[lo : lo + BLOCK_ROWS] = block
     pairs = np.flatnonzero(used)
     renumber = np.cumsum(used, dtype=_index_dtype(len(pairs))) - 1
     del used
-    for lo in range(0, len(series), _ROWS):
-        series[lo : lo + _ROWS] = renumber[series[lo : lo + _ROWS]]
+    for lo in range(0, len(series), BLOCK_ROWS):
+        series[lo : lo + BLOCK_ROWS] = renumber[series[lo : lo + BLOCK_ROWS]]
     keys = pd.DataFrame(
         {schema.ITEM: item_values[pairs // n_loc], schema.LOCATION: loc_values[pairs % n_loc]}
     )
@@ -818,11 +574,11 @@ def _calendar_codes(loaded: LoadedLike, n_series: int) -> tuple[Calendar, np.nda
     column = loaded.frame[schema.PERIOD]
     stamps = column.to_numpy(dtype="datetime64[ns]").view(np.int64)
     inverse, uniques = _unique_stamps(stamps)
-    found = _calendar_from_uniques(uniques)
+    found = calendar_from_uniques(uniques)
     if found is None:
         _irregular_calendar(loaded, pd.DatetimeIndex(column), uniques)
     calendar, unique_codes = found
-    problem = _calendar_problem(calendar, unique_codes, len(stamps), n_series)
+    problem = calendar_problem(calendar, unique_codes, len(stamps), n_series)
     if problem is not None:
         message, hint, suspects = problem
         rows = np.flatnonzero(np.isin(inverse, np.flatnonzero(np.isin(unique_codes, suspects))))
@@ -834,8 +590,8 @@ def _calendar_codes(loaded: LoadedLike, n_series: int) -> tuple[Calendar, np.nda
             loaded.path, f"{message}{f' Rows to check: {shown}.' if shown else ''}", hint=hint
         )
     codes = np.empty(len(inverse), dtype=_index_dtype(len(calendar.periods)))
-    for lo in range(0, len(inverse), _ROWS):
-        codes[lo : lo + _ROWS] = unique_codes[inverse[lo : lo + _ROWS]]
+    for lo in range(0, len(inverse), BLOCK_ROWS):
+        codes[lo : lo + BLOCK_ROWS] = unique_codes[inverse[lo : lo + BLOCK_ROWS]]
     return calendar, codes
 
 
@@ -849,7 +605,7 @@ MAX_CELLS_PER_ROW = 50
 SPARSE_FLOOR = 100_000_000
 
 
-def _calendar_problem(
+def calendar_problem(
     calendar: Calendar, codes: np.ndarray, n_rows: int, n_series: int
 ) -> tuple[str, str, np.ndarray] | None:
     """Why a weekly or monthly calendar cannot be right, or None.
@@ -908,23 +664,23 @@ def _unique_stamps(stamps: np.ndarray) -> tuple[np.ndarray, pd.DatetimeIndex]:
     if span < 1 << 20:
         offsets = np.empty(len(stamps), dtype=np.int32)
         exact = True
-        for lo in range(0, len(stamps), _ROWS):
-            whole, rest = np.divmod(stamps[lo : lo + _ROWS] - low, DAY_NS)
+        for lo in range(0, len(stamps), BLOCK_ROWS):
+            whole, rest = np.divmod(stamps[lo : lo + BLOCK_ROWS] - low, DAY_NS)
             exact = exact and not rest.any()
-            offsets[lo : lo + _ROWS] = whole
+            offsets[lo : lo + BLOCK_ROWS] = whole
         if exact:
             present = np.flatnonzero(np.bincount(offsets, minlength=span + 1))
             lookup = np.zeros(span + 1, dtype=np.int32)
             lookup[present] = np.arange(len(present), dtype=np.int32)
-            for lo in range(0, len(offsets), _ROWS):
-                offsets[lo : lo + _ROWS] = lookup[offsets[lo : lo + _ROWS]]
+            for lo in range(0, len(offsets), BLOCK_ROWS):
+                offsets[lo : lo + BLOCK_ROWS] = lookup[offsets[lo : lo + BLOCK_ROWS]]
             days = low + present.astype(np.int64) * DAY_NS
             return offsets, pd.DatetimeIndex(days.view("datetime64[ns]"))
     inverse, uniques = pd.factorize(stamps, sort=True)
     return inverse, pd.DatetimeIndex(uniques.astype("datetime64[ns]"))
 
 
-def _calendar_from_uniques(uniques: pd.DatetimeIndex) -> tuple[Calendar, np.ndarray] | None:
+def calendar_from_uniques(uniques: pd.DatetimeIndex) -> tuple[Calendar, np.ndarray] | None:
     """The calendar of the sorted distinct periods and each one's column; None when irregular."""
     first = uniques[0]
     if len(uniques) == 1:
@@ -988,8 +744,8 @@ def _irregular_calendar(
 def _last_actual(period: np.ndarray, demand: np.ndarray) -> int:
     """Largest period code of a row with actual demand, -1 when there is none."""
     best = -1
-    for lo in range(0, len(period), _ROWS):
-        codes = period[lo : lo + _ROWS][~np.isnan(demand[lo : lo + _ROWS])]
+    for lo in range(0, len(period), BLOCK_ROWS):
+        codes = period[lo : lo + BLOCK_ROWS][~np.isnan(demand[lo : lo + BLOCK_ROWS])]
         if codes.size:
             best = max(best, int(codes.max()))
     return best
@@ -998,9 +754,11 @@ def _last_actual(period: np.ndarray, demand: np.ndarray) -> int:
 def _history_lags(lag: np.ndarray, period: np.ndarray, last_actual: int) -> tuple[int, ...]:
     """Every lag found on a history row (period up to the latest actual one)."""
     found: set[int] = set()
-    for lo in range(0, len(lag), _ROWS):
+    for lo in range(0, len(lag), BLOCK_ROWS):
         found.update(
-            _small_unique(lag[lo : lo + _ROWS][period[lo : lo + _ROWS] <= last_actual])[0].tolist()
+            _small_unique(lag[lo : lo + BLOCK_ROWS][period[lo : lo + BLOCK_ROWS] <= last_actual])[
+                0
+            ].tolist()
         )
     return tuple(sorted(int(v) for v in found))
 
@@ -1046,12 +804,12 @@ def _check_duplicates(
     size = n_series * n_periods * n_lags
     dtype = _index_dtype(size)
     seen = np.zeros(size, dtype=bool)
-    for lo in range(0, len(series), _ROWS):
-        block = series[lo : lo + _ROWS].astype(dtype) * n_periods
-        block += period[lo : lo + _ROWS]
+    for lo in range(0, len(series), BLOCK_ROWS):
+        block = series[lo : lo + BLOCK_ROWS].astype(dtype) * n_periods
+        block += period[lo : lo + BLOCK_ROWS]
         if lag_index is not None:
             block *= n_lags
-            block += lag_index[lo : lo + _ROWS]
+            block += lag_index[lo : lo + BLOCK_ROWS]
         seen[block] = True
     if np.count_nonzero(seen) == len(series):
         return
@@ -1143,14 +901,14 @@ def _scatter_prices(price: np.ndarray, cell: np.ndarray, price_col: np.ndarray) 
     Where several rows share a cell (one per lag), the last given price is kept.
     """
     missing = 0
-    for lo in range(0, len(cell), _ROWS):
-        values = price_col[lo : lo + _ROWS]
+    for lo in range(0, len(cell), BLOCK_ROWS):
+        values = price_col[lo : lo + BLOCK_ROWS]
         given = ~np.isnan(values)
         if given.all():
-            price[cell[lo : lo + _ROWS]] = values
+            price[cell[lo : lo + BLOCK_ROWS]] = values
         else:
             missing += len(values) - int(np.count_nonzero(given))
-            price[cell[lo : lo + _ROWS][given]] = values[given]
+            price[cell[lo : lo + BLOCK_ROWS][given]] = values[given]
     return missing
 
 
@@ -1172,14 +930,14 @@ def _refuse_unpriced(
     )
 
 
-def _price_note(missing_rows: int) -> str:
+def price_note(missing_rows: int) -> str:
     return (
         f"{missing_rows} rows have no price; each takes its series' nearest earlier price "
         "(or the first later one)."
     )
 
 
-def _fill_prices(price: np.ndarray) -> np.ndarray:
+def fill_prices(price: np.ndarray) -> np.ndarray:
     """Fill each series' price gaps in place; return the series that have no price at all.
 
     A gap takes the series' nearest earlier price, else its first later one. Only the rows with
@@ -1216,24 +974,26 @@ def _latest_rows(
     if unique_cells:
         # One row per cell: the latest period is the last filled cell of each series' row.
         filled = np.zeros(n_series * n_periods, dtype=bool)
-        for lo in range(0, len(series), _ROWS):
-            filled[_cells(series[lo : lo + _ROWS], period[lo : lo + _ROWS], n_periods)] = True
-        latest = _last_filled(filled.reshape(n_series, n_periods)).astype(period.dtype)
+        for lo in range(0, len(series), BLOCK_ROWS):
+            filled[
+                _cells(series[lo : lo + BLOCK_ROWS], period[lo : lo + BLOCK_ROWS], n_periods)
+            ] = True
+        latest = last_filled(filled.reshape(n_series, n_periods)).astype(period.dtype)
         del filled
     else:
         latest = np.full(n_series, -1, dtype=period.dtype)
         np.maximum.at(latest, series, period)
     rows = np.full(n_series, -1, dtype=np.int64)
-    for lo in range(0, len(series), _ROWS):
-        block = series[lo : lo + _ROWS]
-        hit = np.flatnonzero(period[lo : lo + _ROWS] == latest[block])
+    for lo in range(0, len(series), BLOCK_ROWS):
+        block = series[lo : lo + BLOCK_ROWS]
+        hit = np.flatnonzero(period[lo : lo + BLOCK_ROWS] == latest[block])
         # The maximum is taken explicitly rather than left to the order in which numpy applies
         # repeated indices.
         np.maximum.at(rows, block[hit], hit + lo)
     return rows
 
 
-def _rows_marked(marked: np.ndarray, cell: np.ndarray) -> Callable[[int, int], np.ndarray]:
+def rows_marked(marked: np.ndarray, cell: np.ndarray) -> Callable[[int, int], np.ndarray]:
     """For ``StreamSource.chunks``: positions, in a row group, of the rows whose cell is marked."""
 
     def select(start: int, size: int) -> np.ndarray:
@@ -1242,28 +1002,28 @@ def _rows_marked(marked: np.ndarray, cell: np.ndarray) -> Callable[[int, int], n
     return select
 
 
-def _str_array(values: np.ndarray, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
+def str_array(values: np.ndarray, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:
     """``values[codes]`` as pandas' ``str`` column, taken in Arrow (no Python string per row)."""
     import pyarrow as pa
 
-    taken = _large_text(values).take(pa.array(codes))
+    taken = large_text(values).take(pa.array(codes))
     return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
 
 
-def _large_text(values: np.ndarray) -> Any:
+def large_text(values: np.ndarray) -> Any:
     import pyarrow as pa
 
     return pa.array(values, type=pa.large_string())
 
 
-def _text_rank(values: np.ndarray) -> np.ndarray:
+def text_rank(values: np.ndarray) -> np.ndarray:
     """Position of each value in sorted text order (ties keep their order)."""
     rank = np.empty(len(values), dtype=np.int64)
     rank[np.argsort(values.astype(str), kind="stable")] = np.arange(len(values))
     return rank
 
 
-def _last_actual_column(demand: np.ndarray) -> int:
+def last_actual_column(demand: np.ndarray) -> int:
     """Latest column of a series x periods array holding any actual demand, -1 if none."""
     any_actual = np.zeros(demand.shape[1], dtype=bool)
     for lo in range(0, demand.shape[0], _SERIES):
@@ -1272,7 +1032,7 @@ def _last_actual_column(demand: np.ndarray) -> int:
     return int(found[-1]) if found.size else -1
 
 
-def _last_filled(grid: np.ndarray) -> np.ndarray:
+def last_filled(grid: np.ndarray) -> np.ndarray:
     """Column of the last True in every row of a boolean matrix (every row has one)."""
     out = np.empty(grid.shape[0], dtype=np.int64)
     for lo in range(0, grid.shape[0], _SERIES):

@@ -46,10 +46,19 @@ INVISIBLES: tuple[int, ...] = (
     *range(0xE0100, 0xE01F0),
 )
 
-CONTROL_TABLE: dict[int, str] = {
+#: C0, DEL and C1 as visible symbols: control pictures for C0, U+2421 for DEL, U+FFFD for C1.
+#: The loader writes these in place of the control characters of headers and ``--columns``
+#: names, and of cells it quotes in a message; cells stored as data keep their text exactly.
+STORED_TABLE: dict[int, str] = {
     **{code: chr(0x2400 + code) for code in range(0x20)},
     0x7F: "\u2421",
     **{code: "\ufffd" for code in range(0x80, 0xA0)},
+}
+
+#: What anything shown in a terminal replaces: the stored table, and the bidirectional and
+#: invisible characters besides.
+CONTROL_TABLE: dict[int, str] = {
+    **STORED_TABLE,
     **{code: "\ufffd" for code in BIDI_CONTROLS},
     **{code: "\ufffd" for code in INVISIBLES},
     0x2028: "\u2424",

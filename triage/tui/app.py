@@ -383,8 +383,8 @@ class TriageApp(App[None]):
     @work(thread=True, exclusive=True, exit_on_error=False, group="load", name="load")
     def load(self) -> None:
         """Read, score and open the ledger off the UI thread, posting progress."""
-        from triage.core.portfolio import read_portfolio
         from triage.core.ranking import require_scorable
+        from triage.core.read import read_portfolio
 
         opts = self.options
         steps = 5

@@ -1,0 +1,235 @@
+"""Parquet files: the full read into columns (:func:`read_parquet`) and the streamed scan.
+
+:func:`scan_parquet` reads only the footer and schema; the row groups are read on demand by the
+streamed build (``triage.core.read.stream``). Column types the streamed reader cannot convert
+exactly as the full reader would send the file to the full reader.
+"""
+
+from __future__ import annotations
+
+import re
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from triage.core import schema
+from triage.core.dialect import FileOptions
+from triage.core.read.cells import DAY_NS, FIRST_DAY, LAST_DAY
+from triage.core.read.columns import (
+    RawColumns,
+    checked_mapping,
+    checked_options,
+    column_label,
+    file_kind,
+    plan_columns,
+)
+from triage.core.read.memory import check_memory
+from triage.core.read.messages import fail
+from triage.core.read.stream import FastPathDeclined, StreamSource, float_values
+
+
+def read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> RawColumns:
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        metadata = pq.read_metadata(path)
+        arrow_schema = metadata.schema.to_arrow_schema()
+    except (pa.ArrowException, OSError) as exc:
+        fail(
+            path,
+            f"cannot read this as a Parquet file ({exc}).",
+            "Check that the file is Parquet and not damaged; export it again if needed.",
+        )
+    check_memory(path, metadata.num_rows, "parquet")
+    # pandas stores an unnamed index as '__index_level_N__'; it is not data.
+    keep = [
+        i for i, f in enumerate(arrow_schema) if not re.fullmatch(r"__index_level_\d+__", f.name)
+    ]
+    fields = [arrow_schema.field(i) for i in keep]
+    plan = plan_columns(path, [f.name for f in fields], mapping, notices)
+    for position, fld in enumerate(fields):
+        kind = fld.type
+        if pa.types.is_nested(kind) or pa.types.is_binary(kind) or pa.types.is_large_binary(kind):
+            fail(
+                path,
+                f"column {column_label(plan, position)} holds {kind} values, not text, numbers "
+                "or dates.",
+                "Write the column as text, numbers or dates.",
+            )
+    text_roles = {schema.ITEM, schema.LOCATION, schema.PERIOD, schema.LAG, None}
+    dictionary = [
+        fld.name
+        for position, fld in enumerate(fields)
+        if plan.roles[position] in text_roles
+        and (pa.types.is_string(fld.type) or pa.types.is_large_string(fld.type))
+    ]
+    try:
+        table = pq.read_table(path, columns=[f.name for f in fields], read_dictionary=dictionary)
+    except (pa.ArrowException, OSError) as exc:
+        fail(
+            path,
+            f"cannot read the Parquet data ({exc}).",
+            "Check that the file is not damaged; export it again if needed.",
+        )
+    for position, fld in enumerate(table.schema):
+        if pa.types.is_decimal(fld.type):
+            table = table.set_column(position, fld.name, table.column(position).cast(pa.float64()))
+    table = table.rename_columns([f"c{i}" for i in range(len(fields))])
+    data: dict[int, pd.Series] = {}
+    for position in range(len(fields)):
+        # Column by column, releasing each Arrow column once converted: the peak holds one
+        # column twice, not the whole table.
+        data[position] = _arrow_to_series(table.column(0))
+        table = table.remove_column(0)
+    return RawColumns(plan, data, first_row=1, blank_rows_possible=False)
+
+
+def _arrow_to_series(column: Any) -> pd.Series:
+    """One Arrow column as the Series ``Table.to_pandas`` gives, without its detours.
+
+    Dictionary columns become categoricals straight from the unified dictionary's indices (no
+    per-row strings); dates in the accepted years become ``datetime64[ns]`` by one integer
+    multiplication. Everything else, and every case the checks must see as read (dates outside
+    the accepted years, null dictionary values), goes through ``to_pandas``.
+    """
+    import pyarrow as pa
+
+    kind = column.type
+    if (
+        pa.types.is_dictionary(kind)
+        and (pa.types.is_string(kind.value_type) or pa.types.is_large_string(kind.value_type))
+        and column.num_chunks
+    ):
+        column = column.unify_dictionaries()
+        dictionary = column.chunk(0).dictionary
+        categories = pd.Index(dictionary.to_pylist(), dtype=str)
+        if not dictionary.null_count and categories.is_unique:
+            codes = np.empty(len(column), dtype=_code_dtype(len(categories)))
+            start = 0
+            for chunk in column.chunks:
+                stop = start + len(chunk)
+                codes[start:stop] = chunk.indices.fill_null(-1).to_numpy(zero_copy_only=False)
+                start = stop
+            dtype = pd.CategoricalDtype(categories)
+            return pd.Series(pd.Categorical.from_codes(codes, dtype=dtype, validate=False))
+    if pa.types.is_date32(kind) and column.null_count == 0 and len(column):
+        stamps = np.empty(len(column), dtype=np.int64)
+        start = 0
+        for chunk in column.chunks:
+            stop = start + len(chunk)
+            stamps[start:stop] = chunk.view(pa.int32()).to_numpy()
+            start = stop
+        # Outside the accepted years the product could overflow: let the checks see the dates.
+        if stamps.min() >= FIRST_DAY and stamps.max() <= LAST_DAY:
+            stamps *= DAY_NS
+            return pd.Series(stamps.view("datetime64[ns]"), copy=False)
+    if pa.types.is_float64(kind) and column.null_count:
+        values = np.empty(len(column), dtype=np.float64)
+        start = 0
+        for chunk in column.chunks:
+            stop = start + len(chunk)
+            values[start:stop] = float_values(chunk)
+            start = stop
+        return pd.Series(values, copy=False)
+    return column.to_pandas(date_as_object=False, ignore_metadata=True)
+
+
+def _code_dtype(size: int) -> type[np.signedinteger[Any]]:
+    """The smallest signed integer type that holds codes 0..size-1 and -1 for missing."""
+    for dtype in (np.int8, np.int16, np.int32):
+        if size <= np.iinfo(dtype).max:
+            return dtype
+    return np.int64
+
+
+def scan_parquet(
+    path: str | Path,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> StreamSource:
+    """Open a Parquet portfolio for the streamed reader (reads the footer and schema only).
+
+    ``options`` matter for text cells only (a decimal mark, a date format), and columns of
+    text where numbers or dates belong decline this path: the full loader reads them.
+
+    Raises:
+        LoadError: The errors :func:`load_frame` raises before it reads any cell (file type,
+            ``--columns``, column names), with the same messages.
+        FastPathDeclined: The file needs the full loader.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    file_path = Path(path)
+    kind = file_kind(file_path)
+    checked_options(file_path, kind, options)
+    if kind != "parquet":
+        raise FastPathDeclined("not parquet")
+    mapping = checked_mapping(file_path, columns)
+    try:
+        arrow_schema = pq.read_schema(file_path)
+    except (pa.ArrowException, OSError) as exc:
+        raise FastPathDeclined("unreadable") from exc
+    fields = [f for f in arrow_schema if not re.fullmatch(r"__index_level_\d+__", f.name)]
+    for fld in fields:
+        kind = fld.type
+        if pa.types.is_nested(kind) or pa.types.is_binary(kind) or pa.types.is_large_binary(kind):
+            raise FastPathDeclined("nested or binary column")
+    notices: list[str] = []
+    plan = plan_columns(file_path, [f.name for f in fields], mapping, notices)
+    if plan.unnamed:
+        raise FastPathDeclined("unnamed column")
+    names: dict[str, str] = {}
+    plain_text: list[str] = []
+    for position, fld in enumerate(fields):
+        role = plan.roles[position]
+        name = role if role is not None else plan.attributes.get(position)
+        if name is None:
+            continue
+        # Column selection treats dots as paths into nested columns.
+        if "." in fld.name or not _streamable(role, fld.type):
+            raise FastPathDeclined(f"column {fld.name!r} of type {fld.type}")
+        names[name] = fld.name
+        if role in (schema.ITEM, schema.LOCATION, None) and not pa.types.is_dictionary(fld.type):
+            plain_text.append(fld.name)
+    try:
+        # Plain text columns come back dictionary-encoded: no Python string per row.
+        file = pq.ParquetFile(file_path, read_dictionary=plain_text)
+    except (pa.ArrowException, OSError) as exc:
+        raise FastPathDeclined("unreadable") from exc
+    if file.metadata.num_rows == 0:
+        raise FastPathDeclined("no rows")
+    check_memory(file_path, file.metadata.num_rows, "parquet-streamed")
+    return StreamSource(
+        path=file_path,
+        file=file,
+        columns=names,
+        attributes=tuple(plan.attributes.values()),
+        notices=tuple(notices),
+        n_rows=file.metadata.num_rows,
+        plain_text=plain_text,
+    )
+
+
+def _streamable(role: str | None, kind: Any) -> bool:
+    """Column types the streamed reader converts exactly as the full loader would."""
+    import pyarrow as pa
+
+    def text(t: Any) -> bool:
+        return bool(pa.types.is_string(t) or pa.types.is_large_string(t))
+
+    if role in (schema.ITEM, schema.LOCATION, None):
+        return text(kind) or (pa.types.is_dictionary(kind) and text(kind.value_type))
+    if role == schema.PERIOD:
+        return (
+            pa.types.is_date32(kind)
+            or pa.types.is_date64(kind)
+            or (pa.types.is_timestamp(kind) and kind.tz is None)
+        )
+    if role == schema.LAG:
+        return bool(pa.types.is_integer(kind))
+    return bool(pa.types.is_floating(kind) or pa.types.is_integer(kind))
