@@ -295,10 +295,11 @@ def _history_table(
     from rich.table import Table
     from rich.text import Text
 
-    from triage.core.ledger import END, OUTCOMES, UNDO, AdjustmentEnd
+    from triage.core.ledger import END, UNDO, AdjustmentEnd
     from triage.core.text import visible
+    from triage.core.vocabulary import OUTCOMES, labels
 
-    outcomes = {c.code: c.label for c in OUTCOMES}
+    outcomes = labels(OUTCOMES)
     filters = [
         f"{name} {visible(value)!r}"
         for name, value in (("cycle", args.cycle), ("item", args.item), ("location", args.location))

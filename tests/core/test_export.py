@@ -28,12 +28,12 @@ import pytest
 from openpyxl.writer import excel
 
 from triage.core import export as export_mod
-from triage.core.config import numbered
 from triage.core.errors import TriageError
 from triage.core.export import CAUTION, ExportError, export_review, review_tables
 from triage.core.ledger import Ledger
 from triage.core.portfolio import Portfolio, read_portfolio
 from triage.core.rounding import MAX_DECIMALS
+from triage.core.vocabulary import numbered
 
 HISTORY = ["2026-10-05", "2026-10-12", "2026-10-19", "2026-10-26"]
 FORWARD = ["2026-11-02", "2026-11-09", "2026-11-16"]

@@ -26,10 +26,11 @@ from sample.cycles import CYCLES_SEED, N_FILES, CycleScenario, build_cycles
 from triage.core import history, report
 from triage.core.errors import TriageError
 from triage.core.export import CAUTION
-from triage.core.ledger import OUTCOMES, Ledger
+from triage.core.ledger import Ledger
 from triage.core.portfolio import read_portfolio
 from triage.core.ranking import scorecard
 from triage.core.review import ReviewSession
+from triage.core.vocabulary import OUTCOMES
 
 NEWEST = N_FILES - 1
 STAMP = datetime(2027, 3, 2, 8, 30, tzinfo=UTC)

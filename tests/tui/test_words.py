@@ -9,14 +9,13 @@ from pathlib import Path
 from textual.containers import VerticalScroll
 
 from tests.tui.conftest import wait_for, wait_loaded
-from triage.core import ledger as ledger_mod
 from triage.core import words
-from triage.core.config import DEFAULT_ROOT_CAUSES
+from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, OUTCOMES
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.dialogs import HelpScreen
 
 ROOT = Path(__file__).resolve().parents[2]
-CODES = [c.code for c in ledger_mod.OUTCOMES if "_" in c.code] + [
+CODES = [c.code for c in OUTCOMES if "_" in c.code] + [
     c.code for c in DEFAULT_ROOT_CAUSES if "_" in c.code
 ]
 

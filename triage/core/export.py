@@ -54,7 +54,7 @@ import pandas as pd
 
 from triage import __version__
 from triage.core import history, schema
-from triage.core.config import Choice, default_reviewer
+from triage.core.config import default_reviewer
 from triage.core.errors import TriageError
 from triage.core.files import (
     clean_leftovers,
@@ -64,7 +64,7 @@ from triage.core.files import (
     write_atomic,
     write_set_atomic,
 )
-from triage.core.ledger import OUTCOMES, Decision, Ledger, describe_series
+from triage.core.ledger import Decision, Ledger, describe_series
 from triage.core.portfolio import Portfolio
 from triage.core.rounding import (
     DEFAULT as DEFAULT_ROUNDING,
@@ -78,6 +78,7 @@ from triage.core.rounding import (
     round_half_away,
 )
 from triage.core.text import visible
+from triage.core.vocabulary import OUTCOMES, labels
 
 #: Shown in every export, in every format, and by the command line after writing one.
 CAUTION = (
@@ -381,10 +382,6 @@ def _examples(names: Sequence[str], total: int) -> str:
     return f"{shown} and {total - _EXAMPLES} more" if total > _EXAMPLES else shown
 
 
-def _labels(choices: Iterable[Choice]) -> dict[str, str]:
-    return {c.code: c.label for c in choices}
-
-
 def _floats(values: Iterable[float | None]) -> np.ndarray:
     return np.array([np.nan if v is None else v for v in values], dtype=np.float64)
 
@@ -585,8 +582,8 @@ def review_tables(
     )
 
     # ---- decisions table
-    outcome_labels = _labels(OUTCOMES)
-    cause_labels = _labels(ledger.root_causes)
+    outcome_labels = labels(OUTCOMES)
+    cause_labels = labels(ledger.root_causes)
     unknown_causes = sorted({d.root_cause for d in kept} - set(cause_labels))
     if unknown_causes:
         warnings.append(

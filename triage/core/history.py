@@ -44,8 +44,16 @@ import pandas as pd
 
 from triage.core import metrics, ranking, schema
 from triage.core.errors import TriageError
-from triage.core.ledger import ADJUSTED, OUTCOMES, SETTLED, Decision, Ledger
+from triage.core.ledger import Decision, Ledger
 from triage.core.portfolio import Portfolio
+from triage.core.vocabulary import (
+    ADJUSTED,
+    DEFERRED,
+    HANDED_OFF,
+    OPEN_OUTCOMES,
+    OUTCOMES,
+    SETTLED,
+)
 
 UP = "up"
 DOWN = "down"
@@ -96,9 +104,6 @@ STATUS_TEXT = {
     NO_FORECAST: "original or adjusted forecast missing",
     ENDED: "a reviewer ended the adjustment before this period",
 }
-
-#: Outcomes that leave a series open for a later cycle.
-OPEN_OUTCOMES = ("handed_off", "deferred")
 
 REALISED_COLUMNS: tuple[str, ...] = (
     "cycle",
@@ -1028,8 +1033,8 @@ def coverage(
         worst=int(worst_mask.sum()),
         worst_reviewed=int((worst_mask & done).sum()),
         not_in_portfolio=int((everyone < 0).sum()),
-        handed_off=sum(d.outcome == "handed_off" for d in decided),
-        deferred=sum(d.outcome == "deferred" for d in decided),
+        handed_off=sum(d.outcome == HANDED_OFF for d in decided),
+        deferred=sum(d.outcome == DEFERRED for d in decided),
     )
 
 

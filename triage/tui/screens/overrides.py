@@ -15,7 +15,7 @@ from textual.containers import Vertical, VerticalScroll
 from textual.widgets import Static
 
 from triage.core import words
-from triage.core.config import Choice
+from triage.core.vocabulary import Choice
 from triage.tui import format as fmt
 from triage.tui.screens.base import Dialog
 
