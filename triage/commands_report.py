@@ -32,6 +32,8 @@ from triage.arguments import (
 from triage.core.errors import TriageError
 
 if TYPE_CHECKING:
+    from collections.abc import Callable
+
     import pandas as pd
 
     from triage.core.config import Config
@@ -194,8 +196,8 @@ def _check_scoring(args: argparse.Namespace) -> None:
 
 def cmd_report(args: argparse.Namespace) -> int:
     """``triage report``: write the HTML report and print its short summary."""
-    from triage.core.report import summary_text, write_report
     from triage.core.text import visible
+    from triage.render.report import summary_text, write_report
 
     _check_scoring(args)
     if args.top < 1:
@@ -388,8 +390,8 @@ def _table(
     from rich.text import Text
 
     from triage.core import history
-    from triage.core.report import fmt_int, fmt_money, fmt_pct, fmt_ratio, fmt_units
     from triage.core.text import longest_word, visible
+    from triage.render.report import fmt_int, fmt_money, fmt_pct, fmt_ratio, fmt_units
 
     realised = int(status.loc[status["status"] == history.REALISED, "lines"].sum())
     ahead = int(status.loc[status["status"] == history.AHEAD, "lines"].sum())
@@ -404,7 +406,7 @@ def _table(
     for row in missing.itertuples(index=False):
         header.append(f"{int(row.lines):,} periods not counted: {row.meaning}")
     table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
-    formats = {
+    formats: dict[str, Callable[[Any], str]] = {
         "share_helped": fmt_pct,
         "relative_value_added": lambda v: fmt_pct(v, signed=True),
         "avg_rel_mae": fmt_ratio,

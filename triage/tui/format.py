@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import math
 import unicodedata
 from typing import TYPE_CHECKING, Literal
 
@@ -10,7 +9,8 @@ import numpy as np
 from textual.binding import Binding
 
 from triage.core import vocabulary
-from triage.core.text import visible
+from triage.core.text import compact as compact  # the screens call it fmt.compact
+from triage.core.text import over_under, percent, visible
 from triage.tui.widgets.series_list import Cell, Column
 
 if TYPE_CHECKING:
@@ -109,32 +109,16 @@ def _marks_apart(text: str) -> str:
     return "".join(f"\u25cc{ch}" if unicodedata.combining(ch) else ch for ch in text)
 
 
-def pct(value: float, digits: int = 1) -> str:
-    """``12.3%``; empty when undefined."""
-    return "" if value is None or math.isnan(value) else f"{value * 100:.{digits}f}%"
-
-
-def compact(value: float) -> str:
-    """``1,234`` / ``12.3k`` / ``4.5M``: short numbers for narrow columns."""
-    if value is None or math.isnan(value):
-        return ""
-    size = abs(value)
-    if size >= 10_000_000:
-        return f"{value / 1e6:.1f}M"
-    if size >= 100_000:
-        return f"{value / 1e3:.0f}k"
-    return f"{value:,.0f}"
+#: ``12.3%``; empty when undefined (``text.percent``).
+pct = percent
 
 
 def signed_pct(value: float) -> Cell:
     """``+12.3% over`` with a style name: over and under differ in words, not only colour."""
-    if value is None or math.isnan(value):
+    shown = over_under(value, 1, fraction=True, plain_zero=True)
+    if not shown:
         return ("", None)
-    if value > 0:
-        return (f"+{value * 100:.1f}% over", "over")
-    if value < 0:
-        return (f"{value * 100:.1f}% under", "under")
-    return ("0.0%", None)
+    return (shown, "over" if value > 0 else "under" if value < 0 else None)
 
 
 def sparkline(demand: np.ndarray, forecast: np.ndarray) -> str:
