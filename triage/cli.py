@@ -200,9 +200,9 @@ def _load(args: argparse.Namespace, *, smallest_lag: bool = False):
 
 
 def _cmd_rank(args: argparse.Namespace) -> int:
-    from triage.core import output as report
     from triage.core.ranking import leading_cover, require_scorable, scorecard
     from triage.core.text import visible
+    from triage.render import scorecard as report
 
     check_score_args(args)
     if args.output is not None:
@@ -240,8 +240,8 @@ def _cmd_rank(args: argparse.Namespace) -> int:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from triage.core import output as report
     from triage.core.ranking import require_scorable
+    from triage.render import scorecard as report
 
     check_score_args(args)
     # Several lags are reported (with the --lag choice), not refused.

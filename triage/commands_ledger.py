@@ -263,8 +263,7 @@ def _history_json(path: Path, events: list[Event | AdjustmentEnd], args: argpars
 
 
 def _history_csv(events: list[Event | AdjustmentEnd]) -> str:
-    from triage.core.export import neutralise_one
-    from triage.core.text import visible
+    from triage.core.text import neutralise_one, visible
 
     buffer = io.StringIO()
     writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")

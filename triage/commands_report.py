@@ -332,8 +332,7 @@ def _cell(value: Any) -> Any:
 
 
 def _csv(frame: pd.DataFrame) -> str:
-    from triage.core.export import neutralise_one
-    from triage.core.text import visible
+    from triage.core.text import neutralise_one, visible
 
     buffer = io.StringIO()
     writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")

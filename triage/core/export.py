@@ -77,7 +77,14 @@ from triage.core.rounding import (
     describe,
     round_half_away,
 )
-from triage.core.text import visible
+from triage.core.text import (
+    FORMULA_START,
+    XLSX_ILLEGAL,
+    neutralise,
+    neutralise_one,
+    visible,
+    xlsx_cell_text,
+)
 from triage.core.vocabulary import OUTCOMES, labels
 
 #: Shown in every export, in every format, and by the command line after writing one.
@@ -85,12 +92,6 @@ CAUTION = (
     "These decisions are advisory: they record a reviewer's judgement in triage, not an approved "
     "plan. Check each one in the planning system before it is allowed to move stock or money."
 )
-
-#: First characters that make a spreadsheet read a cell as a formula. OWASP "CSV Injection"
-#: lists = + - @ Tab and CR, and Line Feed since August 2025 (OWASP/www-community PR #1116);
-#: OWASP ASVS 5.0 V1.2.10 adds NUL (reliability.md §2.1).
-FORMULA_TRIGGERS = "=+-@\t\r\n\0"
-_TRIGGER_START = re.compile(r"[=+\-@\t\r\n\x00]")
 
 #: Rows in an Excel sheet, header included (Excel specifications and limits; reliability.md
 #: §2.4: pandas + xlsxwriter silently dropped the last row at exactly this size, measured).
@@ -102,10 +103,6 @@ XLSX_MAX_COLUMNS = 16_384
 
 #: Strings openpyxl would store as error values rather than text (``openpyxl.cell.cell``).
 _XLSX_ERROR_CODES = frozenset(("#NULL!", "#DIV/0!", "#VALUE!", "#REF!", "#NAME?", "#NUM!", "#N/A"))
-#: Characters an xlsx file cannot hold: openpyxl's ``ILLEGAL_CHARACTERS_RE`` (C0 controls but
-#: tab, LF and CR), plus U+FFFE and U+FFFF, which XML 1.0 does not allow either.
-_XLSX_ILLEGAL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ufffe\uffff]")
-
 SUFFIXES = (".csv", ".xlsx", ".json")
 
 ITEM = schema.ITEM
@@ -318,33 +315,6 @@ class ExportResult:
 
 # --------------------------------------------------------------------------------------------
 # Text rules
-
-
-def neutralise(values: pd.Series | Sequence[str]) -> pd.Series:
-    """Free text made safe to open in a spreadsheet, as object Series of str.
-
-    CR LF and bare CR become LF (one line-break convention, and no bare CR for the CSV writer
-    of CPython < 3.11.9 to leave unquoted, reliability.md §2.3). Text starting with a formula
-    trigger (``FORMULA_TRIGGERS``) gets a leading apostrophe, the neutralisation OWASP "CSV
-    Injection" gives and Symfony uses since CVE-2021-41270; a tab or space prefix would not do.
-    Quotes and separators inside the text are left to the CSV writer's quoting.
-    """
-    series = pd.Series(values, dtype=object)
-    if series.empty:
-        return series
-    # Work on the distinct values: long columns (the forecast table's outcome) repeat a few.
-    codes, uniques = pd.factorize(series, use_na_sentinel=False)
-    text = pd.Series(uniques, dtype=object).map(str)
-    text = text.str.replace("\r\n", "\n", regex=False).str.replace("\r", "\n", regex=False)
-    lead = text.str.match(_TRIGGER_START).to_numpy(dtype=bool)
-    if lead.any():
-        text = text.where(~lead, "'" + text)
-    return pd.Series(text.to_numpy(dtype=object)[codes], index=series.index, dtype=object)
-
-
-def neutralise_one(value: str) -> str:
-    """``neutralise`` for a single text."""
-    return str(neutralise([value]).iat[0])
 
 
 def _utf16_len(text: str) -> int:
@@ -1071,7 +1041,7 @@ def _csv_key_warnings(sheets: Sequence[FileTable]) -> list[str]:
         if column not in (ITEM, LOCATION):
             continue
         values = pd.Series(keys.frame[column].unique(), dtype=object)
-        risky = values[values.str.match(_TRIGGER_START).to_numpy(dtype=bool)]
+        risky = values[values.str.match(FORMULA_START).to_numpy(dtype=bool)]
         if len(risky):
             out.append(
                 f"{len(risky)} {name} value(s) start with = + - @ or a control character "
@@ -1161,10 +1131,8 @@ def _xlsx_text(values: Sequence[str], column: str, issues: _XlsxIssues) -> list[
     out = list(values)
     for i, value in enumerate(out):
         # Most cells are short, plain text: the two checks below are skipped for them.
-        if _XLSX_ILLEGAL.search(value):
-            value = _XLSX_ILLEGAL.sub(
-                lambda m: chr(0x2400 + ord(m.group())) if m.group() < " " else "\ufffd", value
-            )
+        if XLSX_ILLEGAL.search(value):
+            value = xlsx_cell_text(value)
             issues.illegal[column] = issues.illegal.get(column, 0) + 1
         if 2 * len(value) > XLSX_MAX_CELL and _utf16_len(value) > XLSX_MAX_CELL:
             value = _cut(value, XLSX_MAX_CELL)

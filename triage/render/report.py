@@ -16,7 +16,6 @@ import html
 import io
 from collections.abc import Callable, Sequence
 from dataclasses import dataclass, field
-from datetime import datetime
 from functools import partial
 from pathlib import Path
 from typing import Any
@@ -31,7 +30,6 @@ from triage.core.ledger import Ledger
 from triage.core.portfolio import Portfolio
 from triage.core.report import (
     SUMMARY_BY,
-    TOP_DEFAULT,
     BiasBins,
     OffenderChart,
     ReportData,
@@ -822,26 +820,23 @@ def write_report(
     ledger: Ledger | None,
     target: str | Path | None = None,
     *,
-    window: int = 13,
-    season: int = 1,
-    target_share: float = 0.8,
-    repeat_n: int = 3,
-    repeat_m: int = 4,
-    top: int = TOP_DEFAULT,
-    generated_at: datetime | None = None,
     force: bool = True,
+    **gather: Any,
 ) -> ReportResult:
-    """Build the report and write it atomically (a reader never sees half a file).
+    """Gather the report (``build_report``), render it and write it atomically (a reader never
+    sees half a file).
 
     Args:
         portfolio: The current portfolio.
         ledger: The decision ledger (read-only is enough), or None.
         target: HTML file to write; default ``default_report_path(portfolio)``.
         force: Replace the file if it exists (``triage report`` passes its ``--force``).
+        **gather: ``build_report``'s settings (window, season, target share, N of M, top,
+            generation time).
 
     Raises:
         ReportError: The target is not an ``.html``/``.htm`` file (so never the portfolio or the
-            ledger).
+            ledger), or a setting is out of range.
         TriageError: The file exists and ``force`` is false, or it cannot be written
             (``files.write_atomic``).
     """
@@ -852,17 +847,7 @@ def write_report(
             hint="Pass --to NAME.html.",
         )
     refuse_existing([path], force=force)  # before the work, not only at the write
-    data = build_report(
-        portfolio,
-        ledger,
-        window=window,
-        season=season,
-        target_share=target_share,
-        repeat_n=repeat_n,
-        repeat_m=repeat_m,
-        top=top,
-        generated_at=generated_at,
-    )
+    data = build_report(portfolio, ledger, **gather)
     document = render_html(data)
     write_text_atomic(path, document, force=force)
     return ReportResult(path=path, data=data, bytes=len(document.encode("utf-8")))
