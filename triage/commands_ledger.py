@@ -142,7 +142,7 @@ def _like_input(args: argparse.Namespace, reading: dict[str, Any]) -> dict[str, 
     """``style=`` for ``export_review`` when ``--like-input`` asks for the file's conventions."""
     if not getattr(args, "like_input", False):
         return {}
-    from triage.core.export import CsvStyle
+    from triage.render.export import CsvStyle
 
     opts = reading.get("options")
     if opts is None:
@@ -250,7 +250,7 @@ def _lines(event: Event | AdjustmentEnd) -> list[dict[str, Any]]:
 
 
 def _history_json(path: Path, events: list[Event | AdjustmentEnd], args: argparse.Namespace) -> str:
-    from triage.core.export import dumps_json
+    from triage.render.export import dumps_json
 
     doc = {
         "ledger": str(path),
@@ -380,10 +380,11 @@ def _history_table(
 def cmd_export(args: argparse.Namespace) -> int:
     """``triage export``: decisions and adjusted forward forecast of a cycle, for upload."""
     from triage.core.config import default_reviewer
-    from triage.core.export import CAUTION, export_paths, export_review
+    from triage.core.export import CAUTION
     from triage.core.portfolio import read_portfolio
     from triage.core.rounding import parse_rounding
     from triage.core.text import visible
+    from triage.render.export import export_paths, export_review
 
     cycle = _check_cycle(args.cycle)
     # Defaults are core's (export_review): only what was given is passed on.

@@ -357,7 +357,7 @@ def _json(
     frame: pd.DataFrame,
     status: pd.DataFrame,
 ) -> str:
-    from triage.core.export import dumps_json
+    from triage.render.export import dumps_json
 
     doc = {
         "portfolio": str(portfolio.path),

@@ -25,10 +25,10 @@ from rich.table import Table
 from rich.text import Text
 
 from triage.core import metrics, ranking, schema
-from triage.core.export import dumps_json
 from triage.core.output import totals, window_info
 from triage.core.portfolio import Portfolio
 from triage.core.text import number, over_under, percent, visible
+from triage.render.export import dumps_json
 
 #: Rows a ``table`` shows when neither --top nor --cover is given.
 TABLE_DEFAULT_ROWS = 25

@@ -1164,7 +1164,7 @@ class TriageApp(App[None]):
     @work(thread=True, exclusive=True, exit_on_error=False, group="export")
     def export(self, target: Path) -> None:
         """Write the export off the UI thread (same core function as ``triage export``)."""
-        from triage.core.export import export_review
+        from triage.render.export import export_review
 
         session = self.session
         assert session is not None
