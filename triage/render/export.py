@@ -382,7 +382,8 @@ def _number_cells(array: np.ndarray) -> list[float | int | None]:
     whole[whole] = array[whole] == np.trunc(array[whole])
     if whole.any():
         cells[whole] = array[whole].astype(np.int64).astype(object)
-    return cells.tolist()
+    out: list[float | int | None] = cells.tolist()
+    return out
 
 
 def _csv_columns(frame: pd.DataFrame, kinds: Sequence[str], style: CsvStyle) -> list[list[Any]]:
@@ -574,7 +575,8 @@ def _xlsx_dates(sheet: Any, values: pd.Series) -> list[Any]:
     cells = [WriteOnlyCell(sheet, value=date.fromisoformat(str(v))) for v in uniques]
     for cell in cells:
         cell.number_format = XLSX_DATE_FORMAT
-    return np.array([*cells, None], dtype=object)[codes].tolist()
+    out: list[Any] = np.array([*cells, None], dtype=object)[codes].tolist()
+    return out
 
 
 def _xlsx_header(sheet: Any, table: FileTable, issues: _XlsxIssues) -> list[Any]:
@@ -609,7 +611,8 @@ def _xlsx_numbers(sheet: Any, array: np.ndarray) -> list[Any]:
             cell = WriteOnlyCell(sheet, value=repr(float(array[i])))
             cell.data_type = "n"
             cells[i] = cell
-    return cells.tolist()
+    out: list[Any] = cells.tolist()
+    return out
 
 
 def _write_xlsx(
