@@ -10,7 +10,8 @@ from textual.containers import VerticalScroll
 
 from tests.tui.conftest import wait_for, wait_loaded
 from triage.core import words
-from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, OUTCOMES
+from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, OUTCOMES, Choice
+from triage.tui import format as fmt
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.dialogs import HelpScreen
 
@@ -57,3 +58,12 @@ async def test_detail_pane_and_help_use_words_and_no_codes(tmp_path: Path) -> No
         await pilot.pause(0.3)
         help_text = help_screen.app.export_screenshot().replace("&#160;", " ")
         assert "Measures" in help_text and "AvgRelMAE" in help_text
+
+
+def test_screen_cause_label_is_made_visible() -> None:
+    # A configured label is shown through the terminal sanitiser like every other text, so a
+    # right-to-left override in it cannot reorder the line it is shown on.
+    causes = (Choice("odd", "Odd \u202eelbat"), Choice("plain", "Plain"))
+    assert fmt.cause_label("odd", causes) == "Odd \ufffdelbat"
+    assert fmt.cause_label("plain", causes) == "Plain"
+    assert fmt.cause_label("gone\x1b", causes) == "gone\u241b"
