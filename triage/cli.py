@@ -186,9 +186,9 @@ def _write_crash_log(exc: BaseException, argv: list[str], extra: str = "") -> Pa
 
 
 def _cmd_rank(args: argparse.Namespace) -> int:
-    from triage.core import output as report
     from triage.core.ranking import leading_cover, require_scorable, scorecard
     from triage.core.text import visible
+    from triage.render import scorecard as report
 
     # --cover is checked here; the configuration's target share does not apply to rank.
     settings = ScoreSettings.from_args(args)
@@ -227,8 +227,8 @@ def _cmd_rank(args: argparse.Namespace) -> int:
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from triage.core import output as report
     from triage.core.ranking import require_scorable
+    from triage.render import scorecard as report
 
     settings = ScoreSettings.from_args(args)
     # Several lags are reported (with the --lag choice), not refused.

@@ -108,7 +108,7 @@ def cmd_decide(args: argparse.Namespace) -> int:
     counts: dict[str, int] = {}
     for event in events:
         counts[event.outcome or ""] = counts.get(event.outcome or "", 0) + 1
-    from triage.core.ledger import outcome_label
+    from triage.core.vocabulary import outcome_label
 
     said = ", ".join(f"{n:,} {outcome_label(code).lower()}" for code, n in counts.items())
     replaced = sum(1 for row in checked if row.replaces)

@@ -135,7 +135,7 @@ def _like_input(args: argparse.Namespace, reading: dict[str, Any]) -> dict[str, 
     """``style=`` for ``export_review`` when ``--like-input`` asks for the file's conventions."""
     if not getattr(args, "like_input", False):
         return {}
-    from triage.core.export import CsvStyle
+    from triage.render.export import CsvStyle
 
     opts = reading.get("options")
     if opts is None:
@@ -237,7 +237,7 @@ def _lines(event: Event | AdjustmentEnd) -> list[dict[str, Any]]:
 
 
 def _history_json(path: Path, events: list[Event | AdjustmentEnd], args: argparse.Namespace) -> str:
-    from triage.core.export import dumps_json
+    from triage.render.export import dumps_json
 
     doc = {
         "ledger": str(path),
@@ -250,8 +250,7 @@ def _history_json(path: Path, events: list[Event | AdjustmentEnd], args: argpars
 
 
 def _history_csv(events: list[Event | AdjustmentEnd]) -> str:
-    from triage.core.export import neutralise_one
-    from triage.core.text import visible
+    from triage.core.text import neutralise_one, visible
 
     buffer = io.StringIO()
     writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")
@@ -282,10 +281,11 @@ def _history_table(
     from rich.table import Table
     from rich.text import Text
 
-    from triage.core.ledger import END, OUTCOMES, UNDO, AdjustmentEnd
+    from triage.core.ledger import END, UNDO, AdjustmentEnd
     from triage.core.text import visible
+    from triage.core.vocabulary import OUTCOMES, labels
 
-    outcomes = {c.code: c.label for c in OUTCOMES}
+    outcomes = labels(OUTCOMES)
     filters = [
         f"{name} {visible(value)!r}"
         for name, value in (("cycle", args.cycle), ("item", args.item), ("location", args.location))
@@ -368,10 +368,11 @@ def cmd_export(args: argparse.Namespace) -> int:
     """``triage export``: decisions and adjusted forward forecast of a cycle, for upload."""
     from triage.core.config import default_reviewer
     from triage.core.cycle import ReviewCycle
-    from triage.core.export import CAUTION, export_paths, export_review
+    from triage.core.export import CAUTION
     from triage.core.read import read_portfolio
     from triage.core.rounding import parse_rounding
     from triage.core.text import visible
+    from triage.render.export import export_paths, export_review
 
     cycle = _check_cycle(args.cycle)
     # Defaults are core's (export_review): only what was given is passed on.

@@ -37,6 +37,8 @@ from triage.core.errors import TriageError
 from triage.core.settings import REPEAT, TARGET_SHARE, ScoreSettings
 
 if TYPE_CHECKING:
+    from collections.abc import Callable
+
     import pandas as pd
 
     from triage.core.config import Config
@@ -124,8 +126,8 @@ def _ledger_path(args: argparse.Namespace, config: Config, *, required: bool) ->
 def cmd_report(args: argparse.Namespace) -> int:
     """``triage report``: write the HTML report and print its short summary."""
     from triage.core.cycle import ReviewCycle
-    from triage.core.report import summary_text, write_report
     from triage.core.text import visible
+    from triage.render.report import summary_text, write_report
 
     config = load_config_of(args)
     settings = ScoreSettings.from_args(args, config)
@@ -254,8 +256,7 @@ def _cell(value: Any) -> Any:
 
 
 def _csv(frame: pd.DataFrame) -> str:
-    from triage.core.export import neutralise_one
-    from triage.core.text import visible
+    from triage.core.text import neutralise_one, visible
 
     buffer = io.StringIO()
     writer = csv.writer(buffer, quoting=csv.QUOTE_NONNUMERIC, lineterminator="\n")
@@ -280,7 +281,7 @@ def _json(
     frame: pd.DataFrame,
     status: pd.DataFrame,
 ) -> str:
-    from triage.core.export import dumps_json
+    from triage.render.export import dumps_json
 
     doc = {
         "portfolio": str(portfolio.path),
@@ -312,8 +313,8 @@ def _table(
     from rich.text import Text
 
     from triage.core import history
-    from triage.core.report import fmt_int, fmt_money, fmt_pct, fmt_ratio, fmt_units
     from triage.core.text import longest_word, visible
+    from triage.render.report import fmt_int, fmt_money, fmt_pct, fmt_ratio, fmt_units
 
     realised = int(status.loc[status["status"] == history.REALISED, "lines"].sum())
     ahead = int(status.loc[status["status"] == history.AHEAD, "lines"].sum())
@@ -328,7 +329,7 @@ def _table(
     for row in missing.itertuples(index=False):
         header.append(f"{int(row.lines):,} periods not counted: {row.meaning}")
     table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
-    formats = {
+    formats: dict[str, Callable[[Any], str]] = {
         "share_helped": fmt_pct,
         "relative_value_added": lambda v: fmt_pct(v, signed=True),
         "avg_rel_mae": fmt_ratio,

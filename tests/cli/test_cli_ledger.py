@@ -285,7 +285,7 @@ def test_export_to_a_full_device_exits_2_with_a_message(folder: Path) -> None:
 # then runs the command line: what a disk that fills up during the export looks like.
 LIMITED_XLSX = """
 import resource, sys
-from triage.core import export
+from triage.render import export
 real = export._write_xlsx
 def limited(*args, **kwargs):
     resource.setrlimit(resource.RLIMIT_FSIZE, (BYTES, BYTES))

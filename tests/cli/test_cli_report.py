@@ -24,6 +24,7 @@ from triage.core.cycle import ReviewCycle
 from triage.core.ledger import Ledger
 from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
+from triage.render import report as page
 
 NEWEST = N_FILES - 1
 
@@ -88,10 +89,10 @@ def test_report_writes_the_default_file_and_prints_the_summary(scenario: CycleSc
     data = _core(scenario)
     cov = data.coverage
     assert (
-        f"Coverage: {cov.reviewed} of {cov.series} series reviewed, {report.fmt_pct(cov.covered)}"
+        f"Coverage: {cov.reviewed} of {cov.series} series reviewed, {page.fmt_pct(cov.covered)}"
         in result.stdout
     )
-    assert report.overall_sentence(data) in result.stdout
+    assert page.overall_sentence(data) in result.stdout
     assert "Caution: " in result.stdout
     assert "<title>" in target.read_text(encoding="utf-8")
 

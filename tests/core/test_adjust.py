@@ -27,6 +27,7 @@ from triage.core.adjust import (
     suggest,
 )
 from triage.core.errors import TriageError
+from triage.core.text import visible
 
 NAN = np.nan
 FORWARD = np.array([100.0, 95.0, NAN, 90.0, 80.0])
@@ -187,6 +188,18 @@ def test_control_characters_do_not_reach_the_message() -> None:
     with pytest.raises(AdjustSyntaxError) as caught:
         parse("\x1b]2;x\x07")
     assert "\x1b" not in str(caught.value) and "\x07" not in str(caught.value)
+
+
+def test_spec_is_shown_with_the_terminal_sanitiser_and_the_pointer_aligned() -> None:
+    # One sanitiser for the terminal (text.visible): ESC and a zero-width space are shown as the
+    # same symbols every other screen and message shows, one per character, so the caret under
+    # the bad character still points at it.
+    spec = "+1\x1b\u200b0x"
+    with pytest.raises(AdjustSyntaxError) as caught:
+        parse(spec)
+    lines = str(caught.value).splitlines()
+    assert lines[1] == f"  {visible(spec)}" == "  +1\u241b\ufffd0x"
+    assert lines[2].index("^") - 2 == caught.value.position
 
 
 # ---- applying ---------------------------------------------------------------------------------

@@ -1,5 +1,6 @@
-"""Rules of the code base that a test can hold: the core never imports the screens, and the
-linter and type checker pass (one command, ``pytest``, runs every check; common practice).
+"""Rules of the code base that a test can hold: the core never imports the screens nor the
+renderers, and the linter and type checker pass (one command, ``pytest``, runs every check;
+common practice).
 """
 
 from __future__ import annotations
@@ -27,6 +28,23 @@ def test_core_modules_import_no_textual_and_no_screens() -> None:
         "bad = sorted(m for m in sys.modules if m.split('.')[0] == 'textual'"
         " or m.startswith('triage.tui'))\n"
         "print(','.join(bad))\n"
+    )
+    result = subprocess.run(
+        [sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, timeout=120
+    )
+    assert result.returncode == 0, result.stderr
+    assert result.stdout.strip() == ""
+
+
+def test_core_modules_import_no_renderers() -> None:
+    # Renderers (triage.render) format and write what the core computes; the core never
+    # depends on them, so the model can change without a renderer in the way and back.
+    modules = [f"triage.core.{m.name}" for m in pkgutil.iter_modules(triage.core.__path__)]
+    code = (
+        "import importlib, sys\n"
+        f"for name in {modules!r}:\n"
+        "    importlib.import_module(name)\n"
+        "print(','.join(sorted(m for m in sys.modules if m.startswith('triage.render'))))\n"
     )
     result = subprocess.run(
         [sys.executable, "-c", code], capture_output=True, text=True, cwd=ROOT, timeout=120

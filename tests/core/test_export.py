@@ -27,15 +27,16 @@ import openpyxl
 import pytest
 from openpyxl.writer import excel
 
-from triage.core import export as export_mod
-from triage.core.config import numbered
 from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
-from triage.core.export import CAUTION, ExportError, export_review, review_tables
+from triage.core.export import CAUTION, ExportError, file_tables, review_tables
 from triage.core.ledger import Ledger
 from triage.core.portfolio import Portfolio
 from triage.core.read import read_portfolio
 from triage.core.rounding import MAX_DECIMALS
+from triage.core.vocabulary import numbered
+from triage.render import export as export_mod
+from triage.render.export import export_review
 
 HISTORY = ["2026-10-05", "2026-10-12", "2026-10-19", "2026-10-26"]
 FORWARD = ["2026-11-02", "2026-11-09", "2026-11-16"]
@@ -936,7 +937,7 @@ def test_csv_style_sets_separator_and_decimal_mark_in_one_place(
     scenario: dict, tmp_path: Path
 ) -> None:
     tables = review_tables(ReviewCycle(scenario["portfolio"], scenario["ledger"]))
-    _, forecast, _ = export_mod.file_tables(tables)
+    _, forecast, _ = file_tables(tables)
     style = export_mod.CsvStyle(sep=";", decimal=",")
     export_mod._write_csv(tmp_path / "semi.csv", forecast, style)
     export_mod._write_csv(tmp_path / "plain.csv", forecast)

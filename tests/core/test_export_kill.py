@@ -31,10 +31,10 @@ import pytest
 
 from tests.core import export_kill as kill
 from triage.core.cycle import ReviewCycle
-from triage.core.export import export_review
 from triage.core.ledger import Ledger
 from triage.core.portfolio import Portfolio
 from triage.core.read import read_portfolio
+from triage.render.export import export_review
 
 #: Audit events (PEP 578; CPython "Audit events table") that change the file system.
 CHANGES = frozenset(

@@ -35,7 +35,7 @@ from sample.cycles import (
     ExpectedLine,
     build_cycles,
 )
-from triage.core import history, schema
+from triage.core import history, schema, vocabulary
 from triage.core.cycle import ReviewCycle
 from triage.core.ledger import Ledger
 from triage.core.metrics import window_columns
@@ -474,7 +474,7 @@ def test_carried_over_are_open_series_still_among_the_worst(
     rank = worst.set_index(["item", "location"])["rank"]
     assert [rank[k] for k in keys] == sorted(rank[k] for k in keys)
     assert not carried["reviewed_now"].any()
-    assert set(carried["outcome"]) <= set(history.OPEN_OUTCOMES)
+    assert set(carried["outcome"]) <= set(vocabulary.OPEN_OUTCOMES)
     for role in scenario.not_carried:
         assert scenario.roles[role] not in keys
     by_position = history.carried_over(

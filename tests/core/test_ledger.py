@@ -17,7 +17,6 @@ from hypothesis.stateful import RuleBasedStateMachine, invariant, precondition, 
 
 from triage.core import config as config_mod
 from triage.core.config import (
-    DEFAULT_ROOT_CAUSES,
     ConfigError,
     default_reviewer,
     load_config,
@@ -27,7 +26,6 @@ from triage.core.ledger import (
     APPLICATION_ID,
     FOLDER_LEDGER,
     NOTE_MAX,
-    OUTCOMES,
     SCHEMA_VERSION,
     DecisionError,
     Ledger,
@@ -38,6 +36,7 @@ from triage.core.ledger import (
     default_ledger_path,
     locate_ledger,
 )
+from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, OUTCOMES
 
 CYCLE = "2026-11-23"
 NEXT_CYCLE = "2026-11-30"

@@ -17,7 +17,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from triage.core import output
+from triage.render import scorecard as output
 
 EDGES = [
     0.0,

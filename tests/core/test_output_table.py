@@ -11,9 +11,9 @@ from pathlib import Path
 
 import pytest
 
-from triage.core import output
 from triage.core.ranking import scorecard
 from triage.core.read import read_portfolio
+from triage.render import scorecard as output
 
 SAMPLE = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"
 

@@ -27,10 +27,12 @@ from triage.core import history, report
 from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.export import CAUTION
-from triage.core.ledger import OUTCOMES, Ledger
+from triage.core.ledger import Ledger
 from triage.core.ranking import scorecard
 from triage.core.read import read_portfolio
 from triage.core.review import ReviewSession
+from triage.core.vocabulary import OUTCOMES
+from triage.render import report as page
 
 NEWEST = N_FILES - 1
 STAMP = datetime(2027, 3, 2, 8, 30, tzinfo=UTC)
@@ -103,7 +105,7 @@ def parse(document: str) -> Tables:
 def number(cell: str) -> float:
     """A formatted cell back to a number: ``+1,234.5`` -> 1234.5, ``41.7%`` -> 0.417."""
     cell = cell.strip()
-    if cell == report.DASH:
+    if cell == page.DASH:
         return math.nan
     scale = 0.01 if cell.endswith("%") else 1.0
     return float(cell.rstrip("%").replace(",", "")) * scale
@@ -125,10 +127,10 @@ def scenario(tmp_path_factory: pytest.TempPathFactory) -> CycleScenario:
 
 
 @pytest.fixture(scope="module")
-def written(scenario: CycleScenario) -> tuple[report.ReportResult, Tables, str]:
+def written(scenario: CycleScenario) -> tuple[page.ReportResult, Tables, str]:
     portfolio = read_portfolio(scenario.files[NEWEST])
     with Ledger.open(scenario.ledger, read_only=True) as ledger:
-        result = report.write_report(
+        result = page.write_report(
             ReviewCycle(portfolio, ledger),
             scenario.ledger.parent / "weekly.html",
             generated_at=STAMP,
@@ -138,7 +140,7 @@ def written(scenario: CycleScenario) -> tuple[report.ReportResult, Tables, str]:
 
 
 def test_report_file_is_written_with_title_and_caution(
-    written: tuple[report.ReportResult, Tables, str],
+    written: tuple[page.ReportResult, Tables, str],
 ) -> None:
     result, tables, document = written
     assert result.bytes == len(document.encode("utf-8"))
@@ -149,7 +151,7 @@ def test_report_file_is_written_with_title_and_caution(
     assert result.data.caution == CAUTION
 
 
-def test_report_is_self_contained(written: tuple[report.ReportResult, Tables, str]) -> None:
+def test_report_is_self_contained(written: tuple[page.ReportResult, Tables, str]) -> None:
     _, tables, document = written
     assert not any(
         tag in ("script", "link", "iframe", "object", "embed", "img") for tag, _ in tables.tags
@@ -169,7 +171,7 @@ def test_report_is_self_contained(written: tuple[report.ReportResult, Tables, st
 
 
 def test_coverage_decisions_and_fva_tables(
-    written: tuple[report.ReportResult, Tables, str], scenario: CycleScenario
+    written: tuple[page.ReportResult, Tables, str], scenario: CycleScenario
 ) -> None:
     result, tables, _ = written
     data = result.data
@@ -217,7 +219,7 @@ def test_coverage_decisions_and_fva_tables(
     )
 
 
-def test_bias_histogram_table_and_numpy(written: tuple[report.ReportResult, Tables, str]) -> None:
+def test_bias_histogram_table_and_numpy(written: tuple[page.ReportResult, Tables, str]) -> None:
     result, tables, _ = written
     bins = result.data.bias
     rows = tables.tables["bias-table"][1:]
@@ -235,7 +237,7 @@ def test_bias_histogram_table_and_numpy(written: tuple[report.ReportResult, Tabl
     assert bins.counts[-1] == int((finite >= 1.0).sum())
 
 
-def test_top_offenders_table_and_charts(written: tuple[report.ReportResult, Tables, str]) -> None:
+def test_top_offenders_table_and_charts(written: tuple[page.ReportResult, Tables, str]) -> None:
     result, tables, document = written
     data = result.data
     rows = tables.tables["top-table"][1:]
@@ -255,7 +257,7 @@ def test_top_offenders_table_and_charts(written: tuple[report.ReportResult, Tabl
     assert document.count("<figure><figcaption>#") == len(data.charts)
 
 
-def test_repeat_carried_and_active_tables(written: tuple[report.ReportResult, Tables, str]) -> None:
+def test_repeat_carried_and_active_tables(written: tuple[page.ReportResult, Tables, str]) -> None:
     result, tables, _ = written
     data = result.data
     flagged = data.repeat.loc[data.repeat["repeat"]]
@@ -290,7 +292,7 @@ def test_repeat_carried_and_active_tables(written: tuple[report.ReportResult, Ta
 
 @pytest.mark.parametrize("name", list(report.SUMMARY_BY))
 def test_realised_breakdowns_equal_summarise(
-    written: tuple[report.ReportResult, Tables, str], name: str
+    written: tuple[page.ReportResult, Tables, str], name: str
 ) -> None:
     result, tables, _ = written
     data = result.data
@@ -315,7 +317,7 @@ def test_realised_breakdowns_equal_summarise(
 
 
 def test_realised_lines_status_and_sentences(
-    written: tuple[report.ReportResult, Tables, str], scenario: CycleScenario
+    written: tuple[page.ReportResult, Tables, str], scenario: CycleScenario
 ) -> None:
     result, tables, _ = written
     data = result.data
@@ -355,21 +357,21 @@ def test_realised_lines_status_and_sentences(
 
 
 def test_summary_text_uses_the_same_figures(
-    written: tuple[report.ReportResult, Tables, str],
+    written: tuple[page.ReportResult, Tables, str],
 ) -> None:
     result, _, _ = written
     data = result.data
-    text = report.summary_text(data, result.path)
+    text = page.summary_text(data, result.path)
     cov = data.coverage
     assert (
-        f"Coverage: {cov.reviewed} of {cov.series} series reviewed, {report.fmt_pct(cov.covered)}"
+        f"Coverage: {cov.reviewed} of {cov.series} series reviewed, {page.fmt_pct(cov.covered)}"
         in text
     )
     assert f"Repeat offenders: {int(data.repeat['repeat'].sum())} series" in text
     assert (
         f"Active adjustments: {len(data.active)} with {int(data.active['remaining'].sum())}" in text
     )
-    assert report.overall_sentence(data) in text
+    assert page.overall_sentence(data) in text
     assert text.rstrip().endswith(CAUTION)
 
 
@@ -423,7 +425,7 @@ def test_data_text_is_escaped(tmp_path: Path) -> None:
     _, second, ledger_path = hostile_files(tmp_path)
     portfolio = read_portfolio(second)
     with Ledger.open(ledger_path, read_only=True) as ledger:
-        result = report.write_report(ReviewCycle(portfolio, ledger), tmp_path / "r.html")
+        result = page.write_report(ReviewCycle(portfolio, ledger), tmp_path / "r.html")
     document = result.path.read_text(encoding="utf-8")
     assert "<script" not in document.lower()
     assert "<img" not in document.lower()
@@ -451,12 +453,12 @@ def test_bad_targets_leave_everything_unchanged(scenario: CycleScenario, tmp_pat
     before = scenario.files[NEWEST].read_bytes()
     with Ledger.open(scenario.ledger, read_only=True) as ledger:
         with pytest.raises(report.ReportError, match=r"does not end in \.html"):
-            report.write_report(ReviewCycle(portfolio, ledger), tmp_path / "r.txt")
+            page.write_report(ReviewCycle(portfolio, ledger), tmp_path / "r.txt")
         # The portfolio itself is never a target: it is not an .html file.
         with pytest.raises(report.ReportError, match=r"does not end in \.html"):
-            report.write_report(ReviewCycle(portfolio, ledger), scenario.files[NEWEST])
+            page.write_report(ReviewCycle(portfolio, ledger), scenario.files[NEWEST])
         with pytest.raises(TriageError, match="cannot write"):
-            report.write_report(ReviewCycle(portfolio, ledger), tmp_path / "missing" / "r.html")
+            page.write_report(ReviewCycle(portfolio, ledger), tmp_path / "missing" / "r.html")
         with pytest.raises(report.ReportError, match="top offenders"):
             report.build_report(ReviewCycle(portfolio, ledger), top=0)
     assert scenario.files[NEWEST].read_bytes() == before
@@ -467,10 +469,10 @@ def test_bad_targets_leave_everything_unchanged(scenario: CycleScenario, tmp_pat
 def test_long_tables_are_cut_with_a_note(
     scenario: CycleScenario, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
-    monkeypatch.setattr(report, "TABLE_MAX", 2)
+    monkeypatch.setattr(page, "TABLE_MAX", 2)
     portfolio = read_portfolio(scenario.files[NEWEST])
     with Ledger.open(scenario.ledger, read_only=True) as ledger:
-        result = report.write_report(ReviewCycle(portfolio, ledger), tmp_path / "cut.html")
+        result = page.write_report(ReviewCycle(portfolio, ledger), tmp_path / "cut.html")
     document = result.path.read_text(encoding="utf-8")
     tables = parse(document)
     flagged = int(result.data.repeat["repeat"].sum())
@@ -490,7 +492,7 @@ def test_default_target_is_beside_the_portfolio(scenario: CycleScenario) -> None
 
 def test_report_without_a_ledger(scenario: CycleScenario, tmp_path: Path) -> None:
     portfolio = read_portfolio(scenario.files[NEWEST])
-    result = report.write_report(ReviewCycle(portfolio, None), tmp_path / "plain.html")
+    result = page.write_report(ReviewCycle(portfolio, None), tmp_path / "plain.html")
     tables = parse(result.path.read_text(encoding="utf-8"))
     rows = {r[0]: r[1] for r in tables.tables["coverage-table"][1:]}
     assert number(rows["Series reviewed this cycle"]) == 0
@@ -551,7 +553,7 @@ def render_png(
     _browser() is None, reason="Chromium is not installed (.ci/run installs it from Debian)"
 )
 def test_report_renders_in_a_real_browser(
-    written: tuple[report.ReportResult, Tables, str], tmp_path: Path
+    written: tuple[page.ReportResult, Tables, str], tmp_path: Path
 ) -> None:
     from matplotlib import image
 

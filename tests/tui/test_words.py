@@ -9,14 +9,14 @@ from pathlib import Path
 from textual.containers import VerticalScroll
 
 from tests.tui.conftest import wait_for, wait_loaded
-from triage.core import ledger as ledger_mod
 from triage.core import words
-from triage.core.config import DEFAULT_ROOT_CAUSES
+from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, OUTCOMES, Choice
+from triage.tui import format as fmt
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.dialogs import HelpScreen
 
 ROOT = Path(__file__).resolve().parents[2]
-CODES = [c.code for c in ledger_mod.OUTCOMES if "_" in c.code] + [
+CODES = [c.code for c in OUTCOMES if "_" in c.code] + [
     c.code for c in DEFAULT_ROOT_CAUSES if "_" in c.code
 ]
 
@@ -58,3 +58,12 @@ async def test_detail_pane_and_help_use_words_and_no_codes(tmp_path: Path) -> No
         await pilot.pause(0.3)
         help_text = help_screen.app.export_screenshot().replace("&#160;", " ")
         assert "Measures" in help_text and "AvgRelMAE" in help_text
+
+
+def test_screen_cause_label_is_made_visible() -> None:
+    # A configured label is shown through the terminal sanitiser like every other text, so a
+    # right-to-left override in it cannot reorder the line it is shown on.
+    causes = (Choice("odd", "Odd \u202eelbat"), Choice("plain", "Plain"))
+    assert fmt.cause_label("odd", causes) == "Odd \ufffdelbat"
+    assert fmt.cause_label("plain", causes) == "Plain"
+    assert fmt.cause_label("gone\x1b", causes) == "gone\u241b"

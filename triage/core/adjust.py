@@ -35,6 +35,7 @@ import numpy as np
 from numpy.typing import ArrayLike
 
 from triage.core.errors import TriageError
+from triage.core.text import visible
 
 SET = "set"
 PERCENT = "percent"
@@ -82,16 +83,12 @@ class AdjustSyntaxError(AdjustError):
     def __init__(self, spec: str, position: int, problem: str) -> None:
         self.spec = spec
         self.position = position
-        shown = _printable(spec)
+        # One visible symbol per character (``text.visible``), so the pointer line stays aligned.
+        shown = visible(spec)
         pointer = " " * (position + 2) + "^"
         super().__init__(
             f'Cannot read the adjustment "{shown}": {problem}\n  {shown}\n{pointer}\n{EXPECTED}.'
         )
-
-
-def _printable(text: str) -> str:
-    """The text with control characters shown as ``?``, so the pointer line stays aligned."""
-    return "".join("?" if (ord(ch) < 32 or 0x7F <= ord(ch) < 0xA0) else ch for ch in text)
 
 
 def _fmt(value: float) -> str:

@@ -1,4 +1,4 @@
-"""The optional user configuration file and the vocabulary of root causes.
+"""The optional user configuration file (reviewer, root causes, target share).
 
 The file is TOML, read from ``--config PATH`` or from ``config.toml`` in the user config folder
 (``platformdirs.user_config_dir("triage")``). Every key is optional::
@@ -11,7 +11,8 @@ The file is TOML, read from ``--config PATH`` or from ``config.toml`` in the use
     promo = "Promotion or event"
     big_order = "One-off large order"
 
-Root causes are offered in list order; the first ten get the digit shortcuts 1-9 and 0.
+Root causes are offered in list order; the first ten get the digit shortcuts 1-9 and 0. The
+default list and the outcomes are in ``triage.core.vocabulary``.
 """
 
 from __future__ import annotations
@@ -26,13 +27,11 @@ from typing import Any
 
 from triage.core.errors import TriageError
 from triage.core.settings import TARGET_SHARE, is_share
+from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, Choice, numbered
 
 CONFIG_NAME = "config.toml"
 #: Largest configuration file read, in bytes.
 CONFIG_MAX_BYTES = 1 << 20
-
-#: Digits offered as shortcuts, in list order ("0" is the tenth entry, as on a keyboard row).
-SHORTCUT_DIGITS = "1234567890"
 
 _CODE = re.compile(r"[a-z][a-z0-9_]{0,31}")
 _LABEL_MAX = 60
@@ -51,43 +50,6 @@ class ConfigError(TriageError):
         self.key = key
         where = f"{path}: key '{key}'" if key else str(path)
         super().__init__(f"{where}: {message}", hint=hint)
-
-
-@dataclass(frozen=True)
-class Choice:
-    """One entry of a fixed vocabulary (an outcome or a root cause)."""
-
-    code: str
-    """Stable identifier stored in the ledger (lower case, ``[a-z][a-z0-9_]*``)."""
-    label: str
-    """Words shown to the reviewer."""
-    key: str = ""
-    """Digit shortcut (``"1"``..``"9"``, ``"0"``), or empty when the list has more than ten."""
-
-
-def numbered(pairs: tuple[tuple[str, str], ...] | list[tuple[str, str]]) -> tuple[Choice, ...]:
-    """Build choices from ``(code, label)`` pairs, giving the first ten their digit shortcuts."""
-    return tuple(
-        Choice(code, label, SHORTCUT_DIGITS[i] if i < len(SHORTCUT_DIGITS) else "")
-        for i, (code, label) in enumerate(pairs)
-    )
-
-
-#: Root causes a planner recognises, most frequent first so the common ones sit on 1-4.
-DEFAULT_ROOT_CAUSES: tuple[Choice, ...] = numbered(
-    (
-        ("promotion", "Promotion or event"),
-        ("large_order", "One-off large order"),
-        ("stock_out", "Stock-out hid demand"),
-        ("new_item", "New item ramp-up"),
-        ("phase_out", "Phase-out"),
-        ("price_change", "Price change"),
-        ("season_trend", "Seasonality or trend shift"),
-        ("data_error", "Data error (returns, master data)"),
-        ("model_miss", "Model miss"),
-        ("unknown", "Unknown"),
-    )
-)
 
 
 @dataclass(frozen=True)

@@ -18,10 +18,10 @@ from pathlib import Path
 
 from triage.core import ledger as ledger_mod
 from triage.core.adjust import AdjustError
-from triage.core.config import Choice
 from triage.core.errors import TriageError
 from triage.core.review import ReviewSession
 from triage.core.text import visible
+from triage.core.vocabulary import ADJUSTED, OUTCOMES, Choice
 
 #: Columns a decisions file may have; ``item`` and ``outcome`` are required, ``location`` too
 #: when the portfolio has locations.
@@ -182,7 +182,7 @@ def check_batch(
         dupes = sorted({h for h in header if header.count(h) > 1})
         raise BatchError(f"the decisions file names a column twice: {visible(', '.join(dupes))}.")
     at = {name: header.index(name) for name in COLUMNS if name in header}
-    outcomes = _lookup(ledger_mod.OUTCOMES)
+    outcomes = _lookup(OUTCOMES)
     causes = _lookup(root_causes)
     default_cause = "unknown" if "unknown" in {c.code for c in root_causes} else None
     errors: list[str] = []
@@ -214,7 +214,7 @@ def check_batch(
         if outcome is None:
             errors.append(
                 f"{where}: outcome {visible(outcome_text)!r} is not one of "
-                + ", ".join(c.code for c in ledger_mod.OUTCOMES)
+                + ", ".join(c.code for c in OUTCOMES)
             )
             continue
         cause_text = cell(row, "root_cause").strip()
@@ -228,10 +228,10 @@ def check_batch(
             )
             continue
         spec = cell(row, "adjustment").strip()
-        if outcome == ledger_mod.ADJUSTED and not spec:
+        if outcome == ADJUSTED and not spec:
             errors.append(f"{where}: outcome 'adjusted' needs an adjustment")
             continue
-        if spec and outcome != ledger_mod.ADJUSTED:
+        if spec and outcome != ADJUSTED:
             errors.append(f"{where}: an adjustment goes with outcome 'adjusted' only")
             continue
         try:

@@ -43,11 +43,20 @@ import numpy as np
 import pandas as pd
 
 from triage.core import adjust, metrics, ranking, schema
-from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
 from triage.core.errors import TriageError
-from triage.core.ledger import ADJUSTED, OUTCOMES, SETTLED, AdjustmentEnd, Decision, Ledger
+from triage.core.ledger import AdjustmentEnd, Decision, Ledger
 from triage.core.portfolio import Portfolio
 from triage.core.settings import REPEAT, SEASON, TARGET_SHARE, WINDOW
+from triage.core.vocabulary import (
+    ADJUSTED,
+    DEFAULT_ROOT_CAUSES,
+    DEFERRED,
+    HANDED_OFF,
+    OPEN_OUTCOMES,
+    OUTCOMES,
+    SETTLED,
+    Choice,
+)
 
 UP = "up"
 DOWN = "down"
@@ -98,9 +107,6 @@ STATUS_TEXT = {
     NO_FORECAST: "original or adjusted forecast missing",
     ENDED: "a reviewer ended the adjustment before this period",
 }
-
-#: Outcomes that leave a series open for a later cycle.
-OPEN_OUTCOMES = ("handed_off", "deferred")
 
 REALISED_COLUMNS: tuple[str, ...] = (
     "cycle",
@@ -1028,8 +1034,8 @@ def coverage(
         worst=int(worst_mask.sum()),
         worst_reviewed=int((worst_mask & done).sum()),
         not_in_portfolio=int((everyone < 0).sum()),
-        handed_off=sum(d.outcome == "handed_off" for d in decided),
-        deferred=sum(d.outcome == "deferred" for d in decided),
+        handed_off=sum(d.outcome == HANDED_OFF for d in decided),
+        deferred=sum(d.outcome == DEFERRED for d in decided),
     )
 
 

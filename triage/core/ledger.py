@@ -39,8 +39,10 @@ from pathlib import Path
 from typing import Any
 from urllib.parse import quote
 
-from triage.core.config import DEFAULT_ROOT_CAUSES, Choice, numbered
 from triage.core.errors import TriageError
+from triage.core.vocabulary import ADJUSTED, DEFAULT_ROOT_CAUSES, OUTCOMES, Choice
+from triage.core.vocabulary import SETTLED as SETTLED  # read as ledger.SETTLED by core/review.py
+from triage.core.vocabulary import outcome_label as outcome_label  # and ledger.outcome_label
 
 #: ``PRAGMA application_id`` of a triage ledger (the bytes ``TRLG``), so other tools and triage
 #: itself can tell the file apart from any other SQLite database.
@@ -60,29 +62,6 @@ UNDO = "undo"
 #: restores one ended by mistake.
 END = "end"
 RESTORE = "restore"
-
-#: What a reviewer concluded about a series, in shortcut order.
-OUTCOMES: tuple[Choice, ...] = numbered(
-    (
-        ("no_change", "No change needed"),
-        ("adjusted", "Forward forecast adjusted"),
-        ("handed_off", "Handed to someone else to resolve"),
-        ("deferred", "Put off to a later cycle"),
-    )
-)
-ADJUSTED = "adjusted"
-
-
-def outcome_label(code: str | None) -> str:
-    """The words for an outcome code (never the code itself on a screen or in a report)."""
-    for choice in OUTCOMES:
-        if choice.code == code:
-            return choice.label
-    return str(code or "")
-
-
-#: Outcomes that settle a series for the cycle; handed-off and put-off ones are still open.
-SETTLED: tuple[str, ...] = ("no_change", ADJUSTED)
 
 _ISO_DATE = re.compile(r"\d{4}-\d{2}-\d{2}")
 

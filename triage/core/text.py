@@ -1,4 +1,7 @@
-"""Making text from files and the ledger safe to show in a terminal.
+"""Everything shown or written as text: the terminal sanitiser, the spreadsheet sanitiser and
+the number formatter (one owner each).
+
+**Terminal** (``visible``): text from files and the ledger made safe to show in a terminal.
 
 Control characters (C0, DEL, C1) could restyle the screen, set the terminal title or write the
 clipboard (OSC 52); bidirectional controls reorder what follows them on the line. They are shown
@@ -10,9 +13,26 @@ tag characters) are shown as U+FFFD too: two ids that differ only by one would o
 same, and terminals disagree on how wide a joined emoji sequence is, so a list would shift its
 columns. The line and paragraph separators (U+2028, U+2029) are shown as U+2424. Only what is
 shown changes: machine-readable output keeps the text exactly.
+
+**Spreadsheets** (``neutralise``, ``xlsx_cell_text``): free text written to CSV or xlsx cannot
+start a formula, and control characters a workbook cannot store are shown as the same symbols
+``visible`` uses (docs/export.md).
+
+**Numbers** (``number``, ``count``, ``percent``, ``ratio``, ``over_under``, ``compact``): how a
+person reads a figure on a terminal, a review screen or the report. Each renderer chooses the
+decimals and what stands for an undefined value (empty on a terminal, ``DASH`` in the report);
+the rule (thousands separators, sign, percent of a fraction) is here once.
 """
 
 from __future__ import annotations
+
+import math
+import re
+from collections.abc import Sequence
+from typing import TYPE_CHECKING
+
+if TYPE_CHECKING:
+    import pandas as pd
 
 #: Bidirectional formatting characters (Unicode UAX #9: ALM, LRM, RLM, LRE..RLO, LRI..PDI). The
 #: loader keeps them in ids (with a notice); shown raw they reorder the rest of a table row.
@@ -95,3 +115,145 @@ def longest_word(text: str) -> int:
     """Characters in the longest word of ``text``: a table column at least this wide never
     breaks its heading inside a word."""
     return max((len(word) for word in text.split()), default=0)
+
+
+# --------------------------------------------------------------------------------------------
+# Spreadsheets
+
+#: First characters that make a spreadsheet read a cell as a formula. OWASP "CSV Injection"
+#: lists = + - @ Tab and CR, and Line Feed since August 2025 (OWASP/www-community PR #1116);
+#: OWASP ASVS 5.0 V1.2.10 adds NUL (reliability.md §2.1).
+FORMULA_TRIGGERS = "=+-@\t\r\n\0"
+#: Matches text that starts with a formula trigger.
+FORMULA_START = re.compile(r"[=+\-@\t\r\n\x00]")
+
+
+def neutralise(values: pd.Series | Sequence[str]) -> pd.Series:
+    """Free text made safe to open in a spreadsheet, as object Series of str.
+
+    CR LF and bare CR become LF (one line-break convention, and no bare CR for the CSV writer
+    of CPython < 3.11.9 to leave unquoted, reliability.md §2.3). Text starting with a formula
+    trigger (``FORMULA_TRIGGERS``) gets a leading apostrophe, the neutralisation OWASP "CSV
+    Injection" gives and Symfony uses since CVE-2021-41270; a tab or space prefix would not do.
+    Quotes and separators inside the text are left to the CSV writer's quoting.
+    """
+    import pandas as pd
+
+    series = pd.Series(values, dtype=object)
+    if series.empty:
+        return series
+    # Work on the distinct values: long columns (the forecast table's outcome) repeat a few.
+    codes, uniques = pd.factorize(series, use_na_sentinel=False)
+    text = pd.Series(uniques, dtype=object).map(str)
+    text = text.str.replace("\r\n", "\n", regex=False).str.replace("\r", "\n", regex=False)
+    lead = text.str.match(FORMULA_START).to_numpy(dtype=bool)
+    if lead.any():
+        text = text.where(~lead, "'" + text)
+    return pd.Series(text.to_numpy(dtype=object)[codes], index=series.index, dtype=object)
+
+
+def neutralise_one(value: str) -> str:
+    """``neutralise`` for a single text."""
+    return str(neutralise([value]).iat[0])
+
+
+#: Characters an xlsx file cannot hold: openpyxl's ``ILLEGAL_CHARACTERS_RE`` (C0 controls but
+#: tab, LF and CR), plus U+FFFE and U+FFFF, which XML 1.0 does not allow either.
+XLSX_ILLEGAL = re.compile("[\x00-\x08\x0b\x0c\x0e-\x1f\ufffe\uffff]")
+#: What stands for each of them: the terminal's control pictures (``CONTROL_TABLE``), U+FFFD
+#: for the two non-characters.
+_XLSX_TABLE: dict[int, str] = {
+    code: CONTROL_TABLE.get(code, "\ufffd")
+    for code in (*range(0x09), 0x0B, 0x0C, *range(0x0E, 0x20), 0xFFFE, 0xFFFF)
+}
+
+
+def xlsx_cell_text(text: str) -> str:
+    """``text`` with the characters an xlsx cell cannot hold (``XLSX_ILLEGAL``) replaced by
+    visible symbols; everything else is kept."""
+    return text.translate(_XLSX_TABLE)
+
+
+# --------------------------------------------------------------------------------------------
+# Numbers
+
+#: Shown for an undefined number where an empty cell would look like a gap (the report).
+DASH = "\u2013"
+
+
+def undefined(value: float | None) -> bool:
+    """None or NaN: a figure that has no value (never shown as zero)."""
+    if value is None:
+        return True
+    try:
+        return math.isnan(value)
+    except TypeError:
+        return False
+
+
+def number(
+    value: float | None, decimals: int = 0, *, signed: bool = False, missing: str = ""
+) -> str:
+    """``1,234`` / ``1,234.5`` (``+1,234.5`` when ``signed``); ``missing`` when undefined."""
+    if undefined(value):
+        return missing
+    return f"{value:{'+' if signed else ''},.{decimals}f}"
+
+
+def count(value: float | None, *, missing: str = "") -> str:
+    """A whole number with thousands separators: ``1,234``; ``missing`` when undefined."""
+    if value is None or undefined(value):
+        return missing
+    return f"{int(value):,}"
+
+
+def percent(
+    value: float | None, decimals: int = 1, *, signed: bool = False, missing: str = ""
+) -> str:
+    """A fraction as a percentage: ``0.4167`` -> ``41.7%``; ``missing`` when undefined."""
+    if value is None or undefined(value):
+        return missing
+    return f"{value * 100:{'+' if signed else ''}.{decimals}f}%"
+
+
+def ratio(value: float | None, decimals: int = 3, *, missing: str = "") -> str:
+    """A ratio without separators: ``0.912``; ``missing`` when undefined."""
+    if undefined(value):
+        return missing
+    return f"{value:.{decimals}f}"
+
+
+def over_under(
+    value: float | None, decimals: int = 0, *, fraction: bool = False, plain_zero: bool = False
+) -> str:
+    """A signed figure with its direction in words: ``+1,234 over`` / ``-8.0% under``.
+
+    Args:
+        value: Units (``fraction`` false) or a fraction shown as a percentage.
+        decimals: Digits after the point.
+        fraction: Show ``value`` as a percentage.
+        plain_zero: Show zero without a sign (``0.0%``) rather than ``+0.0%``.
+
+    Empty when undefined. Over and under differ in words, never only in colour.
+    """
+    if value is None or undefined(value):
+        return ""
+    if plain_zero and value == 0:
+        return percent(0.0, decimals) if fraction else number(0.0, decimals)
+    word = " over" if value > 0 else " under" if value < 0 else ""
+    shown = (
+        percent(value, decimals, signed=True) if fraction else number(value, decimals, signed=True)
+    )
+    return shown + word
+
+
+def compact(value: float | None) -> str:
+    """``1,234`` / ``12.3k`` / ``4.5M``: short numbers for narrow columns; empty when undefined."""
+    if value is None or undefined(value):
+        return ""
+    size = abs(value)
+    if size >= 10_000_000:
+        return f"{value / 1e6:.1f}M"
+    if size >= 100_000:
+        return f"{value / 1e3:.0f}k"
+    return f"{value:,.0f}"

@@ -9,6 +9,8 @@ from __future__ import annotations
 
 import math
 
+from triage.core.text import number
+
 #: One-line meanings of the measures a planner meets on screen (detail pane and help).
 MEANINGS = {
     "MASE": "error against a naive forecast's typical miss; below 1 beats naive",
@@ -33,8 +35,8 @@ def against_naive(units: float, per: str = "") -> str:
     if round(units, 1) == 0:
         return "as good as naive"
     if units > 0:
-        return f"beat naive by {abs(units):,.1f} units{per}"
-    return f"{abs(units):,.1f} units{per} worse than naive"
+        return f"beat naive by {number(abs(units), 1)} units{per}"
+    return f"{number(abs(units), 1)} units{per} worse than naive"
 
 
 def mix_effect(units: float, value: float) -> str:

@@ -22,14 +22,14 @@ from textual.widgets import Footer, ProgressBar, Static
 from textual.worker import Worker, WorkerState
 
 from triage.core import ledger as ledger_mod
-from triage.core import schema, words
-from triage.core.config import DEFAULT_ROOT_CAUSES, Choice
+from triage.core import schema, vocabulary, words
 from triage.core.cycle import ReviewCycle
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
 from triage.core.settings import ScoreSettings
 from triage.core.text import visible
+from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, Choice
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
 from triage.tui.messages import Ended, Exported, Loaded, LoadStep, Saved, SaveFailed
@@ -104,9 +104,9 @@ class TriageApp(App[None]):
         ),
         Binding(
             "c",
-            "quick('no_change')",
+            f"quick('{vocabulary.NO_CHANGE}')",
             "No change",
-            id="review.no_change",
+            id=f"review.{vocabulary.NO_CHANGE}",
             tooltip="Record 'no change needed' with the chosen root cause",
         ),
         Binding(
@@ -152,18 +152,18 @@ class TriageApp(App[None]):
         ),
         Binding(
             "h",
-            "quick('handed_off')",
+            f"quick('{vocabulary.HANDED_OFF}')",
             "Hand off",
             show=False,
-            id="review.handed_off",
+            id=f"review.{vocabulary.HANDED_OFF}",
             tooltip="Record 'handed to someone else'",
         ),
         Binding(
             "l",
-            "quick('deferred')",
+            f"quick('{vocabulary.DEFERRED}')",
             "Later",
             show=False,
-            id="review.deferred",
+            id=f"review.{vocabulary.DEFERRED}",
             tooltip="Record 'put off to a later cycle'",
         ),
         Binding(
@@ -818,11 +818,11 @@ class TriageApp(App[None]):
             draft = replace(kept, expected_version=version)
         elif base is not None:
             draft = draft_of(base, series, version)
-            if outcome == ledger_mod.ADJUSTED:
+            if outcome == vocabulary.ADJUSTED:
                 # a (or s) means "adjust": the dialog opens on the adjustment field.
                 draft = replace(
                     draft,
-                    outcome=ledger_mod.ADJUSTED,
+                    outcome=vocabulary.ADJUSTED,
                     adjustment=draft.adjustment or adjustment,
                 )
         else:
@@ -853,12 +853,12 @@ class TriageApp(App[None]):
     async def action_decide(self) -> None:
         series = self._q(SeriesList).current
         if series is not None and self.session is not None:
-            await self._open_dialog(series, outcome=ledger_mod.OUTCOMES[0].code)
+            await self._open_dialog(series, outcome=vocabulary.OUTCOMES[0].code)
 
     async def action_adjust(self) -> None:
         series = self._q(SeriesList).current
         if series is not None and self.session is not None:
-            await self._open_dialog(series, outcome=ledger_mod.ADJUSTED)
+            await self._open_dialog(series, outcome=vocabulary.ADJUSTED)
 
     async def action_take_suggestion(self) -> None:
         session = self.session
@@ -869,7 +869,7 @@ class TriageApp(App[None]):
         if not spec:
             self._status("no suggested adjustment for this series")
             return
-        await self._open_dialog(series, outcome=ledger_mod.ADJUSTED, adjustment=spec)
+        await self._open_dialog(series, outcome=vocabulary.ADJUSTED, adjustment=spec)
 
     def _confirm_other_reviewer(self, series: int, what: str, then: Callable[[], None]) -> None:
         """Run ``then`` at once, or after a yes when another reviewer's decision would change."""
@@ -1159,7 +1159,7 @@ class TriageApp(App[None]):
     @work(thread=True, exclusive=True, exit_on_error=False, group="export")
     def export(self, target: Path) -> None:
         """Write the export off the UI thread (same core function as ``triage export``)."""
-        from triage.core.export import export_review
+        from triage.render.export import export_review
 
         session = self.session
         assert session is not None

@@ -2,50 +2,34 @@
 
 from __future__ import annotations
 
-import math
 import unicodedata
 from typing import TYPE_CHECKING, Literal
 
 import numpy as np
 from textual.binding import Binding
 
-from triage.core.text import visible
+from triage.core import vocabulary
+from triage.core.text import compact as compact  # the screens call it fmt.compact
+from triage.core.text import over_under, percent, visible
 from triage.tui.widgets.series_list import Cell, Column
 
 if TYPE_CHECKING:
     from textual.app import App
 
-    from triage.core.config import Choice
+    from triage.core.vocabulary import Choice
 
 BLOCKS = "▁▂▃▄▅▆▇█"
 MISSING = "·"
 #: Periods drawn in the list's inline chart.
 SPARK_PERIODS = 6
 
-OUTCOME_SHORT = {
-    "no_change": "no change",
-    "adjusted": "adjusted",
-    "handed_off": "handed off",
-    "deferred": "later",
-    "": "",
-}
+OUTCOME_SHORT = {**vocabulary.OUTCOME_SHORT, "": ""}
 #: An earlier cycle's open or closed decision, shown while this cycle has none.
-PAST_TINY = {
-    "no_change": "↺ ok",
-    "adjusted": "↺ adj",
-    "handed_off": "↺ hand",
-    "deferred": "↺ later",
-}
+PAST_TINY = {code: f"↺ {word}" for code, word in vocabulary.OUTCOME_TINY.items()}
 #: An earlier cycle's adjustment still carried into this cycle's export (``session.carries``).
-CARRIED_TINY = "⇢ adj"
+CARRIED_TINY = f"⇢ {vocabulary.OUTCOME_TINY[vocabulary.ADJUSTED]}"
 #: The review column's words, short enough for an 80-column terminal.
-OUTCOME_TINY = {
-    "no_change": "✓ ok",
-    "adjusted": "✓ adj",
-    "handed_off": "✓ hand",
-    "deferred": "✓ later",
-    "": "·",
-}
+OUTCOME_TINY = {**{code: f"✓ {word}" for code, word in vocabulary.OUTCOME_TINY.items()}, "": "·"}
 PATTERN_SHORT = {
     "smooth": "smooth",
     "erratic": "erratic",
@@ -125,32 +109,16 @@ def _marks_apart(text: str) -> str:
     return "".join(f"\u25cc{ch}" if unicodedata.combining(ch) else ch for ch in text)
 
 
-def pct(value: float, digits: int = 1) -> str:
-    """``12.3%``; empty when undefined."""
-    return "" if value is None or math.isnan(value) else f"{value * 100:.{digits}f}%"
-
-
-def compact(value: float) -> str:
-    """``1,234`` / ``12.3k`` / ``4.5M``: short numbers for narrow columns."""
-    if value is None or math.isnan(value):
-        return ""
-    size = abs(value)
-    if size >= 10_000_000:
-        return f"{value / 1e6:.1f}M"
-    if size >= 100_000:
-        return f"{value / 1e3:.0f}k"
-    return f"{value:,.0f}"
+#: ``12.3%``; empty when undefined (``text.percent``).
+pct = percent
 
 
 def signed_pct(value: float) -> Cell:
     """``+12.3% over`` with a style name: over and under differ in words, not only colour."""
-    if value is None or math.isnan(value):
+    shown = over_under(value, 1, fraction=True, plain_zero=True)
+    if not shown:
         return ("", None)
-    if value > 0:
-        return (f"+{value * 100:.1f}% over", "over")
-    if value < 0:
-        return (f"{value * 100:.1f}% under", "under")
-    return ("0.0%", None)
+    return (shown, "over" if value > 0 else "under" if value < 0 else None)
 
 
 def sparkline(demand: np.ndarray, forecast: np.ndarray) -> str:
@@ -197,18 +165,14 @@ def when(recorded_at: str) -> str:
 
 
 def outcome_label(code: str | None) -> str:
-    """The words for an outcome code (the ledger's vocabulary), made safe to show."""
-    from triage.core.ledger import outcome_label as label
-
-    return visible(label(code))
+    """The words for an outcome code (``triage.core.vocabulary``), made safe to show."""
+    return visible(vocabulary.outcome_label(code))
 
 
 def cause_label(code: str | None, causes: tuple[Choice, ...]) -> str:
-    """The words for a root-cause code from the configured list (the code if it is gone)."""
-    for choice in causes:
-        if choice.code == code:
-            return choice.label
-    return visible(str(code or ""))
+    """The words for a root-cause code from the configured list (the code if it is gone), made
+    safe to show."""
+    return visible(vocabulary.label_of(code, causes))
 
 
 #: Longest notification, in characters: a message quoting a huge cell must not fill the screen.

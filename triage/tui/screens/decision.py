@@ -18,12 +18,11 @@ from textual.containers import Horizontal, Vertical, VerticalScroll
 from textual.widgets import Input, OptionList, Static, TextArea
 from textual.widgets.option_list import Option
 
-from triage.core import ledger as ledger_mod
 from triage.core.adjust import AdjustError
-from triage.core.config import Choice
 from triage.core.ledger import Event
 from triage.core.review import ReviewSession
 from triage.core.text import visible
+from triage.core.vocabulary import ADJUSTED, OUTCOMES, Choice
 from triage.tui import format as fmt
 from triage.tui.screens.base import Dialog
 from triage.tui.screens.dialogs import ConfirmScreen
@@ -69,7 +68,7 @@ def draft_of(event: Event, series: int, version: int) -> Draft:
     """The dialog's fields for a recorded decision."""
     return Draft(
         series=series,
-        outcome=event.outcome or ledger_mod.OUTCOMES[0].code,
+        outcome=event.outcome or OUTCOMES[0].code,
         root_cause=event.root_cause or "unknown",
         note=event.note,
         adjustment=event.adjustment or "",
@@ -135,7 +134,7 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
         self._series = draft.series
         self._draft = draft
         self._causes = causes
-        self._outcomes = ledger_mod.OUTCOMES
+        self._outcomes = OUTCOMES
         self._base = base
         self._kept = kept
         # The note as the editor shows it: control characters (an ESC from a file) as symbols.
@@ -224,7 +223,7 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
             whole=main_chart.whole, clip=main_chart.clip
         )
         self._preview(self._draft.adjustment)
-        if self._draft.outcome == ledger_mod.ADJUSTED:
+        if self._draft.outcome == ADJUSTED:
             self.query_one("#decision-adjust", Input).focus()
         else:
             outcome_list.focus()
@@ -245,7 +244,7 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
     def _adjust_changed(self, event: Input.Changed) -> None:
         self._preview(event.value)
         if event.value.strip():
-            self._select_outcome(ledger_mod.ADJUSTED)
+            self._select_outcome(ADJUSTED)
 
     def _select_outcome(self, code: str) -> None:
         self.query_one("#decision-outcome", OptionList).highlighted = [
@@ -311,11 +310,11 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
 
     def action_save(self) -> None:
         draft = self._current()
-        if draft.outcome == ledger_mod.ADJUSTED and not draft.adjustment:
+        if draft.outcome == ADJUSTED and not draft.adjustment:
             self._refuse("outcome 'adjusted' needs an adjustment: type one above")
             self.query_one("#decision-adjust", Input).focus()
             return
-        if draft.adjustment and draft.outcome != ledger_mod.ADJUSTED:
+        if draft.adjustment and draft.outcome != ADJUSTED:
             self._refuse("an adjustment is typed: choose outcome 'adjusted' or clear it")
             return
         if draft.adjustment:

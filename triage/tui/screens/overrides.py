@@ -15,7 +15,8 @@ from textual.containers import Vertical, VerticalScroll
 from textual.widgets import Static
 
 from triage.core import words
-from triage.core.config import Choice
+from triage.core.text import number, percent
+from triage.core.vocabulary import Choice
 from triage.tui import format as fmt
 from triage.tui.screens.base import Dialog
 
@@ -26,14 +27,6 @@ TITLES = {
     "root_cause": "by root cause",
     "cycle": "by review cycle",
 }
-
-
-def _num(value: float, fmt: str = ",.1f") -> str:
-    return (
-        ""
-        if value is None or (isinstance(value, float) and math.isnan(value))
-        else format(value, fmt)
-    )
 
 
 def summary_table(
@@ -65,14 +58,10 @@ def summary_table(
             str(int(rec["adjustments"])),
             str(int(rec["decisions"])),
             str(int(rec["helped"])),
-            _num(rec["share_helped"] * 100, ".0f") + "%"
-            if not math.isnan(rec["share_helped"])
-            else "",
-            _num(rec["value_added"], "+,.1f"),
-            *([_num(rec["value_added_value"], "+,.0f")] if priced else []),
-            _num(rec["relative_value_added"] * 100, "+.1f") + "%"
-            if not math.isnan(rec["relative_value_added"])
-            else "",
+            percent(rec["share_helped"], 0),
+            number(rec["value_added"], 1, signed=True),
+            *([number(rec["value_added_value"], signed=True)] if priced else []),
+            percent(rec["relative_value_added"], signed=True),
         )
     return table
 
