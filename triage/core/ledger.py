@@ -41,8 +41,6 @@ from urllib.parse import quote
 
 from triage.core.errors import TriageError
 from triage.core.vocabulary import ADJUSTED, DEFAULT_ROOT_CAUSES, OUTCOMES, Choice
-from triage.core.vocabulary import SETTLED as SETTLED  # read as ledger.SETTLED by core/review.py
-from triage.core.vocabulary import outcome_label as outcome_label  # and ledger.outcome_label
 
 #: ``PRAGMA application_id`` of a triage ledger (the bytes ``TRLG``), so other tools and triage
 #: itself can tell the file apart from any other SQLite database.

@@ -17,7 +17,7 @@ from typing import Protocol
 import numpy as np
 import pandas as pd
 
-from triage.core import adjust, history, schema
+from triage.core import adjust, history, schema, vocabulary
 from triage.core import ledger as ledger_mod
 from triage.core.cycle import ReviewCycle
 from triage.core.ledger import AdjustmentEnd, Event, Ledger
@@ -580,13 +580,13 @@ class ReviewSession:
 
     def _adjusted_now(self, series: int) -> set[str]:
         """Periods this cycle's effective decision of the series adjusts (empty when none)."""
-        if self.outcome[series] != ledger_mod.ADJUSTED or self.ledger is None:
+        if self.outcome[series] != vocabulary.ADJUSTED or self.ledger is None:
             return set()
         item, location = self.key(series)
         events = self.ledger.history(cycle=self.cycle, item=item, location=location)
         undone = {e.undoes for e in events if e.kind == ledger_mod.UNDO}
         standing = [e for e in events if e.kind == ledger_mod.DECISION and e.id not in undone]
-        if not standing or standing[-1].outcome != ledger_mod.ADJUSTED:
+        if not standing or standing[-1].outcome != vocabulary.ADJUSTED:
             return set()
         return {ln.period for ln in standing[-1].lines}
 
@@ -741,7 +741,7 @@ class ReviewSession:
 
         Handed-off and put-off series are counted apart: they still need someone's review.
         """
-        done = np.isin(self.outcome, ledger_mod.SETTLED)
+        done = np.isin(self.outcome, vocabulary.SETTLED)
         total = float(self.error.sum())
         covered = float(self.error[done].sum()) / total if total > 0 else math.nan
         to_target = 0
@@ -875,7 +875,7 @@ class ReviewSession:
             )
         if self.past_outcome[series]:
             carried = " and still in the worst set: carried over" if self.carried[series] else ""
-            outcome = ledger_mod.outcome_label(self.past_outcome[series]).lower()
+            outcome = vocabulary.outcome_label(self.past_outcome[series]).lower()
             lines.append(f"last decided {self.past_cycle[series]}: {outcome}{carried}")
         return lines
 
