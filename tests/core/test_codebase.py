@@ -53,6 +53,42 @@ def test_core_modules_import_no_renderers() -> None:
     assert result.stdout.strip() == ""
 
 
+#: Modules that take a review cycle (and the cycle itself): the model below them never
+#: imports them, so the cycle is assembled in one place (DEVELOPERS.md, "Architecture").
+CYCLE_AND_ABOVE = frozenset(
+    {"triage.core.cycle", "triage.core.review", "triage.core.export", "triage.core.report"}
+    | {"triage.core.decide"}
+)
+
+
+def _imported(path: Path) -> set[str]:
+    """Every ``triage...`` module a file imports, at its top or inside a function."""
+    import ast
+
+    names: set[str] = set()
+    for node in ast.walk(ast.parse(path.read_text(encoding="utf-8"))):
+        if isinstance(node, ast.Import):
+            names.update(a.name for a in node.names)
+        elif isinstance(node, ast.ImportFrom) and node.module and not node.level:
+            names.add(node.module)
+            names.update(f"{node.module}.{a.name}" for a in node.names)
+    return {n for n in names if n.startswith("triage.")}
+
+
+def test_the_model_below_the_cycle_never_imports_it() -> None:
+    core = ROOT / "triage" / "core"
+    files = [
+        p
+        for p in core.rglob("*.py")
+        if p.stem not in {m.rsplit(".", 1)[1] for m in CYCLE_AND_ABOVE} or p.parent != core
+    ]
+    assert len(files) >= 20
+    offending = {str(p.relative_to(ROOT)): sorted(_imported(p) & CYCLE_AND_ABOVE) for p in files}
+    assert {k: v for k, v in offending.items() if v} == {}
+    # And the test can see an import where there is one.
+    assert "triage.core.cycle" in _imported(core / "review.py")
+
+
 def test_ruff_lint_and_format() -> None:
     # Configuration in pyproject.toml ([tool.ruff]).
     for args in (
