@@ -24,8 +24,7 @@ def test_outputs_are_byte_for_byte_the_golden_copies(outputs: dict[str, str]) ->
     changed = [
         name
         for name, text in outputs.items()
-        if not golden_path(name).exists()
-        or golden_path(name).read_bytes() != text.encode("utf-8")
+        if not golden_path(name).exists() or golden_path(name).read_bytes() != text.encode("utf-8")
     ]
     assert not changed, f"outputs differ from tests/cli/golden: {changed}"
 

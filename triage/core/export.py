@@ -1017,7 +1017,8 @@ def _number_cells(array: np.ndarray) -> list[float | int | None]:
     whole[whole] = array[whole] == np.trunc(array[whole])
     if whole.any():
         cells[whole] = array[whole].astype(np.int64).astype(object)
-    return cells.tolist()
+    numbers: list[float | int | None] = cells.tolist()
+    return numbers
 
 
 def _csv_columns(frame: pd.DataFrame, kinds: Sequence[str], style: CsvStyle) -> list[list[Any]]:
@@ -1211,7 +1212,8 @@ def _xlsx_dates(sheet: Any, values: pd.Series) -> list[Any]:
     cells = [WriteOnlyCell(sheet, value=date.fromisoformat(str(v))) for v in uniques]
     for cell in cells:
         cell.number_format = XLSX_DATE_FORMAT
-    return np.array([*cells, None], dtype=object)[codes].tolist()
+    by_row: list[Any] = np.array([*cells, None], dtype=object)[codes].tolist()
+    return by_row
 
 
 def _xlsx_header(sheet: Any, table: FileTable, issues: _XlsxIssues) -> list[Any]:
@@ -1246,7 +1248,8 @@ def _xlsx_numbers(sheet: Any, array: np.ndarray) -> list[Any]:
             cell = WriteOnlyCell(sheet, value=repr(float(array[i])))
             cell.data_type = "n"
             cells[i] = cell
-    return cells.tolist()
+    by_row: list[Any] = cells.tolist()
+    return by_row
 
 
 def _write_xlsx(

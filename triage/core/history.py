@@ -758,9 +758,10 @@ def in_forecast(forecast: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
     forecast = np.asarray(forecast, dtype=np.float64)
     adjusted = np.asarray(adjusted, dtype=np.float64)
     with np.errstate(invalid="ignore"):
-        return np.isclose(
+        close: np.ndarray = np.isclose(
             forecast, adjusted, rtol=IN_FORECAST_RELATIVE, atol=IN_FORECAST_UNITS, equal_nan=False
         )
+    return close
 
 
 def carried_adjustments(

@@ -393,9 +393,12 @@ class ReviewSession:
             return False
 
     def _indexer(self, pairs: list[tuple[str, str]]) -> np.ndarray:
+        positions: np.ndarray
         if isinstance(self._key_index, pd.MultiIndex):
-            return self._key_index.get_indexer(pd.MultiIndex.from_tuples(pairs))
-        return self._key_index.get_indexer([p[0] for p in pairs])
+            positions = self._key_index.get_indexer(pd.MultiIndex.from_tuples(pairs))
+        else:
+            positions = self._key_index.get_indexer([p[0] for p in pairs])
+        return positions
 
     @property
     def can_save(self) -> bool:
@@ -713,8 +716,10 @@ class ReviewSession:
         return extra + tuple(self.portfolio.attributes) + FILTER_FIELDS
 
     def _field(self, field: str) -> np.ndarray:
+        values: np.ndarray
         if field == "pattern":
-            return self.card["pattern"].to_numpy(dtype=object)
+            values = self.card["pattern"].to_numpy(dtype=object)
+            return values
         if field == "flag":
             return np.where(
                 self.card["bias_flag"].to_numpy(dtype=object) == "",
@@ -728,7 +733,8 @@ class ReviewSession:
         if field == "carried":
             return np.where(self.carried, "yes", "no")
         if field in self.portfolio.keys.columns:
-            return self.portfolio.keys[field].to_numpy(dtype=object)
+            values = self.portfolio.keys[field].to_numpy(dtype=object)
+            return values
         raise KeyError(field)
 
     def order(
