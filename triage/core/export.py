@@ -17,18 +17,18 @@ there, by ``triage.core.rounding`` (the one rule; the ledger keeps what was deci
 mapped them, and the forecast long or wide. Every writer reads those same ``FileTable`` objects,
 so CSV, xlsx and JSON hold the same columns and numbers.
 
-Safety rules (reliability.md §2, OWASP "CSV Injection",
-https://owasp.org/www-community/attacks/CSV_Injection):
+Safety rules (OWASP "CSV Injection", https://owasp.org/www-community/attacks/CSV_Injection;
+docs/sources.md §6):
 
 * Free-text cells (notes, codes, labels, reviewer, adjustment, portfolio name) that begin with a
   formula trigger get a leading apostrophe in CSV and xlsx. Series keys are never changed: they
   must join back in the planning system byte for byte. Numbers stay numbers.
 * CSV is written with ``csv.QUOTE_NONNUMERIC`` and notes have CR / CRLF turned into LF: CPython
   before 3.11.9 writes a field holding a bare CR unquoted, which splits the row on reading
-  (reliability.md §2.3, measured on 3.11.7).
+  (CPython gh-67044, measured on 3.11.7; docs/sources.md §6.3).
 * xlsx text is always a string cell, never a formula, error value or hyperlink; control
   characters xlsx cannot store are replaced by visible symbols; the row and cell-length limits of
-  a sheet are checked here, never left to the library (reliability.md §2.4).
+  a sheet are checked here, never left to the library (docs/sources.md §6.4).
 * Files are written all or nothing, also under kill -9 (``triage.core.files``): a file through
   a scratch folder and one rename; the three files of a CSV export in one folder that replaces
   the old one in one step. An existing file or folder is kept unless ``force``; a failed export
@@ -87,12 +87,12 @@ CAUTION = (
 
 #: First characters that make a spreadsheet read a cell as a formula. OWASP "CSV Injection"
 #: lists = + - @ Tab and CR, and Line Feed since August 2025 (OWASP/www-community PR #1116);
-#: OWASP ASVS 5.0 V1.2.10 adds NUL (reliability.md §2.1).
+#: OWASP ASVS 5.0 V1.2.10 adds NUL (docs/sources.md §6.1).
 FORMULA_TRIGGERS = "=+-@\t\r\n\0"
 _TRIGGER_START = re.compile(r"[=+\-@\t\r\n\x00]")
 
-#: Rows in an Excel sheet, header included (Excel specifications and limits; reliability.md
-#: §2.4: pandas + xlsxwriter silently dropped the last row at exactly this size, measured).
+#: Rows in an Excel sheet, header included (Microsoft, "Excel specifications and limits"; pandas
+#: + xlsxwriter silently dropped the last row at exactly this size, docs/sources.md §6.4).
 XLSX_MAX_ROWS = 1_048_576
 #: Characters in one Excel cell (UTF-16 code units). openpyxl cuts longer text silently.
 XLSX_MAX_CELL = 32_767
@@ -323,7 +323,7 @@ def neutralise(values: pd.Series | Sequence[str]) -> pd.Series:
     """Free text made safe to open in a spreadsheet, as object Series of str.
 
     CR LF and bare CR become LF (one line-break convention, and no bare CR for the CSV writer
-    of CPython < 3.11.9 to leave unquoted, reliability.md §2.3). Text starting with a formula
+    of CPython < 3.11.9 to leave unquoted, docs/sources.md §6.3). Text starting with a formula
     trigger (``FORMULA_TRIGGERS``) gets a leading apostrophe, the neutralisation OWASP "CSV
     Injection" gives and Symfony uses since CVE-2021-41270; a tab or space prefix would not do.
     Quotes and separators inside the text are left to the CSV writer's quoting.
@@ -1048,7 +1048,7 @@ def _write_csv(path: Path, table: FileTable, style: CsvStyle = CSV_STYLE) -> Non
     """One table as RFC 4180 CSV, UTF-8 without BOM, CRLF between records.
 
     QUOTE_NONNUMERIC quotes every text field (so a bare CR or a separator inside one can never
-    split a row, reliability.md §2.3) and leaves numbers unquoted: a whole number as an integer,
+    split a row, docs/sources.md §6.3) and leaves numbers unquoted: a whole number as an integer,
     any other with ``repr`` (the shortest text that reads back as the same float); a missing
     number is ``""``. ``style`` sets the separator and decimal mark (``CsvStyle``).
     """
@@ -1375,7 +1375,7 @@ def _as_string_cell(sheet: Any, value: str) -> Any:
     """The value, or a string cell where openpyxl would otherwise not store it as text.
 
     openpyxl stores ``"=..."`` as a formula and ``"#N/A"`` as an error value; setting data type
-    ``"s"`` writes the text as an inline string (reliability.md §2.2, measured).
+    ``"s"`` writes the text as an inline string (measured, docs/sources.md §6.2).
     """
     from openpyxl.cell import WriteOnlyCell
 
@@ -1427,7 +1427,7 @@ def _json_columns(frame: pd.DataFrame, kinds: Sequence[str]) -> list[list[Any]]:
 def dumps_json(value: Any, *, indent: int | None = None) -> str:
     """JSON text that decodes to exactly ``value`` and is safe to print on a terminal.
 
-    ``allow_nan=False``: NaN and Infinity are not JSON (RFC 8259; reliability.md §2.5), so a NaN
+    ``allow_nan=False``: NaN and Infinity are not JSON (RFC 8259 §6; docs/sources.md §6.5), so a NaN
     that was not turned into None is a bug and raises. C0 controls are escaped by ``json``
     itself; DEL and C1 are escaped here (see ``_JSON_ESCAPES``).
     """
