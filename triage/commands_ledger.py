@@ -3,7 +3,7 @@
 Both open the ledger read-only, so neither can change a decision. Every problem is raised as a
 ``TriageError``; ``triage.cli.main`` prints it as ``triage: <message>`` on stderr, exit 2.
 Text from the ledger reaches the terminal through ``visible`` and Rich ``Text`` objects only,
-never as markup (reliability.md §3.1, §3.2).
+never as markup (docs/sources.md §7.1, §7.2).
 """
 
 from __future__ import annotations
@@ -265,7 +265,7 @@ def _history_csv(events: list[Event | AdjustmentEnd]) -> str:
                 # Keys exactly as stored, but never raw control bytes on a terminal.
                 row.append(visible(value))
             else:
-                # Same text rules as the CSV export (OWASP CSV Injection; reliability.md §2.3).
+                # Same text rules as the CSV export (OWASP CSV Injection; docs/sources.md §6.1).
                 row.append(visible(neutralise_one(value or ""), multiline=True))
         writer.writerow(row)
     return buffer.getvalue()

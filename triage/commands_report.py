@@ -3,8 +3,8 @@
 Both open the ledger read-only and only read the portfolio; the report is the one file written,
 atomically. Every problem is raised as a ``TriageError``; ``triage.cli.main`` prints it as
 ``triage: <message>`` on stderr, exit 2. Ledger text reaches the terminal only through
-``visible`` and Rich ``Text`` objects (reliability.md §3), and CSV text cells are neutralised
-against formula injection like every other export (reliability.md §2).
+``visible`` and Rich ``Text`` objects (docs/sources.md §7), and CSV text cells are neutralised
+against formula injection like every other export (docs/sources.md §6.1).
 """
 
 from __future__ import annotations

@@ -97,8 +97,8 @@ CASES: dict[str, tuple[bytes, tuple[str, ...]]] = {
         ("nothing to score",),
     ),
     # 30,000 one-row series spread over three centuries: 108M cells for 30k rows (the arrays
-    # would need 1.7 GB); refused before they are allocated (reliability.md: bad input must not
-    # exhaust memory).
+    # would need 1.7 GB); refused before they are allocated (bad input must not exhaust memory,
+    # docs/sources.md §8.4).
     "sparse calendar": (
         (
             HEADER

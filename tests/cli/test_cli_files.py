@@ -1,6 +1,6 @@
 """What ``triage`` writes, where, and what it shows of names it did not choose.
 
-Reliability rules (`reliability.md`, "formula and terminal injection"; common practice for
+Reliability rules (docs/sources.md §5 and §7; common practice for
 command-line tools): an output option never destroys the input it reads, a folder given as an
 output file is refused with a message, and text from the file system (a file name) reaches the
 terminal without its control characters. A file column named like a computed column keeps its

@@ -270,7 +270,7 @@ def test_overrides_csv_neutralises_formula_text(tmp_path: Path) -> None:
     assert result.returncode == 0, result.stderr
     assert "\x1b" not in result.stdout
     rows = list(csv.DictReader(io.StringIO(result.stdout)))
-    # OWASP "CSV Injection": a leading formula trigger gets an apostrophe (reliability.md §2).
+    # OWASP "CSV Injection": a leading formula trigger gets an apostrophe (docs/sources.md §6.1).
     assert rows[0]["reviewer"].startswith("'@evil")
     detail = run("overrides", str(path), "--detail", "--format", "csv", cwd=tmp_path)
     row = next(csv.DictReader(io.StringIO(detail.stdout)))

@@ -81,7 +81,7 @@ def cmd_fsize(path: str, *margins: str) -> None:
         for margin in margins:
             size = max(f.stat().st_size for f in files if f.exists())
             # CPython ignores SIGXFSZ, so a write past the limit fails with EFBIG instead of
-            # killing the process (reliability.md §5, disk full (a), measured).
+            # killing the process (docs/sources.md §4.5, measured).
             resource.setrlimit(resource.RLIMIT_FSIZE, (size + int(margin), hard))
             for _ in range(5000):
                 item = f"fs-{margin}-{n}"

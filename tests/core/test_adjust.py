@@ -2,7 +2,7 @@
 
 Expected values are worked by hand next to each check (arithmetic on the numbers shown). The
 bias correction is checked against statsmodels' ``bias`` (mean of x1 − x2): after it, the
-window bias in the project's sign convention (forecast − demand, forecast-methods.md §0) is 0.
+window bias in the project's sign convention (forecast − demand, docs/sources.md §1.1) is 0.
 """
 
 from __future__ import annotations
@@ -409,7 +409,7 @@ def test_suggest_examples() -> None:
     run_ = np.array([9, -4, 3, 2, 5, 1, 6])
     periods = np.array([13, 13, 13, 13, 13, 13, 13])
     specs, reasons = suggest(bias, demand, forecast, flag, run_, periods)
-    # 100/123 = 0.813 → x0.81; Bias % = Σ(F−A)/ΣA = 23/100 (forecast-methods.md §1)
+    # 100/123 = 0.813 → x0.81; Bias % = Σ(F−A)/ΣA = 23/100 (docs/sources.md §1.2)
     assert specs[0] == "x0.81"
     assert reasons[0] == "over-forecast by 23% over 13 periods (9 running); scale forward by 0.81"
     assert specs[1] == "x1.11"  # 100/90 = 1.111

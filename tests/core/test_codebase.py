@@ -6,6 +6,7 @@ common practice).
 from __future__ import annotations
 
 import pkgutil
+import re
 import subprocess
 import sys
 from pathlib import Path
@@ -115,3 +116,89 @@ def test_mypy() -> None:
         timeout=600,
     )
     assert result.returncode == 0, result.stdout + result.stderr
+
+
+# ---- sources are cited inside the repository -------------------------------------------------
+
+#: Notes that once lived beside the repository, and the folder they lived in. A newcomer cannot
+#: open them, so a citation names the published source or a page in docs/ (docs/sources.md).
+OUTSIDE_NOTES = re.compile(
+    r"reliability\.md|reliability §|forecast-methods|methods reference|performance-notes"
+    r"|STYLE\.md|shared/reference|\.\./shared|/work/shared",
+    re.IGNORECASE,
+)
+#: A Markdown file named anywhere in a comment, a docstring or a page.
+MARKDOWN_NAME = re.compile(r"(?<![\w./-])((?:\.{1,2}/)*[\w-]+(?:/[\w.-]+)*\.md)\b")
+#: A path that climbs out of the folder it is written in.
+CLIMBING_PATH = re.compile(r"(?<![\w.])(?:\.\./)+[\w.-]+(?:/[\w.-]+)*")
+#: A pointer into docs/sources.md and the sections it names (§4.2, §7.1-§7.2, §5 and §7).
+SOURCES_POINTER = re.compile(r"docs/sources\.md`?((?:[ ,;:-]*(?:and )?§\d+(?:\.\d+)?)+)")
+SOURCES_HEADING = re.compile(r"^#{2,3} (\d+(?:\.\d+)?)\.? ", re.MULTILINE)
+
+
+def _text_files() -> list[Path]:
+    """The repository's own source and documentation files (tracked by git when it can tell)."""
+    suffixes = {".py", ".md", ".toml", ".cfg", ".ini", ".sh"}
+    try:
+        listed = subprocess.run(
+            ["git", "ls-files", "-z"], capture_output=True, cwd=ROOT, timeout=60, check=True
+        ).stdout.decode()
+        files = [ROOT / name for name in listed.split("\0") if name]
+    except (OSError, subprocess.SubprocessError):
+        roots = [ROOT / name for name in ("triage", "tests", "sample", "docs", ".ci")]
+        files = [p for r in roots for p in r.rglob("*") if ".venv" not in p.parts]
+        files += [ROOT / "README.md", ROOT / "DEVELOPERS.md", ROOT / "pyproject.toml"]
+    own = Path(__file__).resolve()
+    return sorted(
+        p
+        for p in files
+        if p.is_file()
+        and p.resolve() != own
+        and (p.suffix in suffixes or p.parent.name == ".ci")
+        and "golden" not in p.relative_to(ROOT).parts
+    )
+
+
+def test_no_citation_of_notes_outside_the_repository() -> None:
+    found = []
+    for path in _text_files():
+        for number, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
+            if OUTSIDE_NOTES.search(line):
+                found.append(f"{path.relative_to(ROOT)}:{number}: {line.strip()}")
+            for climb in CLIMBING_PATH.findall(line):
+                target = (path.parent / climb).resolve()
+                if not target.is_relative_to(ROOT):
+                    found.append(f"{path.relative_to(ROOT)}:{number}: {climb} leaves the repo")
+    assert not found, "cite the published source or docs/sources.md instead:\n" + "\n".join(found)
+
+
+def test_every_markdown_file_named_exists() -> None:
+    # A name is looked up beside the file that names it, then from the repository root
+    # (docs/metrics.md, sample/README.md), then as a page in docs/ ("keys.md" in a docs page).
+    missing = []
+    for path in _text_files():
+        for number, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
+            for name in MARKDOWN_NAME.findall(line):
+                places = (path.parent / name, ROOT / name, ROOT / "docs" / name)
+                if not any(p.resolve().is_relative_to(ROOT) and p.is_file() for p in places):
+                    missing.append(f"{path.relative_to(ROOT)}:{number}: {name}")
+    assert not missing, "files named but not in the repository:\n" + "\n".join(missing)
+
+
+def test_every_section_of_docs_sources_pointed_at_exists() -> None:
+    sources = ROOT / "docs" / "sources.md"
+    text = sources.read_text(encoding="utf-8")
+    sections = set(SOURCES_HEADING.findall(text))
+    assert {"1", "1.1", "4.2", "8.1"} <= sections
+    missing = []
+    for path in _text_files():
+        for number, line in enumerate(path.read_text(encoding="utf-8").splitlines(), 1):
+            for pointer in SOURCES_POINTER.findall(line):
+                for section in re.findall(r"§(\d+(?:\.\d+)?)", pointer):
+                    if section not in sections:
+                        missing.append(f"{path.relative_to(ROOT)}:{number}: §{section}")
+    assert not missing, "docs/sources.md has no such section:\n" + "\n".join(missing)
+    # The files docs/sources.md names as users of a fact exist.
+    named = re.findall(r"`((?:triage|tests|docs|sample)/[\w./-]+\.\w+)`", text)
+    assert named
+    assert [n for n in named if not (ROOT / n).is_file()] == []

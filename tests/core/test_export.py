@@ -3,7 +3,7 @@
 The expected values are built here from the rows written to the portfolio file and the lines
 recorded in the ledger, not from the export code. Safety checks follow OWASP "CSV Injection"
 (https://owasp.org/www-community/attacks/CSV_Injection: no text cell may begin with = + - @ Tab
-CR, LF since 2025) and the measured facts of reliability.md §2 (openpyxl data types, the bare-CR
+CR, LF since 2025) and the measured facts of docs/sources.md §6 (openpyxl data types, the bare-CR
 CSV bug of CPython < 3.11.9, Excel's row and cell limits).
 """
 
@@ -56,7 +56,7 @@ SPECIAL = [
 ]
 
 # note -> (expected text in CSV, expected text in xlsx). The prefix rule is OWASP's; CR and
-# CRLF become LF (reliability.md §2.3); xlsx cannot hold C0 controls other than tab/LF/CR, so
+# CRLF become LF (docs/sources.md §6.3); xlsx cannot hold C0 controls other than tab/LF/CR, so
 # they become the control pictures U+2400+code.
 HOSTILE: dict[str, tuple[str, str, str]] = {
     "H01": ("=1+2", "'=1+2", "'=1+2"),
@@ -468,7 +468,7 @@ def test_csv_bare_cr_never_reaches_the_file(scenario: dict, tmp_path: Path) -> N
     export_review(ReviewCycle(scenario["portfolio"], scenario["ledger"]), tmp_path / "up.csv")
     raw = (tmp_path / "up" / "up-decisions.csv").read_bytes()
     # Records end with CRLF (RFC 4180); any other CR would be a bare CR from a note, the case
-    # CPython < 3.11.9 writes unquoted (reliability.md §2.3, gh-67044).
+    # CPython < 3.11.9 writes unquoted (gh-67044, docs/sources.md §6.3).
     assert b"\r" not in raw.replace(b"\r\n", b"")
 
 
@@ -516,7 +516,7 @@ def test_xlsx_has_no_formula_and_keeps_keys_and_numbers(scenario: dict, tmp_path
         assert sheets
         for member in sheets:
             xml = archive.read(member).decode("utf-8")
-            # Formula element, error cell, hyperlink: none (reliability.md §2.2).
+            # Formula element, error cell, hyperlink: none (docs/sources.md §6.2).
             assert not re.search(r"<f[\s>/]", xml), member
             assert 't="e"' not in xml and "<hyperlink" not in xml, member
     book = openpyxl.load_workbook(target)
@@ -888,7 +888,7 @@ def test_chunked_writing_gives_the_same_tables(
 
 
 def test_export_never_replaces_the_portfolio_even_with_force(tmp_path: Path) -> None:
-    # reliability.md (the ledger and the inputs are the reviewer's work): an export named like
+    # Project rule (the inputs are the reviewer's work, docs/sources.md §5): an export named like
     # the workbook being reviewed is refused, --force or not, and the workbook is unchanged.
     book = openpyxl.Workbook()
     sheet = book.active

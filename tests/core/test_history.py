@@ -5,7 +5,7 @@ values and actuals are set by construction and whose expected value added is wri
 ``PLAN_LINES``. Oracles used here, each named beside its check:
 
 * value added = |original − actual| − |adjusted − actual| is Gilliland's FVA with the
-  statistical forecast as the previous step (IBF FVA series; forecast-methods.md §3.1);
+  statistical forecast as the previous step (Gilliland 2010; docs/sources.md §3.1);
 * AvgRelMAE, Davydenko & Fildes (2013, IJF 29(3):510–522): weighted geometric mean of per-series
   MAE ratios, weights = number of forecasts;
 * worst-offender sets: what ``ranking.scorecard`` + ``ranking.leading_cover`` showed on each
@@ -236,7 +236,7 @@ def test_summary_of_nothing_has_an_empty_all_row() -> None:
 
 def test_size_bands_hold_their_lower_edge() -> None:
     # Band edges are this project's choice; "record size (% of baseline)" is common practice
-    # supported by Fildes et al. (2009), who split adjustments by size (forecast-methods §3.2).
+    # supported by Fildes et al. (2009), who split adjustments by size (docs/sources.md §3.2).
     original = np.array([100.0, 100.0, 100.0, 100.0, 100.0, 100.0, 0.0, -40.0, 100.0])
     adjusted = np.array([104.9, 105.0, 90.0, 80.0, 150.0, 99.0, 3.0, -30.0, 49.0])
     assert history.size_band(original, adjusted).tolist() == [
@@ -523,14 +523,14 @@ def test_nothing_is_carried_or_active_without_a_ledger(scenario: CycleScenario) 
 
 
 def test_portfolio_fva_by_hand() -> None:
-    # Gilliland's FVA over the naive forecast (IBF; forecast-methods §3.1), season 1, window 3:
+    # Gilliland's FVA over the naive forecast (docs/sources.md §3.1), season 1, window 3:
     # naive |12-10| + |9-12| + |11-9| = 7; forecast |11-12| + |11-9| + |11-11| = 3.
     portfolio = portfolio_from(series_records([10, 12, 9, 11], [10, 11, 11, 11]))
     fva = history.portfolio_fva(portfolio, window=3, season=1)
     assert fva["naive_abs_error"] == 7
     assert fva["forecast_abs_error"] == 3
     assert fva["value_added"] == 4
-    # Relative absolute error (Morlidge's avoidability ratio, forecast-methods §3.1).
+    # Relative absolute error (Morlidge's avoidability ratio; docs/sources.md §3.1).
     assert fva["relative_error"] == pytest.approx(3 / 7)
     assert fva["value_added_share"] == pytest.approx(4 / 7)
     assert math.isnan(fva["value_added_value"])

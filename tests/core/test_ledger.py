@@ -231,7 +231,7 @@ def test_stale_change_is_refused_naming_series_and_reviewer(path: Path) -> None:
 def test_schema_version_application_id_and_settings(path: Path, ledger: Ledger) -> None:
     con = raw(path)
     # PRAGMA semantics: https://sqlite.org/pragma.html (application_id, user_version,
-    # journal_mode); reliability.md §1.1 recommends WAL + FULL, STRICT, foreign keys.
+    # journal_mode); why WAL + FULL, STRICT and foreign keys: docs/sources.md §4.1.
     assert con.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
     assert con.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 2
     assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
@@ -620,7 +620,7 @@ def test_custom_root_causes_are_what_record_accepts(path: Path, tmp_path: Path) 
 
 
 def test_a_ledger_can_be_used_from_another_thread(ledger: Ledger) -> None:
-    # The TUI saves from worker threads (STYLE.md: slow work in thread workers).
+    # The TUI saves from worker threads (DEVELOPERS.md, "Threading": slow work in workers).
     errors: list[BaseException] = []
 
     def work(n: int) -> None:
@@ -831,7 +831,7 @@ def fold(history) -> dict[tuple[str, str, str], int]:
 
 
 class LedgerModel(RuleBasedStateMachine):
-    """Random record/undo/stale/reopen sequences against an in-memory model (reliability §6)."""
+    """Random record/undo/stale/reopen runs against an in-memory model (docs/sources.md §4.5)."""
 
     series = st.tuples(
         st.sampled_from([CYCLE, NEXT_CYCLE]),

@@ -1,4 +1,4 @@
-"""Fault tests of the decision ledger, each in real child processes (reliability.md §5).
+"""Fault tests of the decision ledger, each in real child processes (docs/sources.md §4.5).
 
 The child is tests/core/ledger_worker.py run with ``sys.executable``; it prints ``ACK <item>``
 only after ``record()`` returned, so an acknowledged decision is one the reviewer was told is
@@ -83,7 +83,7 @@ def seed_ledger(path: Path, items: list[str]) -> None:
 
 
 def test_kill9_during_writes_loses_no_acknowledged_decision(tmp_path: Path) -> None:
-    # reliability.md §1.1/§5, measured: WAL + FULL survived 15 random SIGKILLs with every acked
+    # docs/sources.md §4.1, measured: WAL + FULL survived 15 random SIGKILLs with every acked
     # commit present. Here 24 trials on one file, so later trials also recover earlier crashes;
     # the first trials die during start-up, possibly while the file is being created.
     path = tmp_path / "crash.ledger.sqlite"
@@ -126,9 +126,9 @@ def test_kill9_during_writes_loses_no_acknowledged_decision(tmp_path: Path) -> N
 
 def test_full_disk_refuses_the_decision_and_keeps_the_ledger(tmp_path: Path) -> None:
     # RLIMIT_FSIZE makes writes past the limit fail with EFBIG; SQLite reports SQLITE_IOERR and
-    # rolls the transaction back (reliability.md §5, disk full (a), measured). The limit is put
+    # rolls the transaction back (docs/sources.md §4.5, measured). The limit is put
     # at several distances from the end of the files, so the failure hits different writes of
-    # the commit (the "fail at the Nth write" loop of §1.3).
+    # the commit (the "fail at the Nth write" loop of SQLite's own tests).
     path = tmp_path / "full.ledger.sqlite"
     earlier = [f"early-{i}" for i in range(5)]
     seed_ledger(path, earlier)
@@ -166,7 +166,7 @@ def test_full_disk_refuses_the_decision_and_keeps_the_ledger(tmp_path: Path) -> 
 
 @pytest.mark.parametrize("shared", [False, True], ids=["own-series", "same-series"])
 def test_two_processes_writing_lose_nothing(tmp_path: Path, shared: bool) -> None:
-    # reliability.md §1.2, measured: with deferred transactions 487 of 800 read-modify-write
+    # docs/sources.md §4.2, measured: with deferred transactions 487 of 800 read-modify-write
     # updates failed; with BEGIN IMMEDIATE none. Both children also create the file at once.
     path = tmp_path / "two.ledger.sqlite"
     count = 200
@@ -223,9 +223,9 @@ def _damage(path: Path, how: str) -> None:
 
 @pytest.mark.parametrize("how", ["garbage-header", "truncated-half", "zeroed-tail"])
 def test_corrupt_ledger_is_detected_and_its_bytes_unchanged(tmp_path: Path, how: str) -> None:
-    # reliability.md §5, measured: garbage gives SQLITE_NOTADB, truncation SQLITE_CORRUPT;
+    # docs/sources.md §4.4, measured: garbage gives SQLITE_NOTADB, truncation SQLITE_CORRUPT;
     # required: never overwrite or repair in place. The zeroed tail stands in for power-loss
-    # damage at the end of the file (§5, power loss row).
+    # damage at the end of the file (docs/sources.md §4.5).
     path = tmp_path / "bad.ledger.sqlite"
     seed_ledger(path, [f"item-{i}-" + "x" * 400 for i in range(300)])
     assert not path.with_name(path.name + "-wal").exists()  # clean close checkpointed it
@@ -250,7 +250,7 @@ def test_locked_ledger_times_out_clearly_and_works_once_released(tmp_path: Path)
     assert holder.stdout is not None and holder.stdin is not None
     try:
         assert holder.stdout.readline().strip() == "LOCKED"
-        # Opening and reading are not blocked by a WAL writer (reliability.md §1.2, measured):
+        # Opening and reading are not blocked by a WAL writer (docs/sources.md §4.2, measured):
         # were they, the open or the read would raise the busy error after the timeout.
         with Ledger.open(path, timeout=0.5) as ledger:
             assert [d.item for d in ledger.current(CYCLE)] == ["A"]
@@ -269,7 +269,8 @@ def test_locked_ledger_times_out_clearly_and_works_once_released(tmp_path: Path)
                     expected_version=0,
                 )
             waited = time.perf_counter() - t0
-            # Bounded wait: the busy timeout, not forever (§1.2: 1.01 s for timeout=1.0).
+            # Bounded wait: the busy timeout, not forever (docs/sources.md §4.2: 1.01 s for
+            # timeout=1.0).
             assert 0.45 <= waited < 2.5, waited
             assert str(caught.value).startswith(
                 "The decision ledger is being written by another session; nothing was saved; "
@@ -324,7 +325,7 @@ def _as_unprivileged() -> tuple[str, ...]:
 
 
 def test_read_only_folder_and_file_open_read_only_with_a_notice() -> None:
-    # Root ignores chmod (reliability.md §5, read-only row, measured), so the child runs as
+    # Root ignores chmod (docs/sources.md §4.4, measured), so the child runs as
     # nobody. pytest's tmp_path sits under a 0700 folder, hence a world-traversable mkdtemp.
     prefix = _as_unprivileged()
     base = Path(tempfile.mkdtemp(prefix="triage-ro-"))

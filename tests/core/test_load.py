@@ -70,7 +70,7 @@ def test_csv_canonical_types_and_order(csv_rows: CsvRows) -> None:
 
 
 def test_empty_demand_is_missing_not_zero_and_negative_is_kept(csv_rows: CsvRows) -> None:
-    # reliability.md §4 (measured with pandas 3.1.1): '-' stays text by default and turns the
+    # docs/sources.md §8.1 (measured with pandas 3.1.1): '-' stays text by default and turns the
     # column into str; the loader's explicit tokens (schema.NUMERIC_MISSING) make it missing.
     path = csv_rows(
         "A,2024-01-01,,1",
@@ -86,7 +86,7 @@ def test_empty_demand_is_missing_not_zero_and_negative_is_kept(csv_rows: CsvRows
 
 
 def test_ids_are_text_exactly_as_written(csv_rows: CsvRows) -> None:
-    # reliability.md §4 (measured with pandas 3.1.1): by default 'NA' becomes NaN and '00123'
+    # docs/sources.md §8.1 (measured with pandas 3.1.1): by default 'NA' becomes NaN and '00123'
     # becomes the integer 123; ids must survive as written.
     path = csv_rows(
         "NA,2024-01-01,1,1",
@@ -126,7 +126,7 @@ def test_month_periods_are_first_of_month(csv_rows: CsvRows) -> None:
 
 
 def test_bom_is_removed_from_first_header(write_csv: WriteCsv) -> None:
-    # reliability.md §4: Excel "CSV UTF-8" writes a BOM; decoding with utf-8-sig drops it.
+    # docs/sources.md §8.2: Excel "CSV UTF-8" writes a BOM; decoding with utf-8-sig drops it.
     path = write_csv(b"\xef\xbb\xbfitem,period,demand,forecast\r\nA,2024-01-01,1,2\r\n")
     frame = load_frame(path).frame
     assert list(frame.columns) == ["item", "period", "demand", "forecast"]
@@ -134,7 +134,7 @@ def test_bom_is_removed_from_first_header(write_csv: WriteCsv) -> None:
 
 
 def test_headers_are_stripped_and_matched_ignoring_case(csv_rows: CsvRows) -> None:
-    # reliability.md §4: pandas keeps 'item ' and ' qty' with their spaces.
+    # docs/sources.md §8.1: pandas keeps 'item ' and ' qty' with their spaces.
     path = csv_rows("A,2024-01-01,1,2,x", header=" Item ,PERIOD,Demand , forecast,  Family ")
     loaded = load_frame(path)
     assert list(loaded.frame.columns) == ["item", "period", "demand", "forecast", "Family"]
@@ -235,7 +235,7 @@ def test_missing_required_column(csv_rows: CsvRows) -> None:
 
 
 def test_duplicate_column_names(csv_rows: CsvRows) -> None:
-    # reliability.md §4 (pandas 3.1.1): a duplicate 'qty' silently becomes 'qty.1'.
+    # docs/sources.md §8.1 (pandas 3.1.1): a duplicate 'qty' silently becomes 'qty.1'.
     path = csv_rows("A,2024-01-01,3,4,5", header="item,period,demand,forecast,demand ")
     error = load_error(path)
     assert "two columns are named 'demand' (columns 3 and 5)" in error.message
@@ -251,7 +251,7 @@ def test_two_columns_matching_one_name_ignoring_case(csv_rows: CsvRows) -> None:
 
 
 def test_non_numeric_demand(csv_rows: CsvRows) -> None:
-    # reliability.md §4 (pandas 3.1.1): '(5)' and '"1,234"' stay text and to_numeric(coerce)
+    # docs/sources.md §8.1 (pandas 3.1.1): '(5)' and '"1,234"' stay text and to_numeric(coerce)
     # would make them NaN silently; the loader must stop and name the cells.
     path = csv_rows(
         "A,2024-01-01,4,1", "A,2024-01-08,(5),1", 'A,2024-01-15,"1,234",1', "A,2024-01-22,abc,1"
@@ -278,7 +278,7 @@ def test_non_numeric_forecast_names_the_mapped_column(csv_rows: CsvRows) -> None
     "value", ["inf", "-Infinity", "1e400", "99999999999999999999", "9007199254740993", "1e17"]
 )
 def test_non_finite_or_huge_demand(csv_rows: CsvRows, value: str) -> None:
-    # reliability.md §4 (pandas 3.1.1): '1e400' parses to inf, 'inf' is accepted, a 20-digit
+    # docs/sources.md §8.1 (pandas 3.1.1): '1e400' parses to inf, 'inf' is accepted, a 20-digit
     # integer overflows int64. Beyond 2**53 a float64 no longer holds every whole number
     # (IEEE 754 binary64 has a 53-bit significand): 2**53 + 1 = 9007199254740993 reads as 2**53,
     # so 2**53 itself is refused.
@@ -312,7 +312,7 @@ def test_negative_price_and_bad_lag(csv_rows: CsvRows) -> None:
 
 
 def test_ambiguous_dates(csv_rows: CsvRows) -> None:
-    # reliability.md §4 (pandas 3.1.1): with a first value '13/02/2024' pandas switches to
+    # docs/sources.md §8.1 (pandas 3.1.1): with a first value '13/02/2024' pandas switches to
     # day-first with only a warning, so the meaning of '01/02/2024' depends on row order.
     path = csv_rows("A,01/02/2024,1,1", "B,13/02/2024,1,1", "C,2024-03-01,1,1")
     error = load_error(path)
@@ -356,7 +356,7 @@ def test_out_of_range_year(csv_rows: CsvRows) -> None:
 
 
 def test_semicolon_separated_file(write_csv: WriteCsv) -> None:
-    # reliability.md §4 (pandas 3.1.1): with sep=',' a ';' file reads as one column 'item;qty'.
+    # docs/sources.md §8.1 (pandas 3.1.1): with sep=',' a ';' file reads as one column 'item;qty'.
     path = write_csv("item;period;demand;forecast\nA;2024-01-01;1,5;2\n")
     error = load_error(path)
     assert "the header is not split by ','" in error.message
@@ -367,7 +367,7 @@ def test_semicolon_separated_file(write_csv: WriteCsv) -> None:
 
 
 def test_windows_1252_file(write_csv: WriteCsv) -> None:
-    # reliability.md §4: Excel "CSV (Comma delimited)" writes the ANSI code page; é is 0xE9.
+    # docs/sources.md §8.2: Excel "CSV (Comma delimited)" writes the ANSI code page; é is 0xE9.
     path = write_csv("item,period,demand,forecast\nCafé-Tisch,2024-01-01,1,2\n".encode("cp1252"))
     error = load_error(path)
     offset = len(b"item,period,demand,forecast\nCaf")
@@ -383,12 +383,12 @@ def test_utf16_file(write_csv: WriteCsv) -> None:
 
 @pytest.mark.parametrize("content", [b"", b"\xef\xbb\xbf", b"\n\n  \n"])
 def test_empty_file(write_csv: WriteCsv, content: bytes) -> None:
-    # reliability.md §4 (pandas 3.1.1): pandas raises EmptyDataError "No columns to parse".
+    # docs/sources.md §8.1 (pandas 3.1.1): pandas raises EmptyDataError "No columns to parse".
     assert "the file is empty" in load_error(write_csv(content)).message
 
 
 def test_header_only(csv_rows: CsvRows) -> None:
-    # reliability.md §4 (pandas 3.1.1): a header-only file gives 0 rows without an error.
+    # docs/sources.md §8.1 (pandas 3.1.1): a header-only file gives 0 rows without an error.
     assert "has a header but no data rows" in load_error(csv_rows()).message
 
 
@@ -398,7 +398,7 @@ def test_blank_lines_only_after_header(write_csv: WriteCsv) -> None:
 
 
 def test_ragged_row_longer(csv_rows: CsvRows) -> None:
-    # reliability.md §4 (pandas 3.1.1): ParserError "Expected 2 fields in line 3, saw 4".
+    # docs/sources.md §8.1 (pandas 3.1.1): ParserError "Expected 2 fields in line 3, saw 4".
     path = csv_rows("A,2024-01-01,1,2", "Hose, green,2024-01-01,1,2", "B,2024-01-01,1,2,3")
     error = load_error(path)
     assert "line 3 has 5 fields, expected 4 (one per header column)" in error.message
@@ -420,7 +420,7 @@ def test_ragged_row_shorter_in_a_quoted_file(csv_rows: CsvRows) -> None:
 
 
 def test_header_shorter_than_data_rows(write_csv: WriteCsv) -> None:
-    # reliability.md §4 (pandas 3.1.1): the first column silently becomes the index and every
+    # docs/sources.md §8.1 (pandas 3.1.1): the first column silently becomes the index and every
     # column shifts, unless index_col=False (which then drops the extra cells with a warning).
     path = write_csv("item,period,demand,forecast\nA,2024-01-01,1,2,3\nB,2024-01-01,1,2,3\n")
     error = load_error(path)
@@ -466,7 +466,7 @@ def test_blank_lines_are_skipped_and_rows_still_match_the_file(write_csv: WriteC
 
 
 def test_trailing_delimiter_column_is_dropped(write_csv: WriteCsv) -> None:
-    # reliability.md §4 (pandas 3.1.1): a trailing delimiter gives a column 'Unnamed: 4'.
+    # docs/sources.md §8.1 (pandas 3.1.1): a trailing delimiter gives a column 'Unnamed: 4'.
     path = write_csv("item,period,demand,forecast,\nA,2024-01-01,1,2,\n")
     loaded = load_frame(path)
     assert list(loaded.frame.columns) == ["item", "period", "demand", "forecast"]
@@ -568,7 +568,7 @@ DEMAND_ROWS: list[list[object]] = [
 
 
 def test_xlsx_skips_a_hidden_first_sheet(tmp_path: Path) -> None:
-    # reliability.md §4 (pandas 3.1.1): read_excel() defaults to the first sheet even if hidden.
+    # docs/sources.md §8.3 (pandas 3.1.1): read_excel() defaults to the first sheet even if hidden.
     path = write_book(
         tmp_path / "p.xlsx",
         {"Scratch": [["junk"], [1]], "Demand": DEMAND_ROWS, "Notes": [["x"]]},
@@ -595,7 +595,7 @@ def test_xlsx_chosen_and_unknown_sheet(tmp_path: Path) -> None:
 
 
 def test_xlsx_numeric_ids_are_reported(tmp_path: Path) -> None:
-    # reliability.md §4: xlsx cells already stored as numbers cannot get their zeros back.
+    # docs/sources.md §8.3: xlsx cells already stored as numbers cannot get their zeros back.
     rows: list[list[object]] = [
         ["item", "period", "demand", "forecast"],
         [123, "2024-01-01", 1, 1],
@@ -675,7 +675,7 @@ def test_xlsx_empty_sheet_and_header_only(tmp_path: Path) -> None:
 
 
 def test_xlsx_formula_without_saved_result(tmp_path: Path) -> None:
-    # reliability.md §4: pandas reads xlsx with data_only=True (cached values); a formula
+    # docs/sources.md §8.3: pandas reads xlsx with data_only=True (cached values); a formula
     # written by openpyxl has no cached value and would read as a blank demand.
     rows: list[list[object]] = [
         ["item", "period", "demand", "forecast"],
@@ -689,7 +689,7 @@ def test_xlsx_formula_without_saved_result(tmp_path: Path) -> None:
 
 
 def test_xlsx_formula_with_saved_zero_is_reported(tmp_path: Path) -> None:
-    # reliability.md §4: xlsxwriter stores 0 as the result of formulas it cannot calculate.
+    # docs/sources.md §8.3: xlsxwriter stores 0 as the result of formulas it cannot calculate.
     # Simulated by writing the cached <v>0</v> into the sheet XML of an openpyxl workbook.
     rows: list[list[object]] = [
         ["item", "period", "demand", "forecast"],

@@ -1,8 +1,8 @@
 """The scorecard against outside references: reference libraries and published check values.
 
-Each check names its source beside it. Check values marked "(calc)" in the methods reference
-(shared/reference/forecast-methods.md) were computed there with the library named; textbook tables
-were recomputed there from the published demand and forecast. Textbook tables use e = A − F; our
+Each check names its source beside it (the list is docs/sources.md §1 and §2). Check values
+marked "(calc)" were computed from the definitions with the library named; textbook tables were
+recomputed from the published demand and forecast. Textbook tables use e = A − F; our
 error is F − A, so their signed numbers are ours negated.
 """
 
@@ -124,7 +124,7 @@ def test_sign_test_table_matches_scipy() -> None:
         [binomtest(int(a), int(b), 0.5).pvalue if b else 1.0 for a, b in zip(k, n, strict=True)]
     )
     np.testing.assert_allclose(ours, expected, rtol=1e-9, atol=0)
-    # Methods reference §2.4 (calc): six one-sided errors are the fewest reaching 5 %.
+    # docs/sources.md §2.2 (arithmetic): six one-sided errors are the fewest reaching 5 %.
     assert metrics.sign_test_pvalue(np.array([6]), np.array([6]))[0] == pytest.approx(0.03125)
     assert metrics.sign_test_pvalue(np.array([0]), np.array([5]))[0] == pytest.approx(0.0625)
 
@@ -138,25 +138,25 @@ def test_scikit_learn_docs_example() -> None:
 
 
 # --------------------------------------------------------------------------------------------
-# Textbook tracking-signal tables (forecast-methods.md §6.2), e = A − F on the page
+# Textbook tracking-signal tables (docs/sources.md §1.7), e = A − F on the page
 # --------------------------------------------------------------------------------------------
 
 TS_TABLES = {
-    # (a) Monthly May–Dec table, study page [S53]; TS (calc) column of the reference.
+    # (a) Monthly May–Dec table, study-help page; TS recomputed (calc).
     "a": (
         [105, 80, 110, 118, 102, 110, 120, 125],
         [102, 100, 101, 98, 100, 104, 108, 109],
         [1.0000, -1.4783, -0.7500, 0.9231, 1.2963, 2.0000, 3.1111, 4.3636],
         5e-5,
     ),
-    # (b) Years 1–6 table, study page [S54]; TS to 2 dp as recomputed in the reference.
+    # (b) Years 1–6 table, study-help page; TS to 2 dp as recomputed.
     "b": (
         [71, 80, 101, 84, 60, 73],
         [78, 75, 83, 84, 88, 85],
         [-1.0, -0.33, 1.6, 2.13, -1.03, -2.06],
         5e-3,
     ),
-    # (c) A = [8, 11, 12, 14], F = 10 each, textbook problem [S4]/[S55].
+    # (c) A = [8, 11, 12, 14], F = 10 each, textbook problem.
     "c": ([8, 11, 12, 14], [10, 10, 10, 10], [-1.0, -0.67, 0.6, 2.22], 5e-3),
 }
 
@@ -174,7 +174,7 @@ def test_running_tracking_signal_matches_textbook(table: str) -> None:
 
 
 def test_table_a_extra_check_values() -> None:
-    """Methods reference §6.2 (a) extra values (calc with scikit-learn, statsmodels, scipy)."""
+    """Table (a) extra values (calc with scikit-learn, statsmodels, scipy; docs/sources.md §1.7)."""
     actual, forecast, _, _ = TS_TABLES["a"]
     row = score_one(actual, forecast)
     assert row["mae"] == pytest.approx(11.0)
@@ -190,7 +190,7 @@ def test_table_a_extra_check_values() -> None:
 
 
 # --------------------------------------------------------------------------------------------
-# Demand pattern check values (forecast-methods.md §6.4, T/k ADI and population CV²)
+# Demand pattern check values (docs/sources.md §1.6, T/k ADI and population CV²)
 # --------------------------------------------------------------------------------------------
 
 PATTERN_CHECKS = [
@@ -203,7 +203,7 @@ PATTERN_CHECKS = [
 
 
 def test_demand_pattern_check_values() -> None:
-    # Syntetos, Boylan & Croston (2005) classes; values (calc) in the methods reference §6.4.
+    # Syntetos, Boylan & Croston (2005) classes; values (calc) from those definitions.
     records = []
     for i, (demand, *_rest) in enumerate(PATTERN_CHECKS):
         # Shorter series end at the same latest period as the longer ones.
@@ -216,7 +216,7 @@ def test_demand_pattern_check_values() -> None:
 
 
 # --------------------------------------------------------------------------------------------
-# MAE vs MSE on intermittent demand (forecast-methods.md §1)
+# MAE vs MSE on intermittent demand (docs/sources.md §1.5)
 # --------------------------------------------------------------------------------------------
 
 
@@ -229,7 +229,7 @@ def test_zero_forecast_wins_on_mae_loses_on_rmse() -> None:
     card = ranking.scorecard(portfolio_from(records), window=12).set_index("item")
     zero, avg = card.loc["zero"], card.loc["mean"]
     assert zero["mae"] < avg["mae"] and zero["rmse"] > avg["rmse"]
-    # Check values (calc) in the methods reference §1.
+    # Check values (calc), docs/sources.md §1.5.
     assert zero["mae"] == pytest.approx(1.3333, abs=5e-5)
     assert zero["rmse"] ** 2 == pytest.approx(8.1667, abs=5e-5)
     assert avg["mae"] == pytest.approx(2.0, abs=5e-5)
@@ -238,7 +238,7 @@ def test_zero_forecast_wins_on_mae_loses_on_rmse() -> None:
 
 
 # --------------------------------------------------------------------------------------------
-# MASE (forecast-methods.md §6.1, §6.6)
+# MASE (docs/sources.md §1.3, §1.7)
 # --------------------------------------------------------------------------------------------
 
 
@@ -258,8 +258,8 @@ def test_mase_sktime_docstring_example() -> None:
 
 
 def test_utilsforecast_toy() -> None:
-    # Methods reference §6.6 (calc with utilsforecast 0.2.17): train y = [10, 12, 9, 11, 0, 8];
-    # test A = [10, 0, 12, 6], F = [9, 2, 10, 8].
+    # docs/sources.md §1.7 (calc, agrees with utilsforecast 0.2.17):
+    # train y = [10, 12, 9, 11, 0, 8]; test A = [10, 0, 12, 6], F = [9, 2, 10, 8].
     train = [10, 12, 9, 11, 0, 8]
     actual, predicted = [10, 0, 12, 6], [9, 2, 10, 8]
     row = score_one(train + actual, [None] * len(train) + predicted, window=4)
@@ -323,7 +323,7 @@ def test_error_share_has_no_mape_flaws() -> None:
 
 
 # --------------------------------------------------------------------------------------------
-# False alarms of the persistent-bias flag (forecast-methods.md §2.1, §2.3, §2.4)
+# False alarms of the persistent-bias flag (docs/sources.md §2.1-§2.3)
 # --------------------------------------------------------------------------------------------
 
 
@@ -346,7 +346,7 @@ def test_flag_false_alarm_rate_exact() -> None:
     ours = metrics.persistent_bias(positive, nonzero, run, bias, np.zeros(len(bias))) != 0
 
     # Independently: scipy.stats.binomtest p <= 0.05 (two-sided sign test) or a run of 6 or more
-    # (2·0.5⁶ = 3.1 % on its own, methods reference §2.3), and the window bias agrees in sign.
+    # (2·0.5⁶ = 3.1 % on its own, docs/sources.md §2.3), and the window bias agrees in sign.
     test_p = {k: binomtest(k, n, 0.5).pvalue for k in range(n + 1)}
     expected = 0
     for k, r, b in zip(positive, run, bias, strict=True):
@@ -367,8 +367,8 @@ def test_flag_false_alarm_rate_exact() -> None:
 
 
 def test_flag_versus_plain_tracking_signal_limit() -> None:
-    # Methods reference §2.1 (calc, iid N(0,1) errors): P(|TS| > 4) = 0.369 at n = 12, rising
-    # with n; a ±4 limit is the textbook rule [S21].
+    # docs/sources.md §2.1 (simulated, iid N(0,1) errors): P(|TS| > 4) = 0.369 at n = 12, rising
+    # with n; a ±4 limit is the textbook rule.
     rng = np.random.default_rng(13)
     errors = rng.standard_normal((20_000, 13))
     demand = np.full_like(errors, 100.0)

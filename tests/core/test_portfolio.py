@@ -2,7 +2,7 @@
 
 The builder's rules are the project's input contract (docs/metrics.md: "Window and counted
 periods", "Lag"): missing is never zero, rows are never averaged, lags are never mixed (common
-practice: never mix lags in one metric, methods reference §7).
+practice: never mix lags in one metric, docs/sources.md §3.3).
 """
 
 from __future__ import annotations

@@ -128,7 +128,7 @@ def test_review_in_a_real_terminal(tmp_path: Path) -> None:
 
 
 def test_hostile_ids_do_not_reach_the_terminal(tmp_path: Path) -> None:
-    """An id carrying an OSC title sequence must not retitle the pane (reliability.md §3.2)."""
+    """An id carrying an OSC title sequence must not retitle the pane (docs/sources.md §7.2)."""
     portfolio = tmp_path / "hostile.csv"
     weeks = ["2026-10-05", "2026-10-12", "2026-10-19", "2026-10-26"]
     lines = ["item,period,demand,forecast"]

@@ -1,7 +1,7 @@
 """Hostile text in ids, attributes and notes is shown literally and never acts.
 
 Rich markup in data can crash a widget (``[/]``) or plant an action (``[@click=app.quit]``);
-escape sequences can restyle the terminal or set its title (reliability.md §3.1-§3.2, measured
+escape sequences can restyle the terminal or set its title (docs/sources.md §7.1-§7.2, measured
 with Rich 15 / Textual 8.2.8).
 """
 

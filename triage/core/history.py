@@ -20,7 +20,7 @@ Sign convention (stated once, here): the **value added** of an override in a per
 in units, positive when the override brought the forecast closer to the actual (it *helped*),
 negative when it moved it away. This is Gilliland's forecast value added (FVA_step = Err(previous
 step) − Err(step)) with the statistical forecast as the previous step and absolute error as the
-metric (forecast-methods.md §3.1). In value it is multiplied by the price of the period.
+metric (docs/sources.md §3.1). In value it is multiplied by the price of the period.
 
 Direction and size of an override follow the split that Fildes, Goodwin, Lawrence & Nikolopoulos
 (2009, IJF 25(1):3–23) used to show that small and upward adjustments are the ones most likely to
@@ -764,9 +764,10 @@ def in_forecast(forecast: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
     forecast = np.asarray(forecast, dtype=np.float64)
     adjusted = np.asarray(adjusted, dtype=np.float64)
     with np.errstate(invalid="ignore"):
-        return np.isclose(
+        close: np.ndarray = np.isclose(
             forecast, adjusted, rtol=IN_FORECAST_RELATIVE, atol=IN_FORECAST_UNITS, equal_nan=False
         )
+    return close
 
 
 def carried_adjustments(
@@ -944,7 +945,7 @@ def portfolio_fva(
     * ``cells``, ``series`` (series with a counted cell) and ``series_worse_than_naive``
       (series whose fva < 0).
 
-    Ratios are NaN when the naive error is 0 (Gilliland 2010; forecast-methods.md §3.1).
+    Ratios are NaN when the naive error is 0 (Gilliland 2010; docs/sources.md §3.1).
     """
     if season < 1:
         raise HistoryError(f"the season must be at least 1, not {season}.")

@@ -9,10 +9,10 @@ has not been undone, is derived from the events in SQL.
 Durability (docs/ledger.md explains each choice):
 
 * WAL journal with ``synchronous=FULL``: a decision whose ``record()`` returned survives a crash
-  of the program, of the operating system and a power loss (reliability.md §1.1).
+  of the program, of the operating system and a power loss (docs/sources.md §4.1).
 * Autocommit connection with one explicit ``BEGIN IMMEDIATE … COMMIT`` per decision, so a second
   session waits for the write lock (bounded by ``timeout``) instead of failing on a stale read
-  snapshot, and no transaction is ever open while the reviewer thinks (reliability.md §1.2, §1.4).
+  snapshot, and no transaction is ever open while the reviewer thinks (docs/sources.md §4.2, §4.3).
 * Every write checks the series version inside the transaction: a change made by another session
   since the reviewer looked is refused, never silently overwritten.
 * A file that is not a ledger, is damaged, or comes from a newer schema is inspected through a
@@ -499,7 +499,7 @@ def _dir_writable(folder: Path) -> bool:
     """Whether files can be created in ``folder``: ``os.access`` and a real probe file.
 
     ``os.access`` alone is not enough: root passes it everywhere, and mounts, ACLs and sandboxes
-    can refuse what the mode bits allow (reliability.md §5, read-only directory).
+    can refuse what the mode bits allow (docs/sources.md §4.4).
     """
     if not folder.is_dir() or not os.access(folder, os.W_OK | os.X_OK):
         return False
@@ -701,7 +701,7 @@ def _unwritable_reason(path: Path) -> str | None:
     if path.exists() and not os.access(path, os.W_OK):
         reasons.append("the file is read-only")
     # WAL keeps its -wal and -shm files beside the ledger, so the folder must be writable too
-    # (reliability.md §5: SQLITE_READONLY_DIRECTORY, measured).
+    # (SQLITE_READONLY_DIRECTORY, measured; docs/sources.md §4.4).
     if not _dir_writable(path.parent):
         reasons.append(f"the folder {path.parent} is not writable")
     for side in _sidecars(path):
@@ -1169,7 +1169,7 @@ class Ledger:
             except LedgerBusyError:
                 # Switching a new file to WAL or creating the schema can return SQLITE_BUSY at
                 # once, without the busy handler, while another session sets up the same file
-                # (reliability.md §1.2): try again until the timeout.
+                # (docs/sources.md §4.2): try again until the timeout.
                 if time.monotonic() >= deadline:
                     raise
                 time.sleep(0.05)
@@ -1186,7 +1186,7 @@ class Ledger:
                     path=path,
                     hint="Keep the ledger on a local disk.",
                 )
-            # FULL is the compile-time default here but not everywhere: set it (reliability §1.4).
+            # FULL is the compile-time default here, not everywhere: set it (docs/sources.md §4.1).
             con.execute("PRAGMA synchronous = FULL")
             con.execute("PRAGMA foreign_keys = ON")
             _upgrade(con, path)
@@ -1765,7 +1765,7 @@ class Ledger:
             con = self._con
             try:
                 # IMMEDIATE takes the write lock before reading the version, so the busy timeout
-                # applies and no stale snapshot can be upgraded (reliability.md §1.2, measured).
+                # applies and no stale snapshot can be upgraded (docs/sources.md §4.2, measured).
                 con.execute("BEGIN IMMEDIATE")
             except sqlite3.Error as exc:
                 raise _translate(exc, self.path, saving=what) from exc
@@ -2026,7 +2026,7 @@ def _connect(
             _uri(path, mode, immutable=immutable),
             uri=True,
             timeout=timeout,
-            # Autocommit: this module issues every BEGIN itself (reliability.md §1.4).
+            # Autocommit: this module issues every BEGIN itself (docs/sources.md §4.3).
             isolation_level=None,
             # Calls are serialised by Ledger._lock; the TUI calls from worker threads.
             check_same_thread=False,

@@ -89,7 +89,8 @@ class WindowMeasures:
     @property
     def rmse(self) -> np.ndarray:
         """Root mean squared error, √(Σe² / n)."""
-        return np.sqrt(_ratio(self.sq_error, self.periods.astype(np.float64)))
+        root: np.ndarray = np.sqrt(_ratio(self.sq_error, self.periods.astype(np.float64)))
+        return root
 
     @property
     def bias_pct(self) -> np.ndarray:
@@ -273,7 +274,8 @@ def sign_test_pvalue(positive: np.ndarray, nonzero: np.ndarray) -> np.ndarray:
     """Two-sided exact sign test p-values; 1.0 when there is no non-zero error."""
     n_max = int(nonzero.max()) if nonzero.size else 0
     table = _sign_table(max(n_max, 1))
-    return table[positive, nonzero]
+    pvalues: np.ndarray = table[positive, nonzero]
+    return pvalues
 
 
 def persistent_bias(

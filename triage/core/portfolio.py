@@ -76,10 +76,11 @@ class Calendar:
 
     def label(self, index: int) -> str:
         """ISO text of period ``index``: ``2026-11-23`` (weekly) or ``2026-11`` (monthly)."""
-        stamp = self.periods[index]
-        return (
+        stamp: pd.Timestamp = self.periods[index]
+        text: str = (
             stamp.strftime("%Y-%m") if self.freq == schema.MONTHLY else stamp.strftime("%Y-%m-%d")
         )
+        return text
 
 
 class UnitPrices:
@@ -252,7 +253,8 @@ class Portfolio:
     @property
     def cycle(self) -> str:
         """The review cycle: the ISO date of the latest actual period."""
-        return self.calendar.periods[self.last_actual].strftime("%Y-%m-%d")
+        text: str = self.calendar.periods[self.last_actual].strftime("%Y-%m-%d")
+        return text
 
     @cached_property
     def fingerprint(self) -> str:

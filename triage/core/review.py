@@ -674,8 +674,10 @@ class ReviewSession:
         return extra + tuple(self.portfolio.attributes) + FILTER_FIELDS
 
     def _field(self, field: str) -> np.ndarray:
+        values: np.ndarray
         if field == "pattern":
-            return self.card["pattern"].to_numpy(dtype=object)
+            values = self.card["pattern"].to_numpy(dtype=object)
+            return values
         if field == "flag":
             return np.where(
                 self.card["bias_flag"].to_numpy(dtype=object) == "",
@@ -689,7 +691,8 @@ class ReviewSession:
         if field == "carried":
             return np.where(self.carried, "yes", "no")
         if field in self.portfolio.keys.columns:
-            return self.portfolio.keys[field].to_numpy(dtype=object)
+            values = self.portfolio.keys[field].to_numpy(dtype=object)
+            return values
         raise KeyError(field)
 
     def order(

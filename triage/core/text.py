@@ -122,7 +122,7 @@ def longest_word(text: str) -> int:
 
 #: First characters that make a spreadsheet read a cell as a formula. OWASP "CSV Injection"
 #: lists = + - @ Tab and CR, and Line Feed since August 2025 (OWASP/www-community PR #1116);
-#: OWASP ASVS 5.0 V1.2.10 adds NUL (reliability.md §2.1).
+#: OWASP ASVS 5.0 V1.2.10 adds NUL (docs/sources.md §6.1).
 FORMULA_TRIGGERS = "=+-@\t\r\n\0"
 #: Matches text that starts with a formula trigger.
 FORMULA_START = re.compile(r"[=+\-@\t\r\n\x00]")
@@ -132,7 +132,7 @@ def neutralise(values: pd.Series | Sequence[str]) -> pd.Series:
     """Free text made safe to open in a spreadsheet, as object Series of str.
 
     CR LF and bare CR become LF (one line-break convention, and no bare CR for the CSV writer
-    of CPython < 3.11.9 to leave unquoted, reliability.md §2.3). Text starting with a formula
+    of CPython < 3.11.9 to leave unquoted, docs/sources.md §6.3). Text starting with a formula
     trigger (``FORMULA_TRIGGERS``) gets a leading apostrophe, the neutralisation OWASP "CSV
     Injection" gives and Symfony uses since CVE-2021-41270; a tab or space prefix would not do.
     Quotes and separators inside the text are left to the CSV writer's quoting.

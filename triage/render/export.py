@@ -6,7 +6,7 @@ target's suffix. Every format carries the same caution (``CAUTION``) and the pro
 portfolio file name and fingerprint, cycle, ledger, when and by whom it was exported.
 docs/export.md describes the files.
 
-Safety rules (reliability.md §2, OWASP "CSV Injection",
+Safety rules (docs/sources.md §6, OWASP "CSV Injection",
 https://owasp.org/www-community/attacks/CSV_Injection):
 
 * Free-text cells (notes, codes, labels, reviewer, adjustment, portfolio name) that begin with a
@@ -14,11 +14,11 @@ https://owasp.org/www-community/attacks/CSV_Injection):
   never changed: they must join back in the planning system byte for byte. Numbers stay numbers.
 * CSV is written with ``csv.QUOTE_NONNUMERIC`` and notes have CR / CRLF turned into LF: CPython
   before 3.11.9 writes a field holding a bare CR unquoted, which splits the row on reading
-  (reliability.md §2.3, measured on 3.11.7).
+  (docs/sources.md §6.3, measured on 3.11.7).
 * xlsx text is always a string cell, never a formula, error value or hyperlink; control
   characters xlsx cannot store are replaced by visible symbols (``text.xlsx_cell_text``); the
   row and cell-length limits of a sheet are checked here, never left to the library
-  (reliability.md §2.4).
+  (docs/sources.md §6.4).
 * Files are written all or nothing, also under kill -9 (``triage.core.files``): a file through
   a scratch folder and one rename; the three files of a CSV export in one folder that replaces
   the old one in one step. An existing file or folder is kept unless ``force``; a failed export
@@ -79,8 +79,8 @@ from triage.core.text import (
     xlsx_cell_text,
 )
 
-#: Rows in an Excel sheet, header included (Excel specifications and limits; reliability.md
-#: §2.4: pandas + xlsxwriter silently dropped the last row at exactly this size, measured).
+#: Rows in an Excel sheet, header included (Microsoft, "Excel specifications and limits"; pandas
+#: + xlsxwriter silently dropped the last row at exactly this size, docs/sources.md §6.4).
 XLSX_MAX_ROWS = 1_048_576
 #: Characters in one Excel cell (UTF-16 code units). openpyxl cuts longer text silently.
 XLSX_MAX_CELL = 32_767
@@ -409,7 +409,7 @@ def _write_csv(path: Path, table: FileTable, style: CsvStyle = CSV_STYLE) -> Non
     """One table as RFC 4180 CSV, UTF-8 without BOM, CRLF between records.
 
     QUOTE_NONNUMERIC quotes every text field (so a bare CR or a separator inside one can never
-    split a row, reliability.md §2.3) and leaves numbers unquoted: a whole number as an integer,
+    split a row, docs/sources.md §6.3) and leaves numbers unquoted: a whole number as an integer,
     any other with ``repr`` (the shortest text that reads back as the same float); a missing
     number is ``""``. ``style`` sets the separator and decimal mark (``CsvStyle``).
     """
@@ -734,7 +734,7 @@ def _as_string_cell(sheet: Any, value: str) -> Any:
     """The value, or a string cell where openpyxl would otherwise not store it as text.
 
     openpyxl stores ``"=..."`` as a formula and ``"#N/A"`` as an error value; setting data type
-    ``"s"`` writes the text as an inline string (reliability.md §2.2, measured).
+    ``"s"`` writes the text as an inline string (docs/sources.md §6.2, measured).
     """
     from openpyxl.cell import WriteOnlyCell
 
@@ -786,7 +786,7 @@ def _json_columns(frame: pd.DataFrame, kinds: Sequence[str]) -> list[list[Any]]:
 def dumps_json(value: Any, *, indent: int | None = None) -> str:
     """JSON text that decodes to exactly ``value`` and is safe to print on a terminal.
 
-    ``allow_nan=False``: NaN and Infinity are not JSON (RFC 8259; reliability.md §2.5), so a NaN
+    ``allow_nan=False``: NaN and Infinity are not JSON (RFC 8259; docs/sources.md §6.5), so a NaN
     that was not turned into None is a bug and raises. C0 controls are escaped by ``json``
     itself; DEL and C1 are escaped here (see ``_JSON_ESCAPES``).
     """
