@@ -305,7 +305,8 @@ def units_change(original: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
     """Adjusted − original per period, a missing value counted as 0: the change in units an
     adjustment makes (its sum is what the review shows, the export and the ledger's reports
     count)."""
-    return np.nan_to_num(adjusted, nan=0.0) - np.nan_to_num(original, nan=0.0)
+    change = np.nan_to_num(adjusted, nan=0.0) - np.nan_to_num(original, nan=0.0)
+    return np.asarray(change, dtype=np.float64)
 
 
 @dataclass(frozen=True, eq=False)
