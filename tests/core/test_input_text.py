@@ -24,12 +24,14 @@ from triage.core.ledger import TEXT_MAX
 from triage.core.read import (
     FastPathDeclined,
     delimited,
+    load_frame,
     lookalike_keys,
     read_portfolio,
     scan_csv,
     scan_parquet,
 )
 from triage.core.read.stream import build_streamed
+from triage.core.text import CONTROL_TABLE, STORED_TABLE
 
 WEEKS = ["2026-10-05", "2026-10-12"]
 
@@ -237,3 +239,17 @@ def test_full_width_iso_dates_are_refused(tmp_path: Path) -> None:
     path = tmp_path / "p.csv"
     path.write_text(f"item,period,demand,forecast\nA,{wide},5,4\nA,2026-10-12,5,6\n")
     assert "digits of another script" in load_error(path).message
+
+
+def test_headers_are_cleaned_with_the_stored_part_of_the_display_table(tmp_path: Path) -> None:
+    # One owner for the sanitiser tables (triage.core.text): what the loader writes in place of
+    # a header's control characters is the display table's C0, DEL and C1 part, symbol for
+    # symbol; bidi and invisible characters stay in a header as written, as they do in ids, and
+    # only a terminal shows them as symbols.
+    assert set(STORED_TABLE) == {*range(0x20), 0x7F, *range(0x80, 0xA0)}
+    assert {code: CONTROL_TABLE[code] for code in STORED_TABLE} == STORED_TABLE
+    odd = "".join(chr(code) for code in (0x1B, 0x7F, 0x9B, 0x200B, 0x202E))
+    path = tmp_path / "p.csv"
+    path.write_text(f"item,period,demand,forecast,n{odd}\nA,2026-10-05,5,4,x\n", encoding="utf-8")
+    assert load_frame(path).attributes == ("n\u241b\u2421\ufffd\u200b\u202e",)
+    assert scan_csv(path).attributes == ("n\u241b\u2421\ufffd\u200b\u202e",)
