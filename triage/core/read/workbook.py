@@ -555,13 +555,14 @@ def _scan_sheet(path: Path, member: str, name: str) -> _PartScan | None:
     would take gigabytes: this byte scan refuses it within the first megabytes. It also tells
     whether the sheet has formulas at all.
     """
+    where = f"sheet '{name}'"
     try:
         with zipfile.ZipFile(path) as archive:
-            return _scan_part(path, archive, member.lstrip("/"), f"sheet '{name}'", sheet=name)
+            return _scan_guarded(path, archive, member.lstrip("/"), where, sheet=name)
     except KeyError:
         return None  # the reader reports the missing part
-    except (zipfile.BadZipFile, zlib.error, EOFError) as exc:
-        _damaged_workbook(path, f"sheet '{name}'", exc)
+    except (zipfile.BadZipFile, zlib.error, EOFError) as exc:  # the archive itself
+        _damaged_workbook(path, where, exc)
 
 
 def _scan_part(
