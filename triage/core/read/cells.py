@@ -33,6 +33,7 @@ from triage.core import schema
 from triage.core.dialect import FileOptions, date_format_advice
 from triage.core.errors import format_rows
 from triage.core.ledger import TEXT_MAX
+from triage.core.portfolio import DAY_NS
 from triage.core.read.columns import ColumnPlan, column_label
 from triage.core.read.messages import EXAMPLES_SHOWN, fail, plural, sanitized
 from triage.core.text import STORED_TABLE
@@ -92,10 +93,7 @@ _FIRST_YEAR, _LAST_YEAR = 1900, 2199
 LAG_MAX = 10_000
 
 
-#: Nanoseconds per day, and the day numbers (since 1970-01-01) of the accepted year range.
-DAY_NS = 86_400 * 10**9
-
-
+#: The day numbers (since 1970-01-01) of the accepted year range.
 FIRST_DAY = (dt.date(_FIRST_YEAR, 1, 1) - dt.date(1970, 1, 1)).days
 
 

@@ -16,7 +16,8 @@ import pandas as pd
 
 from triage.core import schema
 from triage.core.dialect import FileOptions
-from triage.core.read.cells import DAY_NS, FIRST_DAY, LAST_DAY
+from triage.core.portfolio import DAY_NS
+from triage.core.read.cells import FIRST_DAY, LAST_DAY
 from triage.core.read.columns import (
     RawColumns,
     checked_mapping,
