@@ -21,6 +21,8 @@ from functools import lru_cache
 
 import numpy as np
 
+from triage.core.settings import SEASON
+
 #: Sign-test significance below which a series' bias counts as persistent.
 BIAS_ALPHA = 0.05
 #: Consecutive same-sign latest errors that count as persistent bias on their own.
@@ -305,7 +307,7 @@ def persistent_bias(
     return np.where(agrees & material, direction, 0).astype(np.int8)
 
 
-def naive_scale(demand: np.ndarray, season: int = 1) -> np.ndarray:
+def naive_scale(demand: np.ndarray, season: int = SEASON.default) -> np.ndarray:
     """MASE scale: mean |D_t − D_{t−m}| over all pairs of actual periods in the given history.
 
     Hyndman & Koehler (2006): the in-sample mean absolute error of the (seasonal) naive forecast.
@@ -317,7 +319,7 @@ def naive_scale(demand: np.ndarray, season: int = 1) -> np.ndarray:
 
 
 def naive_value_added(
-    demand: np.ndarray, forecast: np.ndarray, columns: np.ndarray, season: int = 1
+    demand: np.ndarray, forecast: np.ndarray, columns: np.ndarray, season: int = SEASON.default
 ) -> np.ndarray:
     """Forecast value added over the (seasonal) naive forecast, in units per period.
 
@@ -366,7 +368,9 @@ def demand_pattern(demand: np.ndarray) -> DemandPattern:
     return pattern
 
 
-def history_measures(demand: np.ndarray, season: int = 1) -> tuple[np.ndarray, DemandPattern]:
+def history_measures(
+    demand: np.ndarray, season: int = SEASON.default
+) -> tuple[np.ndarray, DemandPattern]:
     """:func:`naive_scale` and :func:`demand_pattern` of the same history, in one pass over it."""
     scale, pattern = _scan_history(demand, season, scale=True, pattern=True)
     assert scale is not None and pattern is not None
