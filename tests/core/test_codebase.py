@@ -119,7 +119,7 @@ def test_mypy() -> None:
 #: open them, so a citation names the published source or a page in docs/ (docs/sources.md).
 OUTSIDE_NOTES = re.compile(
     r"reliability\.md|reliability §|forecast-methods|methods reference|performance-notes"
-    r"|STYLE\.md|shared/reference|\.\./shared|/work/shared",
+    r"|STYLE\.md|shared/reference|\.\./shared|/shared/",
     re.IGNORECASE,
 )
 #: A Markdown file named anywhere in a comment, a docstring or a page.
