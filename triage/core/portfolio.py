@@ -235,6 +235,9 @@ class Portfolio:
     """Rows read from the file."""
     notices: tuple[str, ...] = field(default=())
     """Things the user should know that did not stop the load."""
+    competing: dict[str, np.ndarray] = field(default_factory=dict, repr=False, compare=False)
+    """Other forecasts of the same periods (``forecast_<name>`` columns), by ``<name>`` in file
+    order: series x periods, float64, NaN where missing, at the same lag as ``forecast``."""
     _text_codes: dict[str, tuple[pd.DataFrame, np.ndarray, Any]] = field(
         default_factory=dict, repr=False, compare=False
     )
