@@ -22,7 +22,6 @@ from triage.core.errors import TriageError
 if TYPE_CHECKING:
     import argparse
 
-    from triage.core.config import Config
 
 T = TypeVar("T")
 
@@ -215,12 +214,14 @@ class ScoreSettings:
     """Forecast lag to score, when the file holds several (None: the file's only lag)."""
 
     @classmethod
-    def from_args(cls, args: argparse.Namespace, config: Config | None = None) -> ScoreSettings:
+    def from_args(cls, args: argparse.Namespace, config: object | None = None) -> ScoreSettings:
         """The settings of a parsed command line, over the configuration, over the defaults.
 
         A setting whose option the command does not have, or that was not given, takes the
-        configuration's value where the file has the key, else the declared default. Given
-        values are checked in the order of :data:`SETTINGS`.
+        configuration's value where the file has the key (``config``: a
+        ``triage.core.config.Config``, which imports this module, so it is not named in the
+        signature), else the declared default. Given values are checked in the order of
+        :data:`SETTINGS`.
 
         Raises:
             TriageError: A given value cannot be used; the message names the option.
