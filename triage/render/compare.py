@@ -99,9 +99,11 @@ def to_json(portfolio: Portfolio, result: Comparison, window: int) -> str:
     return dumps_json(doc, indent=1) + "\n"
 
 
-def _row(result: Comparison, name: str) -> pd.Series:
+def _row(result: Comparison, name: str) -> dict[str, Any]:
+    """The table's row of ``name``, each value as its column holds it (NaN, not NA, for floats)."""
     table = result.table
-    return table.loc[table["forecast_name"] == name].iloc[0]
+    at = int(np.flatnonzero(table["forecast_name"].to_numpy() == name)[0])
+    return {column: table[column].iat[at] for column in table.columns}
 
 
 def _shown(name: str) -> str:
