@@ -500,8 +500,9 @@ def test_a_competing_forecast_named_like_a_benchmark_is_refused() -> None:
 
 def test_no_compared_cell_is_refused() -> None:
     portfolio = _one_series([1.0, 2.0, 3.0], [1.0, 2.0, 3.0], {"b": [1.0, math.nan, math.nan]})
-    with pytest.raises(TriageError, match="no cell of the scoring window"):
+    with pytest.raises(TriageError, match="no cell of the scoring window") as info:
         cmp.compare(portfolio, 2, 1)
+    assert "b is missing in 2 of the 2 cells with demand" in str(info.value)
 
 
 def test_without_competing_forecasts_forecast_meets_naive() -> None:

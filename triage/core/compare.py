@@ -228,11 +228,17 @@ def compare(
     lags = test_lags(portfolio)
     sums = _block_sums(portfolio, names, cols, season, chain, lags, by_series=by_series)
     if sums.cells.sum() == 0:
+        worst = names[int(np.argmax(sums.missing))]
         raise TriageError(
             f"{portfolio.path}: no cell of the scoring window ({len(cols)} latest periods with "
-            f"actual demand) has demand and every compared forecast ({', '.join(names)}).",
+            f"actual demand) has demand and every compared forecast ({', '.join(names)}); "
+            f"{worst} is missing in {int(sums.missing.max()):,} of the "
+            f"{sums.window_cells:,} cells with demand.",
             hint="Each forecast must be present in the same periods; naive needs the previous "
-            "period's actual. Try a longer --window.",
+            "period's actual"
+            + (f", snaive the actual {season} periods back" if season > 1 else "")
+            + ". Try a longer --window"
+            + (" or a smaller --season." if season > 1 else "."),
         )
     history = portfolio.demand[:, : portfolio.last_actual + 1]
     scale = metrics.naive_scale(history, season)
