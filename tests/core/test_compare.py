@@ -544,7 +544,7 @@ def test_a_copy_adds_no_value(seed: int, source: str) -> None:
 
 
 @PROPERTY
-@given(st.integers(0, 10_000), st.sampled_from([0.001, 0.37, 3.0, 1e4]))
+@given(st.integers(0, 10_000), st.sampled_from([0.001, 0.37, 3.0, 1e4, 0.125, 2.0, 1024.0]))
 def test_scaling_leaves_fractions_unchanged(seed: int, c: float) -> None:
     portfolio = generated(seed, n=12, periods=16, priced=False)
     scaled = dataclasses.replace(
@@ -557,5 +557,10 @@ def test_scaling_leaves_fractions_unchanged(seed: int, c: float) -> None:
     b = cmp.compare(scaled, 13, 2).table
     for column in ("bias_pct", "wape", "mase", "mape", "mape_capped", "fva_pct", "p"):
         np.testing.assert_allclose(b[column], a[column], rtol=1e-9, atol=1e-12, err_msg=column)
-    for column in ("rank_wape", "rank_mape", "series_best", "cells", "mape_cells_dropped"):
+    for column in ("cells", "mape_cells_dropped"):
         assert (a[column] == b[column]).all(), column
+    if math.frexp(c)[0] == 0.5:
+        # A power of two scales every sum exactly, so ties (who is best, ranks) stay ties; any
+        # other factor rounds, and two forecasts a rounding apart may swap.
+        for column in ("rank_wape", "rank_mape", "series_best"):
+            assert (a[column] == b[column]).all(), column
