@@ -302,6 +302,21 @@ def test_by_series_rows_match_a_plain_loop() -> None:
             best_count[name] += sums[name] == low
         for before, after in pairwise(result.steps):
             check_close(block.loc[after, "fva_units"], sums[before] - sums[after], "fva")
+            # The series' own test: its per-cell differential, statsmodels OLS on a constant
+            # with a HAC covariance of 0 lags, times the Harvey-Leybourne-Newbold factor.
+            e_b, _ = per_series[(i, before)]  # type: ignore[index]
+            e_a, _ = per_series[(i, after)]  # type: ignore[index]
+            diff = np.abs(e_b) - np.abs(e_a)
+            t = len(diff)
+            if t >= 2 and np.var(diff) > 1e-9:
+                fit = sm.OLS(diff, np.ones(t)).fit(
+                    cov_type="HAC", cov_kwds={"maxlags": 0, "use_correction": False}
+                )
+                stat = float(fit.params[0] / fit.bse[0]) * math.sqrt((t - 1) / t)
+                check_close(block.loc[after, "dm_stat"], stat, f"{i} {after} dm")
+                check_close(
+                    block.loc[after, "p"], 2 * stats.t.sf(abs(stat), t - 1), f"{i} {after} p"
+                )
     table = result.table.set_index("forecast_name")
     for name, n_best in best_count.items():
         assert table.loc[name, "series_best"] == n_best
