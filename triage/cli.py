@@ -28,6 +28,7 @@ from triage.arguments import (
     score_args,
     setting_arg,
 )
+from triage.commands_compare import add_compare_command
 from triage.commands_decide import add_decide_command
 from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
@@ -94,6 +95,7 @@ def build_parser() -> argparse.ArgumentParser:
     add_ledger_commands(sub)
     add_report_commands(sub)
     add_decide_command(sub)
+    add_compare_command(sub)
     return parser
 
 

@@ -1,0 +1,89 @@
+"""Command line: ``triage compare`` (competing forecasts on the same cells).
+
+Reads the portfolio only; ``--output`` is the one file written, atomically, never over an
+existing file without ``--force`` (``triage.core.files``). Every problem is a ``TriageError``
+(exit 2, no traceback).
+"""
+
+from __future__ import annotations
+
+import argparse
+import sys
+from pathlib import Path
+
+from triage.arguments import (
+    force_arg,
+    format_arg,
+    load_portfolio,
+    note,
+    portfolio_args,
+    refuse_overwriting,
+    score_args,
+)
+from triage.core.settings import ScoreSettings
+
+
+def add_compare_command(sub: argparse._SubParsersAction) -> None:
+    """Add ``compare`` to the ``triage`` subcommands."""
+    compare = sub.add_parser(
+        "compare",
+        help="compare the file's forecast, its forecast_<name> columns and naive benchmarks",
+        description="Compare forecasts on the same window cells: the file's forecast, every "
+        "forecast_<name> column, naive (previous period's actual) and, with --season m > 1, "
+        "snaive. A cell counts when demand and every forecast are present. See docs/metrics.md.",
+    )
+    portfolio_args(compare)
+    score_args(compare)
+    compare.add_argument(
+        "--steps",
+        metavar="A,B,C",
+        help="forecast value added chain, in order (default: naive, the forecast_<name> "
+        "columns in file order, forecast; snaive only when listed)",
+    )
+    compare.add_argument(
+        "--by-series",
+        action="store_true",
+        help="also one row per series and forecast (CSV: those rows; JSON: a 'series' list)",
+    )
+    format_arg(compare)
+    compare.add_argument(
+        "--output", type=Path, metavar="PATH", help="write to PATH instead of standard output"
+    )
+    force_arg(compare)
+    compare.set_defaults(handler=cmd_compare)
+
+
+def cmd_compare(args: argparse.Namespace) -> int:
+    """``triage compare``: measure, then write the table, CSV or JSON."""
+    from triage.core.compare import compare, forecast_names, parse_steps
+    from triage.render import compare as render
+
+    settings = ScoreSettings.from_args(args)
+    if args.output is not None:
+        refuse_overwriting([args.output], args.portfolio, force=args.force)
+    portfolio = load_portfolio(args)
+    for notice in portfolio.notices:
+        note(notice)
+    names = forecast_names(portfolio, settings.season)
+    steps = parse_steps(args.steps, names) if args.steps is not None else None
+    result = compare(
+        portfolio, settings.window, settings.season, steps=steps, by_series=args.by_series
+    )
+    if args.format == "csv":
+        text = render.to_csv(result)
+    elif args.format == "json":
+        text = render.to_json(portfolio, result, settings.window)
+    else:
+        text = render.compare_table(portfolio, result, settings.window)
+    if args.output is not None:
+        from triage.core.files import write_text_atomic
+
+        write_text_atomic(args.output, text, force=args.force)
+        return 0
+    if sys.stdout.isatty():
+        from triage.core.text import visible
+
+        text = visible(text, multiline=True)
+    sys.stdout.write(text)
+    sys.stdout.flush()
+    return 0
