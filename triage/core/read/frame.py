@@ -263,7 +263,7 @@ def _build(
             "DEL, � for C1."
         )
     # Competing forecasts follow ``forecast``, in file order.
-    competing = [role for role in plan.roles if schema.competing_name(role) is not None]
+    competing = [name for name in columns if schema.competing_name(name) is not None]
     canonical = [name for name in _ORDER if name in columns]
     at = canonical.index(schema.FORECAST) + 1
     order = canonical[:at] + competing + canonical[at:] + attributes
