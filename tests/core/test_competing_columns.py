@@ -312,3 +312,37 @@ def test_streamed_way_does_not_decline_for_competing_columns(tmp_path: Path) -> 
             streamed(path)
         except FastPathDeclined as exc:  # pragma: no cover - the failure this test looks for
             pytest.fail(f"{path.name}: streamed way declined ({exc})")
+
+
+def test_xlsx_competing_columns_are_read_and_checked(tmp_path: Path) -> None:
+    from openpyxl import Workbook
+
+    book = Workbook()
+    sheet = book.active
+    sheet.append(["item", "period", "demand", "forecast", "forecast_stat", "family"])
+    sheet.append(["A", dt.datetime(2026, 10, 5), 4, 5, 6.5, "seeds"])
+    sheet.append(["A", dt.datetime(2026, 10, 12), 3, 5, None, "seeds"])
+    sheet.append(["A", dt.datetime(2026, 10, 19), None, 5, 7, "seeds"])
+    good = tmp_path / "good.xlsx"
+    book.save(good)
+    p = read_portfolio(good)
+    np.testing.assert_array_equal(p.competing["stat"][0], [6.5, np.nan, 7.0])
+    assert p.attributes == ("family",)
+    sheet["E3"] = "(5)"
+    bad = tmp_path / "bad.xlsx"
+    book.save(bad)
+    with pytest.raises(LoadError, match=r"column 'forecast_stat' has values that are not numbers"):
+        read_portfolio(bad)
+
+
+def test_the_sample_reads_its_two_competing_forecasts_both_ways(tmp_path: Path) -> None:
+    from sample.generate import write_parquet
+
+    sample = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"
+    assert list(read_portfolio(sample).competing) == ["stat", "customer"]
+    assert_competing(streamed(sample), full(sample))
+    path = tmp_path / "g.parquet"
+    write_parquet(path, n_items=30, n_locations=3, n_weeks=20, n_forward=4, competing=True)
+    fast, slow = streamed(path), full(path)
+    assert list(fast.competing) == ["stat", "customer"]
+    assert_same(fast, slow)
