@@ -363,6 +363,10 @@ def build_portfolio(
             instead of refusing (``triage check`` reports the lags and the choice); ``lags``
             lists them all.
 
+    Competing forecasts (frame columns ``forecast_<name>``) become ``Portfolio.competing``:
+    each value is taken from the row ``forecast`` is taken from (the chosen lag in the history,
+    the smallest lag forward), NaN where that row leaves it empty.
+
     Raises:
         LoadError: Irregular calendar, duplicate rows, several lags without ``lag``, an unknown
             lag, no actual demand at all, or a series without any price in a priced file.
