@@ -51,6 +51,13 @@ COLUMNS: tuple[str, ...] = (
     "abc_class",
 )
 
+#: Competing forecasts of the committed sample, written after ``forecast`` (``--competing``).
+COMPETING: tuple[str, ...] = ("forecast_stat", "forecast_customer")
+#: Spread of the statistical engine's forecast around the planning forecast (log scale).
+STAT_NOISE = 0.2
+#: The customer's forecast: share of the planning forecast, spread and rows left empty.
+CUSTOMER_LEVEL, CUSTOMER_NOISE, CUSTOMER_MISSING = 0.7, 0.15, 0.02
+
 PATTERNS: tuple[str, ...] = ("smooth", "erratic", "intermittent", "lumpy")
 SMOOTH, ERRATIC, INTERMITTENT, LUMPY = range(4)
 
@@ -601,6 +608,31 @@ def _forecast(
     return out
 
 
+def competing_forecasts(design: Design, rows: dict[str, np.ndarray], lo: int) -> None:
+    """Add the two competing forecasts of :data:`COMPETING` to the rows of block ``lo``.
+
+    Both start from the planning forecast without its designed bias. ``forecast_stat`` is a
+    statistical engine's: unbiased but noisy (a mean-one log-normal factor of spread
+    :data:`STAT_NOISE` on every row). ``forecast_customer`` is a customer's: steady but low
+    (:data:`CUSTOMER_LEVEL` of it), with a few rows left empty. Under-forecasts have absolute
+    percentage errors of at most 100 %, over-forecasts do not, so MAPE prefers the customer's
+    forecast while WAPE, which weighs errors by volume, prefers the engine's (Hyndman & Koehler
+    2006, "Another look at measures of forecast accuracy"; docs/metrics.md). The draws come
+    from a stream of their own, so the other columns are the same with or without them.
+    """
+    rng = np.random.default_rng([design.seed, 2, lo // CHUNK])
+    base = rows["forecast"] / design.bias[rows["series"]]
+    n = len(base)
+
+    def factor(spread: float) -> np.ndarray:
+        return np.exp(spread * rng.standard_normal(n) - spread * spread / 2.0)
+
+    stat = np.round(base * factor(STAT_NOISE), 1)
+    customer = np.round(base * CUSTOMER_LEVEL * factor(CUSTOMER_NOISE), 1)
+    customer[rng.random(n) < CUSTOMER_MISSING] = np.nan
+    rows["forecast_stat"], rows["forecast_customer"] = stat, customer
+
+
 def iter_blocks(design: Design) -> Iterator[tuple[int, int]]:
     """Series ranges ``(lo, hi)`` of the simulation blocks, :data:`CHUNK` series each."""
     for lo in range(0, design.n_series, CHUNK):
@@ -637,7 +669,16 @@ def frame_from_rows(design: Design, rows: dict[str, np.ndarray]) -> pd.DataFrame
     }
     for name, (codes, categories) in _attribute_codes(design, series).items():
         data[name] = pd.Categorical.from_codes(codes, categories=pd.Index(categories, dtype=str))
-    return pd.DataFrame({c: data[c] for c in COLUMNS})
+    data.update({name: rows[name] for name in COMPETING if name in rows})
+    return pd.DataFrame({c: data[c] for c in columns_of(competing=COMPETING[0] in rows)})
+
+
+def columns_of(*, competing: bool) -> tuple[str, ...]:
+    """The file's columns: :data:`COLUMNS`, with :data:`COMPETING` after ``forecast``."""
+    if not competing:
+        return COLUMNS
+    at = COLUMNS.index("forecast") + 1
+    return COLUMNS[:at] + COMPETING + COLUMNS[at:]
 
 
 def generate_portfolio(
@@ -650,6 +691,7 @@ def generate_portfolio(
     end: date = SAMPLE_END,
     mix: Mix | None = None,
     awkward_ids: bool = True,
+    competing: bool = False,
 ) -> pd.DataFrame:
     """Build a whole portfolio in memory as a long frame.
 
@@ -662,22 +704,29 @@ def generate_portfolio(
         end: Last history week; must be a Monday.
         mix: Pattern and behaviour shares.
         awkward_ids: Include the ids in :data:`AWKWARD_IDS`.
+        competing: Add the competing forecasts :data:`COMPETING` (see
+            :func:`competing_forecasts`).
 
     Returns:
-        One row per series and week, columns :data:`COLUMNS`; ``demand`` is NaN on forward rows,
+        One row per series and week, columns :data:`COLUMNS` (with :data:`COMPETING` after
+        ``forecast`` when asked); ``demand`` is NaN on forward rows,
         text columns are categoricals, ``period`` is a datetime of the Monday.
     """
     design = design_portfolio(
         n_items, n_locations, n_weeks, n_forward, seed, end=end, mix=mix, awkward_ids=awkward_ids
     )
     parts = [simulate(design, lo, hi) for lo, hi in iter_blocks(design)]
+    if competing:
+        for part, (lo, _) in zip(parts, iter_blocks(design), strict=True):
+            competing_forecasts(design, part, lo)
     rows = {key: np.concatenate([p[key] for p in parts]) for key in parts[0]}
     return frame_from_rows(design, rows)
 
 
 def build_sample(seed: int = SAMPLE_SEED) -> pd.DataFrame:
-    """The committed demo portfolio: 100 items at 3 warehouses, 104 + 13 weeks."""
-    return generate_portfolio(SAMPLE_ITEMS, SAMPLE_LOCATIONS, 104, 13, seed)
+    """The committed demo portfolio: 100 items at 3 warehouses, 104 + 13 weeks, with the two
+    competing forecasts."""
+    return generate_portfolio(SAMPLE_ITEMS, SAMPLE_LOCATIONS, 104, 13, seed, competing=True)
 
 
 def write_csv(frame: pd.DataFrame, path: str | Path) -> None:
@@ -697,6 +746,7 @@ def write_parquet(
     end: date = SAMPLE_END,
     mix: Mix | None = None,
     awkward_ids: bool = True,
+    competing: bool = False,
 ) -> int:
     """Stream a portfolio to Parquet, one row group per block of :data:`CHUNK` series.
 
@@ -715,6 +765,7 @@ def write_parquet(
         end: Last history week; must be a Monday.
         mix: Pattern and behaviour shares.
         awkward_ids: Include the ids in :data:`AWKWARD_IDS`.
+        competing: Add the competing forecasts :data:`COMPETING`.
 
     Returns:
         Number of rows written.
@@ -737,6 +788,7 @@ def write_parquet(
             ("period", pa.date32()),
             ("demand", pa.float64()),
             ("forecast", pa.float64()),
+            *[(name, pa.float64()) for name in (COMPETING if competing else ())],
             ("price", pa.float64()),
             ("family", small),
             ("planner", small),
@@ -751,6 +803,8 @@ def write_parquet(
     with pq.ParquetWriter(tmp, schema, compression="snappy") as writer:
         for lo, hi in iter_blocks(design):
             rows = simulate(design, lo, hi)
+            if competing:
+                competing_forecasts(design, rows, lo)
             series = rows["series"]
             first_item = lo // design.n_locations
             last_item = (hi - 1) // design.n_locations
@@ -765,6 +819,8 @@ def write_parquet(
                 "forecast": pa.array(rows["forecast"], pa.float64()),
                 "price": pa.array(rows["price"], pa.float64()),
             }
+            for name in COMPETING if competing else ():
+                columns[name] = pa.array(rows[name], pa.float64(), from_pandas=True)
             for name, (codes, categories) in _attribute_codes(design, series).items():
                 columns[name] = pa.DictionaryArray.from_arrays(
                     pa.array(codes, schema.field(name).type.index_type),
@@ -897,13 +953,23 @@ def main(argv: Sequence[str] | None = None) -> int:
     parser.add_argument(
         "--describe", action="store_true", help="print which series show which behaviour"
     )
+    parser.add_argument(
+        "--competing",
+        action=argparse.BooleanOptionalAction,
+        default=None,
+        help="add the competing forecasts forecast_stat and forecast_customer (default: yes "
+        "for .csv, the demo; no for .parquet, the benchmarks' files, which keep the columns "
+        "earlier revisions read)",
+    )
     args = parser.parse_args(argv)
     sizes = (args.items, args.locations, args.weeks, args.forward, args.seed)
     started = time.perf_counter()
-    if args.out.suffix.lower() == ".parquet":
-        rows = write_parquet(args.out, *sizes)
-    elif args.out.suffix.lower() == ".csv":
-        frame = generate_portfolio(*sizes)
+    suffix = args.out.suffix.lower()
+    competing = args.competing if args.competing is not None else suffix == ".csv"
+    if suffix == ".parquet":
+        rows = write_parquet(args.out, *sizes, competing=competing)
+    elif suffix == ".csv":
+        frame = generate_portfolio(*sizes, competing=competing)
         write_csv(frame, args.out)
         rows = len(frame)
         if args.describe:

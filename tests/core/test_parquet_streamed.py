@@ -74,7 +74,7 @@ def to_parquet(
         values = [None if isinstance(v, float) and np.isnan(v) else v for v in rows[name].tolist()]
         if name == "period":
             columns[name] = pa.array(values, pa.date32())
-        elif name in ("demand", "forecast", "price"):
+        elif name in ("demand", "forecast", "price") or name.startswith("forecast_"):
             columns[name] = pa.array(values, pa.float64())
         elif name == "lag":
             columns[name] = pa.array(values, pa.int32())
@@ -101,6 +101,10 @@ def assert_same(a: Portfolio, b: Portfolio) -> None:
     assert (a.price is None) == (b.price is None)
     if a.price is not None:
         np.testing.assert_array_equal(np.asarray(a.price), np.asarray(b.price))
+    assert list(a.competing) == list(b.competing)
+    for name, values in a.competing.items():
+        assert values.dtype == b.competing[name].dtype == np.float64
+        np.testing.assert_array_equal(values, b.competing[name])
     pd.testing.assert_frame_equal(a.keys, b.keys)
     assert a.calendar.freq == b.calendar.freq
     assert a.calendar.periods.equals(b.calendar.periods)

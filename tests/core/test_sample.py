@@ -27,6 +27,8 @@ EXPECTED_COLUMNS = [
     "period",
     "demand",
     "forecast",
+    "forecast_stat",
+    "forecast_customer",
     "price",
     "family",
     "planner",
@@ -45,7 +47,7 @@ def sample_text() -> pd.DataFrame:
 def sample_frame(sample_text: pd.DataFrame) -> pd.DataFrame:
     """The committed file with numbers and dates parsed; empty demand is missing."""
     out = sample_text.copy()
-    for column in ("demand", "forecast", "price"):
+    for column in ("demand", "forecast", "forecast_stat", "forecast_customer", "price"):
         out[column] = pd.to_numeric(out[column].replace("", np.nan))
     out["period"] = pd.to_datetime(out["period"], format="%Y-%m-%d")
     return out
@@ -274,3 +276,51 @@ def test_bad_arguments_are_rejected() -> None:
         generate.design_portfolio(10, 3, mix=generate.Mix(smooth=0.9))
     with pytest.raises(ValueError, match="n_weeks"):
         generate.design_portfolio(10, 3, n_weeks=2)
+
+
+def test_competing_forecasts_mape_prefers_the_biased_one_wape_does_not(
+    history: pd.DataFrame,
+) -> None:
+    # Issue 12: the sample's customer forecast runs low, which MAPE rewards (an under-forecast's
+    # absolute percentage error is at most 100 %, an over-forecast's is unbounded: Hyndman &
+    # Koehler 2006, "Another look at measures of forecast accuracy"), while WAPE, weighting
+    # errors by volume, prefers the unbiased but noisy statistical one.
+    from sklearn.metrics import mean_absolute_percentage_error
+
+    both = history.loc[history["forecast_stat"].notna() & history["forecast_customer"].notna()]
+    demand = both["demand"].to_numpy()
+    stat, customer = both["forecast_stat"].to_numpy(), both["forecast_customer"].to_numpy()
+    # MAPE by sklearn.metrics.mean_absolute_percentage_error on the cells with non-zero demand.
+    nonzero = demand != 0
+    mape_stat = mean_absolute_percentage_error(demand[nonzero], stat[nonzero])
+    mape_customer = mean_absolute_percentage_error(demand[nonzero], customer[nonzero])
+    assert mape_customer < mape_stat
+
+    # WAPE = sum |forecast - demand| / sum |demand|; bias = sum (forecast - demand) / sum demand
+    # (docs/metrics.md).
+    def wape(forecast: np.ndarray) -> float:
+        return float(np.abs(forecast - demand).sum() / np.abs(demand).sum())
+
+    def bias(forecast: np.ndarray) -> float:
+        return float((forecast - demand).sum() / demand.sum())
+
+    assert wape(customer) > wape(stat)
+    assert bias(customer) < -0.05
+    assert abs(bias(stat)) < 0.05, "the statistical forecast is unbiased"
+    # Noisy: further from demand than the planning forecast it was drawn around.
+    assert wape(stat) > wape(both["forecast"].to_numpy())
+
+
+def test_competing_forecasts_are_seeded_apart_from_the_other_columns(
+    sample_frame: pd.DataFrame,
+) -> None:
+    # The competing forecasts come from a random stream of their own: without them, the
+    # generator writes every other column exactly as before.
+    without = generate.generate_portfolio(seed=generate.SAMPLE_SEED)
+    assert list(without.columns) == list(generate.COLUMNS)
+    for column in ("demand", "forecast", "price"):
+        np.testing.assert_array_equal(sample_frame[column].to_numpy(), without[column].to_numpy())
+    for column in ("item", "location", "family", "planner", "supplier", "abc_class"):
+        assert sample_frame[column].tolist() == without[column].astype(str).tolist(), column
+    assert sample_frame["forecast_customer"].isna().any(), "some customer cells are empty"
+    assert sample_frame["forecast_stat"].notna().all()

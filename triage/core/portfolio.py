@@ -363,6 +363,10 @@ def build_portfolio(
             instead of refusing (``triage check`` reports the lags and the choice); ``lags``
             lists them all.
 
+    Competing forecasts (frame columns ``forecast_<name>``) become ``Portfolio.competing``:
+    each value is taken from the row ``forecast`` is taken from (the chosen lag in the history,
+    the smallest lag forward), NaN where that row leaves it empty.
+
     Raises:
         LoadError: Irregular calendar, duplicate rows, several lags without ``lag``, an unknown
             lag, no actual demand at all, or a series without any price in a priced file.
@@ -420,6 +424,9 @@ def build_portfolio(
     demand = np.full(n_series * n_periods, np.nan)
     forecast = np.full(n_series * n_periods, np.nan)
     forecast_col = frame[schema.FORECAST].to_numpy(dtype=np.float64)
+    # Competing forecasts (forecast_<name>) are taken from the rows ``forecast`` is taken from.
+    rivals = [c for c in frame.columns if schema.competing_name(c) is not None]
+    taken: list[np.ndarray] | None = None
     if lag_col is None:
         # One row per cell (duplicates were refused), and forward rows carry no demand by
         # definition of the latest actual period: every row scatters as it is.
@@ -430,6 +437,7 @@ def build_portfolio(
         scored = ~forward & (lag_col == chosen)
         demand[cell[scored]] = demand_col[scored]
         forecast[cell[scored]] = forecast_col[scored]
+        taken = [np.flatnonzero(scored)] if rivals else None
         del scored
         if len(lags) > 1:
             _merge_other_lag_demand(loaded, demand, cell, demand_col, ~forward)
@@ -441,8 +449,24 @@ def build_portfolio(
             first[1:] = cell[fwd][1:] != cell[fwd][:-1]
             fwd = fwd[first]
             forecast[cell[fwd]] = forecast_col[fwd]
+            if taken is not None:
+                taken.append(fwd)
         del forward
     del demand_col, forecast_col, period, lag_col
+    competing: dict[str, np.ndarray] = {}
+    rows_taken = None if taken is None else np.concatenate(taken)
+    for column in rivals:
+        values = frame[column].to_numpy(dtype=np.float64)
+        flat = np.full(n_series * n_periods, np.nan)
+        if rows_taken is None:
+            flat[cell] = values
+        else:
+            flat[cell[rows_taken]] = values[rows_taken]
+        competing[column[len(schema.COMPETING_PREFIX) :]] = flat.reshape(n_series, n_periods)
+        del values
+        if consume:
+            del frame[column]
+    del rows_taken, taken
     if consume:
         for name in (schema.DEMAND, schema.FORECAST, schema.LAG):
             if name in frame.columns:
@@ -482,6 +506,7 @@ def build_portfolio(
         lags=lags,
         rows=n_rows,
         notices=tuple(notices),
+        competing=competing,
     )
 
 

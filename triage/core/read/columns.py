@@ -9,6 +9,7 @@ not data: their control characters become visible symbols here.
 
 from __future__ import annotations
 
+import re
 from collections.abc import Sequence
 from dataclasses import dataclass
 from pathlib import Path
@@ -49,7 +50,8 @@ def parse_column_map(text: str) -> dict[str, str]:
     """
     hint = (
         "Write pairs canonical=header separated by commas, e.g. "
-        f"--columns demand=qty_shipped,item=sku. Canonical names: {', '.join(schema.KNOWN)}."
+        f"--columns demand=qty_shipped,item=sku. Canonical names: {', '.join(schema.KNOWN)}, "
+        "and forecast_<name> for a competing forecast (<name>: lower-case letters, digits, _)."
     )
     mapping: dict[str, str] = {}
     pairs = [part.strip() for part in text.split(",")]
@@ -66,7 +68,7 @@ def parse_column_map(text: str) -> dict[str, str]:
             raise TriageError(
                 f"--columns: {pair!r} is not of the form canonical=header.", hint=hint
             )
-        if name not in schema.KNOWN:
+        if not schema.is_canonical(name):
             raise TriageError(f"--columns: {name!r} is not a column triage knows.", hint=hint)
         if name in mapping:
             raise TriageError(f"--columns: {name!r} is given twice.", hint=hint)
@@ -156,11 +158,12 @@ def checked_mapping(path: Path, columns: dict[str, str] | None) -> dict[str, str
     mapping: dict[str, str] = {}
     for name, header in columns.items():
         key = name.strip().lower()
-        if key not in schema.KNOWN:
+        if not schema.is_canonical(key):
             fail(
                 path,
                 f"--columns names {name!r}, which is not a column triage knows.",
-                f"Canonical names are {', '.join(schema.KNOWN)}.",
+                f"Canonical names are {', '.join(schema.KNOWN)}, and forecast_<name> for a "
+                "competing forecast (<name>: lower-case letters, digits, _).",
             )
         mapping[key] = sanitized(str(header)).strip()
     return mapping
@@ -169,7 +172,7 @@ def checked_mapping(path: Path, columns: dict[str, str] | None) -> dict[str, str
 def column_label(plan: ColumnPlan, position: int) -> str:
     """A column as a message names it: its header, and the canonical name it was mapped to."""
     header, role = plan.headers[position], plan.roles[position]
-    if role is None or role not in schema.KNOWN or header == role:
+    if role is None or not schema.is_canonical(role) or header == role:
         return f"'{header}'"
     return f"'{header}' ({role})"
 
@@ -237,6 +240,16 @@ def plan_columns(
             )
         if matches:
             roles[matches[0]] = name
+    for position, header in enumerate(headers):
+        if roles[position] is not None or not schema.looks_competing(header):
+            continue
+        if schema.competing_name(header) is None:
+            _refuse_competing_header(path, header)
+        if header in assigned:
+            ignored.append(header)
+            roles[position] = ""
+        else:
+            roles[position] = header
     if ignored:
         notices.append(
             f"Column {quote_list(ignored)} was not read: --columns maps that name to another "
@@ -279,6 +292,22 @@ def plan_columns(
             "computes a column of that name itself."
         )
     return ColumnPlan(headers, roles, attributes, unnamed)
+
+
+def _refuse_competing_header(path: Path, header: str) -> NoReturn:
+    """A header written like a competing forecast that is not ``forecast_<name>`` exactly."""
+    rest = header[len(schema.FORECAST) + 1 :]
+    name = re.sub(r"[^a-z0-9_]+", "_", rest.lower()).strip("_")
+    suggested = f"{schema.COMPETING_PREFIX}{name or 'stat'}"
+    fail(
+        path,
+        f"column '{header}' is named like a competing forecast, but a competing forecast is "
+        "named forecast_<name>, with <name> one or more lower-case letters, digits and '_' "
+        f"(e.g. '{suggested}').",
+        f"Rename the column to '{suggested}', or name it with --columns "
+        f"{suggested}={header}; if it is not a forecast, give it a name that does not start "
+        "with 'forecast'.",
+    )
 
 
 #: Rows (lines, records) searched for the header below a title block.

@@ -424,7 +424,7 @@ def _csv_dtypes(plan: ColumnPlan) -> tuple[dict[str, Any], dict[str, list[str]]]
     na_values: dict[str, list[str]] = {}
     for position, role in enumerate(plan.roles):
         name = f"c{position}"
-        if role in schema.NUMERIC:
+        if schema.is_number_column(role):
             dtypes[name] = "float64"
             na_values[name] = list(schema.NUMERIC_MISSING)
         elif role == schema.ITEM:
@@ -483,7 +483,7 @@ def read_delimited(
     except ValueError:
         # A numeric column holds text: read those columns as text and report the cells.
         for position, role in enumerate(plan.roles):
-            if role in schema.NUMERIC:
+            if schema.is_number_column(role):
                 dtypes[f"c{position}"] = str
         try:
             frame = read(dtypes, {})

@@ -18,6 +18,8 @@ Types of the canonical frame:
   :data:`~triage.core.schema.NUMERIC_MISSING`), never zero. Finite; negative allowed.
 * ``price`` (optional): ``float64``, NaN allowed, finite, not negative.
 * ``lag`` (optional): ``int64``, whole numbers from 0 up, never missing.
+* ``forecast_<name>`` (optional, any number, right after ``forecast`` in file order): competing
+  forecasts, ``float64`` checked as ``forecast`` is.
 * every other column: a text attribute, ``category`` with ``str`` categories, missing as ``""``.
 
 Ids and attribute cells keep their control characters exactly as written (see
@@ -245,7 +247,7 @@ def _build(
             columns[role] = checked_periods(ctx, position, data[position])
         elif role == schema.LAG:
             columns[role] = checked_lags(ctx, position, data[position])
-        elif role in schema.NUMERIC:
+        elif schema.is_number_column(role):
             columns[role] = checked_numbers(ctx, position, data[position], role)
     attributes: list[str] = []
     for position, name in plan.attributes.items():
@@ -260,7 +262,11 @@ def _build(
             "as visible symbols on screen: ␀-␟ for C0 (tab ␉, line feed ␊, escape ␛), ␡ for "
             "DEL, � for C1."
         )
-    order = [name for name in _ORDER if name in columns] + attributes
+    # Competing forecasts follow ``forecast``, in file order.
+    competing = [name for name in columns if schema.competing_name(name) is not None]
+    canonical = [name for name in _ORDER if name in columns]
+    at = canonical.index(schema.FORECAST) + 1
+    order = canonical[:at] + competing + canonical[at:] + attributes
     # copy=False keeps each column as its own block instead of copying into 2-D blocks.
     frame = pd.DataFrame({name: columns[name] for name in order}, copy=False)
     frame.index = pd.RangeIndex(len(frame))

@@ -539,11 +539,17 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
     attribute_codes = {name: np.full(n_series, -1, dtype=np.int32) for name in source.attributes}
 
     select = rows_marked(is_latest, cell) if is_latest is not None else None
-    names = [schema.DEMAND, schema.FORECAST]
+    # Competing forecasts (forecast_<name>): one row per cell here, so each row scatters as
+    # ``forecast`` does.
+    rivals = [name for name in source.columns if schema.competing_name(name) is not None]
+    competing = {name: np.full(n_series * n_periods, np.nan) for name in rivals}
+    names = [schema.DEMAND, schema.FORECAST, *rivals]
     for chunk in source.chunks(names, sparse=source.attributes, select=select, last=True):
         cells = cell[chunk.start : chunk.start + chunk.size].astype(np.intp)
         demand[cells] = chunk.columns[schema.DEMAND]
         forecast[cells] = chunk.columns[schema.FORECAST]
+        for name, flat in competing.items():
+            flat[cells] = chunk.columns[name]
         if chunk.selected is not None:
             owners = cells[chunk.selected] // n_periods
             for name, codes in attribute_codes.items():
@@ -590,6 +596,10 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
         lags=lags,
         rows=n_rows,
         notices=tuple(notices),
+        competing={
+            name[len(schema.COMPETING_PREFIX) :]: flat.reshape(n_series, n_periods)
+            for name, flat in competing.items()
+        },
         _text_codes={
             k: (keys, codes, large_text(values)) for k, (values, codes) in text_codes.items()
         },

@@ -804,7 +804,7 @@ def _check_formulas(
         rows = np.flatnonzero(is_formula & pd.isna(column).to_numpy()) + header_at + 2
         if rows.size:
             unset.append(f"column {column_label(plan, position)} {format_rows(rows.tolist())}")
-        if plan.roles[position] in schema.NUMERIC:
+        if schema.is_number_column(plan.roles[position]):
             values = column.tolist()
             is_zero = np.array([v == 0 and not isinstance(v, bool) for v in values], dtype=bool)
             zero = np.flatnonzero(is_formula & is_zero) + header_at + 2
