@@ -45,8 +45,21 @@ TABLE = [
 ]
 
 
-def test_sample_without_competing_forecasts_meets_naive() -> None:
-    result = run("compare", str(SAMPLE), "--format", "csv")
+def _without_competing(folder: Path) -> Path:
+    """The sample with its ``forecast_<name>`` columns left out, every other cell as written."""
+    import pandas as pd
+
+    frame = pd.read_csv(SAMPLE, dtype=str, keep_default_na=False)
+    plain = folder / "plain.csv"
+    frame.drop(columns=[c for c in frame.columns if c.startswith("forecast_")]).to_csv(
+        plain, index=False
+    )
+    return plain
+
+
+def test_sample_without_competing_forecasts_meets_naive(tmp_path: Path) -> None:
+    plain = _without_competing(tmp_path)
+    result = run("compare", str(plain), "--format", "csv")
     assert result.returncode == 0, result.stderr
     rows = list(csv.DictReader(io.StringIO(result.stdout)))
     assert list(rows[0]) == TABLE
@@ -58,11 +71,27 @@ def test_sample_without_competing_forecasts_meets_naive() -> None:
     assert float(forecast["fva_units"]) == pytest.approx(
         float(naive["abs_error"]) - float(forecast["abs_error"])
     )
-    table = run("compare", str(SAMPLE))
+    table = run("compare", str(plain))
     assert table.returncode == 0, table.stderr
     assert "compared on 3,900 of 3,900 window cells" in table.stdout
     assert "Best: forecast" in table.stdout
     assert "Step naive -> forecast: removes" in table.stdout
+
+
+def test_the_samples_competing_forecasts_read_from_the_file() -> None:
+    # sample/README.md: forecast_customer is biased low and MAPE's choice; forecast_stat is
+    # unbiased but noisy. Read from the CSV itself (no patched loader).
+    result = run("compare", str(SAMPLE), "--format", "csv")
+    assert result.returncode == 0, result.stderr
+    rows = {r["forecast_name"]: r for r in csv.DictReader(io.StringIO(result.stdout))}
+    assert list(rows) == ["forecast", "stat", "customer", "naive"]
+    customer, stat = rows["customer"], rows["stat"]
+    assert float(customer["mape"]) < float(stat["mape"])
+    assert float(customer["wape"]) > float(stat["wape"])
+    assert float(customer["bias_pct"]) <= -0.05
+    assert customer["rank_mape"] == "1"
+    table = run("compare", str(SAMPLE))
+    assert "Warning: MAPE would pick customer" in table.stdout
 
 
 def test_season_adds_snaive_and_steps_order_the_chain() -> None:
@@ -85,7 +114,9 @@ def test_season_adds_snaive_and_steps_order_the_chain() -> None:
 def test_bad_steps_exit_2_naming_the_unknown_and_the_available() -> None:
     result = run("compare", str(SAMPLE), "--steps", "naive,stats")
     assert result.returncode == 2
-    assert "'stats'" in result.stderr and "forecast, naive" in result.stderr
+    assert "'stats'" in result.stderr
+    # The sample's own forecasts, in file order, then the built-in benchmark.
+    assert "Available: forecast, stat, customer, naive." in result.stderr
     assert "Traceback" not in result.stderr
     snaive = run("compare", str(SAMPLE), "--steps", "naive,snaive")
     assert snaive.returncode == 2 and "--season" in snaive.stderr

@@ -253,3 +253,41 @@ def test_both_ways_of_reading_check_the_rows_against_memory(
     monkeypatch.setattr(memory, "_memory_limit", lambda: 1000)
     with pytest.raises(LoadError):
         read_portfolio(path)
+
+
+@pytest.mark.parametrize("kind", ["csv", "parquet"])
+def test_competing_forecasts_count_in_the_memory_a_file_needs(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, kind: str
+) -> None:
+    # Each forecast_<name> column adds a dense matrix: a limit that fits the rows alone but not
+    # their competing forecasts refuses the file, both ways, before any cell is read.
+    import pandas as pd
+
+    from triage.core.errors import LoadError
+    from triage.core.read import read_portfolio
+
+    frame = pd.DataFrame(
+        {
+            "item": ["A"] * 1000,
+            "period": pd.date_range("2020-01-06", periods=1000, freq="W-MON"),
+            "demand": 1.0,
+            "forecast": 2.0,
+            "forecast_stat": 1.5,
+            "forecast_customer": 1.0,
+        }
+    )
+    path = tmp_path / f"p.{kind}"
+    if kind == "csv":
+        frame.to_csv(path, index=False, date_format="%Y-%m-%d")
+    else:
+        frame.to_parquet(path, index=False)
+    assert memory.competing_columns(list(frame.columns), {}) == 2
+    assert sorted(read_portfolio(path).competing) == ["customer", "stat"]
+    # The rows alone would fit the streamed way; with two competing forecasts they do not.
+    streamed = f"{kind}-streamed"
+    monkeypatch.setattr(memory, "_memory_limit", lambda: 1000 * memory.BYTES_PER_ROW[streamed])
+    with pytest.raises(LoadError) as caught:
+        read_portfolio(path)
+    assert "the file has 1,000 rows" in str(caught.value)
+    # A column mapped onto a competing name counts too.
+    assert memory.competing_columns(["item", "engine_fc"], {"forecast_stat": "engine_fc"}) == 1

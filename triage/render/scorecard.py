@@ -466,6 +466,11 @@ def check_text(portfolio: Portfolio, window: int, season: int, *, lag_given: boo
             else "no: errors are ranked in units"
         ),
         f"attributes     {', '.join(portfolio.attributes) if portfolio.attributes else 'none'}",
+        *(
+            [f"competing      {', '.join(portfolio.competing)} (triage compare ranks them)"]
+            if portfolio.competing
+            else []
+        ),
         "",
         f"missing actuals   {missing_hist:,} series-periods after each series' first actual "
         f"({window_missing:,} in the window); missing is never read as zero",

@@ -46,7 +46,7 @@ from triage.core.read.columns import (
     plan_columns,
     refuse_title_block,
 )
-from triage.core.read.memory import check_memory
+from triage.core.read.memory import check_memory, competing_columns
 from triage.core.read.messages import EXAMPLES_SHOWN, fail, plural, sanitized
 from triage.core.read.stream import FastPathDeclined, StreamSource
 
@@ -441,7 +441,7 @@ def read_delimited(
 ) -> RawColumns:
     scan = _prescan_csv(path, options)
     header = _csv_header(path, scan, options, mapping)
-    check_memory(path, max(scan.lines - 1, 0), "csv")
+    check_memory(path, max(scan.lines - 1, 0), "csv", competing_columns(header, mapping))
     plan = plan_columns(path, header, mapping, notices)
     width = len(header)
     names = [f"c{i}" for i in range(width)]
@@ -722,7 +722,12 @@ def scan_csv(
     mapping = checked_mapping(file_path, columns)
     scan = _prescan_csv(file_path, dialect)
     header = _csv_header(file_path, scan, dialect, mapping)
-    check_memory(file_path, max(scan.lines - 1, 0), "csv-streamed")
+    check_memory(
+        file_path,
+        max(scan.lines - 1, 0),
+        "csv-streamed",
+        competing_columns(header, mapping),
+    )
     notices: list[str] = []
     plan = plan_columns(file_path, header, mapping, notices)
     if plan.unnamed:

@@ -8,8 +8,10 @@ from __future__ import annotations
 
 import contextlib
 import os
+from collections.abc import Iterable, Mapping
 from pathlib import Path
 
+from triage.core import schema
 from triage.core.read.messages import fail
 
 #: Peak memory per row of each way of reading, in bytes: measured at 116M rows
@@ -17,12 +19,32 @@ from triage.core.read.messages import fail
 #: identical rows compresses to a few megabytes; the row count, known before any cell is read,
 #: says what reading it would take.
 BYTES_PER_ROW = {"parquet-streamed": 32, "parquet": 80, "csv-streamed": 80, "csv": 140}
+#: What each competing forecast column adds per row: its float64 cell in the dense matrix and
+#: one float64 copy while it is read, twice that in the full ways (the long frame holds it
+#: too). Estimated from that layout, not measured.
+BYTES_PER_COMPETING = {"parquet-streamed": 16, "parquet": 24, "csv-streamed": 16, "csv": 24}
 
 
-def check_memory(path: Path, rows: int, way: str) -> None:
-    """Refuse a file whose rows would need more memory than this machine (or process) has."""
+def competing_columns(headers: Iterable[str], mapping: Mapping[str, str]) -> int:
+    """How many competing forecast columns a file may hold: headers named ``forecast_<name>``
+    and ``--columns`` entries that map one (a column counted twice only makes the estimate
+    safer)."""
+    return sum(schema.competing_name(h) is not None for h in headers) + sum(
+        schema.competing_name(c) is not None for c in mapping
+    )
+
+
+def check_memory(path: Path, rows: int, way: str, competing: int = 0) -> None:
+    """Refuse a file whose rows would need more memory than this machine (or process) has.
+
+    Args:
+        path: The file, for the message.
+        rows: Its rows, known before any cell is read.
+        way: Which way of reading (``BYTES_PER_ROW``).
+        competing: Competing forecast columns it holds (``competing_columns``).
+    """
     total = _memory_limit()
-    need = rows * BYTES_PER_ROW[way]
+    need = rows * (BYTES_PER_ROW[way] + competing * BYTES_PER_COMPETING[way])
     if total is not None and need > total:
         fail(
             path,

@@ -26,7 +26,7 @@ from triage.core.read.columns import (
     file_kind,
     plan_columns,
 )
-from triage.core.read.memory import check_memory
+from triage.core.read.memory import check_memory, competing_columns
 from triage.core.read.messages import fail
 from triage.core.read.stream import FastPathDeclined, StreamSource, float_values
 
@@ -44,7 +44,7 @@ def read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> Raw
             f"cannot read this as a Parquet file ({exc}).",
             "Check that the file is Parquet and not damaged; export it again if needed.",
         )
-    check_memory(path, metadata.num_rows, "parquet")
+    check_memory(path, metadata.num_rows, "parquet", competing_columns(arrow_schema.names, mapping))
     # pandas stores an unnamed index as '__index_level_N__'; it is not data.
     keep = [
         i for i, f in enumerate(arrow_schema) if not re.fullmatch(r"__index_level_\d+__", f.name)
@@ -204,7 +204,12 @@ def scan_parquet(
         raise FastPathDeclined("unreadable") from exc
     if file.metadata.num_rows == 0:
         raise FastPathDeclined("no rows")
-    check_memory(file_path, file.metadata.num_rows, "parquet-streamed")
+    check_memory(
+        file_path,
+        file.metadata.num_rows,
+        "parquet-streamed",
+        sum(schema.competing_name(name) is not None for name in names),
+    )
     return StreamSource(
         path=file_path,
         file=file,
