@@ -221,14 +221,9 @@ def test_a_parquet_file_of_more_rows_than_memory_holds_is_refused_before_reading
     assert "Split the file" in done.stderr
 
 
-@pytest.mark.parametrize("kind", ["csv", "parquet"])
-def test_both_ways_of_reading_check_the_rows_against_memory(
-    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, kind: str
-) -> None:
+def _thousand_weeks(folder: Path, kind: str, **more: float) -> Path:
+    """One series of 1,000 weekly rows as ``p.csv`` or ``p.parquet``, with ``more`` columns."""
     import pandas as pd
-
-    from triage.core.errors import LoadError
-    from triage.core.read import read_portfolio
 
     frame = pd.DataFrame(
         {
@@ -236,13 +231,25 @@ def test_both_ways_of_reading_check_the_rows_against_memory(
             "period": pd.date_range("2020-01-06", periods=1000, freq="W-MON"),
             "demand": 1.0,
             "forecast": 2.0,
+            **more,
         }
     )
-    path = tmp_path / f"p.{kind}"
+    path = folder / f"p.{kind}"
     if kind == "csv":
         frame.to_csv(path, index=False, date_format="%Y-%m-%d")
     else:
         frame.to_parquet(path, index=False)
+    return path
+
+
+@pytest.mark.parametrize("kind", ["csv", "parquet"])
+def test_both_ways_of_reading_check_the_rows_against_memory(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, kind: str
+) -> None:
+    from triage.core.errors import LoadError
+    from triage.core.read import read_portfolio
+
+    path = _thousand_weeks(tmp_path, kind)
     assert read_portfolio(path).rows == 1000
     # Enough for the streamed way, not for the full loader.
     monkeypatch.setattr(memory, "_memory_limit", lambda: 1000 * memory.BYTES_PER_ROW[kind] - 1)
@@ -261,27 +268,12 @@ def test_competing_forecasts_count_in_the_memory_a_file_needs(
 ) -> None:
     # Each forecast_<name> column adds a dense matrix: a limit that fits the rows alone but not
     # their competing forecasts refuses the file, both ways, before any cell is read.
-    import pandas as pd
-
     from triage.core.errors import LoadError
     from triage.core.read import read_portfolio
 
-    frame = pd.DataFrame(
-        {
-            "item": ["A"] * 1000,
-            "period": pd.date_range("2020-01-06", periods=1000, freq="W-MON"),
-            "demand": 1.0,
-            "forecast": 2.0,
-            "forecast_stat": 1.5,
-            "forecast_customer": 1.0,
-        }
-    )
-    path = tmp_path / f"p.{kind}"
-    if kind == "csv":
-        frame.to_csv(path, index=False, date_format="%Y-%m-%d")
-    else:
-        frame.to_parquet(path, index=False)
-    assert memory.competing_columns(list(frame.columns), {}) == 2
+    path = _thousand_weeks(tmp_path, kind, forecast_stat=1.5, forecast_customer=1.0)
+    columns = ["item", "period", "demand", "forecast", "forecast_stat", "forecast_customer"]
+    assert memory.competing_columns(columns, {}) == 2
     assert sorted(read_portfolio(path).competing) == ["customer", "stat"]
     # The rows alone would fit the streamed way; with two competing forecasts they do not.
     streamed = f"{kind}-streamed"
