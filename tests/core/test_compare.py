@@ -260,6 +260,32 @@ def test_reference_libraries_on_the_compared_cells() -> None:
         )
 
 
+@pytest.mark.parametrize("season", [1, 4])
+def test_one_series_scores_match_the_plain_loop(season: int) -> None:
+    """The review screens' metrics card (``series_scores``) counts what the plain loop counts,
+    series by series: Σ|e|, Σe and WAPE over the cells where demand and every forecast exist
+    (WAPE: Kolassa & Schütz 2007, docs/sources.md §1.2)."""
+    portfolio = generated(11)
+    cols = np.asarray(window_cols(portfolio, 10))
+    names = cmp.forecast_names(portfolio, season)
+    expected = oracle(portfolio, 10, season, cmp.default_steps(names))
+    per_series = expected["per_series"]
+    for i in range(portfolio.n_series):
+        scores = cmp.series_scores(portfolio, i, cols, season)
+        assert tuple(s.name for s in scores) == names
+        for s in scores:
+            if i not in expected["series_cells"]:  # type: ignore[operator]
+                assert s.cells == 0 and s.abs_error == 0 and math.isnan(s.wape)
+                continue
+            e, d = per_series[(i, s.name)]  # type: ignore[index]
+            assert s.cells == len(e)
+            check_close(s.abs_error, sum(abs(x) for x in e), f"{i} {s.name} abs")
+            check_close(s.bias, sum(e), f"{i} {s.name} bias")
+            total = sum(d)
+            check_close(s.wape, s.abs_error / total if total > 0 else math.nan, "wape")
+            check_close(s.bias_pct, sum(e) / total if total > 0 else math.nan, "bias_pct")
+
+
 def test_by_series_rows_match_a_plain_loop() -> None:
     portfolio = generated(7)
     result = cmp.compare(portfolio, 10, 1, by_series=True)

@@ -41,3 +41,31 @@ def test_clipping_cuts_a_spike_and_says_so() -> None:
     # Nothing to clip: no mark, the chart is as drawn without clipping.
     flat = series(spike_at=None)
     assert clip_level([flat.demand, flat.forecast]) is None
+
+
+def test_other_forecasts_are_overlaid_with_a_legend_and_can_be_hidden() -> None:
+    """Each competing forecast is drawn in its own marker and named in the legend; the
+    forecast under review is drawn over them (common practice: the line being judged on top)."""
+    base = series(spike_at=None)
+    stat = np.full(len(base.labels), 10.0)
+    customer = np.full(len(base.labels), 70.0)
+    customer[:50] = np.nan  # a gap stays a gap
+    data = ChartSeries(
+        base.labels,
+        base.demand,
+        base.forecast,
+        None,
+        base.window_start,
+        base.last_actual,
+        others=(("stat", stat), ("customer", customer)),
+    )
+    text = render_chart(data, 100, 20).plain
+    legend = [line for line in text.splitlines() if "stat" in line or "customer" in line]
+    assert any("xx stat" in line for line in legend)  # marker of OTHER_STYLES[0]
+    assert any("** customer" in line for line in legend)  # marker of OTHER_STYLES[1]
+    # The scale reaches the customer's 70, above demand (40) and forecast (42).
+    assert "70" in text
+    hidden = render_chart(data, 100, 20, others=False).plain
+    assert "stat" not in hidden and "customer" not in hidden
+    assert "70" not in hidden
+    assert render_chart(base, 100, 20).plain == render_chart(base, 100, 20, others=False).plain

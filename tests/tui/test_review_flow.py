@@ -10,6 +10,7 @@ import sqlite3
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 from textual.widgets import Input, TextArea
 
@@ -18,6 +19,7 @@ from triage.core.ledger import FOLDER_LEDGER, Ledger
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.decision import DecisionScreen
 from triage.tui.screens.dialogs import HelpScreen, PromptScreen
+from triage.tui.widgets.chart import SeriesChart
 from triage.tui.widgets.series_list import SeriesList
 
 ROOT = Path(__file__).resolve().parents[2]
@@ -161,6 +163,47 @@ async def test_switch_to_bias_order(portfolio: Path) -> None:
         series_list = app.query_one(SeriesList)
         np.testing.assert_array_equal(series_list.order, app.session.bias_order)
         assert app.session.flag[series_list.order[0]] != 0  # persistent bias first
+
+
+async def test_other_forecasts_in_the_card_and_the_chart(portfolio: Path) -> None:
+    """The sample carries forecast_stat and forecast_customer: the metrics card lists each
+    forecast's WAPE and bias on the same cells, and o hides and shows them on the chart."""
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        series = app.query_one(SeriesList).current
+        body = str(app.query_one("#detail-text").render())
+        scores = {s.name: s for s in app.session.forecast_scores(series)}
+        assert list(scores) == ["forecast", "stat", "customer", "naive"]
+        stat = scores["stat"]
+        # WAPE = Σ|e| / Σdemand over the shared cells (Kolassa & Schütz 2007, docs/sources.md
+        # §1.2), shown as a whole percentage.
+        assert f"stat {stat.abs_error / stat.demand * 100:.0f}%" in body
+        assert f"forecasts on the same {stat.cells} weeks" in body
+        chart = app.query_one("#chart", SeriesChart)
+        await wait_for(pilot, lambda: "customer" in str(chart.render()), "the chart's legend")
+        await pilot.press("o")
+        assert not chart.others and app.status_text == "chart: other forecasts hidden"
+        await wait_for(pilot, lambda: "customer" not in str(chart.render()), "the overlay gone")
+        await pilot.press("a")
+        await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the dialog")
+        assert not app.screen.query_one("#decision-chart", SeriesChart).others
+        assert "stat " in str(app.screen.query_one("#decision-card").render())
+        await pilot.press("escape")
+        await pilot.press("o")
+        assert chart.others and app.status_text == "chart: other forecasts shown"
+
+
+async def test_without_other_forecasts_the_card_and_key_say_so(tmp_path: Path) -> None:
+    frame = pd.read_csv(SAMPLE)
+    plain = tmp_path / "plain.csv"
+    frame.drop(columns=["forecast_stat", "forecast_customer"]).to_csv(plain, index=False)
+    app = make_app(plain)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        assert "forecasts on the same" not in str(app.query_one("#detail-text").render())
+        await pilot.press("o")
+        assert app.status_text.startswith("chart: the file has no other forecasts")
 
 
 async def test_reopen_resumes_where_the_reviewer_stopped(portfolio: Path) -> None:

@@ -293,6 +293,91 @@ def _window(matrix: np.ndarray, rows: slice, cols: np.ndarray, shift: int = 0) -
     return out
 
 
+def _sources(
+    portfolio: Portfolio, names: Sequence[str], season: int
+) -> list[tuple[np.ndarray, int]]:
+    """Each forecast as (matrix, shift): its value in period t is ``matrix[:, t - shift]``."""
+    sources: list[tuple[np.ndarray, int]] = []
+    for name in names:
+        if name == FORECAST:
+            sources.append((portfolio.forecast, 0))
+        elif name == NAIVE:
+            sources.append((portfolio.demand, 1))
+        elif name == SNAIVE:
+            sources.append((portfolio.demand, season))
+        else:
+            sources.append((portfolio.competing[name], 0))
+    return sources
+
+
+@dataclass(frozen=True)
+class SeriesScore:
+    """One forecast of one series over the series' compared window cells.
+
+    Attributes:
+        name: The forecast (``forecast``, a competing name, ``naive``, ``snaive``).
+        cells: Window cells where demand and every compared forecast are present.
+        demand: Σ demand over those cells.
+        abs_error: Σ|e| over those cells.
+        bias: Σe over those cells (e = forecast − demand).
+    """
+
+    name: str
+    cells: int
+    demand: float
+    abs_error: float
+    bias: float
+
+    @property
+    def wape(self) -> float:
+        """Σ|e| / Σdemand, NaN unless Σdemand > 0."""
+        return self.abs_error / self.demand if self.demand > 0 else float("nan")
+
+    @property
+    def bias_pct(self) -> float:
+        """Σe / Σdemand, NaN unless Σdemand > 0."""
+        return self.bias / self.demand if self.demand > 0 else float("nan")
+
+
+def series_scores(
+    portfolio: Portfolio, series: int, cols: np.ndarray, season: int = SEASON.default
+) -> tuple[SeriesScore, ...]:
+    """Every forecast of one series on the same window cells, as ``compare --by-series`` counts
+    them (the review screens' metrics card; one row of numpy, cheap on every cursor move).
+
+    Args:
+        portfolio: The portfolio.
+        series: Row of the series.
+        cols: The window's calendar columns (``metrics.window_columns``).
+        season: Season m of ``snaive`` (listed only when m > 1).
+
+    Raises:
+        TriageError: A competing forecast is named like a built-in one.
+    """
+    names = forecast_names(portfolio, season)
+    rows = slice(series, series + 1)
+    d = _window(portfolio.demand, rows, cols)[:, 0]
+    f = [
+        _window(matrix, rows, cols, shift)[:, 0]
+        for matrix, shift in _sources(portfolio, names, season)
+    ]
+    both = ~np.isnan(d)
+    for values in f:
+        both &= ~np.isnan(values)
+    cells = int(both.sum())
+    demand = float(d[both].sum())
+    return tuple(
+        SeriesScore(
+            name=name,
+            cells=cells,
+            demand=demand,
+            abs_error=float(np.abs(values[both] - d[both]).sum()),
+            bias=float((values[both] - d[both]).sum()),
+        )
+        for name, values in zip(names, f, strict=True)
+    )
+
+
 def _block_sums(
     portfolio: Portfolio,
     names: tuple[str, ...],
@@ -304,16 +389,7 @@ def _block_sums(
     by_series: bool,
 ) -> _Sums:
     n, k, w = portfolio.n_series, len(names), len(cols)
-    sources: list[tuple[np.ndarray, int]] = []
-    for name in names:
-        if name == FORECAST:
-            sources.append((portfolio.forecast, 0))
-        elif name == NAIVE:
-            sources.append((portfolio.demand, 1))
-        elif name == SNAIVE:
-            sources.append((portfolio.demand, season))
-        else:
-            sources.append((portfolio.competing[name], 0))
+    sources = _sources(portfolio, names, season)
     priced = portfolio.price is not None
     per_k = ("abs_error", "bias", "sq_error", "ape", "capped")
     out = {field: np.zeros((n, k)) for field in per_k}

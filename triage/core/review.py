@@ -17,11 +17,13 @@ from typing import Protocol
 import numpy as np
 import pandas as pd
 
-from triage.core import adjust, history, schema, vocabulary
+from triage.core import adjust, compare, history, schema, vocabulary
 from triage.core import ledger as ledger_mod
 from triage.core.cycle import ReviewCycle
+from triage.core.errors import TriageError
 from triage.core.ledger import AdjustmentEnd, Event, Ledger
 from triage.core.ranking import BY_BIAS, BY_ERROR, error_shares
+from triage.core.text import percent
 
 #: Fields a reviewer can filter on besides the attribute columns.
 FILTER_FIELDS = ("pattern", "flag", "outcome", "repeat", "carried")
@@ -64,6 +66,8 @@ class ChartSeries:
     """First period of the scoring window."""
     last_actual: int
     """Last period with actuals; forward periods follow it."""
+    others: tuple[tuple[str, np.ndarray], ...] = ()
+    """The file's competing forecasts of the series (name, values on ``labels``), file order."""
 
 
 @dataclass(frozen=True)
@@ -818,6 +822,39 @@ class ReviewSession:
             adjusted=adj,
             window_start=int(self.window_cols[0]),
             last_actual=p.last_actual,
+            others=tuple((name, values[series]) for name, values in p.competing.items()),
+        )
+
+    def forecast_scores(self, series: int) -> tuple[compare.SeriesScore, ...]:
+        """Each forecast of the series (the file's, the competing ones, naive) on the same
+        window cells: what ``triage compare --by-series`` counts. Empty without competing
+        forecasts or when one is named like a built-in (``compare`` says why)."""
+        if not self.portfolio.competing:
+            return ()
+        try:
+            return compare.series_scores(self.portfolio, series, self.window_cols, self.season)
+        except TriageError:
+            return ()
+
+    def forecasts_line(self, series: int) -> str:
+        """The metrics card's line on competing forecasts, e.g.
+        ``forecasts on the same 13 weeks, WAPE / bias: forecast 23% +12% · stat 18% -2%``
+        (``""`` without competing forecasts)."""
+        scores = self.forecast_scores(series)
+        if not scores:
+            return ""
+        cells = scores[0].cells
+        unit = "week" if self.portfolio.calendar.freq == schema.WEEKLY else "month"
+        if cells == 0:
+            return f"forecasts: no {unit} of the window has demand and every forecast"
+        parts = [
+            f"{s.name} {percent(s.wape, 0, missing='-')} "
+            f"{percent(s.bias_pct, 0, signed=True, missing='-')}"
+            for s in scores
+        ]
+        return (
+            f"forecasts on the same {cells} {unit}{'' if cells == 1 else 's'}, WAPE / bias: "
+            + " · ".join(parts)
         )
 
     def describe(self, series: int) -> str:

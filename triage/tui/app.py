@@ -252,6 +252,14 @@ class TriageApp(App[None]):
             tooltip="Chart: cut spikes that dwarf the rest (cut points marked), or show them whole",
         ),
         Binding(
+            "o",
+            "chart_others",
+            "Other forecasts",
+            show=False,
+            id="chart.others",
+            tooltip="Chart: overlay the file's competing forecasts (forecast_<name>), or hide them",
+        ),
+        Binding(
             "v",
             "override_value",
             "Override value",
@@ -559,6 +567,7 @@ class TriageApp(App[None]):
             f"MAE {card['mae']:.1f} · RMSE {card['rmse']:.1f}"
             if card["periods"]
             else "no counted period in the window",
+            *filter(None, [session.forecasts_line(series)]),
             f"tracking signal {card['tracking_signal']:+.1f} · run {int(card['bias_run']):+d} · "
             f"{card['pattern']} demand (ADI {card['adi']:.2f}, CV² {card['cv2']:.2f})",
             f"{words.against_naive(card['fva'], per)} (FVA)",
@@ -776,13 +785,23 @@ class TriageApp(App[None]):
 
     def action_chart_zoom(self) -> None:
         chart = self._q("#chart", SeriesChart)
-        chart.set_view(whole=not chart.whole, clip=chart.clip)
+        chart.set_view(whole=not chart.whole, clip=chart.clip, others=chart.others)
         self._status("chart: whole history" if chart.whole else "chart: recent periods")
 
     def action_chart_clip(self) -> None:
         chart = self._q("#chart", SeriesChart)
-        chart.set_view(whole=chart.whole, clip=not chart.clip)
+        chart.set_view(whole=chart.whole, clip=not chart.clip, others=chart.others)
         self._status("chart: spikes clipped" if chart.clip else "chart: spikes shown whole")
+
+    def action_chart_others(self) -> None:
+        chart = self._q("#chart", SeriesChart)
+        if self.session is not None and not self.session.portfolio.competing:
+            self._status("chart: the file has no other forecasts (forecast_<name> columns)")
+            return
+        chart.set_view(whole=chart.whole, clip=chart.clip, others=not chart.others)
+        self._status(
+            "chart: other forecasts shown" if chart.others else "chart: other forecasts hidden"
+        )
 
     # -- actions: deciding --------------------------------------------------------------------
 

@@ -160,7 +160,8 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
     def _fields(self) -> ComposeResult:
         """The scrolling part: current decision, card, lists, adjustment, chart, note."""
         yield Static(self._current_text(), id="decision-current")
-        yield Static(Text(self._session.describe(self._series)), id="decision-card")
+        card = [self._session.describe(self._series), self._session.forecasts_line(self._series)]
+        yield Static(Text("\n".join(filter(None, card))), id="decision-card")
         with Horizontal(id="decision-lists"):
             yield OptionList(
                 *[Option(Text(f"{c.key} {c.label}"), id=c.code) for c in self._outcomes],
@@ -220,7 +221,7 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
         self._fit(self.app.size.height)
         main_chart = self.app.screen_stack[0].query("#chart").first(SeriesChart)
         self.query_one("#decision-chart", SeriesChart).set_view(
-            whole=main_chart.whole, clip=main_chart.clip
+            whole=main_chart.whole, clip=main_chart.clip, others=main_chart.others
         )
         self._preview(self._draft.adjustment)
         if self._draft.outcome == ADJUSTED:

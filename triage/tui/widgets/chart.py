@@ -8,6 +8,7 @@ from rich.text import Text
 from textual.widgets import Static
 
 from triage.core.review import ChartSeries
+from triage.core.text import visible
 
 
 def _segments(values: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
@@ -19,6 +20,16 @@ def _segments(values: np.ndarray) -> list[tuple[np.ndarray, np.ndarray]]:
     breaks = np.flatnonzero(np.diff(idx) > 1) + 1
     return [(run, values[run]) for run in np.split(idx, breaks)]
 
+
+#: Marker and colour of each competing forecast, in file order (cycled when there are more):
+#: every line differs in its marker as well as its colour, so the legend reads without colour.
+OTHER_STYLES: tuple[tuple[str, str], ...] = (
+    ("x", "magenta"),
+    ("*", "blue"),
+    ("o", "yellow"),
+    ("#", "white"),
+    ("%", "gray"),
+)
 
 #: Periods with actuals the chart shows by default (the scoring window with context before it).
 RECENT_PERIODS = 26
@@ -44,7 +55,13 @@ def clip_level(values: list[np.ndarray]) -> float | None:
 
 
 def render_chart(
-    data: ChartSeries, width: int, height: int, *, whole: bool = False, clip: bool = False
+    data: ChartSeries,
+    width: int,
+    height: int,
+    *,
+    whole: bool = False,
+    clip: bool = False,
+    others: bool = True,
 ) -> Text:
     """Draw the chart as Rich text (plotext's ANSI output, decoded; no markup involved).
 
@@ -56,12 +73,19 @@ def render_chart(
             forward periods.
         clip: Cut spikes at ``clip_level`` so the rest stays readable; cut points are drawn
             with their own marker and the legend says so.
+        others: Overlay the file's competing forecasts (``data.others``), each in its own
+            marker and colour, named in the legend.
     """
     start = first_shown(data, whole)
     demand = np.asarray(data.demand, dtype=float)[start:]
     forecast = np.asarray(data.forecast, dtype=float)[start:]
     adjusted = None if data.adjusted is None else np.asarray(data.adjusted, dtype=float)[start:]
+    rivals = [
+        (visible(name), np.asarray(values, dtype=float)[start:])
+        for name, values in (data.others if others else ())
+    ]
     shown = [demand, forecast] + ([adjusted] if adjusted is not None else [])
+    shown += [values for _, values in rivals]
     level = clip_level(shown) if clip else None
     cut: list[tuple[np.ndarray, np.ndarray]] = []
     if level is not None:
@@ -75,7 +99,12 @@ def render_chart(
     fig._limit_size(False, False)
     fig.plot_size(max(width, 20), max(height, 6))
     fig.theme("clear")
-    series = [("demand", demand, "hd", "cyan"), ("forecast", forecast, "dot", "orange")]
+    # Drawn in this order, later lines on top: the forecast under review over the others.
+    series = [("demand", demand, "hd", "cyan")]
+    for i, (name, values) in enumerate(rivals):
+        marker, color = OTHER_STYLES[i % len(OTHER_STYLES)]
+        series.append((name, values, marker, color))
+    series.append(("forecast", forecast, "dot", "orange"))
     if adjusted is not None:
         series.append(("adjusted", adjusted, "+", "green"))
     drew = False
@@ -105,7 +134,8 @@ def render_chart(
 
 
 class SeriesChart(Static):
-    """A plotext chart of demand, forecast and the adjusted forward forecast."""
+    """A plotext chart of demand, forecast, the adjusted forward forecast and (when the file
+    has them) the competing forecasts."""
 
     DEFAULT_CSS = """
     SeriesChart {
@@ -118,15 +148,17 @@ class SeriesChart(Static):
     def __init__(self, *, id: str | None = None, classes: str | None = None) -> None:
         super().__init__("", id=id, classes=classes, markup=False)
         self._data: ChartSeries | None = None
-        self._drawn: tuple[int, int, int, bool, bool] | None = None
+        self._drawn: tuple[int, int, int, bool, bool, bool] | None = None
         self.whole = False
         """Draw the whole history instead of the recent periods and the forward horizon."""
         self.clip = False
         """Cut spikes so the window and the forecast stay readable."""
+        self.others = True
+        """Overlay the competing forecasts of the file."""
 
-    def set_view(self, *, whole: bool, clip: bool) -> None:
-        """Zoom out or in, clip spikes or not; redraws."""
-        self.whole, self.clip = whole, clip
+    def set_view(self, *, whole: bool, clip: bool, others: bool) -> None:
+        """Zoom out or in, clip spikes or not, overlay the other forecasts or not; redraws."""
+        self.whole, self.clip, self.others = whole, clip, others
         self._redraw()
 
     def show(self, data: ChartSeries | None) -> None:
@@ -143,11 +175,13 @@ class SeriesChart(Static):
         if self._data is None or width <= 0 or height <= 0:
             self.update("", layout=False)
             return
-        key = (id(self._data), width, height, self.whole, self.clip)
+        key = (id(self._data), width, height, self.whole, self.clip, self.others)
         if key == self._drawn:
             return
         self._drawn = key
         self.update(
-            render_chart(self._data, width, height, whole=self.whole, clip=self.clip),
+            render_chart(
+                self._data, width, height, whole=self.whole, clip=self.clip, others=self.others
+            ),
             layout=False,
         )
