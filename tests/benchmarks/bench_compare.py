@@ -12,6 +12,17 @@ and ``naive``, 3 forecasts compared) are derived from the demand with seeded noi
 ``--repeat`` times each: ``scorecard(portfolio, window)`` and ``compare(portfolio, window)``
 (and ``compare(..., by_series=True)``). The medians are reported as ratios to the scorecard's:
 the machine is shared, so raw seconds mean little.
+
+End to end (``--cli``)::
+
+    python -m tests.benchmarks.bench_compare --cli --series 100000 --series 1000000 --out bench-out/
+
+builds the Parquet file with the generator's two competing forecasts (``--competing``: the file
+holds ``forecast``, ``forecast_stat`` and ``forecast_customer``; ``naive`` is the fourth compared)
+and runs, alternately and ``--repeat`` times each, ``triage rank FILE --format csv --output
+/dev/null`` and ``triage compare FILE --format csv --output /dev/null``, each in its own process
+(wall time and peak resident memory from ``bench_rank.measure``). It reports the medians as
+ratios to ``rank``'s: the issue's targets are ≤ 2× the time and ≤ 1.5× the peak memory.
 """
 
 from __future__ import annotations
@@ -28,12 +39,73 @@ from pathlib import Path
 
 import numpy as np
 
-from tests.benchmarks.bench_rank import ROOT, portfolio_file
+from tests.benchmarks.bench_rank import ROOT, measure, portfolio_file, triage_command
+
+
+def competing_file(out: Path, series: int, args: argparse.Namespace) -> Path:
+    """The generator's Parquet portfolio with its two competing forecasts (built once, cached)."""
+    n_items = math.ceil(series / args.locations)
+    plain = portfolio_file(out, n_items, args.locations, args)
+    path = plain.with_name(plain.stem + "-competing.parquet")
+    if not path.exists():
+        out.mkdir(parents=True, exist_ok=True)
+        print(f"generating {path.name} ...", file=sys.stderr, flush=True)
+        subprocess.run(
+            [
+                sys.executable, "-m", "sample.generate", "--out", str(path), "--competing",
+                "--items", str(n_items), "--locations", str(args.locations),
+                "--weeks", str(args.weeks), "--forward", str(args.forward),
+                "--seed", str(args.seed),
+            ],
+            check=True,
+            cwd=ROOT,
+        )  # fmt: skip
+    return path
+
+
+def end_to_end(series: int, args: argparse.Namespace) -> dict[str, object]:
+    """``triage compare`` against ``triage rank`` on the same file, alternating, in processes."""
+    path = competing_file(args.out, series, args)
+    window = ["--window", str(args.window)]
+    commands = {
+        "rank": [*triage_command(), "rank", str(path), *window, "--format", "csv"],
+        "compare": [*triage_command(), "compare", str(path), *window, "--format", "csv"],
+    }
+    runs: dict[str, list[tuple[float, float]]] = {name: [] for name in commands}
+    for _ in range(args.repeat):
+        for name, cmd in commands.items():
+            run = measure([*cmd, "--output", "/dev/null"])
+            if run.returncode != 0:
+                raise SystemExit(f"{name} failed: {run.error}")
+            runs[name].append((run.seconds, float(run.peak_bytes or math.nan)))
+            print(
+                f"{series:,} {name}: {run.seconds:.2f} s, {(run.peak_bytes or 0) / 1e6:,.0f} MB",
+                file=sys.stderr,
+                flush=True,
+            )
+    seconds = {n: statistics.median(t for t, _ in r) for n, r in runs.items()}
+    peak = {n: statistics.median(m for _, m in r) for n, r in runs.items()}
+    return {
+        "series": series,
+        "file": path.name,
+        "forecasts_in_file": 3,
+        "repeat": args.repeat,
+        "ratio_time_compare_to_rank": seconds["compare"] / seconds["rank"],
+        "ratio_peak_memory_compare_to_rank": peak["compare"] / peak["rank"],
+        "median_seconds": seconds,
+        "median_peak_mb": {n: m / 1e6 for n, m in peak.items()},
+        "runs": runs,
+    }
 
 
 def main(argv: list[str] | None = None) -> int:
     parser = argparse.ArgumentParser(description=__doc__.split("\n")[0])
-    parser.add_argument("--series", type=int, default=100_000)
+    parser.add_argument(
+        "--series", type=int, action="append", help="series (repeatable; default 100000)"
+    )
+    parser.add_argument(
+        "--cli", action="store_true", help="time triage compare against triage rank end to end"
+    )
     parser.add_argument("--out", type=Path, default=ROOT / "bench-out")
     parser.add_argument("--locations", type=int, default=4)
     parser.add_argument("--weeks", type=int, default=104)
@@ -43,6 +115,12 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--forecasts", type=int, default=1, help="competing forecasts added")
     parser.add_argument("--repeat", type=int, default=3)
     args = parser.parse_args(argv)
+    sizes = args.series or [100_000]
+    if args.cli:
+        for series in sizes:
+            print(json.dumps(end_to_end(series, args), indent=1), flush=True)
+        return 0
+    args.series = sizes[0]
 
     n_items = math.ceil(args.series / args.locations)
     path = portfolio_file(args.out, n_items, args.locations, args)
