@@ -209,6 +209,16 @@ def force_arg(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--force", action="store_true", help="replace the output file if it exists")
 
 
+def group_arg(parser: argparse.ArgumentParser) -> None:
+    """``--group COL[,COL...]``: roll series up by attribute columns and/or ``location``."""
+    parser.add_argument(
+        "--group",
+        metavar="COL[,COL...]",
+        help="one row per group of series sharing these columns' values (attribute columns "
+        "and/or location), ranked by their share of the series' error",
+    )
+
+
 def note(message: str) -> None:
     """Something the user should know (not a problem), on standard error, made printable."""
     print(f"triage: note: {printable(message, multiline=True)}", file=sys.stderr)

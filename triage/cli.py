@@ -17,6 +17,7 @@ from triage.arguments import (
     config_arg,
     force_arg,
     format_arg,
+    group_arg,
     ledger_arg,
     load_config_of,
     load_portfolio,
@@ -37,6 +38,7 @@ from triage.core.settings import TARGET_SHARE, ScoreSettings
 
 if TYPE_CHECKING:
     from triage.core.config import Config
+    from triage.core.portfolio import Portfolio
     from triage.tui.app import TriageApp
 
 
@@ -57,9 +59,10 @@ def build_parser() -> argparse.ArgumentParser:
     rank.add_argument(
         "--by", choices=("error", "bias"), default="error", help="order (default error)"
     )
+    group_arg(rank)
     format_arg(rank)
     limit = rank.add_mutually_exclusive_group()
-    limit.add_argument("--top", type=int, metavar="K", help="only the first K series")
+    limit.add_argument("--top", type=int, metavar="K", help="only the first K series (or groups)")
     setting_arg(
         limit,
         TARGET_SHARE,
@@ -204,6 +207,8 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         # hidden sheet, renamed columns) is said on standard error, whatever the format.
         print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
     require_scorable(portfolio, settings.window)
+    if args.group is not None:
+        return _rank_groups(args, settings, portfolio)
     card = scorecard(portfolio, settings.window, settings.season, by=args.by)
     shown = card
     if args.cover is not None:
@@ -224,6 +229,36 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         text = report.rank_table(
             portfolio, card, shown, settings.window, settings.season, by=args.by
         )
+    _emit(text, args.output, force=args.force)
+    return 0
+
+
+def _rank_groups(args: argparse.Namespace, settings: ScoreSettings, portfolio: Portfolio) -> int:
+    """``triage rank --group``: the group scorecard in the asked format."""
+    from triage.core import groups, metrics
+    from triage.core.ranking import leading_cover, scorecard
+    from triage.render import scorecard as report
+
+    by_columns = groups.parse_group_columns(portfolio, args.group)
+    card = scorecard(portfolio, settings.window, settings.season)
+    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, settings.window)
+    grouping = groups.grouping(portfolio, by_columns)
+    table = groups.group_scorecard(portfolio, card, cols, grouping, by=args.by)
+    del card
+    shown = table
+    if args.cover is not None:
+        shown = leading_cover(table, settings.target_share)
+    elif args.top is not None:
+        shown = table.iloc[: args.top]
+    elif args.format == "table":
+        shown = table.iloc[: report.TABLE_DEFAULT_ROWS]
+    if args.format == "csv":
+        _emit_blocks(report.csv_blocks(shown), args.output, force=args.force)
+        return 0
+    if args.format == "json":
+        text = report.groups_json(portfolio, shown, settings.window, settings.season, by_columns)
+    else:
+        text = report.group_table(portfolio, table, shown, settings.window, by_columns, by=args.by)
     _emit(text, args.output, force=args.force)
     return 0
 

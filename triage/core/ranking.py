@@ -79,11 +79,7 @@ def scorecard(
         error_order = descending_order(error)
         rank = np.empty(n, dtype=np.int64)
         rank[error_order] = np.arange(1, n + 1)
-        # Flagged series first, then by absolute bias, ties by key: one stable sort and a stable
-        # split (np.lexsort on three keys sorts three times).
-        by_size = np.argsort(-bias_size, kind="stable")
-        flagged = flag[by_size] != 0
-        bias_order = np.concatenate([by_size[flagged], by_size[~flagged]])
+        bias_order = bias_ordering(flag, bias_size)
         bias_rank = np.empty(n, dtype=np.int64)
         bias_rank[bias_order] = np.arange(1, n + 1)
 
@@ -150,6 +146,16 @@ def _labels(names: tuple[str, ...], codes: np.ndarray) -> pd.api.extensions.Exte
 def descending_order(error: np.ndarray) -> np.ndarray:
     """Positions by descending error; ties keep position order (the key order of a portfolio)."""
     return np.argsort(-np.asarray(error, dtype=np.float64), kind="stable")
+
+
+def bias_ordering(flag: np.ndarray, bias_size: np.ndarray) -> np.ndarray:
+    """Bias order: flagged first, then by descending |bias|, ties by position (key order).
+
+    One stable sort and a stable split (np.lexsort on three keys sorts three times).
+    """
+    by_size = np.argsort(-bias_size, kind="stable")
+    flagged = flag[by_size] != 0
+    return np.concatenate([by_size[flagged], by_size[~flagged]])
 
 
 def error_shares(error: np.ndarray, order: np.ndarray) -> tuple[np.ndarray, np.ndarray]:

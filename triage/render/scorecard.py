@@ -313,7 +313,7 @@ def rank_table(
     has_location = schema.LOCATION in card
     # (header, justify, cells, priority): when the terminal is too narrow for every column, the
     # highest priority numbers go first (pattern, then run, ...); the rest are never cut short.
-    columns: list[tuple[str, str, list[Any], int]] = [
+    columns: list[Column] = [
         (
             "bias rank" if by == "bias" else "rank",
             "right",
@@ -341,14 +341,140 @@ def rank_table(
         ("persistent", "left", list(shown["bias_flag"]), 0),
         ("pattern", "left", list(shown["pattern"]), 5),
     ]
+    lines.extend(_fitted_table(columns, key_columns=(schema.ITEM, schema.LOCATION)))
+    if len(shown) < len(card):
+        lines.append("")
+        lines.append(
+            f"showing {len(shown):,} of {len(card):,} series; "
+            "use --top K, --cover F or --format csv for more"
+        )
+    return "\n".join(lines) + "\n"
+
+
+def group_table(
+    portfolio: Portfolio,
+    table: pd.DataFrame,
+    shown: pd.DataFrame,
+    window: int,
+    by_columns: tuple[str, ...],
+    *,
+    by: str = "error",
+) -> str:
+    """The ranked groups as a readable table with a header of portfolio totals."""
+    priced = "abs_error_value" in table
+    win = window_info(portfolio, window)
+    abs_total = float(table["abs_error"].sum())
+    demand_total = float(table["demand"].sum())
+    bias_total = float(table["bias"].sum())
+    lines = [
+        f"{visible(portfolio.path.name)}: {portfolio.n_series:,} series in {len(table):,} groups "
+        f"by {', '.join(visible(c) for c in by_columns)}, {portfolio.calendar.freq}, "
+        f"window {win['first']} .. {win['last']} "
+        f"({win['periods']} period{'' if win['periods'] == 1 else 's'})",
+        "error = forecast - demand; 'over' = forecast above demand",
+        f"series-level absolute error {number(abs_total)} units"
+        + (f", {number(float(table['abs_error_value'].sum()))} in value" if priced else "")
+        + f"; error of the group totals {number(float(table['aggregate_abs_error'].sum()))}",
+        f"portfolio bias "
+        f"{over_under(bias_total / demand_total, 1, fraction=True) if demand_total > 0 else 'n/a'}",
+        "ranked by "
+        + (
+            "persistent bias of the group total, then absolute bias"
+            if by == "bias"
+            else "share of the series' absolute error"
+        )
+        + (" in value" if priced else " in units"),
+        "",
+    ]
+    err_col = "abs_error_value" if priced else "abs_error"
+    columns: list[Column] = [
+        (
+            "bias rank" if by == "bias" else "rank",
+            "right",
+            [str(v) for v in shown["bias_rank" if by == "bias" else "rank"]],
+            0,
+        ),
+        *[(name, "left", [Text(visible(str(v))) for v in shown[name]], 0) for name in by_columns],
+        ("series", "right", [number(v) for v in shown["series"]], 3),
+        ("share", "right", [percent(v) for v in shown["error_share"]], 0),
+        ("cum", "right", [percent(v) for v in shown["cum_share"]], 5),
+        ("abs err" + (" value" if priced else ""), "right", [number(v) for v in shown[err_col]], 0),
+        ("total err", "right", [number(v) for v in shown["aggregate_abs_error"]], 2),
+        (
+            "bias %",
+            "right",
+            [_bias_text(p, b) for p, b in zip(shown["bias_pct"], shown["bias"], strict=True)],
+            0,
+        ),
+        ("WAPE", "right", [percent(v) for v in shown["wape"]], 4),
+        ("persistent", "left", list(shown["bias_flag"]), 0),
+        ("flagged", "right", [number(v) for v in shown["flagged_series"]], 1),
+        ("top series", "left", [Text(visible(str(v))) for v in shown["top_series"]], 6),
+    ]
+    lines.extend(_fitted_table(columns, key_columns=(*by_columns, "top series")))
+    lines += [
+        "",
+        "abs err: the series' errors summed (what a series-by-series review fixes);",
+        "total err: the error of the group's total, where over and under cancel.",
+        "A large gap between them: the series err in opposite directions (a mix problem).",
+    ]
+    if len(shown) < len(table):
+        lines.append("")
+        lines.append(
+            f"showing {len(shown):,} of {len(table):,} groups; "
+            "use --top K, --cover F or --format csv for more"
+        )
+    return "\n".join(lines) + "\n"
+
+
+def groups_json(
+    portfolio: Portfolio, table: pd.DataFrame, window: int, season: int, by_columns: tuple[str, ...]
+) -> str:
+    """The group scorecard as one JSON document: what was scored, then one object per group."""
+    columns = list(table.columns)
+    arrays = [table[c].to_numpy() for c in columns]
+    records = [
+        {c: _json_value(v) for c, v in zip(columns, values, strict=True)}
+        for values in zip(*arrays, strict=True)
+    ]
+    doc = {
+        "portfolio": str(portfolio.path),
+        "cycle": portfolio.cycle,
+        "frequency": portfolio.calendar.freq,
+        "lag": portfolio.lag,
+        "window": window_info(portfolio, window),
+        "season": season,
+        "error_sign": "forecast - demand (positive = over-forecast)",
+        "grouped_by": list(by_columns),
+        "ranked_by": "abs_error_value" if portfolio.price is not None else "abs_error",
+        "groups": records,
+    }
+    return dumps_json(doc, indent=1) + "\n"
+
+
+#: Widest an item or location id is shown in the table (longer ids end in an ellipsis).
+_KEY_WIDTH = 24
+
+
+#: A table column: (header, justify, cells, priority); priority 0 is never dropped, and when the
+#: terminal is too narrow the highest priority goes first.
+Column = tuple[str, str, list[Any], int]
+
+
+def _fitted_table(columns: list[Column], *, key_columns: tuple[str, ...]) -> list[str]:
+    """Lines of a plain table that fits the terminal's width: low-priority columns are dropped
+    (and named below it) rather than any cell cut short; key columns end in an ellipsis beyond
+    ``_KEY_WIDTH``."""
+    lines: list[str] = []
     all_columns = list(columns)
+    columns = list(columns)
     width = shutil.get_terminal_size((120, 24)).columns
 
     def natural(cells: list[Any], header: str, key: bool) -> int:
         widest = max((len(str(c)) for c in cells), default=0)
         return min(max(widest, len(header)), _KEY_WIDTH) if key else max(widest, len(header))
 
-    sizes = [natural(c, h, h in (schema.ITEM, schema.LOCATION)) for h, _, c, _ in columns]
+    sizes = [natural(c, h, h in key_columns) for h, _, c, _ in columns]
     dropped: list[str] = []
     # Columns are two spaces apart (padding 1 on each side, none at the edges).
     while sum(sizes) + 2 * (len(sizes) - 1) > width and any(col[3] for col in columns):
@@ -357,7 +483,7 @@ def rank_table(
         del columns[drop], sizes[drop]
     table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
     for (name, justify, _, _), size in zip(columns, sizes, strict=True):
-        key = name in (schema.ITEM, schema.LOCATION)
+        key = name in key_columns
         table.add_column(
             name,
             justify=justify,  # type: ignore[arg-type]
@@ -384,17 +510,7 @@ def rank_table(
         lines.append("")
         lines.append(f"not shown at {width} columns: {', '.join(order)} (widen the terminal,")
         lines.append("or use --format csv for every measure)")
-    if len(shown) < len(card):
-        lines.append("")
-        lines.append(
-            f"showing {len(shown):,} of {len(card):,} series; "
-            "use --top K, --cover F or --format csv for more"
-        )
-    return "\n".join(lines) + "\n"
-
-
-#: Widest an item or location id is shown in the table (longer ids end in an ellipsis).
-_KEY_WIDTH = 24
+    return lines
 
 
 def _run_text(run: int) -> str:

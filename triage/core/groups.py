@@ -1,0 +1,275 @@
+"""Groups of series: the portfolio rolled up by attribute and/or location (``rank --group``).
+
+A group is every series sharing the values of the grouping columns (an attribute column, the
+``location`` key, or several of them). Its measures are of two kinds (docs/metrics.md, "Groups"):
+
+* **series-level sums**: ``abs_error`` = Σ over the group's series of each series' Σ|e| over the
+  window, what a series-by-series review would have to fix; ``demand``, ``forecast``, ``bias``
+  and the value columns likewise. ``error_share`` is the group's share of the portfolio's
+  series-level error (in value where priced), so group shares add up to the series' shares.
+* **the group's total**: ``aggregate_abs_error`` = Σ over window periods of |Σ over the group's
+  series of e|, the error of the group's total, where the series' over- and under-forecasts
+  cancel. ``abs_error`` ≥ ``aggregate_abs_error`` (triangle inequality); a large gap means the
+  series err in opposite directions (a mix problem), a small one that they err together (a level
+  problem). ``bias_flag`` applies the series' persistent-bias rule (``metrics.persistent_bias``)
+  to the total's errors per window period; a period counts when at least one series counts in it.
+
+Sign: e = forecast − demand (``triage.core.metrics``); a cell counts when demand and forecast
+are both present, as for series. Everything is vectorised over the whole portfolio: series are
+mapped to integer group codes once and every sum is a ``np.bincount``.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Sequence
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+
+from triage.core import metrics, schema
+from triage.core.errors import TriageError
+from triage.core.portfolio import Portfolio
+from triage.core.ranking import BY_BIAS, BY_ERROR, FLAG_TEXT, bias_ordering, descending_order
+from triage.core.ranking import error_shares as shares_of
+
+#: Columns of the group scorecard after the grouping columns (value columns only when priced).
+GROUP_COLUMNS = (
+    "series",
+    "demand",
+    "forecast",
+    "abs_error",
+    "aggregate_abs_error",
+    "bias",
+    "bias_pct",
+    "wape",
+    "abs_error_value",
+    "bias_value",
+    "error_share",
+    "cum_share",
+    "rank",
+    "bias_rank",
+    "bias_flag",
+    "flagged_series",
+    "top_series",
+)
+
+#: Rows of series per block of the per-period sums.
+_ROWS = 1 << 15
+
+
+@dataclass(frozen=True)
+class Grouping:
+    """Which group each series belongs to.
+
+    Attributes:
+        by: The grouping columns, as given.
+        codes: Group of each series (int64, portfolio order), 0 .. n_groups − 1.
+        keys: One row per group, the grouping columns' values (text), ascending by key: group
+            g is row g.
+    """
+
+    by: tuple[str, ...]
+    codes: np.ndarray
+    keys: pd.DataFrame
+
+    @property
+    def n_groups(self) -> int:
+        """How many groups there are."""
+        return len(self.keys)
+
+    def members(self, group: int) -> np.ndarray:
+        """Portfolio positions of the group's series, in portfolio order."""
+        return np.flatnonzero(self.codes == group)
+
+
+def parse_group_columns(
+    portfolio: Portfolio, text: str, option: str = "--group"
+) -> tuple[str, ...]:
+    """``"family,location"`` -> the grouping columns, each one the portfolio has.
+
+    Raises:
+        TriageError: A name is empty, repeated, the item key, or not a column of the portfolio.
+    """
+    names = tuple(part.strip() for part in text.split(","))
+    allowed = [c for c in portfolio.key_columns if c != schema.ITEM] + list(portfolio.attributes)
+    listing = ", ".join(allowed) if allowed else "none: the file has no location or attributes"
+    if any(not name for name in names):
+        raise TriageError(
+            f"{option} {text!r}: an empty column name.",
+            hint=f"Give column names separated by commas, e.g. {option} family,location.",
+        )
+    for name in names:
+        if name == schema.ITEM:
+            raise TriageError(
+                f"{option}: grouping by {schema.ITEM} gives one series per group.",
+                hint=f"Group by an attribute or by location ({listing}), or rank without {option}.",
+            )
+        if name not in allowed:
+            raise TriageError(
+                f"{option}: {portfolio.path} has no column {name!r} to group by.",
+                hint=f"Columns to group by: {listing}.",
+            )
+    if len(set(names)) != len(names):
+        raise TriageError(f"{option} {text!r}: a column is named twice.")
+    return names
+
+
+def grouping(portfolio: Portfolio, by: Sequence[str]) -> Grouping:
+    """Map every series to its group; groups ordered by their key values, ascending.
+
+    Args:
+        portfolio: The portfolio.
+        by: Grouping columns (``parse_group_columns``).
+    """
+    if not by:
+        raise ValueError("group by at least one column")
+    codes = np.zeros(portfolio.n_series, dtype=np.int64)
+    for name in by:
+        column_codes, values = pd.factorize(portfolio.keys[name], sort=True)
+        # Renumbered after each column, so codes stay below n_series (no overflow) and stay
+        # ascending by the key values so far (each column sorted, the first most significant).
+        _, codes = np.unique(codes * len(values) + column_codes, return_inverse=True)
+    codes = codes.astype(np.int64).reshape(-1)
+    first = np.unique(codes, return_index=True)[1]
+    frame = pd.DataFrame(
+        {name: portfolio.text_column(name, first) for name in by}, index=pd.RangeIndex(len(first))
+    )
+    return Grouping(by=tuple(by), codes=codes, keys=frame)
+
+
+def group_scorecard(
+    portfolio: Portfolio,
+    card: pd.DataFrame,
+    cols: np.ndarray,
+    groups: Grouping,
+    *,
+    by: str = BY_ERROR,
+) -> pd.DataFrame:
+    """One row per group, in review order (largest share of error first, or bias order).
+
+    Args:
+        portfolio: The scored portfolio.
+        card: Its scorecard (``ranking.scorecard``; any row order: aligned by its index).
+        cols: The window's calendar columns (``metrics.window_columns``).
+        groups: The grouping (``grouping``).
+        by: ``"error"`` or ``"bias"`` (persistently biased groups first, then by |bias|, in
+            value where priced; ties by key).
+
+    Returns:
+        The grouping columns, then ``GROUP_COLUMNS`` (``abs_error_value``/``bias_value`` only
+        when priced); fractions, NaN where undefined. The index is the group number.
+    """
+    if by not in (BY_ERROR, BY_BIAS):
+        raise ValueError(f"by must be {BY_ERROR!r} or {BY_BIAS!r}")
+    n_groups = groups.n_groups
+    codes = groups.codes
+    aligned = card.sort_index()
+    priced = "abs_error_value" in aligned
+
+    def total(column: str | np.ndarray) -> np.ndarray:
+        values = aligned[column].to_numpy(dtype=np.float64) if isinstance(column, str) else column
+        summed: np.ndarray = np.bincount(codes, weights=values, minlength=n_groups)
+        return summed
+
+    series = np.bincount(codes, minlength=n_groups).astype(np.int64)
+    demand = total("demand")
+    abs_error = total("abs_error")
+    bias = total("bias")
+    data: dict[str, object] = {name: groups.keys[name].array for name in groups.by}
+    data.update(
+        series=series,
+        demand=demand,
+        forecast=total("forecast"),
+        abs_error=abs_error,
+    )
+    period_error, period_counted = _period_totals(portfolio, cols, codes, n_groups)
+    data["aggregate_abs_error"] = np.abs(period_error).sum(axis=1)
+    data["bias"] = bias
+    data["bias_pct"] = metrics._ratio(bias, demand)
+    data["wape"] = metrics._ratio(abs_error, demand)
+    if priced:
+        error = total("abs_error_value")
+        bias_value = total("bias_value")
+        data.update(abs_error_value=error, bias_value=bias_value)
+        bias_size = np.abs(bias_value)
+    else:
+        error = abs_error
+        bias_size = np.abs(bias)
+    error_order = descending_order(error)
+    rank = np.empty(n_groups, dtype=np.int64)
+    rank[error_order] = np.arange(1, n_groups + 1)
+    share, cum = shares_of(error, error_order)
+    flag = metrics.persistent_bias(
+        ((period_error > 0) & period_counted).sum(axis=1),
+        ((period_error != 0) & period_counted).sum(axis=1),
+        metrics.latest_run(period_error, period_counted),
+        bias,
+        demand,
+    )
+    bias_order = bias_ordering(flag, bias_size)
+    bias_rank = np.empty(n_groups, dtype=np.int64)
+    bias_rank[bias_order] = np.arange(1, n_groups + 1)
+    series_flagged = aligned["bias_flag"].to_numpy(dtype=object) != ""
+    data.update(
+        error_share=share,
+        cum_share=cum,
+        rank=rank,
+        bias_rank=bias_rank,
+        bias_flag=np.array([FLAG_TEXT[int(f)] for f in (-1, 0, 1)], dtype=object)[flag + 1],
+        flagged_series=np.bincount(codes, weights=series_flagged, minlength=n_groups).astype(
+            np.int64
+        ),
+        top_series=_top_series(portfolio, codes, n_groups, aligned, priced),
+    )
+    frame = pd.DataFrame(data)
+    for name in ("bias_flag", "top_series"):
+        frame[name] = frame[name].astype(pd.StringDtype("pyarrow", na_value=np.nan))
+    order = error_order if by == BY_ERROR else bias_order
+    return frame.iloc[order]
+
+
+def _period_totals(
+    portfolio: Portfolio, cols: np.ndarray, codes: np.ndarray, n_groups: int
+) -> tuple[np.ndarray, np.ndarray]:
+    """Σ over each group's series of e per window period (groups x periods), and whether at
+    least one series counts in that period."""
+    width = len(cols)
+    error = np.zeros(n_groups * width)
+    counted = np.zeros(n_groups * width)
+    slots = np.arange(width)
+    for lo in range(0, portfolio.n_series, _ROWS):
+        rows = slice(lo, lo + _ROWS)
+        d = portfolio.demand[rows][:, cols]
+        f = portfolio.forecast[rows][:, cols]
+        both = ~(np.isnan(d) | np.isnan(f))
+        place = (codes[rows, None] * width + slots).ravel()
+        error += np.bincount(
+            place, weights=np.where(both, f - d, 0.0).ravel(), minlength=n_groups * width
+        )
+        counted += np.bincount(place, weights=both.ravel(), minlength=n_groups * width)
+    return error.reshape(n_groups, width), counted.reshape(n_groups, width) > 0
+
+
+def _top_series(
+    portfolio: Portfolio,
+    codes: np.ndarray,
+    n_groups: int,
+    aligned: pd.DataFrame,
+    priced: bool,
+) -> np.ndarray:
+    """Key of each group's largest contributor (``item`` or ``item @ location``); ties go to
+    the first series in portfolio order."""
+    error = aligned["abs_error_value" if priced else "abs_error"].to_numpy(dtype=np.float64)
+    # By group, then by descending error, then by position: the first of each group is its top.
+    order = np.lexsort((np.arange(len(codes)), -np.nan_to_num(error, nan=-np.inf), codes))
+    first = order[np.r_[0, np.flatnonzero(np.diff(codes[order])) + 1]]
+    items = portfolio.keys[schema.ITEM].to_numpy(dtype=object)[first]
+    if schema.LOCATION in portfolio.key_columns:
+        locations = portfolio.keys[schema.LOCATION].to_numpy(dtype=object)[first]
+        labels = [f"{i} @ {loc}" for i, loc in zip(items, locations, strict=True)]
+    else:
+        labels = [str(i) for i in items]
+    out = np.empty(n_groups, dtype=object)
+    out[codes[first]] = labels
+    return out
