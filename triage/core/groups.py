@@ -229,6 +229,15 @@ def group_scorecard(
     return frame.iloc[order]
 
 
+def column_total(values: np.ndarray) -> np.ndarray:
+    """Σ over rows per column, a missing value counted as 0; NaN where every row is missing
+    (a group's total of one period: the series it has values for)."""
+    present = ~np.isnan(values)
+    summed = np.where(present, values, 0.0).sum(axis=0)
+    total: np.ndarray = np.where(present.any(axis=0), summed, np.nan)
+    return total
+
+
 def _period_totals(
     portfolio: Portfolio, cols: np.ndarray, codes: np.ndarray, n_groups: int
 ) -> tuple[np.ndarray, np.ndarray]:

@@ -39,6 +39,7 @@ from numpy.typing import ArrayLike
 
 from triage.core import adjust
 from triage.core.errors import TriageError
+from triage.core.groups import column_total as _total
 from triage.core.rounding import round_half_away
 
 #: Absolute operations split by proportions of the series' forward forecasts (the default).
@@ -224,13 +225,6 @@ def split(
         fallback=flags,
         decimals=decimals,
     )
-
-
-def _total(values: np.ndarray) -> np.ndarray:
-    """Σ over series per period, missing as 0; NaN where every series is missing."""
-    present = ~np.isnan(values)
-    summed = np.where(present, values, 0.0).sum(axis=0)
-    return np.where(present.any(axis=0), summed, np.nan)
 
 
 def _group_price(forward: np.ndarray, price: np.ndarray) -> np.ndarray:
