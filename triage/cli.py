@@ -108,6 +108,7 @@ def _review_args(parser: argparse.ArgumentParser, *, ledger: bool = True) -> Non
     reviewer_arg(parser)
     config_arg(parser)
     setting_arg(parser, TARGET_SHARE, flag="--target")
+    group_arg(parser)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -311,6 +312,7 @@ def _review_options(
         root_causes=config.root_causes,
         auto_advance=config.auto_advance,
         notices=list(notices),
+        group=getattr(args, "group", None),
     )
 
 

@@ -86,12 +86,25 @@ class GroupReview:
         """A decision changed: recount the review state on next use."""
         self._decided = None
 
-    def totals(self, group: int, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
-        """The group's total demand and forecast over calendar columns ``cols`` (NaN where every
-        series of the group is missing)."""
-        members = self.members(group)
+    def period_totals(self, cols: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+        """Every group's total demand and forecast over calendar columns ``cols`` (groups x
+        columns; NaN where every series of the group is missing): the list's sparklines."""
         p = self.session.portfolio
-        return _total(p.demand[members][:, cols]), _total(p.forecast[members][:, cols])
+        out = []
+        for matrix in (p.demand, p.forecast):
+            block = matrix[:, cols]
+            present = ~np.isnan(block)
+            summed = np.empty((self.n_groups, len(cols)))
+            seen = np.empty((self.n_groups, len(cols)))
+            for j in range(len(cols)):
+                summed[:, j] = np.bincount(
+                    self.codes,
+                    weights=np.where(present[:, j], block[:, j], 0.0),
+                    minlength=self.n_groups,
+                )
+                seen[:, j] = np.bincount(self.codes, weights=present[:, j], minlength=self.n_groups)
+            out.append(np.where(seen > 0, summed, np.nan))
+        return out[0], out[1]
 
     # -- one group ------------------------------------------------------------------------------
 

@@ -21,23 +21,33 @@ from textual.timer import Timer
 from textual.widgets import Footer, ProgressBar, Static
 from textual.worker import Worker, WorkerState
 
+from triage.core import groups as groups_mod
 from triage.core import ledger as ledger_mod
 from triage.core import schema, vocabulary, words
 from triage.core.cycle import ReviewCycle
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
+from triage.core.group_review import GroupReview, outcome_words
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
 from triage.core.settings import ScoreSettings
 from triage.core.text import visible
 from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, Choice
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
-from triage.tui.messages import Ended, Exported, Loaded, LoadStep, Saved, SaveFailed
+from triage.tui.messages import (
+    Ended,
+    Exported,
+    GroupsReady,
+    Loaded,
+    LoadStep,
+    Saved,
+    SaveFailed,
+)
 from triage.tui.screens.decision import UNCHANGED, DecisionScreen, Draft, draft_of
 from triage.tui.screens.dialogs import ChooseScreen, ConfirmScreen, HelpScreen, PromptScreen
 from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.chart import SeriesChart
-from triage.tui.widgets.series_list import SeriesList
+from triage.tui.widgets.series_list import GroupList, SeriesList
 
 #: Seconds the cursor must rest on a series before its chart is drawn.
 CHART_SETTLE = 0.08
@@ -65,6 +75,24 @@ class Options:
     root_causes: tuple[Choice, ...] = DEFAULT_ROOT_CAUSES
     auto_advance: bool = False
     notices: list[str] = field(default_factory=list)
+    group: str | None = None
+    """``--group``: the columns the group view rolls series up by (checked once loaded)."""
+
+
+#: Actions on one series, unavailable (dimmed) while the group view is shown.
+SERIES_ACTIONS = frozenset(
+    {
+        "quick",
+        "adjust",
+        "undo",
+        "take_suggestion",
+        "next_unreviewed",
+        "end_adjustment",
+        "jump",
+        "filter_text",
+        "filter_field",
+    }
+)
 
 
 def _stale(exc: TriageError) -> bool:
@@ -260,6 +288,15 @@ class TriageApp(App[None]):
             tooltip="Chart: overlay the file's competing forecasts (forecast_<name>), or hide them",
         ),
         Binding(
+            "G",
+            "groups",
+            "Groups",
+            show=False,
+            id="find.groups",
+            tooltip="Group view: the series rolled up by attribute or location, ranked; enter "
+            "opens a group's series, escape goes back",
+        ),
+        Binding(
             "v",
             "override_value",
             "Override value",
@@ -279,6 +316,15 @@ class TriageApp(App[None]):
         self.text_filter = ""
         self.field_filters: dict[str, str] = {}
         self.cause = "unknown"
+        self.groups: GroupReview | None = None
+        """The ranked groups, once asked for (``G``)."""
+        self.group_by: tuple[str, ...] | None = None
+        self.in_groups = False
+        """The group view is shown instead of the series list."""
+        self.drill: int | None = None
+        """The group whose series the series list shows (entered from the group view)."""
+        self._outer_filters: tuple[str, dict[str, str]] = ("", {})
+        self._group_spark: tuple[np.ndarray, np.ndarray] = (np.zeros((0, 0)), np.zeros((0, 0)))
         self.auto_advance = options.auto_advance
         """Move to the next unreviewed series after each decision."""
         """Root cause of the quick decisions; picked with a digit, kept until changed."""
@@ -358,6 +404,7 @@ class TriageApp(App[None]):
             yield ProgressBar(total=5, show_eta=False, id="loading-bar")
         with Container(id="main"):
             yield SeriesList(fmt.LIST_COLUMNS, self._format_row, id="list")
+            yield GroupList(fmt.GROUP_COLUMNS, self._format_group, id="groups")
             with Vertical(id="detail"):
                 yield Static(Text(""), id="detail-title")
                 yield SeriesChart(id="chart")
@@ -374,6 +421,7 @@ class TriageApp(App[None]):
 
     def on_mount(self) -> None:
         self._q("#main").display = False
+        self._q(GroupList).display = False
         self._fit_layout(self.size.width)
         self.load()
 
@@ -462,6 +510,17 @@ class TriageApp(App[None]):
             fmt.toast(self, note, severity="warning", timeout=10)
         if message.notices:
             self._status(" | ".join(message.notices))
+        if self.options.group:
+            # --group: open on the groups (ranked in a worker; the series list is ready first).
+            try:
+                self.group_by = groups_mod.parse_group_columns(
+                    session.portfolio, self.options.group
+                )
+            except TriageError as exc:
+                self._status(str(exc))
+                fmt.toast(self, str(exc), severity="error", timeout=15)
+            else:
+                self._build_groups(self.group_by)
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         """Show every worker failure; none is swallowed."""
@@ -529,7 +588,8 @@ class TriageApp(App[None]):
 
     @on(SeriesList.Highlighted)
     def _highlighted(self, message: SeriesList.Highlighted) -> None:
-        self._show_detail(message.series)
+        if not self.in_groups:
+            self._show_detail(message.series)
 
     def _show_detail(self, series: int | None) -> None:
         session = self.session
@@ -588,7 +648,12 @@ class TriageApp(App[None]):
 
     def _draw_chart(self, series: int) -> None:
         session = self.session
-        if session is not None and self.is_running and self._q(SeriesList).current == series:
+        if (
+            session is not None
+            and self.is_running
+            and not self.in_groups
+            and self._q(SeriesList).current == series
+        ):
             self._q("#chart", SeriesChart).show(session.chart(series))
 
     def _history_text(self, series: int) -> Text:
@@ -623,8 +688,18 @@ class TriageApp(App[None]):
         filt = []
         if self.text_filter:
             filt.append(f'"{self.text_filter}"')
-        filt.extend(f"{k}={v}" for k, v in self.field_filters.items())
+        if self.drill is None:
+            filt.extend(f"{k}={v}" for k, v in self.field_filters.items())
         shown = len(self._q(SeriesList).order)
+        where, context = f" · {shown:,} shown", ""
+        if self.in_groups and self.groups is not None:
+            where = ""
+            context = (
+                f"{self.groups.n_groups:,} groups by {', '.join(self.groups.by)} (enter: a group's "
+                "series)"
+            )
+        elif self.drill is not None and self.groups is not None:
+            context = f"group {self.groups.label(self.drill)} (escape: back to groups)"
         target = f"target {prog.target * 100:.0f}%" + (
             f", {prog.to_target} more" if prog.to_target else " reached"
         )
@@ -638,6 +713,9 @@ class TriageApp(App[None]):
             f" · {p.n_series:,} series · cycle {p.cycle}{error}"
             f" · bias {fmt.signed_pct(tot['bias_pct'])[0] or 'n/a'}"
             f" · WAPE {fmt.pct(tot['wape']) or 'n/a'}\n",
+            # Where the reviewer is (groups, or one group's series) comes first: it must show
+            # at 80 columns.
+            (visible(context) + " · ", "bold") if context else "",
             (
                 f"reviewed {prog.reviewed:,} ({fmt.pct(prog.covered) or '0%'} of error; {target})",
                 "bold",
@@ -647,7 +725,7 @@ class TriageApp(App[None]):
             else "",
             f" · cause {fmt.cause_label(self.cause, self.options.root_causes)}"
             + (" · auto-advance" if self.auto_advance else "")
-            + f" · {self.by} order · {shown:,} shown"
+            + f" · {self.by} order{where}"
             + (f" · filter: {fmt.plain(', '.join(filt))}" if filt else ""),
         )
         summary.no_wrap = True
@@ -676,6 +754,9 @@ class TriageApp(App[None]):
         self.by = "bias" if self.by == "error" else "error"
         self._q(SeriesList).set_columns(fmt.BIAS_COLUMNS if self.by == "bias" else fmt.LIST_COLUMNS)
         self._apply_order()
+        if self.groups is not None:
+            group_list = self._q(GroupList)
+            group_list.set_order(self.groups.order(self.by), keep=group_list.current)
 
     def action_filter_text(self) -> None:
         def done(value: str | None) -> None:
@@ -716,6 +797,9 @@ class TriageApp(App[None]):
         self.push_screen(ChooseScreen("Filter by", fields), chose_field)
 
     def action_clear_filter(self) -> None:
+        if self.drill is not None:
+            self._back_to_groups()
+            return
         if self.text_filter or self.field_filters:
             self.text_filter = ""
             self.field_filters = {}
@@ -870,6 +954,9 @@ class TriageApp(App[None]):
         )
 
     async def action_decide(self) -> None:
+        if self.in_groups:
+            self._drill_down()
+            return
         series = self._q(SeriesList).current
         if series is not None and self.session is not None:
             await self._open_dialog(series, outcome=vocabulary.OUTCOMES[0].code)
@@ -1122,6 +1209,9 @@ class TriageApp(App[None]):
             return
         self._dequeue(series)
         self._q(SeriesList).invalidate(series)
+        if self.groups is not None:
+            self.groups.forget()
+            self._q(GroupList).invalidate(int(self.groups.codes[series]))
         if series == self._q(SeriesList).current:
             self._show_detail(series)
 
@@ -1151,6 +1241,198 @@ class TriageApp(App[None]):
                 self._show_detail(message.series)
         self._status(f"NOT saved: {message.error} (your entry is kept: press enter to retry)")
         fmt.toast(self, f"Not saved: {message.error}", severity="error", timeout=15)
+
+    # -- groups -------------------------------------------------------------------------------
+
+    def check_action(self, action: str, parameters: tuple[object, ...]) -> bool | None:
+        """In the group view the actions on one series are shown dimmed and do nothing."""
+        if self.in_groups and action in SERIES_ACTIONS:
+            return None
+        return True
+
+    def action_groups(self) -> None:
+        session = self.session
+        if session is None:
+            return
+        if self.in_groups:
+            self._leave_groups()
+        elif self.drill is not None:
+            self._back_to_groups()
+        elif self.groups is not None:
+            self._show_groups()
+        elif self.group_by is not None:
+            self._status(f"grouping {session.portfolio.n_series:,} series…")
+            self._build_groups(self.group_by)
+        else:
+            self._ask_grouping()
+
+    def _ask_grouping(self) -> None:
+        session = self.session
+        assert session is not None
+        p = session.portfolio
+        allowed = [c for c in p.key_columns if c != schema.ITEM] + list(p.attributes)
+        if not allowed:
+            self._status("the file has no location or attribute column to group by")
+            return
+
+        def done(value: str | None) -> None:
+            if value is None or not value.strip():
+                return
+            try:
+                by = groups_mod.parse_group_columns(p, value, option="group by")
+            except TriageError as exc:
+                self._status(str(exc))
+                return
+            self._status(f"grouping {p.n_series:,} series…")
+            self._build_groups(by)
+
+        self.push_screen(
+            PromptScreen(
+                "Group by: one or more columns, separated by commas",
+                value=allowed[0],
+                note=f"Columns: {fmt.plain(', '.join(allowed))}",
+            ),
+            done,
+        )
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="groups", name="groups")
+    def _build_groups(self, by: tuple[str, ...]) -> None:
+        """Rank the groups off the UI thread (a bincount per measure over every series)."""
+        session = self.session
+        assert session is not None
+        review = GroupReview(session, by)
+        cols = session.window_cols[-fmt.SPARK_PERIODS :]
+        self._group_spark = review.period_totals(cols)
+        self.post_message(GroupsReady(review))
+
+    @on(GroupsReady)
+    def _groups_ready(self, message: GroupsReady) -> None:
+        if message.review is None:
+            self._status(message.error)
+            return
+        self.groups = message.review
+        self.group_by = message.review.by
+        self._status("")
+        group_list = self._q(GroupList)
+        group_list.set_order(self.groups.order(self.by))
+        self._show_groups()
+
+    def _show_groups(self) -> None:
+        assert self.groups is not None
+        self.in_groups = True
+        self.drill = None
+        self._q(SeriesList).display = False
+        group_list = self._q(GroupList)
+        group_list.display = True
+        group_list.focus()
+        self._show_group_detail(group_list.current)
+        self._refresh_summary()
+        self.refresh_bindings()
+
+    def _leave_groups(self) -> None:
+        self.in_groups = False
+        self._q(GroupList).display = False
+        series_list = self._q(SeriesList)
+        series_list.display = True
+        series_list.focus()
+        self._show_detail(series_list.current)
+        self._refresh_summary()
+        self.refresh_bindings()
+
+    def _drill_down(self) -> None:
+        review = self.groups
+        group = self._q(GroupList).current
+        if review is None or group is None:
+            return
+        self._outer_filters = (self.text_filter, dict(self.field_filters))
+        self.text_filter, self.field_filters = "", review.filters(group)
+        self.drill = group
+        self.in_groups = False
+        self._q(GroupList).display = False
+        series_list = self._q(SeriesList)
+        series_list.display = True
+        series_list.focus()
+        self._apply_order()
+        series_list.cursor = 0
+        self._show_detail(series_list.current)
+        self.refresh_bindings()
+
+    def _back_to_groups(self) -> None:
+        self.text_filter, self.field_filters = self._outer_filters
+        self._apply_order()
+        self._show_groups()
+
+    @on(GroupList.Highlighted)
+    def _group_highlighted(self, message: GroupList.Highlighted) -> None:
+        if self.in_groups:
+            self._show_group_detail(message.series)
+
+    def _format_group(self, group: int) -> dict[str, fmt.Cell]:
+        review = self.groups
+        assert review is not None
+        t = review.table
+        flag = int(review.flag[group])
+        demand, forecast = self._group_spark
+        decided = int(review.decided()[group])
+        size = int(review.size[group])
+        return {
+            "rank": (str(int(t["rank"].iat[group])), None),
+            "group": (fmt.plain(review.label(group), 60), None),
+            "series": (f"{size:,}", None),
+            "share": (fmt.pct(t["error_share"].iat[group]), None),
+            "cum": (fmt.pct(t["cum_share"].iat[group], 0), "dim"),
+            "error": (fmt.compact(review.error[group]), None),
+            "total": (fmt.compact(t["aggregate_abs_error"].iat[group]), "dim"),
+            "bias": fmt.signed_pct(t["bias_pct"].iat[group]),
+            "flag": (
+                ("▲ over" if flag > 0 else "▼ under") if flag else "",
+                "flag" if flag else None,
+            ),
+            "decided": (outcome_words(decided, size), "done" if decided >= size else None),
+            "spark": (fmt.sparkline(demand[group], forecast[group]), None),
+        }
+
+    def _show_group_detail(self, group: int | None) -> None:
+        review = self.groups
+        if review is None:
+            return
+        title = self._q("#detail-title", Static)
+        body = self._q("#detail-text", Static)
+        if group is None:
+            title.update(Text("no group"), layout=False)
+            body.update(Text(""), layout=False)
+            return
+        title.update(
+            Text.assemble(
+                (fmt.plain(review.label(group), 80), "bold"),
+                f"   group rank {int(review.table['rank'].iat[group])} of {review.n_groups:,}",
+            ),
+            layout=False,
+        )
+        if self._chart_timer is not None:
+            self._chart_timer.stop()
+        self._chart_timer = self.set_timer(CHART_SETTLE, lambda: self._draw_group_chart(group))
+        session = self.session
+        assert session is not None
+        lines = list(review.describe(group))
+        lines.append("largest contributors:")
+        for c in review.contributors(group):
+            lines.append(f"  {fmt.key_text(session.key(c.series))}  {fmt.pct(c.share)}")
+        flagged = review.flagged(group)
+        if len(flagged):
+            shown = ", ".join(fmt.key_text(session.key(int(s))) for s in flagged[:5])
+            more = f" and {len(flagged) - 5:,} more" if len(flagged) > 5 else ""
+            lines.append(f"flagged: {shown}{more}")
+        body.update(Text("\n".join(visible(line) for line in lines)), layout=False)
+
+    def _draw_group_chart(self, group: int) -> None:
+        if (
+            self.groups is not None
+            and self.is_running
+            and self.in_groups
+            and self._q(GroupList).current == group
+        ):
+            self._q("#chart", SeriesChart).show(self.groups.chart(group))
 
     # -- export and help ----------------------------------------------------------------------
 

@@ -68,6 +68,24 @@ BIAS_COLUMNS = tuple(
 )
 
 
+#: The group view's columns: the group's key, its series and how many are decided, its share of
+#: the series' error, the series' error and the error of the group's total (the gap between the
+#: two: a mix problem), the total's bias and flag, and a sparkline of the total.
+GROUP_COLUMNS = (
+    Column("rank", "#", 5, right=True, keep=20),
+    Column("group", "group", 22, keep=19),
+    Column("series", "series", 6, right=True, keep=10),
+    Column("share", "share", 6, right=True, keep=17),
+    Column("cum", "cum", 5, right=True, keep=5),
+    Column("error", "abs err", 8, right=True, keep=16),
+    Column("total", "total err", 9, right=True, keep=11),
+    Column("bias", "bias", 12, right=True, keep=15),
+    Column("flag", "flag", 7, keep=12),
+    Column("decided", "decided", 7, right=True, keep=13),
+    Column("spark", "dem | fcst", 2 * SPARK_PERIODS + 1, keep=14),
+)
+
+
 def clip(text: str, limit: int = 200) -> str:
     """At most ``limit`` characters, with an ellipsis: a 1 MB cell must not stall a repaint.
 

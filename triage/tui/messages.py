@@ -4,6 +4,7 @@ from __future__ import annotations
 
 from textual.message import Message
 
+from triage.core.group_review import GroupReview
 from triage.core.ledger import AdjustmentEnd, Event
 from triage.core.review import ReviewSession
 
@@ -72,3 +73,13 @@ class Ended(Message):
         super().__init__()
         self.record = record
         """The committed end or restore."""
+
+
+class GroupsReady(Message):
+    """The groups of the session are ranked (``GroupReview``), or could not be made."""
+
+    def __init__(self, review: GroupReview | None, error: str = "") -> None:
+        super().__init__()
+        self.review = review
+        """The ranked groups; None when ``error`` says why there are none."""
+        self.error = error

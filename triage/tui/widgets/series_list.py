@@ -41,10 +41,11 @@ Cell = tuple[str, str | None]
 RowFormatter = Callable[[int], dict[str, Cell]]
 
 
-class SeriesList(ScrollView, can_focus=True):
-    """Series in review order, one per line, drawn on demand from the core's arrays.
+class RowList(ScrollView, can_focus=True):
+    """Rows (series or groups) in review order, one per line, drawn on demand from the core's
+    arrays.
 
-    The list never holds widgets or strings for every series: ``render_line`` formats the few
+    The list never holds widgets or strings for every row: ``render_line`` formats the few
     visible rows through ``formatter`` and keeps a small cache of them.
 
     | Key | Action |
@@ -88,31 +89,32 @@ class SeriesList(ScrollView, can_focus=True):
     }
 
     DEFAULT_CSS = """
-    SeriesList {
+    RowList {
         height: 1fr;
         overflow-x: hidden;
         scrollbar-size-vertical: 1;
     }
-    SeriesList > .series-list--header { text-style: bold; background: $panel; }
-    SeriesList > .series-list--cursor { background: $accent 40%; }
-    SeriesList:focus > .series-list--cursor { background: $accent; color: $text; }
-    SeriesList > .series-list--over { color: $warning; }
-    SeriesList > .series-list--under { color: $secondary; }
-    SeriesList > .series-list--flag { text-style: bold; }
-    SeriesList > .series-list--done { color: $success; }
-    SeriesList > .series-list--dim { color: $text-muted; }
+    RowList > .series-list--header { text-style: bold; background: $panel; }
+    RowList > .series-list--cursor { background: $accent 40%; }
+    RowList:focus > .series-list--cursor { background: $accent; color: $text; }
+    RowList > .series-list--over { color: $warning; }
+    RowList > .series-list--under { color: $secondary; }
+    RowList > .series-list--flag { text-style: bold; }
+    RowList > .series-list--done { color: $success; }
+    RowList > .series-list--dim { color: $text-muted; }
     """
 
     cursor: reactive[int] = reactive(0, always_update=True)
     """Position of the highlighted line within the current order."""
 
     class Highlighted(Message):
-        """The highlighted series changed."""
+        """The highlighted row changed (each kind of list posts its own subclass)."""
 
         def __init__(self, series: int | None) -> None:
             super().__init__()
             self.series = series
-            """Portfolio index of the series, None when the list is empty."""
+            """The row's index (a series' portfolio index, a group's number), None when the
+            list is empty."""
 
     def __init__(
         self,
@@ -299,3 +301,17 @@ class SeriesList(ScrollView, can_focus=True):
             segments.append(Segment(text, cell_style))
         strip = Strip(segments)
         return strip.adjust_cell_length(width, style)
+
+
+class SeriesList(RowList):
+    """Series in review order (see :class:`RowList`)."""
+
+    class Highlighted(RowList.Highlighted):
+        """The highlighted series changed."""
+
+
+class GroupList(RowList):
+    """Groups of series in review order (see :class:`RowList`); rows are group numbers."""
+
+    class Highlighted(RowList.Highlighted):
+        """The highlighted group changed."""
