@@ -3,12 +3,15 @@
 Expected values are worked by hand next to each check (arithmetic on the numbers shown). The
 bias correction is checked against statsmodels' ``bias`` (mean of x1 − x2): after it, the
 window bias in the project's sign convention (forecast − demand, docs/sources.md §1.1) is 0.
+``use NAME`` is checked against a plain per-period rule written here and, through the ledger,
+the export and a later cycle's realised value, against numbers worked by hand.
 """
 
 from __future__ import annotations
 
 import math
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -26,7 +29,12 @@ from triage.core.adjust import (
     parse,
     suggest,
 )
+from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
+from triage.core.export import review_tables
+from triage.core.ledger import Ledger
+from triage.core.read import read_portfolio
+from triage.core.review import ReviewSession
 from triage.core.text import visible
 
 NAN = np.nan
@@ -679,3 +687,62 @@ def test_use_matches_the_plain_rule(data, horizon: int) -> None:
     # Never a missing value written as a change: every NaN in the range was NaN before.
     now_missing = np.isnan(result.adjusted[start - 1 : last])
     assert not (now_missing & ~np.isnan(forward[start - 1 : last])).any()
+
+
+# ---- use NAME across the ledger: recorded, exported, valued in a later cycle -------------------
+
+WEEKS = [f"2026-{m:02d}-{d:02d}" for m, d in ((9, 21), (9, 28), (10, 5), (10, 12), (10, 19))]
+WEEKS += [f"2026-{m:02d}-{d:02d}" for m, d in ((10, 26), (11, 2), (11, 9), (11, 16), (11, 23))]
+PRICE = 3.0
+
+
+def write_week(path: Path, actuals: int) -> None:
+    """Series A and B at Lyon: forecast 80 a week, stat 52, 47, 60, ... forward, price 3.
+
+    The first ``actuals`` weeks have demand (50, then 45 in week 8); the rest are forward.
+    """
+    stat = {7: "52", 8: "47", 9: "60"}
+    demand = {k: "50" for k in range(10)} | {8: "45"}
+    lines = ["item,location,period,demand,forecast,forecast_stat,price"]
+    for item in ("A", "B"):
+        for k, week in enumerate(WEEKS):
+            shown = demand[k] if k < actuals else ""
+            lines.append(f"{item},Lyon,{week},{shown},80,{stat.get(k, '70')},{PRICE:g}")
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+def test_use_is_recorded_exported_and_valued_like_any_adjustment(tmp_path: Path) -> None:
+    week1, week2 = tmp_path / "w1.csv", tmp_path / "w2.csv"
+    write_week(week1, actuals=7)  # latest actual 11-02; forward 11-09, 11-16, 11-23
+    write_week(week2, actuals=9)  # two weeks later: 11-09 and 11-16 now have demand
+    with Ledger.open(tmp_path / "ledger.sqlite") as ledger:
+        first = read_portfolio(week1)
+        session = ReviewSession(ReviewCycle(first, ledger), reviewer="ana")
+        series = session.find("A", "Lyon")
+        assert series is not None
+        session.commit_decision(
+            series, outcome="adjusted", root_cause="model_miss", adjustment="1-2: USE Stat"
+        )
+        event = ledger.history()[-1]
+        # Stored as the canonical spec with one original/adjusted line per period it touched.
+        assert event.adjustment == "1-2: use stat"
+        assert [(ln.period, ln.original, ln.adjusted) for ln in event.lines] == [
+            ("2026-11-09", 80.0, 52.0),
+            ("2026-11-16", 80.0, 47.0),
+        ]
+        # The export of the cycle carries the adjusted forward forecast.
+        tables = review_tables(ReviewCycle(first, ledger))
+        rows = tables.forecast
+        a = rows.loc[rows["item"] == "A"].set_index("period")
+        assert a["adjusted_forecast"].tolist() == [52.0, 47.0, 80.0]
+        assert a["adjusted"].tolist() == [True, True, False]
+        assert (rows.loc[rows["item"] == "B", "adjusted_forecast"] == 80.0).all()
+        decisions = tables.decisions
+        assert decisions.loc[decisions["item"] == "A", "adjustment"].tolist() == ["1-2: use stat"]
+        # Two weeks on, both periods have demand (50 and 45): the value the override added is
+        # |80 − 50| − |52 − 50| = 28 and |80 − 45| − |47 − 45| = 33, 61 units, 183 at price 3.
+        realised = ReviewCycle(read_portfolio(week2), ledger).realised
+    assert realised["adjusted"].tolist() == [52.0, 47.0]
+    assert realised["actual"].tolist() == [50.0, 45.0]
+    assert realised["value_added"].tolist() == [28.0, 33.0]
+    assert realised["value_added_value"].sum() == pytest.approx(61.0 * PRICE)
