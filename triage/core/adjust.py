@@ -277,18 +277,18 @@ def _parse_op(spec: str, text: str, at: int, start: int, end: int | None) -> Adj
         return Adjustment(BIAS, start=start, end=end)
     if m := _USE.fullmatch(text):
         return Adjustment(USE, source=_parse_source(spec, m, at), start=start, end=end)
-    if text.startswith(USE) and _NAME_CHAR.match(text, len(USE)):
+    if text.startswith(USE) and len(text) > len(USE) and _name_char(text[len(USE)]):
         raise AdjustSyntaxError(
             spec,
             at + len(USE),
-            f"put a space between use and the forecast's name: {text[:3]} {text[3:]}.",
+            f"put a space between use and the forecast's name: {USE} {text[len(USE) :]}.",
         )
     return Adjustment(VALUES, values=_parse_values(spec, text, at), start=start, end=end)
 
 
-#: One character of a competing forecast's name; the rule itself is ``schema.competing_name``.
-_NAME_CHAR = re.compile(r"[a-z0-9_]")
-_NOT_NAME_CHAR = re.compile(r"[^a-z0-9_]")
+def _name_char(char: str) -> bool:
+    """Whether ``char`` may be part of a forecast's name (the rule: ``schema.competing_name``)."""
+    return schema.competing_name(schema.COMPETING_PREFIX + char) is not None
 
 
 def _parse_source(spec: str, match: re.Match[str], at: int) -> str:
@@ -302,10 +302,10 @@ def _parse_source(spec: str, match: re.Match[str], at: int) -> str:
         )
     name_at = at + match.start(1) + (len(match.group(1)) - len(match.group(1).lstrip()))
     if schema.competing_name(schema.COMPETING_PREFIX + name) is None:
-        bad = _NOT_NAME_CHAR.search(name)
+        bad = next((i for i, char in enumerate(name) if not _name_char(char)), 0)
         raise AdjustSyntaxError(
             spec,
-            name_at + (bad.start() if bad else 0),
+            name_at + bad,
             f"{name!r} is not a forecast name: a name is lower-case letters, digits and '_', "
             "as in the column forecast_<name> (use stat for forecast_stat).",
         )
