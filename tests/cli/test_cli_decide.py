@@ -144,3 +144,58 @@ def test_a_workbook_batch(weeks: TwoWeeks, tmp_path: Path) -> None:
     (event,) = events(weeks.week1.parent / FOLDER_LEDGER)
     assert (event.item, event.adjustment, event.note) == ("D", "1-2: =250", "from the sheet")
     assert [line.adjusted for line in event.lines] == [250.0, 250.0]
+
+
+def test_a_batch_may_take_another_forecast_with_use(tmp_path: Path) -> None:
+    # The committed sample has forecast_stat and forecast_customer. Expected lines are read from
+    # the file's own rows here (the forward rows are the ones without demand), not by triage.
+    sample = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"
+    folder = tmp_path / "review"
+    folder.mkdir()
+    week = folder / "week.csv"
+    week.write_bytes(sample.read_bytes())
+    with sample.open(encoding="utf-8", newline="") as handle:
+        forward = [
+            row
+            for row in csv.DictReader(handle)
+            if (row["item"], row["location"]) == ("GF-10010", "NTH") and row["demand"] == ""
+        ]
+    assert len(forward) == 13 and forward[9]["forecast_customer"] == ""  # a gap at period 10
+
+    bad = write_batch(
+        tmp_path / "bad.csv",
+        [
+            ["GF-10010", "NTH", "adjusted", "model_miss", "use sales", ""],
+            ["00412", "NTH", "adjusted", "model_miss", "1-2: use naive", ""],
+        ],
+    )
+    refused = run("decide", str(week), "--from", str(bad), "--reviewer", "ana", cwd=tmp_path)
+    assert refused.returncode == 2 and "Traceback" not in refused.stderr
+    err = refused.stderr
+    assert "row 2: adjustment 'use sales': this file has no forecast 'sales'" in err
+    assert "its other forecasts are: stat, customer" in err
+    assert "row 3: adjustment '1-2: use naive'" in err and "write mean 1" in err
+    assert not (folder / FOLDER_LEDGER).exists()
+
+    good = write_batch(
+        tmp_path / "good.csv",
+        [
+            ["GF-10010", "NTH", "adjusted", "model_miss", "8-: USE customer", "their plan"],
+            ["00412", "NTH", "adjusted", "model_miss", "1-2: use stat", ""],
+        ],
+    )
+    done = run("decide", str(week), "--from", str(good), "--reviewer", "ana", cwd=tmp_path)
+    assert done.returncode == 0, done.stderr
+    saved = events(folder / FOLDER_LEDGER)
+    assert [(e.item, e.location, e.adjustment) for e in saved] == [
+        ("GF-10010", "NTH", "8-: use customer"),
+        ("00412", "NTH", "1-2: use stat"),
+    ]
+    # Periods 8-13 take the customer's forecast; period 10 has none, so it keeps the original.
+    expected = [float(row["forecast_customer"] or row["forecast"]) for row in forward[7:]]
+    assert [line.adjusted for line in saved[0].lines] == pytest.approx(expected)
+    assert [line.original for line in saved[0].lines] == pytest.approx(
+        [float(row["forecast"]) for row in forward[7:]]
+    )
+    assert [line.period for line in saved[0].lines] == [row["period"] for row in forward[7:]]
+    assert len(saved[1].lines) == 2

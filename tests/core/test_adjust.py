@@ -3,12 +3,15 @@
 Expected values are worked by hand next to each check (arithmetic on the numbers shown). The
 bias correction is checked against statsmodels' ``bias`` (mean of x1 − x2): after it, the
 window bias in the project's sign convention (forecast − demand, docs/sources.md §1.1) is 0.
+``use NAME`` is checked against a plain per-period rule written here and, through the ledger,
+the export and a later cycle's realised value, against numbers worked by hand.
 """
 
 from __future__ import annotations
 
 import math
 import re
+from pathlib import Path
 
 import numpy as np
 import pytest
@@ -26,7 +29,12 @@ from triage.core.adjust import (
     parse,
     suggest,
 )
+from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
+from triage.core.export import review_tables
+from triage.core.ledger import Ledger
+from triage.core.read import read_portfolio
+from triage.core.review import ReviewSession
 from triage.core.text import visible
 
 NAN = np.nan
@@ -473,3 +481,268 @@ def test_a_comma_between_digits_is_refused_as_ambiguous(spec: str) -> None:
 def test_values_may_be_separated_by_a_comma_and_a_space() -> None:
     assert parse("100, 120,  130").values == (100.0, 120.0, 130.0)
     assert parse("1-2: 1200 1300").values == (1200.0, 1300.0)
+
+
+# ---- use NAME: another forecast's forward values ----------------------------------------------
+#
+# The expected values come from a plain per-period rule written here (docs/adjustments.md,
+# "use NAME"): in the range, a period takes the other forecast's value where it has one (below
+# zero becomes 0, as for every operation) and keeps the original where it has none.
+
+STAT = np.array([90.0, NAN, 60.0, 85.0, -5.0])
+OTHERS = {"stat": STAT, "customer": np.array([1.0, 2.0, 3.0, 4.0, 5.0])}
+
+
+def plain_use(forward, other, start: int, end: int | None) -> list[float]:
+    """The rule period by period, in plain Python."""
+    out = [float(v) for v in forward]
+    last = len(out) if end is None else end
+    for h in range(start, last + 1):
+        value = float(other[h - 1])
+        if not math.isnan(value):
+            out[h - 1] = max(value, 0.0)
+    return out
+
+
+def plain_change(before, after, start: int, end: int | None, price=None) -> tuple[float, float]:
+    """Σ after − Σ before over the range, missing counted as 0, and the same times price."""
+    last = len(before) if end is None else end
+    units = value = 0.0
+    for h in range(start, last + 1):
+        a = 0.0 if math.isnan(after[h - 1]) else after[h - 1]
+        b = 0.0 if math.isnan(before[h - 1]) else before[h - 1]
+        units += a - b
+        if price is not None:
+            value += (a - b) * price
+    return units, value
+
+
+@pytest.mark.parametrize(
+    ("spec", "canonical", "start", "end"),
+    [
+        ("use stat", "use stat", 1, None),
+        ("USE  Stat", "use stat", 1, None),
+        (" 1 - 4 : use stat ", "1-4: use stat", 1, 4),
+        ("3-: use customer", "3-: use customer", 3, None),
+        ("1-: use sales_2", "use sales_2", 1, None),
+        ("2: use x9", "2: use x9", 2, 2),
+    ],
+)
+def test_use_parses_to_its_canonical_text(spec, canonical, start, end) -> None:
+    adj = parse(spec)
+    assert (adj.op, adj.start, adj.end) == ("use", start, end)
+    assert adj.source == canonical.split("use ")[1]
+    assert str(adj) == canonical and parse(canonical) == adj
+
+
+@settings(max_examples=200)
+@given(
+    range_=RANGE,
+    name=st.from_regex(r"[a-z0-9_]{1,12}", fullmatch=True).filter(
+        lambda n: n not in ("naive", "snaive", "forecast")
+    ),
+    gap=st.sampled_from([" ", "  ", "\t"]),
+)
+def test_use_round_trips_for_every_valid_name(range_: str, name: str, gap: str) -> None:
+    # The name rule is the input's (docs/input-format.md, Competing forecasts).
+    adj = parse(f"{range_} use{gap}{name.upper()}")
+    assert adj.source == name and parse(str(adj)) == adj
+
+
+@pytest.mark.parametrize(
+    ("spec", "pointer", "words"),
+    [
+        ("use", 3, "use needs the name of another forecast"),
+        ("1-2: use ", 8, "use needs the name of another forecast"),
+        ("use st-at", 6, "'st-at' is not a forecast name"),
+        ("use my stat", 6, "'my stat' is not a forecast name"),
+        ("2: use stat!", 11, "'stat!' is not a forecast name"),
+        ("usestat", 3, "put a space between use and the forecast's name"),
+        ("use naive", 4, "to carry the latest actual forward write mean 1"),
+        ("1-3: use SNAIVE", 9, "not a forecast of the forward periods"),
+        ("use forecast", 4, "the forecast under review itself"),
+        ("use stat: 1", 0, "the range comes first"),
+    ],
+)
+def test_use_with_a_bad_name_points_at_it(spec: str, pointer: int, words: str) -> None:
+    with pytest.raises(AdjustSyntaxError, match=re.escape(words)) as caught:
+        parse(spec)
+    lines = str(caught.value).splitlines()
+    assert lines[2] == " " * (2 + pointer) + "^" and caught.value.position == pointer
+    assert lines[3] == EXPECTED + "." and "use NAME" in EXPECTED
+
+
+def test_use_takes_the_other_forecast_over_the_range() -> None:
+    # Forward 100, 95, –, 90, 80; stat 90, –, 60, 85, -5.
+    result = run("1-4: use stat", alternatives=OTHERS)
+    assert same(result.adjusted, [90, 95, 60, 85, 80])
+    assert same(result.adjusted, plain_use(FORWARD, STAT, 1, 4))
+    # Δ = (90 − 100) + 0 (stat missing: original kept) + (60 − 0) + (85 − 90) = +45
+    assert result.delta_units == 45.0 == plain_change(FORWARD, result.adjusted, 1, 4)[0]
+    assert result.notes == ("stat has no value in period 2; the original forecast is kept there",)
+    assert result.description == (
+        "periods 1-4: use stat → +45 units; stat has no value in period 2; the original "
+        "forecast is kept there"
+    )
+    assert not result.clipped
+    three = run("3-: use customer", alternatives=OTHERS)
+    assert same(three.adjusted, [100, 95, 3, 4, 5]) and three.notes == ()
+    assert three.delta_units == (3 - 0) + (4 - 90) + (5 - 80)
+
+
+def test_use_clips_a_negative_other_forecast_to_zero_and_says_so() -> None:
+    whole = run("use stat", alternatives=OTHERS)
+    # Period 5: stat -5 would be negative, so 0 (the rule every operation follows).
+    assert same(whole.adjusted, [90, 95, 60, 85, 0])
+    assert same(whole.adjusted, plain_use(FORWARD, STAT, 1, None))
+    assert whole.clipped and whole.message == "1 period(s) would fall below zero and were set to 0"
+    assert whole.delta_units == 45.0 - 80.0
+    assert "set to 0" in whole.description
+
+
+def test_use_values_the_change_with_the_price() -> None:
+    forward = np.array([95.0, 95.0, 95.0, 95.0, 60.0])
+    other = {"stat": np.array([85.5, 85.5, 85.5, 85.5, 10.0])}
+    result = run("1-4: use stat", forward=forward, alternatives=other, price=32.5)
+    # 4 · (85.5 − 95) = −38 units; −38 · 32.5 = −1,235
+    assert result.delta_units == pytest.approx(-38.0)
+    assert result.delta_value == pytest.approx(-38.0 * 32.5)
+    assert result.description == "periods 1-4: use stat → -38 units (value -1,235)"
+    per = run("1-4: use stat", alternatives=OTHERS, price=[2.0, 4.0, 9.0, NAN, 1.0])
+    # (90 − 100)·2 + 0·4 + 60·9; period 4 changed (−5) but has no price: left out, said
+    assert per.delta_value == pytest.approx(-20.0 + 540.0)
+    assert "value leaves out 1 period(s) without a price" in per.notes
+
+
+def test_use_where_the_other_forecast_has_no_value_at_all_is_refused() -> None:
+    with pytest.raises(AdjustError, match="the forecast stat has no value in period 2") as caught:
+        run("2: use stat", alternatives=OTHERS)
+    assert "nothing to use" in str(caught.value)
+    gaps = {"stat": np.array([1.0, NAN, NAN, NAN, 2.0])}
+    with pytest.raises(AdjustError, match="no value in periods 2-4"):
+        run("2-4: use stat", alternatives=gaps)
+    many = {"stat": np.array([7.0] + [NAN] * 8)}
+    notes = run("use stat", forward=np.ones(9), alternatives=many).notes
+    assert notes == (
+        "stat has no value in periods 2, 3, 4, 5, 6 and 3 more; the original forecast is kept "
+        "there",
+    )
+
+
+def test_use_of_a_forecast_the_file_does_not_have() -> None:
+    with pytest.raises(AdjustError) as caught:
+        run("use sales", alternatives=OTHERS)
+    text = str(caught.value)
+    assert "this file has no forecast 'sales' (no column forecast_sales)" in text
+    assert "its other forecasts are: stat, customer" in text
+    with pytest.raises(AdjustError, match="Write use stat: the name comes without 'forecast_'"):
+        run("use forecast_stat", alternatives=OTHERS)
+    for none in (None, {}):
+        with pytest.raises(AdjustError) as caught:
+            run("use stat", alternatives=none)
+        text = str(caught.value)
+        assert "this file has no other forecast to use" in text
+        assert "forecast_<name>" in text and "docs/input-format.md" in text
+
+
+def test_use_checks_the_other_forecast_like_the_forward_one() -> None:
+    with pytest.raises(AdjustError, match="has 3 forward value"):
+        run("use stat", alternatives={"stat": np.ones(3)})
+    with pytest.raises(AdjustError, match="infinite"):
+        run("use stat", alternatives={"stat": np.array([1.0, np.inf, 1, 1, 1])})
+    assert same(STAT, [90, NAN, 60, 85, -5])  # the input is not modified
+
+
+# Forecasts under review are non-negative quantities; the other forecast may dip below zero.
+FORWARD_OR_GAP = st.one_of(st.floats(0, 1e6, allow_subnormal=False), st.just(np.nan))
+OTHER_OR_GAP = st.one_of(st.floats(-50, 1e6, allow_subnormal=False), st.just(np.nan))
+
+
+@settings(max_examples=300)
+@given(data=st.data(), horizon=st.integers(1, 12))
+def test_use_matches_the_plain_rule(data, horizon: int) -> None:
+    forward = np.array(data.draw(st.lists(FORWARD_OR_GAP, min_size=horizon, max_size=horizon)))
+    other = np.array(data.draw(st.lists(OTHER_OR_GAP, min_size=horizon, max_size=horizon)))
+    start = data.draw(st.integers(1, horizon))
+    end = data.draw(st.one_of(st.none(), st.integers(start, horizon)))
+    price = data.draw(st.floats(0.01, 100))
+    spec = f"{start}-{'' if end is None else end}: use stat"
+    last = horizon if end is None else end
+    if np.isnan(other[start - 1 : last]).all():
+        with pytest.raises(AdjustError, match="nothing to use"):
+            run(spec, forward=forward, alternatives={"stat": other}, price=price)
+        return
+    result = run(spec, forward=forward, alternatives={"stat": other}, price=price)
+    expected = plain_use(forward, other, start, end)
+    assert same(result.adjusted[start - 1 : last], expected[start - 1 : last])
+    outside = np.r_[0 : start - 1, last:horizon]
+    assert same(result.adjusted[outside], forward[outside])  # nothing moves outside the range
+    negative = other[start - 1 : last] < 0
+    assert result.clipped == bool(negative.any())
+    units, value = plain_change(forward, result.adjusted, start, end, price)
+    assert result.delta_units == pytest.approx(units, rel=1e-9, abs=1e-6)
+    assert result.delta_value == pytest.approx(value, rel=1e-9, abs=1e-6)
+    gaps = int(np.isnan(other[start - 1 : last]).sum())
+    assert any("original forecast is kept" in n for n in result.notes) == (gaps > 0)
+    # Never a missing value written as a change: every NaN in the range was NaN before.
+    now_missing = np.isnan(result.adjusted[start - 1 : last])
+    assert not (now_missing & ~np.isnan(forward[start - 1 : last])).any()
+
+
+# ---- use NAME across the ledger: recorded, exported, valued in a later cycle -------------------
+
+WEEKS = [f"2026-{m:02d}-{d:02d}" for m, d in ((9, 21), (9, 28), (10, 5), (10, 12), (10, 19))]
+WEEKS += [f"2026-{m:02d}-{d:02d}" for m, d in ((10, 26), (11, 2), (11, 9), (11, 16), (11, 23))]
+PRICE = 3.0
+
+
+def write_week(path: Path, actuals: int) -> None:
+    """Series A and B at Lyon: forecast 80 a week, stat 52, 47, 60, ... forward, price 3.
+
+    The first ``actuals`` weeks have demand (50, then 45 in week 8); the rest are forward.
+    """
+    stat = {7: "52", 8: "47", 9: "60"}
+    demand = {k: "50" for k in range(10)} | {8: "45"}
+    lines = ["item,location,period,demand,forecast,forecast_stat,price"]
+    for item in ("A", "B"):
+        for k, week in enumerate(WEEKS):
+            shown = demand[k] if k < actuals else ""
+            lines.append(f"{item},Lyon,{week},{shown},80,{stat.get(k, '70')},{PRICE:g}")
+    path.write_text("\n".join(lines) + "\n", encoding="utf-8")
+
+
+def test_use_is_recorded_exported_and_valued_like_any_adjustment(tmp_path: Path) -> None:
+    week1, week2 = tmp_path / "w1.csv", tmp_path / "w2.csv"
+    write_week(week1, actuals=7)  # latest actual 11-02; forward 11-09, 11-16, 11-23
+    write_week(week2, actuals=9)  # two weeks later: 11-09 and 11-16 now have demand
+    with Ledger.open(tmp_path / "ledger.sqlite") as ledger:
+        first = read_portfolio(week1)
+        session = ReviewSession(ReviewCycle(first, ledger), reviewer="ana")
+        series = session.find("A", "Lyon")
+        assert series is not None
+        session.commit_decision(
+            series, outcome="adjusted", root_cause="model_miss", adjustment="1-2: USE Stat"
+        )
+        event = ledger.history()[-1]
+        # Stored as the canonical spec with one original/adjusted line per period it touched.
+        assert event.adjustment == "1-2: use stat"
+        assert [(ln.period, ln.original, ln.adjusted) for ln in event.lines] == [
+            ("2026-11-09", 80.0, 52.0),
+            ("2026-11-16", 80.0, 47.0),
+        ]
+        # The export of the cycle carries the adjusted forward forecast.
+        tables = review_tables(ReviewCycle(first, ledger))
+        rows = tables.forecast
+        a = rows.loc[rows["item"] == "A"].set_index("period")
+        assert a["adjusted_forecast"].tolist() == [52.0, 47.0, 80.0]
+        assert a["adjusted"].tolist() == [True, True, False]
+        assert (rows.loc[rows["item"] == "B", "adjusted_forecast"] == 80.0).all()
+        decisions = tables.decisions
+        assert decisions.loc[decisions["item"] == "A", "adjustment"].tolist() == ["1-2: use stat"]
+        # Two weeks on, both periods have demand (50 and 45): the value the override added is
+        # |80 − 50| − |52 − 50| = 28 and |80 − 45| − |47 − 45| = 33, 61 units, 183 at price 3.
+        realised = ReviewCycle(read_portfolio(week2), ledger).realised
+    assert realised["adjusted"].tolist() == [52.0, 47.0]
+    assert realised["actual"].tolist() == [50.0, 45.0]
+    assert realised["value_added"].tolist() == [28.0, 33.0]
+    assert realised["value_added_value"].sum() == pytest.approx(61.0 * PRICE)

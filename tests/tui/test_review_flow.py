@@ -99,6 +99,40 @@ async def test_decide_with_note_and_adjustment_preview(portfolio: Path) -> None:
     assert event.reviewer == "ana"
 
 
+async def test_use_another_forecast_is_previewed_and_saved(portfolio: Path) -> None:
+    # The sample carries forecast_stat: "1-2: use stat" takes its first two forward values.
+    app = make_app(portfolio)
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        session = app.session
+        assert session is not None
+        series = app.query_one(SeriesList).current
+        await pilot.press("a")
+        await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the decision dialog")
+        dialog = app.screen
+        adjust = dialog.query_one("#decision-adjust", Input)
+        assert "use stat" in str(adjust.placeholder)  # the field offers the file's forecast
+        await pilot.press(*"1-2: use stat")
+        preview = str(dialog.query_one("#decision-preview").render())
+        p = session.portfolio
+        stat = p.competing["stat"][series, p.last_actual + 1 : p.last_actual + 3]
+        original = p.forecast[series, p.last_actual + 1 : p.last_actual + 3]
+        expected = session.preview(series, "1-2: use stat")
+        assert preview.startswith("periods 1-2: use stat → ")
+        assert expected.description in preview  # the preview shows the core's impact text
+        # ... whose change is the file's own: Σ stat − Σ forecast over periods 1-2.
+        assert expected.delta_units == pytest.approx(float((stat - original).sum()))
+        await pilot.press("ctrl+s")
+        await wait_for(
+            pilot, lambda: session.outcome[series] == "adjusted", "the adjusted decision"
+        )
+    with Ledger.open(portfolio.with_name(FOLDER_LEDGER), read_only=True) as ledger:
+        events = ledger.history()
+    assert [e.adjustment for e in events] == ["1-2: use stat"]
+    assert [line.adjusted for line in events[0].lines] == pytest.approx(list(stat))
+    assert [line.original for line in events[0].lines] == pytest.approx(list(original))
+
+
 async def test_bad_adjustment_is_refused_in_the_dialog(portfolio: Path) -> None:
     app = make_app(portfolio)
     async with app.run_test(size=(160, 48)) as pilot:

@@ -13,6 +13,8 @@ OP is one of:
 ``bias``        multiply by Σdemand / Σforecast over the scoring window, removing the window bias
 ``100 120 130`` one value per period of the range (spaces, or a comma and a space, between
                 them; ``1,200`` is refused as ambiguous)
+``use stat``    take another forecast's forward values: the column ``forecast_stat`` of the file
+                (``Portfolio.competing``); where it has no value the original is kept (noted)
 ==============  ==============================================================================
 
 Specs are case-insensitive and whitespace-tolerant; ``str(parse(spec))`` is the canonical text
@@ -27,13 +29,14 @@ from __future__ import annotations
 
 import math
 import re
-from collections.abc import Sequence
+from collections.abc import Mapping, Sequence
 from dataclasses import dataclass
 from decimal import Decimal
 
 import numpy as np
 from numpy.typing import ArrayLike
 
+from triage.core import schema
 from triage.core.errors import TriageError
 from triage.core.text import visible
 
@@ -44,10 +47,12 @@ ADD = "add"
 MEAN = "mean"
 BIAS = "bias"
 VALUES = "values"
-OPERATIONS = (SET, PERCENT, MULTIPLY, ADD, MEAN, BIAS, VALUES)
+USE = "use"
+OPERATIONS = (SET, PERCENT, MULTIPLY, ADD, MEAN, BIAS, VALUES, USE)
 
 EXPECTED = (
     "expected one of =N, +N%, -N%, xF, +N, -N, mean K, bias, or values (e.g. 100 120 130), "
+    "or use NAME (another forecast of the file, e.g. use stat), "
     "optionally after a range such as 3:, 2-5: or 4-:"
 )
 
@@ -61,6 +66,7 @@ _PERCENT = re.compile(rf"([+-])\s*({_NUM})\s*%")
 _MULTIPLY = re.compile(rf"[x*×]\s*({_NUM})")
 _ADD = re.compile(rf"([+-])\s*({_NUM})")
 _MEAN = re.compile(r"mean\s*(\d+)")
+_USE = re.compile(r"use(?:\s+(.*))?", re.DOTALL)
 _VALUE = re.compile(_NUM)
 _SEPARATORS = re.compile(r"[\s,;]+")
 #: A comma between two digits (``1,200``, ``1,5``): a thousands separator or a decimal comma in
@@ -121,6 +127,8 @@ class Adjustment:
     """First horizon of the range, 1-based."""
     end: int | None = None
     """Last horizon of the range (inclusive); None runs to the end of the forward forecast."""
+    source: str = ""
+    """Name of the other forecast ``use`` takes (the file's column ``forecast_<source>``)."""
 
     @property
     def range_text(self) -> str:
@@ -144,6 +152,8 @@ class Adjustment:
             return f"mean {self.count}"
         if self.op == BIAS:
             return "bias"
+        if self.op == USE:
+            return f"use {self.source}"
         return " ".join(_fmt(v) for v in self.values)
 
     @property
@@ -228,7 +238,7 @@ def _parse_range(spec: str, text: str) -> tuple[int, int | None]:
     return first, last
 
 
-_MEAN_OR_OP_HINT = re.compile(r"[=%x*×]|mean|bias", re.IGNORECASE)
+_MEAN_OR_OP_HINT = re.compile(r"[=%x*×]|mean|bias|use", re.IGNORECASE)
 
 
 def _number(spec: str, text: str, at: int) -> float:
@@ -265,7 +275,56 @@ def _parse_op(spec: str, text: str, at: int, start: int, end: int | None) -> Adj
         )
     if text == BIAS:
         return Adjustment(BIAS, start=start, end=end)
+    if m := _USE.fullmatch(text):
+        return Adjustment(USE, source=_parse_source(spec, m, at), start=start, end=end)
+    if text.startswith(USE) and len(text) > len(USE) and _name_char(text[len(USE)]):
+        raise AdjustSyntaxError(
+            spec,
+            at + len(USE),
+            f"put a space between use and the forecast's name: {USE} {text[len(USE) :]}.",
+        )
     return Adjustment(VALUES, values=_parse_values(spec, text, at), start=start, end=end)
+
+
+def _name_char(char: str) -> bool:
+    """Whether ``char`` may be part of a forecast's name (the rule: ``schema.competing_name``)."""
+    return schema.competing_name(schema.COMPETING_PREFIX + char) is not None
+
+
+def _parse_source(spec: str, match: re.Match[str], at: int) -> str:
+    """The forecast name after ``use``: the ``<name>`` of a column ``forecast_<name>``."""
+    name = (match.group(1) or "").strip()
+    if not name:
+        raise AdjustSyntaxError(
+            spec,
+            at + len(match.group(0).rstrip()),
+            "use needs the name of another forecast, e.g. use stat for the column forecast_stat.",
+        )
+    name_at = at + match.start(1) + (len(match.group(1)) - len(match.group(1).lstrip()))
+    if schema.competing_name(schema.COMPETING_PREFIX + name) is None:
+        bad = next((i for i, char in enumerate(name) if not _name_char(char)), 0)
+        raise AdjustSyntaxError(
+            spec,
+            name_at + bad,
+            f"{name!r} is not a forecast name: a name is lower-case letters, digits and '_', "
+            "as in the column forecast_<name> (use stat for forecast_stat).",
+        )
+    # The built-in benchmarks' names belong to triage compare (imported here, when a spec
+    # names a forecast, so the review screens do not load scipy for it).
+    from triage.core.compare import FORECAST, NAIVE, SNAIVE
+
+    builtin = {
+        NAIVE: f"{NAIVE} is a benchmark of past actuals (the previous period's actual), not a "
+        "forecast of the forward periods; to carry the latest actual forward write mean 1.",
+        SNAIVE: f"{SNAIVE} is a benchmark of past actuals (the actual one season back), not a "
+        "forecast of the forward periods; to repeat last season, give its values "
+        "(e.g. 1-3: 120 95 80).",
+        FORECAST: f"{FORECAST} is the forecast under review itself; name another forecast of "
+        "the file, e.g. use stat for the column forecast_stat.",
+    }
+    if name in builtin:
+        raise AdjustSyntaxError(spec, name_at, builtin[name])
+    return name
 
 
 def _parse_values(spec: str, text: str, at: int) -> tuple[float, ...]:
@@ -380,6 +439,7 @@ def apply(
     window_demand: ArrayLike | None,
     window_forecast: ArrayLike | None,
     price: ArrayLike | None = None,
+    alternatives: Mapping[str, ArrayLike] | None = None,
 ) -> AdjustResult:
     """Apply an adjustment to one series' forward forecast.
 
@@ -391,11 +451,15 @@ def apply(
         window_forecast: Σ forecast over the scoring window (or its per-period values); with
             per-period arrays only periods where both are present count.
         price: Unit value, one number or one per forward period, for the value impact.
+        alternatives: The series' other forecasts of the forward periods by name (``<name>`` of
+            each ``forecast_<name>`` column, ``Portfolio.competing``), NaN where missing: what
+            ``use NAME`` takes.
 
     Raises:
         AdjustError: The range reaches past the forward horizon, the number of values does not
-            match the range, ``bias`` has no (positive) window forecast, or ``mean`` has no
-            actuals.
+            match the range, ``bias`` has no (positive) window forecast, ``mean`` has no
+            actuals, or ``use`` names a forecast the file does not have or one without a value
+            in the range.
     """
     original = _float_array(forward, "the forward forecast")
     horizon = len(original)
@@ -446,6 +510,24 @@ def apply(
             )
         adjusted[lo:hi] = adj.values
         what = f"{span} value(s)" if span > 1 else f"={_fmt(adj.values[0])}"
+    elif adj.op == USE:
+        other = _alternative(adj.source, alternatives, horizon)[lo:hi]
+        present = ~np.isnan(other)
+        if not present.any():
+            raise AdjustError(
+                f"the forecast {adj.source} has no value in {_periods(first, last)}, so there "
+                "is nothing to use",
+                hint="Use it over periods where it has values, or set them (=N or values).",
+            )
+        # Where the other forecast is missing the original stays: a gap is not a change.
+        adjusted[lo:hi] = np.where(present, other, part)
+        if not present.all():
+            kept = [str(h) for h in np.flatnonzero(~present) + first]
+            notes.append(
+                f"{adj.source} has no value in {_horizons(kept)}; the original forecast is kept "
+                "there"
+            )
+        what = adj.op_text
     else:  # pragma: no cover - Adjustment is only built by parse()
         raise AdjustError(f"unknown operation {adj.op!r}")
 
@@ -481,6 +563,47 @@ def apply(
         notes=tuple(notes),
         description=text,
     )
+
+
+def _alternative(
+    name: str, alternatives: Mapping[str, ArrayLike] | None, horizon: int
+) -> np.ndarray:
+    """The forward values of the other forecast ``name``, checked against the horizon."""
+    known = dict(alternatives or {})
+    if name not in known:
+        if not known:
+            raise AdjustError(
+                f"this file has no other forecast to use (use {name} needs a column "
+                f"forecast_{name})",
+                hint="Add the other forecast beside forecast as a column forecast_<name> (e.g. "
+                "forecast_stat), or name a column so with --columns forecast_stat=HEADER; see "
+                "docs/input-format.md, Competing forecasts.",
+            )
+        names = ", ".join(known)
+        prefix = schema.COMPETING_PREFIX
+        if name.startswith(prefix) and name[len(prefix) :] in known:
+            hint = f"Write use {name[len(prefix) :]}: the name comes without '{prefix}'."
+        else:
+            hint = f"Write use NAME with one of: {names}."
+        raise AdjustError(
+            f"this file has no forecast {name!r} (no column forecast_{name}); its other "
+            f"forecasts are: {names}",
+            hint=hint,
+        )
+    values = _float_array(known[name], f"the forecast {name}")
+    if values.shape != (horizon,):
+        raise AdjustError(
+            f"the forecast {name} has {values.size} forward value(s), the forward forecast "
+            f"{horizon}"
+        )
+    return values
+
+
+def _horizons(numbers: Sequence[str], limit: int = 5) -> str:
+    """``period 3`` or ``periods 3, 5, 6 and 2 more`` (1-based horizons)."""
+    word = "period" if len(numbers) == 1 else "periods"
+    more = len(numbers) - limit
+    return f"{word} {', '.join(numbers[:limit])}" + (f" and {more} more" if more > 0 else "")
 
 
 def _periods(first: int, last: int) -> str:

@@ -798,6 +798,10 @@ class ReviewSession:
             window_demand=p.demand[series, cols],
             window_forecast=p.forecast[series, cols],
             price=price,
+            # The other forecasts' forward values, for ``use NAME`` (views, nothing copied).
+            alternatives={
+                name: values[series, p.last_actual + 1 :] for name, values in p.competing.items()
+            },
         )
 
     def chart(self, series: int, adjusted: np.ndarray | None = None) -> ChartSeries:

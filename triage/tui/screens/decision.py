@@ -175,9 +175,12 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
                 id="decision-cause",
             )
         suggestion = self._session.suggest_spec[self._series]
+        # ``use NAME`` takes another forecast of the file: offered by the first one's name.
+        other = next(iter(self._session.portfolio.competing), "")
         yield Input(
             value=self._draft.adjustment,
             placeholder="adjustment, e.g. x0.9, +10%, 1-4: =120, mean 8, bias"
+            + (f", use {visible(other)}" if other else "")
             + (f" (suggested: {suggestion})" if suggestion else ""),
             id="decision-adjust",
         )
