@@ -205,3 +205,32 @@ def test_empty_group_is_refused() -> None:
             window_forecast=np.empty((0, 1)),
             decimals=0,
         )
+
+
+def test_use_takes_each_series_own_other_forecast() -> None:
+    """``use NAME`` on a group is not split: each series takes its own values of the other
+    forecast, keeping its original where that is missing (the series rule, docs/adjustments.md)."""
+    forward = np.array([[10.0, 10.0, 10.0], [20.0, 20.0, 20.0]])
+    stat = np.array([[12.0, np.nan, 14.0], [18.0, 19.0, -3.0]])
+    result = split.split(
+        adjust.parse("1-3: use stat"),
+        forward,
+        recent_actuals=np.ones((2, 4)),
+        window_demand=np.ones((2, 2)),
+        window_forecast=np.ones((2, 2)),
+        decimals=0,
+        alternatives={"stat": stat},
+    )
+    np.testing.assert_array_equal(result.adjusted, [[12, 10, 14], [18, 19, 0]])
+    np.testing.assert_array_equal(result.total.adjusted, [30, 29, 14])
+    assert result.delta_units.tolist() == [6.0, -23.0]
+    with pytest.raises(adjust.AdjustError, match="customer"):
+        split.split(
+            adjust.parse("use customer"),
+            forward,
+            recent_actuals=np.ones((2, 4)),
+            window_demand=np.ones((2, 2)),
+            window_forecast=np.ones((2, 2)),
+            decimals=0,
+            alternatives={"stat": stat},
+        )

@@ -18,6 +18,8 @@ the group's *total* forward forecast, Σ over its series per period (a missing v
 * **Proportions of history** (``basis=HISTORY``, the alternative of the same paper): absolute
   operations are split by history averages in every period (a relative one still scales every
   series alike: it is a change *of* the forecasts).
+* ``use NAME`` is not split: each series takes its own forward values of the other forecast
+  (where that is missing, its original stays), and the group's adjusted total is their sum.
 
 The split is exact at the export's precision (``triage.core.rounding``, ``decimals``): the
 adjusted total is rounded first (half away from zero), then each series gets the whole steps
@@ -32,6 +34,7 @@ Everything runs on whole (series x periods) arrays; no loop over series.
 
 from __future__ import annotations
 
+from collections.abc import Callable, Mapping
 from dataclasses import dataclass
 
 import numpy as np
@@ -168,6 +171,7 @@ def split(
     decimals: int,
     basis: str = FORECASTS,
     price: ArrayLike | None = None,
+    alternatives: Mapping[str, ArrayLike] | None = None,
 ) -> GroupSplit:
     """Apply ``adj`` to the group's total forward forecast and split it to the series.
 
@@ -181,6 +185,8 @@ def split(
         decimals: Precision of the split values (the export's: ``rounding.decimals_for``).
         basis: How absolute operations are split (``FORECASTS`` or ``HISTORY``).
         price: Series x forward periods of unit value, for the value of the change.
+        alternatives: The series' other forecasts of the forward periods by name (series x
+            forward periods each), for ``use NAME``.
 
     Raises:
         AdjustError: As ``adjust.apply`` for the total (a range beyond the horizon, ...).
@@ -195,15 +201,27 @@ def split(
     forecast = np.asarray(window_forecast, dtype=np.float64)
     both = ~(np.isnan(demand) | np.isnan(forecast))
     prices = None if price is None else np.array(price, dtype=np.float64, ndmin=2)
-    total = adjust.apply(
-        adj,
-        total_forward,
-        recent_actuals=_total(actuals),
-        window_demand=float(np.where(both, demand, 0.0).sum()),
-        window_forecast=float(np.where(both, forecast, 0.0).sum()),
-        price=None if prices is None else _group_price(original, prices),
-    )
+    others = {
+        name: np.array(values, dtype=np.float64, ndmin=2)
+        for name, values in (alternatives or {}).items()
+    }
+
+    def on_total(totals: Mapping[str, np.ndarray]) -> adjust.AdjustResult:
+        return adjust.apply(
+            adj,
+            total_forward,
+            recent_actuals=_total(actuals),
+            window_demand=float(np.where(both, demand, 0.0).sum()),
+            window_forecast=float(np.where(both, forecast, 0.0).sum()),
+            price=None if prices is None else _group_price(original, prices),
+            alternatives=totals,
+        )
+
+    # Applied to the total first: the range, the name and the operation are checked there.
+    total = on_total({name: _total(values) for name, values in others.items()})
     lo, hi = total.first - 1, total.last
+    if adj.op == adjust.USE:
+        return _use(adj, original, others[adj.source], (lo, hi), on_total, decimals)
     history = history_average(actuals)
     how = FORECASTS if adj.op in RELATIVE else basis
     shares, fallback = split_shares(original[:, lo:hi], history, basis=how)
@@ -223,6 +241,40 @@ def split(
         adjusted=adjusted,
         shares=all_shares,
         fallback=flags,
+        decimals=decimals,
+    )
+
+
+def _use(
+    adj: adjust.Adjustment,
+    original: np.ndarray,
+    other: np.ndarray,
+    span: tuple[int, int],
+    on_total: Callable[[Mapping[str, np.ndarray]], adjust.AdjustResult],
+    decimals: int,
+) -> GroupSplit:
+    """``use NAME`` on a group: each series takes its own values of the other forecast (its
+    original where that is missing, 0 for a negative value); the total is their sum."""
+    lo, hi = span
+    adjusted = original.copy()
+    part = other[:, lo:hi]
+    adjusted[:, lo:hi] = np.where(np.isnan(part), original[:, lo:hi], np.maximum(part, 0.0))
+    whole = np.where(np.isnan(other), original, other)
+    whole[:, lo:hi] = adjusted[:, lo:hi]
+    total = on_total({adj.source: _total(whole)})
+    column = np.nan_to_num(adjusted[:, lo:hi], nan=0.0)
+    sums = column.sum(axis=0)
+    shares = np.zeros_like(original)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        shares[:, lo:hi] = np.where(sums > 0, column / np.where(sums > 0, sums, 1.0), 0.0)
+    adjusted.setflags(write=False)
+    original.setflags(write=False)
+    return GroupSplit(
+        total=total,
+        original=original,
+        adjusted=adjusted,
+        shares=shares,
+        fallback=np.zeros(original.shape[1], dtype=bool),
         decimals=decimals,
     )
 
