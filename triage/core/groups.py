@@ -30,7 +30,14 @@ import pandas as pd
 from triage.core import metrics, schema
 from triage.core.errors import TriageError
 from triage.core.portfolio import Portfolio
-from triage.core.ranking import BY_BIAS, BY_ERROR, FLAG_TEXT, bias_ordering, descending_order
+from triage.core.ranking import (
+    BY_BIAS,
+    BY_ERROR,
+    FLAG_TEXT,
+    as_slice,
+    bias_ordering,
+    descending_order,
+)
 from triage.core.ranking import error_shares as shares_of
 
 #: Columns of the group scorecard after the grouping columns (value columns only when priced).
@@ -125,17 +132,35 @@ def grouping(portfolio: Portfolio, by: Sequence[str]) -> Grouping:
     if not by:
         raise ValueError("group by at least one column")
     codes = np.zeros(portfolio.n_series, dtype=np.int64)
+    count = 1
     for name in by:
         column_codes, values = pd.factorize(portfolio.keys[name], sort=True)
         # Renumbered after each column, so codes stay below n_series (no overflow) and stay
         # ascending by the key values so far (each column sorted, the first most significant).
-        _, codes = np.unique(codes * len(values) + column_codes, return_inverse=True)
-    codes = codes.astype(np.int64).reshape(-1)
-    first = np.unique(codes, return_index=True)[1]
+        codes, count = _renumber(codes * len(values) + column_codes, count * len(values))
+    first = _first_of_each(codes, count)
     frame = pd.DataFrame(
         {name: portfolio.text_column(name, first) for name in by}, index=pd.RangeIndex(len(first))
     )
     return Grouping(by=tuple(by), codes=codes, keys=frame)
+
+
+def _renumber(codes: np.ndarray, bound: int) -> tuple[np.ndarray, int]:
+    """Codes 0 .. k − 1 for the distinct values of ``codes`` (all below ``bound``), in their
+    order; a table lookup (no sort) while ``bound`` is not far above the number of rows."""
+    if bound <= 4 * max(len(codes), 1):
+        present = np.bincount(codes, minlength=bound) > 0
+        relabel = np.cumsum(present) - 1
+        return relabel[codes].astype(np.int64), int(present.sum())
+    values, inverse = np.unique(codes, return_inverse=True)
+    return inverse.astype(np.int64).reshape(-1), len(values)
+
+
+def _first_of_each(codes: np.ndarray, count: int) -> np.ndarray:
+    """Position of the first row of each code 0 .. count − 1."""
+    first = np.full(count, len(codes), dtype=np.int64)
+    np.minimum.at(first, codes, np.arange(len(codes), dtype=np.int64))
+    return first
 
 
 def group_scorecard(
@@ -164,7 +189,7 @@ def group_scorecard(
         raise ValueError(f"by must be {BY_ERROR!r} or {BY_BIAS!r}")
     n_groups = groups.n_groups
     codes = groups.codes
-    aligned = card.sort_index()
+    aligned = card if card.index.is_monotonic_increasing else card.sort_index()
     priced = "abs_error_value" in aligned
 
     def total(column: str | np.ndarray) -> np.ndarray:
@@ -210,7 +235,7 @@ def group_scorecard(
     bias_order = bias_ordering(flag, bias_size)
     bias_rank = np.empty(n_groups, dtype=np.int64)
     bias_rank[bias_order] = np.arange(1, n_groups + 1)
-    series_flagged = aligned["bias_flag"].to_numpy(dtype=object) != ""
+    series_flagged = (aligned["bias_flag"] != "").to_numpy(dtype=bool)
     data.update(
         error_share=share,
         cum_share=cum,
@@ -247,10 +272,11 @@ def _period_totals(
     error = np.zeros(n_groups * width)
     counted = np.zeros(n_groups * width)
     slots = np.arange(width)
+    picked = as_slice(cols)  # adjacent columns: views, no copies
     for lo in range(0, portfolio.n_series, _ROWS):
         rows = slice(lo, lo + _ROWS)
-        d = portfolio.demand[rows][:, cols]
-        f = portfolio.forecast[rows][:, cols]
+        d = portfolio.demand[rows, picked]
+        f = portfolio.forecast[rows, picked]
         both = ~(np.isnan(d) | np.isnan(f))
         place = (codes[rows, None] * width + slots).ravel()
         error += np.bincount(
@@ -269,10 +295,18 @@ def _top_series(
 ) -> np.ndarray:
     """Key of each group's largest contributor (``item`` or ``item @ location``); ties go to
     the first series in portfolio order."""
-    error = aligned["abs_error_value" if priced else "abs_error"].to_numpy(dtype=np.float64)
-    # By group, then by descending error, then by position: the first of each group is its top.
-    order = np.lexsort((np.arange(len(codes)), -np.nan_to_num(error, nan=-np.inf), codes))
-    first = order[np.r_[0, np.flatnonzero(np.diff(codes[order])) + 1]]
+    error = np.nan_to_num(
+        aligned["abs_error_value" if priced else "abs_error"].to_numpy(dtype=np.float64),
+        nan=-np.inf,
+    )
+    # Each group's largest error, then the first series (in portfolio order) that has it.
+    largest = np.full(n_groups, -np.inf)
+    np.maximum.at(largest, codes, error)
+    first = _first_of_each(codes, n_groups)
+    hit = np.flatnonzero(error == largest[codes])
+    at = np.full(n_groups, len(codes), dtype=np.int64)
+    np.minimum.at(at, codes[hit], hit)
+    first = np.where(at < len(codes), at, first)
     items = portfolio.keys[schema.ITEM].to_numpy(dtype=object)[first]
     if schema.LOCATION in portfolio.key_columns:
         locations = portfolio.keys[schema.LOCATION].to_numpy(dtype=object)[first]
