@@ -40,9 +40,8 @@ from triage.core.settings import REPEAT, STAT_NAME, TARGET_SHARE, ScoreSettings
 if TYPE_CHECKING:
     from collections.abc import Callable
 
-    from rich.table import Table
-
     import pandas as pd
+    from rich.table import Table
 
     from triage.core.config import Config
     from triage.core.portfolio import Portfolio
