@@ -416,13 +416,16 @@ def _steps_table(data: ReportData, result: Comparison) -> _Table:
         _n("MAPE"),
     ]
     t = _Table("steps-table", header)
+    numeric = ["step", "wape", "bias_pct", "abs_error", "fva_units", "fva_pct", "p", "mape"]
+    numeric += ["abs_error_value"] if priced else []
+    # Floats throughout (the nullable step column's missing value becomes NaN).
+    values = {c: table[c].to_numpy(dtype=np.float64, na_value=np.nan) for c in numeric}
     for i in order:
-        row = table.iloc[i]
-        step = row["step"]
+        row = {c: float(v[i]) for c, v in values.items()}
         fva = row["fva_units"]
         cells = [
-            _n("" if step is pd.NA else fmt_int(step)),
-            _t(text(row["forecast_name"])),
+            _n("" if np.isnan(row["step"]) else fmt_int(int(row["step"]))),
+            _t(text(names[i])),
             _n(fmt_pct(row["wape"])),
             _n(fmt_pct(row["bias_pct"], signed=True)),
             _n(fmt_units(row["abs_error"])),
