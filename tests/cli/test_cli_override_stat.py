@@ -179,3 +179,23 @@ def test_report_prints_the_verdict_and_the_overrides_against_stat(
     assert "Against the statistical forecast forecast_stat" in result.stdout
     document = target.read_text(encoding="utf-8")
     assert '<section id="steps">' in document and 'id="steps-table"' in document
+
+
+def test_report_refuses_an_absent_stat_name_before_writing(
+    scenario: CycleScenario, tmp_path: Path
+) -> None:
+    target = tmp_path / "weekly.html"
+    result = run(
+        "report",
+        str(scenario.files[3]),
+        "--ledger",
+        str(scenario.ledger),
+        "--to",
+        str(target),
+        "--stat-name",
+        "engine",
+        cwd=tmp_path,
+    )
+    assert result.returncode == 2 and "Traceback" not in result.stderr
+    assert "no column forecast_engine" in result.stderr
+    assert not target.exists()
