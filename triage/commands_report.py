@@ -230,9 +230,6 @@ DETAIL_COLUMNS = (
     "root_cause",
     "event_id",
 )
-#: Columns of ``--detail`` that value the override against the statistical forecast, shown
-#: after ``value_added_value`` when the file has one.
-DETAIL_STAT_COLUMNS = ("stat", "abs_error_stat", "value_added_vs_stat", "value_added_vs_stat_value")
 
 
 def cmd_overrides(args: argparse.Namespace) -> int:
@@ -258,7 +255,7 @@ def cmd_overrides(args: argparse.Namespace) -> int:
         columns = list(DETAIL_COLUMNS)
         if stat is not None:
             at = columns.index("value_added_value") + 1
-            columns[at:at] = DETAIL_STAT_COLUMNS
+            columns[at:at] = history.REALISED_STAT_COLUMNS
         frame = realised[columns]
         if not priced:
             frame = frame.drop(
@@ -267,7 +264,7 @@ def cmd_overrides(args: argparse.Namespace) -> int:
     else:
         frame = history.summarise(realised, args.by)
         if stat is None:
-            frame = frame.drop(columns=[c for c in history.STAT_COLUMNS if c in frame])
+            frame = frame.drop(columns=list(history.SUMMARY_STAT_COLUMNS))
         if not priced:
             frame = frame.drop(
                 columns=["value_added_value", "value_added_vs_stat_value"], errors="ignore"
@@ -415,7 +412,7 @@ def _table(
     tables = [frame]
     if stat is not None and not args.detail:
         groups = [c for c in frame.columns if c not in history.SUMMARY_COLUMNS]
-        extra = [c for c in frame.columns if c in history.STAT_COLUMNS]
+        extra = [c for c in frame.columns if c in history.SUMMARY_STAT_COLUMNS]
         tables = [frame.drop(columns=extra), frame[[*groups, *extra]]]
     width = max(100, shutil.get_terminal_size((140, 24)).columns)
     buffer = io.StringIO()

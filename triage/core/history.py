@@ -161,15 +161,21 @@ SUMMARY_COLUMNS: tuple[str, ...] = (
     "value_added_vs_stat",
     "value_added_vs_stat_value",
 )
-#: The columns of ``REALISED_COLUMNS`` and ``SUMMARY_COLUMNS`` that value the overrides against
-#: the statistical forecast; outputs leave them out when the file has none (``stat_forecast``).
-STAT_COLUMNS: tuple[str, ...] = (
+#: The columns of ``REALISED_COLUMNS`` and of ``SUMMARY_COLUMNS`` that value the overrides
+#: against the statistical forecast (``stat_forecast``); outputs leave them out without one.
+REALISED_STAT_COLUMNS: tuple[str, ...] = (
     "stat",
     "abs_error_stat",
     "value_added_vs_stat",
     "value_added_vs_stat_value",
-    "stat_adjustments",
 )
+SUMMARY_STAT_COLUMNS: tuple[str, ...] = (
+    "stat_adjustments",
+    "abs_error_stat",
+    "value_added_vs_stat",
+    "value_added_vs_stat_value",
+)
+STAT_COLUMNS: tuple[str, ...] = tuple(dict.fromkeys(REALISED_STAT_COLUMNS + SUMMARY_STAT_COLUMNS))
 
 
 class HistoryError(TriageError):
