@@ -120,6 +120,9 @@ PLAN: tuple[PlanDecision, ...] = (
 )
 
 _W = FIRST_CYCLE_WEEK  # week of the oldest file's latest actual
+#: With ``competing``: the (role, week) whose statistical forecast is left empty, an adjusted
+#: period that is realised in every later file.
+STAT_BLANK = ("S1", _W + 1)
 PLAN_LINES: tuple[PlanLine, ...] = (
     # cycle 0, S1 "1-3: -25%": 40 -> 30
     PlanLine(0, "S1", _W + 1, 40, 30, 32, 6, "down", "20-50%"),
@@ -241,8 +244,19 @@ def _write(frame: pd.DataFrame, path: Path) -> Path:
     return path
 
 
-def build_cycles(folder: str | Path, *, seed: int = CYCLES_SEED) -> CycleScenario:
+def build_cycles(
+    folder: str | Path, *, seed: int = CYCLES_SEED, competing: bool = False
+) -> CycleScenario:
     """Write the four weekly files and the ledger into ``folder`` and return what to expect.
+
+    Args:
+        folder: Where to write (created when missing).
+        seed: The scenario's seed.
+        competing: Also write the competing forecasts ``forecast_stat`` and
+            ``forecast_customer`` (``generate.competing_forecasts``, drawn from the planning
+            forecast as the scenario set it), with the statistical forecast left empty in the
+            first realised adjusted period (``STAT_BLANK``). Off by default: every other column,
+            and so every output of the scenario without them, stays the same.
 
     Raises:
         RuntimeError: The seed does not give a scenario with the promised properties (a plan
@@ -331,6 +345,11 @@ def build_cycles(folder: str | Path, *, seed: int = CYCLES_SEED) -> CycleScenari
     for w in range(_W + 1, T):
         level = float(round(4.0 * max(1.0, float(recent[n_s]))))
         put("N", w, fc=level, act=None if w >= N_WEEKS else level + jump)
+
+    if competing:
+        generate.competing_forecasts(design, rows, 0)
+        role, blank_week = STAT_BLANK
+        rows["forecast_stat"][cell[(roles[role], blank_week)]] = np.nan
 
     keep_all = np.ones(len(series), dtype=bool)
     keep_all &= ~((series == n_s) & (week <= _W))
@@ -491,8 +510,13 @@ def main(argv: Sequence[str] | None = None) -> int:
     )
     parser.add_argument("--out", type=Path, required=True, help="folder to write into")
     parser.add_argument("--seed", type=int, default=CYCLES_SEED)
+    parser.add_argument(
+        "--competing",
+        action="store_true",
+        help="also write the competing forecasts forecast_stat and forecast_customer",
+    )
     args = parser.parse_args(argv)
-    scenario = build_cycles(args.out, seed=args.seed)
+    scenario = build_cycles(args.out, seed=args.seed, competing=args.competing)
     for path, cycle in zip(scenario.files, scenario.cycles, strict=True):
         print(f"{cycle}  {path}")
     print(f"ledger      {scenario.ledger}")

@@ -33,13 +33,15 @@ from triage.arguments import (
     setting_arg,
     warn,
 )
+from triage.core import schema
 from triage.core.errors import TriageError
-from triage.core.settings import REPEAT, TARGET_SHARE, ScoreSettings
+from triage.core.settings import REPEAT, STAT_NAME, TARGET_SHARE, ScoreSettings
 
 if TYPE_CHECKING:
     from collections.abc import Callable
 
     import pandas as pd
+    from rich.table import Table
 
     from triage.core.config import Config
     from triage.core.portfolio import Portfolio
@@ -76,6 +78,7 @@ def add_report_commands(sub: argparse._SubParsersAction) -> None:
     score_args(report)
     setting_arg(report, TARGET_SHARE)
     setting_arg(report, REPEAT)
+    setting_arg(report, STAT_NAME)
     config_arg(report)
     report.set_defaults(handler=cmd_report)
 
@@ -84,7 +87,9 @@ def add_report_commands(sub: argparse._SubParsersAction) -> None:
         help="realised value of earlier overrides: did adjusting the forecast help?",
         description="Set every recorded adjustment whose periods now have actual demand against "
         "those actuals: error removed = |original - actual| - |adjusted - actual| (positive = "
-        "the override helped), summed by the chosen grouping.",
+        "the override helped), summed by the chosen grouping. When the file has a statistical "
+        "forecast (forecast_stat, or --stat-name), also against it: |stat - actual| - "
+        "|adjusted - actual| (positive = the override beat it).",
     )
     _portfolio_args(overrides)
     overrides.add_argument(
@@ -98,6 +103,7 @@ def add_report_commands(sub: argparse._SubParsersAction) -> None:
         action="store_true",
         help="one row per overridden period instead of the breakdown",
     )
+    setting_arg(overrides, STAT_NAME)
     format_arg(overrides)
     config_arg(overrides)
     overrides.set_defaults(handler=cmd_overrides)
@@ -117,6 +123,20 @@ def _ledger_path(args: argparse.Namespace, config: Config, *, required: bool) ->
     if args.ledger is None and not args.portfolio.exists():
         raise TriageError(f"{args.portfolio}: no such file.")
     return ledger_to_read(args.portfolio, config, args.ledger, required=required)
+
+
+def stat_name_given(
+    args: argparse.Namespace, portfolio: Portfolio, settings: ScoreSettings
+) -> None:
+    """Refuse a ``--stat-name`` the file has no column for (the default may be absent).
+
+    Raises:
+        TriageError: ``--stat-name NAME`` was typed and the file has no ``forecast_NAME``.
+    """
+    from triage.core import history
+
+    if STAT_NAME.given(args) is not None:
+        history.stat_forecast(portfolio, settings.stat_name, required=True)
 
 
 # --------------------------------------------------------------------------------------------
@@ -142,6 +162,7 @@ def cmd_report(args: argparse.Namespace) -> int:
     if args.to is not None:
         refuse_overwriting([args.to], args.portfolio, ledger_path, force=args.force)
     portfolio = load_portfolio(args)
+    stat_name_given(args, portfolio, settings)
     if ledger_path is None:
         warn(
             f"No decisions have been recorded for {visible(portfolio.path.name)}; "
@@ -183,6 +204,10 @@ SUMMARY_HEADINGS = {
     "value_added_value": "removed (value)",
     "relative_value_added": "share removed",
     "avg_rel_mae": "AvgRelMAE",
+    "stat_adjustments": "periods with stat",
+    "abs_error_stat": "error of stat",
+    "value_added_vs_stat": "beat stat by",
+    "value_added_vs_stat_value": "beat stat (value)",
 }
 DETAIL_COLUMNS = (
     "cycle",
@@ -215,27 +240,41 @@ def cmd_overrides(args: argparse.Namespace) -> int:
     config = load_config_of(args)
     ledger_path = _ledger_path(args, config, required=True)
     assert ledger_path is not None
+    settings = ScoreSettings.from_args(args, config)
     portfolio = load_portfolio(args)
+    stat_name_given(args, portfolio, settings)
     with open_ledger_read_only(ledger_path, config) as ledger:
-        review = ReviewCycle(portfolio, ledger)
+        review = ReviewCycle(portfolio, ledger, settings)
         realised = review.realised
         status = review.line_status
         causes = {c.code: c.label for c in ledger.root_causes}
     priced = portfolio.price is not None
+    # Valued against the statistical forecast only when the file has one: else as before.
+    stat = settings.stat_name if review.stat is not None else None
     if args.detail:
-        frame = realised[list(DETAIL_COLUMNS)]
+        columns = list(DETAIL_COLUMNS)
+        if stat is not None:
+            at = columns.index("value_added_value") + 1
+            columns[at:at] = history.REALISED_STAT_COLUMNS
+        frame = realised[columns]
         if not priced:
-            frame = frame.drop(columns=["price", "value_added_value"])
+            frame = frame.drop(
+                columns=["price", "value_added_value", "value_added_vs_stat_value"], errors="ignore"
+            )
     else:
         frame = history.summarise(realised, args.by)
+        if stat is None:
+            frame = frame.drop(columns=list(history.SUMMARY_STAT_COLUMNS))
         if not priced:
-            frame = frame.drop(columns=["value_added_value"])
+            frame = frame.drop(
+                columns=["value_added_value", "value_added_vs_stat_value"], errors="ignore"
+            )
     if args.format == "csv":
         text = _csv(frame)
     elif args.format == "json":
-        text = _json(portfolio, ledger_path, args, frame, status)
+        text = _json(portfolio, ledger_path, args, frame, status, stat)
     else:
-        text = _table(portfolio, args, frame, status, causes)
+        text = _table(portfolio, args, frame, status, causes, stat)
     sys.stdout.write(text)
     sys.stdout.flush()
     return 0
@@ -280,14 +319,23 @@ def _json(
     args: argparse.Namespace,
     frame: pd.DataFrame,
     status: pd.DataFrame,
+    stat: str | None = None,
 ) -> str:
     from triage.render.export import dumps_json
 
-    doc = {
+    doc: dict[str, Any] = {
         "portfolio": str(portfolio.path),
         "cycle": portfolio.cycle,
         "ledger": str(ledger_path),
         "value_added": "|original - actual| - |adjusted - actual| (positive = the override helped)",
+    }
+    if stat is not None:
+        doc["stat_forecast"] = f"{schema.COMPETING_PREFIX}{stat}"
+        doc["value_added_vs_stat"] = (
+            "|stat - actual| - |adjusted - actual| (positive = the override beat the statistical "
+            "forecast; periods without a stat value left out)"
+        )
+    doc |= {
         "grouping": None if args.detail else args.by,
         "rows": [
             {c: _cell(v) for c, v in zip(frame.columns, row, strict=True)}
@@ -307,14 +355,13 @@ def _table(
     frame: pd.DataFrame,
     status: pd.DataFrame,
     causes: dict[str, str],
+    stat: str | None = None,
 ) -> str:
     from rich.console import Console
-    from rich.table import Table
-    from rich.text import Text
 
     from triage.core import history
-    from triage.core.text import longest_word, visible
-    from triage.render.report import fmt_int, fmt_money, fmt_pct, fmt_ratio, fmt_units
+    from triage.core.text import visible
+    from triage.render.report import fmt_money, fmt_pct, fmt_ratio, fmt_units
 
     realised = int(status.loc[status["status"] == history.REALISED, "lines"].sum())
     ahead = int(status.loc[status["status"] == history.AHEAD, "lines"].sum())
@@ -323,12 +370,17 @@ def _table(
         f"periods with actuals, {ahead:,} still ahead",
         "error removed = |original - actual| - |adjusted - actual|; positive = the override helped",
     ]
+    if stat is not None:
+        header.append(
+            f"beat stat by = |stat - actual| - |adjusted - actual|, stat = column "
+            f"{schema.COMPETING_PREFIX}{stat}; positive = the override beat the statistical "
+            "forecast (periods without a stat value left out)"
+        )
     missing = status.loc[
         ~status["status"].isin([history.REALISED, history.AHEAD]) & (status["lines"] > 0)
     ]
     for row in missing.itertuples(index=False):
         header.append(f"{int(row.lines):,} periods not counted: {row.meaning}")
-    table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
     formats: dict[str, Callable[[Any], str]] = {
         "share_helped": fmt_pct,
         "relative_value_added": lambda v: fmt_pct(v, signed=True),
@@ -337,12 +389,60 @@ def _table(
         "value_added_value": lambda v: fmt_money(v, signed=True),
         "abs_error_original": fmt_units,
         "abs_error_adjusted": fmt_units,
+        "abs_error_stat": fmt_units,
+        "value_added_vs_stat": lambda v: fmt_units(v, signed=True),
+        "value_added_vs_stat_value": lambda v: fmt_money(v, signed=True),
+        "stat": fmt_units,
         "original": fmt_units,
         "adjusted": fmt_units,
         "actual": fmt_units,
         "price": fmt_money,
     }
-    counts = {"adjustments", "decisions", "helped", "hurt", "horizon", "event_id"}
+    counts = {
+        "adjustments",
+        "decisions",
+        "helped",
+        "hurt",
+        "horizon",
+        "event_id",
+        "stat_adjustments",
+    }
+    # A breakdown against the statistical forecast is a second table with the same groups,
+    # so the first reads as without one.
+    tables = [frame]
+    if stat is not None and not args.detail:
+        groups = [c for c in frame.columns if c not in history.SUMMARY_COLUMNS]
+        extra = [c for c in frame.columns if c in history.SUMMARY_STAT_COLUMNS]
+        tables = [frame.drop(columns=extra), frame[[*groups, *extra]]]
+    width = max(100, shutil.get_terminal_size((140, 24)).columns)
+    buffer = io.StringIO()
+    console = Console(
+        file=buffer, width=width, color_system=None, markup=False, emoji=False, highlight=False
+    )
+    for i, part in enumerate(tables):
+        if i:
+            console.print(
+                f"\nagainst the statistical forecast ({schema.COMPETING_PREFIX}{stat}):\n"
+            )
+        console.print(_rich_table(part, formats, counts, causes))
+    return "\n".join(header) + "\n\n" + buffer.getvalue()
+
+
+def _rich_table(
+    frame: pd.DataFrame,
+    formats: dict[str, Callable[[Any], str]],
+    counts: set[str],
+    causes: dict[str, str],
+) -> Table:
+    """One frame of ``overrides`` as a Rich table (data as ``Text``, never markup)."""
+    from rich.table import Table
+    from rich.text import Text
+
+    from triage.core import history
+    from triage.core.text import longest_word, visible
+    from triage.render.report import fmt_int
+
+    table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
     for name in frame.columns:
         numeric = name in formats or name in counts
         heading = SUMMARY_HEADINGS.get(name, name.replace("_", " "))
@@ -368,9 +468,4 @@ def _table(
                 shown = str(value)
             cells.append(Text(visible(shown)))
         table.add_row(*cells)
-    width = max(100, shutil.get_terminal_size((140, 24)).columns)
-    buffer = io.StringIO()
-    Console(
-        file=buffer, width=width, color_system=None, markup=False, emoji=False, highlight=False
-    ).print(table)
-    return "\n".join(header) + "\n\n" + buffer.getvalue()
+    return table

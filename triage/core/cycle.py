@@ -9,7 +9,8 @@ Everything that looks at a cycle (the review screens' session, the report, the e
   adjustment line located in the portfolio through its one series index
   (``Portfolio.series_index``), with its status;
 * what follows from those lines: realised override value, active and carried adjustments, the
-  override in force per forward period; carried-over series, coverage, decision counts, repeat
+  override in force per forward period (the value also against the statistical forecast, when
+  the file has one); carried-over series, coverage, decision counts, repeat
   offenders and the portfolio's forecast value added.
 
 Each piece is computed on first use and kept (``functools.cached_property``); ``refresh`` drops
@@ -123,10 +124,17 @@ class ReviewCycle:
         """Every effective adjustment line, located, with its status."""
         return history.adjustment_lines(self.portfolio, self.log)
 
+    @property
+    def stat(self) -> np.ndarray | None:
+        """The statistical forecast overrides are also valued against (``forecast_<name>`` of
+        ``settings.stat_name``), or None when the file has no such column."""
+        return history.stat_forecast(self.portfolio, self.settings.stat_name)
+
     @cached_property
     def realised(self) -> pd.DataFrame:
-        """Adjustment lines whose period now has actual demand, with the value added."""
-        return history.realised_value(self.portfolio, self.lines)
+        """Adjustment lines whose period now has actual demand, with the value added (also
+        against the statistical forecast, when the file has one)."""
+        return history.realised_value(self.portfolio, self.lines, self.stat)
 
     @cached_property
     def line_status(self) -> pd.DataFrame:

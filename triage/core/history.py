@@ -19,8 +19,17 @@ Sign convention (stated once, here): the **value added** of an override in a per
 
 in units, positive when the override brought the forecast closer to the actual (it *helped*),
 negative when it moved it away. This is Gilliland's forecast value added (FVA_step = Err(previous
-step) − Err(step)) with the statistical forecast as the previous step and absolute error as the
-metric (docs/sources.md §3.1). In value it is multiplied by the price of the period.
+step) − Err(step)) with the forecast the reviewer changed as the previous step and absolute error
+as the metric (docs/sources.md §3.1). In value it is multiplied by the price of the period.
+
+When the file also holds a statistical forecast (the competing forecast ``forecast_<name>``
+named by ``settings.STAT_NAME``, ``forecast_stat`` by default; ``stat_forecast``), each realised
+line is also set against the statistical forecast S of the same period, as the file holds it:
+
+    value_added_vs_stat = |S − actual| − |adjusted − actual|
+
+positive when the override beat the statistical forecast; lines whose S is missing are left out
+of the comparison (``stat_adjustments`` counts those compared).
 
 Direction and size of an override follow the split that Fildes, Goodwin, Lawrence & Nikolopoulos
 (2009, IJF 25(1):3–23) used to show that small and upward adjustments are the ones most likely to
@@ -122,6 +131,10 @@ REALISED_COLUMNS: tuple[str, ...] = (
     "value_added",
     "price",
     "value_added_value",
+    "stat",
+    "abs_error_stat",
+    "value_added_vs_stat",
+    "value_added_vs_stat_value",
     "reviewer",
     "root_cause",
     "direction",
@@ -143,7 +156,26 @@ SUMMARY_COLUMNS: tuple[str, ...] = (
     "value_added_value",
     "relative_value_added",
     "avg_rel_mae",
+    "stat_adjustments",
+    "abs_error_stat",
+    "value_added_vs_stat",
+    "value_added_vs_stat_value",
 )
+#: The columns of ``REALISED_COLUMNS`` and of ``SUMMARY_COLUMNS`` that value the overrides
+#: against the statistical forecast (``stat_forecast``); outputs leave them out without one.
+REALISED_STAT_COLUMNS: tuple[str, ...] = (
+    "stat",
+    "abs_error_stat",
+    "value_added_vs_stat",
+    "value_added_vs_stat_value",
+)
+SUMMARY_STAT_COLUMNS: tuple[str, ...] = (
+    "stat_adjustments",
+    "abs_error_stat",
+    "value_added_vs_stat",
+    "value_added_vs_stat_value",
+)
+STAT_COLUMNS: tuple[str, ...] = tuple(dict.fromkeys(REALISED_STAT_COLUMNS + SUMMARY_STAT_COLUMNS))
 
 
 class HistoryError(TriageError):
@@ -325,7 +357,37 @@ def size_band(original: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
     return np.asarray(SIZE_BANDS, dtype=object)[band]
 
 
-def realised_value(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFrame:
+def stat_forecast(portfolio: Portfolio, name: str, *, required: bool = False) -> np.ndarray | None:
+    """The statistical forecast overrides are also valued against: ``forecast_<name>``.
+
+    Args:
+        portfolio: The portfolio.
+        name: The competing forecast's name (``ScoreSettings.stat_name``).
+        required: The name was asked for explicitly: a file without it is an error.
+
+    Returns:
+        Its series x periods matrix, or None when the file has no such column (and it is not
+        required).
+
+    Raises:
+        TriageError: ``required`` and the file has no ``forecast_<name>`` column.
+    """
+    found = portfolio.competing.get(name)
+    if found is None and required:
+        have = ", ".join(f"{schema.COMPETING_PREFIX}{n}" for n in portfolio.competing)
+        raise TriageError(
+            f"{portfolio.path}: no column {schema.COMPETING_PREFIX}{name} to value the overrides "
+            "against.",
+            hint=f"Competing forecasts in the file: {have}."
+            if have
+            else f"The file has no {schema.COMPETING_PREFIX}<name> column; leave out --stat-name.",
+        )
+    return found
+
+
+def realised_value(
+    portfolio: Portfolio, lines: pd.DataFrame, stat: np.ndarray | None = None
+) -> pd.DataFrame:
     """One row per effective adjustment line whose period now has actual demand.
 
     Columns (``REALISED_COLUMNS``): ``cycle`` of the decision, the key, ``period`` (ISO),
@@ -333,7 +395,10 @@ def realised_value(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFrame:
     calendar), ``original`` and ``adjusted`` forecast as stored at decision time, ``actual``,
     ``abs_error_original`` = |original − actual|, ``abs_error_adjusted`` = |adjusted − actual|,
     ``value_added`` = their difference (positive = the override helped), ``price`` and
-    ``value_added_value`` (NaN without prices), ``reviewer``, ``root_cause``, ``direction``
+    ``value_added_value`` (NaN without prices), ``stat`` (the statistical forecast of the
+    period, NaN without one), ``abs_error_stat`` = |stat − actual|, ``value_added_vs_stat`` =
+    abs_error_stat − abs_error_adjusted (positive = the override beat the statistical forecast)
+    and ``value_added_vs_stat_value`` (× price), ``reviewer``, ``root_cause``, ``direction``
     (``up``/``down``), ``size`` (``SIZE_BANDS``), ``helped`` (value_added > 0), ``event_id`` and
     ``series`` (portfolio position).
 
@@ -345,6 +410,8 @@ def realised_value(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFrame:
     Args:
         portfolio: The portfolio whose actuals judge the overrides.
         lines: Its ``adjustment_lines``.
+        stat: The statistical forecast (``stat_forecast``), series x periods of ``portfolio``,
+            or None: the ``stat`` columns are then NaN.
     """
     done = lines.loc[lines["status"] == REALISED].reset_index(drop=True)
     original = done["original"].to_numpy()
@@ -359,6 +426,9 @@ def realised_value(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFrame:
         price = portfolio.price[series, column]
     else:
         price = np.full(len(done), np.nan)
+    stat_value = stat[series, column] if stat is not None else np.full(len(done), np.nan)
+    err_s = np.abs(stat_value - actual)
+    beat = err_s - err_a
     cycle_col = period_dates(portfolio).get_indexer(done["cycle"].to_numpy(dtype=object))
     horizon = np.where(cycle_col >= 0, column - cycle_col, -1).astype(np.int64)
 
@@ -377,6 +447,10 @@ def realised_value(portfolio: Portfolio, lines: pd.DataFrame) -> pd.DataFrame:
             "value_added": added,
             "price": price,
             "value_added_value": added * price,
+            "stat": stat_value,
+            "abs_error_stat": err_s,
+            "value_added_vs_stat": beat,
+            "value_added_vs_stat_value": beat * price,
             "reviewer": done["reviewer"].to_numpy(dtype=object),
             "root_cause": done["root_cause"].to_numpy(dtype=object),
             "direction": np.where(adjusted > original, UP, DOWN).astype(object),
@@ -441,6 +515,23 @@ def _summary_row(frame: pd.DataFrame) -> dict[str, float]:
         "value_added_value": float(frame["value_added_value"].sum()) if priced else math.nan,
         "relative_value_added": added / orig if orig > 0 else math.nan,
         "avg_rel_mae": _avg_rel_mae(frame),
+        **_stat_row(frame),
+    }
+
+
+def _stat_row(frame: pd.DataFrame) -> dict[str, float]:
+    """The lines with a statistical forecast: how many, its error, what the overrides beat it by
+    (NaN when no line of the group has one; value NaN without prices)."""
+    compared = frame.loc[frame["stat"].notna()]
+    n = len(compared)
+    priced = compared["value_added_vs_stat_value"].notna().any()
+    return {
+        "stat_adjustments": n,
+        "abs_error_stat": float(compared["abs_error_stat"].sum()) if n else math.nan,
+        "value_added_vs_stat": float(compared["value_added_vs_stat"].sum()) if n else math.nan,
+        "value_added_vs_stat_value": (
+            float(compared["value_added_vs_stat_value"].sum()) if priced else math.nan
+        ),
     }
 
 
@@ -454,9 +545,11 @@ def summarise(
     < 0), ``share_helped`` (helped / adjustments), Σ ``abs_error_original``, Σ
     ``abs_error_adjusted``, Σ ``value_added`` in units (error removed; negative = error added),
     Σ ``value_added_value`` (NaN without prices), ``relative_value_added`` = Σ value added /
-    Σ original error (the share of the statistical forecast's error the overrides removed; the
+    Σ original error (the share of the original forecasts' error the overrides removed; the
     relative FVA form 1 − MAE_adjusted / MAE_original) and ``avg_rel_mae`` (Davydenko & Fildes
-    2013, see ``_avg_rel_mae``).
+    2013, see ``_avg_rel_mae``); then against the statistical forecast: ``stat_adjustments``
+    (lines with one), Σ ``abs_error_stat``, Σ ``value_added_vs_stat`` (positive = the overrides
+    beat it) and Σ ``value_added_vs_stat_value``, over those lines (NaN when there are none).
 
     Args:
         realised: Output of ``realised_value``.

@@ -1,8 +1,9 @@
 """The review report's figures, weekly or monthly as the calendar is.
 
 ``build_report`` gathers every figure from the core functions (``ranking.scorecard``,
-``history.*``) into a ``ReportData``; the renderer (``triage.render.report``: the HTML file, its
-charts and the terminal summary) only formats them, so each number in the report can be traced
+``history.*``, ``compare.compare`` when the file has competing forecasts) into a
+``ReportData``; the renderer (``triage.render.report``: the HTML file, its charts and the
+terminal summary) only formats them, so each number in the report can be traced
 to one of those functions (the tests check that they match).
 """
 
@@ -18,6 +19,7 @@ import numpy as np
 import pandas as pd
 
 from triage.core import history
+from triage.core.compare import Comparison, compare
 from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.export import CAUTION
@@ -133,6 +135,14 @@ class ReportData:
     fva: dict[str, float]
     caution: str = CAUTION
     notices: tuple[str, ...] = field(default=())
+    comparison: Comparison | None = None
+    """``compare.compare`` of the file's forecasts with the cycle's window and season (the
+    process-step table); None without competing forecasts, or when they share no cell."""
+    comparison_note: str | None = None
+    """Why a file with competing forecasts has no comparison (``compare``'s message)."""
+    stat_name: str | None = None
+    """The competing forecast the overrides are also valued against (``settings.stat_name``),
+    None when the file has none: the ``stat`` figures of ``realised`` and ``summaries``."""
 
 
 SUMMARY_BY: dict[str, str | tuple[str, ...]] = {
@@ -175,6 +185,7 @@ def build_report(
     pos = portfolio.series_index.positions([d.item for d in current], [d.location for d in current])
     current_outcome = {int(p): d.outcome for p, d in zip(pos, current, strict=True) if p >= 0}
     head = card.iloc[:top]
+    comparison, comparison_note = _comparison(portfolio, window, season)
     stamp = (generated_at or datetime.now(UTC)).astimezone(UTC)
     notices = list(portfolio.notices)
     if ledger is None:
@@ -213,7 +224,24 @@ def build_report(
         summaries=summaries,
         fva=review.fva,
         notices=tuple(notices),
+        comparison=comparison,
+        comparison_note=comparison_note,
+        stat_name=settings.stat_name if review.stat is not None else None,
     )
+
+
+def _comparison(
+    portfolio: Portfolio, window: int, season: int
+) -> tuple[Comparison | None, str | None]:
+    """The process-step table of a file with competing forecasts (``compare.compare``, default
+    steps), or why there is none; (None, None) without competing forecasts: the report's
+    forecast value added over naive is then the one step."""
+    if not portfolio.competing:
+        return None, None
+    try:
+        return compare(portfolio, window, season), None
+    except TriageError as error:
+        return None, error.message + (f" {error.hint}" if error.hint else "")
 
 
 def error_column(card: pd.DataFrame) -> str:

@@ -17,6 +17,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import TYPE_CHECKING, Any, Generic, TypeVar
 
+from triage.core import schema
 from triage.core.errors import TriageError
 
 if TYPE_CHECKING:
@@ -143,6 +144,22 @@ def _show_repeat(value: tuple[int, int]) -> str:
     return f"{value[0]}/{value[1]}"
 
 
+def _forecast_name(value: str, option: str) -> str:
+    """A competing forecast's ``<name>`` (its column is ``forecast_<name>``).
+
+    Raises:
+        TriageError: Not lower-case letters, digits and ``_``, naming ``option``.
+    """
+    name = value.strip()
+    if schema.competing_name(schema.COMPETING_PREFIX + name) is None:
+        raise TriageError(
+            f"{option} {value!r}: a forecast name is lower-case letters, digits and _.",
+            hint=f"Name the forecast_<name> column without its prefix, e.g. {STAT_NAME.shown()} "
+            f"for {schema.COMPETING_PREFIX}{STAT_NAME.shown()}.",
+        )
+    return name
+
+
 def _any(value: Any, option: str) -> Any:
     """No check here: the loader checks a lag against the file's lags."""
     return value
@@ -193,8 +210,19 @@ LAG: Setting[int | None] = Setting(
     check=_any,
 )
 
+STAT_NAME: Setting[str] = Setting(
+    name="stat_name",
+    default="stat",
+    flags=("--stat-name",),
+    help="competing forecast the overrides are also valued against: the column "
+    "forecast_NAME (default {default}, when the file has it)",
+    convert=str,
+    check=_forecast_name,
+    metavar="NAME",
+)
+
 #: Every declaration, in the order of :class:`ScoreSettings`' fields.
-SETTINGS: tuple[Setting[Any], ...] = (WINDOW, SEASON, TARGET_SHARE, REPEAT, LAG)
+SETTINGS: tuple[Setting[Any], ...] = (WINDOW, SEASON, TARGET_SHARE, REPEAT, LAG, STAT_NAME)
 
 
 @dataclass(frozen=True)
@@ -212,6 +240,9 @@ class ScoreSettings:
     """Repeat offender: in the worst-offender set in at least N of the last M cycles."""
     lag: int | None = LAG.default
     """Forecast lag to score, when the file holds several (None: the file's only lag)."""
+    stat_name: str = STAT_NAME.default
+    """The statistical forecast overrides are also valued against: the competing forecast
+    ``forecast_<stat_name>``, when the file has it."""
 
     @classmethod
     def from_args(cls, args: argparse.Namespace, config: object | None = None) -> ScoreSettings:

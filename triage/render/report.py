@@ -26,6 +26,7 @@ import pandas as pd
 
 from triage import __version__
 from triage.core import history, schema, words
+from triage.core.compare import TEST_NAME, Comparison
 from triage.core.cycle import ReviewCycle
 from triage.core.files import refuse_existing, write_text_atomic
 from triage.core.report import (
@@ -40,6 +41,7 @@ from triage.core.report import (
     error_column,
 )
 from triage.core.text import DASH, count, number, percent, ratio, undefined, visible
+from triage.render.compare import verdict_lines
 
 #: Realised lines listed one by one; the rest are in the breakdowns (and ``triage overrides``).
 LINES_MAX = 500
@@ -371,7 +373,103 @@ def _fva_table(data: ReportData) -> _Table:
     t.add(
         [_t("Series whose forecast is worse than naive"), _n(fmt_int(f["series_worse_than_naive"]))]
     )
+    if data.stat_name is not None:
+        row = data.summaries["direction"].iloc[-1]
+        against = (
+            f"Overrides against the statistical forecast {text(_stat_column(data))}, "
+            f"{fmt_int(row['stat_adjustments'])} realised periods"
+        )
+        t.add([_t(f"{against} (units)"), _n(fmt_units(row["value_added_vs_stat"], signed=True))])
+        if data.priced:
+            t.add(
+                [
+                    _t(f"{against} (value)"),
+                    _n(fmt_money(row["value_added_vs_stat_value"], signed=True)),
+                ]
+            )
     return t
+
+
+def _stat_column(data: ReportData) -> str:
+    """The statistical forecast's column, ``forecast_<name>`` (text, not HTML)."""
+    return f"{schema.COMPETING_PREFIX}{data.stat_name}"
+
+
+def _steps_table(data: ReportData, result: Comparison) -> _Table:
+    """The process-step table: ``compare``'s portfolio rows, steps first in chain order."""
+    table = result.table
+    names = list(table["forecast_name"])
+    order = [names.index(n) for n in result.steps] + [
+        i for i, n in enumerate(names) if n not in result.steps
+    ]
+    priced = "abs_error_value" in table
+    header = [
+        _n("step"),
+        _t("forecast"),
+        _n("WAPE"),
+        _n("bias %"),
+        _n("abs error (units)"),
+        *([_n("abs error (value)")] if priced else []),
+        _n("FVA (units)"),
+        _n("FVA %"),
+        _n("p"),
+        _n("MAPE"),
+    ]
+    t = _Table("steps-table", header)
+    numeric = ["step", "wape", "bias_pct", "abs_error", "fva_units", "fva_pct", "p", "mape"]
+    numeric += ["abs_error_value"] if priced else []
+    # Floats throughout (the nullable step column's missing value becomes NaN).
+    values = {c: table[c].to_numpy(dtype=np.float64, na_value=np.nan) for c in numeric}
+    for i in order:
+        row = {c: float(v[i]) for c, v in values.items()}
+        fva = row["fva_units"]
+        cells = [
+            _n("" if np.isnan(row["step"]) else fmt_int(int(row["step"]))),
+            _t(text(names[i])),
+            _n(fmt_pct(row["wape"])),
+            _n(fmt_pct(row["bias_pct"], signed=True)),
+            _n(fmt_units(row["abs_error"])),
+            *([_n(fmt_money(row["abs_error_value"]))] if priced else []),
+            _n(f'<span class="{_signed_class(fva)}">{fmt_units(fva, signed=True)}</span>'),
+            _n(fmt_pct(row["fva_pct"], signed=True)),
+            _n(fmt_ratio(row["p"])),
+            _n(fmt_pct(row["mape"])),
+        ]
+        t.add(cells)
+    return t
+
+
+def _steps_section(data: ReportData) -> list[str]:
+    """The process-step section: only for a file with competing forecasts (without them the
+    forecast value added over naive above is the one step)."""
+    result = data.comparison
+    if result is None:
+        if data.comparison_note is None:
+            return []
+        return [
+            '<section id="steps"><h2>Process steps: the competing forecasts</h2>',
+            f'<p class="muted">No comparison: {text(data.comparison_note)}</p>',
+            "</section>",
+        ]
+    paragraphs = []
+    for line in verdict_lines(result):
+        warning = result.verdict.mape_warning and line.startswith("Warning:")
+        css = ' class="caution"' if warning else ""
+        paragraphs.append(f"<p{css}>{text(line)}</p>")
+    return [
+        '<section id="steps"><h2>Process steps: the competing forecasts</h2>',
+        f"<p>Every forecast of the file on the same {fmt_int(result.cells)} of "
+        f"{fmt_int(result.window_cells)} window cells with demand (demand and every forecast "
+        "present), along the steps "
+        f"{text(' → '.join(result.steps))}. FVA = absolute error of the previous step − "
+        "absolute error of this step (positive = the step removed error); p: "
+        f"{text(TEST_NAME)} (docs/metrics.md).</p>",
+        _steps_table(data, result).html(),
+        '<div id="steps-verdict">',
+        *paragraphs,
+        "</div>",
+        "</section>",
+    ]
 
 
 def _bias_table(data: ReportData) -> _Table:
@@ -551,6 +649,14 @@ def _summary_table(data: ReportData, name: str) -> _Table:
         _n("share of error removed"),
         _n("AvgRelMAE"),
     ]
+    stat = data.stat_name is not None
+    if stat:
+        header += [
+            _n("periods with stat"),
+            _n("error of stat (units)"),
+            _n("override beat stat by (units)"),
+            *([_n("override beat stat by (value)")] if data.priced else []),
+        ]
     t = _Table(f"realised-{name.replace('_', '-')}", header)
     for _, row in frame.iterrows():
         total = row[groups[0]] == history.ALL
@@ -585,6 +691,15 @@ def _summary_table(data: ReportData, name: str) -> _Table:
             _n(fmt_pct(row["relative_value_added"], signed=True)),
             _n(fmt_ratio(row["avg_rel_mae"])),
         ]
+        if stat:
+            vs = row["value_added_vs_stat"]
+            cells += [
+                _n(fmt_int(row["stat_adjustments"])),
+                _n(fmt_units(row["abs_error_stat"])),
+                _n(f'<span class="{_signed_class(vs)}">{fmt_units(vs, signed=True)}</span>'),
+            ]
+            if data.priced:
+                cells.append(_n(fmt_money(row["value_added_vs_stat_value"], signed=True)))
         t.add(cells, "total" if total else "")
     return t
 
@@ -604,6 +719,9 @@ def _lines_table(data: ReportData, with_location: bool) -> _Table:
         _t("reviewer"),
         _t("root cause"),
     ]
+    stat = data.stat_name is not None
+    if stat:
+        header += [_n("stat"), _n("override beat stat by (units)")]
     t = _Table("realised-lines", header)
     for _, row in data.realised.head(LINES_MAX).iterrows():
         va = row["value_added"]
@@ -624,6 +742,11 @@ def _lines_table(data: ReportData, with_location: bool) -> _Table:
             _t(text(row["reviewer"])),
             _t(_cause(data, row["root_cause"])),
         ]
+        if stat:
+            cells += [
+                _n(fmt_units(row["stat"])),
+                _n(fmt_units(row["value_added_vs_stat"], signed=True)),
+            ]
         t.add(cells)
     return t
 
@@ -659,9 +782,26 @@ def overall_sentence(data: ReportData) -> str:
     value = ""
     if data.priced:
         value = f" ({fmt_money(row['value_added_value'], signed=True)} in value)"
-    return (
+    sentence = (
         f"{fmt_int(row['adjustments'])} overridden periods with actuals, from "
         f"{fmt_int(row['decisions'])} decisions; {_helped(row)}{value}."
+    )
+    if data.stat_name is not None:
+        sentence += " " + stat_sentence(data)
+    return sentence
+
+
+def stat_sentence(data: ReportData) -> str:
+    """The overrides against the statistical forecast in one sentence (text, not HTML)."""
+    row = data.summaries["direction"].iloc[-1]
+    value = ""
+    if data.priced:
+        value = f" ({fmt_money(row['value_added_vs_stat_value'], signed=True)} in value)"
+    return (
+        f"Against the statistical forecast {_stat_column(data)}, on the "
+        f"{fmt_int(row['stat_adjustments'])} periods that have one: the overrides beat it by "
+        f"{fmt_units(row['value_added_vs_stat'], signed=True)} units{value} "
+        "(|stat − actual| − |override − actual|; negative = the statistical forecast was closer)."
     )
 
 
@@ -721,6 +861,7 @@ def render_html(data: ReportData) -> str:
         "forecast beat naive).</p>",
         _fva_table(data).html(),
         "</section>",
+        *_steps_section(data),
         '<section id="bias"><h2>Bias distribution</h2>',
         "<p>Series by bias over the scoring window, Σ(forecast − demand) / Σ demand: right of zero "
         "the forecast was too high, left of zero too low.</p>",
@@ -883,6 +1024,15 @@ def summary_text(data: ReportData, path: Path | None = None) -> str:
         f"Forecast against naive over the window: {words.against_naive(data.fva['value_added'])} "
         f"(relative absolute error {fmt_ratio(data.fva['relative_error'])})."
     )
+    if data.comparison is not None:
+        result = data.comparison
+        lines.append(
+            f"Process steps ({' -> '.join(visible(s) for s in result.steps)}, on "
+            f"{fmt_int(result.cells)} window cells):"
+        )
+        lines += [f"  {line}" for line in verdict_lines(result)]
+    elif data.comparison_note is not None:
+        lines.append(f"Process steps: no comparison: {data.comparison_note}")
     if path is not None:
         lines.append(f"Report: {visible(str(path))}")
     lines.append(f"Caution: {data.caution}")
