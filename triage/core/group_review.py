@@ -16,7 +16,7 @@ import numpy as np
 
 from triage.core import groups, schema
 from triage.core.groups import column_total as _total
-from triage.core.ranking import BY_BIAS
+from triage.core.ranking import BY_BIAS, as_slice
 from triage.core.review import ChartSeries, ReviewSession
 from triage.core.text import percent
 
@@ -90,19 +90,21 @@ class GroupReview:
         """Every group's total demand and forecast over calendar columns ``cols`` (groups x
         columns; NaN where every series of the group is missing): the list's sparklines."""
         p = self.session.portfolio
+        picked = as_slice(cols)
         out = []
         for matrix in (p.demand, p.forecast):
-            block = matrix[:, cols]
-            present = ~np.isnan(block)
-            summed = np.empty((self.n_groups, len(cols)))
-            seen = np.empty((self.n_groups, len(cols)))
-            for j in range(len(cols)):
-                summed[:, j] = np.bincount(
-                    self.codes,
-                    weights=np.where(present[:, j], block[:, j], 0.0),
-                    minlength=self.n_groups,
-                )
-                seen[:, j] = np.bincount(self.codes, weights=present[:, j], minlength=self.n_groups)
+            summed = np.zeros((self.n_groups, len(cols)))
+            seen = np.zeros((self.n_groups, len(cols)))
+            for lo in range(0, p.n_series, _ROWS):
+                rows = slice(lo, lo + _ROWS)
+                block = self.codes[rows]
+                values = np.ascontiguousarray(matrix[rows, picked].T)
+                present = ~np.isnan(values)
+                for j in range(len(cols)):
+                    summed[:, j] += np.bincount(
+                        block, weights=np.where(present[j], values[j], 0.0), minlength=self.n_groups
+                    )
+                    seen[:, j] += np.bincount(block, weights=present[j], minlength=self.n_groups)
             out.append(np.where(seen > 0, summed, np.nan))
         return out[0], out[1]
 
@@ -187,6 +189,9 @@ class GroupReview:
             lines.append(f"{int(row['flagged_series']):,} series flagged for persistent bias")
         return lines
 
+
+#: Series rows per block of the sparkline totals.
+_ROWS = 1 << 15
 
 #: Share of the series' error that cancels in the group total from which the detail pane calls
 #: the group a mix problem (common practice: a rule of thumb, half).

@@ -269,21 +269,21 @@ def _period_totals(
     """Σ over each group's series of e per window period (groups x periods), and whether at
     least one series counts in that period."""
     width = len(cols)
-    error = np.zeros(n_groups * width)
-    counted = np.zeros(n_groups * width)
-    slots = np.arange(width)
+    error = np.zeros((n_groups, width))
+    counted = np.zeros((n_groups, width))
     picked = as_slice(cols)  # adjacent columns: views, no copies
     for lo in range(0, portfolio.n_series, _ROWS):
         rows = slice(lo, lo + _ROWS)
-        d = portfolio.demand[rows, picked]
-        f = portfolio.forecast[rows, picked]
+        block = codes[rows]
+        # Periods x series, one contiguous row per period: one bincount per period.
+        d = np.ascontiguousarray(portfolio.demand[rows, picked].T)
+        f = np.ascontiguousarray(portfolio.forecast[rows, picked].T)
         both = ~(np.isnan(d) | np.isnan(f))
-        place = (codes[rows, None] * width + slots).ravel()
-        error += np.bincount(
-            place, weights=np.where(both, f - d, 0.0).ravel(), minlength=n_groups * width
-        )
-        counted += np.bincount(place, weights=both.ravel(), minlength=n_groups * width)
-    return error.reshape(n_groups, width), counted.reshape(n_groups, width) > 0
+        e = np.where(both, f - d, 0.0)
+        for j in range(width):
+            error[:, j] += np.bincount(block, weights=e[j], minlength=n_groups)
+            counted[:, j] += np.bincount(block, weights=both[j], minlength=n_groups)
+    return error, counted > 0
 
 
 def _top_series(
@@ -307,9 +307,9 @@ def _top_series(
     at = np.full(n_groups, len(codes), dtype=np.int64)
     np.minimum.at(at, codes[hit], hit)
     first = np.where(at < len(codes), at, first)
-    items = portfolio.keys[schema.ITEM].to_numpy(dtype=object)[first]
+    items = np.asarray(portfolio.text_column(schema.ITEM, first), dtype=object)
     if schema.LOCATION in portfolio.key_columns:
-        locations = portfolio.keys[schema.LOCATION].to_numpy(dtype=object)[first]
+        locations = np.asarray(portfolio.text_column(schema.LOCATION, first), dtype=object)
         labels = [f"{i} @ {loc}" for i, loc in zip(items, locations, strict=True)]
     else:
         labels = [str(i) for i in items]
