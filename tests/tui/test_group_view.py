@@ -10,7 +10,7 @@ import numpy as np
 import pytest
 from textual.widgets import Input
 
-from tests.tui.conftest import wait_for, wait_loaded
+from tests.tui.conftest import burst, wait_for, wait_loaded
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.dialogs import PromptScreen
 from triage.tui.widgets.series_list import GroupList, SeriesList
@@ -87,3 +87,16 @@ async def test_bad_group_option_says_so_and_keeps_the_series(portfolio: Path) ->
         assert not app.in_groups
         assert "no column 'colour'" in app.status_text
         assert app.query_one(SeriesList).display
+
+
+async def test_a_save_landing_after_escape_keeps_the_group_detail(portfolio: Path) -> None:
+    """Typed at full speed: into a group, a quick decision, back out. The save lands after the
+    group view is back; the detail pane must go on showing the group, not the saved series."""
+    app = TriageApp(Options(portfolio=portfolio, reviewer="ana", group="family"))
+    async with app.run_test(size=(120, 36)) as pilot:
+        await wait_for(pilot, lambda: app.in_groups, "the group view")
+        burst(app, ["enter", "c", "escape"])
+        await wait_for(pilot, lambda: (app.session.outcome != "").sum() == 1, "the decision")
+        await wait_for(pilot, lambda: app.in_groups, "back to the groups")
+        await pilot.pause(0.3)
+        assert "group rank 1 of" in str(app.query_one("#detail-title").render())

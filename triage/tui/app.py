@@ -595,6 +595,8 @@ class TriageApp(App[None]):
         session = self.session
         if session is None or not self.screen_stack:
             return  # not loaded yet, or closing (a last cursor message arrives after the screens)
+        if self.in_groups:
+            return  # the pane shows the highlighted group (a late save must not replace it)
         title = self._q("#detail-title", Static)
         body = self._q("#detail-text", Static)
         if series is None:
