@@ -27,6 +27,8 @@ from triage.arguments import (
     reviewer_arg,
     score_args,
     setting_arg,
+    steps_arg,
+    steps_of,
 )
 from triage.commands_compare import add_compare_command
 from triage.commands_decide import add_decide_command
@@ -34,6 +36,7 @@ from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
 from triage.core.settings import TARGET_SHARE, ScoreSettings
+from triage.core.vocabulary import BY_ERROR, ORDERS
 
 if TYPE_CHECKING:
     from triage.core.config import Config
@@ -55,8 +58,13 @@ def build_parser() -> argparse.ArgumentParser:
     portfolio_args(rank)
     score_args(rank)
     rank.add_argument(
-        "--by", choices=("error", "bias"), default="error", help="order (default error)"
+        "--by",
+        choices=ORDERS,
+        default=BY_ERROR,
+        help="order: share of absolute error, persistent bias, or value destroyed by the last "
+        "process step (fva_loss) (default error)",
     )
+    steps_arg(rank, "; fva_loss compares the last step with the one before it")
     format_arg(rank)
     limit = rank.add_mutually_exclusive_group()
     limit.add_argument("--top", type=int, metavar="K", help="only the first K series")
@@ -204,7 +212,8 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         # hidden sheet, renamed columns) is said on standard error, whatever the format.
         print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
     require_scorable(portfolio, settings.window)
-    card = scorecard(portfolio, settings.window, settings.season, by=args.by)
+    steps = steps_of(args, portfolio, settings.season)
+    card = scorecard(portfolio, settings.window, settings.season, by=args.by, steps=steps)
     shown = card
     if args.cover is not None:
         shown = leading_cover(card, settings.target_share)
@@ -219,10 +228,12 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         _emit_blocks(report.csv_blocks(shown), args.output, force=args.force)
         return 0
     if args.format == "json":
-        text = report.to_json(portfolio, shown, settings.window, settings.season)
+        text = report.to_json(
+            portfolio, shown, settings.window, settings.season, by=args.by, steps=steps
+        )
     else:
         text = report.rank_table(
-            portfolio, card, shown, settings.window, settings.season, by=args.by
+            portfolio, card, shown, settings.window, settings.season, by=args.by, steps=steps
         )
     _emit(text, args.output, force=args.force)
     return 0

@@ -67,6 +67,19 @@ BIAS_COLUMNS = tuple(
     for c in LIST_COLUMNS
 )
 
+#: Fva order shows what it sorts by: the error the last process step added (value where priced)
+#: where the error column was; the error moves to the place of its cumulative share.
+FVA_COLUMNS = tuple(
+    {
+        "cum": Column("error", "abs err", 8, right=True, keep=5),
+        "error": Column("fvaloss", "fva loss", 8, right=True, keep=16),
+    }.get(c.key, c)
+    for c in LIST_COLUMNS
+)
+
+#: The list's columns in each order (``ranking.ORDERS``).
+ORDER_COLUMNS = {"error": LIST_COLUMNS, "bias": BIAS_COLUMNS, "fva": FVA_COLUMNS}
+
 
 def clip(text: str, limit: int = 200) -> str:
     """At most ``limit`` characters, with an ellipsis: a 1 MB cell must not stall a repaint.
