@@ -30,7 +30,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from triage.core import metrics
 from triage.core.errors import TriageError
@@ -536,6 +535,10 @@ def diebold_mariano(
     np.divide(mean, np.sqrt(np.where(ok, variance, 1.0) / np.where(ok, t, 1.0)), out=stat, where=ok)
     stat = np.where(ok, stat * np.sqrt(np.where(ok, correction, 0.0)), np.nan)
     p = np.full(len(t), np.nan)
+    # Imported here: scipy.stats costs 0.7 s of start-up, and `triage rank` (which reads this
+    # module for fva_loss) never runs the test (docs/performance.md, "Scoring").
+    from scipy import stats
+
     p[ok] = 2.0 * stats.t.sf(np.abs(stat[ok]), t[ok] - 1)
     # Identical losses throughout: no difference to test.
     same = (t >= 2) & (variance == 0) & (mean == 0)
