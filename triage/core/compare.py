@@ -343,14 +343,15 @@ def last_step_loss(
         d = _window(portfolio.demand, rows, cols)
         f = _window(after[0], rows, cols, after[1])
         p = _window(before[0], rows, cols, before[1])
-        diff = np.abs(f - d) - np.abs(p - d)
+        diff = np.abs(f - d)
+        diff -= np.abs(p - d)
         ok = ~np.isnan(diff)
-        diff = np.where(ok, diff, 0.0)
+        diff[~ok] = 0.0
         cells[rows] = ok.sum(axis=0)
         loss[rows] = diff.sum(axis=0)
         if loss_value is not None and portfolio.price is not None:
-            price = portfolio.price[rows, cols].T
-            loss_value[rows] = (diff * np.where(ok, price, 0.0)).sum(axis=0)
+            # Prices are filled along each series (never missing): 0 × price where no cell.
+            loss_value[rows] = (diff * portfolio.price[rows, cols].T).sum(axis=0)
     none = cells == 0
     loss[none] = np.nan
     if loss_value is not None:
@@ -396,6 +397,10 @@ def _window(matrix: np.ndarray, rows: slice, cols: np.ndarray, shift: int = 0) -
     ``cols - shift`` falls before the calendar."""
     block = matrix[rows]
     source = cols - shift
+    if len(source) and source[0] >= 0 and source[-1] - source[0] == len(source) - 1:
+        # Adjacent columns (nearly always): one copy of a slice.
+        adjacent: np.ndarray = np.ascontiguousarray(block[:, source[0] : source[-1] + 1].T)
+        return adjacent
     out = np.full((len(cols), block.shape[0]), np.nan)
     inside = source >= 0
     out[inside] = block[:, source[inside]].T

@@ -78,7 +78,11 @@ FVA_COLUMNS = tuple(
 )
 
 #: The list's columns in each order (``ranking.ORDERS``).
-ORDER_COLUMNS = {"error": LIST_COLUMNS, "bias": BIAS_COLUMNS, "fva": FVA_COLUMNS}
+ORDER_COLUMNS = {
+    vocabulary.BY_ERROR: LIST_COLUMNS,
+    vocabulary.BY_BIAS: BIAS_COLUMNS,
+    vocabulary.BY_FVA: FVA_COLUMNS,
+}
 
 
 def clip(text: str, limit: int = 200) -> str:
