@@ -104,6 +104,29 @@ def score_args(parser: argparse.ArgumentParser) -> None:
     setting_arg(parser, SEASON)
 
 
+def steps_arg(parser: argparse.ArgumentParser, what: str = "") -> None:
+    """``--steps A,B,C``: the process steps, in order (``triage.core.compare.parse_steps``)."""
+    parser.add_argument(
+        "--steps",
+        metavar="A,B,C",
+        help="forecast value added chain, in order (default: naive, the forecast_<name> "
+        "columns in file order, forecast; snaive only when listed)" + what,
+    )
+
+
+def steps_of(args: argparse.Namespace, portfolio: Portfolio, season: int) -> tuple[str, ...] | None:
+    """The ``--steps`` given, checked against the portfolio's forecasts; None when not given.
+
+    Raises:
+        TriageError: An unknown, empty or repeated name (``compare.parse_steps``).
+    """
+    if args.steps is None:
+        return None
+    from triage.core.compare import forecast_names, parse_steps
+
+    return parse_steps(args.steps, forecast_names(portfolio, season))
+
+
 def config_arg(parser: argparse.ArgumentParser) -> None:
     """``--config PATH``: the configuration file (default: the user's, when there is one)."""
     parser.add_argument("--config", type=Path, metavar="PATH", help="configuration file")

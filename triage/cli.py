@@ -28,6 +28,8 @@ from triage.arguments import (
     reviewer_arg,
     score_args,
     setting_arg,
+    steps_arg,
+    steps_of,
 )
 from triage.commands_compare import add_compare_command
 from triage.commands_decide import add_decide_command
@@ -35,6 +37,7 @@ from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
 from triage.core.settings import TARGET_SHARE, ScoreSettings
+from triage.core.vocabulary import BY_BIAS, BY_ERROR, ORDERS
 
 if TYPE_CHECKING:
     from triage.core.config import Config
@@ -57,9 +60,14 @@ def build_parser() -> argparse.ArgumentParser:
     portfolio_args(rank)
     score_args(rank)
     rank.add_argument(
-        "--by", choices=("error", "bias"), default="error", help="order (default error)"
+        "--by",
+        choices=ORDERS,
+        default=BY_ERROR,
+        help="order: share of absolute error, persistent bias, or value destroyed by the last "
+        "process step (fva_loss) (default error)",
     )
     group_arg(rank)
+    steps_arg(rank, "; fva_loss compares the last step with the one before it")
     format_arg(rank)
     limit = rank.add_mutually_exclusive_group()
     limit.add_argument("--top", type=int, metavar="K", help="only the first K series (or groups)")
@@ -208,9 +216,10 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         # hidden sheet, renamed columns) is said on standard error, whatever the format.
         print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
     require_scorable(portfolio, settings.window)
+    steps = steps_of(args, portfolio, settings.season)
     if args.group is not None:
         return _rank_groups(args, settings, portfolio)
-    card = scorecard(portfolio, settings.window, settings.season, by=args.by)
+    card = scorecard(portfolio, settings.window, settings.season, by=args.by, steps=steps)
     shown = card
     if args.cover is not None:
         shown = leading_cover(card, settings.target_share)
@@ -225,10 +234,12 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         _emit_blocks(report.csv_blocks(shown), args.output, force=args.force)
         return 0
     if args.format == "json":
-        text = report.to_json(portfolio, shown, settings.window, settings.season)
+        text = report.to_json(
+            portfolio, shown, settings.window, settings.season, by=args.by, steps=steps
+        )
     else:
         text = report.rank_table(
-            portfolio, card, shown, settings.window, settings.season, by=args.by
+            portfolio, card, shown, settings.window, settings.season, by=args.by, steps=steps
         )
     _emit(text, args.output, force=args.force)
     return 0
@@ -240,6 +251,11 @@ def _rank_groups(args: argparse.Namespace, settings: ScoreSettings, portfolio: P
     from triage.core.ranking import leading_cover, scorecard
     from triage.render import scorecard as report
 
+    if args.by not in (BY_ERROR, BY_BIAS):
+        raise TriageError(
+            f"--by {args.by} ranks series; groups rank by error or bias.",
+            hint="Use --by error or --by bias with --group, or rank series with --by fva.",
+        )
     by_columns = groups.parse_group_columns(portfolio, args.group)
     card = scorecard(portfolio, settings.window, settings.season)
     cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, settings.window)

@@ -19,6 +19,8 @@ from triage.arguments import (
     portfolio_args,
     refuse_overwriting,
     score_args,
+    steps_arg,
+    steps_of,
 )
 from triage.core.settings import ScoreSettings
 
@@ -34,12 +36,7 @@ def add_compare_command(sub: argparse._SubParsersAction) -> None:
     )
     portfolio_args(compare)
     score_args(compare)
-    compare.add_argument(
-        "--steps",
-        metavar="A,B,C",
-        help="forecast value added chain, in order (default: naive, the forecast_<name> "
-        "columns in file order, forecast; snaive only when listed)",
-    )
+    steps_arg(compare)
     compare.add_argument(
         "--by-series",
         action="store_true",
@@ -55,7 +52,7 @@ def add_compare_command(sub: argparse._SubParsersAction) -> None:
 
 def cmd_compare(args: argparse.Namespace) -> int:
     """``triage compare``: measure, then write the table, CSV or JSON."""
-    from triage.core.compare import compare, forecast_names, parse_steps
+    from triage.core.compare import compare
     from triage.render import compare as render
 
     settings = ScoreSettings.from_args(args)
@@ -64,8 +61,7 @@ def cmd_compare(args: argparse.Namespace) -> int:
     portfolio = load_portfolio(args)
     for notice in portfolio.notices:
         note(notice)
-    names = forecast_names(portfolio, settings.season)
-    steps = parse_steps(args.steps, names) if args.steps is not None else None
+    steps = steps_of(args, portfolio, settings.season)
     result = compare(
         portfolio, settings.window, settings.season, steps=steps, by_series=args.by_series
     )

@@ -103,10 +103,14 @@ class Run:
 # Running children with their peak memory
 
 
-def _child_env() -> dict[str, str]:
+def _child_env(code: Path | None = None) -> dict[str, str]:
+    """The children's environment; ``code``: another source tree whose ``triage`` comes first."""
     env = dict(os.environ)
     # ``sample`` and ``tests`` live at the repository root and are not installed.
-    env["PYTHONPATH"] = os.pathsep.join(p for p in (str(ROOT), env.get("PYTHONPATH", "")) if p)
+    first = [str(code)] if code is not None else []
+    env["PYTHONPATH"] = os.pathsep.join(
+        p for p in (*first, str(ROOT), env.get("PYTHONPATH", "")) if p
+    )
     return env
 
 
@@ -129,12 +133,13 @@ _RUSAGE_WRAPPER = (
 )
 
 
-def measure(cmd: list[str], *, timeout: float = 3600.0) -> Run:
+def measure(cmd: list[str], *, timeout: float = 3600.0, code: Path | None = None) -> Run:
     """Run ``cmd`` from the repository root and return its wall time and peak RSS.
 
     Peak memory comes from ``/usr/bin/time -v`` when available; otherwise a one-child wrapper
     reads ``getrusage(RUSAGE_CHILDREN)``, which then covers that child alone. If the child
-    prints a JSON object on its last stdout line, it becomes ``Run.report``.
+    prints a JSON object on its last stdout line, it becomes ``Run.report``. ``code``: run
+    another source tree's ``triage`` (``--baseline-ref``).
     """
     timer = _time_binary()
     with tempfile.NamedTemporaryFile("r", suffix=".time", delete=False) as handle:
@@ -146,7 +151,7 @@ def measure(cmd: list[str], *, timeout: float = 3600.0) -> Run:
     started = time.perf_counter()
     try:
         done = subprocess.run(
-            full, cwd=ROOT, env=_child_env(), capture_output=True, text=True, timeout=timeout
+            full, cwd=ROOT, env=_child_env(code), capture_output=True, text=True, timeout=timeout
         )
     except subprocess.TimeoutExpired:
         time_file.unlink(missing_ok=True)
@@ -204,22 +209,31 @@ def stage_read(path: Path, repeat: int) -> dict[str, Any]:
 
 
 def stage_kernel(path: Path, repeat: int, window: int) -> dict[str, Any]:
-    """Time ``read_portfolio`` once and ``scorecard`` ``repeat`` times, in-process."""
+    """Time ``read_portfolio`` once, ``scorecard`` ``repeat`` times, and the loss of the last
+    process step alone (``compare.last_step_loss``, one of the scorecard's pieces), in-process."""
+    from triage.core import metrics
+    from triage.core.compare import last_step_loss
     from triage.core.ranking import scorecard
     from triage.core.read import read_portfolio
 
     started = time.perf_counter()
     portfolio = read_portfolio(path)
     load = time.perf_counter() - started
-    runs = []
+    runs, step_runs = [], []
+    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
     for _ in range(repeat):
         started = time.perf_counter()
         card = scorecard(portfolio, window=window)
         runs.append(time.perf_counter() - started)
+        started = time.perf_counter()
+        last_step_loss(portfolio, cols)
+        step_runs.append(time.perf_counter() - started)
     return {
         "load_seconds": load,
         "seconds": statistics.median(runs),
         "runs": runs,
+        "fva_loss_seconds": statistics.median(step_runs),
+        "fva_loss_runs": step_runs,
         "rows": len(card),
         "columns": [str(c) for c in card.columns],
     }
@@ -536,6 +550,30 @@ def generator_digest() -> str:
     return hashlib.sha256((ROOT / "sample" / "generate.py").read_bytes()).hexdigest()[:8]
 
 
+#: ``triage`` started from whichever source tree comes first on PYTHONPATH (``--baseline-ref``).
+MODULE_COMMAND = [sys.executable, "-c", "import sys; from triage.cli import main; sys.exit(main())"]
+
+
+def _cli_summary(runs: list[Run]) -> dict[str, Any]:
+    ok = [r for r in runs if r.returncode == 0]
+    return {
+        "seconds": statistics.median(r.seconds for r in ok) if ok else None,
+        "runs": [r.seconds for r in runs],
+        "peak_bytes": max((r.peak_bytes or 0) for r in ok) if ok else None,
+        "error": next((r.error for r in runs if r.returncode != 0), ""),
+    }
+
+
+def checkout(rev: str, folder: Path) -> Path:
+    """The source tree of ``rev`` (git archive) in ``folder``, for ``--baseline-ref``."""
+    folder.mkdir(parents=True, exist_ok=True)
+    archive = subprocess.run(
+        ["git", "-C", str(ROOT), "archive", rev], capture_output=True, check=True
+    )
+    subprocess.run(["tar", "-x", "-C", str(folder)], input=archive.stdout, check=True)
+    return folder
+
+
 def triage_command() -> list[str]:
     """How to start the ``triage`` command: the installed script, else the module."""
     script = Path(sys.executable).with_name("triage")
@@ -635,19 +673,21 @@ def bench_size(n_series: int, args: argparse.Namespace) -> dict[str, Any]:
 
     if not args.skip_cli:
         print(f"{n_series:,} series: triage rank x{args.repeat} ...", file=sys.stderr, flush=True)
-        runs = [
-            measure(
-                [*triage_command(), "rank", str(path), "--format", "csv", "--output", os.devnull]
-            )
-            for _ in range(args.repeat)
-        ]
-        ok = [r for r in runs if r.returncode == 0]
-        result["cli"] = {
-            "seconds": statistics.median(r.seconds for r in ok) if ok else None,
-            "runs": [r.seconds for r in runs],
-            "peak_bytes": max((r.peak_bytes or 0) for r in ok) if ok else None,
-            "error": next((r.error for r in runs if r.returncode != 0), ""),
-        }
+        rank = ["rank", str(path), "--format", "csv", "--output", os.devnull]
+        runs, older = [], []
+        for _ in range(args.repeat):
+            runs.append(measure([*triage_command(), *rank]))
+            if args.baseline_code is not None:
+                # Interleaved with this version's runs: both see the same machine load.
+                older.append(measure([*MODULE_COMMAND, *rank], code=args.baseline_code))
+        result["cli"] = _cli_summary(runs)
+        if args.baseline_code is not None:
+            result["cli_baseline"] = {"ref": args.baseline_ref, **_cli_summary(older)}
+            now, then = result["cli"], result["cli_baseline"]
+            if now["seconds"] and then["seconds"]:
+                result["cli_ratio"] = now["seconds"] / then["seconds"]
+            if now["peak_bytes"] and then["peak_bytes"]:
+                result["cli_peak_ratio"] = now["peak_bytes"] / then["peak_bytes"]
 
     if args.csv and not args.skip_cli:
         csv_path = path.with_suffix(".csv")
@@ -762,6 +802,19 @@ def print_table(results: list[dict[str, Any]], env: dict[str, Any]) -> None:
                 f"{'':>10} same portfolio as CSV ({csv_run['file_bytes'] / 1e9:,.2f} GB): "
                 f"triage rank {_s(csv_run.get('seconds'))} s, {_mb(csv_run.get('peak_bytes'))} MB"
             )
+        if "cli_ratio" in r:
+            older = r["cli_baseline"]
+            print(
+                f"{'':>10} triage rank at {older['ref']} in the same run: "
+                f"{_s(older.get('seconds'))} s, {_mb(older.get('peak_bytes'))} MB; this version / "
+                f"that: {r['cli_ratio']:.2f}x time, {r.get('cli_peak_ratio', math.nan):.2f}x memory"
+            )
+        step_s = kernel.get("fva_loss_seconds")
+        if step_s and kernel.get("seconds"):
+            print(
+                f"{'':>10} fva_loss alone (compare.last_step_loss) {step_s:.3f} s = "
+                f"{step_s / kernel['seconds']:.1%} of the scorecard kernel"
+            )
         for step in ("generate", "cli", "cli_csv", "read", "kernel", "baseline"):
             error = r.get(step, {}).get("error")
             if error:
@@ -789,6 +842,11 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument(
         "--csv", action="store_true", help="also time triage rank on a CSV copy of each file"
     )
+    parser.add_argument(
+        "--baseline-ref",
+        metavar="REV",
+        help="also time triage rank of git revision REV (git archive), interleaved, same file",
+    )
     parser.add_argument("--stage", choices=("read", "kernel", "baseline"), help=argparse.SUPPRESS)
     parser.add_argument("--file", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
@@ -805,14 +863,20 @@ def main(argv: list[str] | None = None) -> int:
 
     args.out.mkdir(parents=True, exist_ok=True)
     env = environment()
-    results = [bench_size(n, args) for n in (args.series or [100_000])]
+    with tempfile.TemporaryDirectory(prefix="bench-rank-") as scratch:
+        args.baseline_code = (
+            checkout(args.baseline_ref, Path(scratch) / "baseline-code")
+            if args.baseline_ref
+            else None
+        )
+        results = [bench_size(n, args) for n in (args.series or [100_000])]
     print_table(results, env)
     payload = {
         "environment": env,
         "settings": {
             k: (str(v) if isinstance(v, Path) else v)
             for k, v in vars(args).items()
-            if k not in ("stage", "file")
+            if k not in ("stage", "file", "baseline_code")
         },
         "targets": {
             "cli": {str(k): vars(v) for k, v in TARGETS.items()},

@@ -30,7 +30,6 @@ from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
-from scipy import stats
 
 from triage.core import metrics
 from triage.core.errors import TriageError
@@ -260,6 +259,106 @@ def compare(
     )
 
 
+@dataclass(frozen=True)
+class LastStep:
+    """Value destroyed by the last process step, per series (``triage rank --by fva``).
+
+    Attributes:
+        previous: The step before the last (default: the last ``forecast_<name>`` column in
+            file order, ``naive`` when the file has none).
+        final: The last step (default ``forecast``).
+        loss: Σ|e_final| − Σ|e_previous| over the series' window cells where demand and both
+            forecasts are present, in units (positive = the last step added error); NaN for a
+            series without such a cell.
+        loss_value: The same sum with each cell's difference times its price (priced
+            portfolios; None otherwise).
+        cells: The cells each sum is over.
+    """
+
+    previous: str
+    final: str
+    loss: np.ndarray
+    loss_value: np.ndarray | None
+    cells: np.ndarray
+
+
+def last_step(
+    portfolio: Portfolio, season: int = SEASON.default, steps: Sequence[str] | None = None
+) -> tuple[str, str]:
+    """(previous, final): the last two of ``steps``, by default of :func:`default_steps`.
+
+    Without ``steps`` the file's columns are taken as they are (``forecast`` last, the last
+    ``forecast_<name>`` column before it, else ``naive``), so a file ``triage compare`` refuses
+    for a column named like a built-in forecast still ranks.
+
+    Raises:
+        TriageError: ``steps`` holds fewer than two forecasts, or a name :func:`parse_steps`
+            refuses.
+    """
+    if steps is None:
+        return (list(portfolio.competing)[-1] if portfolio.competing else NAIVE), FORECAST
+    chain = parse_steps(",".join(steps), forecast_names(portfolio, season))
+    if len(chain) < 2:
+        raise TriageError(
+            f"--steps {','.join(chain)}: one forecast is not a process step to rank by.",
+            hint="List at least two forecasts; the last step's value added is measured "
+            "against the one before it (e.g. --steps naive,stat,forecast).",
+        )
+    return chain[-2], chain[-1]
+
+
+def last_step_loss(
+    portfolio: Portfolio,
+    cols: np.ndarray,
+    season: int = SEASON.default,
+    steps: Sequence[str] | None = None,
+) -> LastStep:
+    """Per series, the value the last process step destroyed over the window columns ``cols``.
+
+    Forecast value added (Gilliland 2010, docs/sources.md §3.1) of the last step, negated:
+    loss = Σ (|e_final| − |e_previous|) over the cells where demand, the final forecast and the
+    previous step are all present; × price per cell in value. Vectorised over blocks of series.
+
+    Args:
+        portfolio: The portfolio.
+        cols: The scoring window's calendar columns (``metrics.window_columns``).
+        season: Season m of ``snaive`` when ``steps`` names it.
+        steps: The process steps (:func:`last_step`); None for the default chain.
+    """
+    previous, final = last_step(portfolio, season, steps)
+    if steps is None:
+        before: tuple[np.ndarray, int] = (
+            (portfolio.competing[previous], 0) if portfolio.competing else (portfolio.demand, 1)
+        )
+        after: tuple[np.ndarray, int] = (portfolio.forecast, 0)
+    else:
+        before, after = _source(portfolio, previous, season), _source(portfolio, final, season)
+    n = portfolio.n_series
+    cols = np.asarray(cols)
+    loss = np.zeros(n)
+    cells = np.zeros(n, dtype=np.int64)
+    loss_value = np.zeros(n) if portfolio.price is not None else None
+    for rows in metrics._row_blocks(n, len(cols)):
+        # Periods x series, as in the window measures: the sums add whole rows.
+        d = _window(portfolio.demand, rows, cols)
+        f = _window(after[0], rows, cols, after[1])
+        p = _window(before[0], rows, cols, before[1])
+        diff = np.abs(f - d)
+        diff -= np.abs(p - d)
+        ok = ~np.isnan(diff)
+        diff[~ok] = 0.0
+        cells[rows] = ok.sum(axis=0)
+        loss[rows] = diff.sum(axis=0)
+        if loss_value is not None and portfolio.price is not None:
+            # Prices are filled along each series (never missing): 0 × price where no cell.
+            loss_value[rows] = (diff * portfolio.price[rows, cols].T).sum(axis=0)
+    none = cells == 0
+    loss[none] = np.nan
+    if loss_value is not None:
+        loss_value[none] = np.nan
+    return LastStep(previous, final, loss, loss_value, cells)
+
+
 @dataclass
 class _Sums:
     """Per series (columns: one per forecast) and per period sums over the compared cells."""
@@ -282,32 +381,30 @@ class _Sums:
     missing: np.ndarray  # K
 
 
+def _source(portfolio: Portfolio, name: str, season: int) -> tuple[np.ndarray, int]:
+    """Where a forecast's values are: (matrix, shift), the value of column c at ``c - shift``."""
+    if name == FORECAST:
+        return portfolio.forecast, 0
+    if name == NAIVE:
+        return portfolio.demand, 1
+    if name == SNAIVE:
+        return portfolio.demand, season
+    return portfolio.competing[name], 0
+
+
 def _window(matrix: np.ndarray, rows: slice, cols: np.ndarray, shift: int = 0) -> np.ndarray:
     """``matrix[rows, cols - shift]`` transposed (periods x series, contiguous), NaN where
     ``cols - shift`` falls before the calendar."""
     block = matrix[rows]
     source = cols - shift
+    if len(source) and source[0] >= 0 and source[-1] - source[0] == len(source) - 1:
+        # Adjacent columns (nearly always): one copy of a slice.
+        adjacent: np.ndarray = np.ascontiguousarray(block[:, source[0] : source[-1] + 1].T)
+        return adjacent
     out = np.full((len(cols), block.shape[0]), np.nan)
     inside = source >= 0
     out[inside] = block[:, source[inside]].T
     return out
-
-
-def _sources(
-    portfolio: Portfolio, names: Sequence[str], season: int
-) -> list[tuple[np.ndarray, int]]:
-    """Each forecast as (matrix, shift): its value in period t is ``matrix[:, t - shift]``."""
-    sources: list[tuple[np.ndarray, int]] = []
-    for name in names:
-        if name == FORECAST:
-            sources.append((portfolio.forecast, 0))
-        elif name == NAIVE:
-            sources.append((portfolio.demand, 1))
-        elif name == SNAIVE:
-            sources.append((portfolio.demand, season))
-        else:
-            sources.append((portfolio.competing[name], 0))
-    return sources
 
 
 @dataclass(frozen=True)
@@ -359,7 +456,7 @@ def series_scores(
     d = _window(portfolio.demand, rows, cols)[:, 0]
     f = [
         _window(matrix, rows, cols, shift)[:, 0]
-        for matrix, shift in _sources(portfolio, names, season)
+        for matrix, shift in (_source(portfolio, name, season) for name in names)
     ]
     both = ~np.isnan(d)
     for values in f:
@@ -389,7 +486,7 @@ def _block_sums(
     by_series: bool,
 ) -> _Sums:
     n, k, w = portfolio.n_series, len(names), len(cols)
-    sources = _sources(portfolio, names, season)
+    sources = [_source(portfolio, name, season) for name in names]
     priced = portfolio.price is not None
     per_k = ("abs_error", "bias", "sq_error", "ape", "capped")
     out = {field: np.zeros((n, k)) for field in per_k}
@@ -511,6 +608,10 @@ def diebold_mariano(
     np.divide(mean, np.sqrt(np.where(ok, variance, 1.0) / np.where(ok, t, 1.0)), out=stat, where=ok)
     stat = np.where(ok, stat * np.sqrt(np.where(ok, correction, 0.0)), np.nan)
     p = np.full(len(t), np.nan)
+    # Imported here: scipy.stats costs 0.7 s of start-up, and `triage rank` (which reads this
+    # module for fva_loss) never runs the test (docs/performance.md, "Scoring").
+    from scipy import stats
+
     p[ok] = 2.0 * stats.t.sf(np.abs(stat[ok]), t[ok] - 1)
     # Identical losses throughout: no difference to test.
     same = (t >= 2) & (variance == 0) & (mean == 0)

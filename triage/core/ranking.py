@@ -9,19 +9,22 @@ reward forecasts that are too low.
 from __future__ import annotations
 
 import concurrent.futures
+from collections.abc import Sequence
 from typing import Any
 
 import numpy as np
 import pandas as pd
 
-from triage.core import metrics
+from triage.core import compare, metrics
 from triage.core.errors import TriageError
 from triage.core.portfolio import Portfolio
 from triage.core.settings import SEASON, WINDOW
 
-BY_ERROR = "error"
-BY_BIAS = "bias"
-ORDERS = (BY_ERROR, BY_BIAS)
+# The orders are the vocabulary's (one list), re-exported for the callers that sort by them.
+from triage.core.vocabulary import BY_BIAS as BY_BIAS
+from triage.core.vocabulary import BY_ERROR as BY_ERROR
+from triage.core.vocabulary import BY_FVA as BY_FVA
+from triage.core.vocabulary import ORDERS as ORDERS
 
 FLAG_TEXT = {1: "over", -1: "under", 0: ""}
 
@@ -32,22 +35,28 @@ def scorecard(
     season: int = SEASON.default,
     *,
     by: str = BY_ERROR,
+    steps: Sequence[str] | None = None,
 ) -> pd.DataFrame:
     """Score every series and return one row per series in review order.
 
     Columns (fractions, not percentages; NaN where undefined): the key columns, ``rank``,
-    ``bias_rank``, ``periods``, ``demand``, ``forecast``, ``abs_error``, ``bias``, ``bias_pct``,
-    ``wape``, ``mae``, ``rmse``, ``abs_error_value`` and ``bias_value`` (priced portfolios only),
-    ``error_share``, ``cum_share``, ``tracking_signal``, ``bias_run``, ``bias_pvalue``,
-    ``bias_flag`` (``over``/``under``/empty), ``mase``, ``fva``, ``pattern``, ``adi``, ``cv2``,
-    then the attribute columns. The frame's index is the series' position in the portfolio.
+    ``bias_rank``, ``fva_rank``, ``periods``, ``demand``, ``forecast``, ``abs_error``, ``bias``,
+    ``bias_pct``, ``wape``, ``mae``, ``rmse``, ``abs_error_value`` and ``bias_value`` (priced
+    portfolios only), ``error_share``, ``cum_share``, ``tracking_signal``, ``bias_run``,
+    ``bias_pvalue``, ``bias_flag`` (``over``/``under``/empty), ``mase``, ``fva``, ``fva_loss``,
+    ``fva_loss_value`` (priced only), ``pattern``, ``adi``, ``cv2``, then the attribute
+    columns. The frame's index is the series' position in the portfolio.
 
     Args:
         portfolio: The portfolio to score.
         window: Latest calendar periods holding any actual demand to score over.
         season: Seasonal period of the naive baseline for MASE and FVA.
-        by: ``"error"`` (largest share of error first) or ``"bias"`` (persistently biased
-            series first, then by absolute bias, in value where priced).
+        by: ``"error"`` (largest share of error first), ``"bias"`` (persistently biased
+            series first, then by absolute bias, in value where priced) or ``"fva"`` (most
+            value destroyed by the last process step first, ``fva_loss_value`` where priced,
+            else ``fva_loss``; series without a comparable cell last).
+        steps: The process steps whose last step ``fva_loss`` measures
+            (``compare.last_step``); None for the default chain.
     """
     if by not in ORDERS:
         raise ValueError(f"by must be one of {ORDERS}")
@@ -64,6 +73,7 @@ def scorecard(
         fva_job = pool.submit(
             metrics.naive_value_added, portfolio.demand, portfolio.forecast, cols, season
         )
+        step_job = pool.submit(compare.last_step_loss, portfolio, cols, season, steps)
         price_w = portfolio.price[:, picked] if portfolio.price is not None else None
         wm = metrics.window_measures(
             portfolio.demand[:, picked], portfolio.forecast[:, picked], price_w
@@ -85,7 +95,13 @@ def scorecard(
 
         share, cum = error_shares(error, error_order)
         mae = wm.mae
-        order = error_order if by == BY_ERROR else bias_order
+        step = step_job.result()
+        step_loss = step.loss_value if step.loss_value is not None else step.loss
+        # Largest loss first; NaN (no comparable cell) sorts last; ties by key.
+        fva_order = descending_order(step_loss)
+        fva_rank = np.empty(n, dtype=np.int64)
+        fva_rank[fva_order] = np.arange(1, n + 1)
+        order = {BY_ERROR: error_order, BY_BIAS: bias_order, BY_FVA: fva_order}[by]
 
         # Every column is built once, already in review order (no frame-wide reordering copy).
         data: dict[str, object] = {
@@ -94,6 +110,7 @@ def scorecard(
         columns: dict[str, Any] = {
             "rank": rank,
             "bias_rank": bias_rank,
+            "fva_rank": fva_rank,
             "periods": wm.periods,
             "demand": wm.demand,
             "forecast": wm.forecast,
@@ -121,6 +138,9 @@ def scorecard(
 
     data["mase"] = metrics._ratio(mae, scale)[order]
     data["fva"] = fva[order]
+    data["fva_loss"] = step.loss[order]
+    if step.loss_value is not None:
+        data["fva_loss_value"] = step.loss_value[order]
     data["pattern"] = _labels(metrics.PATTERNS, pattern.pattern[order])
     data["adi"] = pattern.adi[order]
     data["cv2"] = pattern.cv2[order]

@@ -19,10 +19,11 @@ import pandas as pd
 
 from triage.core import adjust, compare, history, schema, vocabulary
 from triage.core import ledger as ledger_mod
+from triage.core.compare import last_step
 from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.ledger import AdjustmentEnd, Event, Ledger
-from triage.core.ranking import BY_BIAS, BY_ERROR, error_shares
+from triage.core.ranking import BY_BIAS, BY_ERROR, BY_FVA, error_shares
 from triage.core.text import percent
 
 #: Fields a reviewer can filter on besides the attribute columns.
@@ -171,6 +172,12 @@ class ReviewSession:
             np.nan_to_num(self.bias_size), self.bias_order
         )
         """Share of the portfolio's total |bias|, and the cumulative share in bias order."""
+        self.fva_order = np.argsort(self.card["fva_rank"].to_numpy(), kind="stable")
+        self.fva_loss = self.card["fva_loss_value" if self.priced else "fva_loss"].to_numpy()
+        """Error the last process step added over the window (value where priced; NaN without a
+        comparable cell): what fva order sorts by (``compare.last_step_loss``)."""
+        self.fva_steps = last_step(portfolio, settings.season)
+        """(previous, final): the process step the loss is of."""
         self.window_cols = cycle.window_cols
         self.suggest_spec, self.suggest_reason = adjust.suggest(
             self.card["bias"].to_numpy(),
@@ -706,17 +713,18 @@ class ReviewSession:
         text: str = "",
         filters: dict[str, str] | None = None,
     ) -> np.ndarray:
-        """Portfolio indices to show, in order: error or bias order, filtered.
+        """Portfolio indices to show, in order: error, bias or fva order, filtered.
 
         Series handed off or put off in an earlier cycle and still in the worst set come first
         while they have no decision in this cycle.
 
         Args:
-            by: ``"error"`` or ``"bias"``.
+            by: ``"error"``, ``"bias"`` or ``"fva"`` (``ranking.ORDERS``).
             text: Case-insensitive substring of the key or any attribute.
             filters: Field -> exact value (see ``filter_fields``).
         """
-        base = self.error_order if by != BY_BIAS else self.bias_order
+        orders: dict[str, np.ndarray] = {BY_BIAS: self.bias_order, BY_FVA: self.fva_order}
+        base = orders.get(by, self.error_order)
         keep = np.ones(self.portfolio.n_series, dtype=bool)
         if text:
             needle = text.casefold()
@@ -728,7 +736,7 @@ class ReviewSession:
             keep &= found
         for field, value in (filters or {}).items():
             keep &= self._field(field) == value
-        shown = base if keep.all() else base[keep[base]]
+        shown: np.ndarray = base if keep.all() else base[keep[base]]
         first = self.carried & (self.outcome == "")
         if first.any():
             shown = history.carried_first(shown, np.flatnonzero(first))

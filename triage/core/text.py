@@ -247,13 +247,17 @@ def over_under(
     return shown + word
 
 
-def compact(value: float | None) -> str:
-    """``1,234`` / ``12.3k`` / ``4.5M``: short numbers for narrow columns; empty when undefined."""
+def compact(value: float | None, *, signed: bool = False) -> str:
+    """``1,234`` / ``12.3k`` / ``4.5M``: short numbers for narrow columns; empty when undefined.
+
+    ``signed`` writes ``+`` before a positive number (``+1,234``).
+    """
     if value is None or undefined(value):
         return ""
     size = abs(value)
+    sign = "+" if signed else ""
     if size >= 10_000_000:
-        return f"{value / 1e6:.1f}M"
+        return f"{value / 1e6:{sign}.1f}M"
     if size >= 100_000:
-        return f"{value / 1e3:.0f}k"
-    return f"{value:,.0f}"
+        return f"{value / 1e3:{sign}.0f}k"
+    return f"{value:{sign},.0f}"

@@ -12,6 +12,14 @@ from __future__ import annotations
 from collections.abc import Iterable
 from dataclasses import dataclass
 
+#: Review orders, the one list (``triage rank --by`` and the review screens' order key): the
+#: largest share of absolute error first; persistent bias first; the most value destroyed by the
+#: last process step first (``triage.core.compare.last_step_loss``).
+BY_ERROR = "error"
+BY_BIAS = "bias"
+BY_FVA = "fva"
+ORDERS = (BY_ERROR, BY_BIAS, BY_FVA)
+
 #: Digits offered as shortcuts, in list order ("0" is the tenth entry, as on a keyboard row).
 SHORTCUT_DIGITS = "1234567890"
 

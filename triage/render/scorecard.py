@@ -15,7 +15,7 @@ import math
 import os
 import re
 import shutil
-from collections.abc import Callable, Iterator
+from collections.abc import Callable, Iterator, Sequence
 from typing import Any
 
 import numpy as np
@@ -25,6 +25,7 @@ from rich.table import Table
 from rich.text import Text
 
 from triage.core import metrics, ranking, schema
+from triage.core.compare import last_step
 from triage.core.output import totals, window_info
 from triage.core.portfolio import Portfolio
 from triage.core.text import number, over_under, percent, visible
@@ -240,8 +241,25 @@ def _whole_text(values: np.ndarray, missing: np.ndarray | None) -> object:
     return pc.binary_join_element_wise(digits, _text(".0"), _text(""))
 
 
-def to_json(portfolio: Portfolio, card: pd.DataFrame, window: int, season: int) -> str:
-    """The scorecard as one JSON document: what was scored, then one object per series."""
+def to_json(
+    portfolio: Portfolio,
+    card: pd.DataFrame,
+    window: int,
+    season: int,
+    *,
+    by: str = ranking.BY_ERROR,
+    steps: Sequence[str] | None = None,
+) -> str:
+    """The scorecard as one JSON document: what was scored, then one object per series.
+
+    Args:
+        portfolio: The portfolio scored.
+        card: The rows to write, in order.
+        window: Latest periods with actual demand scored.
+        season: Seasonal period of the naive baseline.
+        by: The order of the rows (``ranking.ORDERS``).
+        steps: The process steps ``fva_loss`` was measured along (None: the default chain).
+    """
     records = []
     columns = list(card.columns)
     arrays = [card[c].to_numpy() for c in columns]
@@ -255,11 +273,21 @@ def to_json(portfolio: Portfolio, card: pd.DataFrame, window: int, season: int) 
         "window": window_info(portfolio, window),
         "season": season,
         "error_sign": "forecast - demand (positive = over-forecast)",
-        "ranked_by": "abs_error_value" if portfolio.price is not None else "abs_error",
+        "ranked_by": _ranked_by(by, portfolio.price is not None),
+        "fva_steps": dict(
+            zip(("previous", "final"), last_step(portfolio, season, steps), strict=True)
+        ),
         "series": records,
     }
     # Text exactly as in the file; DEL and C1 escaped as JSON allows (the export's writer).
     return dumps_json(doc, indent=1) + "\n"
+
+
+def _ranked_by(by: str, priced: bool) -> str:
+    """The scorecard column the rows are in descending order of (bias: after the flag)."""
+    if by == ranking.BY_FVA:
+        return "fva_loss_value" if priced else "fva_loss"
+    return "abs_error_value" if priced else "abs_error"
 
 
 def _json_value(value: object) -> object:
@@ -288,10 +316,17 @@ def rank_table(
     window: int,
     season: int,
     *,
-    by: str = "error",
+    by: str = ranking.BY_ERROR,
+    steps: Sequence[str] | None = None,
 ) -> str:
-    """A readable ranked list with a header of portfolio totals."""
+    """A readable ranked list with a header of portfolio totals.
+
+    With ``by`` fva the list also shows the loss of the last process step (``steps``, None for
+    the default chain) and says which step it is.
+    """
     priced = "abs_error_value" in card
+    fva = by == ranking.BY_FVA
+    previous, final = last_step(portfolio, season, steps) if fva else ("", "")
     tot = totals(card)
     win = window_info(portfolio, window)
     lines = [
@@ -305,21 +340,33 @@ def rank_table(
         f"portfolio bias {over_under(tot['bias_pct'], 1, fraction=True) or 'n/a'}; "
         f"WAPE {percent(tot['wape']) or 'n/a'}",
         "ranked by "
-        + ("persistent bias, then absolute bias" if by == "bias" else "share of absolute error")
+        + (
+            "persistent bias, then absolute bias"
+            if by == ranking.BY_BIAS
+            else f"error added by the last step, {visible(previous)} -> {visible(final)}"
+            if fva
+            else "share of absolute error"
+        )
         + (" in value" if priced else " in units"),
+        *(
+            [f"step loss = |e| of {visible(final)} - |e| of {visible(previous)} (+ = error added)"]
+            if fva
+            else []
+        ),
         "",
     ]
+    rank_col, rank_head = {
+        ranking.BY_BIAS: ("bias_rank", "bias rank"),
+        ranking.BY_FVA: ("fva_rank", "fva rank"),
+    }.get(by, ("rank", "rank"))
+    loss_col = "fva_loss_value" if priced else "fva_loss"
     err_col = "abs_error_value" if priced else "abs_error"
     has_location = schema.LOCATION in card
     # (header, justify, cells, priority): when the terminal is too narrow for every column, the
     # highest priority numbers go first (pattern, then run, ...); the rest are never cut short.
+    # Ordered by the step loss, the list gives up the absolute error last of all.
     columns: list[Column] = [
-        (
-            "bias rank" if by == "bias" else "rank",
-            "right",
-            [str(v) for v in shown["bias_rank" if by == "bias" else "rank"]],
-            0,
-        ),
+        (rank_head, "right", [str(v) for v in shown[rank_col]], 0),
         (schema.ITEM, "left", [Text(visible(str(v))) for v in shown[schema.ITEM]], 0),
         *(
             [(schema.LOCATION, "left", [Text(visible(str(v))) for v in shown[schema.LOCATION]], 0)]
@@ -328,7 +375,24 @@ def rank_table(
         ),
         ("share", "right", [percent(v) for v in shown["error_share"]], 0),
         ("cum", "right", [percent(v) for v in shown["cum_share"]], 4),
-        ("abs err" + (" value" if priced else ""), "right", [number(v) for v in shown[err_col]], 0),
+        (
+            "abs err" + (" value" if priced else ""),
+            "right",
+            [number(v) for v in shown[err_col]],
+            0.5 if fva else 0,
+        ),
+        *(
+            [
+                (
+                    "step loss" + (" value" if priced else ""),
+                    "right",
+                    [number(v, signed=True) for v in shown[loss_col]],
+                    0,
+                )
+            ]
+            if fva
+            else []
+        ),
         (
             "bias %",
             "right",
@@ -458,7 +522,7 @@ _KEY_WIDTH = 24
 
 #: A table column: (header, justify, cells, priority); priority 0 is never dropped, and when the
 #: terminal is too narrow the highest priority goes first.
-Column = tuple[str, str, list[Any], int]
+Column = tuple[str, str, list[Any], float]
 
 
 def _fitted_table(columns: list[Column], *, key_columns: tuple[str, ...]) -> list[str]:
@@ -508,8 +572,13 @@ def _fitted_table(columns: list[Column], *, key_columns: tuple[str, ...]) -> lis
     if dropped:
         order = [name for name, *_ in all_columns if name in dropped]
         lines.append("")
-        lines.append(f"not shown at {width} columns: {', '.join(order)} (widen the terminal,")
-        lines.append("or use --format csv for every measure)")
+        said = f"not shown at {width} columns: {', '.join(order)}"
+        if len(said) + len(" (widen the terminal,") <= width:
+            lines.append(f"{said} (widen the terminal,")
+            lines.append("or use --format csv for every measure)")
+        else:
+            lines.append(said)
+            lines.append("(widen the terminal, or use --format csv for every measure)")
     return lines
 
 

@@ -112,7 +112,7 @@ class TriageApp(App[None]):
     | u | undo the series' last decision |
     | n | next unreviewed series |
     | / | filter by text; f: by field; escape: clear |
-    | b | switch order: error / bias |
+    | b | switch order: error / bias / fva (error added by the last process step) |
     | g | go to a series by key |
     | x | export decisions and the adjusted forecast |
     | ? | help |
@@ -226,10 +226,11 @@ class TriageApp(App[None]):
         Binding(
             "b",
             "toggle_order",
-            "Error/bias order",
+            "Error/bias/FVA order",
             show=False,
             id="find.order",
-            tooltip="Order by share of error, or by persistent bias",
+            tooltip="Order by share of error, by persistent bias, or by the error the last "
+            "process step added (fva loss)",
         ),
         Binding(
             "g",
@@ -312,7 +313,7 @@ class TriageApp(App[None]):
         super().__init__()
         self.options = options
         self.session: ReviewSession | None = None
-        self.by = "error"
+        self.by = vocabulary.BY_ERROR
         self.text_filter = ""
         self.field_filters: dict[str, str] = {}
         self.cause = "unknown"
@@ -555,6 +556,7 @@ class TriageApp(App[None]):
             "bcum": (fmt.pct(session.bias_cum[series], 0), "dim"),
             "bsize": (fmt.compact(session.bias_size[series]), None),
             "error": (fmt.compact(a["error"][series]), None),
+            "fvaloss": (fmt.compact(session.fva_loss[series], signed=True), None),
             "bias": fmt.signed_pct(a["bias_pct"][series]),
             "ts": ("" if math.isnan(a["ts"][series]) else f"{a['ts'][series]:+.1f}", None),
             "flag": (
@@ -727,7 +729,13 @@ class TriageApp(App[None]):
             else "",
             f" · cause {fmt.cause_label(self.cause, self.options.root_causes)}"
             + (" · auto-advance" if self.auto_advance else "")
-            + f" · {self.by} order{where}"
+            + f" · {self.by} order"
+            + (
+                f" ({fmt.plain(' → '.join(session.fva_steps))})"
+                if self.by == vocabulary.BY_FVA
+                else ""
+            )
+            + where
             + (f" · filter: {fmt.plain(', '.join(filt))}" if filt else ""),
         )
         summary.no_wrap = True
@@ -753,8 +761,9 @@ class TriageApp(App[None]):
     # -- actions: finding ---------------------------------------------------------------------
 
     def action_toggle_order(self) -> None:
-        self.by = "bias" if self.by == "error" else "error"
-        self._q(SeriesList).set_columns(fmt.BIAS_COLUMNS if self.by == "bias" else fmt.LIST_COLUMNS)
+        orders = vocabulary.ORDERS
+        self.by = orders[(orders.index(self.by) + 1) % len(orders)]
+        self._q(SeriesList).set_columns(fmt.ORDER_COLUMNS[self.by])
         self._apply_order()
         if self.groups is not None:
             group_list = self._q(GroupList)

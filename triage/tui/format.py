@@ -67,6 +67,23 @@ BIAS_COLUMNS = tuple(
     for c in LIST_COLUMNS
 )
 
+#: Fva order shows what it sorts by: the error the last process step added (value where priced)
+#: where the error column was; the error moves to the place of its cumulative share.
+FVA_COLUMNS = tuple(
+    {
+        "cum": Column("error", "abs err", 8, right=True, keep=5),
+        "error": Column("fvaloss", "fva loss", 8, right=True, keep=16),
+    }.get(c.key, c)
+    for c in LIST_COLUMNS
+)
+
+#: The list's columns in each order (``ranking.ORDERS``).
+ORDER_COLUMNS = {
+    vocabulary.BY_ERROR: LIST_COLUMNS,
+    vocabulary.BY_BIAS: BIAS_COLUMNS,
+    vocabulary.BY_FVA: FVA_COLUMNS,
+}
+
 
 #: The group view's columns: the group's key, its series and how many are decided, its share of
 #: the series' error, the series' error and the error of the group's total (the gap between the
