@@ -125,3 +125,9 @@ def test_bad_group_exits_2(value: str, needle: str) -> None:
     result = run("rank", str(SAMPLE), "--group", value)
     assert result.returncode == 2
     assert needle in result.stderr and "Traceback" not in result.stderr
+
+
+def test_groups_do_not_take_the_fva_order() -> None:
+    result = run("rank", str(SAMPLE), "--group", "family", "--by", "fva")
+    assert result.returncode == 2
+    assert "groups rank by error or bias" in result.stderr and "Traceback" not in result.stderr
