@@ -306,3 +306,44 @@ def test_two_weeks_in_one_review_folder(tmp_path: Path) -> None:
     assert len(carried) == 3  # four weeks adjusted in week 1, three still ahead in week 2
     assert {r["adjusted_forecast"] for r in carried} == {"110"}
     assert (folder / "triage-ledger.sqlite").exists()
+
+
+def test_group_view_and_other_forecasts_in_a_real_terminal(tmp_path: Path) -> None:
+    """At 120x40, typed in one burst: open the groups by family, go into the second, record
+    ``1-2: use stat`` on its first series with a note, back to the groups, back to the series,
+    hide the other forecasts. The ledger holds the spec; the screen shows where the reviewer is."""
+    portfolio = tmp_path / "week.csv"
+    shutil.copy(SAMPLE, portfolio)
+    ledger = tmp_path / "groups.sqlite"
+    triage = str(Path(sys.executable).with_name("triage"))
+    term = Tmux(
+        [triage, "review", str(portfolio), "--ledger", str(ledger), "--reviewer", "grp"], tmp_path
+    )
+    try:
+        term.wait_for("reviewed 0")
+        term.keys("G")
+        term.wait_for("Group by")
+        term.keys("C-u", "family", "Enter")
+        screen = term.wait_for("groups by family")
+        assert "group rank 1 of 6" in term.wait_for("group rank 1 of 6")
+        term.keys("j", "Enter", "a", "1-2: use stat", "Tab", "stat saw the promotion", "C-s")
+        screen = term.wait_for("saved:")
+        assert "(escape: back to groups)" in screen
+        term.keys("Escape")
+        screen = term.wait_for("group rank 2 of 6")
+        assert "1/" in screen  # the group's review state counts the decision
+        term.keys("G", "o")
+        screen = term.wait_for("other forecasts hidden")
+        term.keys("q")
+        deadline = time.monotonic() + 15
+        while term.alive() and time.monotonic() < deadline:
+            time.sleep(0.2)
+        assert not term.alive(), "the app did not quit on q"
+    finally:
+        term.kill()
+    con = sqlite3.connect(f"file:{ledger}?mode=ro", uri=True)
+    try:
+        rows = con.execute("SELECT outcome, adjustment, note FROM event").fetchall()
+    finally:
+        con.close()
+    assert rows == [("adjusted", "1-2: use stat", "stat saw the promotion")]

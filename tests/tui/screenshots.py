@@ -19,11 +19,12 @@ SIZE = (170, 46)
 
 
 async def capture(out: Path) -> list[Path]:
-    """Save SVGs of the main screen and of the decision dialog; return their paths."""
+    """Save SVGs of the main screen, the decision dialog and the group view; return their
+    paths."""
     work = Path(tempfile.mkdtemp())
     shutil.copy(ROOT / "sample" / "portfolio.csv", work / "portfolio.csv")
     app = TriageApp(Options(portfolio=work / "portfolio.csv", reviewer="ana"))
-    paths = [out / "review-main.svg", out / "review-decision.svg"]
+    paths = [out / "review-main.svg", out / "review-decision.svg", out / "review-groups.svg"]
     async with app.run_test(size=SIZE) as pilot:
         while app.session is None:
             await pilot.pause(0.05)
@@ -34,6 +35,14 @@ async def capture(out: Path) -> list[Path]:
         await pilot.press("s")
         await pilot.pause(0.5)
         app.save_screenshot(str(paths[1]))
+        await pilot.press("escape")
+        app.group_by = ("family", "location")
+        await pilot.press("G")
+        while not app.in_groups:
+            await pilot.pause(0.05)
+        await pilot.press("j")
+        await pilot.pause(0.5)
+        app.save_screenshot(str(paths[2]))
     return paths
 
 
