@@ -75,6 +75,12 @@ def produce(work: Path) -> dict[str, str]:
         ["rank", sample, "--cover", "0.8", "--season", "52", "--window", "26", "--format", "csv"]
     )
     out["check"] = _run(["check", sample])
+    out["rank-group-table"] = _run(["rank", sample, "--group", "family,location", "--top", "10"])
+    out["rank-group-csv"] = _run(["rank", sample, "--group", "planner", "--format", "csv"])
+    out["rank-group-bias-json"] = _run(
+        ["rank", sample, "--group", "family", "--by", "bias", "--format", "json"]
+    )
+    out["compare-csv"] = _run(["compare", sample, "--format", "csv"])
 
     scenario = build_cycles(work / "cycles", seed=CYCLES_SEED)
     newest = str(scenario.files[-1])
