@@ -151,3 +151,35 @@ async def test_end_key_stops_carrying_an_earlier_adjustment_and_the_export_follo
     rows = tables.forecast[tables.forecast["item"] == "A"]
     assert rows["adjusted_in_cycle"].isna().all() or (rows["adjusted_in_cycle"] == "").all()
     assert (rows["adjusted_forecast"] == rows["forecast"]).all()
+
+
+async def test_override_value_screen_compares_with_the_statistical_forecast(
+    tmp_path: Path,
+) -> None:
+    """With forecast_stat in the files, `v` also says how much the overrides beat the
+    statistical forecast: |stat − actual| − |adjusted − actual| over the lines it has a value
+    for, the figure `triage overrides` gives (docs/history.md)."""
+    scenario = build_cycles(tmp_path / "cycles", competing=True)
+    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=scenario.ledger, reviewer="ana"))
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        await pilot.press("v")
+        await wait_for(
+            pilot, lambda: isinstance(app.screen, OverridesScreen), "the override value view"
+        )
+        realised = ReviewCycle(app.session.portfolio, app.session.ledger).realised
+        compared = realised.dropna(subset=["stat"])
+        beat = float(
+            (
+                (compared["stat"] - compared["actual"]).abs()
+                - (compared["adjusted"] - compared["actual"]).abs()
+            ).sum()
+        )
+        text = "\n".join(p.plain for p in app.screen.parts() if hasattr(p, "plain"))
+        assert f"over the {len(compared)} periods it has a value for" in text
+        assert f"by {abs(beat):,.1f} units" in text
+        from triage.tui.screens.overrides import summary_table
+
+        table = summary_table("direction", app.screen._tables["direction"], app.session.priced)
+        assert "beat stat by" in [str(c.header) for c in table.columns]
+        await pilot.press("escape")

@@ -1504,7 +1504,13 @@ class TriageApp(App[None]):
         assert self.session is not None
         self._status("")
         self.push_screen(
-            OverridesScreen(tables, fva, self.session.priced, self.options.root_causes)
+            OverridesScreen(
+                tables,
+                fva,
+                self.session.priced,
+                self.options.root_causes,
+                stat_name=self.session.review_cycle.settings.stat_name,
+            )
         )
 
     @on(Exported)

@@ -29,13 +29,20 @@ TITLES = {
 }
 
 
+def compared_with_stat(frame: pd.DataFrame) -> bool:
+    """Whether a summary holds lines valued against the statistical forecast."""
+    return "stat_adjustments" in frame and float(frame["stat_adjustments"].fillna(0).sum()) > 0
+
+
 def summary_table(
     by: str, frame: pd.DataFrame, priced: bool, causes: tuple[Choice, ...] = ()
 ) -> Table:
     """One grouping of ``history.summarise`` as a Rich table (data as ``Text``, never markup).
 
-    Root causes appear as their labels, never as codes.
+    Root causes appear as their labels, never as codes. With lines valued against the
+    statistical forecast, two more columns: how much the overrides beat it by.
     """
+    stat = compared_with_stat(frame)
     table = Table(title=TITLES.get(by, by), title_justify="left", box=None, header_style="bold")
     for name, right in [
         (by.replace("_", " "), False),
@@ -46,6 +53,8 @@ def summary_table(
         ("error removed (units)", True),
         *([("in value", True)] if priced else []),
         ("of original error", True),
+        *([("beat stat by", True)] if stat else []),
+        *([("beat stat (value)", True)] if stat and priced else []),
     ]:
         table.add_column(name, justify="right" if right else "left")
     for row in frame.itertuples(index=False):
@@ -62,6 +71,8 @@ def summary_table(
             number(rec["value_added"], 1, signed=True),
             *([number(rec["value_added_value"], signed=True)] if priced else []),
             percent(rec["relative_value_added"], signed=True),
+            *([number(rec["value_added_vs_stat"], 1, signed=True)] if stat else []),
+            *([number(rec["value_added_vs_stat_value"], signed=True)] if stat and priced else []),
         )
     return table
 
@@ -87,14 +98,24 @@ class OverridesScreen(Dialog[None]):
         fva: dict[str, float],
         priced: bool,
         causes: tuple[Choice, ...] = (),
+        stat_name: str = "",
     ) -> None:
         super().__init__()
+        self._stat_name = stat_name
         self._tables = tables
         self._fva = fva
         self._priced = priced
         self._causes = causes
 
     def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog help"):
+            yield Static(Text("Did past overrides help?", style="bold"), classes="dialog-title")
+            with VerticalScroll():
+                yield Static(Group(*self.parts()))
+            yield Static(Text("escape, q or v: close"), classes="dialog-keys")
+
+    def parts(self) -> list[RenderableType]:
+        """What the screen says, in order: sentences (``Text``) and tables."""
         overall = self._tables.get("direction")
         parts: list[RenderableType] = []
         if overall is None or overall.empty or int(overall.iloc[-1]["adjustments"]) == 0:
@@ -112,6 +133,17 @@ class OverridesScreen(Dialog[None]):
                     + (_net(total["value_added_value"], "in value") if self._priced else "")
                 )
             )
+            if compared_with_stat(overall):
+                beat = float(total["value_added_vs_stat"])
+                parts.append(
+                    Text(
+                        f"Against the statistical forecast (forecast_{fmt.plain(self._stat_name)}),"
+                        f" over the {int(total['stat_adjustments'])} periods it has a value for: "
+                        f"the overrides {'beat' if beat >= 0 else 'did worse than'} it by "
+                        f"{abs(beat):,.1f} units ('beat stat by' below; positive = the override "
+                        "was closer to the actual)."
+                    )
+                )
             if self._priced:
                 mix = words.mix_effect(total["value_added"], total["value_added_value"])
                 if mix:
@@ -130,11 +162,7 @@ class OverridesScreen(Dialog[None]):
                 f"{int(fva.get('series_worse_than_naive', 0)):,} series worse than naive."
             )
         )
-        with Vertical(classes="dialog help"):
-            yield Static(Text("Did past overrides help?", style="bold"), classes="dialog-title")
-            with VerticalScroll():
-                yield Static(Group(*parts))
-            yield Static(Text("escape, q or v: close"), classes="dialog-keys")
+        return parts
 
     def action_close(self) -> None:
         self.dismiss(None)
