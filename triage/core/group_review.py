@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from triage.core import groups, schema
+from triage.core import adjust, groups, rounding, schema, split
 from triage.core.groups import column_total as _total
 from triage.core.ranking import BY_BIAS, as_slice
 from triage.core.review import ChartSeries, ReviewSession
@@ -57,6 +57,7 @@ class GroupReview:
         self.flag = np.select([flags == "over", flags == "under"], [1, -1], 0).astype(np.int8)
         self.size = self.table["series"].to_numpy(dtype=np.int64)
         self._decided: np.ndarray | None = None
+        self._decimals: int | None = None
         self._labels: list[str] | None = None
 
     # -- the list -------------------------------------------------------------------------------
@@ -119,20 +120,58 @@ class GroupReview:
         keys = self.grouping.keys
         return {name: str(keys[name].iat[group]) for name in self.by}
 
-    def chart(self, group: int) -> ChartSeries:
+    def chart(self, group: int, adjusted: np.ndarray | None = None) -> ChartSeries:
         """The group total's demand, forecast and competing forecasts, as the detail chart
-        draws a series."""
+        draws a series; ``adjusted`` is a previewed adjusted total of the forward periods."""
         p = self.session.portfolio
         members = self.members(group)
         labels = tuple(p.calendar.label(i) for i in range(len(p.calendar.periods)))
+        whole = None
+        if adjusted is not None:
+            whole = np.full(len(labels), np.nan)
+            whole[p.last_actual + 1 :] = adjusted
         return ChartSeries(
             labels=labels,
             demand=_total(p.demand[members]),
             forecast=_total(p.forecast[members]),
-            adjusted=None,
+            adjusted=whole,
             window_start=int(self.session.window_cols[0]),
             last_actual=p.last_actual,
             others=tuple((name, _total(values[members])) for name, values in p.competing.items()),
+        )
+
+    @property
+    def decimals(self) -> int:
+        """The export's precision (``rounding.DEFAULT``: as the file's forward forecast), which
+        a group adjustment is split at."""
+        if self._decimals is None:
+            p = self.session.portfolio
+            self._decimals = rounding.decimals_for(
+                rounding.DEFAULT, p.forecast[:, p.last_actual + 1 :]
+            )
+        return self._decimals
+
+    def preview(self, group: int, spec: str, *, basis: str = split.FORECASTS) -> split.GroupSplit:
+        """What ``spec`` would do to the group: applied to its total forward forecast and split
+        to its series (``triage.core.split``); nothing is saved.
+
+        Raises:
+            AdjustSyntaxError, AdjustError: The spec is not valid for this group.
+        """
+        p = self.session.portfolio
+        members = self.members(group)
+        ahead = slice(p.last_actual + 1, None)
+        cols = self.session.window_cols
+        return split.split(
+            adjust.parse(spec),
+            p.forecast[members, ahead],
+            recent_actuals=p.demand[members, : p.last_actual + 1],
+            window_demand=p.demand[members][:, cols],
+            window_forecast=p.forecast[members][:, cols],
+            decimals=self.decimals,
+            basis=basis,
+            price=None if p.price is None else p.price[members, ahead],
+            alternatives={name: values[members, ahead] for name, values in p.competing.items()},
         )
 
     def contributors(self, group: int, count: int = 5) -> list[Contributor]:
