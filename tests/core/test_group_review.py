@@ -77,3 +77,24 @@ def test_contributors_flagged_and_words(session: ReviewSession) -> None:
     # The group ranked first by error holds the largest share.
     first = int(review.order("error")[0])
     assert review.table["error_share"].iat[first] == review.table["error_share"].max()
+
+
+def test_preview_splits_the_total_exactly(session: ReviewSession) -> None:
+    """A group's previewed adjustment: the members' adjusted values sum to the adjusted total
+    at the export's precision (largest remainder; docs/adjustments.md), and nothing outside the
+    range moves."""
+    review = GroupReview(session, ("family",))
+    group = int(review.order("error")[0])
+    result = review.preview(group, "2-5: =500")
+    scale = 10**review.decimals
+    steps = np.rint(np.nan_to_num(result.adjusted[:, 1:5]) * scale).sum(axis=0)
+    np.testing.assert_array_equal(steps, np.full(4, 500 * scale))
+    np.testing.assert_array_equal(result.adjusted[:, 5:], result.original[:, 5:])
+    members = review.members(group)
+    p = session.portfolio
+    np.testing.assert_array_equal(result.original, p.forecast[members, p.last_actual + 1 :])
+    assert result.total.description.startswith("periods 2-5: =500")
+    relative = review.preview(group, "x1.1")
+    # A relative change scales each series alike: within one step of 1.1 x its forecast.
+    gap = np.abs(relative.adjusted - 1.1 * relative.original)
+    assert np.nanmax(gap) <= 1 / scale + 1e-9
