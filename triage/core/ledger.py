@@ -1326,11 +1326,15 @@ class Ledger:
             if info.immutable and info.wal_bytes:
                 notice += " Decisions saved moments ago by another session may be missing."
             if info.user_version < SCHEMA_VERSION:
+                later = (
+                    "group decisions"
+                    if info.user_version >= 2
+                    else ("ended adjustments, worst-set snapshots and group decisions")
+                )
                 notice += (
-                    f" It has ledger schema {info.user_version} and is read as it is (ended "
-                    "adjustments and worst-set snapshots need schema "
-                    f"{SCHEMA_VERSION}; it is upgraded when it is next opened where it can be "
-                    "written)."
+                    f" It has ledger schema {info.user_version} and is read as it is ({later} "
+                    f"need schema {SCHEMA_VERSION}; it is upgraded when it is next opened where "
+                    "it can be written)."
                 )
         ledger = cls(
             con,
