@@ -83,3 +83,13 @@ def test_group_decision_is_valued_by_hand(folder: Path) -> None:
 @pytest.mark.parametrize("by", ["direction", "reviewer", "root_cause", "size", "cycle"])
 def test_group_decision_is_valued_as_the_same_series_decisions(folder: Path, by: str) -> None:
     assert _overrides(folder, "grouped.sqlite", by) == _overrides(folder, "alone.sqlite", by)
+
+
+def test_history_shows_each_series_part_of_the_group(folder: Path) -> None:
+    done = run("history", str(folder / "grouped.sqlite"), "--item", "B", cwd=folder)
+    assert done.returncode == 0, done.stderr
+    # Event 1 is the group decision; B's part of it is event 3 (A 2, B 3, C 4, D 5).
+    (row,) = [line for line in done.stdout.splitlines() if line.lstrip().startswith("3 ")]
+    assert "Forward forecast adjusted (group #1)" in row and "1-2: =740" in row
+    alone = run("history", str(folder / "alone.sqlite"), "--item", "B", cwd=folder)
+    assert "group #" not in alone.stdout
