@@ -335,6 +335,9 @@ def _history_table(
             what = outcomes.get(e.outcome or "", e.outcome or "")
             cause = causes.get(e.root_cause or "", e.root_cause or "")
             version, adjustment = str(e.version), e.adjustment or ""
+        if not isinstance(e, AdjustmentEnd) and e.group_id:
+            # The series' part of a group decision or group undo (docs/ledger.md).
+            what += f" (group #{e.group_id})"
         note = visible(e.note)
         if len(note) > TABLE_NOTE_MAX:
             note = note[:TABLE_NOTE_MAX] + "…"

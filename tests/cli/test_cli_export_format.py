@@ -114,6 +114,7 @@ def test_export_names_columns_with_the_portfolios_headers(erp: Path) -> None:
         "adjusted",
         "adjusted_in_cycle",
         "outcome",
+        "group_decision",
     ]
     assert {(r[0], r[1]) for r in forecast[1:]} == set(FORECAST)  # keys byte-exact
     readme = (folder / "up-README.txt").read_text(encoding="utf-8")

@@ -158,7 +158,64 @@ def cmd_defaultpath(portfolio: str) -> None:
     say(json.dumps({"path": str(where), "notice": notice}))
 
 
+def record_group(ledger: Ledger, prefix: str, size: int) -> Any:
+    """A group decision on ``size`` new series ``<prefix>-0`` ... with 13 lines each."""
+    items = [f"{prefix}-{k}" for k in range(size)]
+    return ledger.record_group(
+        CYCLE,
+        columns=("family",),
+        key_values=(prefix,),
+        items=items,
+        locations=[""] * size,
+        expected_versions=[0] * size,
+        outcome="adjusted",
+        root_cause="promotion",
+        note="group",
+        reviewer=f"worker-{os.getpid()}",
+        portfolio_name="week47.csv",
+        portfolio_fingerprint="f" * 64,
+        adjustment="x1.1",
+        basis="forecasts",
+        periods=PERIODS,
+        original=[[100.0 + i for i in range(len(PERIODS))]] * size,
+        adjusted=[[110.0 + i for i in range(len(PERIODS))]] * size,
+    )
+
+
+def cmd_grouploop(path: str, prefix: str, size: str) -> None:
+    """Record group decisions until killed, acknowledging each after it returns."""
+    with Ledger.open(path) as ledger:
+        say("READY")
+        i = 0
+        while True:
+            record_group(ledger, f"{prefix}.{i}", int(size))
+            say("ACK", f"{prefix}.{i}")
+            i += 1
+
+
+def cmd_groupstall(path: str, prefix: str, size: str) -> None:
+    """Write a group decision and stop inside its transaction, after every row is written and
+    before COMMIT, until killed."""
+    from contextlib import contextmanager
+    from time import sleep
+
+    class Stalling(Ledger):
+        @contextmanager
+        def _writing(self, what: str) -> Any:
+            with super()._writing(what) as con:
+                yield con
+                rows = con.execute("SELECT count(*) FROM event").fetchone()[0]
+                say("INSIDE", rows)
+                sleep(60)
+
+    with Stalling.open(path) as ledger:
+        record_group(ledger, prefix, int(size))
+        say("COMMITTED")
+
+
 COMMANDS: dict[str, Callable[..., None]] = {
+    "grouploop": cmd_grouploop,
+    "groupstall": cmd_groupstall,
     "defaultpath": cmd_defaultpath,
     "loop": cmd_loop,
     "fsize": cmd_fsize,

@@ -448,10 +448,12 @@ def test_csv_round_trip_keeps_keys_numbers_and_neutralises_text(
         "adjusted",
         "adjusted_in_cycle",
         "outcome",
+        "group_decision",
     ]
     assert len(body) == len(series_keys()) * len(FORWARD)
     want = expected_adjusted(scenario)
-    for item, location, period, fc, adj, flag, made_in, _ in body:
+    for item, location, period, fc, adj, flag, made_in, _, group in body:
+        assert group == ""  # no group decision in this scenario
         # Keys byte-exact (never prefixed), numbers exact.
         cell = (item, location, period)
         assert cell in scenario["forecast"]
@@ -540,7 +542,7 @@ def test_xlsx_has_no_formula_and_keeps_keys_and_numbers(scenario: dict, tmp_path
     forecast = sheet_rows(book, "Forecast")
     want = expected_adjusted(scenario)
     assert len(forecast) == 1 + len(series_keys()) * len(FORWARD)
-    for item, location, period, fc, adj, flag, _, _ in forecast[1:]:
+    for item, location, period, fc, adj, flag, _, _, _ in forecast[1:]:
         cell = (item, location, period.date().isoformat())  # periods are date cells
         assert same_number(fc, scenario["forecast"][cell]), cell
         assert same_number(adj, want[cell]), cell
@@ -856,7 +858,7 @@ def test_libreoffice_reads_the_workbook_as_written(scenario: dict, tmp_path: Pat
     forecast = sheets["Forecast"]
     want_adj = expected_adjusted(scenario)
     assert len(forecast) == 1 + len(series_keys()) * len(FORWARD)
-    for item, location, period, fc, adj, flag, _, _ in forecast[1:]:
+    for item, location, period, fc, adj, flag, _, _, _ in forecast[1:]:
         cell = (item, location, period)
         assert lo_number(fc, scenario["forecast"][cell]), cell
         assert lo_number(adj, want_adj[cell]), cell

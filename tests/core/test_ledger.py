@@ -233,7 +233,7 @@ def test_schema_version_application_id_and_settings(path: Path, ledger: Ledger) 
     # PRAGMA semantics: https://sqlite.org/pragma.html (application_id, user_version,
     # journal_mode); why WAL + FULL, STRICT and foreign keys: docs/sources.md §4.1.
     assert con.execute("PRAGMA application_id").fetchone()[0] == APPLICATION_ID
-    assert con.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 2
+    assert con.execute("PRAGMA user_version").fetchone()[0] == SCHEMA_VERSION == 3
     assert con.execute("PRAGMA journal_mode").fetchone()[0] == "wal"
     strict = {r[1]: r[5] for r in con.execute("PRAGMA table_list") if r[2] == "table"}
     strict = {name: flag for name, flag in strict.items() if not name.startswith("sqlite_")}
@@ -243,6 +243,7 @@ def test_schema_version_application_id_and_settings(path: Path, ledger: Ledger) 
         "adjustment_end": 1,
         "worst_snapshot": 1,
         "worst_member": 1,
+        "group_decision": 1,
     }
     con.close()
     own = ledger._con
@@ -386,7 +387,7 @@ def test_v1_ledger_is_read_as_it_is_when_opened_read_only(v1: Path) -> None:
 def test_v1_ledger_is_migrated_in_place_keeping_every_row(v1: Path) -> None:
     before = _rows(v1)
     with Ledger.open(v1) as opened:
-        assert opened.schema_version == SCHEMA_VERSION == 2
+        assert opened.schema_version == SCHEMA_VERSION == 3
         history = opened.history()
         assert [e.id for e in history] == [1, 2, 3, 4]
         assert history[1].note == "=1+2 \x1b[31m"
@@ -401,9 +402,11 @@ def test_v1_ledger_is_migrated_in_place_keeping_every_row(v1: Path) -> None:
         assert end.id == 5
         later = decide(opened, "C", cycle=NEXT_CYCLE)
         assert later.id == 6
-    assert _user_version(v1) == 2
+    assert _user_version(v1) == SCHEMA_VERSION
     after = _rows(v1)
-    assert after["event"][:4] == before["event"]
+    # Schema 3 adds one column to ``event`` (group_id), NULL in every existing row.
+    assert [r[:-1] for r in after["event"][:4]] == before["event"]
+    assert [r[-1] for r in after["event"]] == [None] * 5
     assert after["event_line"] == before["event_line"]
     con = raw(v1)
     assert con.execute("PRAGMA integrity_check").fetchone()[0] == "ok"
@@ -430,7 +433,7 @@ def test_v1_migration_is_one_transaction(v1: Path, monkeypatch) -> None:
     assert tables == {"event", "event_line"}
     monkeypatch.undo()
     with Ledger.open(v1) as opened:
-        assert opened.schema_version == 2 and len(opened.history()) == 4
+        assert opened.schema_version == SCHEMA_VERSION and len(opened.history()) == 4
 
 
 def _adjust(ledger: Ledger, item: str = "A", *, cycle: str = CYCLE, version: int = 0):

@@ -121,6 +121,68 @@ def test_kill9_during_writes_loses_no_acknowledged_decision(tmp_path: Path) -> N
     assert trials_with_acks >= 10 and len(acknowledged) > 20, (trials_with_acks, len(acknowledged))
 
 
+# ---- kill -9 inside a group decision ---------------------------------------------------------
+
+
+def _groups(path: Path) -> dict[str, tuple[int, int]]:
+    """Per group key: its member events and lines as the file holds them."""
+    con = sqlite3.connect(path)
+    try:
+        rows = con.execute(
+            "SELECT g.key_values, (SELECT count(*) FROM event AS e WHERE e.group_id = g.id),"
+            " (SELECT count(*) FROM event_line AS l JOIN event AS e ON e.id = l.event_id"
+            "  WHERE e.group_id = g.id) FROM group_decision AS g"
+        ).fetchall()
+    finally:
+        con.close()
+    return {json.loads(keys)[0]: (events, lines) for keys, events, lines in rows}
+
+
+def test_kill9_inside_a_group_decision_saves_none_of_it(tmp_path: Path) -> None:
+    # docs/ledger.md, "Group decisions": one transaction, all or nothing. The writer is stopped
+    # after every row of the group is written and before COMMIT, then killed.
+    path = tmp_path / "triage-ledger.sqlite"
+    seed_ledger(path, ["before"])
+    child = spawn("groupstall", path, "g", 300)
+    assert child.stdout is not None and child.stderr is not None
+    line = child.stdout.readline().split()
+    assert line[0] == "INSIDE", child.stderr.read()
+    assert int(line[1]) == 1 + 300  # the seed and the group's 300 events, not committed
+    os.kill(child.pid, signal.SIGKILL)
+    child.communicate(timeout=10)
+    assert child.returncode == -signal.SIGKILL
+    with Ledger.open(path) as ledger:
+        assert [e.item for e in ledger.history()] == ["before"]
+        assert ledger.group_decisions() == []
+    assert integrity(path) == ["ok"] and _groups(path) == {}
+
+
+def test_kill9_during_group_decisions_leaves_each_whole_or_absent(tmp_path: Path) -> None:
+    # As the series kill test above, with group decisions of 200 series x 13 lines each.
+    path = tmp_path / "crash.ledger.sqlite"
+    rng = random.Random(20261130)
+    acknowledged: set[str] = set()
+    for trial in range(10):
+        child = spawn("grouploop", path, f"t{trial}", 200)
+        assert child.stdout is not None and child.stderr is not None
+        assert child.stdout.readline().strip() == "READY", child.stderr
+        time.sleep(rng.uniform(0.01, 0.3))
+        os.kill(child.pid, signal.SIGKILL)
+        out = child.stdout.read()
+        child.stderr.read()
+        child.wait(timeout=10)
+        acknowledged.update(acked(out))
+        with Ledger.open(path):  # reopened without any repair step
+            pass
+        assert integrity(path) == ["ok"], trial
+        found = _groups(path)
+        assert acknowledged <= set(found), trial
+        # Every group in the file is whole: 200 events and 200 x 13 lines, never part of one.
+        assert set(found.values()) <= {(200, 200 * 13)}, trial
+        assert len({k for k in found if k.startswith(f"t{trial}.")} - acknowledged) <= 1
+    assert len(acknowledged) >= 5, acknowledged
+
+
 # ---- full disk --------------------------------------------------------------------------------
 
 

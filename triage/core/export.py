@@ -107,6 +107,7 @@ _KIND_OF: dict[str, str] = {
     LOCATION: KEY,
     "cycle": FIXED,
     "adjusted_in_cycle": FIXED,
+    "group_decision": FIXED,
     "period": DATE,
     **dict.fromkeys(_NUMBERS, NUMBER),
     "adjusted": FLAG,
@@ -283,6 +284,7 @@ def review_tables(
     line_period = pd.Index([ln.period for d in kept for ln in d.lines], dtype=object)
     line_orig = _floats(ln.original for d in kept for ln in d.lines)
     line_adj = _floats(ln.adjusted for d in kept for ln in d.lines)
+    line_group = np.array([d.group_id or 0 for d in kept for _ in d.lines], dtype=np.int64)
     # ---- precision (triage.core.rounding): the ledger keeps what was decided, files get this
     decimals = decimals_for(rounding, portfolio.forecast[:, first_fwd:])
     line_adj = round_half_away(line_adj, decimals)
@@ -342,6 +344,9 @@ def review_tables(
     # a new cycle"): applied where this cycle's own decisions did not adjust the period.
     made_in = np.zeros(forward.shape, dtype=np.int16)  # 0: not adjusted, 1: this cycle
     made_in[rows, cols] = 1
+    # The group decision each adjusted cell comes from, 0 for a series' own decision or none.
+    group_in = np.zeros(forward.shape, dtype=np.int64)
+    group_in[rows, cols] = line_group[applies]
     carried_lines = review.carried_lines
     carried_lines = carried_lines.loc[carried_lines["standing"].to_numpy(dtype=bool)]
     c_rows = carried_lines["series"].to_numpy(dtype=np.int64)
@@ -357,6 +362,7 @@ def review_tables(
         flag[a_rows, a_cols] = True
         code = {c: i + 1 for i, c in enumerate(made_cycles)}
         made_in[a_rows, a_cols] = applied["cycle"].astype(str).map(code).to_numpy(np.int16)
+        group_in[a_rows, a_cols] = applied["group_decision"].to_numpy(dtype=np.int64)
     warnings.extend(_carried_warnings(portfolio, carried_lines, applied, already, replaced_now))
     # Every adjusted cell at the export's precision, whichever cycle's decision it comes from.
     adjusted_fc[flag] = round_half_away(adjusted_fc[flag], decimals)
@@ -378,6 +384,14 @@ def review_tables(
         made_in.ravel(), categories=["", *made_cycles]
     )
     forecast_cols["outcome"] = np.repeat(outcome_of, n_fwd)
+    # One small code per cell, as adjusted_in_cycle; no sort when no group decision is in.
+    groups_used, group_codes = np.zeros(1, np.int64), np.zeros(group_in.size, np.int64)
+    if group_in.any():
+        groups_used, group_codes = np.unique(group_in.ravel(), return_inverse=True)
+    forecast_cols["group_decision"] = pd.Categorical.from_codes(
+        group_codes.astype(np.int32).ravel(),
+        categories=[str(g) if g else "" for g in groups_used.tolist()],
+    )
     # copy=False: the columns are fresh arrays already; at a million series each copy is ~100 MB.
     forecast = pd.DataFrame(
         {k: pd.Series(v, copy=False) for k, v in forecast_cols.items()},
@@ -412,6 +426,7 @@ def review_tables(
             "value_change": value_change,
             "portfolio_name": [d.portfolio_name for d in kept],
             "portfolio_fingerprint": [d.portfolio_fingerprint for d in kept],
+            "group_decision": [str(d.group_id) if d.group_id else "" for d in kept],
         }
     )
     decisions = pd.DataFrame(

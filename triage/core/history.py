@@ -243,6 +243,7 @@ def adjustment_lines(portfolio: Portfolio, log: DecisionLog) -> pd.DataFrame:
 
     One row per (decision, period): ``event_id``, ``cycle``, ``item``, ``location``,
     ``reviewer``, ``root_cause``, ``adjustment``, ``period``, ``original``, ``adjusted``,
+    ``group_decision`` (the group decision the line is part of, 0 when none),
     ``series`` (portfolio position, -1 if absent), ``column`` (calendar column, -1 if off the
     calendar), ``actual`` (NaN unless realised) and ``status`` (one of ``LINE_STATUSES``).
     The join to the portfolio is one vectorised lookup for the keys and one for the periods.
@@ -273,6 +274,11 @@ def adjustment_lines(portfolio: Portfolio, log: DecisionLog) -> pd.DataFrame:
             "period": np.array([ln.period for d in decisions for ln in d.lines], dtype=object),
             "original": np.array([_float(ln.original) for d in decisions for ln in d.lines]),
             "adjusted": np.array([_float(ln.adjusted) for d in decisions for ln in d.lines]),
+            # The group decision a line is a series' part of (its ledger id), 0 for a series
+            # decision's own line (docs/ledger.md, "Group decisions").
+            "group_decision": np.repeat(
+                np.array([d.group_id or 0 for d in decisions], dtype=np.int64), counts
+            ),
         }
     )
     series = series_positions(portfolio, frame[schema.ITEM], frame[schema.LOCATION])
@@ -849,6 +855,7 @@ CARRIED_LINE_COLUMNS: tuple[str, ...] = (
     "standing",
     "in_forecast",
     "forecast_changed",
+    "group_decision",
 )
 
 

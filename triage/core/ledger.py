@@ -23,6 +23,7 @@ from __future__ import annotations
 
 import hashlib
 import itertools
+import json
 import math
 import operator
 import os
@@ -194,6 +195,9 @@ class Event:
     """Digest of that portfolio's content, as supplied by the caller."""
     lines: tuple[Line, ...] = ()
     """Forward periods of the adjustment, by period; empty without one."""
+    group_id: int | None = None
+    """The group decision (or group undo) this event is one series' part of
+    (``GroupRecord.id``); None for a series-level event."""
 
 
 @dataclass(frozen=True)
@@ -228,6 +232,8 @@ class Decision:
     """Digest of the portfolio's content."""
     lines: tuple[Line, ...] = ()
     """Forward periods of the adjustment."""
+    group_id: int | None = None
+    """The group decision this decision is one series' part of; None for a series decision."""
 
 
 @dataclass(frozen=True)
@@ -258,6 +264,56 @@ class AdjustmentEnd:
     """File name of the portfolio under review then."""
     portfolio_fingerprint: str
     """Digest of that portfolio's content."""
+
+
+@dataclass(frozen=True)
+class GroupRecord:
+    """One row of the ``group_decision`` journal: a decision on a group of series, or its undo.
+
+    The group's part for each series is an ordinary ``event`` row (with its lines) whose
+    ``group_id`` names this record; ``items``, ``locations``, ``event_ids`` and ``versions`` list
+    them in the order they were written.
+    """
+
+    id: int
+    """Journal position (one sequence with ``Event.id``); the member events follow it."""
+    kind: str
+    """``"decision"`` or ``"undo"``."""
+    undoes: int | None
+    """For an undo, the id of the group decision it reverts; None for a decision."""
+    cycle: str
+    """Review cycle."""
+    columns: tuple[str, ...]
+    """The grouping columns (``location`` or attribute columns)."""
+    key_values: tuple[str, ...]
+    """The group's value of each grouping column."""
+    outcome: str | None
+    """Outcome code; None for an undo."""
+    root_cause: str | None
+    """Root-cause code; None for an undo."""
+    note: str
+    """Free text, ``""`` when none."""
+    adjustment: str | None
+    """The adjustment of the group's total, canonical text; None without one."""
+    basis: str | None
+    """How an absolute adjustment was split (``"forecasts"`` or ``"history"``); None without an
+    adjustment."""
+    reviewer: str
+    """Who recorded it."""
+    recorded_at: str
+    """When it was committed, UTC ISO 8601 with ``Z``."""
+    portfolio_name: str
+    """File name of the portfolio."""
+    portfolio_fingerprint: str
+    """Digest of the portfolio's content."""
+    items: tuple[str, ...] = ()
+    """Items of the series it wrote an event for, in order."""
+    locations: tuple[str, ...] = ()
+    """Their locations, ``""`` where none."""
+    event_ids: tuple[int, ...] = ()
+    """Their event ids."""
+    versions: tuple[int, ...] = ()
+    """Their new versions in the cycle."""
 
 
 @dataclass(frozen=True)
@@ -485,8 +541,97 @@ def _migrate_to_v2(con: sqlite3.Connection) -> None:
         con.execute(statement)
 
 
+# Version 3 adds group decisions: one ``group_decision`` row (who, when, the outcome, root cause,
+# note, the adjustment of the group's total and how it was split, the grouping columns and the
+# group's key values) and one ordinary ``event`` row per series of the group, with its lines,
+# whose new ``group_id`` names it; all in one transaction. An undo of the group is a
+# ``group_decision`` row of kind 'undo' with one undo event per series it reverts. The new column
+# is added (``ALTER TABLE ... ADD COLUMN``, NULL in every existing row): no row is copied,
+# changed or moved. Positions continue the one journal sequence.
+_SCHEMA_V3 = """
+CREATE TABLE group_decision (
+    id INTEGER PRIMARY KEY,
+    kind TEXT NOT NULL CHECK (kind IN ('decision', 'undo')),
+    undoes INTEGER UNIQUE REFERENCES group_decision (id),
+    cycle TEXT NOT NULL CHECK (cycle GLOB '[0-9][0-9][0-9][0-9]-[0-9][0-9]-[0-9][0-9]'),
+    columns TEXT NOT NULL CHECK (json_valid(columns) AND json_type(columns) = 'array'),
+    key_values TEXT NOT NULL CHECK (json_valid(key_values) AND json_type(key_values) = 'array'),
+    outcome TEXT,
+    root_cause TEXT,
+    note TEXT NOT NULL,
+    adjustment TEXT,
+    basis TEXT CHECK (basis IN ('forecasts', 'history')),
+    reviewer TEXT NOT NULL CHECK (reviewer <> ''),
+    recorded_at TEXT NOT NULL,
+    portfolio_name TEXT NOT NULL,
+    portfolio_fingerprint TEXT NOT NULL,
+    CHECK (json_array_length(columns) = json_array_length(key_values)),
+    CHECK (
+        (kind = 'decision' AND undoes IS NULL AND outcome IS NOT NULL AND root_cause IS NOT NULL
+         AND (adjustment IS NULL) = (basis IS NULL))
+        OR (kind = 'undo' AND undoes IS NOT NULL AND outcome IS NULL AND root_cause IS NULL
+            AND adjustment IS NULL AND basis IS NULL)
+    )
+) STRICT;
+
+ALTER TABLE event ADD COLUMN group_id INTEGER REFERENCES group_decision (id);
+
+CREATE INDEX event_by_group ON event (group_id) WHERE group_id IS NOT NULL;
+
+CREATE TRIGGER group_decision_no_update BEFORE UPDATE ON group_decision
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: group decisions cannot be changed');
+END;
+CREATE TRIGGER group_decision_no_delete BEFORE DELETE ON group_decision
+BEGIN SELECT RAISE(ABORT, 'the decision ledger is append-only: group decisions cannot be deleted');
+END;
+
+-- One journal across the three tables.
+CREATE TRIGGER group_decision_next_id BEFORE INSERT ON group_decision
+WHEN NEW.id < 1
+  OR NEW.id <= (SELECT coalesce(max(id), 0) FROM event)
+  OR NEW.id <= (SELECT coalesce(max(id), 0) FROM adjustment_end)
+  OR NEW.id <= (SELECT coalesce(max(id), 0) FROM group_decision)
+BEGIN SELECT RAISE(ABORT, 'a journal position must follow the latest one'); END;
+CREATE TRIGGER event_after_group BEFORE INSERT ON event
+WHEN NEW.id <= (SELECT coalesce(max(id), 0) FROM group_decision)
+BEGIN SELECT RAISE(ABORT, 'a journal position must follow the latest one'); END;
+CREATE TRIGGER adjustment_end_after_group BEFORE INSERT ON adjustment_end
+WHEN NEW.id <= (SELECT coalesce(max(id), 0) FROM group_decision)
+BEGIN SELECT RAISE(ABORT, 'a journal position must follow the latest one'); END;
+
+-- A group undo reverts a group decision of its cycle.
+CREATE TRIGGER group_undo_target BEFORE INSERT ON group_decision
+WHEN NEW.kind = 'undo' AND NOT EXISTS (
+    SELECT 1 FROM group_decision AS g
+    WHERE g.id = NEW.undoes AND g.kind = 'decision' AND g.cycle = NEW.cycle)
+BEGIN SELECT RAISE(ABORT, 'a group undo must revert a group decision of the same cycle'); END;
+
+-- A series' part of a group decision carries the group's cycle, outcome, root cause and
+-- adjustment; its part of a group undo reverts that series' part of the undone decision.
+CREATE TRIGGER event_group_part BEFORE INSERT ON event
+WHEN NEW.group_id IS NOT NULL AND NOT EXISTS (
+    SELECT 1 FROM group_decision AS g
+    WHERE g.id = NEW.group_id AND g.cycle = NEW.cycle AND g.kind = NEW.kind
+      AND (g.kind = 'undo' OR (NEW.outcome = g.outcome AND NEW.root_cause = g.root_cause
+                               AND NEW.adjustment IS g.adjustment))
+      AND (g.kind = 'decision' OR EXISTS (
+          SELECT 1 FROM event AS d WHERE d.id = NEW.undoes AND d.group_id = g.undoes)))
+BEGIN SELECT RAISE(ABORT, 'an event of a group must match its group decision'); END;
+"""
+
+
+def _migrate_to_v3(con: sqlite3.Connection) -> None:
+    """Add the group decisions (a new table and a NULL column on ``event``; no row moves)."""
+    for statement in _split_sql(_SCHEMA_V3):
+        con.execute(statement)
+
+
 #: ``MIGRATIONS[i]`` brings a ledger from schema version ``i`` to ``i + 1``. Append only.
-MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [_migrate_to_v1, _migrate_to_v2]
+MIGRATIONS: list[Callable[[sqlite3.Connection], None]] = [
+    _migrate_to_v1,
+    _migrate_to_v2,
+    _migrate_to_v3,
+]
 #: Schema version written by this code (``PRAGMA user_version``).
 SCHEMA_VERSION = len(MIGRATIONS)
 
@@ -912,6 +1057,70 @@ def _checked_row_fields(
     )
 
 
+def _check_members(
+    items: Sequence[str], locations: Sequence[str], expected: Sequence[int]
+) -> list[tuple[str, str, int]]:
+    """A group's series and the versions expected of them, each series once."""
+    if not (len(items) == len(locations) == len(expected)):
+        raise DecisionError(
+            f"{len(items)} items, {len(locations)} locations and {len(expected)} versions given"
+        )
+    if not items:
+        raise DecisionError("a group decision needs at least one series")
+    members = [
+        (
+            _check_text(item, "item", allow_empty=False),
+            _check_text(location, "location", allow_empty=True),
+            _check_version(version),
+        )
+        for item, location, version in zip(items, locations, expected, strict=True)
+    ]
+    if len({(m[0], m[1]) for m in members}) != len(members):
+        raise DecisionError("a series is given twice in the group")
+    return members
+
+
+def _check_group_lines(
+    periods: Sequence[str],
+    original: Sequence[Sequence[float | None]],
+    adjusted: Sequence[Sequence[float | None]],
+    members: Sequence[object],
+    adjustment: str | None,
+) -> list[tuple[int, str, float | None, float | None]]:
+    """``(member position, period, original, adjusted)`` rows of a group decision's lines."""
+    dates = [_check_date(p, "adjustment period") for p in periods]
+    if len(set(dates)) != len(dates):
+        raise DecisionError("an adjustment period is given twice")
+    if (adjustment is None) != (not dates):
+        raise DecisionError("adjustment lines go with an adjustment, and an adjustment has some")
+    if not dates:
+        return []
+    if len(original) != len(members) or len(adjusted) != len(members):
+        raise DecisionError(
+            f"{len(members)} series but {len(original)} rows of original and {len(adjusted)} "
+            "rows of adjusted values"
+        )
+    out: list[tuple[int, str, float | None, float | None]] = []
+    for k, (before, after) in enumerate(zip(original, adjusted, strict=True)):
+        if len(before) != len(dates) or len(after) != len(dates):
+            raise DecisionError(f"series {k + 1} of the group has not one value per period")
+        for period, o, a in zip(dates, before, after, strict=True):
+            out.append(
+                (
+                    k,
+                    period,
+                    _number(o, f"original forecast for {period}"),
+                    _number(a, f"adjusted forecast for {period}"),
+                )
+            )
+    return out
+
+
+def _json_list(values: Sequence[str]) -> str:
+    """Text values as a JSON array, exactly (any Unicode, control characters escaped)."""
+    return json.dumps(list(values), ensure_ascii=False)
+
+
 def _check_version(value: object) -> int:
     if isinstance(value, bool) or not isinstance(value, int) or value < 0:
         raise DecisionError(f"expected_version must be a whole number >= 0, not {value!r}")
@@ -1117,11 +1326,15 @@ class Ledger:
             if info.immutable and info.wal_bytes:
                 notice += " Decisions saved moments ago by another session may be missing."
             if info.user_version < SCHEMA_VERSION:
+                later = (
+                    "group decisions"
+                    if info.user_version >= 2
+                    else ("ended adjustments, worst-set snapshots and group decisions")
+                )
                 notice += (
-                    f" It has ledger schema {info.user_version} and is read as it is (ended "
-                    "adjustments and worst-set snapshots need schema "
-                    f"{SCHEMA_VERSION}; it is upgraded when it is next opened where it can be "
-                    "written)."
+                    f" It has ledger schema {info.user_version} and is read as it is ({later} "
+                    f"need schema {SCHEMA_VERSION}; it is upgraded when it is next opened where "
+                    "it can be written)."
                 )
         ledger = cls(
             con,
@@ -1406,6 +1619,309 @@ class Ledger:
             portfolio_fingerprint,
             (),
         )
+
+    def record_group(
+        self,
+        cycle: str,
+        *,
+        columns: Sequence[str],
+        key_values: Sequence[str],
+        items: Sequence[str],
+        locations: Sequence[str],
+        expected_versions: Sequence[int],
+        outcome: str,
+        root_cause: str,
+        note: str,
+        reviewer: str,
+        portfolio_name: str,
+        portfolio_fingerprint: str,
+        adjustment: str | None = None,
+        basis: str | None = None,
+        periods: Sequence[str] = (),
+        original: Sequence[Sequence[float | None]] = (),
+        adjusted: Sequence[Sequence[float | None]] = (),
+    ) -> GroupRecord:
+        """Save one decision on a group of series, all or nothing; returns after the commit.
+
+        One ``group_decision`` row and, for each series, an ordinary decision event naming it
+        (``group_id``) with the series' lines: a series shows the group decision as its
+        effective decision until a later decision of its own (or an undo) replaces it.
+
+        Args:
+            cycle: Review cycle.
+            columns: The grouping columns.
+            key_values: The group's value of each grouping column.
+            items: Items of the group's series.
+            locations: Their locations (``""`` where none).
+            expected_versions: Each series' version the reviewer last saw (0 if none).
+            outcome: Outcome code, the same for every series.
+            root_cause: Root-cause code.
+            note: Free text, up to ``NOTE_MAX`` characters.
+            reviewer: Who decides.
+            portfolio_name: File name of the portfolio.
+            portfolio_fingerprint: Digest of the portfolio's content.
+            adjustment: The adjustment of the group's total, canonical text; required when (and
+                only when) the outcome is ``"adjusted"``.
+            basis: How an absolute adjustment was split (``"forecasts"`` or ``"history"``);
+                given with an adjustment only.
+            periods: ISO dates of the adjusted periods (the lines' periods).
+            original: Series x periods forecast before (None or NaN where missing).
+            adjusted: Series x periods forecast after (the split).
+
+        Raises:
+            DecisionError: A field is not acceptable.
+            StaleDecisionError: Another session changed one of the series; nothing was saved.
+            LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was saved.
+        """
+        self._check_writable("group decision")
+        cycle = _check_date(cycle, "cycle")
+        outcome = _check_code(outcome, OUTCOMES, "outcome")
+        root_cause = _check_code(root_cause, self.root_causes, "root cause")
+        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
+        reviewer = _check_reviewer(reviewer)
+        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
+        portfolio_fingerprint = _check_text(
+            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        )
+        names = [_check_text(c, "grouping column", allow_empty=False) for c in columns]
+        values = [_check_text(v, "group key value", allow_empty=True) for v in key_values]
+        if not names or len(names) != len(values) or len(set(names)) != len(names):
+            raise DecisionError(
+                f"a group needs one key value per grouping column, each column once "
+                f"(columns {names!r}, values {values!r})"
+            )
+        members = _check_members(items, locations, expected_versions)
+        if adjustment is not None:
+            adjustment = _check_text(adjustment, "adjustment", allow_empty=False)
+        if (outcome == ADJUSTED) != (adjustment is not None):
+            raise DecisionError(
+                "an adjustment goes with the outcome 'adjusted' and only with it "
+                f"(outcome {outcome!r}, adjustment {adjustment!r})"
+            )
+        if (basis is not None) != (adjustment is not None) or basis not in (
+            None,
+            "forecasts",
+            "history",
+        ):
+            raise DecisionError(
+                f"the split basis must be 'forecasts' or 'history', given with an adjustment "
+                f"only (basis {basis!r})"
+            )
+        line_rows = _check_group_lines(periods, original, adjusted, members, adjustment)
+        with self._writing("group decision") as con:
+            self._claim_versions(con, cycle, members)
+            position = _next_position(con)
+            recorded_at = _utc_now()
+            con.execute(
+                "INSERT INTO group_decision (id, kind, undoes, cycle, columns, key_values, outcome,"
+                " root_cause, note, adjustment, basis, reviewer, recorded_at, portfolio_name,"
+                " portfolio_fingerprint) VALUES (?, 'decision', NULL, ?, ?, ?, ?, ?, ?, ?, ?, ?,"
+                " ?, ?, ?)",
+                (
+                    position,
+                    cycle,
+                    _json_list(names),
+                    _json_list(values),
+                    outcome,
+                    root_cause,
+                    note,
+                    adjustment,
+                    basis,
+                    reviewer,
+                    recorded_at,
+                    portfolio_name,
+                    portfolio_fingerprint,
+                ),
+            )
+            ids = range(position + 1, position + 1 + len(members))
+            con.executemany(
+                "INSERT INTO event (id, cycle, item, location, version, kind, undoes, outcome, "
+                "root_cause, note, adjustment, reviewer, recorded_at, portfolio_name, "
+                "portfolio_fingerprint, group_id) VALUES (?, ?, ?, ?, ?, 'decision', NULL, ?, ?,"
+                " ?, ?, ?, ?, ?, ?, ?)",
+                [
+                    (
+                        event_id,
+                        cycle,
+                        item,
+                        location,
+                        version + 1,
+                        outcome,
+                        root_cause,
+                        note,
+                        adjustment,
+                        reviewer,
+                        recorded_at,
+                        portfolio_name,
+                        portfolio_fingerprint,
+                        position,
+                    )
+                    for event_id, (item, location, version) in zip(ids, members, strict=True)
+                ],
+            )
+            con.executemany(
+                "INSERT INTO event_line (event_id, period, original, adjusted) VALUES (?, ?, ?, ?)",
+                ((position + 1 + k, period, o, a) for k, period, o, a in line_rows),
+            )
+        return GroupRecord(
+            position,
+            DECISION,
+            None,
+            cycle,
+            tuple(names),
+            tuple(values),
+            outcome,
+            root_cause,
+            note,
+            adjustment,
+            basis,
+            reviewer,
+            recorded_at,
+            portfolio_name,
+            portfolio_fingerprint,
+            items=tuple(m[0] for m in members),
+            locations=tuple(m[1] for m in members),
+            event_ids=tuple(ids),
+            versions=tuple(m[2] + 1 for m in members),
+        )
+
+    def undo_group(
+        self,
+        cycle: str,
+        group_id: int,
+        *,
+        reviewer: str,
+        portfolio_name: str,
+        portfolio_fingerprint: str,
+        note: str = "",
+    ) -> GroupRecord:
+        """Undo a group decision whole: one group undo and an undo event for each series whose
+        part of it is not undone yet, all or nothing.
+
+        A series whose part a later decision of its own has replaced keeps that decision (its
+        part is undone under it, so undoing the later decision does not bring the group's
+        back); every other series reverts to the decision it had before the group's. The
+        undo names the group decision, so no version is expected: what it does does not depend
+        on what other sessions wrote meanwhile.
+
+        Raises:
+            DecisionError: ``group_id`` is not a group decision of ``cycle``, or it is undone.
+            LedgerBusyError, LedgerWriteError, LedgerReadOnlyError: nothing was saved.
+        """
+        self._check_writable("undo of the group decision")
+        cycle = _check_date(cycle, "cycle")
+        reviewer = _check_reviewer(reviewer)
+        note = _check_text(note, "note", allow_empty=True, limit=NOTE_MAX)
+        portfolio_name = _check_text(portfolio_name, "portfolio name", allow_empty=True)
+        portfolio_fingerprint = _check_text(
+            portfolio_fingerprint, "portfolio fingerprint", allow_empty=True
+        )
+        group_id = _check_id(group_id, "group decision")
+        if self.schema_version < 3:
+            raise DecisionError(f"ledger entry #{group_id} is not a group decision")
+        with self._write("undo of the group decision") as con:
+            row = con.execute(
+                "SELECT kind, cycle, columns, key_values FROM group_decision WHERE id = ?",
+                (group_id,),
+            ).fetchone()
+            if row is None or row[0] != DECISION or row[1] != cycle:
+                raise DecisionError(
+                    f"ledger entry #{group_id} is not a group decision of cycle {cycle}"
+                )
+            done = con.execute(
+                "SELECT reviewer, recorded_at FROM group_decision WHERE undoes = ?", (group_id,)
+            ).fetchone()
+            if done is not None:
+                raise DecisionError(
+                    f"the group decision #{group_id} was already undone by {done[0]!r} at {done[1]}"
+                )
+            parts = con.execute(
+                "SELECT d.id, d.item, d.location, (SELECT max(v.version) FROM event AS v"
+                " WHERE v.cycle = d.cycle AND v.item = d.item AND v.location = d.location)"
+                " FROM event AS d WHERE d.group_id = ? AND d.kind = 'decision'"
+                " AND NOT EXISTS (SELECT 1 FROM event AS u WHERE u.undoes = d.id) ORDER BY d.id",
+                (group_id,),
+            ).fetchall()
+            position = _next_position(con)
+            recorded_at = _utc_now()
+            con.execute(
+                "INSERT INTO group_decision (id, kind, undoes, cycle, columns, key_values, outcome,"
+                " root_cause, note, adjustment, basis, reviewer, recorded_at, portfolio_name,"
+                " portfolio_fingerprint) VALUES (?, 'undo', ?, ?, ?, ?, NULL, NULL, ?, NULL, NULL,"
+                " ?, ?, ?, ?)",
+                (
+                    position,
+                    group_id,
+                    cycle,
+                    row[2],
+                    row[3],
+                    note,
+                    reviewer,
+                    recorded_at,
+                    portfolio_name,
+                    portfolio_fingerprint,
+                ),
+            )
+            con.executemany(
+                "INSERT INTO event (id, cycle, item, location, version, kind, undoes, outcome, "
+                "root_cause, note, adjustment, reviewer, recorded_at, portfolio_name, "
+                "portfolio_fingerprint, group_id) VALUES (?, ?, ?, ?, ?, 'undo', ?, NULL, NULL,"
+                " ?, NULL, ?, ?, ?, ?, ?)",
+                [
+                    (
+                        position + 1 + k,
+                        cycle,
+                        item,
+                        location,
+                        int(version) + 1,
+                        target,
+                        note,
+                        reviewer,
+                        recorded_at,
+                        portfolio_name,
+                        portfolio_fingerprint,
+                        position,
+                    )
+                    for k, (target, item, location, version) in enumerate(parts)
+                ],
+            )
+        return GroupRecord(
+            position,
+            UNDO,
+            group_id,
+            cycle,
+            tuple(json.loads(row[2])),
+            tuple(json.loads(row[3])),
+            None,
+            None,
+            note,
+            None,
+            None,
+            reviewer,
+            recorded_at,
+            portfolio_name,
+            portfolio_fingerprint,
+            items=tuple(p[1] for p in parts),
+            locations=tuple(p[2] for p in parts),
+            event_ids=tuple(range(position + 1, position + 1 + len(parts))),
+            versions=tuple(int(p[3]) + 1 for p in parts),
+        )
+
+    def _claim_versions(
+        self, con: sqlite3.Connection, cycle: str, members: Sequence[tuple[str, str, int]]
+    ) -> None:
+        """StaleDecisionError when a member's version is not the one expected (in the write)."""
+        current = {
+            (item, location): int(version)
+            for item, location, version in con.execute(
+                "SELECT item, location, max(version) FROM event WHERE cycle = ?"
+                " GROUP BY item, location",
+                (cycle,),
+            )
+        }
+        for item, location, expected in members:
+            if current.get((item, location), 0) != expected:
+                self._claim_version(con, cycle, item, location, expected)
 
     def end_adjustment(
         self,
@@ -1801,6 +2317,11 @@ class Ledger:
             except sqlite3.Error as exc:
                 raise _translate(exc, self.path) from exc
 
+    @property
+    def _event_columns(self) -> str:
+        """``_EVENT_COLUMNS`` and the group id (NULL in a ledger older than schema 3)."""
+        return _EVENT_COLUMNS + (", group_id" if self.schema_version >= 3 else ", NULL")
+
     def version(self, cycle: str, item: str, location: str) -> int:
         """The series' latest event version in the cycle (decisions and undos), 0 if none."""
         with self._read() as con:
@@ -1825,7 +2346,7 @@ class Ledger:
         """The effective decision of every series in the cycle, sorted by item and location."""
         with self._read() as con:
             rows = con.execute(
-                _EFFECTIVE + f"SELECT {_EVENT_COLUMNS} FROM effective WHERE newest = 1"
+                _EFFECTIVE + f"SELECT {self._event_columns} FROM effective WHERE newest = 1"
                 " ORDER BY item, location",
                 {"cycle": cycle},
             ).fetchall()
@@ -1852,6 +2373,7 @@ class Ledger:
                 portfolio_name=r[13],
                 portfolio_fingerprint=r[14],
                 lines=lines.get(r[0], ()),
+                group_id=r[15],
             )
             for r in rows
         ]
@@ -1869,7 +2391,7 @@ class Ledger:
         clause = f" WHERE {' AND '.join(where)}" if where else ""
         with self._read() as con:
             rows = con.execute(
-                f"SELECT {_EVENT_COLUMNS} FROM event{clause} ORDER BY id", params
+                f"SELECT {self._event_columns} FROM event{clause} ORDER BY id", params
             ).fetchall()
             lines = self._lines(
                 con,
@@ -1965,6 +2487,52 @@ class Ledger:
             for h in heads
         }
 
+    def group_decisions(self, cycle: str | None = None) -> list[GroupRecord]:
+        """Every group decision and group undo (of one cycle when given), oldest first, each
+        with the series it wrote an event for. Empty for a ledger older than schema 3."""
+        if self.schema_version < 3:
+            return []
+        clause, params = (" WHERE cycle = ?", (cycle,)) if cycle is not None else ("", ())
+        with self._read() as con:
+            heads = con.execute(
+                "SELECT id, kind, undoes, cycle, columns, key_values, outcome, root_cause, note,"
+                " adjustment, basis, reviewer, recorded_at, portfolio_name, portfolio_fingerprint"
+                f" FROM group_decision{clause} ORDER BY id",
+                params,
+            ).fetchall()
+            parts: dict[int, list[tuple[str, str, int, int]]] = {h[0]: [] for h in heads}
+            rows = con.execute(
+                "SELECT group_id, item, location, id, version FROM event WHERE group_id IN"
+                f" (SELECT id FROM group_decision{clause}) ORDER BY id",
+                params,
+            )
+            for group_id, item, location, event_id, version in rows:
+                parts[group_id].append((item, location, event_id, version))
+        return [
+            GroupRecord(
+                id=h[0],
+                kind=h[1],
+                undoes=h[2],
+                cycle=h[3],
+                columns=tuple(json.loads(h[4])),
+                key_values=tuple(json.loads(h[5])),
+                outcome=h[6],
+                root_cause=h[7],
+                note=h[8],
+                adjustment=h[9],
+                basis=h[10],
+                reviewer=h[11],
+                recorded_at=h[12],
+                portfolio_name=h[13],
+                portfolio_fingerprint=h[14],
+                items=tuple(p[0] for p in parts[h[0]]),
+                locations=tuple(p[1] for p in parts[h[0]]),
+                event_ids=tuple(p[2] for p in parts[h[0]]),
+                versions=tuple(p[3] for p in parts[h[0]]),
+            )
+            for h in heads
+        ]
+
     def cycles(self) -> list[str]:
         """Review cycles with at least one event, oldest first."""
         with self._read() as con:
@@ -2011,6 +2579,7 @@ def _event(row: Sequence[Any], lines: tuple[Line, ...]) -> Event:
         portfolio_name=row[13],
         portfolio_fingerprint=row[14],
         lines=lines,
+        group_id=row[15],
     )
 
 

@@ -12,17 +12,18 @@ from __future__ import annotations
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from functools import cached_property
 from typing import Protocol
 
 import numpy as np
 import pandas as pd
 
-from triage.core import adjust, compare, history, schema, vocabulary
+from triage.core import adjust, compare, history, rounding, schema, split, vocabulary
 from triage.core import ledger as ledger_mod
 from triage.core.compare import last_step
 from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
-from triage.core.ledger import AdjustmentEnd, Event, Ledger
+from triage.core.ledger import AdjustmentEnd, Event, GroupRecord, Ledger
 from triage.core.ranking import BY_BIAS, BY_ERROR, BY_FVA, error_shares
 from triage.core.text import percent
 
@@ -194,6 +195,9 @@ class ReviewSession:
         """Ledger version per series in this cycle (what the next write must expect)."""
         self.decided_by = np.full(n, "", dtype=object)
         """Who recorded the series' effective decision in this cycle, ``""`` when none."""
+        self.group_of = np.zeros(n, dtype=np.int64)
+        """The group decision the series' effective decision in this cycle is part of (its
+        ledger id), 0 when the decision is the series' own or there is none."""
         self._search: np.ndarray | None = None
         self._folded: dict[str, np.ndarray] | None = None
         self.notices: list[str] = []
@@ -274,6 +278,7 @@ class ReviewSession:
         self.outcome[:] = ""
         self.version[:] = 0
         self.decided_by[:] = ""
+        self.group_of[:] = 0
         if self.ledger is None:
             return
         versions = self.ledger.versions(self.cycle)
@@ -291,6 +296,8 @@ class ReviewSession:
             ok = idx >= 0
             self.outcome[idx[ok]] = outcomes[ok]
             self.decided_by[idx[ok]] = reviewers[ok]
+            groups = np.array([d.group_id or 0 for d in decisions], dtype=np.int64)
+            self.group_of[idx[ok]] = groups[ok]
         self._reload_earlier_cycles()
 
     def _reload_earlier_cycles(self) -> None:
@@ -610,10 +617,12 @@ class ReviewSession:
         if event.kind == ledger_mod.DECISION:
             self.outcome[series] = event.outcome or ""
             self.decided_by[series] = event.reviewer
+            self.group_of[series] = event.group_id or 0
         else:
             standing, _ = self.current_decision(series)
             self.outcome[series] = (standing.outcome or "") if standing else ""
             self.decided_by[series] = standing.reviewer if standing else ""
+            self.group_of[series] = (standing.group_id or 0) if standing else 0
         return series
 
     def refresh_series(self, series: int) -> None:
@@ -623,6 +632,7 @@ class ReviewSession:
         self.version[series] = version
         self.outcome[series] = (standing.outcome or "") if standing else ""
         self.decided_by[series] = standing.reviewer if standing else ""
+        self.group_of[series] = (standing.group_id or 0) if standing else 0
 
     def current_decision(self, series: int) -> tuple[Event | None, int]:
         """The series' effective decision in this cycle as the ledger holds it now.
@@ -642,6 +652,154 @@ class ReviewSession:
         standing = [e for e in events if e.kind == ledger_mod.DECISION and e.id not in undone]
         version = events[-1].version if events else 0
         return (standing[-1] if standing else None), version
+
+    # -- group decisions (docs/ledger.md, "Group decisions") ------------------------------------
+
+    @cached_property
+    def split_decimals(self) -> int:
+        """Precision a group's split is made at: the export's default (``rounding.DEFAULT``,
+        the decimals the file's forward forecast uses), so the exported series sum exactly to
+        the group's adjusted total."""
+        p = self.portfolio
+        return rounding.decimals_for(rounding.DEFAULT, p.forecast[:, p.last_actual + 1 :])
+
+    def preview_group(
+        self, members: Sequence[int] | np.ndarray, spec: str, *, basis: str = split.FORECASTS
+    ) -> split.GroupSplit:
+        """What ``spec`` on the group's total would do to each member (nothing is saved).
+
+        Args:
+            members: Portfolio positions of the group's series, in the group's order.
+            spec: The adjustment, in the series syntax (docs/adjustments.md).
+            basis: How an absolute adjustment is split (``split.FORECASTS`` or
+                ``split.HISTORY``).
+
+        Raises:
+            AdjustSyntaxError, AdjustError, TriageError: The spec has no meaning for the group.
+        """
+        rows = np.asarray(members, dtype=np.int64)
+        p = self.portfolio
+        ahead = p.last_actual + 1
+        cols = np.asarray(self.window_cols, dtype=np.int64)
+        return split.split(
+            adjust.parse(spec),
+            p.forecast[rows, ahead:],
+            recent_actuals=p.demand[rows, :ahead],
+            window_demand=p.demand[np.ix_(rows, cols)],
+            window_forecast=p.forecast[np.ix_(rows, cols)],
+            decimals=self.split_decimals,
+            basis=basis,
+            price=None if p.price is None else p.price[rows, ahead:],
+            alternatives={name: values[rows, ahead:] for name, values in p.competing.items()},
+        )
+
+    def commit_group_decision(
+        self,
+        members: Sequence[int] | np.ndarray,
+        *,
+        by: Sequence[str],
+        key_values: Sequence[object],
+        outcome: str,
+        root_cause: str,
+        note: str = "",
+        spec: str | None = None,
+        basis: str = split.FORECASTS,
+        expected_versions: Sequence[int] | np.ndarray | None = None,
+    ) -> GroupRecord:
+        """Save one decision on a group durably, split to its series; returns the record.
+
+        In-memory state is not touched (like ``commit_decision``): pass the record to
+        ``apply_group`` where the state is owned.
+
+        Args:
+            members: Portfolio positions of the group's series.
+            by: The grouping columns.
+            key_values: The group's value of each.
+            outcome: Outcome code, for every member.
+            root_cause: Root-cause code.
+            note: Free text.
+            spec: The adjustment of the group's total as typed (with ``adjusted`` only).
+            basis: How an absolute adjustment is split.
+            expected_versions: Each member's version the reviewer decided on; default the
+                versions this session last saw.
+
+        Raises:
+            DecisionError, StaleDecisionError, LedgerBusyError, LedgerWriteError,
+            LedgerReadOnlyError, AdjustError, TriageError: nothing was saved.
+        """
+        ledger = self._require_ledger()
+        rows = np.asarray(members, dtype=np.int64)
+        lines: dict[str, object] = {}
+        if spec and spec.strip():
+            result = self.preview_group(rows, spec, basis=basis)
+            lo, hi = result.total.first - 1, result.total.last
+            lines = {
+                "adjustment": str(result.total.adjustment),
+                "basis": basis,
+                "periods": self.forward_dates[lo:hi],
+                "original": result.original[:, lo:hi].tolist(),
+                "adjusted": result.adjusted[:, lo:hi].tolist(),
+            }
+        keys = self.portfolio.keys
+        items = keys[schema.ITEM].to_numpy(dtype=object)[rows]
+        if schema.LOCATION in keys:
+            locations = keys[schema.LOCATION].to_numpy(dtype=object)[rows]
+        else:
+            locations = np.full(len(rows), "", dtype=object)
+        versions = self.version[rows] if expected_versions is None else expected_versions
+        return ledger.record_group(
+            self.cycle,
+            columns=tuple(by),
+            key_values=tuple(str(v) for v in key_values),
+            items=[str(i) for i in items],
+            locations=[str(loc) for loc in locations],
+            expected_versions=[int(v) for v in versions],
+            outcome=outcome,
+            root_cause=root_cause,
+            note=note,
+            reviewer=self.reviewer,
+            portfolio_name=self.portfolio.path.name,
+            portfolio_fingerprint=self.portfolio.fingerprint,
+            **lines,  # type: ignore[arg-type]
+        )
+
+    def commit_group_undo(self, group_id: int, note: str = "") -> GroupRecord:
+        """Undo a group decision of this cycle whole (``Ledger.undo_group``); in-memory state is
+        not touched: pass the record to ``apply_group``."""
+        ledger = self._require_ledger()
+        return ledger.undo_group(self.cycle, group_id, **self._signed(note))
+
+    def apply_group(self, record: GroupRecord) -> np.ndarray:
+        """Bring the in-memory state in line with a committed group decision or group undo;
+        returns the portfolio positions of the series it wrote for."""
+        idx = self._indexer(list(zip(record.items, record.locations, strict=True)))
+        rows = idx[idx >= 0]
+        if record.cycle != self.cycle or not len(rows):
+            return rows
+        versions = np.asarray(record.versions, dtype=np.int64)[idx >= 0]
+        self.version[rows] = np.maximum(self.version[rows], versions)
+        if record.kind == ledger_mod.DECISION:
+            self.outcome[rows] = record.outcome or ""
+            self.decided_by[rows] = record.reviewer
+            self.group_of[rows] = record.id
+            return rows
+        # An undo: each series is back to its decision before the group's (one read).
+        ledger = self._require_ledger()
+        standing = ledger.current(self.cycle)
+        where = self._indexer([(d.item, d.location) for d in standing])
+        outcome = np.full(self.portfolio.n_series, "", dtype=object)
+        by = np.full(self.portfolio.n_series, "", dtype=object)
+        group = np.zeros(self.portfolio.n_series, dtype=np.int64)
+        found = where >= 0
+        outcome[where[found]] = np.array([d.outcome for d in standing], dtype=object)[found]
+        by[where[found]] = np.array([d.reviewer for d in standing], dtype=object)[found]
+        group[where[found]] = np.array([d.group_id or 0 for d in standing], np.int64)[found]
+        self.outcome[rows], self.decided_by[rows], self.group_of[rows] = (
+            outcome[rows],
+            by[rows],
+            group[rows],
+        )
+        return rows
 
     def canonical_adjustment(self, series: int, spec: str) -> str:
         """``spec`` as the ledger would store it (``""`` when empty).

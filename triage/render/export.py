@@ -885,6 +885,8 @@ COLUMN_NOTES: dict[str, str] = {
     "adjusted_in_cycle": "the review cycle whose decision gave adjusted_forecast: this cycle, "
     "or an earlier cycle whose adjustment is carried; empty where not adjusted",
     "outcome (forecast)": "the series' decision outcome this cycle, empty when not reviewed",
+    "group_decision": "the ledger id of the group decision the series' decision (or the "
+    "adjusted value) is its part of, empty for a decision of the series alone",
     "adjusted_periods": "how many of the series' forward periods the decision changed",
     "adjusted per period": "one column per forward period, headed by its start date: the "
     "adjusted value where the decision changed that period, else the portfolio's forecast",
