@@ -28,6 +28,7 @@ from triage.core.cycle import ReviewCycle
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.group_review import GroupReview, outcome_words
+from triage.core.ledger import GroupRecord
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
 from triage.core.settings import ScoreSettings
 from triage.core.text import visible
@@ -1402,31 +1403,45 @@ class TriageApp(App[None]):
 
     @work(thread=True, exit_on_error=False, group="save-group", name="save-group")
     def _commit_group(self, review: GroupReview, draft: GroupDraft) -> None:
+        """One ledger transaction for the whole group; the state follows on the UI thread."""
         session = review.session
-        event = session.commit_group_decision(
-            review.members(draft.group),
-            review.by,
-            tuple(review.filters(draft.group).values()),
-            outcome=draft.outcome,
-            root_cause=draft.root_cause,
-            note=draft.note,
-            spec=draft.adjustment,
-            basis=draft.basis,
-        )
-        self.call_from_thread(self._group_saved, draft, event)
+        try:
+            record = session.commit_group_decision(
+                review.members(draft.group),
+                by=review.by,
+                key_values=tuple(review.filters(draft.group).values()),
+                outcome=draft.outcome,
+                root_cause=draft.root_cause,
+                note=draft.note,
+                spec=draft.adjustment or None,
+                basis=draft.basis,
+            )
+        except TriageError as exc:
+            self.call_from_thread(self._group_not_saved, draft, str(exc))
+            return
+        self.call_from_thread(self._group_saved, draft, record)
 
-    def _group_saved(self, draft: GroupDraft, event: object) -> None:
-        review = self.groups
-        assert review is not None
+    def _group_saved(self, draft: GroupDraft, record: GroupRecord) -> None:
+        review, session = self.groups, self.session
+        assert review is not None and session is not None
+        session.apply_group(record)
         review.forget()
         self._q(GroupList).invalidate()
         self._q(SeriesList).invalidate()
-        self._show_group_detail(self._q(GroupList).current)
+        if self.in_groups:
+            self._show_group_detail(self._q(GroupList).current)
         self._refresh_summary()
         self._status(
             f"saved: the group {review.label(draft.group)}: "
-            f"{fmt.outcome_label(draft.outcome).lower()} for {int(review.size[draft.group])} series"
+            f"{fmt.outcome_label(draft.outcome).lower()} for {int(review.size[draft.group])} "
+            f"series (ledger group decision {record.id})"
         )
+
+    def _group_not_saved(self, draft: GroupDraft, error: str) -> None:
+        review = self.groups
+        label = review.label(draft.group) if review is not None else "the group"
+        self._status(f"NOT saved: the decision for {label}: {error}")
+        fmt.toast(self, f"Not saved: {error}", severity="error", timeout=15)
 
     @on(GroupList.Highlighted)
     def _group_highlighted(self, message: GroupList.Highlighted) -> None:
