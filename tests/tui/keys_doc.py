@@ -9,6 +9,7 @@ from textual.binding import Binding
 from triage.tui.app import TriageApp
 from triage.tui.screens.decision import DecisionScreen
 from triage.tui.screens.dialogs import ChooseScreen, ConfirmScreen, HelpScreen, PromptScreen
+from triage.tui.screens.group_decision import GroupDecisionScreen
 from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.series_list import SeriesList
 
@@ -19,6 +20,7 @@ SECTIONS = (
     ("List (moving)", (SeriesList,)),
     ("Main screen", (TriageApp,)),
     ("Decision dialog", (DecisionScreen,)),
+    ("Group decision dialog (group view, `a`)", (GroupDecisionScreen,)),
     ("Did past overrides help?", (OverridesScreen,)),
     ("Prompts, questions, lists and help", (PromptScreen, ConfirmScreen, ChooseScreen, HelpScreen)),
 )

@@ -100,3 +100,31 @@ async def test_a_save_landing_after_escape_keeps_the_group_detail(portfolio: Pat
         await wait_for(pilot, lambda: app.in_groups, "back to the groups")
         await pilot.pause(0.3)
         assert "group rank 1 of" in str(app.query_one("#detail-title").render())
+
+
+async def test_group_decision_dialog_previews_the_split(portfolio: Path) -> None:
+    """`a` in the group view: the adjustment applies to the group's total and the preview lists
+    the total's change and the series that change most (the split: docs/adjustments.md)."""
+    from triage.tui.screens.group_decision import GroupDecisionScreen
+
+    app = TriageApp(Options(portfolio=portfolio, reviewer="ana", group="family"))
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_for(pilot, lambda: app.in_groups, "the group view")
+        group = app.query_one(GroupList).current
+        await pilot.press("a")
+        await wait_for(pilot, lambda: isinstance(app.screen, GroupDecisionScreen), "the dialog")
+        app.screen.query_one("#decision-adjust", Input).value = "1-4: =1000"
+        await pilot.pause(0.2)
+        shown = str(app.screen.query_one("#decision-preview").render())
+        expected = app.groups.preview(group, "1-4: =1000")
+        assert f"group total: {expected.total.description}" in shown
+        assert "split by proportions of the series' forecasts" in shown
+        top = int(app.groups.members(group)[expected.largest_changes(1)[0]])
+        assert app.session.key(top)[0] in shown
+        await pilot.press("ctrl+b")
+        assert app.screen.basis == "history"
+        shown = str(app.screen.query_one("#decision-preview").render())
+        assert "split by proportions of the series' history averages" in shown
+        await pilot.press("escape")
+        await wait_for(pilot, lambda: not isinstance(app.screen, GroupDecisionScreen), "closed")
+        assert (app.session.outcome == "").all()  # cancelled: nothing recorded

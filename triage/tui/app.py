@@ -28,6 +28,7 @@ from triage.core.cycle import ReviewCycle
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.group_review import GroupReview, outcome_words
+from triage.core.ledger import GroupRecord
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
 from triage.core.settings import ScoreSettings
 from triage.core.text import visible
@@ -45,6 +46,7 @@ from triage.tui.messages import (
 )
 from triage.tui.screens.decision import UNCHANGED, DecisionScreen, Draft, draft_of
 from triage.tui.screens.dialogs import ChooseScreen, ConfirmScreen, HelpScreen, PromptScreen
+from triage.tui.screens.group_decision import GroupDecisionScreen, GroupDraft
 from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.chart import SeriesChart
 from triage.tui.widgets.series_list import GroupList, SeriesList
@@ -83,7 +85,6 @@ class Options:
 SERIES_ACTIONS = frozenset(
     {
         "quick",
-        "adjust",
         "undo",
         "take_suggestion",
         "next_unreviewed",
@@ -142,7 +143,8 @@ class TriageApp(App[None]):
             "adjust",
             "Adjust",
             id="review.adjust",
-            tooltip="Open the decision dialog on the adjustment field",
+            tooltip="Open the decision dialog on the adjustment field (in the group view: one "
+            "decision for the whole group, its adjustment split to the series)",
         ),
         Binding(
             "n",
@@ -973,6 +975,9 @@ class TriageApp(App[None]):
             await self._open_dialog(series, outcome=vocabulary.OUTCOMES[0].code)
 
     async def action_adjust(self) -> None:
+        if self.in_groups:
+            self._open_group_dialog()
+            return
         series = self._q(SeriesList).current
         if series is not None and self.session is not None:
             await self._open_dialog(series, outcome=vocabulary.ADJUSTED)
@@ -1372,6 +1377,71 @@ class TriageApp(App[None]):
         self.text_filter, self.field_filters = self._outer_filters
         self._apply_order()
         self._show_groups()
+
+    def _open_group_dialog(self) -> None:
+        """The decision dialog of the highlighted group (one decision, split to its series)."""
+        review = self.groups
+        group = self._q(GroupList).current
+        if review is None or group is None:
+            return
+
+        def done(draft: GroupDraft | None) -> None:
+            if draft is not None:
+                self._save_group(draft)
+
+        self.push_screen(GroupDecisionScreen(review, group, self.options.root_causes), done)
+
+    def _save_group(self, draft: GroupDraft) -> None:
+        """Record a group decision (one ledger transaction) off the UI thread."""
+        review, session = self.groups, self.session
+        assert review is not None and session is not None
+        members = review.members(draft.group)
+        self._status(
+            f"saving the decision for {review.label(draft.group)} ({len(members)} series)…"
+        )
+        self._commit_group(review, draft)
+
+    @work(thread=True, exit_on_error=False, group="save-group", name="save-group")
+    def _commit_group(self, review: GroupReview, draft: GroupDraft) -> None:
+        """One ledger transaction for the whole group; the state follows on the UI thread."""
+        session = review.session
+        try:
+            record = session.commit_group_decision(
+                review.members(draft.group),
+                by=review.by,
+                key_values=tuple(review.filters(draft.group).values()),
+                outcome=draft.outcome,
+                root_cause=draft.root_cause,
+                note=draft.note,
+                spec=draft.adjustment or None,
+                basis=draft.basis,
+            )
+        except TriageError as exc:
+            self.call_from_thread(self._group_not_saved, draft, str(exc))
+            return
+        self.call_from_thread(self._group_saved, draft, record)
+
+    def _group_saved(self, draft: GroupDraft, record: GroupRecord) -> None:
+        review, session = self.groups, self.session
+        assert review is not None and session is not None
+        session.apply_group(record)
+        review.forget()
+        self._q(GroupList).invalidate()
+        self._q(SeriesList).invalidate()
+        if self.in_groups:
+            self._show_group_detail(self._q(GroupList).current)
+        self._refresh_summary()
+        self._status(
+            f"saved: the group {review.label(draft.group)}: "
+            f"{fmt.outcome_label(draft.outcome).lower()} for {int(review.size[draft.group])} "
+            f"series (ledger group decision {record.id})"
+        )
+
+    def _group_not_saved(self, draft: GroupDraft, error: str) -> None:
+        review = self.groups
+        label = review.label(draft.group) if review is not None else "the group"
+        self._status(f"NOT saved: the decision for {label}: {error}")
+        fmt.toast(self, f"Not saved: {error}", severity="error", timeout=15)
 
     @on(GroupList.Highlighted)
     def _group_highlighted(self, message: GroupList.Highlighted) -> None:
