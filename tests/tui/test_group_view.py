@@ -128,3 +128,40 @@ async def test_group_decision_dialog_previews_the_split(portfolio: Path) -> None
         await pilot.press("escape")
         await wait_for(pilot, lambda: not isinstance(app.screen, GroupDecisionScreen), "closed")
         assert (app.session.outcome == "").all()  # cancelled: nothing recorded
+
+
+async def test_group_decision_saved_whole_and_undone_whole(portfolio: Path) -> None:
+    """`a` on a group, `1-2: x0.9`, ctrl+s: one group decision in the ledger with every member's
+    part; the list counts the group decided; `u` on the group undoes it whole."""
+    from triage.core.ledger import Ledger
+    from triage.tui.screens.dialogs import ConfirmScreen
+    from triage.tui.screens.group_decision import GroupDecisionScreen
+
+    app = TriageApp(Options(portfolio=portfolio, reviewer="ana", group="family,location"))
+    async with app.run_test(size=(160, 48)) as pilot:
+        await wait_for(pilot, lambda: app.in_groups, "the group view")
+        await pilot.press("j")
+        group = app.query_one(GroupList).current
+        members = app.groups.members(group)
+        await pilot.press("a")
+        await wait_for(pilot, lambda: isinstance(app.screen, GroupDecisionScreen), "the dialog")
+        app.screen.query_one("#decision-adjust", Input).value = "1-2: x0.9"
+        await pilot.press("ctrl+s")
+        await wait_for(
+            pilot, lambda: (app.session.outcome[members] == "adjusted").all(), "the group saved"
+        )
+        assert app.groups.decided()[group] == len(members)
+        assert "saved: the group" in app.status_text
+        ledger = Ledger.open(app.session.ledger.path)
+        try:
+            (decision,) = ledger.group_decisions()
+            assert decision.adjustment == "1-2: x0.9"
+            assert decision.key_values == tuple(app.groups.filters(group).values())
+            assert len(ledger.current(app.session.cycle)) == len(members)
+        finally:
+            ledger.close()
+        await pilot.press("u")
+        await wait_for(pilot, lambda: isinstance(app.screen, ConfirmScreen), "the question")
+        await pilot.press("y")
+        await wait_for(pilot, lambda: (app.session.outcome == "").all(), "the group undone")
+        assert app.groups.decided()[group] == 0

@@ -14,7 +14,7 @@ from dataclasses import dataclass
 
 import numpy as np
 
-from triage.core import adjust, groups, rounding, schema, split
+from triage.core import groups, schema, split
 from triage.core.groups import column_total as _total
 from triage.core.ranking import BY_BIAS, as_slice
 from triage.core.review import ChartSeries, ReviewSession
@@ -57,7 +57,6 @@ class GroupReview:
         self.flag = np.select([flags == "over", flags == "under"], [1, -1], 0).astype(np.int8)
         self.size = self.table["series"].to_numpy(dtype=np.int64)
         self._decided: np.ndarray | None = None
-        self._decimals: int | None = None
         self._labels: list[str] | None = None
 
     # -- the list -------------------------------------------------------------------------------
@@ -142,37 +141,18 @@ class GroupReview:
 
     @property
     def decimals(self) -> int:
-        """The export's precision (``rounding.DEFAULT``: as the file's forward forecast), which
-        a group adjustment is split at."""
-        if self._decimals is None:
-            p = self.session.portfolio
-            self._decimals = rounding.decimals_for(
-                rounding.DEFAULT, p.forecast[:, p.last_actual + 1 :]
-            )
-        return self._decimals
+        """The export's precision, which a group adjustment is split at
+        (``ReviewSession.split_decimals``)."""
+        return self.session.split_decimals
 
     def preview(self, group: int, spec: str, *, basis: str = split.FORECASTS) -> split.GroupSplit:
         """What ``spec`` would do to the group: applied to its total forward forecast and split
-        to its series (``triage.core.split``); nothing is saved.
+        to its series (``ReviewSession.preview_group``); nothing is saved.
 
         Raises:
             AdjustSyntaxError, AdjustError: The spec is not valid for this group.
         """
-        p = self.session.portfolio
-        members = self.members(group)
-        ahead = slice(p.last_actual + 1, None)
-        cols = self.session.window_cols
-        return split.split(
-            adjust.parse(spec),
-            p.forecast[members, ahead],
-            recent_actuals=p.demand[members, : p.last_actual + 1],
-            window_demand=p.demand[members][:, cols],
-            window_forecast=p.forecast[members][:, cols],
-            decimals=self.decimals,
-            basis=basis,
-            price=None if p.price is None else p.price[members, ahead],
-            alternatives={name: values[members, ahead] for name, values in p.competing.items()},
-        )
+        return self.session.preview_group(self.members(group), spec, basis=basis)
 
     def contributors(self, group: int, count: int = 5) -> list[Contributor]:
         """The group's series with the largest error first (ties: portfolio order)."""

@@ -85,7 +85,6 @@ class Options:
 SERIES_ACTIONS = frozenset(
     {
         "quick",
-        "undo",
         "take_suggestion",
         "next_unreviewed",
         "end_adjustment",
@@ -1021,6 +1020,9 @@ class TriageApp(App[None]):
         self._confirm_other_reviewer(series, "Replace", record)
 
     def action_undo(self) -> None:
+        if self.in_groups:
+            self._undo_group()
+            return
         series = self._q(SeriesList).current
         if series is None or self.session is None:
             return
@@ -1436,6 +1438,58 @@ class TriageApp(App[None]):
             f"{fmt.outcome_label(draft.outcome).lower()} for {int(review.size[draft.group])} "
             f"series (ledger group decision {record.id})"
         )
+
+    def _undo_group(self) -> None:
+        """Undo the highlighted group's latest group decision of this cycle, whole."""
+        review, session = self.groups, self.session
+        group = self._q(GroupList).current
+        if review is None or session is None or group is None:
+            return
+        ids = session.group_of[review.members(group)]
+        if not (ids > 0).any():
+            self._status("nothing to undo: the group has no group decision standing in this cycle")
+            return
+        group_id = int(ids.max())
+
+        def answered(yes: bool | None) -> None:
+            if yes:
+                self._status(f"undoing group decision {group_id}…")
+                self._commit_group_undo(group_id)
+
+        standing = int((ids == group_id).sum())
+        self.push_screen(
+            ConfirmScreen(
+                Text(
+                    f"Undo the group decision {group_id} on {fmt.plain(review.label(group))}? "
+                    f"Its {standing:,} series part(s) still standing go back to their decision "
+                    "before it."
+                )
+            ),
+            answered,
+        )
+
+    @work(thread=True, exit_on_error=False, group="save-group", name="undo-group")
+    def _commit_group_undo(self, group_id: int) -> None:
+        session = self.session
+        assert session is not None
+        try:
+            record = session.commit_group_undo(group_id)
+        except TriageError as exc:
+            self.call_from_thread(self._status, f"NOT undone: {exc}")
+            return
+        self.call_from_thread(self._group_undone, record)
+
+    def _group_undone(self, record: GroupRecord) -> None:
+        review, session = self.groups, self.session
+        assert review is not None and session is not None
+        session.apply_group(record)
+        review.forget()
+        self._q(GroupList).invalidate()
+        self._q(SeriesList).invalidate()
+        if self.in_groups:
+            self._show_group_detail(self._q(GroupList).current)
+        self._refresh_summary()
+        self._status(f"undone: group decision (ledger group undo {record.id})")
 
     def _group_not_saved(self, draft: GroupDraft, error: str) -> None:
         review = self.groups
