@@ -110,3 +110,106 @@ def test_overrides_detail_keeps_the_series_and_periods_at_any_width(
         ("B", "X", "2026-01-19"),
         ("B", "X", "2026-01-26"),
     }, result.stdout
+
+
+#: Two series, four weeks with actuals and a forward week; the customer forecast is missing in
+#: week 2 ('n/a', '-'), A's demand is 0 in week 3 and B's is -2 (a return) in week 2; B has
+#: price 0. Invented.
+PRICED = """item,location,period,demand,forecast,forecast_stat,forecast_cust,price
+A,X,2026-01-05,10,12,9,10,2
+A,X,2026-01-12,20,18,15,n/a,2
+A,X,2026-01-19,0,3,1,2,2
+A,X,2026-01-26,30,25,20,28,2
+A,X,2026-02-02,,22,21,27,2
+B,X,2026-01-05,5,5,5,5,0
+B,X,2026-01-12,-2,1,0,-,0
+B,X,2026-01-19,8,10,6,7,0
+B,X,2026-01-26,4,4,4,5,0
+B,X,2026-02-02,,5,5,5,0
+"""
+#: The compared cells (demand, naive and both competing forecasts present): weeks 3 and 4 of
+#: each series (week 1 has no previous actual, week 2 no customer forecast), as
+#: (demand, forecast, stat, cust, naive, price).
+CELLS = [
+    (0, 3, 1, 2, 20, 2),
+    (30, 25, 20, 28, 0, 2),
+    (8, 10, 6, 7, -2, 0),
+    (4, 4, 4, 5, 8, 0),
+]
+
+
+def _csv_rows(text: str) -> dict[str, dict[str, str]]:
+    import csv
+    import io
+
+    return {row["forecast_name"]: row for row in csv.DictReader(io.StringIO(text))}
+
+
+def test_compare_figures_by_hand_on_a_small_priced_file(tmp_path: Path) -> None:
+    import numpy as np
+    from sklearn.metrics import mean_absolute_error, root_mean_squared_error
+
+    (tmp_path / "p.csv").write_text(PRICED, encoding="utf-8")
+    result = run("compare", "p.csv", "--format", "csv", cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    rows = _csv_rows(result.stdout)
+    cells = np.array(CELLS, dtype=float)
+    demand, price = cells[:, 0], cells[:, 5]
+    for at, name in enumerate(("forecast", "stat", "cust", "naive"), start=1):
+        row, f = rows[name], cells[:, at]
+        e = f - demand
+        assert int(row["cells"]) == 4 and float(row["demand"]) == 42.0
+        # docs/metrics.md, "Comparing forecasts": sums and means pool every compared cell.
+        assert float(row["abs_error"]) == pytest.approx(np.abs(e).sum())
+        assert float(row["bias"]) == pytest.approx(e.sum())
+        assert float(row["wape"]) == pytest.approx(np.abs(e).sum() / 42.0)
+        assert float(row["abs_error_value"]) == pytest.approx((np.abs(e) * price).sum())
+        # scikit-learn: mean_absolute_error, root_mean_squared_error on the same cells.
+        assert float(row["mae"]) == pytest.approx(mean_absolute_error(demand, f))
+        assert float(row["rmse"]) == pytest.approx(root_mean_squared_error(demand, f))
+        # mape: demand > 0 only (3 cells); mape_capped: min(ratio, 1), demand <= 0 counts 1.
+        positive = demand > 0
+        ratio = np.abs(e[positive]) / demand[positive]
+        assert float(row["mape"]) == pytest.approx(ratio.mean())
+        assert int(row["mape_cells_dropped"]) == 1
+        assert float(row["mape_capped"]) == pytest.approx((np.minimum(ratio, 1).sum() + 1) / 4)
+    # By hand: Σ|e| forecast 3+5+2+0 = 10, stat 1+10+2+0 = 13, cust 2+2+1+1 = 6, naive
+    # 20+30+10+4 = 64. Steps naive -> stat -> cust -> forecast (Gilliland 2010):
+    # fva = 64 - 13 = 51 (51/64), 13 - 6 = 7 (7/13), 6 - 10 = -4 (-4/6).
+    assert float(rows["stat"]["fva_units"]) == 51.0
+    assert float(rows["stat"]["fva_pct"]) == pytest.approx(51 / 64)
+    assert float(rows["cust"]["fva_pct"]) == pytest.approx(7 / 13)
+    assert float(rows["forecast"]["fva_units"]) == -4.0
+    assert rows["naive"]["fva_units"] == ""
+    # MASE (Hyndman & Koehler 2006): scale = mean |D_t - D_t-1| over each series' history:
+    # A (10, 20, 0, 30) -> 20, B (5, -2, 8, 4) -> 7; forecast's MAE A (3+5)/2, B (2+0)/2.
+    assert float(rows["forecast"]["mase"]) == pytest.approx((4 / 20 + 1 / 7) / 2)
+    # series_best: A's lowest Σ|e| is cust (4); B ties forecast, stat and cust (2 each).
+    assert [rows[n]["series_best"] for n in ("forecast", "stat", "cust", "naive")] == [
+        "1",
+        "1",
+        "2",
+        "0",
+    ]
+
+
+#: One series with no demand in the window: the naive forecast (0 after 0) has no error, so
+#: the step after it has no percentage. Invented.
+ZERO_DEMAND = """item,period,demand,forecast,forecast_stat
+A,2026-01-05,0,1,0
+A,2026-01-12,0,2,0
+A,2026-01-19,0,0,1
+A,2026-01-26,,1,1
+"""
+
+
+def test_compare_verdict_words_a_step_whose_previous_error_is_zero(tmp_path: Path) -> None:
+    # docs/metrics.md: fva_pct is undefined when the previous step's Σ|e| is 0. By hand, cells
+    # weeks 2 and 3: naive 0, 0 (no error); stat 0, 1 -> adds 1 unit; forecast 2, 0 -> 2.
+    (tmp_path / "z.csv").write_text(ZERO_DEMAND, encoding="utf-8")
+    result = run("compare", "z.csv", cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    assert "()" not in result.stdout, result.stdout
+    assert "Step naive -> stat: adds 1 unit of error;" in result.stdout, result.stdout
+    assert "Step stat -> forecast: adds 1 unit of error (100.0%);" in result.stdout
+    assert "MAPE leaves out 2 cells with demand <= 0" in result.stdout
