@@ -213,3 +213,17 @@ def test_compare_verdict_words_a_step_whose_previous_error_is_zero(tmp_path: Pat
     assert "Step naive -> stat: adds 1 unit of error;" in result.stdout, result.stdout
     assert "Step stat -> forecast: adds 1 unit of error (100.0%);" in result.stdout
     assert "MAPE leaves out 2 cells with demand <= 0" in result.stdout
+
+
+def test_compare_table_never_cuts_a_figure_for_a_long_forecast_name(tmp_path: Path) -> None:
+    # A valid forecast_<name> may be long; the table's figures stay whole (checked against the
+    # CSV of the same run, docs/metrics.md).
+    name = "customer_" + "x" * 141
+    (tmp_path / "p.csv").write_text(PRICED.replace("forecast_cust", f"forecast_{name}"), "utf-8")
+    table = run("compare", "p.csv", cwd=tmp_path)
+    assert table.returncode == 0, table.stderr
+    assert "…" not in table.stdout, table.stdout
+    line = next(x for x in table.stdout.splitlines() if x.startswith(name))
+    # By hand (CELLS): Σ|e| of the customer forecast 6 of demand 42 (14.3%), fva +7 (53.8%).
+    assert line.split()[1:3] == ["14.3%", "0.0%"], line
+    assert "+7" in line.split() and "+53.8%" in line.split(), line

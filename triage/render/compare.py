@@ -217,9 +217,18 @@ def compare_table(portfolio: Portfolio, result: Comparison, window: int) -> str:
         table.add_column(name, justify=justify, no_wrap=True)  # type: ignore[arg-type]
     for row in zip(*(cells for _, _, cells in columns), strict=True):
         table.add_row(*row)
+    # Wide enough for every cell: a long forecast name widens the line, never cuts a figure.
+    natural = sum(
+        max(len(name), *(len(str(cell)) for cell in cells)) + 2 for name, _, cells in columns
+    )
     buffer = io.StringIO()
     console = Console(
-        file=buffer, width=200, color_system=None, markup=False, emoji=False, highlight=False
+        file=buffer,
+        width=max(200, natural),
+        color_system=None,
+        markup=False,
+        emoji=False,
+        highlight=False,
     )
     console.print(table)
     lines.extend(line.rstrip() for line in buffer.getvalue().rstrip("\n").split("\n"))
