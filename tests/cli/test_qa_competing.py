@@ -227,3 +227,28 @@ def test_compare_table_never_cuts_a_figure_for_a_long_forecast_name(tmp_path: Pa
     # By hand (CELLS): Σ|e| of the customer forecast 6 of demand 42 (14.3%), fva +7 (53.8%).
     assert line.split()[1:3] == ["14.3%", "0.0%"], line
     assert "+7" in line.split() and "+53.8%" in line.split(), line
+
+
+@pytest.mark.parametrize(
+    ("forward", "said"),
+    [("", "is empty"), ("7", "has values only in the forward periods")],
+)
+def test_compare_names_a_competing_column_without_history_and_what_to_do(
+    tmp_path: Path, forward: str, said: str
+) -> None:
+    # A forecast_stat column left empty (or filled in the forward periods only): no window
+    # cell can be compared (docs/metrics.md, "Compared cells"). A longer window cannot help.
+    lines = PRICED.replace(",forecast_cust", "").splitlines()
+    rows = [lines[0]]
+    for line in lines[1:]:
+        cells = line.split(",")
+        del cells[6]  # forecast_cust
+        cells[5] = forward if cells[3] == "" else ""
+        rows.append(",".join(cells))
+    (tmp_path / "p.csv").write_text("\n".join(rows) + "\n", encoding="utf-8")
+    result = run("compare", "p.csv", cwd=tmp_path)
+    assert result.returncode == 2, result.stdout + result.stderr
+    assert "Traceback" not in result.stderr
+    assert f"column forecast_stat {said}" in result.stderr, result.stderr
+    assert "--window" not in result.stderr, result.stderr
+    assert "remove the column" in result.stderr, result.stderr
