@@ -252,3 +252,30 @@ def test_compare_names_a_competing_column_without_history_and_what_to_do(
     assert f"column forecast_stat {said}" in result.stderr, result.stderr
     assert "--window" not in result.stderr, result.stderr
     assert "remove the column" in result.stderr, result.stderr
+
+
+def test_rank_by_fva_says_when_series_have_no_step_loss(tmp_path: Path) -> None:
+    # docs/metrics.md, "The last process step": a series without a window cell holding demand,
+    # the final forecast and the previous step has no loss and sorts last. With --steps
+    # stat,cust: A has such cells (weeks 1, 3, 4), B only weeks 1, 3, 4 as well; with the
+    # customer forecast emptied for B, B has none.
+    text = PRICED.replace("B,X,2026-01-05,5,5,5,5,0", "B,X,2026-01-05,5,5,5,,0")
+    text = text.replace("B,X,2026-01-19,8,10,6,7,0", "B,X,2026-01-19,8,10,6,,0")
+    text = text.replace("B,X,2026-01-26,4,4,4,5,0", "B,X,2026-01-26,4,4,4,,0")
+    (tmp_path / "p.csv").write_text(text, encoding="utf-8")
+    result = run("rank", "p.csv", "--by", "fva", "--steps", "stat,cust", cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    assert (
+        "1 of 2 series have no window cell with both steps: no loss, listed last" in result.stdout
+    ), result.stdout
+    # None at all: the whole list is in key order, and the table says so.
+    text = text.replace("A,X,2026-01-05,10,12,9,10,2", "A,X,2026-01-05,10,12,9,,2")
+    text = text.replace("A,X,2026-01-19,0,3,1,2,2", "A,X,2026-01-19,0,3,1,,2")
+    text = text.replace("A,X,2026-01-26,30,25,20,28,2", "A,X,2026-01-26,30,25,20,,2")
+    (tmp_path / "p.csv").write_text(text, encoding="utf-8")
+    result = run("rank", "p.csv", "--by", "fva", "--steps", "stat,cust", cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    assert (
+        "no series has a window cell with both steps: no loss, the list is in key order"
+        in result.stdout
+    ), result.stdout

@@ -353,6 +353,7 @@ def rank_table(
             if fva
             else []
         ),
+        *(_no_loss_lines(card) if fva else []),
         "",
     ]
     rank_col, rank_head = {
@@ -413,6 +414,20 @@ def rank_table(
             "use --top K, --cover F or --format csv for more"
         )
     return "\n".join(lines) + "\n"
+
+
+def _no_loss_lines(card: pd.DataFrame) -> list[str]:
+    """How many series have no step loss (no window cell with demand and both steps), which
+    ``--by fva`` lists last in key order; nothing when every series has one."""
+    none = int(card["fva_loss"].isna().sum())
+    if not none:
+        return []
+    if none == len(card):
+        return ["no series has a window cell with both steps: no loss, the list is in key order"]
+    return [
+        f"{none:,} of {len(card):,} series have no window cell with both steps: "
+        "no loss, listed last"
+    ]
 
 
 def group_table(
