@@ -279,3 +279,12 @@ def test_rank_by_fva_says_when_series_have_no_step_loss(tmp_path: Path) -> None:
         "no series has a window cell with both steps: no loss, the list is in key order"
         in result.stdout
     ), result.stdout
+
+
+def test_steps_named_as_columns_get_the_name_to_write(tmp_path: Path) -> None:
+    # docs/metrics.md: --steps lists forecast names (stat for the column forecast_stat).
+    (tmp_path / "p.csv").write_text(PRICED, encoding="utf-8")
+    for command in ("compare", "rank"):
+        result = run(command, "p.csv", "--steps", "forecast_stat,forecast", cwd=tmp_path)
+        assert result.returncode == 2, result.stdout
+        assert "Write stat for the column forecast_stat" in result.stderr, result.stderr

@@ -180,6 +180,9 @@ def parse_steps(text: str, names: Sequence[str], option: str = "--steps") -> tup
             )
         if step not in names:
             hint = f"Available: {available}."
+            bare = step.removeprefix(schema.COMPETING_PREFIX)
+            if bare != step and bare in names and bare not in BUILT_IN:
+                hint = f"Write {bare} for the column {step}: steps are named without its prefix."
             if step == SNAIVE:
                 hint += " snaive needs --season m with m > 1."
             raise TriageError(f"{option}: unknown forecast {step!r}.", hint=hint)
