@@ -288,3 +288,39 @@ def test_steps_named_as_columns_get_the_name_to_write(tmp_path: Path) -> None:
         result = run(command, "p.csv", "--steps", "forecast_stat,forecast", cwd=tmp_path)
         assert result.returncode == 2, result.stdout
         assert "Write stat for the column forecast_stat" in result.stderr, result.stderr
+
+
+def test_report_says_nothing_against_stat_without_overrides_to_value(tmp_path: Path) -> None:
+    # docs/history.md, "Against the statistical forecast": the sentence values realised
+    # overrides; with none (no decisions yet) a sentence of '0 periods' and '–' says nothing.
+    (tmp_path / "w1.csv").write_text(WEEK_1, encoding="utf-8")
+    result = run("report", "w1.csv", cwd=tmp_path)
+    assert result.returncode == 0, result.stderr
+    assert "Realised override value: 0 overridden periods" in result.stdout, result.stdout
+    assert "on the 0 periods" not in result.stdout, result.stdout
+    assert "beat it by –" not in result.stdout, result.stdout
+
+
+def test_overrides_against_another_stat_forecast_by_hand(overridden: Path) -> None:
+    import csv
+    import io
+
+    # docs/history.md: beat stat by = |S - actual| - |adjusted - actual|, S = forecast_alt.
+    # A 2026-01-19: |95-92| - |90-92| = 1 (x2 = 2); 2026-01-26: |80-70| - |85-70| = -5 (x3 =
+    # -15). B (adjusted to alt itself, price 0): 0 and 0.
+    result = run(
+        "overrides", "w3.csv", "--detail", "--stat-name", "alt", "--format", "csv", cwd=overridden
+    )
+    assert result.returncode == 0, result.stderr
+    rows = {(r["item"], r["period"]): r for r in csv.DictReader(io.StringIO(result.stdout))}
+    expected = {
+        ("A", "2026-01-19"): (95.0, 1.0, 2.0),
+        ("A", "2026-01-26"): (80.0, -5.0, -15.0),
+        ("B", "2026-01-19"): (7.0, 0.0, 0.0),
+        ("B", "2026-01-26"): (7.0, 0.0, 0.0),
+    }
+    for key, (stat, beat, value) in expected.items():
+        row = rows[key]
+        assert float(row["stat"]) == stat
+        assert float(row["value_added_vs_stat"]) == beat
+        assert float(row["value_added_vs_stat_value"]) == value
