@@ -324,3 +324,13 @@ def test_overrides_against_another_stat_forecast_by_hand(overridden: Path) -> No
         assert float(row["stat"]) == stat
         assert float(row["value_added_vs_stat"]) == beat
         assert float(row["value_added_vs_stat_value"]) == value
+
+
+def test_rank_group_refuses_steps_it_would_ignore(tmp_path: Path) -> None:
+    # docs/metrics.md, "Groups": groups rank by error or bias; --steps chooses the process
+    # steps of a series' fva_loss, which groups do not have, so it is refused like --by fva.
+    (tmp_path / "p.csv").write_text(PRICED, encoding="utf-8")
+    result = run("rank", "p.csv", "--group", "location", "--steps", "naive,forecast", cwd=tmp_path)
+    assert result.returncode == 2, result.stdout
+    assert "--steps" in result.stderr and "Traceback" not in result.stderr, result.stderr
+    assert result.stdout == ""
