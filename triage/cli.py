@@ -256,6 +256,11 @@ def _rank_groups(args: argparse.Namespace, settings: ScoreSettings, portfolio: P
             f"--by {args.by} ranks series; groups rank by error or bias.",
             hint="Use --by error or --by bias with --group, or rank series with --by fva.",
         )
+    if args.steps is not None:
+        raise TriageError(
+            "--steps chooses the process steps of each series' fva_loss; groups have no step loss.",
+            hint="Leave out --steps with --group, or rank series with --steps (and --by fva).",
+        )
     by_columns = groups.parse_group_columns(portfolio, args.group)
     card = scorecard(portfolio, settings.window, settings.season)
     cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, settings.window)

@@ -41,7 +41,6 @@ if TYPE_CHECKING:
     from collections.abc import Callable
 
     import pandas as pd
-    from rich.table import Table
 
     from triage.core.config import Config
     from triage.core.portfolio import Portfolio
@@ -357,8 +356,6 @@ def _table(
     causes: dict[str, str],
     stat: str | None = None,
 ) -> str:
-    from rich.console import Console
-
     from triage.core import history
     from triage.core.text import visible
     from triage.render.report import fmt_money, fmt_pct, fmt_ratio, fmt_units
@@ -410,52 +407,70 @@ def _table(
     # A breakdown against the statistical forecast is a second table with the same groups,
     # so the first reads as without one.
     tables = [frame]
+    # A breakdown's grouping columns name its rows: they are never dropped.
+    groups = () if args.detail else tuple(c for c in frame if c not in history.SUMMARY_COLUMNS)
     if stat is not None and not args.detail:
-        groups = [c for c in frame.columns if c not in history.SUMMARY_COLUMNS]
         extra = [c for c in frame.columns if c in history.SUMMARY_STAT_COLUMNS]
         tables = [frame.drop(columns=extra), frame[[*groups, *extra]]]
     width = max(100, shutil.get_terminal_size((140, 24)).columns)
-    buffer = io.StringIO()
-    console = Console(
-        file=buffer, width=width, color_system=None, markup=False, emoji=False, highlight=False
-    )
+    lines: list[str] = []
     for i, part in enumerate(tables):
         if i:
-            console.print(
-                f"\nagainst the statistical forecast ({schema.COMPETING_PREFIX}{stat}):\n"
-            )
-        console.print(_rich_table(part, formats, counts, causes))
-    return "\n".join(header) + "\n\n" + buffer.getvalue()
+            lines += [
+                "",
+                f"against the statistical forecast ({schema.COMPETING_PREFIX}{stat}):",
+                "",
+            ]
+        lines += _fitted_part(part, formats, counts, causes, width, groups)
+    return "\n".join(header) + "\n\n" + "\n".join(lines) + "\n"
 
 
-def _rich_table(
+#: Which columns of ``overrides`` a narrow terminal gives up first (the highest number goes
+#: first); 0: never (what names a row, and the value added itself).
+COLUMN_PRIORITY = {
+    "event_id": 9,
+    "horizon": 8,
+    "reviewer": 7,
+    "root_cause": 7,
+    "direction": 6,
+    "size": 6,
+    "decisions": 5,
+    "price": 5,
+    "avg_rel_mae": 4,
+    "abs_error_original": 3,
+    "abs_error_adjusted": 3,
+    "abs_error_stat": 3,
+    "relative_value_added": 2,
+    "helped": 2,
+    "stat": 1,
+    "value_added_value": 1,
+    "value_added_vs_stat_value": 1,
+}
+
+
+def _fitted_part(
     frame: pd.DataFrame,
     formats: dict[str, Callable[[Any], str]],
     counts: set[str],
     causes: dict[str, str],
-) -> Table:
-    """One frame of ``overrides`` as a Rich table (data as ``Text``, never markup)."""
-    from rich.table import Table
+    width: int,
+    groups: tuple[str, ...],
+) -> list[str]:
+    """One frame of ``overrides`` as the lines of a table fitted to ``width``: columns are
+    dropped (lowest priority first, and named) rather than a figure cut short; data as ``Text``,
+    never markup. ``groups``: a breakdown's grouping columns, which name its rows and stay."""
     from rich.text import Text
 
     from triage.core import history
-    from triage.core.text import longest_word, visible
+    from triage.core.text import visible
     from triage.render.report import fmt_int
+    from triage.render.scorecard import Column, fitted_table
 
-    table = Table(box=None, pad_edge=False, show_edge=False, header_style="bold")
+    columns: list[Column] = []
     for name in frame.columns:
         numeric = name in formats or name in counts
-        heading = SUMMARY_HEADINGS.get(name, name.replace("_", " "))
-        table.add_column(
-            heading,
-            justify="right" if numeric else "left",
-            no_wrap=numeric,
-            overflow="fold",
-            min_width=longest_word(heading),
-        )
-    for row in frame.itertuples(index=False):
-        cells = []
-        for name, value in zip(frame.columns, row, strict=True):
+        cells: list[Any] = []
+        for value in frame[name]:
             if name in formats:
                 shown = formats[name](_cell(value))
             elif name in counts:
@@ -467,5 +482,13 @@ def _rich_table(
             else:
                 shown = str(value)
             cells.append(Text(visible(shown)))
-        table.add_row(*cells)
-    return table
+        priority = 0 if name in groups else COLUMN_PRIORITY.get(name, 0)
+        heading = SUMMARY_HEADINGS.get(name, name.replace("_", " "))
+        columns.append((heading, "right" if numeric else "left", cells, priority))
+    # Ids and reviewers' names (up to 1,000 characters) end in an ellipsis, as in rank.
+    keys = tuple(
+        SUMMARY_HEADINGS.get(c, c.replace("_", " "))
+        for c in frame.columns
+        if c in (schema.ITEM, schema.LOCATION, "reviewer")
+    )
+    return fitted_table(columns, key_columns=keys, width=width)

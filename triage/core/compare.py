@@ -31,7 +31,7 @@ from dataclasses import dataclass
 import numpy as np
 import pandas as pd
 
-from triage.core import metrics
+from triage.core import metrics, schema
 from triage.core.errors import TriageError
 from triage.core.portfolio import Portfolio
 from triage.core.settings import SEASON, WINDOW
@@ -180,6 +180,9 @@ def parse_steps(text: str, names: Sequence[str], option: str = "--steps") -> tup
             )
         if step not in names:
             hint = f"Available: {available}."
+            bare = step.removeprefix(schema.COMPETING_PREFIX)
+            if bare != step and bare in names and bare not in BUILT_IN:
+                hint = f"Write {bare} for the column {step}: steps are named without its prefix."
             if step == SNAIVE:
                 hint += " snaive needs --season m with m > 1."
             raise TriageError(f"{option}: unknown forecast {step!r}.", hint=hint)
@@ -228,16 +231,21 @@ def compare(
     sums = _block_sums(portfolio, names, cols, season, chain, lags, by_series=by_series)
     if sums.cells.sum() == 0:
         worst = names[int(np.argmax(sums.missing))]
+        hint = (
+            "Each forecast must be present in the same periods; naive needs the previous "
+            "period's actual"
+            + (f", snaive the actual {season} periods back" if season > 1 else "")
+            + ". Try a longer --window"
+            + (" or a smaller --season." if season > 1 else ".")
+        )
+        if worst in portfolio.competing and sums.missing.max() == sums.window_cells:
+            hint = _no_history_hint(portfolio, worst, int(cols[0])) or hint
         raise TriageError(
             f"{portfolio.path}: no cell of the scoring window ({len(cols)} latest periods with "
             f"actual demand) has demand and every compared forecast ({', '.join(names)}); "
             f"{worst} is missing in {int(sums.missing.max()):,} of the "
             f"{sums.window_cells:,} cells with demand.",
-            hint="Each forecast must be present in the same periods; naive needs the previous "
-            "period's actual"
-            + (f", snaive the actual {season} periods back" if season > 1 else "")
-            + ". Try a longer --window"
-            + (" or a smaller --season." if season > 1 else "."),
+            hint=hint,
         )
     history = portfolio.demand[:, : portfolio.last_actual + 1]
     scale = metrics.naive_scale(history, season)
@@ -256,6 +264,21 @@ def compare(
         table=table,
         verdict=verdict(table),
         by_series=_series_table(portfolio, sums, series, names, chain) if by_series else None,
+    )
+
+
+def _no_history_hint(portfolio: Portfolio, name: str, first: int) -> str | None:
+    """What to do about a competing forecast missing in every window cell with demand, when a
+    longer window cannot help (it has no value before the window either); None when it can."""
+    values = portfolio.competing[name]
+    if (~np.isnan(values[:, :first])).any():
+        return None
+    column = f"{schema.COMPETING_PREFIX}{name}"
+    forward = (~np.isnan(values[:, portfolio.last_actual + 1 :])).any()
+    said = "has values only in the forward periods" if forward else "is empty"
+    return (
+        f"The column {column} {said}: fill in its values for the periods with actual demand, "
+        "or remove the column from the file to compare the other forecasts."
     )
 
 

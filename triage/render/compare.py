@@ -150,10 +150,15 @@ def verdict_lines(result: Comparison) -> list[str]:
         row = _row(result, after)
         units = row["fva_units"]
         p = row["p"]
-        if units > 0:
-            change = f"removes {number(units)} units of error ({percent(row['fva_pct'])})"
-        elif units < 0:
-            change = f"adds {number(-units)} units of error ({percent(-row['fva_pct'])})"
+        if units != 0:
+            amount = number(abs(units))
+            change = (
+                f"{'removes' if units > 0 else 'adds'} {amount} unit"
+                f"{'' if amount == '1' else 's'} of error"
+            )
+            # No share when the previous step had no error to share it of.
+            if not math.isnan(row["fva_pct"]):
+                change += f" ({percent(abs(row['fva_pct']))})"
         else:
             change = "leaves the error unchanged"
         if math.isnan(p):
@@ -212,9 +217,18 @@ def compare_table(portfolio: Portfolio, result: Comparison, window: int) -> str:
         table.add_column(name, justify=justify, no_wrap=True)  # type: ignore[arg-type]
     for row in zip(*(cells for _, _, cells in columns), strict=True):
         table.add_row(*row)
+    # Wide enough for every cell: a long forecast name widens the line, never cuts a figure.
+    natural = sum(
+        max(len(name), *(len(str(cell)) for cell in cells)) + 2 for name, _, cells in columns
+    )
     buffer = io.StringIO()
     console = Console(
-        file=buffer, width=200, color_system=None, markup=False, emoji=False, highlight=False
+        file=buffer,
+        width=max(200, natural),
+        color_system=None,
+        markup=False,
+        emoji=False,
+        highlight=False,
     )
     console.print(table)
     lines.extend(line.rstrip() for line in buffer.getvalue().rstrip("\n").split("\n"))
@@ -229,8 +243,8 @@ def compare_table(portfolio: Portfolio, result: Comparison, window: int) -> str:
         lines.append(f"MASE leaves out {count(mase_left)} series without a usable scale.")
     if dropped:
         lines.append(
-            f"MAPE leaves out {count(dropped)} cells with demand <= 0; MAPE cap counts them "
-            "as 100%."
+            f"MAPE leaves out {count(dropped)} cell{'' if dropped == 1 else 's'} with demand "
+            f"<= 0; MAPE cap counts {'it' if dropped == 1 else 'them'} as 100%."
         )
     lines.append("")
     lines.extend(verdict_lines(result))

@@ -786,7 +786,8 @@ def overall_sentence(data: ReportData) -> str:
         f"{fmt_int(row['adjustments'])} overridden periods with actuals, from "
         f"{fmt_int(row['decisions'])} decisions; {_helped(row)}{value}."
     )
-    if data.stat_name is not None:
+    # Against the statistical forecast only when there are realised overrides to value.
+    if data.stat_name is not None and row["adjustments"] > 0:
         sentence += " " + stat_sentence(data)
     return sentence
 

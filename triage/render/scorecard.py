@@ -353,6 +353,7 @@ def rank_table(
             if fva
             else []
         ),
+        *(_no_loss_lines(card) if fva else []),
         "",
     ]
     rank_col, rank_head = {
@@ -405,7 +406,7 @@ def rank_table(
         ("persistent", "left", list(shown["bias_flag"]), 0),
         ("pattern", "left", list(shown["pattern"]), 5),
     ]
-    lines.extend(_fitted_table(columns, key_columns=(schema.ITEM, schema.LOCATION)))
+    lines.extend(fitted_table(columns, key_columns=(schema.ITEM, schema.LOCATION)))
     if len(shown) < len(card):
         lines.append("")
         lines.append(
@@ -413,6 +414,20 @@ def rank_table(
             "use --top K, --cover F or --format csv for more"
         )
     return "\n".join(lines) + "\n"
+
+
+def _no_loss_lines(card: pd.DataFrame) -> list[str]:
+    """How many series have no step loss (no window cell with demand and both steps), which
+    ``--by fva`` lists last in key order; nothing when every series has one."""
+    none = int(card["fva_loss"].isna().sum())
+    if not none:
+        return []
+    if none == len(card):
+        return ["no series has a window cell with both steps: no loss, the list is in key order"]
+    return [
+        f"{none:,} of {len(card):,} series have no window cell with both steps: "
+        "no loss, listed last"
+    ]
 
 
 def group_table(
@@ -475,7 +490,7 @@ def group_table(
         ("flagged", "right", [number(v) for v in shown["flagged_series"]], 1),
         ("top series", "left", [Text(visible(str(v))) for v in shown["top_series"]], 6),
     ]
-    lines.extend(_fitted_table(columns, key_columns=(*by_columns, "top series")))
+    lines.extend(fitted_table(columns, key_columns=(*by_columns, "top series")))
     lines += [
         "",
         "abs err: the series' errors summed (what a series-by-series review fixes);",
@@ -525,14 +540,23 @@ _KEY_WIDTH = 24
 Column = tuple[str, str, list[Any], float]
 
 
-def _fitted_table(columns: list[Column], *, key_columns: tuple[str, ...]) -> list[str]:
+def fitted_table(
+    columns: list[Column], *, key_columns: tuple[str, ...], width: int | None = None
+) -> list[str]:
     """Lines of a plain table that fits the terminal's width: low-priority columns are dropped
     (and named below it) rather than any cell cut short; key columns end in an ellipsis beyond
-    ``_KEY_WIDTH``."""
+    ``_KEY_WIDTH``.
+
+    Args:
+        columns: The table's columns (see ``Column``), in order.
+        key_columns: Headers of the columns holding ids (cut to ``_KEY_WIDTH``).
+        width: The width to fit; None for the terminal's (120 when it has none).
+    """
     lines: list[str] = []
     all_columns = list(columns)
     columns = list(columns)
-    width = shutil.get_terminal_size((120, 24)).columns
+    if width is None:
+        width = shutil.get_terminal_size((120, 24)).columns
 
     def natural(cells: list[Any], header: str, key: bool) -> int:
         widest = max((len(str(c)) for c in cells), default=0)
