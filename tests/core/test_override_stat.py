@@ -244,3 +244,13 @@ def test_the_stat_name_setting_picks_another_competing_forecast(tmp_path: Path) 
     with pytest.raises(TriageError, match="forecast_stat") as caught:
         history.stat_forecast(portfolio, "stat", required=True)
     assert "forecast_engine" in (caught.value.hint or "")
+
+
+def test_stat_name_written_as_the_column_gets_the_name_to_write() -> None:
+    """`--stat-name forecast_stat` names the column, not the forecast: the hint says what to
+    write (docs/history.md, "Against the statistical forecast")."""
+    from triage.core.read import read_portfolio
+
+    sample = read_portfolio(Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv")
+    with pytest.raises(TriageError, match="Write --stat-name stat for the column forecast_stat"):
+        history.stat_forecast(sample, "forecast_stat", required=True)

@@ -381,12 +381,18 @@ def stat_forecast(portfolio: Portfolio, name: str, *, required: bool = False) ->
     found = portfolio.competing.get(name)
     if found is None and required:
         have = ", ".join(f"{schema.COMPETING_PREFIX}{n}" for n in portfolio.competing)
+        hint = (
+            f"Competing forecasts in the file: {have}."
+            if have
+            else f"The file has no {schema.COMPETING_PREFIX}<name> column; leave out --stat-name."
+        )
+        bare = name[len(schema.COMPETING_PREFIX) :]
+        if name.startswith(schema.COMPETING_PREFIX) and bare in portfolio.competing:
+            hint = f"Write --stat-name {bare} for the column {name}."
         raise TriageError(
             f"{portfolio.path}: no column {schema.COMPETING_PREFIX}{name} to value the overrides "
             "against.",
-            hint=f"Competing forecasts in the file: {have}."
-            if have
-            else f"The file has no {schema.COMPETING_PREFIX}<name> column; leave out --stat-name.",
+            hint=hint,
         )
     return found
 

@@ -446,7 +446,8 @@ def group_table(
     demand_total = float(table["demand"].sum())
     bias_total = float(table["bias"].sum())
     lines = [
-        f"{visible(portfolio.path.name)}: {portfolio.n_series:,} series in {len(table):,} groups "
+        f"{visible(portfolio.path.name)}: {portfolio.n_series:,} series in {len(table):,} "
+        f"group{'' if len(table) == 1 else 's'} "
         f"by {', '.join(visible(c) for c in by_columns)}, {portfolio.calendar.freq}, "
         f"window {win['first']} .. {win['last']} "
         f"({win['periods']} period{'' if win['periods'] == 1 else 's'})",
