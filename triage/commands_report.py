@@ -46,7 +46,7 @@ if TYPE_CHECKING:
     from triage.core.portfolio import Portfolio
 
 #: ``--by`` choices of ``triage overrides`` and the grouping each one asks ``summarise`` for.
-OVERRIDE_GROUPS = ("direction", "size", "reviewer", "root_cause", "cycle")
+OVERRIDE_GROUPS = ("direction", "size", "reviewer", "root_cause", "cycle", "group")
 
 
 def add_report_commands(sub: argparse._SubParsersAction) -> None:

@@ -93,3 +93,21 @@ def test_history_shows_each_series_part_of_the_group(folder: Path) -> None:
     assert "Forward forecast adjusted (group #1)" in row and "1-2: =740" in row
     alone = run("history", str(folder / "alone.sqlite"), "--item", "B", cwd=folder)
     assert "group #" not in alone.stdout
+
+
+def test_overrides_break_down_by_group(folder: Path) -> None:
+    """`--by group`: the group decision's lines under its name (worked by hand above: 4 lines,
+    value added −370), and the same values decided series by series under "series decisions"."""
+    grouped = _overrides(folder, "grouped.sqlite", "group")["rows"]
+    assert [r["group"] for r in grouped] == ["location=Lyon (#1)", "all"]
+    assert grouped[0]["adjustments"] == 4 and grouped[0]["value_added"] == -370.0
+    alone = _overrides(folder, "alone.sqlite", "group")["rows"]
+    assert [r["group"] for r in alone] == ["series decisions", "all"]
+    assert alone[0]["value_added"] == -370.0
+
+
+def test_overrides_offers_every_grouping_the_history_knows() -> None:
+    from triage.commands_report import OVERRIDE_GROUPS
+    from triage.core.history import GROUPINGS
+
+    assert set(OVERRIDE_GROUPS) == set(GROUPINGS)

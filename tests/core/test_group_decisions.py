@@ -209,8 +209,11 @@ def test_group_lines_are_carried_and_valued_like_series_lines(weeks: TwoWeeks, t
             results[path] = (review_tables(cycle), cycle.realised)
     (t_group, r_group), (t_alone, r_alone) = results[grouped], results[alone]
     # Week 2: period 11-09 has an actual (realised); 11-16 is still ahead and carried.
-    keep = [c for c in r_alone.columns if c != "event_id"]
+    keep = [c for c in r_alone.columns if c not in ("event_id", "group")]
     pd.testing.assert_frame_equal(r_group[keep], r_alone[keep])
+    # The breakdown by group names the group decision; the same lines alone are series lines.
+    assert set(r_group["group"]) == {f"location=Lyon (#{record.id})"}
+    assert set(r_alone["group"]) == {"series decisions"}
     assert len(r_group) == 4 and (r_group["period"] == WEEK2).all()
     # A: actual 80 +- 3 in week 11-09 (twoweeks: level - 20 - 3 at an even week), original 100,
     # adjusted 200: the override hurt by |200 - actual| - |100 - actual| = 100.

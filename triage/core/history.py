@@ -46,7 +46,7 @@ from __future__ import annotations
 import itertools
 import math
 from collections.abc import Mapping, Sequence
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import pandas as pd
@@ -83,7 +83,10 @@ GROUPINGS: dict[str, str] = {
     "direction": "direction",
     "size": "size",
     "cycle": "cycle",
+    "group": "group",
 }
+#: The ``group`` of a line that is a series decision's own, not a group decision's part.
+SERIES_DECISIONS = "series decisions"
 #: Label of the row that sums every line in ``summarise``.
 ALL = "all"
 
@@ -142,6 +145,7 @@ REALISED_COLUMNS: tuple[str, ...] = (
     "helped",
     "event_id",
     "series",
+    "group",
 )
 
 SUMMARY_COLUMNS: tuple[str, ...] = (
@@ -214,6 +218,16 @@ class DecisionLog:
     """The review cycle the ends were read for."""
     root_causes: tuple[Choice, ...]
     """The ledger's root-cause vocabulary (the default one without a ledger)."""
+    group_keys: Mapping[int, tuple[tuple[str, ...], tuple[str, ...]]] = field(default_factory=dict)
+    """Each group decision's grouping columns and key values, by id (``Ledger.group_keys``)."""
+
+    def group_label(self, group_id: int) -> str:
+        """``family=lighting, location=STH (#12)``; ``SERIES_DECISIONS`` for 0 (no group)."""
+        if not group_id:
+            return SERIES_DECISIONS
+        columns, values = self.group_keys.get(group_id, ((), ()))
+        keys = ", ".join(f"{c}={v}" for c, v in zip(columns, values, strict=False))
+        return f"{keys} (#{group_id})" if keys else f"group #{group_id}"
 
     @classmethod
     def read(cls, ledger: Ledger | None, as_of: str) -> DecisionLog:
@@ -223,7 +237,13 @@ class DecisionLog:
         decisions: list[Decision] = []
         for cycle in ledger.cycles():
             decisions.extend(ledger.current(cycle))
-        return cls(tuple(decisions), ledger.standing_ends(as_of), as_of, ledger.root_causes)
+        return cls(
+            tuple(decisions),
+            ledger.standing_ends(as_of),
+            as_of,
+            ledger.root_causes,
+            ledger.group_keys(),
+        )
 
     def current(self, cycle: str) -> list[Decision]:
         """The effective decisions of one cycle (``Ledger.current``)."""
@@ -279,6 +299,8 @@ def adjustment_lines(portfolio: Portfolio, log: DecisionLog) -> pd.DataFrame:
             "group_decision": np.repeat(
                 np.array([d.group_id or 0 for d in decisions], dtype=np.int64), counts
             ),
+            # The group in words, for the overrides' breakdown by group.
+            "group": repeat([log.group_label(d.group_id or 0) for d in decisions]),
         }
     )
     series = series_positions(portfolio, frame[schema.ITEM], frame[schema.LOCATION])
@@ -470,6 +492,7 @@ def realised_value(
             "helped": added > 0,
             "event_id": done["event_id"].to_numpy(dtype=np.int64),
             "series": series,
+            "group": done["group"].to_numpy(dtype=object),
         },
         columns=list(REALISED_COLUMNS),
     )
@@ -484,6 +507,11 @@ def _group_order(name: str, values: pd.Series) -> list[str]:
         return [b for b in SIZE_BANDS if b in present]
     if name == "direction":
         return [d for d in (UP, DOWN) if d in present]
+    if name == "group":
+        # Group decisions first, by label; the series decisions' own lines last.
+        return sorted(p for p in present if p != SERIES_DECISIONS) + (
+            [SERIES_DECISIONS] if SERIES_DECISIONS in present else []
+        )
     return sorted(present)
 
 

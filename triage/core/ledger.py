@@ -2533,6 +2533,17 @@ class Ledger:
             for h in heads
         ]
 
+    def group_keys(self) -> dict[int, tuple[tuple[str, ...], tuple[str, ...]]]:
+        """Every group decision's grouping columns and key values, by its id (one read of the
+        group table only; empty for a ledger older than schema 3)."""
+        if self.schema_version < 3:
+            return {}
+        with self._read() as con:
+            rows = con.execute(
+                "SELECT id, columns, key_values FROM group_decision WHERE kind = ?", (DECISION,)
+            ).fetchall()
+        return {r[0]: (tuple(json.loads(r[1])), tuple(json.loads(r[2]))) for r in rows}
+
     def cycles(self) -> list[str]:
         """Review cycles with at least one event, oldest first."""
         with self._read() as con:

@@ -26,6 +26,7 @@ TITLES = {
     "reviewer": "by reviewer",
     "root_cause": "by root cause",
     "cycle": "by review cycle",
+    "group": "by group decision (a series decision's own lines last)",
 }
 
 
