@@ -111,3 +111,30 @@ def test_overrides_offers_every_grouping_the_history_knows() -> None:
     from triage.core.history import GROUPINGS
 
     assert set(OVERRIDE_GROUPS) == set(GROUPINGS)
+
+
+def test_report_breaks_the_overrides_down_by_group(folder: Path) -> None:
+    out = folder / "report-grouped.html"
+    done = run(
+        "report",
+        str(folder / "erp_2026-w2.csv"),
+        "--ledger",
+        str(folder / "grouped.sqlite"),
+        "--to",
+        str(out),
+        cwd=folder,
+    )
+    assert done.returncode == 0, done.stderr
+    page = out.read_text(encoding="utf-8")
+    assert "<h3>By group decision</h3>" in page and "location=Lyon (#1)" in page
+    alone = folder / "report-alone.html"
+    run(
+        "report",
+        str(folder / "erp_2026-w2.csv"),
+        "--ledger",
+        str(folder / "alone.sqlite"),
+        "--to",
+        str(alone),
+        cwd=folder,
+    )
+    assert "By group decision" not in alone.read_text(encoding="utf-8")

@@ -152,6 +152,8 @@ async def test_group_decision_saved_whole_and_undone_whole(portfolio: Path) -> N
         )
         assert app.groups.decided()[group] == len(members)
         assert "saved: the group" in app.status_text
+        # Each member's history in the detail pane names the group decision it is a part of.
+        assert "(group #" in app._history_text(int(members[0])).plain
         ledger = Ledger.open(app.session.ledger.path)
         try:
             (decision,) = ledger.group_decisions()

@@ -152,6 +152,7 @@ SUMMARY_BY: dict[str, str | tuple[str, ...]] = {
     "reviewer": "reviewer",
     "root_cause": "root_cause",
     "cycle": "cycle",
+    "group": "group",
 }
 
 

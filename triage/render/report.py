@@ -622,6 +622,7 @@ GROUP_HEADERS = {
     "reviewer": "reviewer",
     "root_cause": "root cause",
     "cycle": "cycle",
+    "group": "group decision",
 }
 
 
@@ -939,6 +940,11 @@ def render_html(data: ReportData) -> str:
             "<h3>By cycle of the decision</h3>",
             f'<figure class="wide">{_cycle_chart(data.summaries["cycle"])}</figure>',
             _summary_table(data, "cycle").html(),
+            *(
+                ["<h3>By group decision</h3>", _summary_table(data, "group").html()]
+                if (data.realised["group"] != history.SERIES_DECISIONS).any()
+                else []
+            ),
             f"<h3>Every overridden period ({fmt_int(min(len(data.realised), LINES_MAX))} of "
             f"{fmt_int(len(data.realised))} shown)</h3>",
             _lines_table(data, with_location).html(),

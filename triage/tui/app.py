@@ -675,6 +675,8 @@ class TriageApp(App[None]):
             adj = f" {visible(e.adjustment)}" if e.adjustment else ""
             note = visible(e.note.splitlines()[0])[:200] if e.note else ""
             outcome = fmt.OUTCOME_SHORT.get(e.outcome or "", fmt.outcome_label(e.outcome))
+            if e.group_id:
+                outcome += f" (group #{e.group_id})"
             cause = fmt.cause_label(e.root_cause, self.options.root_causes)
             text.append(
                 f"  {e.cycle}  {outcome}{adj} ({cause}) by {who} at {fmt.when(e.recorded_at)}"
