@@ -347,3 +347,55 @@ def test_group_view_and_other_forecasts_in_a_real_terminal(tmp_path: Path) -> No
     finally:
         con.close()
     assert rows == [("adjusted", "1-2: use stat", "stat saw the promotion")]
+
+
+def test_group_decision_in_a_real_terminal(tmp_path: Path) -> None:
+    """At 80x24, typed fast: open on the groups (--group), decide the first group with x0.9 and
+    a note, see it counted, undo it whole; the ledger holds the group decision and its undo."""
+    portfolio = tmp_path / "week.csv"
+    shutil.copy(SAMPLE, portfolio)
+    ledger = tmp_path / "groups.sqlite"
+    triage = str(Path(sys.executable).with_name("triage"))
+    term = Tmux(
+        [
+            triage,
+            "review",
+            str(portfolio),
+            "--ledger",
+            str(ledger),
+            "--reviewer",
+            "grp",
+            "--group",
+            "family",
+        ],
+        tmp_path,
+    )
+    subprocess.run(
+        ["tmux", "-L", term.socket, "resize-window", "-t", term.name, "-x", "80", "-y", "24"],
+        check=False,
+    )
+    try:
+        term.wait_for("groups by family")
+        term.keys("a")
+        term.wait_for("Decision for the group")
+        term.keys("x0.9", "Tab", "family runs high", "C-s")
+        term.wait_for("saved: the group")
+        term.keys("u")
+        term.wait_for("Undo the group decision")
+        term.keys("y")
+        term.wait_for("undone: group decision")
+        term.keys("q")
+        deadline = time.monotonic() + 15
+        while term.alive() and time.monotonic() < deadline:
+            time.sleep(0.2)
+    finally:
+        term.kill()
+    con = sqlite3.connect(f"file:{ledger}?mode=ro", uri=True)
+    try:
+        groups = con.execute(
+            "SELECT kind, adjustment, note, key_values FROM group_decision ORDER BY id"
+        ).fetchall()
+    finally:
+        con.close()
+    assert [g[0] for g in groups] == ["decision", "undo"]
+    assert groups[0][1:] == ("x0.9", "family runs high", '["lighting"]')
