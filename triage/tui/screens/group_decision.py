@@ -11,7 +11,7 @@ from dataclasses import dataclass
 from typing import ClassVar
 
 from rich.text import Text
-from textual import on
+from textual import events, on
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Horizontal, Vertical, VerticalScroll
@@ -21,11 +21,12 @@ from textual.widgets.option_list import Option
 from triage.core import split
 from triage.core.adjust import USE, AdjustError
 from triage.core.group_review import GroupReview
+from triage.core.review import ChartSeries
 from triage.core.text import number, visible
 from triage.core.vocabulary import ADJUSTED, OUTCOMES, Choice
 from triage.tui import format as fmt
 from triage.tui.screens.base import Dialog
-from triage.tui.screens.decision import NoteArea
+from triage.tui.screens.decision import CHART_MIN_ROWS, NoteArea
 from triage.tui.widgets.chart import SeriesChart
 
 #: Series changes the preview lists.
@@ -144,8 +145,19 @@ class GroupDecisionScreen(Dialog[GroupDraft | None]):
         self.query_one("#decision-note", TextArea).border_title = "note (optional)"
         outcome_list.highlighted = [c.code for c in OUTCOMES].index(ADJUSTED)
         cause_list.highlighted = len(self._causes) - 1
+        self._fit(self.app.size.height)
         self._preview(self._adjustment)
         self.query_one("#decision-adjust", Input).focus()
+
+    def on_resize(self, event: events.Resize) -> None:
+        self._fit(event.size.height)
+
+    def _fit(self, rows: int) -> None:
+        """On a short terminal the whole screen, and neither chart nor the group's words (the
+        main screen shows them), so the preview sits under the adjustment field."""
+        self.set_class(rows < CHART_MIN_ROWS, "-short")
+        self.query_one("#decision-chart", SeriesChart).display = rows >= CHART_MIN_ROWS
+        self.query_one("#decision-card", Static).display = rows >= CHART_MIN_ROWS
 
     @on(Input.Changed, "#decision-adjust")
     def _adjust_changed(self, event: Input.Changed) -> None:
@@ -154,16 +166,15 @@ class GroupDecisionScreen(Dialog[GroupDraft | None]):
     def _preview(self, spec: str) -> bool:
         """Show what ``spec`` does to the total and to the series; True when it is valid."""
         preview = self.query_one("#decision-preview", Static)
-        chart = self.query_one("#decision-chart", SeriesChart)
         if not spec.strip():
             preview.update(Text("no adjustment: every series' forward forecast stays as it is"))
-            chart.show(self._review.chart(self._group))
+            self._draw(self._review.chart(self._group))
             return True
         try:
             result = self._review.preview(self._group, spec, basis=self.basis)
         except AdjustError as exc:
             preview.update(Text(str(exc), style="bold red"))
-            chart.show(self._review.chart(self._group))
+            self._draw(self._review.chart(self._group))
             return False
         session = self._review.session
         members = self._review.members(self._group)
@@ -190,8 +201,13 @@ class GroupDecisionScreen(Dialog[GroupDraft | None]):
             key = fmt.key_text(session.key(int(members[row])))
             lines.append(f"  {key}  {number(float(deltas[row]), 1, signed=True)} units")
         preview.update(Text("\n".join(visible(line) for line in lines)))
-        chart.show(self._review.chart(self._group, result.total.adjusted))
+        self._draw(self._review.chart(self._group, result.total.adjusted))
         return True
+
+    def _draw(self, data: ChartSeries) -> None:
+        chart = self.query_one("#decision-chart", SeriesChart)
+        if chart.display:
+            chart.show(data)
 
     def action_basis(self) -> None:
         self.basis = split.HISTORY if self.basis == split.FORECASTS else split.FORECASTS
