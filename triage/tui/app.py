@@ -1425,7 +1425,9 @@ class TriageApp(App[None]):
             return
         self.call_from_thread(self._group_saved, draft, record)
 
-    def _group_saved(self, draft: GroupDraft, record: GroupRecord) -> None:
+    def _apply_group(self, record: GroupRecord) -> GroupReview:
+        """A group decision or group undo is in the ledger: the session, the review state and
+        every row shown follow it."""
         review, session = self.groups, self.session
         assert review is not None and session is not None
         session.apply_group(record)
@@ -1435,6 +1437,10 @@ class TriageApp(App[None]):
         if self.in_groups:
             self._show_group_detail(self._q(GroupList).current)
         self._refresh_summary()
+        return review
+
+    def _group_saved(self, draft: GroupDraft, record: GroupRecord) -> None:
+        review = self._apply_group(record)
         self._status(
             f"saved: the group {review.label(draft.group)}: "
             f"{fmt.outcome_label(draft.outcome).lower()} for {int(review.size[draft.group])} "
@@ -1482,15 +1488,7 @@ class TriageApp(App[None]):
         self.call_from_thread(self._group_undone, record)
 
     def _group_undone(self, record: GroupRecord) -> None:
-        review, session = self.groups, self.session
-        assert review is not None and session is not None
-        session.apply_group(record)
-        review.forget()
-        self._q(GroupList).invalidate()
-        self._q(SeriesList).invalidate()
-        if self.in_groups:
-            self._show_group_detail(self._q(GroupList).current)
-        self._refresh_summary()
+        self._apply_group(record)
         self._status(f"undone: group decision (ledger group undo {record.id})")
 
     def _group_not_saved(self, draft: GroupDraft, error: str) -> None:
