@@ -30,61 +30,28 @@ from __future__ import annotations
 import argparse
 import dataclasses
 import json
-import math
 import statistics
-import subprocess
-import sys
 import time
 from pathlib import Path
 
 import numpy as np
 
-from tests.benchmarks.bench_rank import ROOT, measure, portfolio_file, triage_command
-
-
-def competing_file(out: Path, series: int, args: argparse.Namespace) -> Path:
-    """The generator's Parquet portfolio with its two competing forecasts (built once, cached)."""
-    n_items = math.ceil(series / args.locations)
-    plain = portfolio_file(out, n_items, args.locations, args)
-    path = plain.with_name(plain.stem + "-competing.parquet")
-    if not path.exists():
-        out.mkdir(parents=True, exist_ok=True)
-        print(f"generating {path.name} ...", file=sys.stderr, flush=True)
-        subprocess.run(
-            [
-                sys.executable, "-m", "sample.generate", "--out", str(path), "--competing",
-                "--items", str(n_items), "--locations", str(args.locations),
-                "--weeks", str(args.weeks), "--forward", str(args.forward),
-                "--seed", str(args.seed),
-            ],
-            check=True,
-            cwd=ROOT,
-        )  # fmt: skip
-    return path
+from tests.benchmarks.bench_rank import ROOT, alternate, built_portfolio, triage_command
 
 
 def end_to_end(series: int, args: argparse.Namespace) -> dict[str, object]:
     """``triage compare`` against ``triage rank`` on the same file, alternating, in processes."""
-    path = competing_file(args.out, series, args)
+    path = built_portfolio(series, args, competing=True)
     window = ["--window", str(args.window)]
-    commands = {
-        "rank": [*triage_command(), "rank", str(path), *window, "--format", "csv"],
-        "compare": [*triage_command(), "compare", str(path), *window, "--format", "csv"],
-    }
-    runs: dict[str, list[tuple[float, float]]] = {name: [] for name in commands}
-    for _ in range(args.repeat):
-        for name, cmd in commands.items():
-            run = measure([*cmd, "--output", "/dev/null"])
-            if run.returncode != 0:
-                raise SystemExit(f"{name} failed: {run.error}")
-            runs[name].append((run.seconds, float(run.peak_bytes or math.nan)))
-            print(
-                f"{series:,} {name}: {run.seconds:.2f} s, {(run.peak_bytes or 0) / 1e6:,.0f} MB",
-                file=sys.stderr,
-                flush=True,
-            )
-    seconds = {n: statistics.median(t for t, _ in r) for n, r in runs.items()}
-    peak = {n: statistics.median(m for _, m in r) for n, r in runs.items()}
+    out = ["--format", "csv", "--output", "/dev/null"]
+    seconds, peak, runs = alternate(
+        {
+            "rank": [*triage_command(), "rank", str(path), *window, *out],
+            "compare": [*triage_command(), "compare", str(path), *window, *out],
+        },
+        args.repeat,
+        f"{series:,}",
+    )
     return {
         "series": series,
         "file": path.name,
@@ -122,20 +89,7 @@ def main(argv: list[str] | None = None) -> int:
         return 0
     args.series = sizes[0]
 
-    n_items = math.ceil(args.series / args.locations)
-    path = portfolio_file(args.out, n_items, args.locations, args)
-    if not path.exists():
-        args.out.mkdir(parents=True, exist_ok=True)
-        print(f"generating {path.name} ...", file=sys.stderr, flush=True)
-        subprocess.run(
-            [
-                sys.executable, "-m", "sample.generate", "--out", str(path),
-                "--items", str(n_items), "--locations", str(args.locations),
-                "--weeks", str(args.weeks), "--forward", str(args.forward),
-                "--seed", str(args.seed),
-            ],
-            check=True,
-        )  # fmt: skip
+    path = built_portfolio(args.series, args)
 
     from triage.core.compare import compare
     from triage.core.ranking import scorecard

@@ -22,47 +22,18 @@ from __future__ import annotations
 
 import argparse
 import json
-import math
 import statistics
-import subprocess
-import sys
 from pathlib import Path
 
-from tests.benchmarks.bench_rank import ROOT, measure, portfolio_file, triage_command
+from tests.benchmarks.bench_rank import ROOT, alternate, built_portfolio, triage_command
 
 
 def bench(series: int, args: argparse.Namespace) -> dict[str, object]:
-    n_items = math.ceil(series / args.locations)
-    path = portfolio_file(args.out, n_items, args.locations, args)
-    if not path.exists():
-        args.out.mkdir(parents=True, exist_ok=True)
-        print(f"generating {path.name} ...", file=sys.stderr, flush=True)
-        subprocess.run(
-            [
-                sys.executable, "-m", "sample.generate", "--out", str(path),
-                "--items", str(n_items), "--locations", str(args.locations),
-                "--weeks", str(args.weeks), "--forward", str(args.forward),
-                "--seed", str(args.seed),
-            ],
-            check=True,
-            cwd=ROOT,
-        )  # fmt: skip
+    path = built_portfolio(series, args)
     base = [*triage_command(), "rank", str(path), "--format", "csv", "--output", "/dev/null"]
-    commands = {"rank": base, "rank_group": [*base, "--group", args.group]}
-    runs: dict[str, list[tuple[float, float]]] = {name: [] for name in commands}
-    for _ in range(args.repeat):
-        for name, cmd in commands.items():
-            run = measure(cmd)
-            if run.returncode != 0:
-                raise SystemExit(f"{name} failed: {run.error}")
-            runs[name].append((run.seconds, float(run.peak_bytes or math.nan)))
-            print(
-                f"{series:,} {name}: {run.seconds:.2f} s, {(run.peak_bytes or 0) / 1e6:,.0f} MB",
-                file=sys.stderr,
-                flush=True,
-            )
-    seconds = {n: statistics.median(t for t, _ in r) for n, r in runs.items()}
-    peak = {n: statistics.median(m for _, m in r) for n, r in runs.items()}
+    seconds, peak, runs = alternate(
+        {"rank": base, "rank_group": [*base, "--group", args.group]}, args.repeat, f"{series:,}"
+    )
     return {
         "series": series,
         "group": args.group,
@@ -85,10 +56,7 @@ def view(series: int, args: argparse.Namespace) -> dict[str, object]:
     from triage.core.review import ReviewSession
     from triage.core.settings import ScoreSettings
 
-    n_items = math.ceil(series / args.locations)
-    path = portfolio_file(args.out, n_items, args.locations, args)
-    if not path.exists():
-        raise SystemExit(f"{path} is missing: run without --view first to generate it")
+    path = built_portfolio(series, args)
     portfolio = read_portfolio(path)
     started = time.perf_counter()
     session = ReviewSession(

@@ -594,6 +594,52 @@ def portfolio_file(out: Path, n_items: int, n_locations: int, args: argparse.Nam
     return out / name
 
 
+def built_portfolio(series: int, args: argparse.Namespace, *, competing: bool = False) -> Path:
+    """The generator's Parquet portfolio of ``series`` series under ``args.out`` (built once,
+    then cached); ``competing`` adds its forecast_stat and forecast_customer columns."""
+    n_items = math.ceil(series / args.locations)
+    path = portfolio_file(args.out, n_items, args.locations, args)
+    if competing:
+        path = path.with_name(path.stem + "-competing.parquet")
+    if not path.exists():
+        args.out.mkdir(parents=True, exist_ok=True)
+        print(f"generating {path.name} ...", file=sys.stderr, flush=True)
+        subprocess.run(
+            [
+                sys.executable, "-m", "sample.generate", "--out", str(path),
+                *(["--competing"] if competing else []),
+                "--items", str(n_items), "--locations", str(args.locations),
+                "--weeks", str(args.weeks), "--forward", str(args.forward),
+                "--seed", str(args.seed),
+            ],
+            check=True,
+            cwd=ROOT,
+        )  # fmt: skip
+    return path
+
+
+def alternate(
+    commands: dict[str, list[str]], repeat: int, label: str
+) -> tuple[dict[str, float], dict[str, float], dict[str, list[tuple[float, float]]]]:
+    """Run each command in its own process, alternately, ``repeat`` times; return the median
+    seconds and peak bytes per command, and every (seconds, peak bytes) run."""
+    runs: dict[str, list[tuple[float, float]]] = {name: [] for name in commands}
+    for _ in range(repeat):
+        for name, cmd in commands.items():
+            run = measure(cmd)
+            if run.returncode != 0:
+                raise SystemExit(f"{name} failed: {run.error}")
+            runs[name].append((run.seconds, float(run.peak_bytes or math.nan)))
+            print(
+                f"{label} {name}: {run.seconds:.2f} s, {(run.peak_bytes or 0) / 1e6:,.0f} MB",
+                file=sys.stderr,
+                flush=True,
+            )
+    seconds = {n: statistics.median(t for t, _ in r) for n, r in runs.items()}
+    peak = {n: statistics.median(m for _, m in r) for n, r in runs.items()}
+    return seconds, peak, runs
+
+
 def parquet_to_csv(source: Path, target: Path) -> None:
     """The benchmark portfolio as CSV (text quoted, as Arrow's writer and many exports do)."""
     import pyarrow as pa
