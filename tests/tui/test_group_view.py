@@ -114,8 +114,9 @@ async def test_group_decision_dialog_previews_the_split(portfolio: Path) -> None
         await pilot.press("a")
         await wait_for(pilot, lambda: isinstance(app.screen, GroupDecisionScreen), "the dialog")
         app.screen.query_one("#decision-adjust", Input).value = "1-4: =1000"
-        await pilot.pause(0.2)
-        shown = str(app.screen.query_one("#decision-preview").render())
+        preview = app.screen.query_one("#decision-preview")
+        await wait_for(pilot, lambda: "group total:" in str(preview.render()), "the preview")
+        shown = str(preview.render())
         expected = app.groups.preview(group, "1-4: =1000")
         assert f"group total: {expected.total.description}" in shown
         assert "split by proportions of the series' forecasts" in shown

@@ -329,7 +329,8 @@ async def test_qa_go_to_finds_an_item_whose_id_holds_an_at_sign(tmp_path: Path) 
         while series_list.current == target:
             await pilot.press("j")
         burst(app, ["g", *"sku@site", "enter"])
-        await pilot.pause(0.5)
+        # Waits for the burst to be handled (a fixed pause was too short on a loaded machine).
+        await wait_for(pilot, lambda: series_list.current == target, "the jump to sku@site")
         assert series_list.current == target, app.status_text
 
 
