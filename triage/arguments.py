@@ -170,15 +170,68 @@ def load_config_of(args: argparse.Namespace) -> Config:
     return load_config(getattr(args, "config", None))
 
 
-def load_portfolio(args: argparse.Namespace, *, smallest_lag: bool = False) -> Portfolio:
+def load_portfolio(
+    args: argparse.Namespace, *, smallest_lag: bool = False, dataset: bool = False
+) -> Portfolio:
     """The portfolio named on the command line, read with the options of ``portfolio_args``.
+
+    With ``dataset``, a folder is read as a dataset of Parquet parts by the local engine
+    (``triage.core.dataset.read_dataset``); otherwise a folder is refused by the loader.
 
     Raises:
         TriageError: The file cannot be read or scored as it is (the loader's message).
     """
     from triage.core.read import read_portfolio
 
-    return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **read_args(args))
+    options = read_args(args)
+    if dataset and args.portfolio.is_dir():
+        from triage.core.dataset import read_dataset
+
+        refuse_sheet(args)
+        del options["sheet"]
+        return read_dataset(args.portfolio, smallest_lag=smallest_lag, **options)
+    return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **options)
+
+
+def refuse_sheet(args: argparse.Namespace) -> None:
+    """Refuse ``--sheet`` with a dataset, whose parts are Parquet files."""
+    if args.sheet is not None:
+        raise TriageError(
+            f"--sheet {args.sheet!r} was given, but {args.portfolio} is a dataset folder of "
+            "Parquet files, which have no sheets.",
+            hint="Leave out --sheet.",
+        )
+
+
+def engine_args(parser: argparse.ArgumentParser) -> None:
+    """Where a dataset folder is scored: ``--engine --workers --memory-limit --scheduler``."""
+    parser.add_argument(
+        "--engine",
+        choices=ENGINES,
+        default=ENGINES[0],
+        help="local: read a dataset folder in this process (default); dask: score it on a "
+        "Dask cluster (docs/scale.md)",
+    )
+    parser.add_argument(
+        "--workers",
+        type=int,
+        metavar="N",
+        help="--engine dask: worker processes of the local cluster (default: one per core)",
+    )
+    parser.add_argument(
+        "--memory-limit",
+        metavar="SIZE",
+        help="--engine dask: memory limit per worker of the local cluster, e.g. 6GB",
+    )
+    parser.add_argument(
+        "--scheduler",
+        metavar="ADDRESS",
+        help="--engine dask: run on an existing cluster, e.g. tcp://host:8786",
+    )
+
+
+#: The engines ``--engine`` chooses from; the first is the default.
+ENGINES = ("local", "dask")
 
 
 def refuse_overwriting(

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING
 from triage import __version__
 from triage.arguments import (
     config_arg,
+    engine_args,
     force_arg,
     format_arg,
     group_arg,
@@ -24,6 +25,7 @@ from triage.arguments import (
     portfolio_args,
     read_args,
     refuse_overwriting,
+    refuse_sheet,
     review_target,
     reviewer_arg,
     score_args,
@@ -40,6 +42,9 @@ from triage.core.settings import TARGET_SHARE, ScoreSettings
 from triage.core.vocabulary import BY_BIAS, BY_ERROR, ORDERS
 
 if TYPE_CHECKING:
+    import numpy as np
+    import pandas as pd
+
     from triage.core.config import Config
     from triage.core.portfolio import Portfolio
     from triage.tui.app import TriageApp
@@ -69,6 +74,7 @@ def build_parser() -> argparse.ArgumentParser:
     group_arg(rank)
     steps_arg(rank, "; fva_loss compares the last step with the one before it")
     format_arg(rank)
+    engine_args(rank)
     limit = rank.add_mutually_exclusive_group()
     limit.add_argument("--top", type=int, metavar="K", help="only the first K series (or groups)")
     setting_arg(
@@ -200,9 +206,7 @@ def _write_crash_log(exc: BaseException, argv: list[str], extra: str = "") -> Pa
 
 
 def _cmd_rank(args: argparse.Namespace) -> int:
-    from triage.core.ranking import leading_cover, require_scorable, scorecard
-    from triage.core.text import visible
-    from triage.render import scorecard as report
+    from triage.core.ranking import require_scorable, scorecard
 
     # --cover is checked here; the configuration's target share does not apply to rank.
     settings = ScoreSettings.from_args(args)
@@ -210,16 +214,84 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         refuse_overwriting([args.output], args.portfolio, force=args.force)
     if args.top is not None and args.top < 1:
         raise TriageError(f"--top must be at least 1, not {args.top}.")
-    portfolio = load_portfolio(args)
-    for notice in portfolio.notices:
-        # What the loader changed or skipped (ids kept as text, replaced control characters, a
-        # hidden sheet, renamed columns) is said on standard error, whatever the format.
-        print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
+    if args.engine == "dask":
+        return _rank_dask(args, settings)
+    portfolio = load_portfolio(args, dataset=True)
+    _notices(portfolio.notices)
     require_scorable(portfolio, settings.window)
     steps = steps_of(args, portfolio, settings.season)
     if args.group is not None:
         return _rank_groups(args, settings, portfolio)
     card = scorecard(portfolio, settings.window, settings.season, by=args.by, steps=steps)
+    return _show_rank(args, settings, portfolio, card, steps)
+
+
+def _notices(notices: Sequence[str]) -> None:
+    """What the loader changed or skipped (ids kept as text, replaced control characters, a
+    hidden sheet, renamed columns), said on standard error whatever the format."""
+    from triage.core.text import visible
+
+    for notice in notices:
+        print(f"triage: note: {visible(notice, multiline=True)}", file=sys.stderr)
+
+
+def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
+    """``triage rank DATASET --engine dask``: the scorecard made on a Dask cluster."""
+    from triage.core.dask_engine import ClusterOptions, cluster_client, score_dataset
+    from triage.core.ranking import NOTHING_TO_SCORE, SCORABLE_HINT, ranked
+
+    if not args.portfolio.is_dir():
+        raise TriageError(
+            f"--engine dask scores a dataset folder of Parquet files; {args.portfolio} is not a "
+            "folder.",
+            hint="Leave out --engine dask to rank one file, or give the dataset's folder.",
+        )
+    if args.group is not None:
+        raise TriageError(
+            "--group does not run on the Dask engine yet.",
+            hint="Leave out --engine dask: the local engine reads the dataset and groups it.",
+        )
+    refuse_sheet(args)
+    read = read_args(args)
+    cluster = ClusterOptions(
+        workers=args.workers, memory_limit=args.memory_limit, address=args.scheduler
+    )
+    with cluster_client(cluster) as client:
+        scored = score_dataset(
+            args.portfolio,
+            client,
+            window=settings.window,
+            season=settings.season,
+            steps=None if args.steps is None else (args.steps,),
+            columns=read["columns"],
+            options=read["options"],
+            lag=read["lag"],
+        )
+    _notices(scored.plan.notices)
+    if not (scored.measures.numbers["periods"] > 0).any():
+        cols = scored.plan.window_cols(settings.window)
+        raise TriageError(
+            f"{args.portfolio}: {NOTHING_TO_SCORE.format(periods=len(cols))}",
+            hint=SCORABLE_HINT,
+        )
+    card = ranked(scored.measures, args.by)
+    cols = scored.plan.window_cols(settings.window)
+    return _show_rank(args, settings, scored.described, card, scored.steps, cols=cols)
+
+
+def _show_rank(
+    args: argparse.Namespace,
+    settings: ScoreSettings,
+    portfolio: Portfolio,
+    card: pd.DataFrame,
+    steps: Sequence[str] | None,
+    *,
+    cols: np.ndarray | None = None,
+) -> int:
+    """Write the scorecard ``card`` of ``portfolio`` as ``rank``'s options ask."""
+    from triage.core.ranking import leading_cover
+    from triage.render import scorecard as report
+
     shown = card
     if args.cover is not None:
         shown = leading_cover(card, settings.target_share)
@@ -235,11 +307,18 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         return 0
     if args.format == "json":
         text = report.to_json(
-            portfolio, shown, settings.window, settings.season, by=args.by, steps=steps
+            portfolio, shown, settings.window, settings.season, by=args.by, steps=steps, cols=cols
         )
     else:
         text = report.rank_table(
-            portfolio, card, shown, settings.window, settings.season, by=args.by, steps=steps
+            portfolio,
+            card,
+            shown,
+            settings.window,
+            settings.season,
+            by=args.by,
+            steps=steps,
+            cols=cols,
         )
     _emit(text, args.output, force=args.force)
     return 0
@@ -291,7 +370,7 @@ def _cmd_check(args: argparse.Namespace) -> int:
 
     settings = ScoreSettings.from_args(args)
     # Several lags are reported (with the --lag choice), not refused.
-    portfolio = load_portfolio(args, smallest_lag=True)
+    portfolio = load_portfolio(args, smallest_lag=True, dataset=True)
     print(
         report.check_text(
             portfolio, settings.window, settings.season, lag_given=settings.lag is not None

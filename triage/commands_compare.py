@@ -58,7 +58,7 @@ def cmd_compare(args: argparse.Namespace) -> int:
     settings = ScoreSettings.from_args(args)
     if args.output is not None:
         refuse_overwriting([args.output], args.portfolio, force=args.force)
-    portfolio = load_portfolio(args)
+    portfolio = load_portfolio(args, dataset=True)
     for notice in portfolio.notices:
         note(notice)
     steps = steps_of(args, portfolio, settings.season)

@@ -146,7 +146,7 @@ def competing(monkeypatch: pytest.MonkeyPatch) -> dict[str, np.ndarray]:
         "low\x1b[31m": np.where(portfolio.demand > 0, portfolio.demand * 0.8, 1.0),
     }
     given = dataclasses.replace(portfolio, competing=forecasts)
-    monkeypatch.setattr(commands_compare, "load_portfolio", lambda args: given)
+    monkeypatch.setattr(commands_compare, "load_portfolio", lambda args, **_: given)
     return forecasts
 
 
@@ -192,7 +192,7 @@ def test_mape_warning_in_words(
     portfolio = read_portfolio(SAMPLE)
     low = np.where(portfolio.demand > 0, portfolio.demand * 0.7, 0.0)
     given = dataclasses.replace(portfolio, competing={"low": low}, forecast=portfolio.forecast)
-    monkeypatch.setattr(commands_compare, "load_portfolio", lambda args: given)
+    monkeypatch.setattr(commands_compare, "load_portfolio", lambda args, **_: given)
     assert cli.main(["compare", str(SAMPLE), "--format", "json"]) == 0
     doc = json.loads(capsys.readouterr().out)
     assert doc["verdict"]["mape_pick"] == "low" and doc["verdict"]["mape_warning"]

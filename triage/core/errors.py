@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 from pathlib import Path
+from typing import Any
 
 from triage.core.text import visible
 
@@ -22,6 +23,19 @@ class TriageError(Exception):
         # (an ESC in a file name could retitle the window) are shown as visible symbols.
         text = f"{self.message}\n  What to do: {self.hint}" if self.hint else self.message
         return visible(text, multiline=True)
+
+    def __reduce__(self) -> tuple[Any, ...]:
+        # A worker process of a partitioned run raises it and the command line prints it: it
+        # must cross processes whole, and the subclasses' constructors take other arguments.
+        return (_restored, (type(self), self.args, dict(self.__dict__)))
+
+
+def _restored(cls: type[TriageError], args: tuple[Any, ...], state: dict[str, Any]) -> TriageError:
+    """A pickled :class:`TriageError` (any subclass) as it was raised."""
+    error = cls.__new__(cls)
+    Exception.__init__(error, *args)
+    error.__dict__.update(state)
+    return error
 
 
 class LoadError(TriageError):

@@ -8,15 +8,23 @@ from __future__ import annotations
 
 import math
 
+import numpy as np
 import pandas as pd
 
 from triage.core import metrics
 from triage.core.portfolio import Portfolio
 
 
-def window_info(portfolio: Portfolio, window: int) -> dict[str, object]:
-    """First and last period of the scoring window and how many periods it holds."""
-    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+def window_info(
+    portfolio: Portfolio, window: int, cols: np.ndarray | None = None
+) -> dict[str, object]:
+    """First and last period of the scoring window and how many periods it holds.
+
+    ``cols``: the window's columns when ``portfolio`` describes a larger whole (a dataset scored
+    in parts, ``triage.core.dask_engine``); by default those of ``portfolio`` itself.
+    """
+    if cols is None:
+        cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
     cal = portfolio.calendar
     return {
         "first": cal.label(int(cols[0])),

@@ -83,6 +83,31 @@ class Calendar:
         return text
 
 
+@dataclass(frozen=True)
+class Grid:
+    """The calendar and latest actual column of a whole portfolio, to build a part of it on."""
+
+    calendar: Calendar
+    last_actual: int
+    lag: int | None = None
+    """The lag scored (None without a lag column)."""
+    lags: tuple[int, ...] = ()
+    """Every lag of the whole portfolio's history rows."""
+
+    def codes(self, period: pd.Series) -> np.ndarray:
+        """Every row's column on the calendar.
+
+        Raises:
+            ValueError: A period is not on the calendar (the whole portfolio's calendar is made
+                from every part's periods, so this is a programming error).
+        """
+        stamps = pd.DatetimeIndex(period.to_numpy(dtype="datetime64[ns]"))
+        codes = np.asarray(self.calendar.periods.get_indexer(stamps))
+        if (codes < 0).any():
+            raise ValueError("a period of the part is not on the portfolio's calendar")
+        return codes.astype(_index_dtype(len(self.calendar.periods)), copy=False)
+
+
 class UnitPrices:
     """Unit value per series and period, stored as one price per series plus the rows that change.
 
@@ -349,6 +374,7 @@ def build_portfolio(
     lag: int | None = None,
     consume: bool = False,
     smallest_lag: bool = False,
+    grid: Grid | None = None,
 ) -> Portfolio:
     """Check the whole-portfolio rules and scatter the long rows into dense arrays.
 
@@ -362,6 +388,9 @@ def build_portfolio(
         smallest_lag: With several lags in the history and no ``lag``, score the smallest one
             instead of refusing (``triage check`` reports the lags and the choice); ``lags``
             lists them all.
+        grid: Build a part of a larger portfolio on the whole portfolio's calendar and latest
+            actual period (``triage.core.dataset``), which checked them; the part's own rows
+            need not cover either.
 
     Competing forecasts (frame columns ``forecast_<name>``) become ``Portfolio.competing``:
     each value is taken from the row ``forecast`` is taken from (the chosen lag in the history,
@@ -385,11 +414,14 @@ def build_portfolio(
     has_price = schema.PRICE in frame.columns
 
     series, keys_unique = _series_codes(frame, key_columns)
-    calendar, period = _calendar_codes(loaded, len(keys_unique))
+    if grid is None:
+        calendar, period = _calendar_codes(loaded, len(keys_unique))
+    else:
+        calendar, period = grid.calendar, grid.codes(frame[schema.PERIOD])
     n_series, n_periods = len(keys_unique), len(calendar.periods)
 
     demand_col = frame[schema.DEMAND].to_numpy(dtype=np.float64)
-    last_actual = _last_actual(period, demand_col)
+    last_actual = _last_actual(period, demand_col) if grid is None else grid.last_actual
     if last_actual < 0:
         raise LoadError(
             path,
@@ -399,7 +431,10 @@ def build_portfolio(
 
     lag_col = frame[schema.LAG].to_numpy(dtype=np.int64) if has_lag else None
     _check_duplicates(loaded, series, period, lag_col, key_columns, n_series, n_periods)
-    lags = _history_lags(lag_col, period, last_actual) if lag_col is not None else ()
+    if grid is not None:
+        lags, lag = grid.lags, grid.lag
+    else:
+        lags = _history_lags(lag_col, period, last_actual) if lag_col is not None else ()
     if lag is not None and not has_lag:
         raise LoadError(
             path,
@@ -407,7 +442,10 @@ def build_portfolio(
             "in it is of one (unnamed) lag.",
             hint="Leave out --lag, or load the file that holds the forecast lags.",
         )
-    chosen = _choose_lag(path, lags, lag, smallest=smallest_lag) if has_lag else None
+    if grid is not None:
+        chosen = grid.lag
+    else:
+        chosen = _choose_lag(path, lags, lag, smallest=smallest_lag) if has_lag else None
 
     # The later steps need the keys' codes only; the rows' key columns can go.
     attribute_rows = (

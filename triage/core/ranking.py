@@ -9,8 +9,8 @@ reward forecasts that are too low.
 from __future__ import annotations
 
 import concurrent.futures
-from collections.abc import Sequence
-from typing import Any
+from collections.abc import Callable, Sequence
+from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
@@ -47,6 +47,10 @@ def scorecard(
     ``fva_loss_value`` (priced only), ``pattern``, ``adi``, ``cv2``, then the attribute
     columns. The frame's index is the series' position in the portfolio.
 
+    Two steps: :func:`series_measures` scores each series on its own, :func:`ranked` places
+    every series among all the others. A partitioned run (``triage.core.engine``) runs the
+    first on each part and the second once, on the parts' measures in key order.
+
     Args:
         portfolio: The portfolio to score.
         window: Latest calendar periods holding any actual demand to score over.
@@ -60,14 +64,79 @@ def scorecard(
     """
     if by not in ORDERS:
         raise ValueError(f"by must be one of {ORDERS}")
+    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+    return ranked(series_measures(portfolio, cols, season, steps), by)
+
+
+@dataclass(frozen=True)
+class SeriesMeasures:
+    """Every series' own measures, in position order (key order), before any ranking.
+
+    ``numbers`` holds the numeric scorecard columns that do not depend on other series, in
+    scorecard order; ``flag`` and ``pattern`` are codes (``bias_flag`` −1/0/+1, an index into
+    ``metrics.PATTERNS``); ``text(name, order)`` gives a key or attribute column of the series
+    ``order`` as a ``str`` array.
+    """
+
+    numbers: dict[str, np.ndarray]
+    flag: np.ndarray
+    pattern: np.ndarray
+    key_columns: tuple[str, ...]
+    attributes: tuple[str, ...]
+    text: Callable[[str, np.ndarray], pd.api.extensions.ExtensionArray]
+
+    @property
+    def priced(self) -> bool:
+        """Whether the measures are in value too (the portfolio has prices)."""
+        return "abs_error_value" in self.numbers
+
+    def __len__(self) -> int:
+        return len(self.flag)
+
+
+#: The numeric columns of :class:`SeriesMeasures`, in scorecard order (priced ones included).
+MEASURE_COLUMNS: tuple[str, ...] = (
+    "periods",
+    "demand",
+    "forecast",
+    "abs_error",
+    "bias",
+    "bias_pct",
+    "wape",
+    "mae",
+    "rmse",
+    "abs_error_value",
+    "bias_value",
+    "tracking_signal",
+    "bias_run",
+    "bias_pvalue",
+    "mase",
+    "fva",
+    "fva_loss",
+    "fva_loss_value",
+    "adi",
+    "cv2",
+)
+
+
+def series_measures(
+    portfolio: Portfolio,
+    cols: np.ndarray,
+    season: int = SEASON.default,
+    steps: Sequence[str] | None = None,
+) -> SeriesMeasures:
+    """Score every series of ``portfolio`` on its own over the calendar columns ``cols``.
+
+    ``cols`` is the scoring window (``metrics.window_columns`` of the whole portfolio); a part of
+    a portfolio is scored over the whole portfolio's window, on the whole portfolio's calendar.
+    """
     if season < 1:
         raise ValueError("season must be at least 1")
-    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
     # The window is nearly always a run of adjacent columns: slice it (views, no copies).
     picked = as_slice(cols)
     history = portfolio.demand[:, : portfolio.last_actual + 1]
-    # The history scans run on a worker thread while this one does the window measures, the
-    # ranking and the gathering of every other column (numpy releases the GIL in its loops).
+    # The history scans run on a worker thread while this one does the window measures (numpy
+    # releases the GIL in its loops).
     with concurrent.futures.ThreadPoolExecutor(max_workers=2) as pool:
         history_job = pool.submit(metrics.history_measures, history, season)
         fva_job = pool.submit(
@@ -79,38 +148,8 @@ def scorecard(
             portfolio.demand[:, picked], portfolio.forecast[:, picked], price_w
         )
         del price_w
-
-        priced = wm.abs_error_value is not None
-        error: np.ndarray = wm.abs_error_value if priced else wm.abs_error  # type: ignore[assignment]
-        bias_size = np.abs(wm.bias_value if wm.bias_value is not None else wm.bias)
-        flag = wm.bias_flag
-
-        n = len(error)
-        error_order = descending_order(error)
-        rank = np.empty(n, dtype=np.int64)
-        rank[error_order] = np.arange(1, n + 1)
-        bias_order = bias_ordering(flag, bias_size)
-        bias_rank = np.empty(n, dtype=np.int64)
-        bias_rank[bias_order] = np.arange(1, n + 1)
-
-        share, cum = error_shares(error, error_order)
         mae = wm.mae
-        step = step_job.result()
-        step_loss = step.loss_value if step.loss_value is not None else step.loss
-        # Largest loss first; NaN (no comparable cell) sorts last; ties by key.
-        fva_order = descending_order(step_loss)
-        fva_rank = np.empty(n, dtype=np.int64)
-        fva_rank[fva_order] = np.arange(1, n + 1)
-        order = {BY_ERROR: error_order, BY_BIAS: bias_order, BY_FVA: fva_order}[by]
-
-        # Every column is built once, already in review order (no frame-wide reordering copy).
-        data: dict[str, object] = {
-            c: portfolio.text_column(c, order) for c in portfolio.key_columns
-        }
-        columns: dict[str, Any] = {
-            "rank": rank,
-            "bias_rank": bias_rank,
-            "fva_rank": fva_rank,
+        numbers: dict[str, np.ndarray] = {
             "periods": wm.periods,
             "demand": wm.demand,
             "forecast": wm.forecast,
@@ -121,30 +160,74 @@ def scorecard(
             "mae": mae,
             "rmse": wm.rmse,
         }
-        if priced:
-            columns.update(abs_error_value=wm.abs_error_value, bias_value=wm.bias_value)
-        columns.update(
-            error_share=share,
-            cum_share=cum,
+        if wm.abs_error_value is not None and wm.bias_value is not None:
+            numbers.update(abs_error_value=wm.abs_error_value, bias_value=wm.bias_value)
+        numbers.update(
             tracking_signal=wm.tracking_signal,
             bias_run=wm.bias_run,
             bias_pvalue=wm.bias_pvalue,
         )
-        for name, values in columns.items():
-            data[name] = values[order]
-        data["bias_flag"] = _labels(("under", "", "over"), (flag + 1)[order])
-        later = {name: portfolio.text_column(name, order) for name in portfolio.attributes}
+        flag = wm.bias_flag
+        step = step_job.result()
         (scale, pattern), fva = history_job.result(), fva_job.result()
-
-    data["mase"] = metrics._ratio(mae, scale)[order]
-    data["fva"] = fva[order]
-    data["fva_loss"] = step.loss[order]
+    numbers.update(mase=metrics._ratio(mae, scale), fva=fva, fva_loss=step.loss)
     if step.loss_value is not None:
-        data["fva_loss_value"] = step.loss_value[order]
-    data["pattern"] = _labels(metrics.PATTERNS, pattern.pattern[order])
-    data["adi"] = pattern.adi[order]
-    data["cv2"] = pattern.cv2[order]
-    data.update(later)
+        numbers["fva_loss_value"] = step.loss_value
+    numbers.update(adi=pattern.adi, cv2=pattern.cv2)
+    return SeriesMeasures(
+        numbers=numbers,
+        flag=flag,
+        pattern=pattern.pattern,
+        key_columns=portfolio.key_columns,
+        attributes=portfolio.attributes,
+        text=portfolio.text_column,
+    )
+
+
+def ranked(measures: SeriesMeasures, by: str = BY_ERROR) -> pd.DataFrame:
+    """The scorecard of :func:`scorecard`: ranks, shares and every column, in review order.
+
+    Ties in every order break by position, so ``measures`` must be in key order.
+    """
+    if by not in ORDERS:
+        raise ValueError(f"by must be one of {ORDERS}")
+    numbers = measures.numbers
+    priced = measures.priced
+    error = numbers["abs_error_value"] if priced else numbers["abs_error"]
+    bias_size = np.abs(numbers["bias_value"] if priced else numbers["bias"])
+    flag = measures.flag
+
+    n = len(error)
+    error_order = descending_order(error)
+    rank = np.empty(n, dtype=np.int64)
+    rank[error_order] = np.arange(1, n + 1)
+    bias_order = bias_ordering(flag, bias_size)
+    bias_rank = np.empty(n, dtype=np.int64)
+    bias_rank[bias_order] = np.arange(1, n + 1)
+    share, cum = error_shares(error, error_order)
+    # Largest loss first; NaN (no comparable cell) sorts last; ties by key.
+    step_loss = numbers["fva_loss_value"] if priced else numbers["fva_loss"]
+    fva_order = descending_order(step_loss)
+    fva_rank = np.empty(n, dtype=np.int64)
+    fva_rank[fva_order] = np.arange(1, n + 1)
+    order = {BY_ERROR: error_order, BY_BIAS: bias_order, BY_FVA: fva_order}[by]
+
+    # Every column is built once, already in review order (no frame-wide reordering copy).
+    data: dict[str, object] = {c: measures.text(c, order) for c in measures.key_columns}
+    data.update(rank=rank[order], bias_rank=bias_rank[order], fva_rank=fva_rank[order])
+    for name in MEASURE_COLUMNS[: MEASURE_COLUMNS.index("tracking_signal")]:
+        if name in numbers:
+            data[name] = numbers[name][order]
+    data.update(error_share=share[order], cum_share=cum[order])
+    for name in ("tracking_signal", "bias_run", "bias_pvalue"):
+        data[name] = numbers[name][order]
+    data["bias_flag"] = _labels(("under", "", "over"), (flag + 1)[order])
+    for name in ("mase", "fva", "fva_loss", "fva_loss_value"):
+        if name in numbers:
+            data[name] = numbers[name][order]
+    data["pattern"] = _labels(metrics.PATTERNS, measures.pattern[order])
+    data.update(adi=numbers["adi"][order], cv2=numbers["cv2"][order])
+    data.update({name: measures.text(name, order) for name in measures.attributes})
     return pd.DataFrame(data, index=pd.Index(order), copy=False)
 
 
@@ -219,10 +302,15 @@ def unscorable(portfolio: Portfolio, window: int) -> str | None:
         )
         if both.any():
             return None
-    return (
-        f"no period of the scoring window ({len(cols)} latest periods with actual demand) has "
-        "both an actual and a forecast, so there is nothing to score."
-    )
+    return NOTHING_TO_SCORE.format(periods=len(cols))
+
+
+#: Why a portfolio cannot be scored (:func:`unscorable`), and what to do.
+NOTHING_TO_SCORE = (
+    "no period of the scoring window ({periods} latest periods with actual demand) has both an "
+    "actual and a forecast, so there is nothing to score."
+)
+SCORABLE_HINT = "Include the forecasts that were made for the latest periods with actuals."
 
 
 def require_scorable(portfolio: Portfolio, window: int) -> None:
@@ -235,5 +323,5 @@ def require_scorable(portfolio: Portfolio, window: int) -> None:
     if problem is not None:
         raise TriageError(
             f"{portfolio.path}: {problem}",
-            hint="Include the forecasts that were made for the latest periods with actuals.",
+            hint=SCORABLE_HINT,
         )

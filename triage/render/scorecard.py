@@ -249,6 +249,7 @@ def to_json(
     *,
     by: str = ranking.BY_ERROR,
     steps: Sequence[str] | None = None,
+    cols: np.ndarray | None = None,
 ) -> str:
     """The scorecard as one JSON document: what was scored, then one object per series.
 
@@ -259,6 +260,8 @@ def to_json(
         season: Seasonal period of the naive baseline.
         by: The order of the rows (``ranking.ORDERS``).
         steps: The process steps ``fva_loss`` was measured along (None: the default chain).
+        cols: The window's columns when ``portfolio`` describes a larger whole
+            (``output.window_info``).
     """
     records = []
     columns = list(card.columns)
@@ -270,7 +273,7 @@ def to_json(
         "cycle": portfolio.cycle,
         "frequency": portfolio.calendar.freq,
         "lag": portfolio.lag,
-        "window": window_info(portfolio, window),
+        "window": window_info(portfolio, window, cols),
         "season": season,
         "error_sign": "forecast - demand (positive = over-forecast)",
         "ranked_by": _ranked_by(by, portfolio.price is not None),
@@ -318,6 +321,7 @@ def rank_table(
     *,
     by: str = ranking.BY_ERROR,
     steps: Sequence[str] | None = None,
+    cols: np.ndarray | None = None,
 ) -> str:
     """A readable ranked list with a header of portfolio totals.
 
@@ -328,7 +332,7 @@ def rank_table(
     fva = by == ranking.BY_FVA
     previous, final = last_step(portfolio, season, steps) if fva else ("", "")
     tot = totals(card)
-    win = window_info(portfolio, window)
+    win = window_info(portfolio, window, cols)
     lines = [
         f"{visible(portfolio.path.name)}: {len(card):,} series, {portfolio.calendar.freq}, "
         f"window {win['first']} .. {win['last']} "

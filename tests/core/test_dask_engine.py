@@ -1,0 +1,121 @@
+"""The Dask engine gives the local engine's scorecard, whatever the dataset's partitioning.
+
+A local Dask cluster of two worker processes scores about 20,000 series cut three ways (whole
+series per file, one file per month, rows dealt at random); the reference is the local engine on
+the single file the dataset was cut from (see test_dataset.py for why that is a reference). Every
+column must agree to 1e-12 relative; ranks, flags and labels exactly.
+"""
+
+from __future__ import annotations
+
+import subprocess
+import sys
+from collections.abc import Iterator
+from pathlib import Path
+from typing import Any
+
+import pandas as pd
+import pyarrow as pa
+import pyarrow.parquet as pq
+import pytest
+
+from sample import generate
+from tests.core.datasets import LAYOUTS, write_layout
+from tests.core.test_dataset import same_scorecard
+from triage.core.dask_engine import ClusterOptions, cluster_client, score_dataset
+from triage.core.errors import LoadError, TriageError
+from triage.core.ranking import ranked, scorecard
+from triage.core.read import read_portfolio
+
+#: Items of the generated portfolio; each is stocked at generate.SAMPLE_LOCATIONS locations.
+ITEMS = 20_000 // generate.SAMPLE_LOCATIONS
+
+
+@pytest.fixture(scope="module")
+def source(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    path = tmp_path_factory.mktemp("dask-source") / "portfolio.parquet"
+    generate.write_parquet(path, ITEMS, competing=True)
+    return path
+
+
+@pytest.fixture(scope="module")
+def datasets(source: Path, tmp_path_factory: pytest.TempPathFactory) -> dict[str, Path]:
+    rows = pq.read_table(source).to_pandas()
+    base = tmp_path_factory.mktemp("dask-datasets")
+    return {layout: write_layout(rows, base / layout, layout) for layout in LAYOUTS}
+
+
+@pytest.fixture(scope="module")
+def client() -> Iterator[Any]:
+    with cluster_client(ClusterOptions(workers=2, memory_limit="2GB")) as running:
+        yield running
+
+
+@pytest.mark.parametrize("by", ["error", "bias"])
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_dask_scores_every_partitioning_as_the_single_file(
+    source: Path, datasets: dict[str, Path], client: Any, layout: str, by: str
+) -> None:
+    reference = scorecard(read_portfolio(source), by=by)
+    assert len(reference) >= 19_000
+    scored = score_dataset(datasets[layout], client, window=13, season=1)
+    same_scorecard(ranked(scored.measures, by), reference)
+    assert scored.described.path == datasets[layout]
+
+
+def test_dask_checks_the_steps_and_measures_them(
+    source: Path, datasets: dict[str, Path], client: Any
+) -> None:
+    steps = ("naive", "stat", "customer")
+    # A window of 8 and steps ending in customer: fva_loss measures customer against stat.
+    reference = scorecard(read_portfolio(source), 8, 1, by="fva", steps=steps)
+    scored = score_dataset(datasets["period"], client, window=8, season=1, steps=steps)
+    same_scorecard(ranked(scored.measures, "fva"), reference)
+    assert scored.steps == steps
+    with pytest.raises(TriageError, match="nowcast"):
+        score_dataset(datasets["period"], client, window=13, season=1, steps=("naive", "nowcast"))
+
+
+def test_a_bad_part_on_a_worker_is_named_by_part_and_row(
+    tmp_path: Path, datasets: dict[str, Path], client: Any
+) -> None:
+    folder = tmp_path / "bad"
+    folder.mkdir()
+    parts = sorted(datasets["period"].glob("*.parquet"))[:4]
+    for part in parts:
+        table = pq.read_table(part)
+        if part == parts[2]:
+            frame = table.to_pandas()
+            frame["forecast"] = frame["forecast"].map(lambda v: "" if pd.isna(v) else f"{v:g}")
+            frame.loc[2, "forecast"] = "n/a?"
+            table = pa.Table.from_pandas(frame, preserve_index=False)
+        pq.write_table(table, folder / part.name)
+    with pytest.raises(LoadError) as raised:
+        score_dataset(folder, client, window=13, season=1)
+    text = str(raised.value)
+    assert parts[2].name in text and "n/a?" in text and "row 3" in text
+
+
+#: The command line, as the installed ``triage`` script runs it.
+RUN = "import sys; from triage.cli import main; sys.exit(main(sys.argv[1:]))"
+
+
+def test_rank_engine_dask_writes_the_single_files_csv(
+    tmp_path: Path, source: Path, datasets: dict[str, Path]
+) -> None:
+    def rank(*args: str | Path) -> subprocess.CompletedProcess[bytes]:
+        return subprocess.run(
+            [sys.executable, "-c", RUN, "rank", *map(str, args)],
+            capture_output=True,
+            timeout=600,
+            check=False,
+        )
+
+    single = rank(source, "--format", "csv")
+    spread = rank(datasets["random"], "--engine", "dask", "--workers", "2", "--format", "csv")
+    assert spread.returncode == 0, spread.stderr.decode()
+    assert spread.stdout == single.stdout
+    refused = rank(source, "--engine", "dask")
+    assert refused.returncode == 2
+    assert b"--engine dask scores a dataset folder" in refused.stderr
+    assert b"Traceback" not in refused.stderr

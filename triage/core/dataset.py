@@ -1,0 +1,500 @@
+"""A portfolio kept as a folder of Parquet files: a dataset.
+
+A data lake keeps a large portfolio as many Parquet files under one folder, split by period (one
+file per month, every series in every file), by region or by load batch, often in folders named
+``field=value`` (hive-style partitions). This module reads such a folder as one portfolio, in
+steps that run the same in this process and on a cluster (``triage.core.dask_engine``):
+
+* :func:`open_dataset` finds the parts: every ``.parquet``/``.pq`` file below the folder, in
+  path order. Hidden files and names starting with ``_`` (``_SUCCESS``, ``_metadata``) are not
+  parts. A ``field=value`` folder adds the attribute ``field`` to the rows below it, unless the
+  files hold that column themselves.
+* :func:`read_part` reads and checks one part exactly as a single file is read
+  (``triage.core.read.load_frame``): a bad cell is named by its part and row.
+* :func:`summarise` keeps what the whole portfolio's checks need of a part (its columns, periods,
+  periods with actual demand, lags); :func:`plan_dataset` combines the summaries: the columns
+  (the same in every part), the calendar, the latest actual period, the scoring window and the
+  forecast lag.
+* :func:`score_part` scores whole series on the dataset's calendar
+  (``ranking.series_measures``), after refusing duplicate rows by part and row;
+  :func:`measures_of` puts the scored parts back in key order for ``ranking.ranked``.
+
+:func:`read_dataset` is the local engine: every part read in this process into one portfolio,
+which every command can use.
+"""
+
+from __future__ import annotations
+
+import urllib.parse
+from collections.abc import Sequence
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+
+from triage.core import schema
+from triage.core.dialect import FileOptions
+from triage.core.errors import LoadError
+from triage.core.portfolio import (
+    EXAMPLES,
+    Grid,
+    Portfolio,
+    _choose_lag,
+    build_portfolio,
+    calendar_from_uniques,
+    calendar_problem,
+)
+from triage.core.ranking import MEASURE_COLUMNS, SeriesMeasures, series_measures
+from triage.core.read.frame import LoadedFrame, load_frame
+from triage.core.text import visible
+
+#: File name endings of a dataset's parts.
+PART_SUFFIXES = (".parquet", ".pq")
+#: Columns :func:`read_part` adds: the part's number and each row's row number in its file.
+PART, ROW = "_part", "_row"
+#: Columns of a scored part that are codes, not scorecard columns.
+FLAG_CODE, PATTERN_CODE = "_flag", "_pattern"
+
+
+@dataclass(frozen=True)
+class Dataset:
+    """The parts of a dataset folder."""
+
+    folder: Path
+    files: tuple[Path, ...]
+    """Every part, in path order."""
+    fields: tuple[tuple[tuple[str, str], ...], ...]
+    """Each part's ``field=value`` folders below ``folder``, outermost first."""
+
+    def name(self, part: int) -> str:
+        """The part's path below the folder, for messages (``month=2026-01/part-0.parquet``)."""
+        return self.files[part].relative_to(self.folder).as_posix()
+
+
+def is_dataset(path: Path) -> bool:
+    """Whether ``path`` names a dataset (a folder) rather than one file."""
+    return path.is_dir()
+
+
+def open_dataset(folder: Path) -> Dataset:
+    """The parts of the dataset ``folder``.
+
+    Raises:
+        LoadError: The folder holds no Parquet file.
+    """
+    files = sorted(
+        p
+        for p in folder.rglob("*")
+        if p.is_file()
+        and p.suffix.lower() in PART_SUFFIXES
+        and not any(part.startswith((".", "_")) for part in p.relative_to(folder).parts)
+    )
+    if not files:
+        raise LoadError(
+            folder,
+            "this folder holds no Parquet file (.parquet or .pq), so it is not a dataset.",
+            hint="Point to a folder of Parquet files, or to one portfolio file.",
+        )
+    fields = tuple(_hive_fields(p.relative_to(folder)) for p in files)
+    return Dataset(folder=folder, files=tuple(files), fields=fields)
+
+
+def _hive_fields(relative: Path) -> tuple[tuple[str, str], ...]:
+    """The ``field=value`` folders of a part's path (values URI-decoded, as they are written)."""
+    found = []
+    for segment in relative.parts[:-1]:
+        name, sep, value = segment.partition("=")
+        if sep and name:
+            found.append((urllib.parse.unquote(name), urllib.parse.unquote(value)))
+    return tuple(found)
+
+
+def read_part(
+    dataset: Dataset,
+    part: int,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> LoadedFrame:
+    """Read and check part ``part`` as a single file is read, plus its folders' fields.
+
+    The frame gains :data:`PART` (the part's number) and :data:`ROW` (each row's row number in
+    its file), so that the checks that need whole series can name the rows after the parts have
+    been mixed.
+
+    Raises:
+        LoadError: As ``load_frame`` for the file; a folder field that names a key, period or
+            number column the files do not hold.
+    """
+    loaded = load_frame(dataset.files[part], columns=columns, options=options)
+    frame = loaded.frame
+    attributes = list(loaded.attributes)
+    for name, value in dataset.fields[part]:
+        if name in frame.columns:
+            continue
+        if schema.is_canonical(name):
+            raise LoadError(
+                dataset.files[part],
+                f"the folder {visible(name)}={visible(value)} gives '{visible(name)}' to the rows "
+                "below it, but triage reads that column from the files only.",
+                hint=f"Write the '{visible(name)}' column into the files of the dataset.",
+            )
+        frame[name] = pd.Categorical.from_codes(
+            np.zeros(len(frame), dtype=np.int8), categories=pd.Index([value], dtype=object)
+        )
+        attributes.append(name)
+    frame[PART] = np.full(len(frame), part, dtype=np.int32)
+    rows = loaded.rows(np.arange(len(frame)))
+    frame[ROW] = np.asarray(rows, dtype=np.int64)
+    return LoadedFrame(
+        frame=frame,
+        path=loaded.path,
+        first_row=loaded.first_row,
+        attributes=tuple(attributes),
+        notices=loaded.notices,
+    )
+
+
+@dataclass(frozen=True)
+class PartSummary:
+    """What the whole portfolio's checks need of one part."""
+
+    columns: tuple[str, ...]
+    """The canonical and attribute columns, in frame order."""
+    attributes: tuple[str, ...]
+    stamps: np.ndarray
+    """Distinct periods (int64 nanoseconds), sorted."""
+    actual: np.ndarray
+    """Distinct periods of the rows with actual demand."""
+    lag_stamps: np.ndarray
+    """Distinct (period, lag) pairs, n x 2 int64; empty without a lag column."""
+    rows: int
+    notices: tuple[str, ...]
+
+
+def summarise(loaded: LoadedFrame) -> PartSummary:
+    """The :class:`PartSummary` of a part read by :func:`read_part`."""
+    frame = loaded.frame
+    stamps = frame[schema.PERIOD].to_numpy(dtype="datetime64[ns]").view(np.int64)
+    has_demand = ~np.isnan(frame[schema.DEMAND].to_numpy(dtype=np.float64))
+    if schema.LAG in frame.columns:
+        pairs = np.column_stack([stamps, frame[schema.LAG].to_numpy(dtype=np.int64)])
+        lag_stamps = np.unique(pairs, axis=0)
+    else:
+        lag_stamps = np.empty((0, 2), dtype=np.int64)
+    return PartSummary(
+        columns=tuple(c for c in frame.columns if c not in (PART, ROW)),
+        attributes=loaded.attributes,
+        stamps=np.unique(stamps),
+        actual=np.unique(stamps[has_demand]),
+        lag_stamps=lag_stamps,
+        rows=len(frame),
+        notices=loaded.notices,
+    )
+
+
+@dataclass(frozen=True)
+class Plan:
+    """What every part is scored on: the whole dataset's columns, calendar, window and lag."""
+
+    dataset: Dataset
+    grid: Grid
+    actual_cols: np.ndarray
+    """The calendar columns up to the latest actual one that hold any actual demand."""
+    columns: tuple[str, ...]
+    attributes: tuple[str, ...]
+    rows: int
+    notices: tuple[str, ...]
+
+    @property
+    def key_columns(self) -> tuple[str, ...]:
+        return tuple(c for c in schema.KEY_ORDER if c in self.columns)
+
+    @property
+    def priced(self) -> bool:
+        return schema.PRICE in self.columns
+
+    def window_cols(self, window: int) -> np.ndarray:
+        """The scoring window's columns: ``metrics.window_columns`` of the whole portfolio."""
+        if window < 1:
+            raise ValueError("window must be at least 1")
+        return self.actual_cols[-window:]
+
+
+def plan_dataset(
+    dataset: Dataset,
+    summaries: Sequence[PartSummary],
+    *,
+    lag: int | None = None,
+    smallest_lag: bool = False,
+) -> Plan:
+    """Combine the parts' summaries into the whole dataset's :class:`Plan`.
+
+    Raises:
+        LoadError: Parts with other columns than the first, periods that are not one weekly or
+            monthly calendar, no actual demand anywhere, or a lag the history does not have (or
+            several without ``lag``).
+    """
+    first = summaries[0]
+    for part, summary in enumerate(summaries):
+        if summary.columns != first.columns:
+            raise LoadError(
+                dataset.files[part],
+                f"its columns ({_names(summary.columns)}) are not those of "
+                f"{visible(dataset.name(0))} ({_names(first.columns)}); every part of a dataset "
+                "holds the same columns.",
+                hint="Write every file of the dataset with the same columns, in the same order.",
+            )
+    uniques = pd.DatetimeIndex(
+        np.unique(np.concatenate([s.stamps for s in summaries])).view("datetime64[ns]")
+    )
+    found = calendar_from_uniques(uniques)
+    if found is None:
+        shown = ", ".join(stamp.strftime("%Y-%m-%d") for stamp in uniques[:EXAMPLES])
+        raise LoadError(
+            dataset.folder,
+            f"the periods of the dataset's parts ({shown}, ...) are not one weekly or monthly "
+            "calendar.",
+            hint="Check each part with `triage check PART`: every period is a week start (7 "
+            "days apart) or the first day of a month.",
+        )
+    calendar, codes = found
+    rows = sum(s.rows for s in summaries)
+    # The series count is not known before the parts are mixed; 1 leaves out the check that the
+    # dense arrays are not far larger than the rows (each part's arrays hold its own series).
+    problem = calendar_problem(calendar, codes, rows, 1)
+    if problem is not None:
+        raise LoadError(dataset.folder, problem[0], hint=problem[1])
+    position = pd.Series(np.arange(len(uniques)), index=uniques.asi8)
+    actual = np.unique(np.concatenate([s.actual for s in summaries]))
+    if not len(actual):
+        raise LoadError(
+            dataset.folder,
+            "no row of any part has actual demand: every demand cell is empty, so nothing can "
+            "be scored.",
+            hint="Include the demand history, not only the forward forecast.",
+        )
+    actual_cols = np.unique(codes[position.loc[actual].to_numpy()])
+    last_actual = int(actual_cols[-1])
+    chosen: int | None = None
+    lags: tuple[int, ...] = ()
+    if schema.LAG in first.columns:
+        pairs = np.concatenate([s.lag_stamps for s in summaries])
+        history = codes[position.loc[pairs[:, 0]].to_numpy()] <= last_actual
+        lags = tuple(int(v) for v in np.unique(pairs[history, 1]))
+        chosen = _choose_lag(dataset.folder, lags, lag, smallest=smallest_lag)
+    elif lag is not None:
+        raise LoadError(
+            dataset.folder,
+            f"--lag {lag} was given, but the dataset has no '{schema.LAG}' column: every forecast "
+            "in it is of one (unnamed) lag.",
+            hint="Leave out --lag, or load the dataset that holds the forecast lags.",
+        )
+    notices = tuple(dict.fromkeys(n for s in summaries for n in s.notices))
+    return Plan(
+        dataset=dataset,
+        grid=Grid(calendar=calendar, last_actual=last_actual, lag=chosen, lags=lags),
+        actual_cols=actual_cols,
+        columns=first.columns,
+        attributes=first.attributes,
+        rows=rows,
+        notices=notices,
+    )
+
+
+def _names(columns: Sequence[str]) -> str:
+    return ", ".join(visible(c) for c in columns)
+
+
+def check_duplicates(frame: pd.DataFrame, plan: Plan, *, some: bool = False) -> None:
+    """Refuse two rows for one (series, period, lag), naming each row's part and row.
+
+    ``some``: ``frame`` holds only some of the dataset's series, so the count is a lower bound.
+
+    Raises:
+        LoadError: Some (series, period[, lag]) is on more than one row.
+    """
+    on = [*plan.key_columns, schema.PERIOD, *([schema.LAG] if schema.LAG in frame.columns else [])]
+    twice = frame.duplicated(on, keep=False).to_numpy()
+    if not twice.any():
+        return
+    rows = frame.loc[twice].sort_values([*on, PART, ROW], kind="stable")
+    examples = []
+    for _, same in list(rows.groupby(on, sort=False, observed=True))[:EXAMPLES]:
+        head = same.iloc[0]
+        key = " @ ".join(visible(str(head[c])) for c in plan.key_columns)
+        stamp = pd.Timestamp(head[schema.PERIOD]).strftime("%Y-%m-%d")
+        lag_note = f", lag {int(head[schema.LAG])}" if schema.LAG in frame.columns else ""
+        where = "; ".join(
+            f"{visible(plan.dataset.name(int(p)))} row {int(r)}"
+            for p, r in zip(same[PART], same[ROW], strict=True)
+        )
+        examples.append(f"{key} / {stamp}{lag_note} at {where}")
+    what = "(series, period, lag)" if schema.LAG in frame.columns else "(series, period)"
+    count = len(rows.drop_duplicates(on))
+    raise LoadError(
+        plan.dataset.folder,
+        f"{'at least ' if some else ''}{count} {what} combinations appear on more than one row "
+        "of the dataset; they are not averaged or summed. For example:\n    "
+        + "\n    ".join(examples),
+        hint="Remove the duplicate rows, or add the column that tells them apart (location, lag).",
+    )
+
+
+def build_part(frame: pd.DataFrame, plan: Plan, *, some: bool = False) -> Portfolio:
+    """The portfolio of the whole series in ``frame`` (rows of :func:`read_part`), on the plan.
+
+    ``some``: ``frame`` holds only some of the dataset's series (:func:`check_duplicates`).
+
+    Raises:
+        LoadError: Duplicate rows, or a series without any price in a priced dataset.
+    """
+    check_duplicates(frame, plan, some=some)
+    loaded = LoadedFrame(
+        frame=frame.drop(columns=[PART, ROW]),
+        path=plan.dataset.folder,
+        first_row=1,
+        attributes=plan.attributes,
+        notices=plan.notices,
+    )
+    return build_portfolio(loaded, consume=True, grid=plan.grid)
+
+
+def score_part(
+    frame: pd.DataFrame,
+    plan: Plan,
+    cols: np.ndarray,
+    season: int,
+    steps: Sequence[str] | None,
+) -> pd.DataFrame:
+    """The measures of the whole series in ``frame`` over the window ``cols``: one row per
+    series, in key order.
+
+    Columns: the key columns, the numeric measures (``ranking.MEASURE_COLUMNS``, the value
+    ones where priced), the codes :data:`FLAG_CODE` and :data:`PATTERN_CODE`, then the
+    attributes. No rows give no rows, with those columns.
+    """
+    if frame.empty:
+        return _no_measures(plan)
+    portfolio = build_part(frame, plan, some=True)
+    measures = series_measures(portfolio, cols, season, steps)
+    return measures_frame(portfolio, measures)
+
+
+#: Measures that are whole numbers; every other one is float64.
+_WHOLE = ("periods", "bias_run")
+#: Measures only a priced portfolio has.
+_VALUED = ("abs_error_value", "bias_value", "fva_loss_value")
+
+
+def _no_measures(plan: Plan) -> pd.DataFrame:
+    """The columns of :func:`score_part` without a row."""
+    text = pd.StringDtype("pyarrow", na_value=np.nan)
+    data: dict[str, Any] = {c: pd.array([], dtype=text) for c in plan.key_columns}
+    for name in MEASURE_COLUMNS:
+        if name in _VALUED and not plan.priced:
+            continue
+        data[name] = np.empty(0, dtype=np.int64 if name in _WHOLE else np.float64)
+    data[FLAG_CODE] = np.empty(0, dtype=np.int8)
+    data[PATTERN_CODE] = np.empty(0, dtype=np.int8)
+    data.update({c: pd.array([], dtype=text) for c in plan.attributes})
+    return pd.DataFrame(data)
+
+
+def measures_frame(portfolio: Portfolio, measures: SeriesMeasures) -> pd.DataFrame:
+    """``measures`` of ``portfolio`` as one frame (see :func:`score_part`)."""
+    order = np.arange(portfolio.n_series)
+    data: dict[str, Any] = {c: measures.text(c, order) for c in measures.key_columns}
+    data.update(measures.numbers)
+    data[FLAG_CODE] = measures.flag
+    data[PATTERN_CODE] = measures.pattern
+    data.update({c: measures.text(c, order) for c in measures.attributes})
+    return pd.DataFrame(data, copy=False)
+
+
+def measures_of(frame: pd.DataFrame, plan: Plan) -> SeriesMeasures:
+    """The scored parts' rows (:func:`score_part`, in any order) as one portfolio's measures.
+
+    The rows are put in key order (item, then location, as the builder orders series), so that
+    every ranking breaks ties as a single file's would.
+    """
+    keys = plan.key_columns
+    # Equal keys share a code: np.unique's inverse, in sorted text order (the builder's).
+    codes = [np.unique(frame[c].to_numpy(dtype=str), return_inverse=True)[1] for c in keys]
+    order = np.lexsort(codes[::-1])
+    numbers = {
+        c: frame[c].to_numpy()[order] for c in frame.columns if c in _NUMERIC and c not in keys
+    }
+    texts = {
+        c: _text_array(frame[c], order) for c in (*keys, *plan.attributes) if c in frame.columns
+    }
+
+    def text(name: str, taken: np.ndarray) -> pd.api.extensions.ExtensionArray:
+        import pyarrow as pa
+
+        return pd.array(
+            texts[name].take(pa.array(taken)), dtype=pd.StringDtype("pyarrow", na_value=np.nan)
+        )
+
+    return SeriesMeasures(
+        numbers=numbers,
+        flag=frame[FLAG_CODE].to_numpy(dtype=np.int8)[order],
+        pattern=frame[PATTERN_CODE].to_numpy(dtype=np.int8)[order],
+        key_columns=keys,
+        attributes=plan.attributes,
+        text=text,
+    )
+
+
+def _text_array(column: pd.Series, order: np.ndarray) -> Any:
+    import pyarrow as pa
+
+    return pa.array(column.to_numpy(dtype=object)[order], type=pa.large_string())
+
+
+_NUMERIC = frozenset(MEASURE_COLUMNS)
+
+
+def read_dataset(
+    folder: Path,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+    lag: int | None = None,
+    smallest_lag: bool = False,
+) -> Portfolio:
+    """The local engine: every part of the dataset ``folder`` read here into one portfolio.
+
+    The portfolio is the one a single file holding every part's rows would give (same series,
+    calendar, arrays and measures); its ``path`` is the folder.
+
+    Raises:
+        LoadError: A part cannot be read (named with its row), or the parts do not make one
+            portfolio (see :func:`plan_dataset` and :func:`check_duplicates`).
+    """
+    dataset = open_dataset(folder)
+    parts = [
+        read_part(dataset, i, columns=columns, options=options) for i in range(len(dataset.files))
+    ]
+    plan = plan_dataset(dataset, [summarise(p) for p in parts], lag=lag, smallest_lag=smallest_lag)
+    frame = concat_parts([p.frame for p in parts])
+    del parts
+    return build_part(frame, plan)
+
+
+def concat_parts(frames: Sequence[pd.DataFrame]) -> pd.DataFrame:
+    """Rows of several parts as one frame; text columns stay categorical (their union)."""
+    from pandas.api.types import union_categoricals
+
+    if len(frames) == 1:
+        return frames[0]
+    data: dict[str, Any] = {}
+    for name in frames[0].columns:
+        pieces = [f[name] for f in frames]
+        if all(isinstance(p.dtype, pd.CategoricalDtype) for p in pieces):
+            data[name] = union_categoricals(pieces, ignore_order=True)
+        else:
+            data[name] = np.concatenate([p.to_numpy() for p in pieces])
+    return pd.DataFrame(data, copy=False)
