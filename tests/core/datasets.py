@@ -4,7 +4,9 @@
   also hold (``location=NTH/part-0.parquet``), which triage then ignores;
 * ``period``: one file per month, every series spread over every file (the common data-lake
   layout);
-* ``random``: rows dealt at random into files and shuffled inside each (a load-batch layout).
+* ``random``: rows dealt at random into files and shuffled inside each (a load-batch layout);
+* ``blocks``: runs of whole series in key order, one run per file (an export by item range),
+  which the Dask engine scores without mixing the parts' rows.
 """
 
 from __future__ import annotations
@@ -16,7 +18,7 @@ import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
 
-LAYOUTS = ("series", "period", "random")
+LAYOUTS = ("series", "period", "random", "blocks")
 
 
 def write_layout(frame: pd.DataFrame, folder: Path, layout: str, *, parts: int = 5) -> Path:
@@ -39,6 +41,14 @@ def write_layout(frame: pd.DataFrame, folder: Path, layout: str, *, parts: int =
         for k in range(parts):
             rows = frame[dealt == k]
             _write(rows.iloc[rng.permutation(len(rows))], folder / f"load-{k:03d}.parquet")
+    elif layout == "blocks":
+        keys = pd.DataFrame(
+            {"item": frame["item"].astype(str), "loc": frame["location"].astype(str)}
+        )
+        series = keys.groupby(["item", "loc"], sort=True).ngroup().to_numpy()
+        block = series * parts // (series.max() + 1)
+        for k in range(parts):
+            _write(frame[block == k], folder / f"items-{k:03d}.parquet")
     else:
         raise ValueError(layout)
     return folder

@@ -22,7 +22,7 @@ import pytest
 from sample import generate
 from tests.core.datasets import LAYOUTS, write_layout
 from triage.core import schema
-from triage.core.dataset import open_dataset, read_dataset
+from triage.core.dataset import open_dataset, quick_summary, read_dataset, read_part, summarise
 from triage.core.errors import LoadError, TriageError
 from triage.core.ranking import ranked, scorecard, series_measures
 from triage.core.read import read_portfolio
@@ -186,3 +186,24 @@ def test_errors_cross_processes_whole() -> None:
     assert (str(again), again.path, again.hint) == (str(error), error.path, "fix it")
     plain = pickle.loads(pickle.dumps(TriageError("no", hint="yes")))
     assert str(plain) == "no\n  What to do: yes"
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_the_quick_summary_is_the_summary_of_the_whole_part(
+    tmp_path: Path, rows: pd.DataFrame, layout: str
+) -> None:
+    # The Dask engine plans from summaries that read four columns; the local engine from parts
+    # read whole. Both must describe a part alike.
+    folder = write_layout(rows, tmp_path / layout, layout)
+    dataset = open_dataset(folder)
+    for part in range(len(dataset.files)):
+        quick = quick_summary(dataset, part)
+        whole = summarise(read_part(dataset, part))
+        assert (quick.columns, quick.attributes, quick.rows, quick.keys) == (
+            whole.columns,
+            whole.attributes,
+            whole.rows,
+            whole.keys,
+        )
+        for name in ("stamps", "actual", "lag_stamps"):
+            np.testing.assert_array_equal(getattr(quick, name), getattr(whole, name))

@@ -6,7 +6,8 @@ The steps are those of the local engine (``triage.core.dataset``), spread over t
    summary comes back (columns, periods, lags), from which the client makes the plan: the
    calendar, the latest actual period, the scoring window and the lag;
 2. the parts' rows are shuffled by series key (``dask.dataframe`` shuffle), so that each task
-   holds whole series, and every task scores its series with the kernel the local engine uses
+   holds whole series — unless the parts' key ranges show that each already does (a dataset
+   split by series) — and every task scores its series with the kernel the local engine uses
    (``ranking.series_measures``) on the plan's calendar;
 3. the measures, one row per series, come back to the client, which ranks them once
    (``ranking.ranked``): ranks, shares and cumulative shares are those of a single file.
@@ -31,21 +32,24 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from triage.core import schema
 from triage.core.dataset import (
     Dataset,
     PartSummary,
     Plan,
     build_part,
     measures_of,
+    on_grid,
     open_dataset,
     plan_dataset,
+    quick_summary,
     read_part,
     score_part,
-    summarise,
+    score_whole_part,
 )
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
-from triage.core.portfolio import Portfolio
+from triage.core.portfolio import Portfolio, UnitPrices
 from triage.core.ranking import SeriesMeasures
 
 #: Rows of the long data per scoring task: a task's dense arrays and rows stay well inside a
@@ -149,34 +153,112 @@ def score_dataset(
     )
     plan = plan_dataset(dataset, summaries, lag=lag)
     cols = plan.window_cols(window)
-    # The first part, here: it checks the steps and gives the shapes of the tasks' frames.
-    first = read_part(dataset, 0, columns=columns, options=options).frame
-    described = dataclasses.replace(build_part(first.copy(), plan), path=dataset.folder)
+    # The first series of the first part, on a worker: it describes the whole (calendar, lag,
+    # forecasts, prices) for the steps' check and the output, and gives the rows' shapes.
+    described, frame_meta = client.submit(
+        _described, plan=plan, dataset=dataset, columns=columns, options=options
+    ).result()
     chain = (
         None if steps is None else parse_steps(",".join(steps), forecast_names(described, season))
     )
-    frame_meta = _as_text(first.iloc[:0].copy())
-    meta = score_part(frame_meta, plan, cols, season, chain)
-    del first
-
-    # from_map takes ``columns`` for itself: the reader's arguments go in a partial.
-    reader = functools.partial(_part_rows, dataset=dataset, columns=columns, options=options)
-    rows = dd.from_map(  # type: ignore[no-untyped-call]
-        reader, parts, meta=frame_meta, enforce_metadata=False
-    )
-    tasks = max(len(dataset.files), math.ceil(plan.rows / ROWS_PER_TASK))
-    shuffled = rows.shuffle(on=list(plan.key_columns), npartitions=tasks)
-    scored = shuffled.map_partitions(
-        score_part, plan, cols, season, chain, meta=meta, enforce_metadata=False
-    )
-    frame = scored.compute()
+    with _workers_lost():
+        if plan.whole_series:
+            # Each part holds whole series: each is scored where it is read, nothing is mixed.
+            frames = client.gather(
+                client.map(
+                    _score_whole_part, parts, plan=plan, cols=cols, season=season, steps=chain,
+                    dataset=dataset, columns=columns, options=options,
+                )
+            )  # fmt: skip
+            frame = pd.concat(frames, ignore_index=True, copy=False)
+            del frames
+        else:
+            assert frame_meta is not None
+            meta = score_part(frame_meta, plan, cols, season, chain)
+            # from_map takes ``columns`` for itself: the reader's arguments go in a partial.
+            reader = functools.partial(
+                _part_rows, dataset=dataset, columns=columns, options=options
+            )
+            rows = dd.from_map(  # type: ignore[no-untyped-call]
+                reader, parts, meta=frame_meta, enforce_metadata=False
+            )
+            tasks = max(len(dataset.files), math.ceil(plan.rows / ROWS_PER_TASK))
+            rows = rows.shuffle(on=list(plan.key_columns), npartitions=tasks)
+            scored = rows.map_partitions(
+                score_part, plan, cols, season, chain, meta=meta, enforce_metadata=False
+            )
+            frame = scored.compute()
     return Scored(plan=plan, described=described, measures=measures_of(frame, plan), steps=chain)
+
+
+@contextlib.contextmanager
+def _workers_lost() -> Iterator[None]:
+    """A task whose workers kept dying (out of memory, most often) as a message, not a crash."""
+    from distributed import KilledWorker
+
+    try:
+        yield
+    except KilledWorker as exc:
+        raise TriageError(
+            f"the Dask workers died while scoring ({exc.task}): most often a part of the "
+            "dataset needs more memory than a worker may use.",
+            hint="Give the workers more memory (--memory-limit), use fewer workers on this "
+            "machine (--workers), or split the dataset into smaller files.",
+        ) from exc
+
+
+def _described(
+    *, plan: Plan, dataset: Dataset, columns: dict[str, str] | None, options: FileOptions | None
+) -> tuple[Portfolio, pd.DataFrame | None]:
+    """A portfolio of one series of the first part, on the dataset's calendar with the folder
+    as its path; and, when the rows are to be shuffled, the empty frame of the rows as the
+    shuffle carries them."""
+    if plan.whole_series and schema.LAG not in plan.columns:
+        from triage.core.read import read_portfolio
+
+        alone = read_portfolio(dataset.files[0], columns=columns, options=options)
+        return on_grid(first_series(alone), plan, dataset, 0), None
+    frame = read_part(dataset, 0, columns=columns, options=options).frame
+    first = frame[schema.ITEM] == frame[schema.ITEM].iloc[0]
+    described = dataclasses.replace(build_part(frame.loc[first].copy(), plan), path=dataset.folder)
+    return described, _as_text(frame.iloc[:0].copy())
+
+
+def first_series(portfolio: Portfolio) -> Portfolio:
+    """``portfolio`` cut to its first series (the rest of what describes it kept)."""
+    one = slice(0, 1)
+    price = portfolio.price
+    return dataclasses.replace(
+        portfolio,
+        keys=portfolio.keys.iloc[one].reset_index(drop=True),
+        demand=portfolio.demand[one].copy(),
+        forecast=portfolio.forecast[one].copy(),
+        price=None if price is None else UnitPrices.from_dense(price[one]),
+        competing={name: values[one].copy() for name, values in portfolio.competing.items()},
+        _text_codes={},
+    )
+
+
+def _score_whole_part(
+    part: int,
+    *,
+    plan: Plan,
+    cols: np.ndarray,
+    season: int,
+    steps: Sequence[str] | None,
+    dataset: Dataset,
+    columns: dict[str, str] | None,
+    options: FileOptions | None,
+) -> pd.DataFrame:
+    return score_whole_part(
+        dataset, part, plan, cols, season, steps, columns=columns, options=options
+    )
 
 
 def _summary(
     part: int, *, dataset: Dataset, columns: dict[str, str] | None, options: FileOptions | None
 ) -> PartSummary:
-    return summarise(read_part(dataset, part, columns=columns, options=options))
+    return quick_summary(dataset, part, columns=columns, options=options)
 
 
 def _part_rows(

@@ -25,6 +25,8 @@ which every command can use.
 
 from __future__ import annotations
 
+import dataclasses
+import itertools
 import urllib.parse
 from collections.abc import Sequence
 from dataclasses import dataclass
@@ -41,6 +43,7 @@ from triage.core.portfolio import (
     EXAMPLES,
     Grid,
     Portfolio,
+    UnitPrices,
     _choose_lag,
     build_portfolio,
     calendar_from_uniques,
@@ -131,16 +134,7 @@ def read_part(
     loaded = load_frame(dataset.files[part], columns=columns, options=options)
     frame = loaded.frame
     attributes = list(loaded.attributes)
-    for name, value in dataset.fields[part]:
-        if name in frame.columns:
-            continue
-        if schema.is_canonical(name):
-            raise LoadError(
-                dataset.files[part],
-                f"the folder {visible(name)}={visible(value)} gives '{visible(name)}' to the rows "
-                "below it, but triage reads that column from the files only.",
-                hint=f"Write the '{visible(name)}' column into the files of the dataset.",
-            )
+    for name, value in added_fields(dataset, part, frame.columns):
         frame[name] = pd.Categorical.from_codes(
             np.zeros(len(frame), dtype=np.int8), categories=pd.Index([value], dtype=object)
         )
@@ -155,6 +149,27 @@ def read_part(
         attributes=tuple(attributes),
         notices=loaded.notices,
     )
+
+
+def added_fields(dataset: Dataset, part: int, present: Sequence[str]) -> list[tuple[str, str]]:
+    """The part's ``field=value`` folders that add an attribute (the files lack the column).
+
+    Raises:
+        LoadError: A folder names a key, period or number column the files lack.
+    """
+    added = []
+    for name, value in dataset.fields[part]:
+        if name in present:
+            continue
+        if schema.is_canonical(name):
+            raise LoadError(
+                dataset.files[part],
+                f"the folder {visible(name)}={visible(value)} gives '{visible(name)}' to the rows "
+                "below it, but triage reads that column from the files only.",
+                hint=f"Write the '{visible(name)}' column into the files of the dataset.",
+            )
+        added.append((name, value))
+    return added
 
 
 @dataclass(frozen=True)
@@ -172,6 +187,8 @@ class PartSummary:
     """Distinct (period, lag) pairs, n x 2 int64; empty without a lag column."""
     rows: int
     notices: tuple[str, ...]
+    keys: tuple[tuple[str, ...], tuple[str, ...]] | None = None
+    """The part's smallest and largest series key (item, then location), None without rows."""
 
 
 def summarise(loaded: LoadedFrame) -> PartSummary:
@@ -192,7 +209,103 @@ def summarise(loaded: LoadedFrame) -> PartSummary:
         lag_stamps=lag_stamps,
         rows=len(frame),
         notices=loaded.notices,
+        keys=_key_range(frame),
     )
+
+
+def quick_summary(
+    dataset: Dataset,
+    part: int,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> PartSummary:
+    """:func:`summarise` of part ``part`` reading only its key, period, demand and lag columns.
+
+    The streamed reader (``triage.core.read.stream``) converts and checks those columns as the
+    full loader does; where it cannot vouch for a cell, the part is read and checked whole
+    (:func:`read_part`), which gives the same summary or the loader's error.
+    """
+    from triage.core.portfolio import DAY_NS
+    from triage.core.read import FastPathDeclined, scan_parquet
+
+    try:
+        source = scan_parquet(dataset.files[part], columns=columns, options=options)
+        keys = [c for c in schema.KEY_ORDER if c in source.columns]
+        has_lag = schema.LAG in source.columns
+        names = [*keys, schema.PERIOD, schema.DEMAND, *([schema.LAG] if has_lag else [])]
+        days, actual, lags, pairs = [], [], [], []
+        for chunk in source.chunks(names):
+            got = chunk.columns
+            period = got[schema.PERIOD].astype(np.int64)
+            days.append(np.unique(period))
+            actual.append(np.unique(period[~np.isnan(got[schema.DEMAND])]))
+            if has_lag:
+                lags.append(np.unique(np.column_stack([period, got[schema.LAG]]), axis=0))
+            pair = got[schema.ITEM].astype(np.int64) << 32
+            if schema.LOCATION in got:
+                pair |= got[schema.LOCATION].astype(np.int64)
+            pairs.append(np.unique(pair))
+        present = list(source.columns)
+        extra = [name for name, _ in added_fields(dataset, part, present)]
+        key_range = None
+        if pairs:
+            pair = np.unique(np.concatenate(pairs))
+            texts = [np.asarray(source.values(schema.ITEM), dtype=str)[pair >> 32]]
+            if schema.LOCATION in keys:
+                texts.append(
+                    np.asarray(source.values(schema.LOCATION), dtype=str)[pair & 0xFFFFFFFF]
+                )
+            order = np.lexsort(texts[::-1])
+            ends = [tuple(str(t[order[i]]) for t in texts) for i in (0, -1)]
+            key_range = (ends[0], ends[1])
+    except FastPathDeclined:
+        return summarise(read_part(dataset, part, columns=columns, options=options))
+
+    def stamps(found: list[np.ndarray]) -> np.ndarray:
+        joined = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
+        return joined * DAY_NS
+
+    lag_stamps = np.empty((0, 2), dtype=np.int64)
+    if lags:
+        lag_stamps = np.unique(np.concatenate(lags), axis=0)
+        lag_stamps[:, 0] *= DAY_NS
+    return PartSummary(
+        columns=(*present, *extra),
+        attributes=(*source.attributes, *extra),
+        stamps=stamps(days),
+        actual=stamps(actual),
+        lag_stamps=lag_stamps,
+        rows=source.n_rows,
+        notices=source.notices,
+        keys=key_range,
+    )
+
+
+def _key_range(frame: pd.DataFrame) -> tuple[tuple[str, ...], tuple[str, ...]] | None:
+    """The smallest and largest (item[, location]) of ``frame``'s rows, in the builder's order."""
+    if frame.empty:
+        return None
+    items = _distinct_text(frame[schema.ITEM])
+    ends: list[tuple[str, ...]] = []
+    for item in (items[0], items[-1]):
+        if schema.LOCATION not in frame.columns:
+            ends.append((item,))
+            continue
+        same = (frame[schema.ITEM] == item).to_numpy()
+        locations = _distinct_text(frame[schema.LOCATION][same])
+        ends.append((item, locations[0] if item == items[0] else locations[-1]))
+    return ends[0], ends[1]
+
+
+def _distinct_text(column: pd.Series) -> np.ndarray:
+    """The distinct values of a text column, sorted as the builder sorts keys (code points)."""
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        used = np.unique(np.asarray(column.array.codes))
+        values = column.cat.categories.to_numpy(dtype=object)[used]
+    else:
+        values = pd.unique(column.to_numpy(dtype=object))
+    return np.sort(np.asarray(values).astype(str))
 
 
 @dataclass(frozen=True)
@@ -207,6 +320,9 @@ class Plan:
     attributes: tuple[str, ...]
     rows: int
     notices: tuple[str, ...]
+    whole_series: bool = False
+    """Every series' rows are in one part (the parts' key ranges do not overlap): the parts can
+    be scored as they are, without mixing their rows."""
 
     @property
     def key_columns(self) -> tuple[str, ...]:
@@ -293,6 +409,8 @@ def plan_dataset(
             hint="Leave out --lag, or load the dataset that holds the forecast lags.",
         )
     notices = tuple(dict.fromkeys(n for s in summaries for n in s.notices))
+    ranges = sorted(s.keys for s in summaries if s.keys is not None)
+    whole = all(before[1] < after[0] for before, after in itertools.pairwise(ranges))
     return Plan(
         dataset=dataset,
         grid=Grid(calendar=calendar, last_actual=last_actual, lag=chosen, lags=lags),
@@ -301,6 +419,7 @@ def plan_dataset(
         attributes=first.attributes,
         rows=rows,
         notices=notices,
+        whole_series=whole,
     )
 
 
@@ -403,6 +522,83 @@ def _no_measures(plan: Plan) -> pd.DataFrame:
     return pd.DataFrame(data)
 
 
+def score_whole_part(
+    dataset: Dataset,
+    part: int,
+    plan: Plan,
+    cols: np.ndarray,
+    season: int,
+    steps: Sequence[str] | None,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> pd.DataFrame:
+    """:func:`score_part` of a part that holds whole series (``plan.whole_series``).
+
+    The part is read as a single file is (``read_portfolio``: streamed when it can be), then
+    placed on the dataset's calendar (:func:`on_grid`). A dataset with forecast lags reads the
+    part the full way: its lag is the dataset's, which the part's own history may not show.
+    """
+    from triage.core.read import read_portfolio
+
+    if schema.LAG in plan.columns:
+        return score_part(
+            read_part(dataset, part, columns=columns, options=options).frame,
+            plan,
+            cols,
+            season,
+            steps,
+        )
+    portfolio = on_grid(
+        read_portfolio(dataset.files[part], columns=columns, options=options), plan, dataset, part
+    )
+    return measures_frame(portfolio, series_measures(portfolio, cols, season, steps))
+
+
+def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Portfolio:
+    """``portfolio`` (one part, read on its own calendar) on the dataset's calendar and latest
+    actual period, with the attributes its folders add.
+
+    The part's calendar is a run of the dataset's (the plan's calendar is made of every part's
+    periods); columns outside it are empty, and prices, filled along each series, extend from
+    the part's first and last columns (``fill_prices``: the nearest earlier price, else the
+    first later one).
+    """
+    calendar = plan.grid.calendar
+    offset = int(calendar.periods.get_loc(portfolio.calendar.periods[0]))
+    width = len(calendar.periods)
+    span = slice(offset, offset + len(portfolio.calendar.periods))
+
+    def placed(values: np.ndarray) -> np.ndarray:
+        out = np.full((values.shape[0], width), np.nan)
+        out[:, span] = values
+        return out
+
+    price = None
+    if portfolio.price is not None:
+        dense = placed(np.asarray(portfolio.price))
+        dense[:, : span.start] = dense[:, span.start : span.start + 1]
+        dense[:, span.stop :] = dense[:, span.stop - 1 : span.stop]
+        price = UnitPrices.from_dense(dense)
+    keys = portfolio.keys
+    fields = added_fields(dataset, part, keys.columns)
+    if fields:
+        keys = keys.assign(**{name: value for name, value in fields})
+    return dataclasses.replace(
+        portfolio,
+        path=plan.dataset.folder,
+        keys=keys,
+        attributes=(*portfolio.attributes, *(name for name, _ in fields)),
+        calendar=calendar,
+        demand=placed(portfolio.demand),
+        forecast=placed(portfolio.forecast),
+        price=price,
+        last_actual=plan.grid.last_actual,
+        competing={name: placed(values) for name, values in portfolio.competing.items()},
+        _text_codes={},
+    )
+
+
 def measures_frame(portfolio: Portfolio, measures: SeriesMeasures) -> pd.DataFrame:
     """``measures`` of ``portfolio`` as one frame (see :func:`score_part`)."""
     order = np.arange(portfolio.n_series)
@@ -417,41 +613,51 @@ def measures_frame(portfolio: Portfolio, measures: SeriesMeasures) -> pd.DataFra
 def measures_of(frame: pd.DataFrame, plan: Plan) -> SeriesMeasures:
     """The scored parts' rows (:func:`score_part`, in any order) as one portfolio's measures.
 
-    The rows are put in key order (item, then location, as the builder orders series), so that
-    every ranking breaks ties as a single file's would.
+    The rows are put in key order (item, then location, as the builder orders series: by code
+    point, which is the byte order of UTF-8 that Arrow sorts by), so that every ranking breaks
+    ties as a single file's would. The frame's columns are taken out as they are converted.
     """
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
     keys = plan.key_columns
-    # Equal keys share a code: np.unique's inverse, in sorted text order (the builder's).
-    codes = [np.unique(frame[c].to_numpy(dtype=str), return_inverse=True)[1] for c in keys]
-    order = np.lexsort(codes[::-1])
-    numbers = {
-        c: frame[c].to_numpy()[order] for c in frame.columns if c in _NUMERIC and c not in keys
-    }
-    texts = {
-        c: _text_array(frame[c], order) for c in (*keys, *plan.attributes) if c in frame.columns
-    }
+    texts = {c: _arrow_text(frame.pop(c)) for c in (*keys, *plan.attributes) if c in frame}
+    order_keys = pa.table({c: texts[c] for c in keys})
+    order = pc.sort_indices(order_keys, sort_keys=[(c, "ascending") for c in keys])
+    del order_keys
+    texts = {c: values.take(order) for c, values in texts.items()}
+    at = np.asarray(order)
+    numbers = {c: frame.pop(c).to_numpy()[at] for c in list(frame.columns) if c in _NUMERIC}
+    flag = frame.pop(FLAG_CODE).to_numpy(dtype=np.int8)[at]
+    pattern = frame.pop(PATTERN_CODE).to_numpy(dtype=np.int8)[at]
 
     def text(name: str, taken: np.ndarray) -> pd.api.extensions.ExtensionArray:
-        import pyarrow as pa
-
         return pd.array(
             texts[name].take(pa.array(taken)), dtype=pd.StringDtype("pyarrow", na_value=np.nan)
         )
 
     return SeriesMeasures(
         numbers=numbers,
-        flag=frame[FLAG_CODE].to_numpy(dtype=np.int8)[order],
-        pattern=frame[PATTERN_CODE].to_numpy(dtype=np.int8)[order],
+        flag=flag,
+        pattern=pattern,
         key_columns=keys,
         attributes=plan.attributes,
         text=text,
     )
 
 
-def _text_array(column: pd.Series, order: np.ndarray) -> Any:
+def _arrow_text(column: pd.Series) -> Any:
+    """A text column as one Arrow large_string array (no Python string per row)."""
     import pyarrow as pa
 
-    return pa.array(column.to_numpy(dtype=object)[order], type=pa.large_string())
+    values = pa.array(column.array) if hasattr(column.array, "__arrow_array__") else None
+    if values is None:
+        values = pa.array(column.to_numpy(dtype=object), type=pa.large_string())
+    if isinstance(values, pa.ChunkedArray):
+        values = values.combine_chunks()
+    if pa.types.is_dictionary(values.type):
+        values = values.cast(pa.large_string())
+    return values.cast(pa.large_string())
 
 
 _NUMERIC = frozenset(MEASURE_COLUMNS)
