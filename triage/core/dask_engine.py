@@ -170,7 +170,7 @@ def score_dataset(
                     dataset=dataset, columns=columns, options=options,
                 )
             )  # fmt: skip
-            frame = pd.concat(frames, ignore_index=True, copy=False)
+            frame = pd.concat(frames, ignore_index=True)
             del frames
         else:
             assert frame_meta is not None
