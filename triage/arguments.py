@@ -149,13 +149,15 @@ def reviewer_arg(parser: argparse.ArgumentParser) -> None:
     )
 
 
-def format_arg(parser: argparse.ArgumentParser) -> None:
-    """``--format``: a table for reading, or CSV or JSON for a program."""
+def format_arg(parser: argparse.ArgumentParser, *, parquet: bool = False) -> None:
+    """``--format``: a table for reading, or CSV or JSON for a program; with ``parquet``, also a
+    folder of Parquet files (``--output DIR``)."""
     parser.add_argument(
         "--format",
-        choices=("table", "csv", "json"),
+        choices=("table", "csv", "json", *(("parquet",) if parquet else ())),
         default="table",
-        help="output format (default table)",
+        help="output format (default table)"
+        + ("; parquet writes a folder of Parquet files, --output DIR" if parquet else ""),
     )
 
 
@@ -266,6 +268,26 @@ def refuse_overwriting(
                     hint="Choose another output file name.",
                 )
     refuse_existing(targets, force=force)
+
+
+def refuse_output_folder(target: Path, source: Path, *, force: bool) -> None:
+    """Refuse a folder output (``--format parquet``) over, inside or around the portfolio
+    read, even with ``--force``, and an existing one without it.
+
+    Raises:
+        TriageError: The folder would hold or replace what is being read, or exists and
+            ``force`` is false.
+    """
+    from triage.core.files import refuse_existing
+
+    out, read = target.resolve(), source.resolve()
+    if out == read or out in read.parents or read in out.parents:
+        raise TriageError(
+            f"{printable(str(target))} would hold or replace {printable(str(source))}, which is "
+            "being read. Nothing was written.",
+            hint="Choose an output folder outside the portfolio's folder.",
+        )
+    refuse_existing([target], force=force)
 
 
 def open_ledger_read_only(path: Path, config: Config) -> Ledger:

@@ -24,6 +24,7 @@ from triage.arguments import (
     load_portfolio,
     portfolio_args,
     read_args,
+    refuse_output_folder,
     refuse_overwriting,
     refuse_sheet,
     review_target,
@@ -73,7 +74,7 @@ def build_parser() -> argparse.ArgumentParser:
     )
     group_arg(rank)
     steps_arg(rank, "; fva_loss compares the last step with the one before it")
-    format_arg(rank)
+    format_arg(rank, parquet=True)
     engine_args(rank)
     limit = rank.add_mutually_exclusive_group()
     limit.add_argument("--top", type=int, metavar="K", help="only the first K series (or groups)")
@@ -210,7 +211,9 @@ def _cmd_rank(args: argparse.Namespace) -> int:
 
     # --cover is checked here; the configuration's target share does not apply to rank.
     settings = ScoreSettings.from_args(args)
-    if args.output is not None:
+    if args.output is not None and args.format == "parquet":
+        refuse_output_folder(args.output, args.portfolio, force=args.force)
+    elif args.output is not None:
         refuse_overwriting([args.output], args.portfolio, force=args.force)
     if args.top is not None and args.top < 1:
         raise TriageError(f"--top must be at least 1, not {args.top}.")
@@ -300,6 +303,16 @@ def _show_rank(
     elif args.format == "table":
         shown = card.iloc[: report.TABLE_DEFAULT_ROWS]
 
+    if args.format == "parquet":
+        if args.output is None:
+            raise TriageError(
+                "--format parquet writes a folder of Parquet files and needs --output DIR.",
+                hint="Add --output DIR, or choose --format csv for standard output.",
+            )
+        from triage.core.files import write_set_atomic
+
+        write_set_atomic(args.output, report.parquet_parts(shown), force=args.force)
+        return 0
     if args.format == "csv":
         # CSV needs only the scorecard: the portfolio's dense arrays go before the text is made.
         del portfolio, card

@@ -16,6 +16,7 @@ import os
 import re
 import shutil
 from collections.abc import Callable, Iterator, Sequence
+from pathlib import Path
 from typing import Any
 
 import numpy as np
@@ -239,6 +240,31 @@ def _whole_text(values: np.ndarray, missing: np.ndarray | None) -> object:
 
     digits = pa.array(values.astype(np.int64), mask=missing).cast(pa.large_string())
     return pc.binary_join_element_wise(digits, _text(".0"), _text(""))
+
+
+#: Rows per file of a scorecard written as Parquet files.
+PARQUET_ROWS = 1_000_000
+
+
+def parquet_parts(card: pd.DataFrame) -> list[tuple[str, Callable[[Path], None]]]:
+    """The scorecard as Parquet files of :data:`PARQUET_ROWS` rows each, in review order
+    (``part-00000.parquet`` holds the first rows): (file name, writer) for ``write_set_atomic``.
+
+    Columns and text are exactly the scorecard's; missing numbers are nulls.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    def writer(lo: int) -> Callable[[Path], None]:
+        def write(path: Path) -> None:
+            block = card.iloc[lo : lo + PARQUET_ROWS]
+            table = pa.Table.from_pandas(block, preserve_index=False)
+            pq.write_table(table, path)
+
+        return write
+
+    starts = range(0, max(len(card), 1), PARQUET_ROWS)
+    return [(f"part-{k:05d}.parquet", writer(lo)) for k, lo in enumerate(starts)]
 
 
 def to_json(

@@ -1,0 +1,89 @@
+"""``triage rank|check|compare DATASET``: a folder of Parquet parts from the command line.
+
+The reference for every output is the same command on the single file the dataset was cut from
+(whose measures are checked against published formulas in tests/core/test_metrics_reference.py).
+"""
+
+from __future__ import annotations
+
+import io
+from pathlib import Path
+
+import pandas as pd
+import pyarrow.parquet as pq
+import pytest
+
+from sample import generate
+from tests.cli.test_cli import run
+from tests.core.datasets import write_layout
+from triage import cli
+from triage.render import scorecard as report
+
+
+@pytest.fixture(scope="module")
+def single(tmp_path_factory: pytest.TempPathFactory) -> Path:
+    path = tmp_path_factory.mktemp("single") / "portfolio.parquet"
+    generate.write_parquet(path, 400, competing=True)
+    return path
+
+
+@pytest.fixture(scope="module")
+def lake(single: Path, tmp_path_factory: pytest.TempPathFactory) -> Path:
+    rows = pq.read_table(single).to_pandas()
+    return write_layout(rows, tmp_path_factory.mktemp("lake") / "by-month", "period")
+
+
+def test_rank_of_a_dataset_writes_the_single_files_csv(single: Path, lake: Path) -> None:
+    alone = run("rank", str(single), "--format", "csv", "--by", "bias")
+    spread = run("rank", str(lake), "--format", "csv", "--by", "bias")
+    assert spread.returncode == 0, spread.stderr
+    assert spread.stdout == alone.stdout
+
+
+def test_check_and_compare_read_a_dataset(single: Path, lake: Path) -> None:
+    for command in ("check", "compare"):
+        alone = run(command, str(single))
+        spread = run(command, str(lake))
+        assert spread.returncode == 0, spread.stderr
+        # The first line names what was read; everything after it is the same.
+        assert spread.stdout.splitlines()[1:] == alone.stdout.splitlines()[1:]
+
+
+def test_format_parquet_writes_the_scorecard_as_parts(
+    tmp_path: Path, lake: Path, monkeypatch: pytest.MonkeyPatch, capsys: pytest.CaptureFixture[str]
+) -> None:
+    assert cli.main(["rank", str(lake), "--format", "csv"]) == 0
+    want = pd.read_csv(io.StringIO(capsys.readouterr().out), keep_default_na=False)
+    monkeypatch.setattr(report, "PARQUET_ROWS", 500)
+    out = tmp_path / "card"
+    assert cli.main(["rank", str(lake), "--format", "parquet", "--output", str(out)]) == 0
+    parts = sorted(p.name for p in out.iterdir())
+    assert parts == [f"part-{k:05d}.parquet" for k in range(-(-len(want) // 500))]
+    got = pd.concat([pd.read_parquet(out / name) for name in parts], ignore_index=True)
+    assert list(got.columns) == list(want.columns)
+    for name in ("item", "location", "bias_flag", "pattern"):
+        assert got[name].fillna("").astype(str).tolist() == want[name].astype(str).tolist()
+    for name in ("rank", "bias_rank", "fva_rank", "periods"):
+        assert got[name].tolist() == want[name].tolist()
+    # The CSV writes 17 significant digits: the numbers round-trip.
+    pd.testing.assert_series_equal(got["cum_share"], want["cum_share"].astype(float))
+
+
+def test_format_parquet_refusals(tmp_path: Path, lake: Path) -> None:
+    alone = run("rank", str(lake), "--format", "parquet")
+    assert alone.returncode == 2 and "needs --output DIR" in alone.stderr
+    inside = run("rank", str(lake), "--format", "parquet", "--output", str(lake / "x"), "--force")
+    assert inside.returncode == 2 and "being read" in inside.stderr
+    out = tmp_path / "card"
+    assert run("rank", str(lake), "--format", "parquet", "--output", str(out)).returncode == 0
+    again = run("rank", str(lake), "--format", "parquet", "--output", str(out))
+    assert again.returncode == 2 and "--force" in again.stderr
+    forced = run("rank", str(lake), "--format", "parquet", "--output", str(out), "--force")
+    assert forced.returncode == 0, forced.stderr
+    for refused in (
+        run("rank", str(lake), "--sheet", "Week 1"),
+        run("rank", str(lake), "--engine", "dask", "--group", "family"),
+        run("rank", str(tmp_path / "empty-folder-missing")),
+    ):
+        assert refused.returncode == 2, refused.stderr
+        assert "Traceback" not in refused.stderr
