@@ -20,7 +20,11 @@ peak memory (the Dask client, which ranks and writes), and each Dask worker's pe
 memory of each process). The ratio reported is the run's wall time over ``series /
 baseline-series`` times the baseline's: 1.0 is linear scaling.
 
-Results go to a table on stderr and ``OUT/scale-results.json``.
+``--layout period`` (or ``random``) measures the other path instead: the baseline file itself cut
+into parts that each hold a slice of every series, which the engine shuffles by series key;
+the ratio is then to the local run on the same rows (1.0: as fast as one process on one file).
+
+Results go to stderr and ``OUT/scale-LAYOUT-SERIESs.json``.
 """
 
 from __future__ import annotations
@@ -129,6 +133,25 @@ def baseline_file(args: argparse.Namespace) -> Path:
     return path
 
 
+def split_dataset(source: Path, layout: str) -> Path:
+    """``source`` cut into the dataset layout ``layout`` (tests/core/datasets.py), one month or
+    batch at a time; cached beside it."""
+    import pyarrow.parquet as pq
+
+    from tests.core.datasets import write_layout
+
+    folder = source.with_name(f"{source.stem}-{layout}")
+    if not folder.exists():
+        partial = source.with_name(f".{folder.name}.partial")
+        if partial.exists():
+            import shutil
+
+            shutil.rmtree(partial)
+        write_layout(pq.read_table(source).to_pandas(), partial, layout, parts=12)
+        os.replace(partial, folder)
+    return folder
+
+
 def watched(cmd: list[str], timeout: float) -> dict[str, Any]:
     """Run ``cmd``; its wall time, exit status and the peak memory of each process in its tree."""
     import psutil
@@ -201,14 +224,27 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--seed", type=int, default=7)
     parser.add_argument("--timeout", type=float, default=4 * 3600)
     parser.add_argument("--out", type=Path, default=ROOT / "bench-out")
+    parser.add_argument(
+        "--layout",
+        choices=("blocks", "period", "random"),
+        default="blocks",
+        help="blocks: --series series generated in parts of whole series (no shuffle); period "
+        "or random: the baseline file cut into parts that spread every series (a shuffle)",
+    )
     parser.add_argument("--make-part", type=int, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.make_part is not None:
         make_part(args.out, args.make_part, args.part_series, args.seed)
         return 0
 
-    folder = build_dataset(args)
     base = baseline_file(args)
+    if args.layout == "blocks":
+        folder = build_dataset(args)
+    else:
+        # The same rows as the baseline file, cut by period or at random: every series is spread
+        # over every part, so the Dask engine shuffles the rows by key.
+        args.series = args.baseline_series
+        folder = split_dataset(base, args.layout)
     scratch = args.out / "scale-scratch"
     scratch.mkdir(parents=True, exist_ok=True)
     triage = triage_command()
@@ -227,6 +263,7 @@ def main(argv: list[str] | None = None) -> int:
     scale = args.series / args.baseline_series
     result = {
         "series": args.series,
+        "layout": args.layout,
         "part_series": args.part_series,
         "baseline_series": args.baseline_series,
         "workers": args.workers,
@@ -236,7 +273,9 @@ def main(argv: list[str] | None = None) -> int:
         "dask": spread,
         "linear_ratio": spread["seconds"] / (scale * local["seconds"]),
     }
-    (args.out / "scale-results.json").write_text(json.dumps(result, indent=1) + "\n")
+    (args.out / f"scale-{args.layout}-{args.series}s.json").write_text(
+        json.dumps(result, indent=1) + "\n"
+    )
     gb = 1e9
     print(
         f"local rank, {args.baseline_series:,} series (one file): {local['seconds']:.1f} s, "
