@@ -22,7 +22,16 @@ import pytest
 from sample import generate
 from tests.core.datasets import LAYOUTS, write_layout
 from triage.core import schema
-from triage.core.dataset import open_dataset, quick_summary, read_dataset, read_part, summarise
+from triage.core.dataset import (
+    measures_of,
+    open_dataset,
+    plan_dataset,
+    quick_summary,
+    read_dataset,
+    read_part,
+    score_whole_part,
+    summarise,
+)
 from triage.core.errors import LoadError, TriageError
 from triage.core.ranking import ranked, scorecard, series_measures
 from triage.core.read import read_portfolio
@@ -207,3 +216,33 @@ def test_the_quick_summary_is_the_summary_of_the_whole_part(
         )
         for name in ("stamps", "actual", "lag_stamps"):
             np.testing.assert_array_equal(getattr(quick, name), getattr(whole, name))
+
+
+def test_parts_of_whole_series_on_their_own_calendars_score_as_the_single_file(
+    tmp_path: Path, rows: pd.DataFrame
+) -> None:
+    # The Dask engine reads a part of whole series as a file on its own calendar and places it
+    # on the dataset's (dataset.on_grid). Here the first block's series start 30 weeks late and
+    # the last block's end 5 weeks early (its forward weeks), so both are padded.
+    folder = write_layout(rows, tmp_path / "blocks", "blocks")
+    files = sorted(folder.glob("*.parquet"))
+    stamps = pd.to_datetime(rows["period"])
+    late = stamps.min() + pd.Timedelta(weeks=30)
+    early = stamps.max() - pd.Timedelta(weeks=5)
+    for path, keep in ((files[0], lambda p: p >= late), (files[-1], lambda p: p <= early)):
+        part = pq.read_table(path).to_pandas()
+        part = part[keep(pd.to_datetime(part["period"]))]
+        pq.write_table(pa.Table.from_pandas(part, preserve_index=False), path)
+    single = tmp_path / "single.parquet"
+    pq.write_table(
+        pa.concat_tables([pq.read_table(p) for p in files], promote_options="permissive"), single
+    )
+    dataset = open_dataset(folder)
+    plan = plan_dataset(dataset, [quick_summary(dataset, i) for i in range(len(files))])
+    assert plan.whole_series
+    cols = plan.window_cols(13)
+    scored = pd.concat(
+        [score_whole_part(dataset, i, plan, cols, 1, None) for i in range(len(files))],
+        ignore_index=True,
+    )
+    same_scorecard(ranked(measures_of(scored, plan)), scorecard(read_portfolio(single)))

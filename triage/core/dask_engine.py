@@ -114,7 +114,7 @@ def cluster_client(options: ClusterOptions) -> Iterator[Any]:
         threads_per_worker=1,
         processes=True,
         memory_limit=options.memory_limit or "auto",
-        dashboard_address=None,
+        dashboard_address=":0",
         # A part refused for its data is said once, by the command; not logged by the worker.
         silence_logs=logging.CRITICAL,
     )
