@@ -175,9 +175,10 @@ def score_dataset(
         else:
             assert frame_meta is not None
             meta = score_part(frame_meta, plan, cols, season, chain)
-            # from_map takes ``columns`` for itself: the reader's arguments go in a partial.
+            # from_map gives a reader that takes ``columns`` the columns it wants (projection):
+            # the column map goes by another name.
             reader = functools.partial(
-                _part_rows, dataset=dataset, columns=columns, options=options
+                _part_rows, dataset=dataset, mapping=columns, options=options
             )
             rows = dd.from_map(  # type: ignore[no-untyped-call]
                 reader, parts, meta=frame_meta, enforce_metadata=False
@@ -262,9 +263,9 @@ def _summary(
 
 
 def _part_rows(
-    part: int, *, dataset: Dataset, columns: dict[str, str] | None, options: FileOptions | None
+    part: int, *, dataset: Dataset, mapping: dict[str, str] | None, options: FileOptions | None
 ) -> pd.DataFrame:
-    return _as_text(read_part(dataset, part, columns=columns, options=options).frame)
+    return _as_text(read_part(dataset, part, columns=mapping, options=options).frame)
 
 
 def _as_text(frame: pd.DataFrame) -> pd.DataFrame:

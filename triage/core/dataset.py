@@ -436,9 +436,16 @@ def check_duplicates(frame: pd.DataFrame, plan: Plan, *, some: bool = False) -> 
         LoadError: Some (series, period[, lag]) is on more than one row.
     """
     on = [*plan.key_columns, schema.PERIOD, *([schema.LAG] if schema.LAG in frame.columns else [])]
-    twice = frame.duplicated(on, keep=False).to_numpy()
-    if not twice.any():
+    # One integer per (series, period, lag) from each column's codes: a sort finds repeats
+    # (hashing the rows' text would take several times longer).
+    cell = np.zeros(len(frame), dtype=np.int64)
+    for name in on:
+        codes, uniques = pd.factorize(frame[name])
+        cell = cell * len(uniques) + codes
+    cell.sort()
+    if not (cell[1:] == cell[:-1]).any():
         return
+    twice = frame.duplicated(on, keep=False).to_numpy()
     rows = frame.loc[twice].sort_values([*on, PART, ROW], kind="stable")
     examples = []
     for _, same in list(rows.groupby(on, sort=False, observed=True))[:EXAMPLES]:
