@@ -31,7 +31,7 @@ from triage.core.ranking import scorecard
 from triage.core.settings import ScoreSettings
 
 #: The cached pieces computed from the portfolio and settings alone.
-_SCORING = ("card", "window_cols", "error", "worst", "fva")
+_SCORING = ("card", "window_cols", "error", "error_order", "worst", "fva")
 #: The cached pieces that are read from, or derived from, the ledger.
 _FROM_LEDGER = (
     "log",
@@ -92,14 +92,28 @@ class ReviewCycle:
     @cached_property
     def error(self) -> np.ndarray:
         """Absolute error per series (value where priced), by position: what ranking sorts."""
-        aligned = self.card.sort_index()
-        column = aligned["abs_error_value" if self.priced else "abs_error"]
-        return np.asarray(column.to_numpy(), dtype=np.float64)
+        return self.by_position("abs_error_value" if self.priced else "abs_error")
+
+    @cached_property
+    def error_order(self) -> np.ndarray:
+        """Positions in review order (largest error first): the scorecard's index."""
+        order: np.ndarray = self.card.index.to_numpy(dtype=np.int64)
+        return order
+
+    def by_position(self, column: str) -> np.ndarray:
+        """A scorecard column aligned on portfolio position (element i = series i).
+
+        One scatter through the scorecard's index: no reordering of the whole frame.
+        """
+        values: np.ndarray = self.card[column].to_numpy()
+        out = np.empty_like(values)
+        out[self.error_order] = values
+        return out
 
     @cached_property
     def worst(self) -> np.ndarray:
         """The worst-offender set as a mask by position (leading set covering the target)."""
-        return history.worst_set(self.error, self.settings.target_share)
+        return history.worst_set(self.error, self.settings.target_share, self.error_order)
 
     @cached_property
     def fva(self) -> dict[str, float]:

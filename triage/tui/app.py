@@ -29,13 +29,15 @@ from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.group_review import GroupReview, outcome_words
 from triage.core.ledger import GroupRecord
-from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
+from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession, StillComputing
 from triage.core.settings import ScoreSettings
 from triage.core.text import visible
 from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, Choice
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
 from triage.tui.messages import (
+    BackgroundDone,
+    BackgroundStep,
     Ended,
     Exported,
     GroupsReady,
@@ -344,6 +346,13 @@ class TriageApp(App[None]):
         self.drafts: dict[int, Draft] = {}
         self.status_text = ""
         self._arrays: dict[str, np.ndarray] = {}
+        self._computing = ""
+        """What the background worker is computing (``ReviewSession.background``), shown in
+        the summary line; empty once done."""
+        self._load_status = ""
+        """The status line as loading left it (background notices join it, if still shown)."""
+        self._order_waits = False
+        """A filter waits for a background piece (the list is empty until it is in)."""
         self._chart_timer: Timer | None = None
         self.key_order = KeyOrder(self, lambda event: App.on_event(self, event))
         """Hands keys on one at a time, in the order typed (see ``triage.tui.keyorder``)."""
@@ -445,7 +454,7 @@ class TriageApp(App[None]):
         from triage.core.read import read_portfolio
 
         opts = self.options
-        steps = 5
+        steps = 4
         self.post_message(LoadStep(0, steps, f"reading {opts.portfolio.name}"))
         portfolio = read_portfolio(
             opts.portfolio,
@@ -470,14 +479,48 @@ class TriageApp(App[None]):
         except TriageError as exc:
             notices.append(f"{exc} Decisions cannot be saved in this session.")
         self.post_message(LoadStep(2, steps, "scoring every series"))
+        # Suggestions, repeat offenders and the search index come later (``_background``).
         session = ReviewSession(
-            ReviewCycle(portfolio, ledger, opts.settings), reviewer=opts.reviewer
+            ReviewCycle(portfolio, ledger, opts.settings), reviewer=opts.reviewer, defer=True
         )
-        self.post_message(LoadStep(3, steps, "indexing for search"))
-        session.prepare()
-        self.post_message(LoadStep(4, steps, "drawing"))
+        self.post_message(LoadStep(3, steps, "drawing"))
         notices.extend(session.notices)
         self.post_message(Loaded(session, tuple(notices)))
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="background", name="background")
+    def _background(self, session: ReviewSession) -> None:
+        """What the list shows later (``ReviewSession.background``), off the UI thread."""
+
+        def step(done: int, total: int, label: str) -> None:
+            self.post_message(BackgroundStep(session, done, total, label))
+
+        self.post_message(BackgroundDone(session, session.background(step)))
+
+    @on(BackgroundStep)
+    def _background_step(self, message: BackgroundStep) -> None:
+        if message.session is self.session:
+            self._computing = f"{message.label} ({message.step + 1}/{message.total})"
+            self._refresh_summary()
+
+    @on(BackgroundDone)
+    def _background_done(self, message: BackgroundDone) -> None:
+        session = message.session
+        if session is not self.session:
+            return
+        session.finish(message.done)
+        self._computing = ""
+        for note in message.done.notices:
+            fmt.toast(self, note, severity="warning", timeout=10)
+        if message.done.notices and self.status_text == self._load_status:
+            # Beside the loading notices, unless something newer took the status line.
+            self._status(" | ".join(filter(None, [self._load_status, *message.done.notices])))
+        series_list = self._q(SeriesList)
+        series_list.invalidate()
+        if self._order_waits:
+            self._order_waits = False
+            self._apply_order()
+        self._refresh_summary()
+        self._show_detail(series_list.current)
 
     @on(LoadStep)
     def _load_step(self, message: LoadStep) -> None:
@@ -488,26 +531,28 @@ class TriageApp(App[None]):
     def _loaded(self, message: Loaded) -> None:
         session = message.session
         self.session = session
-        card = session.card
+        cycle = session.review_cycle
         self._arrays = {
-            "rank": card["rank"].to_numpy(),
+            "rank": cycle.by_position("rank"),
             "item": session.portfolio.keys["item"].to_numpy(dtype=object),
             "location": session.portfolio.keys["location"].to_numpy(dtype=object)
             if "location" in session.portfolio.keys
             else np.full(session.portfolio.n_series, "", dtype=object),
-            "share": card["error_share"].to_numpy(),
-            "cum": card["cum_share"].to_numpy(),
+            "share": cycle.by_position("error_share"),
+            "cum": cycle.by_position("cum_share"),
             "error": session.error,
-            "bias_pct": card["bias_pct"].to_numpy(),
-            "ts": card["tracking_signal"].to_numpy(),
-            "pattern": card["pattern"].to_numpy(dtype=object),
+            "bias_pct": cycle.by_position("bias_pct"),
+            "ts": cycle.by_position("tracking_signal"),
+            "pattern": cycle.by_position("pattern").astype(object),
         }
         self._q("#loading").display = False
         self._q("#main").display = True
         series_list = self._q(SeriesList)
         series_list.set_order(session.order(self.by))
         series_list.focus()
+        self._computing = "starting"
         self._refresh_summary()
+        self._background(session)
         for note in message.notices:
             fmt.toast(self, note, severity="warning", timeout=10)
         if message.notices:
@@ -523,6 +568,7 @@ class TriageApp(App[None]):
                 fmt.toast(self, str(exc), severity="error", timeout=15)
             else:
                 self._build_groups(self.group_by)
+        self._load_status = self.status_text
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         """Show every worker failure; none is swallowed."""
@@ -530,6 +576,9 @@ class TriageApp(App[None]):
             return
         error = event.worker.error
         text = str(error) if isinstance(error, TriageError) else f"{type(error).__name__}: {error}"
+        if event.worker.name == "background":
+            self._computing = "stopped: repeat offenders, suggestions and search are missing"
+            self._refresh_summary()
         if event.worker.name == "load":
             self._q("#loading-label", Static).update(
                 Text(f"Cannot open the portfolio:\n{text}\n\nPress q to quit.", style="bold")
@@ -567,7 +616,9 @@ class TriageApp(App[None]):
             "pattern": (fmt.PATTERN_SHORT.get(a["pattern"][series], a["pattern"][series]), "dim"),
             "outcome": self._review_cell(series, outcome),
             "worst": (
-                f"{'R ' if session.repeat[series] else ''}"
+                "…"
+                if not session.ready
+                else f"{'R ' if session.repeat[series] else ''}"
                 f"{session.times_in_worst[series]}/{session.cycles_scored}"
                 if session.cycles_scored
                 else "",
@@ -607,7 +658,7 @@ class TriageApp(App[None]):
             self._q("#chart", SeriesChart).show(None)
             body.update(Text(""), layout=False)
             return
-        card = session.card.iloc[series]
+        card = session.card_row(series)
         key = fmt.key_text(session.key(series))
         title.update(
             Text.assemble(
@@ -625,7 +676,9 @@ class TriageApp(App[None]):
         # measures: a short pane at 80x24 still shows the first lines.
         lines = [session.describe(series), *session.across_cycles(series)]
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
-        if spec:
+        if not session.ready:
+            lines.append("suggested adjustment: still computing…")
+        elif spec:
             lines.append(f"suggested: {spec} ({reason}); press s to take it")
         lines += [
             f"abs error {fmt.compact(card['abs_error'])}{value} · WAPE {fmt.pct(card['wape'])} · "
@@ -739,7 +792,9 @@ class TriageApp(App[None]):
                 else ""
             )
             + where
-            + (f" · filter: {fmt.plain(', '.join(filt))}" if filt else ""),
+            + (f" · filter: {fmt.plain(', '.join(filt))}" if filt else "")
+            + (" (waiting)" if filt and self._order_waits else "")
+            + (f" · computing {self._computing}" if self._computing else ""),
         )
         summary.no_wrap = True
         summary.overflow = "ellipsis"
@@ -756,9 +811,17 @@ class TriageApp(App[None]):
             return
         series_list = self._q(SeriesList)
         current = series_list.current
-        series_list.set_order(
-            session.order(self.by, text=self.text_filter, filters=self.field_filters), keep=current
-        )
+        try:
+            order = session.order(self.by, text=self.text_filter, filters=self.field_filters)
+        except StillComputing as exc:
+            # Never the unfiltered list under a filter: empty until the piece is in, then
+            # applied (``_background_done``).
+            self._order_waits = True
+            order = np.zeros(0, dtype=np.int64)
+            self._status(f"{exc} The filter applies as soon as it is ready.")
+        else:
+            self._order_waits = False
+        series_list.set_order(order, keep=current)
         self._refresh_summary()
 
     # -- actions: finding ---------------------------------------------------------------------
@@ -798,7 +861,11 @@ class TriageApp(App[None]):
         def chose_field(field_name: str | None) -> None:
             if field_name is None:
                 return
-            values = session.filter_values(field_name)
+            try:
+                values = session.filter_values(field_name)
+            except StillComputing as exc:
+                self._status(f"{exc} Choose the filter again then.")
+                return
             self.push_screen(
                 ChooseScreen(
                     f"Show only {fmt.plain(field_name)} =",
@@ -989,6 +1056,9 @@ class TriageApp(App[None]):
         if series is None or session is None:
             return
         spec = session.suggest_spec[series]
+        if not session.ready:
+            self._status("Suggested adjustments are still being computed: press s again soon.")
+            return
         if not spec:
             self._status("no suggested adjustment for this series")
             return

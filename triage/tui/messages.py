@@ -6,7 +6,7 @@ from textual.message import Message
 
 from triage.core.group_review import GroupReview
 from triage.core.ledger import AdjustmentEnd, Event
-from triage.core.review import ReviewSession
+from triage.core.review import Background, ReviewSession
 
 
 class LoadStep(Message):
@@ -31,6 +31,32 @@ class Loaded(Message):
         """The review session to show."""
         self.notices = notices
         """Things the reviewer should know (ledger opened read-only, prices filled...)."""
+
+
+class BackgroundStep(Message):
+    """The background worker (suggestions, repeat offenders, search index) reached a step."""
+
+    def __init__(self, session: ReviewSession, step: int, total: int, label: str) -> None:
+        super().__init__()
+        self.session = session
+        """The session the work is for."""
+        self.step = step
+        """Steps done so far."""
+        self.total = total
+        """Steps in all."""
+        self.label = label
+        """What is being computed now."""
+
+
+class BackgroundDone(Message):
+    """The background pieces of a session are computed (``ReviewSession.background``)."""
+
+    def __init__(self, session: ReviewSession, done: Background) -> None:
+        super().__init__()
+        self.session = session
+        """The session the work is for."""
+        self.done = done
+        """What to hand to ``session.finish``."""
 
 
 class Saved(Message):
