@@ -1,5 +1,6 @@
 """The review start shows the list before the background pieces (suggestions, repeat offenders,
-the search index) are in; keys typed meanwhile act correctly or say what they wait for.
+the search index) are in; keys typed meanwhile act correctly or say what they wait for. A
+reopen comes from the reopen cache, unless ``--no-cache``.
 
 The background step is held back by a gate in these tests, so the list is certainly shown
 before it ends (on a million series it takes seconds: docs/performance.md).
@@ -12,11 +13,12 @@ import threading
 from pathlib import Path
 
 import numpy as np
+import pandas as pd
 import pytest
 
 from sample.cycles import build_cycles
-from tests.tui.conftest import burst, wait_for, wait_listed
-from triage.core import history, vocabulary
+from tests.tui.conftest import burst, wait_for, wait_listed, wait_loaded
+from triage.core import cache, files, history, vocabulary
 from triage.core.review import ReviewSession
 from triage.tui.app import Options, TriageApp
 from triage.tui.widgets.series_list import SeriesList
@@ -121,3 +123,47 @@ async def test_keys_during_the_background_step(scenario, gate, tmp_path: Path) -
         matching = np.flatnonzero(text.str.casefold().str.contains(needle.casefold()).to_numpy())
         assert sorted(series_list.order.tolist()) == matching.tolist()
         assert "(waiting)" not in summary(app)
+
+
+async def open_and_close(options: Options, *, until=lambda app: True) -> tuple:
+    app = TriageApp(options)
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        await wait_for(pilot, lambda: until(app), "the condition")
+        session = app.session
+        return session, app.query_one(SeriesList).order.copy(), app
+
+
+def entries(folder: Path) -> list[Path]:
+    if not folder.exists():
+        return []
+    return [p for p in folder.iterdir() if (p / cache.META).is_file()]
+
+
+async def test_reopen_comes_from_the_cache(scenario, tmp_path: Path) -> None:
+    folder = tmp_path / "cache"
+    ledger = tmp_path / "ledger.sqlite"
+    shutil.copy(scenario.ledger, ledger)
+    options = Options(
+        portfolio=scenario.files[-1], ledger=ledger, reviewer="ana", cache_folder=folder
+    )
+    first, order, _ = await open_and_close(options, until=lambda app: bool(entries(folder)))
+    assert not isinstance(first.portfolio.demand, np.memmap)
+    again, order_again, _ = await open_and_close(options)
+    assert isinstance(again.portfolio.demand, np.memmap)  # from the cache, memory-mapped
+    np.testing.assert_array_equal(order_again, order)
+    pd.testing.assert_frame_equal(again.review_cycle.card, first.review_cycle.card)
+    np.testing.assert_array_equal(again.repeat, first.repeat)
+    assert again.portfolio.fingerprint == files.sha256_of(scenario.files[-1])
+
+
+async def test_no_cache_reads_the_file_and_keeps_nothing(scenario, tmp_path: Path) -> None:
+    folder = tmp_path / "cache"
+    options = Options(
+        portfolio=scenario.files[-1], reviewer="ana", cache_folder=folder, cache=False
+    )
+    _, _, app = await open_and_close(
+        options, until=lambda app: not [w for w in app.workers if w.name == "background"]
+    )
+    assert not isinstance(app.session.portfolio.demand, np.memmap)
+    assert entries(folder) == []

@@ -56,6 +56,8 @@ class ReviewCycle:
         settings: How the portfolio is scored (window, season, target share, repeat N of M).
         name: The review cycle (ISO date); default the portfolio's cycle (its latest actual).
             An export of an earlier cycle names it; adjustment ends count as of this cycle.
+        card: The portfolio's scorecard at these settings, when it is at hand (the reopen
+            cache, ``triage.core.cache``); else computed on first use.
     """
 
     def __init__(
@@ -65,11 +67,14 @@ class ReviewCycle:
         settings: ScoreSettings | None = None,
         *,
         name: str | None = None,
+        card: pd.DataFrame | None = None,
     ) -> None:
         self.portfolio = portfolio
         self.ledger = ledger
         self.settings = settings or ScoreSettings()
         self.name = portfolio.cycle if name is None else name
+        if card is not None:
+            self.__dict__["card"] = card
 
     # -- scoring ------------------------------------------------------------------------------
 

@@ -21,22 +21,23 @@ from textual.timer import Timer
 from textual.widgets import Footer, ProgressBar, Static
 from textual.worker import Worker, WorkerState
 
+from triage.core import cache, schema, vocabulary, words
 from triage.core import groups as groups_mod
 from triage.core import ledger as ledger_mod
-from triage.core import schema, vocabulary, words
 from triage.core.cycle import ReviewCycle
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.group_review import GroupReview, outcome_words
 from triage.core.ledger import GroupRecord
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession, StillComputing
-from triage.core.settings import ScoreSettings
+from triage.core.settings import CACHE_LIMIT_MB, ScoreSettings
 from triage.core.text import visible
 from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, Choice
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
 from triage.tui.messages import (
     BackgroundDone,
+    BackgroundNote,
     BackgroundStep,
     Ended,
     Exported,
@@ -81,6 +82,12 @@ class Options:
     notices: list[str] = field(default_factory=list)
     group: str | None = None
     """``--group``: the columns the group view rolls series up by (checked once loaded)."""
+    cache: bool = True
+    """Open from the reopen cache and keep the load there (``--no-cache``: neither)."""
+    cache_limit_mb: int = CACHE_LIMIT_MB.default
+    """The reopen cache's bound (``--cache-limit``)."""
+    cache_folder: Path | None = None
+    """Where the reopen cache is (None: ``cache.default_folder()``)."""
 
 
 #: Actions on one series, unavailable (dimmed) while the group view is shown.
@@ -350,6 +357,8 @@ class TriageApp(App[None]):
         """What the background worker is computing (``ReviewSession.background``), shown in
         the summary line; empty once done."""
         self._load_status = ""
+        self._stop_cache = threading.Event()
+        """Set when the app closes: a cache write still going stops (its scratch is removed)."""
         """The status line as loading left it (background notices join it, if still shown)."""
         self._order_waits = False
         """A filter waits for a background piece (the list is empty until it is in)."""
@@ -456,12 +465,17 @@ class TriageApp(App[None]):
         opts = self.options
         steps = 4
         self.post_message(LoadStep(0, steps, f"reading {opts.portfolio.name}"))
-        portfolio = read_portfolio(
-            opts.portfolio,
-            columns=opts.columns,
-            sheet=opts.sheet,
-            lag=opts.settings.lag,
-            options=opts.file_options,
+        found, hit = self._from_cache()
+        portfolio = (
+            hit.portfolio
+            if hit is not None
+            else read_portfolio(
+                opts.portfolio,
+                columns=opts.columns,
+                sheet=opts.sheet,
+                lag=opts.settings.lag,
+                options=opts.file_options,
+            )
         )
         require_scorable(portfolio, opts.settings.window)
         self.post_message(LoadStep(1, steps, "opening the ledger"))
@@ -479,28 +493,82 @@ class TriageApp(App[None]):
         except TriageError as exc:
             notices.append(f"{exc} Decisions cannot be saved in this session.")
         self.post_message(LoadStep(2, steps, "scoring every series"))
+        window, season = opts.settings.window, opts.settings.season
+        card = cache.load_card(hit.entry, window, season) if hit is not None else None
+        cycle = ReviewCycle(portfolio, ledger, opts.settings, card=card)
         # Suggestions, repeat offenders and the search index come later (``_background``).
-        session = ReviewSession(
-            ReviewCycle(portfolio, ledger, opts.settings), reviewer=opts.reviewer, defer=True
-        )
+        session = ReviewSession(cycle, reviewer=opts.reviewer, defer=True)
         self.post_message(LoadStep(3, steps, "drawing"))
         notices.extend(session.notices)
-        self.post_message(Loaded(session, tuple(notices)))
+        keep: Callable[[], None] | None = None
+        if found is not None and hit is None:
+
+            def keep() -> None:
+                cache.store(
+                    found,
+                    portfolio,
+                    {(window, season): cycle.card},
+                    self._cache_folder(),
+                    opts.cache_limit_mb << 20,
+                    cancelled=self._stop_cache.is_set,
+                )
+
+        elif hit is not None and card is None:
+
+            def keep() -> None:
+                cache.store_card(hit.entry, window, season, cycle.card)
+
+        self.post_message(Loaded(session, tuple(notices), keep))
+
+    def _cache_folder(self) -> Path:
+        return self.options.cache_folder or cache.default_folder()
+
+    def _from_cache(self) -> tuple[cache.Stamp | None, cache.Hit | None]:
+        """The file's cache stamp and its cached load (None, None with ``--no-cache``)."""
+        opts = self.options
+        if not opts.cache or opts.cache_limit_mb <= 0:
+            return None, None
+        read_options = {
+            "columns": opts.columns,
+            "sheet": opts.sheet,
+            "lag": opts.settings.lag,
+            "file_options": opts.file_options,
+        }
+        try:
+            found = cache.stamp(opts.portfolio, read_options)
+        except OSError:
+            return None, None  # the read names the problem
+        return found, cache.load(found, self._cache_folder())
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="background", name="background")
-    def _background(self, session: ReviewSession) -> None:
-        """What the list shows later (``ReviewSession.background``), off the UI thread."""
+    def _background(self, session: ReviewSession, keep: Callable[[], None] | None) -> None:
+        """What the list shows later (``ReviewSession.background``), off the UI thread; then
+        the load goes to the reopen cache (``keep``), when it came from the file."""
 
         def step(done: int, total: int, label: str) -> None:
             self.post_message(BackgroundStep(session, done, total, label))
 
         self.post_message(BackgroundDone(session, session.background(step)))
+        if keep is None or self._stop_cache.is_set():
+            return
+        try:
+            keep()
+        except (OSError, TriageError) as exc:
+            # The cache only saves time: the next open reads the file, as this one did.
+            self.post_message(BackgroundNote(f"The reopen cache was not written: {exc}"))
 
     @on(BackgroundStep)
     def _background_step(self, message: BackgroundStep) -> None:
         if message.session is self.session:
             self._computing = f"{message.label} ({message.step + 1}/{message.total})"
             self._refresh_summary()
+
+    @on(BackgroundNote)
+    def _background_note(self, message: BackgroundNote) -> None:
+        self._status(message.text)
+
+    def on_unmount(self) -> None:
+        self._stop_cache.set()
 
     @on(BackgroundDone)
     def _background_done(self, message: BackgroundDone) -> None:
@@ -552,7 +620,7 @@ class TriageApp(App[None]):
         series_list.focus()
         self._computing = "starting"
         self._refresh_summary()
-        self._background(session)
+        self._background(session, message.keep)
         for note in message.notices:
             fmt.toast(self, note, severity="warning", timeout=10)
         if message.notices:

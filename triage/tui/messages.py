@@ -2,6 +2,8 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from textual.message import Message
 
 from triage.core.group_review import GroupReview
@@ -25,12 +27,19 @@ class LoadStep(Message):
 class Loaded(Message):
     """The portfolio is loaded, scored and the ledger read."""
 
-    def __init__(self, session: ReviewSession, notices: tuple[str, ...]) -> None:
+    def __init__(
+        self,
+        session: ReviewSession,
+        notices: tuple[str, ...],
+        keep: Callable[[], None] | None = None,
+    ) -> None:
         super().__init__()
         self.session = session
         """The review session to show."""
         self.notices = notices
         """Things the reviewer should know (ledger opened read-only, prices filled...)."""
+        self.keep = keep
+        """Writes the load to the reopen cache (run by the background worker), or None."""
 
 
 class BackgroundStep(Message):
@@ -57,6 +66,14 @@ class BackgroundDone(Message):
         """The session the work is for."""
         self.done = done
         """What to hand to ``session.finish``."""
+
+
+class BackgroundNote(Message):
+    """Something the background worker wants on the status line."""
+
+    def __init__(self, text: str) -> None:
+        super().__init__()
+        self.text = text
 
 
 class Saved(Message):
