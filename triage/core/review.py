@@ -191,9 +191,10 @@ class ReviewSession:
         self.position[self.error_order] = np.arange(n)
         self.priced = "abs_error_value" in ranked
         self.error = cycle.error
-        flags = ranked["bias_flag"].to_numpy(dtype=object)
+        flags = ranked["bias_flag"]
         self.flag = self._aligned(
-            np.select([flags == "over", flags == "under"], [1, -1], 0).astype(np.int8)
+            (flags == "over").to_numpy(dtype=bool).astype(np.int8)
+            - (flags == "under").to_numpy(dtype=bool).astype(np.int8)
         )
         self.bias_order = _inverse_rank(cycle.by_position("bias_rank"))
         self.bias_size = np.abs(cycle.by_position("bias_value" if self.priced else "bias"))

@@ -9,7 +9,7 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager, suppress
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import ClassVar
+from typing import Any, ClassVar
 
 import numpy as np
 from rich.text import Text
@@ -352,7 +352,8 @@ class TriageApp(App[None]):
         """Series -> saves asked for and not yet answered (UI thread)."""
         self.drafts: dict[int, Draft] = {}
         self.status_text = ""
-        self._arrays: dict[str, np.ndarray] = {}
+        self._arrays: dict[str, Any] = {}
+        self._pattern: Any = None
         self._computing = ""
         """What the background worker is computing (``ReviewSession.background``), shown in
         the summary line; empty once done."""
@@ -600,19 +601,22 @@ class TriageApp(App[None]):
         session = message.session
         self.session = session
         cycle = session.review_cycle
+        keys = session.portfolio.keys
+        # Text columns stay Arrow-backed: a row is read when it is drawn (no million objects).
         self._arrays = {
             "rank": cycle.by_position("rank"),
-            "item": session.portfolio.keys["item"].to_numpy(dtype=object),
-            "location": session.portfolio.keys["location"].to_numpy(dtype=object)
-            if "location" in session.portfolio.keys
+            "item": keys["item"].array,
+            "location": keys["location"].array
+            if "location" in keys
             else np.full(session.portfolio.n_series, "", dtype=object),
             "share": cycle.by_position("error_share"),
             "cum": cycle.by_position("cum_share"),
             "error": session.error,
             "bias_pct": cycle.by_position("bias_pct"),
             "ts": cycle.by_position("tracking_signal"),
-            "pattern": cycle.by_position("pattern").astype(object),
         }
+        self._pattern = session.ranked["pattern"].array
+        """The pattern column in review order (row ``session.position[series]``)."""
         self._q("#loading").display = False
         self._q("#main").display = True
         series_list = self._q(SeriesList)
@@ -620,7 +624,8 @@ class TriageApp(App[None]):
         series_list.focus()
         self._computing = "starting"
         self._refresh_summary()
-        self._background(session, message.keep)
+        # After the first frame with the list: the worker would compete with drawing it.
+        self.call_after_refresh(self._background, session, message.keep)
         for note in message.notices:
             fmt.toast(self, note, severity="warning", timeout=10)
         if message.notices:
@@ -660,6 +665,7 @@ class TriageApp(App[None]):
         a = self._arrays
         session = self.session
         assert session is not None
+        pattern = str(self._pattern[int(session.position[series])])
         flag = int(session.flag[series])
         outcome = session.outcome[series]
         cols = session.window_cols[-fmt.SPARK_PERIODS :]
@@ -681,7 +687,7 @@ class TriageApp(App[None]):
                 ("▲ over" if flag > 0 else "▼ under") if flag else "",
                 "flag" if flag else None,
             ),
-            "pattern": (fmt.PATTERN_SHORT.get(a["pattern"][series], a["pattern"][series]), "dim"),
+            "pattern": (fmt.PATTERN_SHORT.get(pattern, pattern), "dim"),
             "outcome": self._review_cell(series, outcome),
             "worst": (
                 "…"
