@@ -21,6 +21,7 @@ from tests.tui.conftest import burst, wait_for, wait_listed, wait_loaded
 from triage.core import cache, files, history, vocabulary
 from triage.core.review import ReviewSession
 from triage.tui.app import Options, TriageApp
+from triage.tui.messages import BackgroundDone, BackgroundNote, BackgroundStep
 from triage.tui.widgets.series_list import SeriesList
 
 
@@ -167,3 +168,19 @@ async def test_no_cache_reads_the_file_and_keeps_nothing(scenario, tmp_path: Pat
     )
     assert not isinstance(app.session.portfolio.demand, np.memmap)
     assert entries(folder) == []
+
+
+async def test_background_messages_after_the_app_closed_are_ignored(scenario, gate) -> None:
+    """Quitting while the background step runs: its progress and result may still arrive while
+    the screens are gone; they must not raise (a crash at quit)."""
+    app = TriageApp(Options(portfolio=scenario.files[-1], reviewer="ana", cache=False))
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_listed(app, pilot)
+        session = app.session
+    assert not app.screen_stack
+    gate.set()
+    done = session.background()
+    app._background_step(BackgroundStep(session, 1, 3, "suggestions"))
+    app._background_done(BackgroundDone(session, done))
+    app._background_note(BackgroundNote("The reopen cache was not written: test"))
+    assert app.crashed is None

@@ -539,7 +539,10 @@ class TriageApp(App[None]):
             found = cache.stamp(opts.portfolio, read_options)
         except OSError:
             return None, None  # the read names the problem
-        return found, cache.load(found, self._cache_folder())
+        try:
+            return found, cache.load(found, self._cache_folder())
+        except OSError:
+            return found, None  # an unreadable cache folder: read the file
 
     @work(thread=True, exclusive=True, exit_on_error=False, group="background", name="background")
     def _background(self, session: ReviewSession, keep: Callable[[], None] | None) -> None:
@@ -560,13 +563,14 @@ class TriageApp(App[None]):
 
     @on(BackgroundStep)
     def _background_step(self, message: BackgroundStep) -> None:
-        if message.session is self.session:
+        if message.session is self.session and self.screen_stack:
             self._computing = f"{message.label} ({message.step + 1}/{message.total})"
             self._refresh_summary()
 
     @on(BackgroundNote)
     def _background_note(self, message: BackgroundNote) -> None:
-        self._status(message.text)
+        if self.screen_stack:
+            self._status(message.text)
 
     def on_unmount(self) -> None:
         self._stop_cache.set()
@@ -574,8 +578,8 @@ class TriageApp(App[None]):
     @on(BackgroundDone)
     def _background_done(self, message: BackgroundDone) -> None:
         session = message.session
-        if session is not self.session:
-            return
+        if session is not self.session or not self.screen_stack:
+            return  # another session's, or the app is closing
         session.finish(message.done)
         self._computing = ""
         for note in message.done.notices:
