@@ -195,14 +195,17 @@ async def datatable_baseline(path: Path) -> float:
 async def first_frame_child(path: Path, folder: Path, *, cache: bool, fill: bool) -> None:
     """Child process: open the review screens and print when the first frame with the list was
     drawn (``time.time()``, as JSON); with ``fill``, wait until the reopen cache holds the file."""
-    from triage.core import cache as cache_mod
+    import dataclasses
+
     from triage.tui.app import Options, TriageApp
     from triage.tui.widgets.series_list import SeriesList
 
     ledger = Path(tempfile.mkdtemp()) / "bench.ledger.sqlite"
-    app = TriageApp(
-        Options(portfolio=path, ledger=ledger, reviewer="bench", cache=cache, cache_folder=folder)
-    )
+    extra: dict[str, object] = {"cache": cache, "cache_folder": folder}
+    # An older tree (--baseline-ref) has no reopen cache.
+    known = {f.name for f in dataclasses.fields(Options)}
+    kept = {k: v for k, v in extra.items() if k in known}
+    app = TriageApp(Options(portfolio=path, ledger=ledger, reviewer="bench", **kept))  # type: ignore[arg-type]
     drawn: list[float] = []
     original = app._display
 
@@ -222,32 +225,39 @@ async def first_frame_child(path: Path, folder: Path, *, cache: bool, fill: bool
             await asyncio.sleep(0.005)
         cached = isinstance(app.session.portfolio.demand, __import__("numpy").memmap)
         if fill:
-            while not any((p / cache_mod.META).is_file() for p in folder.glob("*")):
+            while not any((p / "meta.json").is_file() for p in folder.glob("*")):
                 await asyncio.sleep(0.1)
     print(json.dumps({"first_frame_at": drawn[0], "cached": cached}))
 
 
-def start_figures(path: Path, repeats: int) -> dict[str, object]:
-    """rank, cold and warm review starts of one file, alternately, each in its own process."""
+def start_figures(path: Path, repeats: int, baseline_ref: str | None = None) -> dict[str, object]:
+    """rank, cold and warm review starts of one file, alternately, each in its own process;
+    with ``baseline_ref``, also the cold start of that revision (its tree first on the path)."""
     import shutil
     import statistics
 
+    from tests.benchmarks.bench_rank import checkout, triage_command
     from tests.benchmarks.bench_rank import measure as run
-    from tests.benchmarks.bench_rank import triage_command
 
-    child = [sys.executable, "-m", "tests.benchmarks.bench_tui", "--child", str(path)]
+    # Run as a script: its own folder first on the path, then PYTHONPATH (the tree to time).
+    child = [sys.executable, str(Path(__file__).resolve()), "--child", str(path)]
     folder = Path(tempfile.mkdtemp(prefix="bench-cache-"))
-    rank: list[float] = []
-    cold: list[float] = []
-    warm: list[float] = []
-    peaks: dict[str, int | None] = {}
+    before_tree = (
+        checkout(baseline_ref, Path(tempfile.mkdtemp(prefix="bench-before-")))
+        if baseline_ref
+        else None
+    )
+    runs: dict[str, list[float]] = {"rank": [], "cold": [], "warm": []}
+    if before_tree is not None:
+        runs["before"] = []
+    peaks: dict[str, int] = {}
 
-    def start(extra: list[str], name: str) -> float:
+    def start(extra: list[str], name: str, code: Path | None = None) -> float:
         launched = time.time()
-        done = run([*child, "--cache-folder", str(folder), *extra])
+        done = run([*child, "--cache-folder", str(folder), *extra], code=code)
         if done.returncode != 0:
             raise RuntimeError(f"{name}: {done.error}")
-        peaks[name] = max(peaks.get(name) or 0, done.peak_bytes or 0)
+        peaks[name] = max(peaks.get(name, 0), done.peak_bytes or 0)
         if name == "warm" and not done.report["cached"]:
             raise RuntimeError("warm: the file did not come from the cache")
         return float(done.report["first_frame_at"]) - launched
@@ -258,21 +268,27 @@ def start_figures(path: Path, repeats: int) -> dict[str, object]:
         )
         if done.returncode != 0:
             raise RuntimeError(f"rank: {done.error}")
-        rank.append(done.seconds)
-        peaks["rank"] = max(peaks.get("rank") or 0, done.peak_bytes or 0)
+        runs["rank"].append(done.seconds)
+        peaks["rank"] = max(peaks.get("rank", 0), done.peak_bytes or 0)
+        if before_tree is not None:
+            runs["before"].append(start([], "before", code=before_tree))
         shutil.rmtree(folder, ignore_errors=True)
-        cold.append(start([], "cold"))
+        runs["cold"].append(start([], "cold"))
         start(["--fill"], "fill")
-        warm.append(start([], "warm"))
+        runs["warm"].append(start([], "warm"))
     shutil.rmtree(folder, ignore_errors=True)
-    med = {k: statistics.median(v) for k, v in (("rank", rank), ("cold", cold), ("warm", warm))}
+    if before_tree is not None:
+        shutil.rmtree(before_tree, ignore_errors=True)
+    med = {k: statistics.median(v) for k, v in runs.items()}
     return {
-        "rank_s": rank,
-        "cold_first_frame_s": cold,
-        "warm_first_frame_s": warm,
+        "runs_s": runs,
+        "baseline_ref": baseline_ref,
         "median_s": med,
         "cold_over_rank": med["cold"] / med["rank"],
         "warm_over_rank": med["warm"] / med["rank"],
+        "per_round_cold_over_rank": [
+            c / r for c, r in zip(runs["cold"], runs["rank"], strict=True)
+        ],
         "peak_bytes": peaks,
     }
 
@@ -288,6 +304,10 @@ def main(argv: list[str] | None = None) -> int:
     )
     parser.add_argument("--no-start", action="store_true", help="skip rank / cold / warm")
     parser.add_argument("--start-repeats", type=int, default=2)
+    parser.add_argument(
+        "--baseline-ref",
+        help="also time the cold start of this git revision, alternately (git archive)",
+    )
     parser.add_argument("--no-keys", action="store_true", help="skip cursor, filter and order")
     parser.add_argument("--child", type=Path, help=argparse.SUPPRESS)
     parser.add_argument("--cache-folder", type=Path, help=argparse.SUPPRESS)
@@ -299,7 +319,7 @@ def main(argv: list[str] | None = None) -> int:
     path = portfolio_file(args.series, args.out)
     result: dict[str, object] = {}
     if not args.no_start:
-        result["start"] = start_figures(path, args.start_repeats)
+        result["start"] = start_figures(path, args.start_repeats, args.baseline_ref)
     if not args.no_keys:
         result.update(asyncio.run(measure(path, args.moves, args.repeats)))
     if not args.no_baseline:
@@ -317,6 +337,14 @@ def main(argv: list[str] | None = None) -> int:
             f"  warm first frame          {med['warm']:6.2f} s   "
             f"{start['warm_over_rank']:.2f}x rank (target <= 3 s)"
         )
+        rounds = ", ".join(f"{r:.2f}x" for r in start["per_round_cold_over_rank"])
+        print(f"  cold / rank, each round   {rounds}")
+        if "before" in med:
+            print(
+                f"  cold first frame at {args.baseline_ref}: {med['before']:.2f} s, "
+                f"{med['before'] / med['rank']:.2f}x rank; this tree "
+                f"{med['cold'] / med['before']:.2f}x of it"
+            )
         peaks = start["peak_bytes"]
         print(
             "  peak memory MB            "
