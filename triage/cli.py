@@ -39,7 +39,7 @@ from triage.commands_decide import add_decide_command
 from triage.commands_ledger import add_ledger_commands
 from triage.commands_report import add_report_commands
 from triage.core.errors import TriageError
-from triage.core.settings import TARGET_SHARE, ScoreSettings
+from triage.core.settings import CACHE_LIMIT_MB, TARGET_SHARE, ScoreSettings
 from triage.core.vocabulary import BY_BIAS, BY_ERROR, ORDERS
 
 if TYPE_CHECKING:
@@ -124,6 +124,12 @@ def _review_args(parser: argparse.ArgumentParser, *, ledger: bool = True) -> Non
     config_arg(parser)
     setting_arg(parser, TARGET_SHARE, flag="--target")
     group_arg(parser)
+    parser.add_argument(
+        "--no-cache",
+        action="store_true",
+        help="read the file afresh and keep nothing in the reopen cache (docs/performance.md)",
+    )
+    setting_arg(parser, CACHE_LIMIT_MB)
 
 
 def main(argv: Sequence[str] | None = None) -> int:
@@ -426,6 +432,11 @@ def _review_options(
         auto_advance=config.auto_advance,
         notices=list(notices),
         group=getattr(args, "group", None),
+        cache=not args.no_cache,
+        cache_limit_mb=CACHE_LIMIT_MB.check(
+            CACHE_LIMIT_MB.default if args.cache_limit is None else args.cache_limit,
+            CACHE_LIMIT_MB.flag,
+        ),
     )
 
 

@@ -164,3 +164,21 @@ def test_help_writes_the_declared_defaults(capsys: pytest.CaptureFixture[str]) -
     for setting in (WINDOW, TARGET_SHARE, REPEAT, LAG):
         assert " ".join(setting.help_text.split()) in out
     assert "(default 13)" in out and "(default 3/4)" in out and "else 0.8)" in out
+
+
+def test_reopen_cache_options_of_review_and_demo(capsys: pytest.CaptureFixture[str]) -> None:
+    """``--no-cache`` and ``--cache-limit`` (declared once: ``settings.CACHE_LIMIT_MB``) reach
+    the review screens' options; a negative limit is refused with exit 2, naming the option."""
+    from triage.core.settings import CACHE_LIMIT_MB
+
+    for command in (["review", str(SAMPLE)], ["demo"]):
+        args = build_parser().parse_args([*command, "--reviewer", "ana"])
+        options = _review_options(args, SAMPLE, None)
+        assert options.cache and options.cache_limit_mb == CACHE_LIMIT_MB.default
+        args = build_parser().parse_args(
+            [*command, "--reviewer", "ana", "--no-cache", "--cache-limit", "100"]
+        )
+        options = _review_options(args, SAMPLE, None)
+        assert not options.cache and options.cache_limit_mb == 100
+    assert main(["review", str(SAMPLE), "--reviewer", "ana", "--cache-limit", "-1"]) == 2
+    assert "--cache-limit" in capsys.readouterr().err

@@ -21,9 +21,19 @@ async def wait_for(pilot, predicate: Callable[[], bool], what: str, tries: int =
     raise AssertionError(f"timed out waiting for {what}")
 
 
-async def wait_loaded(app: TriageApp, pilot) -> None:
-    """Until the portfolio is scored and shown."""
+async def wait_listed(app: TriageApp, pilot) -> None:
+    """Until the portfolio is scored and its list shown (background pieces may still run)."""
     await wait_for(pilot, lambda: app.session is not None, f"the app to load ({app.status_text})")
+
+
+async def wait_loaded(app: TriageApp, pilot) -> None:
+    """Until the portfolio is scored and shown, and the background pieces are in."""
+    await wait_listed(app, pilot)
+    await wait_for(
+        pilot,
+        lambda: app.session is not None and app.session.ready,
+        f"the background pieces ({app.status_text})",
+    )
     await pilot.pause(0.1)
 
 

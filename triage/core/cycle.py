@@ -31,7 +31,7 @@ from triage.core.ranking import scorecard
 from triage.core.settings import ScoreSettings
 
 #: The cached pieces computed from the portfolio and settings alone.
-_SCORING = ("card", "window_cols", "error", "worst", "fva")
+_SCORING = ("card", "window_cols", "error", "error_order", "worst", "fva")
 #: The cached pieces that are read from, or derived from, the ledger.
 _FROM_LEDGER = (
     "log",
@@ -56,6 +56,8 @@ class ReviewCycle:
         settings: How the portfolio is scored (window, season, target share, repeat N of M).
         name: The review cycle (ISO date); default the portfolio's cycle (its latest actual).
             An export of an earlier cycle names it; adjustment ends count as of this cycle.
+        card: The portfolio's scorecard at these settings, when it is at hand (the reopen
+            cache, ``triage.core.cache``); else computed on first use.
     """
 
     def __init__(
@@ -65,11 +67,14 @@ class ReviewCycle:
         settings: ScoreSettings | None = None,
         *,
         name: str | None = None,
+        card: pd.DataFrame | None = None,
     ) -> None:
         self.portfolio = portfolio
         self.ledger = ledger
         self.settings = settings or ScoreSettings()
         self.name = portfolio.cycle if name is None else name
+        if card is not None:
+            self.__dict__["card"] = card
 
     # -- scoring ------------------------------------------------------------------------------
 
@@ -92,14 +97,28 @@ class ReviewCycle:
     @cached_property
     def error(self) -> np.ndarray:
         """Absolute error per series (value where priced), by position: what ranking sorts."""
-        aligned = self.card.sort_index()
-        column = aligned["abs_error_value" if self.priced else "abs_error"]
-        return np.asarray(column.to_numpy(), dtype=np.float64)
+        return self.by_position("abs_error_value" if self.priced else "abs_error")
+
+    @cached_property
+    def error_order(self) -> np.ndarray:
+        """Positions in review order (largest error first): the scorecard's index."""
+        order: np.ndarray = self.card.index.to_numpy(dtype=np.int64)
+        return order
+
+    def by_position(self, column: str) -> np.ndarray:
+        """A scorecard column aligned on portfolio position (element i = series i).
+
+        One scatter through the scorecard's index: no reordering of the whole frame.
+        """
+        values: np.ndarray = self.card[column].to_numpy()
+        out = np.empty_like(values)
+        out[self.error_order] = values
+        return out
 
     @cached_property
     def worst(self) -> np.ndarray:
         """The worst-offender set as a mask by position (leading set covering the target)."""
-        return history.worst_set(self.error, self.settings.target_share)
+        return history.worst_set(self.error, self.settings.target_share, self.error_order)
 
     @cached_property
     def fva(self) -> dict[str, float]:

@@ -193,7 +193,12 @@ class HistoryError(TriageError):
 def series_positions(
     portfolio: Portfolio, items: Sequence[str] | np.ndarray, locations: Sequence[str] | np.ndarray
 ) -> np.ndarray:
-    """Portfolio position of each (item, location), -1 where absent (``Portfolio.series_index``)."""
+    """Portfolio position of each (item, location), -1 where absent (``Portfolio.series_index``).
+
+    Nothing to look up builds no index (it takes a second on a million series).
+    """
+    if len(items) == 0:
+        return np.empty(0, dtype=np.int64)
     return portfolio.series_index.positions(items, locations)
 
 
@@ -625,18 +630,27 @@ def summarise(
 # Repeat offenders
 
 
-def worst_set(error: np.ndarray, target_share: float) -> np.ndarray:
+def worst_set(
+    error: np.ndarray, target_share: float, order: np.ndarray | None = None
+) -> np.ndarray:
     """Boolean mask of the worst-offender set: the leading set covering ``target_share``.
 
     Ranks and cumulative shares are formed exactly as ``ranking.scorecard`` forms them, and the
     cut is ``ranking.leading_cover``'s, so a set equals the one the review list showed. Empty
     when the total error is 0.
+
+    Args:
+        error: Absolute error per series (value where priced), by position.
+        target_share: The share of total error the set covers.
+        order: ``ranking.descending_order(error)`` when the caller has it (the scorecard's
+            index), to skip sorting again.
     """
     error = np.asarray(error, dtype=np.float64)
     mask = np.zeros(len(error), dtype=bool)
     if not len(error) or float(error.sum()) <= 0:
         return mask
-    order = ranking.descending_order(error)
+    if order is None:
+        order = ranking.descending_order(error)
     _, cum = ranking.error_shares(error, order)
     mask[order[: ranking.cover_count(cum[order], target_share)]] = True
     return mask

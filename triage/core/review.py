@@ -10,7 +10,7 @@ call it where the state is owned). Nothing here imports Textual.
 from __future__ import annotations
 
 import math
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from functools import cached_property
 from typing import Protocol
@@ -30,6 +30,33 @@ from triage.core.text import percent
 #: Fields a reviewer can filter on besides the attribute columns.
 FILTER_FIELDS = ("pattern", "flag", "outcome", "repeat", "carried")
 UNREVIEWED = "unreviewed"
+
+
+class StillComputing(TriageError):
+    """A piece the review screens compute after showing the list is not in yet (``ready``)."""
+
+
+@dataclass(frozen=True)
+class Background:
+    """What ``ReviewSession.background`` computes off the UI thread, for ``finish``."""
+
+    search: np.ndarray
+    """Casefolded search text per series (key and attributes)."""
+    suggest_spec: np.ndarray
+    """Suggested adjustment per series, ``""`` when none."""
+    suggest_reason: np.ndarray
+    """Why, per series."""
+    offenders: pd.DataFrame
+    """``history.repeat_offenders`` of the cycle."""
+    notices: tuple[str, ...]
+    """What the reviewer should know (a worst set not stored, re-scored cycles)."""
+
+
+def _inverse_rank(rank: np.ndarray) -> np.ndarray:
+    """Positions in rank order from 1-based ranks (a permutation): one scatter, no sort."""
+    order = np.empty(len(rank), dtype=np.int64)
+    order[np.asarray(rank, dtype=np.int64) - 1] = np.arange(len(rank))
+    return order
 
 
 @dataclass(frozen=True)
@@ -133,6 +160,8 @@ class ReviewSession:
         reviewer: Name stored with each decision.
         record_worst_set: Store this cycle's worst-offender set in a writable ledger when the
             cycle has none yet (opening a cycle for review does; the first set stands).
+        defer: Leave the background pieces (``background``) to the caller, who hands them to
+            ``finish``: the review screens show the list first. Else computed here.
     """
 
     def __init__(
@@ -141,6 +170,7 @@ class ReviewSession:
         *,
         reviewer: str,
         record_worst_set: bool = True,
+        defer: bool = False,
     ) -> None:
         self.review_cycle = cycle
         """The cycle this session reviews: scorecard, settings and the ledger read once."""
@@ -152,43 +182,41 @@ class ReviewSession:
         self.season = settings.season
         self.target_share = settings.target_share
         self.cycle = cycle.name
-        card = cycle.card
-        self.error_order = card.index.to_numpy(dtype=np.int64)
-        self.card = card.sort_index()
-        """Scorecard aligned on portfolio index (row i = series i)."""
-        self.priced = "abs_error_value" in self.card
-        self.error = self.card["abs_error_value" if self.priced else "abs_error"].to_numpy()
-        self.flag = np.select(
-            [
-                self.card["bias_flag"].to_numpy() == "over",
-                self.card["bias_flag"].to_numpy() == "under",
-            ],
-            [1, -1],
-            0,
-        ).astype(np.int8)
-        self.bias_order = np.argsort(self.card["bias_rank"].to_numpy(), kind="stable")
-        self.bias_size = np.abs(self.card["bias_value" if self.priced else "bias"].to_numpy())
+        ranked = self.ranked = cycle.card
+        """The scorecard in review order (``cycle.card``; index = position)."""
+        self.error_order = cycle.error_order
+        n = portfolio.n_series
+        self.position = np.empty(n, dtype=np.int64)
+        """Row of each series in ``ranked`` (the inverse of ``error_order``)."""
+        self.position[self.error_order] = np.arange(n)
+        self.priced = "abs_error_value" in ranked
+        self.error = cycle.error
+        flags = ranked["bias_flag"]
+        self.flag = self._aligned(
+            (flags == "over").to_numpy(dtype=bool).astype(np.int8)
+            - (flags == "under").to_numpy(dtype=bool).astype(np.int8)
+        )
+        self.bias_order = _inverse_rank(cycle.by_position("bias_rank"))
+        self.bias_size = np.abs(cycle.by_position("bias_value" if self.priced else "bias"))
         """|bias| over the window (value where priced): what bias order sorts by, after the flag."""
         self.bias_share, self.bias_cum = error_shares(
             np.nan_to_num(self.bias_size), self.bias_order
         )
         """Share of the portfolio's total |bias|, and the cumulative share in bias order."""
-        self.fva_order = np.argsort(self.card["fva_rank"].to_numpy(), kind="stable")
-        self.fva_loss = self.card["fva_loss_value" if self.priced else "fva_loss"].to_numpy()
+        self.fva_order = _inverse_rank(cycle.by_position("fva_rank"))
+        self.fva_loss = cycle.by_position("fva_loss_value" if self.priced else "fva_loss")
         """Error the last process step added over the window (value where priced; NaN without a
         comparable cell): what fva order sorts by (``compare.last_step_loss``)."""
         self.fva_steps = last_step(portfolio, settings.season)
         """(previous, final): the process step the loss is of."""
         self.window_cols = cycle.window_cols
-        self.suggest_spec, self.suggest_reason = adjust.suggest(
-            self.card["bias"].to_numpy(),
-            self.card["demand"].to_numpy(),
-            self.card["forecast"].to_numpy(),
-            self.flag,
-            self.card["bias_run"].to_numpy(),
-            self.card["periods"].to_numpy(),
-        )
-        n = portfolio.n_series
+        self.ready = False
+        """Whether the background pieces are in (``finish``): suggestions, repeat offenders,
+        the search index and the stored worst set. Until then ``suggest_spec`` is empty and
+        ``repeat`` all False, and whatever needs them raises ``StillComputing``."""
+        self.suggest_spec = np.full(n, "", dtype=object)
+        """Suggested adjustment per series (``adjust.suggest``), ``""`` when none."""
+        self.suggest_reason = np.full(n, "", dtype=object)
         self.outcome = np.full(n, "", dtype=object)
         """Effective outcome code per series in this cycle, ``""`` when unreviewed."""
         self.version = np.zeros(n, dtype=np.int64)
@@ -204,19 +232,14 @@ class ReviewSession:
         """Things the reviewer should know about this session (shown by the screens)."""
         self.worst = cycle.worst
         """This cycle's worst-offender set (the leading set covering the target share)."""
-        stored_now = self._record_worst_set() if record_worst_set else False
-        # Just stored: the set in hand is the stored one, no need to read it back.
-        offenders = cycle.repeat_offenders(current=self.worst if stored_now else None)
-        notice = history.repeat_notice(offenders) if self.ledger is not None else None
-        if notice:
-            self.notices.append(notice)
+        self._record_worst = record_worst_set
         self.repeat_nm = settings.repeat
-        self.times_in_worst = offenders["times_in_worst"].to_numpy(dtype=np.int64)
+        self.times_in_worst = np.zeros(n, dtype=np.int64)
         """Cycles (of the last M) the series was in the worst-offender set."""
-        self.cycles_scored = sum(c.startswith("worst_") for c in offenders.columns)
-        self.repeat_sources: dict[str, str] = dict(offenders.attrs.get("sources", {}))
+        self.cycles_scored = 0
+        self.repeat_sources: dict[str, str] = {}
         """Per cycle counted: ``"snapshot"`` (the stored set) or ``"rescored"``."""
-        self.repeat = offenders["repeat"].to_numpy(dtype=bool)
+        self.repeat = np.zeros(n, dtype=bool)
         """Repeat offender flag per series."""
         self.past_outcome = np.full(n, "", dtype=object)
         """Latest effective outcome from an earlier cycle, ``""`` when none."""
@@ -242,6 +265,79 @@ class ReviewSession:
         )
         if self.ledger is not None:
             self.reload()
+        if not defer:
+            self.finish(self.background())
+
+    # -- the pieces computed after the list is shown -------------------------------------------
+
+    def background(self, step: Callable[[int, int, str], None] | None = None) -> Background:
+        """Compute what the list can show later: the search index, suggestions, the stored
+        worst set and repeat offenders (safe on a worker thread: changes nothing here but the
+        ledger's worst-set snapshot; ``finish`` takes the result where the state is owned).
+
+        Args:
+            step: Called with (step done, steps, what comes next) as the work goes on.
+        """
+        say = step or (lambda done, total, label: None)
+        say(0, 3, "search index")
+        search = self._build_search()
+        say(1, 3, "suggestions")
+        ranked = self.ranked
+
+        def column(name: str) -> np.ndarray:
+            return self._aligned(ranked[name].to_numpy())
+
+        spec, reason = adjust.suggest(
+            column("bias"),
+            column("demand"),
+            column("forecast"),
+            self.flag,
+            column("bias_run"),
+            column("periods"),
+        )
+        say(2, 3, "repeat offenders")
+        notices: list[str] = []
+        stored_now = self._record_worst_set(notices) if self._record_worst else False
+        # Just stored: the set in hand is the stored one, no need to read it back.
+        offenders = self.review_cycle.repeat_offenders(current=self.worst if stored_now else None)
+        notice = history.repeat_notice(offenders) if self.ledger is not None else None
+        if notice:
+            notices.append(notice)
+        return Background(search, spec, reason, offenders, tuple(notices))
+
+    def finish(self, done: Background) -> None:
+        """Take the background pieces in (where the state is owned); ``ready`` turns True."""
+        offenders = done.offenders
+        self._search = done.search
+        self.suggest_spec, self.suggest_reason = done.suggest_spec, done.suggest_reason
+        self.times_in_worst = offenders["times_in_worst"].to_numpy(dtype=np.int64)
+        self.cycles_scored = sum(c.startswith("worst_") for c in offenders.columns)
+        self.repeat_sources = dict(offenders.attrs.get("sources", {}))
+        self.repeat = offenders["repeat"].to_numpy(dtype=bool)
+        self.notices.extend(done.notices)
+        self.ready = True
+
+    def _require_ready(self, what: str) -> None:
+        if not self.ready:
+            raise StillComputing(
+                f"{what} {'are' if what.endswith('s') else 'is'} still being computed.",
+                hint="It is ready when the summary line stops saying 'computing'.",
+            )
+
+    def _aligned(self, values: np.ndarray) -> np.ndarray:
+        """Values in review order (as in ``ranked``) aligned on portfolio position."""
+        out = np.empty_like(values)
+        out[self.error_order] = values
+        return out
+
+    @cached_property
+    def card(self) -> pd.DataFrame:
+        """Scorecard aligned on portfolio index (row i = series i); built on first use."""
+        return self.ranked.sort_index()
+
+    def card_row(self, series: int) -> pd.Series:
+        """The scorecard row of one series."""
+        return self.ranked.iloc[int(self.position[series])]
 
     # -- keys ---------------------------------------------------------------------------------
 
@@ -340,11 +436,14 @@ class ReviewSession:
         live = lines["standing"].to_numpy(dtype=bool) & ~lines["in_forecast"].to_numpy(dtype=bool)
         self.carries[series[live]] = True
 
-    def _record_worst_set(self) -> bool:
+    def _record_worst_set(self, notices: list[str]) -> bool:
         """Keep the worst-offender set this list shows, once per cycle, in a writable ledger.
 
         A ledger that cannot take it (busy, disk full) costs the snapshot, never the session:
         the reason is added to ``notices`` and repeat offenders re-score this cycle.
+
+        Args:
+            notices: Where the reason goes when it is not stored.
 
         Returns:
             Whether this call stored it (False: stored before, or not storable).
@@ -374,7 +473,7 @@ class ReviewSession:
                 series=self.portfolio.n_series,
             )
         except ledger_mod.LedgerError as exc:
-            self.notices.append(
+            notices.append(
                 f"This cycle's worst-offender set was not stored ({exc}); repeat offenders "
                 "re-score it."
             )
@@ -820,18 +919,20 @@ class ReviewSession:
 
     # -- ordering and filtering ---------------------------------------------------------------
 
+    def _build_search(self) -> np.ndarray:
+        """The casefolded search text of every series (slow for a million series)."""
+        keys = self.portfolio.keys
+        text = keys[schema.ITEM].astype(str)
+        for name in list(self.portfolio.key_columns[1:]) + list(self.portfolio.attributes):
+            text = text + "\x1f" + keys[name].astype(str)
+        result: np.ndarray = text.str.casefold().to_numpy(dtype=object)
+        return result
+
     def _search_text(self) -> np.ndarray:
         if self._search is None:
-            keys = self.portfolio.keys
-            text = keys[schema.ITEM].astype(str)
-            for name in list(self.portfolio.key_columns[1:]) + list(self.portfolio.attributes):
-                text = text + "\x1f" + keys[name].astype(str)
-            self._search = text.str.casefold().to_numpy(dtype=object)
+            self._require_ready("The search index")
+        assert self._search is not None
         return self._search
-
-    def prepare(self) -> None:
-        """Build the search text in advance (slow for a million series; call from a worker)."""
-        self._search_text()
 
     def filter_values(self, field: str) -> list[str]:
         """Distinct values a field can be filtered on, sorted."""
@@ -845,17 +946,14 @@ class ReviewSession:
     def _field(self, field: str) -> np.ndarray:
         values: np.ndarray
         if field == "pattern":
-            values = self.card["pattern"].to_numpy(dtype=object)
-            return values
+            return self._aligned(self.ranked["pattern"].to_numpy(dtype=object))
         if field == "flag":
-            return np.where(
-                self.card["bias_flag"].to_numpy(dtype=object) == "",
-                "none",
-                self.card["bias_flag"].to_numpy(dtype=object),
-            )
+            flags = self._aligned(self.ranked["bias_flag"].to_numpy(dtype=object))
+            return np.where(flags == "", "none", flags)
         if field == "outcome":
             return np.where(self.outcome == "", UNREVIEWED, self.outcome)
         if field == "repeat":
+            self._require_ready("Repeat offenders")
             return np.where(self.repeat, "yes", "no")
         if field == "carried":
             return np.where(self.carried, "yes", "no")
@@ -938,7 +1036,7 @@ class ReviewSession:
         """Portfolio totals over the window (see ``output.totals``)."""
         from triage.core.output import totals
 
-        return totals(self.card)
+        return totals(self.ranked)
 
     # -- one series ---------------------------------------------------------------------------
 
@@ -1029,7 +1127,7 @@ class ReviewSession:
 
     def describe(self, series: int) -> str:
         """The metrics card in words, e.g. ``over-forecast by 23% over 13 weeks, 9 running``."""
-        row = self.card.iloc[series]
+        row = self.card_row(series)
         unit = "weeks" if self.portfolio.calendar.freq == schema.WEEKLY else "months"
         periods = int(row["periods"])
         if periods == 0:
@@ -1073,7 +1171,9 @@ class ReviewSession:
         lines = list(self.active_lines(series))
         n, m = self.repeat_nm
         times = int(self.times_in_worst[series])
-        if self.cycles_scored:
+        if not self.ready:
+            lines.append("worst-offender set in earlier cycles: still computing…")
+        elif self.cycles_scored:
             mark = "repeat offender: " if self.repeat[series] else ""
             rescored = sum(how == history.RESCORED for how in self.repeat_sources.values())
             notes = [f"flag at {n} of {m}"] if self.repeat[series] else []

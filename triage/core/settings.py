@@ -221,6 +221,31 @@ STAT_NAME: Setting[str] = Setting(
     metavar="NAME",
 )
 
+
+def _megabytes(value: int, option: str) -> int:
+    """A size in MB, 0 or more.
+
+    Raises:
+        TriageError: Below 0, naming ``option``.
+    """
+    if value < 0:
+        raise TriageError(f"{option} is a size in MB, 0 or more, not {value}.")
+    return value
+
+
+#: The reopen cache's bound (``triage.core.cache``); not a scoring setting, so not in
+#: :data:`SETTINGS`. 0 keeps nothing.
+CACHE_LIMIT_MB: Setting[int] = Setting(
+    name="cache_limit_mb",
+    default=8192,
+    flags=("--cache-limit",),
+    help="largest size of the reopen cache of loaded files, in MB; the least recently opened "
+    "files go first (default {default}; 0 keeps nothing)",
+    convert=int,
+    check=_megabytes,
+    metavar="MB",
+)
+
 #: Every declaration, in the order of :class:`ScoreSettings`' fields.
 SETTINGS: tuple[Setting[Any], ...] = (WINDOW, SEASON, TARGET_SHARE, REPEAT, LAG, STAT_NAME)
 

@@ -9,7 +9,7 @@ from collections.abc import Callable, Iterator
 from contextlib import contextmanager, suppress
 from dataclasses import dataclass, field, replace
 from pathlib import Path
-from typing import ClassVar
+from typing import Any, ClassVar
 
 import numpy as np
 from rich.text import Text
@@ -21,21 +21,24 @@ from textual.timer import Timer
 from textual.widgets import Footer, ProgressBar, Static
 from textual.worker import Worker, WorkerState
 
+from triage.core import cache, schema, vocabulary, words
 from triage.core import groups as groups_mod
 from triage.core import ledger as ledger_mod
-from triage.core import schema, vocabulary, words
 from triage.core.cycle import ReviewCycle
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.group_review import GroupReview, outcome_words
 from triage.core.ledger import GroupRecord
-from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession
-from triage.core.settings import ScoreSettings
+from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession, StillComputing
+from triage.core.settings import CACHE_LIMIT_MB, ScoreSettings
 from triage.core.text import visible
 from triage.core.vocabulary import DEFAULT_ROOT_CAUSES, Choice
 from triage.tui import format as fmt
 from triage.tui.keyorder import KeyOrder
 from triage.tui.messages import (
+    BackgroundDone,
+    BackgroundNote,
+    BackgroundStep,
     Ended,
     Exported,
     GroupsReady,
@@ -79,6 +82,12 @@ class Options:
     notices: list[str] = field(default_factory=list)
     group: str | None = None
     """``--group``: the columns the group view rolls series up by (checked once loaded)."""
+    cache: bool = True
+    """Open from the reopen cache and keep the load there (``--no-cache``: neither)."""
+    cache_limit_mb: int = CACHE_LIMIT_MB.default
+    """The reopen cache's bound (``--cache-limit``)."""
+    cache_folder: Path | None = None
+    """Where the reopen cache is (None: ``cache.default_folder()``)."""
 
 
 #: Actions on one series, unavailable (dimmed) while the group view is shown.
@@ -343,7 +352,17 @@ class TriageApp(App[None]):
         """Series -> saves asked for and not yet answered (UI thread)."""
         self.drafts: dict[int, Draft] = {}
         self.status_text = ""
-        self._arrays: dict[str, np.ndarray] = {}
+        self._arrays: dict[str, Any] = {}
+        self._pattern: Any = None
+        self._computing = ""
+        """What the background worker is computing (``ReviewSession.background``), shown in
+        the summary line; empty once done."""
+        self._load_status = ""
+        self._stop_cache = threading.Event()
+        """Set when the app closes: a cache write still going stops (its scratch is removed)."""
+        """The status line as loading left it (background notices join it, if still shown)."""
+        self._order_waits = False
+        """A filter waits for a background piece (the list is empty until it is in)."""
         self._chart_timer: Timer | None = None
         self.key_order = KeyOrder(self, lambda event: App.on_event(self, event))
         """Hands keys on one at a time, in the order typed (see ``triage.tui.keyorder``)."""
@@ -445,14 +464,19 @@ class TriageApp(App[None]):
         from triage.core.read import read_portfolio
 
         opts = self.options
-        steps = 5
+        steps = 4
         self.post_message(LoadStep(0, steps, f"reading {opts.portfolio.name}"))
-        portfolio = read_portfolio(
-            opts.portfolio,
-            columns=opts.columns,
-            sheet=opts.sheet,
-            lag=opts.settings.lag,
-            options=opts.file_options,
+        found, hit = self._from_cache()
+        portfolio = (
+            hit.portfolio
+            if hit is not None
+            else read_portfolio(
+                opts.portfolio,
+                columns=opts.columns,
+                sheet=opts.sheet,
+                lag=opts.settings.lag,
+                options=opts.file_options,
+            )
         )
         require_scorable(portfolio, opts.settings.window)
         self.post_message(LoadStep(1, steps, "opening the ledger"))
@@ -470,14 +494,106 @@ class TriageApp(App[None]):
         except TriageError as exc:
             notices.append(f"{exc} Decisions cannot be saved in this session.")
         self.post_message(LoadStep(2, steps, "scoring every series"))
-        session = ReviewSession(
-            ReviewCycle(portfolio, ledger, opts.settings), reviewer=opts.reviewer
-        )
-        self.post_message(LoadStep(3, steps, "indexing for search"))
-        session.prepare()
-        self.post_message(LoadStep(4, steps, "drawing"))
+        window, season = opts.settings.window, opts.settings.season
+        card = cache.load_card(hit.entry, window, season) if hit is not None else None
+        cycle = ReviewCycle(portfolio, ledger, opts.settings, card=card)
+        # Suggestions, repeat offenders and the search index come later (``_background``).
+        session = ReviewSession(cycle, reviewer=opts.reviewer, defer=True)
+        self.post_message(LoadStep(3, steps, "drawing"))
         notices.extend(session.notices)
-        self.post_message(Loaded(session, tuple(notices)))
+        keep: Callable[[], None] | None = None
+        if found is not None and hit is None:
+
+            def keep() -> None:
+                cache.store(
+                    found,
+                    portfolio,
+                    {(window, season): cycle.card},
+                    self._cache_folder(),
+                    opts.cache_limit_mb << 20,
+                    cancelled=self._stop_cache.is_set,
+                )
+
+        elif hit is not None and card is None:
+
+            def keep() -> None:
+                cache.store_card(hit.entry, window, season, cycle.card)
+
+        self.post_message(Loaded(session, tuple(notices), keep))
+
+    def _cache_folder(self) -> Path:
+        return self.options.cache_folder or cache.default_folder()
+
+    def _from_cache(self) -> tuple[cache.Stamp | None, cache.Hit | None]:
+        """The file's cache stamp and its cached load (None, None with ``--no-cache``)."""
+        opts = self.options
+        if not opts.cache or opts.cache_limit_mb <= 0:
+            return None, None
+        read_options = {
+            "columns": opts.columns,
+            "sheet": opts.sheet,
+            "lag": opts.settings.lag,
+            "file_options": opts.file_options,
+        }
+        try:
+            found = cache.stamp(opts.portfolio, read_options)
+        except OSError:
+            return None, None  # the read names the problem
+        try:
+            return found, cache.load(found, self._cache_folder())
+        except OSError:
+            return found, None  # an unreadable cache folder: read the file
+
+    @work(thread=True, exclusive=True, exit_on_error=False, group="background", name="background")
+    def _background(self, session: ReviewSession, keep: Callable[[], None] | None) -> None:
+        """What the list shows later (``ReviewSession.background``), off the UI thread; then
+        the load goes to the reopen cache (``keep``), when it came from the file."""
+
+        def step(done: int, total: int, label: str) -> None:
+            self.post_message(BackgroundStep(session, done, total, label))
+
+        self.post_message(BackgroundDone(session, session.background(step)))
+        if keep is None or self._stop_cache.is_set():
+            return
+        try:
+            keep()
+        except (OSError, TriageError) as exc:
+            # The cache only saves time: the next open reads the file, as this one did.
+            self.post_message(BackgroundNote(f"The reopen cache was not written: {exc}"))
+
+    @on(BackgroundStep)
+    def _background_step(self, message: BackgroundStep) -> None:
+        if message.session is self.session and self.screen_stack:
+            self._computing = f"{message.label} ({message.step + 1}/{message.total})"
+            self._refresh_summary()
+
+    @on(BackgroundNote)
+    def _background_note(self, message: BackgroundNote) -> None:
+        if self.screen_stack:
+            self._status(message.text)
+
+    def on_unmount(self) -> None:
+        self._stop_cache.set()
+
+    @on(BackgroundDone)
+    def _background_done(self, message: BackgroundDone) -> None:
+        session = message.session
+        if session is not self.session or not self.screen_stack:
+            return  # another session's, or the app is closing
+        session.finish(message.done)
+        self._computing = ""
+        for note in message.done.notices:
+            fmt.toast(self, note, severity="warning", timeout=10)
+        if message.done.notices and self.status_text == self._load_status:
+            # Beside the loading notices, unless something newer took the status line.
+            self._status(" | ".join(filter(None, [self._load_status, *message.done.notices])))
+        series_list = self._q(SeriesList)
+        series_list.invalidate()
+        if self._order_waits:
+            self._order_waits = False
+            self._apply_order()
+        self._refresh_summary()
+        self._show_detail(series_list.current)
 
     @on(LoadStep)
     def _load_step(self, message: LoadStep) -> None:
@@ -488,26 +604,32 @@ class TriageApp(App[None]):
     def _loaded(self, message: Loaded) -> None:
         session = message.session
         self.session = session
-        card = session.card
+        cycle = session.review_cycle
+        keys = session.portfolio.keys
+        # Text columns stay Arrow-backed: a row is read when it is drawn (no million objects).
         self._arrays = {
-            "rank": card["rank"].to_numpy(),
-            "item": session.portfolio.keys["item"].to_numpy(dtype=object),
-            "location": session.portfolio.keys["location"].to_numpy(dtype=object)
-            if "location" in session.portfolio.keys
+            "rank": cycle.by_position("rank"),
+            "item": keys["item"].array,
+            "location": keys["location"].array
+            if "location" in keys
             else np.full(session.portfolio.n_series, "", dtype=object),
-            "share": card["error_share"].to_numpy(),
-            "cum": card["cum_share"].to_numpy(),
+            "share": cycle.by_position("error_share"),
+            "cum": cycle.by_position("cum_share"),
             "error": session.error,
-            "bias_pct": card["bias_pct"].to_numpy(),
-            "ts": card["tracking_signal"].to_numpy(),
-            "pattern": card["pattern"].to_numpy(dtype=object),
+            "bias_pct": cycle.by_position("bias_pct"),
+            "ts": cycle.by_position("tracking_signal"),
         }
+        self._pattern = session.ranked["pattern"].array
+        """The pattern column in review order (row ``session.position[series]``)."""
         self._q("#loading").display = False
         self._q("#main").display = True
         series_list = self._q(SeriesList)
         series_list.set_order(session.order(self.by))
         series_list.focus()
+        self._computing = "starting"
         self._refresh_summary()
+        # After the first frame with the list: the worker would compete with drawing it.
+        self.call_after_refresh(self._background, session, message.keep)
         for note in message.notices:
             fmt.toast(self, note, severity="warning", timeout=10)
         if message.notices:
@@ -523,6 +645,7 @@ class TriageApp(App[None]):
                 fmt.toast(self, str(exc), severity="error", timeout=15)
             else:
                 self._build_groups(self.group_by)
+        self._load_status = self.status_text
 
     def on_worker_state_changed(self, event: Worker.StateChanged) -> None:
         """Show every worker failure; none is swallowed."""
@@ -530,6 +653,9 @@ class TriageApp(App[None]):
             return
         error = event.worker.error
         text = str(error) if isinstance(error, TriageError) else f"{type(error).__name__}: {error}"
+        if event.worker.name == "background":
+            self._computing = "stopped: repeat offenders, suggestions and search are missing"
+            self._refresh_summary()
         if event.worker.name == "load":
             self._q("#loading-label", Static).update(
                 Text(f"Cannot open the portfolio:\n{text}\n\nPress q to quit.", style="bold")
@@ -543,6 +669,7 @@ class TriageApp(App[None]):
         a = self._arrays
         session = self.session
         assert session is not None
+        pattern = str(self._pattern[int(session.position[series])])
         flag = int(session.flag[series])
         outcome = session.outcome[series]
         cols = session.window_cols[-fmt.SPARK_PERIODS :]
@@ -564,10 +691,12 @@ class TriageApp(App[None]):
                 ("▲ over" if flag > 0 else "▼ under") if flag else "",
                 "flag" if flag else None,
             ),
-            "pattern": (fmt.PATTERN_SHORT.get(a["pattern"][series], a["pattern"][series]), "dim"),
+            "pattern": (fmt.PATTERN_SHORT.get(pattern, pattern), "dim"),
             "outcome": self._review_cell(series, outcome),
             "worst": (
-                f"{'R ' if session.repeat[series] else ''}"
+                "…"
+                if not session.ready
+                else f"{'R ' if session.repeat[series] else ''}"
                 f"{session.times_in_worst[series]}/{session.cycles_scored}"
                 if session.cycles_scored
                 else "",
@@ -607,7 +736,7 @@ class TriageApp(App[None]):
             self._q("#chart", SeriesChart).show(None)
             body.update(Text(""), layout=False)
             return
-        card = session.card.iloc[series]
+        card = session.card_row(series)
         key = fmt.key_text(session.key(series))
         title.update(
             Text.assemble(
@@ -625,7 +754,9 @@ class TriageApp(App[None]):
         # measures: a short pane at 80x24 still shows the first lines.
         lines = [session.describe(series), *session.across_cycles(series)]
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
-        if spec:
+        if not session.ready:
+            lines.append("suggested adjustment: still computing…")
+        elif spec:
             lines.append(f"suggested: {spec} ({reason}); press s to take it")
         lines += [
             f"abs error {fmt.compact(card['abs_error'])}{value} · WAPE {fmt.pct(card['wape'])} · "
@@ -739,7 +870,9 @@ class TriageApp(App[None]):
                 else ""
             )
             + where
-            + (f" · filter: {fmt.plain(', '.join(filt))}" if filt else ""),
+            + (f" · filter: {fmt.plain(', '.join(filt))}" if filt else "")
+            + (" (waiting)" if filt and self._order_waits else "")
+            + (f" · computing {self._computing}" if self._computing else ""),
         )
         summary.no_wrap = True
         summary.overflow = "ellipsis"
@@ -756,9 +889,17 @@ class TriageApp(App[None]):
             return
         series_list = self._q(SeriesList)
         current = series_list.current
-        series_list.set_order(
-            session.order(self.by, text=self.text_filter, filters=self.field_filters), keep=current
-        )
+        try:
+            order = session.order(self.by, text=self.text_filter, filters=self.field_filters)
+        except StillComputing as exc:
+            # Never the unfiltered list under a filter: empty until the piece is in, then
+            # applied (``_background_done``).
+            self._order_waits = True
+            order = np.zeros(0, dtype=np.int64)
+            self._status(f"{exc} The filter applies as soon as it is ready.")
+        else:
+            self._order_waits = False
+        series_list.set_order(order, keep=current)
         self._refresh_summary()
 
     # -- actions: finding ---------------------------------------------------------------------
@@ -798,7 +939,11 @@ class TriageApp(App[None]):
         def chose_field(field_name: str | None) -> None:
             if field_name is None:
                 return
-            values = session.filter_values(field_name)
+            try:
+                values = session.filter_values(field_name)
+            except StillComputing as exc:
+                self._status(f"{exc} Choose the filter again then.")
+                return
             self.push_screen(
                 ChooseScreen(
                     f"Show only {fmt.plain(field_name)} =",
@@ -989,6 +1134,9 @@ class TriageApp(App[None]):
         if series is None or session is None:
             return
         spec = session.suggest_spec[series]
+        if not session.ready:
+            self._status("Suggested adjustments are still being computed: press s again soon.")
+            return
         if not spec:
             self._status("no suggested adjustment for this series")
             return

@@ -2,11 +2,13 @@
 
 from __future__ import annotations
 
+from collections.abc import Callable
+
 from textual.message import Message
 
 from triage.core.group_review import GroupReview
 from triage.core.ledger import AdjustmentEnd, Event
-from triage.core.review import ReviewSession
+from triage.core.review import Background, ReviewSession
 
 
 class LoadStep(Message):
@@ -25,12 +27,53 @@ class LoadStep(Message):
 class Loaded(Message):
     """The portfolio is loaded, scored and the ledger read."""
 
-    def __init__(self, session: ReviewSession, notices: tuple[str, ...]) -> None:
+    def __init__(
+        self,
+        session: ReviewSession,
+        notices: tuple[str, ...],
+        keep: Callable[[], None] | None = None,
+    ) -> None:
         super().__init__()
         self.session = session
         """The review session to show."""
         self.notices = notices
         """Things the reviewer should know (ledger opened read-only, prices filled...)."""
+        self.keep = keep
+        """Writes the load to the reopen cache (run by the background worker), or None."""
+
+
+class BackgroundStep(Message):
+    """The background worker (suggestions, repeat offenders, search index) reached a step."""
+
+    def __init__(self, session: ReviewSession, step: int, total: int, label: str) -> None:
+        super().__init__()
+        self.session = session
+        """The session the work is for."""
+        self.step = step
+        """Steps done so far."""
+        self.total = total
+        """Steps in all."""
+        self.label = label
+        """What is being computed now."""
+
+
+class BackgroundDone(Message):
+    """The background pieces of a session are computed (``ReviewSession.background``)."""
+
+    def __init__(self, session: ReviewSession, done: Background) -> None:
+        super().__init__()
+        self.session = session
+        """The session the work is for."""
+        self.done = done
+        """What to hand to ``session.finish``."""
+
+
+class BackgroundNote(Message):
+    """Something the background worker wants on the status line."""
+
+    def __init__(self, text: str) -> None:
+        super().__init__()
+        self.text = text
 
 
 class Saved(Message):

@@ -181,7 +181,8 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
             value=self._draft.adjustment,
             placeholder="adjustment, e.g. x0.9, +10%, 1-4: =120, mean 8, bias"
             + (f", use {visible(other)}" if other else "")
-            + (f" (suggested: {suggestion})" if suggestion else ""),
+            + (f" (suggested: {suggestion})" if suggestion else "")
+            + ("" if self._session.ready else " (suggestion still computing)"),
             id="decision-adjust",
         )
         yield Static(Text(""), id="decision-preview")
