@@ -238,19 +238,25 @@ def quick_summary(
         for chunk in source.chunks(names):
             got = chunk.columns
             period = got[schema.PERIOD].astype(np.int64)
-            days.append(np.unique(period))
-            actual.append(np.unique(period[~np.isnan(got[schema.DEMAND])]))
+            days.append(_distinct(period))
+            actual.append(_distinct(period[~np.isnan(got[schema.DEMAND])]))
             if has_lag:
                 lags.append(np.unique(np.column_stack([period, got[schema.LAG]]), axis=0))
-            pair = got[schema.ITEM].astype(np.int64) << 32
+            # Distinct (item, location) codes: numbered densely first, so they are counted,
+            # not sorted.
+            item = got[schema.ITEM].astype(np.int64)
             if schema.LOCATION in got:
-                pair |= got[schema.LOCATION].astype(np.int64)
-            pairs.append(np.unique(pair))
+                location = got[schema.LOCATION].astype(np.int64)
+                width = int(location.max()) + 1 if len(location) else 1
+                dense = _distinct(item * width + location)
+                pairs.append((dense // width) << 32 | (dense % width))
+            else:
+                pairs.append(_distinct(item) << 32)
         present = list(source.columns)
         extra = [name for name, _ in added_fields(dataset, part, present)]
         key_range = None
         if pairs:
-            pair = np.unique(np.concatenate(pairs))
+            pair = _distinct(np.concatenate(pairs))
             texts = [np.asarray(source.values(schema.ITEM), dtype=str)[pair >> 32]]
             if schema.LOCATION in keys:
                 texts.append(
@@ -263,7 +269,7 @@ def quick_summary(
         return summarise(read_part(dataset, part, columns=columns, options=options))
 
     def stamps(found: list[np.ndarray]) -> np.ndarray:
-        joined = np.unique(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
+        joined = _distinct(np.concatenate(found)) if found else np.empty(0, dtype=np.int64)
         return joined * DAY_NS
 
     lag_stamps = np.empty((0, 2), dtype=np.int64)
@@ -280,6 +286,21 @@ def quick_summary(
         notices=source.notices,
         keys=key_range,
     )
+
+
+def _distinct(values: np.ndarray) -> np.ndarray:
+    """Sorted distinct int64 values: by counting when they span little (day numbers), else by
+    sorting (numpy's hashed ``unique`` is several times slower on these)."""
+    if not len(values):
+        return values.astype(np.int64)
+    low, high = int(values.min()), int(values.max())
+    if high - low < 1 << 22:
+        return np.flatnonzero(np.bincount(values - low)) + low
+    ordered = np.sort(values)
+    keep = np.empty(len(ordered), dtype=bool)
+    keep[0] = True
+    np.not_equal(ordered[1:], ordered[:-1], out=keep[1:])
+    return ordered[keep]
 
 
 def _key_range(frame: pd.DataFrame) -> tuple[tuple[str, ...], tuple[str, ...]] | None:
