@@ -106,19 +106,37 @@ RUN = "import sys; from triage.cli import main; sys.exit(main(sys.argv[1:]))"
 def test_rank_engine_dask_writes_the_single_files_csv(
     tmp_path: Path, source: Path, datasets: dict[str, Path]
 ) -> None:
-    def rank(*args: str | Path) -> subprocess.CompletedProcess[bytes]:
-        return subprocess.run(
-            [sys.executable, "-c", RUN, "rank", *map(str, args)],
-            capture_output=True,
-            timeout=600,
-            check=False,
-        )
-
-    single = rank(source, "--format", "csv")
-    spread = rank(datasets["random"], "--engine", "dask", "--workers", "2", "--format", "csv")
+    single = _rank(source, "--format", "csv")
+    spread = _rank(datasets["random"], "--engine", "dask", "--workers", "2", "--format", "csv")
     assert spread.returncode == 0, spread.stderr.decode()
     assert spread.stdout == single.stdout
-    refused = rank(source, "--engine", "dask")
+    refused = _rank(source, "--engine", "dask")
     assert refused.returncode == 2
     assert b"--engine dask scores a dataset folder" in refused.stderr
     assert b"Traceback" not in refused.stderr
+
+
+def test_rank_on_an_existing_cluster_leaves_it_running(
+    source: Path, datasets: dict[str, Path], client: Any
+) -> None:
+    address = client.scheduler.address
+    single = _rank(source, "--format", "csv")
+    spread = _rank(
+        datasets["blocks"], "--engine", "dask", "--scheduler", address, "--format", "csv"
+    )
+    assert spread.returncode == 0, spread.stderr.decode()
+    assert spread.stdout == single.stdout
+    # The command closed its own connection, not the cluster.
+    assert client.submit(sum, [1, 2]).result() == 3
+    unreachable = _rank(datasets["blocks"], "--engine", "dask", "--scheduler", "tcp://127.0.0.1:9")
+    assert unreachable.returncode == 2
+    assert b"cannot reach the Dask scheduler" in unreachable.stderr
+
+
+def _rank(*args: str | Path) -> subprocess.CompletedProcess[bytes]:
+    return subprocess.run(
+        [sys.executable, "-c", RUN, "rank", *map(str, args)],
+        capture_output=True,
+        timeout=600,
+        check=False,
+    )
