@@ -223,6 +223,11 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         refuse_overwriting([args.output], args.portfolio, force=args.force)
     if args.top is not None and args.top < 1:
         raise TriageError(f"--top must be at least 1, not {args.top}.")
+    if args.format == "parquet" and args.output is None:
+        raise TriageError(
+            "--format parquet writes a folder of Parquet files and needs --output DIR.",
+            hint="Add --output DIR, or choose --format csv for standard output.",
+        )
     if args.engine == "dask":
         return _rank_dask(args, settings)
     portfolio = load_portfolio(args, dataset=True)
@@ -232,7 +237,14 @@ def _cmd_rank(args: argparse.Namespace) -> int:
     if args.group is not None:
         return _rank_groups(args, settings, portfolio)
     card = scorecard(portfolio, settings.window, settings.season, by=args.by, steps=steps)
+    if args.format in FILE_FORMATS:
+        del portfolio
+        return _show_rank(args, settings, None, card, steps)
     return _show_rank(args, settings, portfolio, card, steps)
+
+
+#: rank's formats written from the scorecard alone (no header about the portfolio).
+FILE_FORMATS = ("csv", "parquet")
 
 
 def _notices(notices: Sequence[str]) -> None:
@@ -283,21 +295,28 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
             f"{args.portfolio}: {NOTHING_TO_SCORE.format(periods=len(cols))}",
             hint=SCORABLE_HINT,
         )
-    card = ranked(scored.measures, args.by)
     cols = scored.plan.window_cols(settings.window)
-    return _show_rank(args, settings, scored.described, card, scored.steps, cols=cols)
+    described, steps = scored.described, scored.steps
+    card = ranked(scored.measures, args.by)
+    # The measures go before the text is made (the scorecard holds its own copies).
+    del scored
+    shown = None if args.format in FILE_FORMATS else described
+    return _show_rank(args, settings, shown, card, steps, cols=cols)
 
 
 def _show_rank(
     args: argparse.Namespace,
     settings: ScoreSettings,
-    portfolio: Portfolio,
+    portfolio: Portfolio | None,
     card: pd.DataFrame,
     steps: Sequence[str] | None,
     *,
     cols: np.ndarray | None = None,
 ) -> int:
-    """Write the scorecard ``card`` of ``portfolio`` as ``rank``'s options ask."""
+    """Write the scorecard ``card`` of ``portfolio`` as ``rank``'s options ask.
+
+    CSV and Parquet need only the scorecard: callers pass no portfolio for them, so that its
+    dense arrays are gone before the text is made."""
     from triage.core.ranking import leading_cover
     from triage.render import scorecard as report
 
@@ -310,20 +329,15 @@ def _show_rank(
         shown = card.iloc[: report.TABLE_DEFAULT_ROWS]
 
     if args.format == "parquet":
-        if args.output is None:
-            raise TriageError(
-                "--format parquet writes a folder of Parquet files and needs --output DIR.",
-                hint="Add --output DIR, or choose --format csv for standard output.",
-            )
         from triage.core.files import write_set_atomic
 
         write_set_atomic(args.output, report.parquet_parts(shown), force=args.force)
         return 0
     if args.format == "csv":
-        # CSV needs only the scorecard: the portfolio's dense arrays go before the text is made.
-        del portfolio, card
+        del card
         _emit_blocks(report.csv_blocks(shown), args.output, force=args.force)
         return 0
+    assert portfolio is not None, "the table and JSON describe the portfolio"
     if args.format == "json":
         text = report.to_json(
             portfolio, shown, settings.window, settings.season, by=args.by, steps=steps, cols=cols
