@@ -236,7 +236,9 @@ def _cmd_rank(args: argparse.Namespace) -> int:
     steps = steps_of(args, portfolio, settings.season)
     if args.group is not None:
         return _rank_groups(args, settings, portfolio)
-    card = scorecard(portfolio, settings.window, settings.season, by=args.by, steps=steps)
+    card = scorecard(
+        portfolio, settings.window, settings.season, by=args.by, steps=steps, limit=_built(args)
+    )
     if args.format in FILE_FORMATS:
         del portfolio
         return _show_rank(args, settings, None, card, steps)
@@ -245,6 +247,12 @@ def _cmd_rank(args: argparse.Namespace) -> int:
 
 #: rank's formats written from the scorecard alone (no header about the portfolio).
 FILE_FORMATS = ("csv", "parquet")
+
+
+def _built(args: argparse.Namespace) -> int | None:
+    """Scorecard rows ``rank`` needs: with ``--top K``, K, unless the table's header adds up
+    every series (the other formats write the rows they show and nothing else)."""
+    return args.top if args.top is not None and args.format != "table" else None
 
 
 def _notices(notices: Sequence[str]) -> None:
@@ -297,7 +305,7 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
         )
     cols = scored.plan.window_cols(settings.window)
     described, steps = scored.described, scored.steps
-    card = ranked(scored.measures, args.by)
+    card = ranked(scored.measures, args.by, limit=_built(args))
     # The measures go before the text is made (the scorecard holds its own copies).
     del scored
     shown = None if args.format in FILE_FORMATS else described

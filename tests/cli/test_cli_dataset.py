@@ -87,3 +87,12 @@ def test_format_parquet_refusals(tmp_path: Path, lake: Path) -> None:
     ):
         assert refused.returncode == 2, refused.stderr
         assert "Traceback" not in refused.stderr
+
+
+@pytest.mark.parametrize("by", ["error", "bias", "fva"])
+def test_top_k_rows_are_the_first_rows_of_the_whole_scorecard(lake: Path, by: str) -> None:
+    # With --top K only K rows are built; their ranks and shares are still among every series.
+    whole = run("rank", str(lake), "--format", "csv", "--by", by)
+    top = run("rank", str(lake), "--format", "csv", "--by", by, "--top", "7")
+    assert top.returncode == 0, top.stderr
+    assert top.stdout.splitlines() == whole.stdout.splitlines()[:8]

@@ -36,6 +36,7 @@ def scorecard(
     *,
     by: str = BY_ERROR,
     steps: Sequence[str] | None = None,
+    limit: int | None = None,
 ) -> pd.DataFrame:
     """Score every series and return one row per series in review order.
 
@@ -61,11 +62,12 @@ def scorecard(
             else ``fva_loss``; series without a comparable cell last).
         steps: The process steps whose last step ``fva_loss`` measures
             (``compare.last_step``); None for the default chain.
+        limit: Only the first ``limit`` rows in review order (see :func:`ranked`).
     """
     if by not in ORDERS:
         raise ValueError(f"by must be one of {ORDERS}")
     cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
-    return ranked(series_measures(portfolio, cols, season, steps), by)
+    return ranked(series_measures(portfolio, cols, season, steps), by, limit=limit)
 
 
 @dataclass(frozen=True)
@@ -184,10 +186,14 @@ def series_measures(
     )
 
 
-def ranked(measures: SeriesMeasures, by: str = BY_ERROR) -> pd.DataFrame:
+def ranked(
+    measures: SeriesMeasures, by: str = BY_ERROR, *, limit: int | None = None
+) -> pd.DataFrame:
     """The scorecard of :func:`scorecard`: ranks, shares and every column, in review order.
 
-    Ties in every order break by position, so ``measures`` must be in key order.
+    Ties in every order break by position, so ``measures`` must be in key order. ``limit``: only
+    the first ``limit`` rows are built (``rank --top K``); ranks and shares are still those among
+    every series.
     """
     if by not in ORDERS:
         raise ValueError(f"by must be one of {ORDERS}")
@@ -211,6 +217,8 @@ def ranked(measures: SeriesMeasures, by: str = BY_ERROR) -> pd.DataFrame:
     fva_rank = np.empty(n, dtype=np.int64)
     fva_rank[fva_order] = np.arange(1, n + 1)
     order = {BY_ERROR: error_order, BY_BIAS: bias_order, BY_FVA: fva_order}[by]
+    if limit is not None:
+        order = order[:limit]
 
     # Every column is built once, already in review order (no frame-wide reordering copy).
     data: dict[str, object] = {c: measures.text(c, order) for c in measures.key_columns}
