@@ -9,6 +9,7 @@ reference model of the journal replayed in Python).
 from __future__ import annotations
 
 import sqlite3
+import tempfile
 from pathlib import Path
 
 import pytest
@@ -388,7 +389,9 @@ ITEMS = ["A", "B", "C", "D"]
     )
 )
 def test_effective_decisions_follow_a_plain_replay(tmp_path: Path, steps: list) -> None:
-    path = tmp_path / f"p{abs(hash(str(steps)))}.sqlite"
+    # A fresh folder per example: a failing example leaves its file, and a replay of it (or any
+    # later example) must not open that file again.
+    path = Path(tempfile.mkdtemp(dir=tmp_path)) / "ledger.sqlite"
     ops: list[tuple] = []
     groups: list[int] = []
     with Ledger.open(path) as ledger:
@@ -420,6 +423,22 @@ def test_effective_decisions_follow_a_plain_replay(tmp_path: Path, steps: list) 
                 ops.extend(("undo", e) for e in _parts_undone(ledger, undo))
             assert effective(ledger) == _model_effective(ops)
     path.unlink()
+
+
+def test_a_decision_after_undoing_a_group_whose_members_were_undone_is_saved(
+    tmp_path: Path,
+) -> None:
+    # Found by the replay above: the group's undo is then the journal's latest row with no event
+    # after it, and the next decision took its position ("NOT saved").
+    with Ledger.open(tmp_path / "ledger.sqlite") as ledger:
+        first = group(ledger, ["A"], adjusted=False)
+        ledger.undo(CYCLE, "A", "", reviewer="x", expected_version=1, **PORTFOLIO)
+        undone = ledger.undo_group(CYCLE, first.id, reviewer="x", **PORTFOLIO)
+        assert undone.id > first.id
+        again = group(ledger, ["B"], adjusted=False)
+        assert again.id > undone.id
+        event = decide(ledger, "C", version=0)
+        assert event.id > max(again.event_ids)
 
 
 def _parts_undone(ledger: Ledger, undo: ledger_mod.GroupRecord) -> list[int]:

@@ -1128,10 +1128,15 @@ def _check_version(value: object) -> int:
 
 
 def _next_position(con: sqlite3.Connection) -> int:
-    """The next journal position, shared by ``event`` and ``adjustment_end`` (in a write)."""
+    """The next journal position, shared by ``event``, ``adjustment_end`` and ``group_decision``
+    (in a write; a ledger opened for writing is at the latest schema, which has all three).
+
+    A group decision's undo can be the journal's latest row without an event after it (its
+    members were already undone one by one): the next position must follow it too."""
     row = con.execute(
         "SELECT max(coalesce((SELECT max(id) FROM event), 0),"
-        " coalesce((SELECT max(id) FROM adjustment_end), 0)) + 1"
+        " coalesce((SELECT max(id) FROM adjustment_end), 0),"
+        " coalesce((SELECT max(id) FROM group_decision), 0)) + 1"
     ).fetchone()
     return int(row[0])
 
