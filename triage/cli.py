@@ -297,13 +297,12 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
             lag=read["lag"],
         )
     _notices(scored.plan.notices)
+    cols = scored.plan.window_cols(settings.window)
     if not (scored.measures.numbers["periods"] > 0).any():
-        cols = scored.plan.window_cols(settings.window)
         raise TriageError(
             f"{args.portfolio}: {NOTHING_TO_SCORE.format(periods=len(cols))}",
             hint=SCORABLE_HINT,
         )
-    cols = scored.plan.window_cols(settings.window)
     described, steps = scored.described, scored.steps
     card = ranked(scored.measures, args.by, limit=_built(args))
     # The measures go before the text is made (the scorecard holds its own copies).

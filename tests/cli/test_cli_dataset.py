@@ -13,18 +13,15 @@ import pandas as pd
 import pyarrow.parquet as pq
 import pytest
 
-from sample import generate
 from tests.cli.test_cli import run
-from tests.core.datasets import write_layout
+from tests.core.datasets import generated, write_layout
 from triage import cli
 from triage.render import scorecard as report
 
 
 @pytest.fixture(scope="module")
 def single(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    path = tmp_path_factory.mktemp("single") / "portfolio.parquet"
-    generate.write_parquet(path, 400, competing=True)
-    return path
+    return generated(tmp_path_factory.mktemp("single"), 400)
 
 
 @pytest.fixture(scope="module")

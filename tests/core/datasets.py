@@ -21,6 +21,16 @@ import pyarrow.parquet as pq
 LAYOUTS = ("series", "period", "random", "blocks")
 
 
+def generated(folder: Path, items: int) -> Path:
+    """The generator's portfolio of ``items`` items (prices, attributes, two competing
+    forecasts) as one Parquet file in ``folder``: the single file datasets are cut from."""
+    from sample import generate
+
+    path = folder / "portfolio.parquet"
+    generate.write_parquet(path, items, competing=True)
+    return path
+
+
 def write_layout(frame: pd.DataFrame, folder: Path, layout: str, *, parts: int = 5) -> Path:
     """``frame`` (a portfolio's rows) written as the dataset ``folder`` in ``layout``."""
     folder.mkdir(parents=True)

@@ -20,7 +20,7 @@ import pyarrow.parquet as pq
 import pytest
 
 from sample import generate
-from tests.core.datasets import LAYOUTS, write_layout
+from tests.core.datasets import LAYOUTS, generated, write_layout
 from tests.core.test_dataset import same_scorecard
 from triage.core.dask_engine import ClusterOptions, cluster_client, score_dataset
 from triage.core.errors import LoadError, TriageError
@@ -33,9 +33,7 @@ ITEMS = 20_000 // generate.SAMPLE_LOCATIONS
 
 @pytest.fixture(scope="module")
 def source(tmp_path_factory: pytest.TempPathFactory) -> Path:
-    path = tmp_path_factory.mktemp("dask-source") / "portfolio.parquet"
-    generate.write_parquet(path, ITEMS, competing=True)
-    return path
+    return generated(tmp_path_factory.mktemp("dask-source"), ITEMS)
 
 
 @pytest.fixture(scope="module")

@@ -19,8 +19,7 @@ import pyarrow as pa
 import pyarrow.parquet as pq
 import pytest
 
-from sample import generate
-from tests.core.datasets import LAYOUTS, write_layout
+from tests.core.datasets import LAYOUTS, generated, write_layout
 from triage.core import schema
 from triage.core.dataset import (
     measures_of,
@@ -42,9 +41,7 @@ ITEMS = 300
 @pytest.fixture(scope="module")
 def source(tmp_path_factory: pytest.TempPathFactory) -> Path:
     """The generator's portfolio (prices, attributes, two competing forecasts) as one file."""
-    path = tmp_path_factory.mktemp("source") / "portfolio.parquet"
-    generate.write_parquet(path, ITEMS, competing=True)
-    return path
+    return generated(tmp_path_factory.mktemp("source"), ITEMS)
 
 
 @pytest.fixture(scope="module")

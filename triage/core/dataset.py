@@ -76,11 +76,6 @@ class Dataset:
         return self.files[part].relative_to(self.folder).as_posix()
 
 
-def is_dataset(path: Path) -> bool:
-    """Whether ``path`` names a dataset (a folder) rather than one file."""
-    return path.is_dir()
-
-
 def open_dataset(folder: Path) -> Dataset:
     """The parts of the dataset ``folder``.
 
@@ -675,7 +670,7 @@ def measures_of(frame: pd.DataFrame, plan: Plan) -> SeriesMeasures:
 
 
 def _arrow_text(column: pd.Series) -> Any:
-    """A text column as one Arrow large_string array (no Python string per row)."""
+    """A text column (Arrow-backed, categorical or object) as one Arrow large_string array."""
     import pyarrow as pa
 
     values = pa.array(column.array) if hasattr(column.array, "__arrow_array__") else None
@@ -683,8 +678,7 @@ def _arrow_text(column: pd.Series) -> Any:
         values = pa.array(column.to_numpy(dtype=object), type=pa.large_string())
     if isinstance(values, pa.ChunkedArray):
         values = values.combine_chunks()
-    if pa.types.is_dictionary(values.type):
-        values = values.cast(pa.large_string())
+    # A dictionary (categorical) array casts to its values.
     return values.cast(pa.large_string())
 
 
