@@ -130,7 +130,9 @@ class _Dictionary:
         if len(self.values) > np.iinfo(dtype).max:
             raise FastPathDeclined("too many distinct values")
         lut = np.fromiter((self.index[v] for v in local), dtype=dtype, count=len(local))
-        codes = np.take(lut, indices.to_numpy(zero_copy_only=False), out=out)
+        # Every index is in range (Arrow checked the dictionary); "clip" lets numpy write into
+        # ``out`` directly instead of through a buffer, as "raise" does.
+        codes = np.take(lut, indices.to_numpy(zero_copy_only=False), out=out, mode="clip")
         if self.is_id and self.has_blank and np.asarray(self.blank)[codes].any():
             raise FastPathDeclined("blank id")
         return codes
@@ -499,7 +501,7 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
         block = cell[lo : lo + BLOCK_ROWS]
         offsets = day[lo : lo + BLOCK_ROWS].astype(np.int32)
         offsets -= shift
-        np.take(first_cell, block, out=block)
+        np.take(first_cell, block, out=block, mode="clip")
         block += column_of_day[offsets]
         filled[block] = True
     del day, pair, first_cell, pairs
