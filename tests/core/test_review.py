@@ -50,6 +50,36 @@ def test_filters_combine_and_keep_the_order(session: ReviewSession) -> None:
     assert (np.diff(ranks) > 0).all()
 
 
+@pytest.mark.parametrize("needle", ["gf-10", "LENA", "nth", "quill el", "a", "no such text"])
+def test_text_filter_is_a_substring_of_a_key_or_attribute(
+    session: ReviewSession, needle: str
+) -> None:
+    # Oracle: Python's ``in`` on each series' casefolded key and attribute values, one by one.
+    session.finish(session.background())
+    keys = session.portfolio.keys
+    fields = [*session.portfolio.key_columns, *session.portfolio.attributes]
+    expected = {
+        i
+        for i in range(len(keys))
+        if any(needle.casefold() in str(keys[f].iat[i]).casefold() for f in fields)
+    }
+    assert set(session.order(text=needle).tolist()) == expected
+
+
+def test_text_filter_folds_case_as_python_does(tmp_path: Path) -> None:
+    # str.casefold (Unicode default case folding): "Straße" folds to "strasse".
+    rows = ["item,location,period,demand,forecast,planner"]
+    for item, planner in (("Straße-1", "Ana"), ("STRASSE-2", "Bo"), ("other", "STRAẞE")):
+        rows += [f"{item},N,2025-01-{d:02d},{d},{d + 1},{planner}" for d in (6, 13, 20)]
+    path = tmp_path / "week.csv"
+    path.write_text("\n".join(rows) + "\n")
+    session = ReviewSession(ReviewCycle(read_portfolio(path), None), reviewer="ana")
+    session.finish(session.background())
+    items = session.portfolio.keys["item"].to_numpy()
+    assert sorted(items[session.order(text="strasse")]) == ["STRASSE-2", "Straße-1", "other"]
+    assert sorted(items[session.order(text="ẞE-1")]) == ["Straße-1"]
+
+
 def test_progress_against_the_target_matches_leading_cover(session: ReviewSession) -> None:
     # The series needed to reach 80% from nothing reviewed is the leading cover set (common
     # practice: the smallest worst-first set holding the target share).

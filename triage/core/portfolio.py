@@ -318,15 +318,24 @@ class Portfolio:
         """
         import pyarrow as pa
 
+        codes, labels = self.text_codes(name)
+        taken = labels.take(pa.array(codes[order]))
+        return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+
+    def text_codes(self, name: str) -> tuple[np.ndarray, Any]:
+        """Key or attribute column ``name`` as (int32 code per series, Arrow ``large_string``
+        distinct values): kept from the build, or computed once."""
+        import pyarrow as pa
+
         coded = self._text_codes.get(name)
         if coded is None or coded[0] is not self.keys:
             # Not coded yet, or coded for another keys frame (``dataclasses.replace``).
-            codes, uniques = pd.factorize(self.keys[name])
-            labels = pa.array(np.asarray(uniques, dtype=object), type=pa.large_string())
+            codes, uniques = pd.factorize(self.keys[name], use_na_sentinel=False)
+            labels = pa.array(
+                np.asarray(uniques, dtype=object), type=pa.large_string(), from_pandas=True
+            )
             coded = self._text_codes[name] = (self.keys, codes.astype(np.int32), labels)
-        _, codes, labels = coded
-        taken = labels.take(pa.array(codes[order]))
-        return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+        return coded[1], coded[2]
 
 
 class SeriesIndex:

@@ -24,6 +24,7 @@ from triage.core.compare import last_step
 from triage.core.cycle import ReviewCycle
 from triage.core.errors import TriageError
 from triage.core.ledger import AdjustmentEnd, Event, GroupRecord, Ledger
+from triage.core.portfolio import Portfolio
 from triage.core.ranking import BY_BIAS, BY_ERROR, BY_FVA, error_shares
 from triage.core.text import percent
 
@@ -37,11 +38,50 @@ class StillComputing(TriageError):
 
 
 @dataclass(frozen=True)
+class SearchIndex:
+    """The text filter's index: per key and attribute column, each series' code into the
+    column's casefolded distinct values.
+
+    A filter matches the distinct values (at most one per series, and far fewer for locations
+    and attributes), then the series through their codes: a substring of one column's value,
+    as a filter means. ``pyarrow.compute.match_substring`` does the matching.
+    """
+
+    columns: tuple[tuple[np.ndarray, object], ...]
+    """(int32 code per series, casefolded Arrow text of the distinct values) per column."""
+    n_series: int
+
+    @classmethod
+    def of(cls, portfolio: Portfolio) -> SearchIndex:
+        """The index of a portfolio's key and attribute columns."""
+        import pyarrow as pa
+
+        columns = []
+        for name in (*portfolio.key_columns, *portfolio.attributes):
+            codes, labels = portfolio.text_codes(name)
+            folded = [None if v is None else v.casefold() for v in labels.to_pylist()]
+            columns.append((codes, pa.array(folded, type=pa.large_string())))
+        return cls(tuple(columns), portfolio.n_series)
+
+    def matches(self, text: str) -> np.ndarray:
+        """Per series: does any key or attribute contain ``text`` (case-insensitive)?"""
+        import pyarrow.compute as pc
+
+        needle = text.casefold()
+        found = np.zeros(self.n_series, dtype=bool)
+        for codes, labels in self.columns:
+            hit = np.asarray(pc.match_substring(labels, needle).fill_null(False))
+            if hit.any():
+                found |= hit[codes]
+        return found
+
+
+@dataclass(frozen=True)
 class Background:
     """What ``ReviewSession.background`` computes off the UI thread, for ``finish``."""
 
-    search: np.ndarray
-    """Casefolded search text per series (key and attributes)."""
+    search: SearchIndex
+    """The text filter's index (key and attributes)."""
     suggest_spec: np.ndarray
     """Suggested adjustment per series, ``""`` when none."""
     suggest_reason: np.ndarray
@@ -226,7 +266,7 @@ class ReviewSession:
         self.group_of = np.zeros(n, dtype=np.int64)
         """The group decision the series' effective decision in this cycle is part of (its
         ledger id), 0 when the decision is the series' own or there is none."""
-        self._search: np.ndarray | None = None
+        self._search: SearchIndex | None = None
         self._folded: dict[str, np.ndarray] | None = None
         self.notices: list[str] = []
         """Things the reviewer should know about this session (shown by the screens)."""
@@ -280,7 +320,7 @@ class ReviewSession:
         """
         say = step or (lambda done, total, label: None)
         say(0, 3, "search index")
-        search = self._build_search()
+        search = SearchIndex.of(self.portfolio)
         say(1, 3, "suggestions")
         ranked = self.ranked
 
@@ -919,16 +959,7 @@ class ReviewSession:
 
     # -- ordering and filtering ---------------------------------------------------------------
 
-    def _build_search(self) -> np.ndarray:
-        """The casefolded search text of every series (slow for a million series)."""
-        keys = self.portfolio.keys
-        text = keys[schema.ITEM].astype(str)
-        for name in list(self.portfolio.key_columns[1:]) + list(self.portfolio.attributes):
-            text = text + "\x1f" + keys[name].astype(str)
-        result: np.ndarray = text.str.casefold().to_numpy(dtype=object)
-        return result
-
-    def _search_text(self) -> np.ndarray:
+    def _search_index(self) -> SearchIndex:
         if self._search is None:
             self._require_ready("The search index")
         assert self._search is not None
@@ -983,13 +1014,7 @@ class ReviewSession:
         base = orders.get(by, self.error_order)
         keep = np.ones(self.portfolio.n_series, dtype=bool)
         if text:
-            needle = text.casefold()
-            found = (
-                pd.Series(self._search_text())
-                .str.contains(needle, regex=False)
-                .to_numpy(dtype=bool)
-            )
-            keep &= found
+            keep &= self._search_index().matches(text)
         for field, value in (filters or {}).items():
             keep &= self._field(field) == value
         shown: np.ndarray = base if keep.all() else base[keep[base]]
