@@ -15,6 +15,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from textual.widgets import Input
 
 from sample.cycles import build_cycles
 from tests.tui.conftest import burst, wait_for, wait_listed, wait_loaded
@@ -22,7 +23,12 @@ from triage.core import cache, files, history, vocabulary
 from triage.core.review import ReviewSession
 from triage.tui.app import Options, TriageApp
 from triage.tui.messages import BackgroundDone, BackgroundNote, BackgroundStep
+from triage.tui.screens.decision import DecisionScreen
 from triage.tui.widgets.series_list import SeriesList
+
+
+#: ``ReviewSession.background`` itself, for the expected result while the gate holds it.
+UNGATED_BACKGROUND = ReviewSession.background
 
 
 @pytest.fixture(scope="module")
@@ -124,6 +130,34 @@ async def test_keys_during_the_background_step(scenario, gate, tmp_path: Path) -
         matching = np.flatnonzero(text.str.casefold().str.contains(needle.casefold()).to_numpy())
         assert sorted(series_list.order.tolist()) == matching.tolist()
         assert "(waiting)" not in summary(app)
+
+
+async def test_a_decision_dialog_opened_early_shows_the_suggestion_when_ready(
+    scenario, gate, tmp_path: Path
+) -> None:
+    ledger = tmp_path / "ledger.sqlite"
+    shutil.copy(scenario.ledger, ledger)
+    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_listed(app, pilot)
+        session = app.session
+        series_list = app.query_one(SeriesList)
+        # The worst series with a suggestion once computed (adjust.suggest on its measures).
+        expected = UNGATED_BACKGROUND(session)
+        with_one = [int(s) for s in series_list.order if expected.suggest_spec[int(s)]]
+        assert with_one  # the scenario has biased series
+        series_list.cursor = int(np.flatnonzero(series_list.order == with_one[0])[0])
+        await pilot.pause()
+        burst(app, ["enter"])
+        await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the decision dialog")
+        field = app.screen.query_one("#decision-adjust", Input)
+        assert "still computing" in field.placeholder
+
+        gate.set()
+        await wait_for(pilot, lambda: session.ready, "the background pieces")
+        spec = expected.suggest_spec[with_one[0]]
+        await wait_for(pilot, lambda: f"(suggested: {spec})" in field.placeholder, "the suggestion")
+        assert "still computing" not in field.placeholder
 
 
 async def open_and_close(options: Options, *, until=lambda app: True) -> tuple:

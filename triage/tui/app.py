@@ -594,6 +594,9 @@ class TriageApp(App[None]):
             self._apply_order()
         self._refresh_summary()
         self._show_detail(series_list.current)
+        for screen in self.screen_stack:
+            if isinstance(screen, DecisionScreen):
+                screen.suggestion_ready()
 
     @on(LoadStep)
     def _load_step(self, message: LoadStep) -> None:

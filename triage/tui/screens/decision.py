@@ -174,22 +174,30 @@ class DecisionScreen(Dialog[Draft | Literal["unchanged"] | None]):
                 ],
                 id="decision-cause",
             )
-        suggestion = self._session.suggest_spec[self._series]
-        # ``use NAME`` takes another forecast of the file: offered by the first one's name.
-        other = next(iter(self._session.portfolio.competing), "")
         yield Input(
-            value=self._draft.adjustment,
-            placeholder="adjustment, e.g. x0.9, +10%, 1-4: =120, mean 8, bias"
-            + (f", use {visible(other)}" if other else "")
-            + (f" (suggested: {suggestion})" if suggestion else "")
-            + ("" if self._session.ready else " (suggestion still computing)"),
-            id="decision-adjust",
+            value=self._draft.adjustment, placeholder=self._placeholder(), id="decision-adjust"
         )
         yield Static(Text(""), id="decision-preview")
         yield SeriesChart(id="decision-chart")
         yield NoteArea(
             self._shown_note, id="decision-note", soft_wrap=True, show_line_numbers=False
         )
+
+    def _placeholder(self) -> str:
+        """The adjustment field's hint: examples, and the suggestion once it is computed."""
+        suggestion = self._session.suggest_spec[self._series]
+        # ``use NAME`` takes another forecast of the file: offered by the first one's name.
+        other = next(iter(self._session.portfolio.competing), "")
+        return (
+            "adjustment, e.g. x0.9, +10%, 1-4: =120, mean 8, bias"
+            + (f", use {visible(other)}" if other else "")
+            + (f" (suggested: {suggestion})" if suggestion else "")
+            + ("" if self._session.ready else " (suggestion still computing)")
+        )
+
+    def suggestion_ready(self) -> None:
+        """The background pieces are in: show the suggestion in place of "still computing"."""
+        self.query_one("#decision-adjust", Input).placeholder = self._placeholder()
 
     def _current_text(self) -> Text:
         base = self._base
