@@ -50,13 +50,13 @@ def test_members_filters_and_review_state(session: ReviewSession) -> None:
     assert review.decided()[group] == 0 and outcome_words(0, 5) == ""
     saved = session.outcome.copy()
     try:
-        session.outcome[members[:2]] = "no_change"
+        session._set_outcome(members[:2], "no_change")
         assert review.decided()[group] == 0  # counted once, until told
         review.forget()
         assert review.decided()[group] == 2
         assert outcome_words(2, int(review.size[group])) == f"2/{review.size[group]}"
     finally:
-        session.outcome[:] = saved
+        session._set_outcome(slice(None), saved)
         review.forget()
 
 

@@ -94,6 +94,32 @@ def test_progress_against_the_target_matches_leading_cover(session: ReviewSessio
     assert progress.to_target == need - 3
 
 
+def test_progress_counts_follow_every_way_an_outcome_changes(session: ReviewSession) -> None:
+    # Oracle: the counts taken from the outcome codes one by one, after decisions, an undo and
+    # a reload from the ledger.
+    order = [int(s) for s in session.error_order[:6]]
+    for series, outcome in zip(order, ["no_change", "adjusted", "handed_off", "deferred"]):
+        kw = {"adjustment": "x0.9"} if outcome == "adjusted" else {}
+        decide(session, series, outcome, **kw)
+    session.apply_event(session.commit_undo(order[0]))
+
+    def counts() -> tuple[int, int, int]:
+        codes = session.outcome.tolist()
+        return (
+            sum(c in ("no_change", "adjusted") for c in codes),
+            codes.count("handed_off"),
+            codes.count("deferred"),
+        )
+
+    for _ in range(2):
+        progress = session.progress()
+        assert (progress.reviewed, progress.handed_off, progress.deferred) == counts() == (1, 1, 1)
+        assert session.reviewed().sum() == 3
+        session.reload()
+    with pytest.raises(ValueError):
+        session.outcome[order[5]] = "no_change"  # read-only: the session owns outcomes
+
+
 def test_undo_twice_walks_back_through_decisions(session: ReviewSession) -> None:
     series = int(session.error_order[0])
     decide(session, series, "no_change")
@@ -112,7 +138,7 @@ def test_next_unreviewed_skips_decided_and_wraps(session: ReviewSession) -> None
     decide(session, int(order[1]))
     assert session.next_unreviewed(order, 0) == 2
     for series in order[2:]:
-        session.outcome[series] = "no_change"  # the rest decided (state only)
+        session._set_outcome(int(series), "no_change")  # the rest decided (state only)
     assert session.next_unreviewed(order, 5) == 0
 
 

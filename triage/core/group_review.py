@@ -76,7 +76,7 @@ class GroupReview:
     def decided(self) -> np.ndarray:
         """Per group, its series with a decision in this cycle (recounted after ``forget``)."""
         if self._decided is None:
-            done = self.session.outcome != ""
+            done = self.session.reviewed()
             self._decided = np.bincount(self.codes, weights=done, minlength=self.n_groups).astype(
                 np.int64
             )

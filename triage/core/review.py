@@ -92,6 +92,21 @@ class Background:
     """What the reviewer should know (a worst set not stored, re-scored cycles)."""
 
 
+#: What an outcome means for progress (``ReviewSession._state``): unreviewed, settled for the
+#: cycle (``vocabulary.SETTLED``), handed off, put off, or a code this version does not know.
+_OPEN, _SETTLED, _HANDED_OFF, _DEFERRED, _OTHER = range(5)
+
+
+def _states(outcomes: np.ndarray) -> np.ndarray:
+    """The progress state of each outcome code (see ``_OPEN``)."""
+    out = np.full(len(outcomes), _OTHER, dtype=np.int8)
+    out[outcomes == ""] = _OPEN
+    out[np.isin(outcomes, vocabulary.SETTLED)] = _SETTLED
+    out[outcomes == vocabulary.HANDED_OFF] = _HANDED_OFF
+    out[outcomes == vocabulary.DEFERRED] = _DEFERRED
+    return out
+
+
 def _inverse_rank(rank: np.ndarray) -> np.ndarray:
     """Positions in rank order from 1-based ranks (a permutation): one scatter, no sort."""
     order = np.empty(len(rank), dtype=np.int64)
@@ -258,7 +273,12 @@ class ReviewSession:
         """Suggested adjustment per series (``adjust.suggest``), ``""`` when none."""
         self.suggest_reason = np.full(n, "", dtype=object)
         self.outcome = np.full(n, "", dtype=object)
-        """Effective outcome code per series in this cycle, ``""`` when unreviewed."""
+        """Effective outcome code per series in this cycle, ``""`` when unreviewed (changed
+        only by ``_set_outcome``)."""
+        self.outcome.flags.writeable = False
+        self._state = np.zeros(n, dtype=np.int8)
+        """What each outcome means for progress (``_OPEN`` ...), kept beside ``outcome``: the
+        counts and masks over a million series are then integer compares."""
         self.version = np.zeros(n, dtype=np.int64)
         """Ledger version per series in this cycle (what the next write must expect)."""
         self.decided_by = np.full(n, "", dtype=object)
@@ -411,7 +431,7 @@ class ReviewSession:
 
     def reload(self) -> None:
         """Read this cycle's effective decisions and versions from the ledger."""
-        self.outcome[:] = ""
+        self._set_outcome(slice(None), "")
         self.version[:] = 0
         self.decided_by[:] = ""
         self.group_of[:] = 0
@@ -430,7 +450,7 @@ class ReviewSession:
             outcomes = np.array([d.outcome for d in decisions], dtype=object)
             reviewers = np.array([d.reviewer for d in decisions], dtype=object)
             ok = idx >= 0
-            self.outcome[idx[ok]] = outcomes[ok]
+            self._set_outcome(idx[ok], outcomes[ok])
             self.decided_by[idx[ok]] = reviewers[ok]
             groups = np.array([d.group_id or 0 for d in decisions], dtype=np.int64)
             self.group_of[idx[ok]] = groups[ok]
@@ -747,6 +767,23 @@ class ReviewSession:
             return set()
         return {ln.period for ln in standing[-1].lines}
 
+    def _set_outcome(self, rows: int | slice | np.ndarray, outcomes: str | np.ndarray) -> None:
+        """The one place outcomes change: the codes and their progress state together
+        (``outcome`` is read-only elsewhere)."""
+        self.outcome.flags.writeable = True
+        try:
+            self.outcome[rows] = outcomes
+        finally:
+            self.outcome.flags.writeable = False
+        now = self.outcome[rows]
+        states = _states(np.atleast_1d(np.asarray(now, dtype=object)))
+        self._state[rows] = states if np.ndim(now) else states[0]
+
+    def reviewed(self) -> np.ndarray:
+        """Per series: does it have a decision in this cycle?"""
+        done: np.ndarray = self._state != _OPEN
+        return done
+
     def apply_event(self, event: Event) -> int | None:
         """Bring the in-memory state in line with a committed event; returns its series."""
         series = self.find(event.item, event.location)
@@ -754,12 +791,12 @@ class ReviewSession:
             return series
         self.version[series] = max(int(self.version[series]), event.version)
         if event.kind == ledger_mod.DECISION:
-            self.outcome[series] = event.outcome or ""
+            self._set_outcome(series, event.outcome or "")
             self.decided_by[series] = event.reviewer
             self.group_of[series] = event.group_id or 0
         else:
             standing, _ = self.current_decision(series)
-            self.outcome[series] = (standing.outcome or "") if standing else ""
+            self._set_outcome(series, (standing.outcome or "") if standing else "")
             self.decided_by[series] = standing.reviewer if standing else ""
             self.group_of[series] = (standing.group_id or 0) if standing else 0
         return series
@@ -769,7 +806,7 @@ class ReviewSession:
         wrote it): outcome, who decided, and the version the next write must expect."""
         standing, version = self.current_decision(series)
         self.version[series] = version
-        self.outcome[series] = (standing.outcome or "") if standing else ""
+        self._set_outcome(series, (standing.outcome or "") if standing else "")
         self.decided_by[series] = standing.reviewer if standing else ""
         self.group_of[series] = (standing.group_id or 0) if standing else 0
 
@@ -918,7 +955,7 @@ class ReviewSession:
         versions = np.asarray(record.versions, dtype=np.int64)[idx >= 0]
         self.version[rows] = np.maximum(self.version[rows], versions)
         if record.kind == ledger_mod.DECISION:
-            self.outcome[rows] = record.outcome or ""
+            self._set_outcome(rows, record.outcome or "")
             self.decided_by[rows] = record.reviewer
             self.group_of[rows] = record.id
             return rows
@@ -933,11 +970,8 @@ class ReviewSession:
         outcome[where[found]] = np.array([d.outcome for d in standing], dtype=object)[found]
         by[where[found]] = np.array([d.reviewer for d in standing], dtype=object)[found]
         group[where[found]] = np.array([d.group_id or 0 for d in standing], np.int64)[found]
-        self.outcome[rows], self.decided_by[rows], self.group_of[rows] = (
-            outcome[rows],
-            by[rows],
-            group[rows],
-        )
+        self._set_outcome(rows, outcome[rows])
+        self.decided_by[rows], self.group_of[rows] = by[rows], group[rows]
         return rows
 
     def canonical_adjustment(self, series: int, spec: str) -> str:
@@ -1018,14 +1052,14 @@ class ReviewSession:
         for field, value in (filters or {}).items():
             keep &= self._field(field) == value
         shown: np.ndarray = base if keep.all() else base[keep[base]]
-        first = self.carried & (self.outcome == "")
+        first = self.carried & (self._state == _OPEN)
         if first.any():
             shown = history.carried_first(shown, np.flatnonzero(first))
         return shown
 
     def next_unreviewed(self, order: np.ndarray, after: int) -> int | None:
         """Position in ``order`` of the first unreviewed series after position ``after``."""
-        pending = self.outcome[order] == ""
+        pending = self._state[order] == _OPEN
         later = np.flatnonzero(pending[after + 1 :])
         if len(later):
             return int(after + 1 + later[0])
@@ -1037,7 +1071,7 @@ class ReviewSession:
 
         Handed-off and put-off series are counted apart: they still need someone's review.
         """
-        done = np.isin(self.outcome, vocabulary.SETTLED)
+        done = self._state == _SETTLED
         total = float(self.error.sum())
         covered = float(self.error[done].sum()) / total if total > 0 else math.nan
         to_target = 0
@@ -1053,8 +1087,8 @@ class ReviewSession:
             covered=covered,
             target=self.target_share,
             to_target=to_target,
-            handed_off=int((self.outcome == "handed_off").sum()),
-            deferred=int((self.outcome == "deferred").sum()),
+            handed_off=int(np.count_nonzero(self._state == _HANDED_OFF)),
+            deferred=int(np.count_nonzero(self._state == _DEFERRED)),
         )
 
     def totals(self) -> dict[str, float]:
