@@ -218,3 +218,20 @@ async def test_background_messages_after_the_app_closed_are_ignored(scenario, ga
     app._background_done(BackgroundDone(session, done))
     app._background_note(BackgroundNote("The reopen cache was not written: test"))
     assert app.crashed is None
+
+
+async def test_the_complete_session_is_kept_out_of_full_collections(
+    scenario, tmp_path: Path
+) -> None:
+    # gc.freeze / gc.get_freeze_count (Python documentation, module gc): once the background
+    # pieces are in, the session's objects are frozen; they go back when the app closes.
+    import gc
+
+    ledger = tmp_path / "ledger.sqlite"
+    shutil.copy(scenario.ledger, ledger)
+    gc.unfreeze()
+    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_loaded(app, pilot)
+        await wait_for(pilot, lambda: gc.get_freeze_count() > 0, "the heap frozen")
+    assert gc.get_freeze_count() == 0

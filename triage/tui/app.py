@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import asyncio
+import gc
 import math
 import threading
 from collections.abc import Callable, Iterator
@@ -106,6 +107,19 @@ SERIES_ACTIONS = frozenset(
 
 def _stale(exc: TriageError) -> bool:
     return isinstance(exc, ledger_mod.StaleDecisionError)
+
+
+def _freeze_heap() -> None:
+    """Keep the session's long-lived objects out of the cyclic collector's full passes.
+
+    A million-series session holds object arrays of a million references each, and every full
+    collection walked them all: pauses of tens of milliseconds on random keystrokes. Objects
+    frozen by ``gc.freeze`` (Python documentation, module ``gc``) are not scanned again and are
+    still freed by reference counting. Collected first, so that no garbage is frozen; once the
+    session is complete (the background pieces in), on the UI thread after a frame.
+    """
+    gc.collect()
+    gc.freeze()
 
 
 class TriageApp(App[None]):
@@ -574,6 +588,8 @@ class TriageApp(App[None]):
 
     def on_unmount(self) -> None:
         self._stop_cache.set()
+        # What was frozen goes back to the collector (several apps may run in one process).
+        gc.unfreeze()
 
     @on(BackgroundDone)
     def _background_done(self, message: BackgroundDone) -> None:
@@ -597,6 +613,7 @@ class TriageApp(App[None]):
         for screen in self.screen_stack:
             if isinstance(screen, DecisionScreen):
                 screen.suggestion_ready()
+        self.call_after_refresh(_freeze_heap)
 
     @on(LoadStep)
     def _load_step(self, message: LoadStep) -> None:
