@@ -98,7 +98,9 @@ def test_progress_counts_follow_every_way_an_outcome_changes(session: ReviewSess
     # Oracle: the counts taken from the outcome codes one by one, after decisions, an undo and
     # a reload from the ledger.
     order = [int(s) for s in session.error_order[:6]]
-    for series, outcome in zip(order, ["no_change", "adjusted", "handed_off", "deferred"]):
+    for series, outcome in zip(
+        order, ["no_change", "adjusted", "handed_off", "deferred"], strict=False
+    ):
         kw = {"adjustment": "x0.9"} if outcome == "adjusted" else {}
         decide(session, series, outcome, **kw)
     session.apply_event(session.commit_undo(order[0]))

@@ -26,7 +26,6 @@ from triage.tui.messages import BackgroundDone, BackgroundNote, BackgroundStep
 from triage.tui.screens.decision import DecisionScreen
 from triage.tui.widgets.series_list import SeriesList
 
-
 #: ``ReviewSession.background`` itself, for the expected result while the gate holds it.
 UNGATED_BACKGROUND = ReviewSession.background
 

@@ -14,7 +14,7 @@ import pandas as pd
 import pytest
 from textual.widgets import Input, TextArea
 
-from tests.tui.conftest import wait_for, wait_loaded
+from tests.tui.conftest import burst, wait_for, wait_loaded
 from triage.core.ledger import FOLDER_LEDGER, Ledger
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.decision import DecisionScreen
@@ -66,6 +66,29 @@ async def test_open_move_and_quick_decision_is_in_the_ledger(portfolio: Path) ->
         item, location = session.key(series)
     rows = ledger_rows(portfolio.with_name(FOLDER_LEDGER))
     assert rows == [("decision", item, location, "no_change", "stock_out", "", None, "ana")]
+
+
+async def test_the_detail_pane_follows_a_burst_of_cursor_keys(portfolio: Path) -> None:
+    # The title goes with the key's own frame, the measures with the next: after any burst
+    # both name the series the cursor rests on, never one it passed.
+    app = make_app(portfolio)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_loaded(app, pilot)
+        series_list = app.query_one(SeriesList)
+        session = app.session
+        for keys, rests in ((["down"] * 7, 7), (["up"] * 3, 4), (["down", "up"] * 4, 4)):
+            burst(app, keys)
+            await wait_for(pilot, lambda rests=rests: series_list.cursor == rests, "the cursor")
+            series = series_list.current
+            await wait_for(
+                pilot,
+                lambda series=series: (
+                    session.describe(series) in str(app.query_one("#detail-text").render())
+                ),
+                "the measures of the series under the cursor",
+            )
+            title = str(app.query_one("#detail-title").render())
+            assert title.startswith(" @ ".join(session.key(series)).rstrip(" @"))
 
 
 async def test_decide_with_note_and_adjustment_preview(portfolio: Path) -> None:

@@ -741,9 +741,11 @@ class TriageApp(App[None]):
     @on(SeriesList.Highlighted)
     def _highlighted(self, message: SeriesList.Highlighted) -> None:
         if not self.in_groups:
-            self._show_detail(message.series)
+            # The list's highlight and the title go out in the key's own frame; the measures
+            # follow in the next one (a cursor held down skips those it has already left).
+            self._show_detail(message.series, body_later=True)
 
-    def _show_detail(self, series: int | None) -> None:
+    def _show_detail(self, series: int | None, *, body_later: bool = False) -> None:
         session = self.session
         if session is None or not self.screen_stack:
             return  # not loaded yet, or closing (a last cursor message arrives after the screens)
@@ -768,6 +770,26 @@ class TriageApp(App[None]):
         if self._chart_timer is not None:
             self._chart_timer.stop()
         self._chart_timer = self.set_timer(CHART_SETTLE, lambda: self._draw_chart(series))
+        if body_later:
+            self.call_after_refresh(self._detail_body_if_current, series)
+        else:
+            self._detail_body(series)
+
+    def _detail_body_if_current(self, series: int) -> None:
+        if (
+            self.session is not None
+            and self.screen_stack
+            and not self.in_groups
+            and self._q(SeriesList).current == series
+        ):
+            self._detail_body(series)
+
+    def _detail_body(self, series: int) -> None:
+        """The detail pane's measures, earlier cycles and decisions of one series."""
+        session = self.session
+        assert session is not None
+        body = self._q("#detail-text", Static)
+        card = session.card_row(series)
         value = f" (value {fmt.compact(card['abs_error_value'])})" if session.priced else ""
         per = " a week" if session.portfolio.calendar.freq == schema.WEEKLY else " a month"
         # What to act on first (earlier cycles, carried adjustments, the suggestion), then the
