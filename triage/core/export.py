@@ -353,19 +353,39 @@ def review_tables(
     c_cols = carried_lines["column"].to_numpy(dtype=np.int64) - first_fwd
     replaced_now = flag[c_rows, c_cols]
     already = carried_lines["in_forecast"].to_numpy(dtype=bool) & ~replaced_now
+    # Every adjusted value at the export's precision, whichever cycle's decision it comes from;
+    # a carried value that then equals the file's forecast is already in it (nothing applied).
+    carried_values = round_half_away(carried_lines["adjusted"].to_numpy(dtype=np.float64), decimals)
+    already = already | (~replaced_now & unchanged(forward[c_rows, c_cols], carried_values))
     applied_mask = ~replaced_now & ~already
     applied = carried_lines.loc[applied_mask].reset_index(drop=True)
     made_cycles = [cycle, *sorted(set(applied["cycle"].astype(str)))]
     if len(applied):
         a_rows, a_cols = c_rows[applied_mask], c_cols[applied_mask]
-        adjusted_fc[a_rows, a_cols] = applied["adjusted"].to_numpy(dtype=np.float64)
+        adjusted_fc[a_rows, a_cols] = carried_values[applied_mask]
         flag[a_rows, a_cols] = True
         code = {c: i + 1 for i, c in enumerate(made_cycles)}
         made_in[a_rows, a_cols] = applied["cycle"].astype(str).map(code).to_numpy(np.int16)
         group_in[a_rows, a_cols] = applied["group_decision"].to_numpy(dtype=np.int64)
     warnings.extend(_carried_warnings(portfolio, carried_lines, applied, already, replaced_now))
-    # Every adjusted cell at the export's precision, whichever cycle's decision it comes from.
-    adjusted_fc[flag] = round_half_away(adjusted_fc[flag], decimals)
+    # A period is adjusted only where the exported value differs from the file's forecast: a
+    # percentage of 0, "use NAME" where NAME agrees, or "=N" with the forecast's own value
+    # leave it as it was, and an upload must not take it for a change (docs/export.md).
+    same = np.zeros(forward.shape, dtype=bool)
+    same[rows, cols] = True
+    same &= unchanged(forward, adjusted_fc)
+    if same.any():
+        named = np.flatnonzero(same.any(axis=1))
+        first = [describe_series(*portfolio.key(int(s))) for s in named[:_EXAMPLES]]
+        warnings.append(
+            f"{int(same.sum())} adjusted period(s) of this cycle's decisions give the "
+            "forecast's own value at the export's precision, so they are not marked adjusted: "
+            + _examples(first, len(named))
+            + "."
+        )
+        flag &= ~same
+        made_in[same] = 0
+        group_in[same] = 0
 
     outcome_of = np.full(n_series, "", dtype=object)
     if n_dec:
@@ -458,6 +478,19 @@ def review_tables(
         decimals=decimals,
         precision=describe(rounding, decimals),
     )
+
+
+def unchanged(forecast: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
+    """Where an exported adjusted value is the forecast's own: equal floats, or both missing.
+
+    The comparison is exact, on the values as the export writes them (the adjusted value
+    rounded by ``triage.core.rounding``, the forecast as in the file), so ``adjusted`` is true
+    exactly where a reader sees two different numbers.
+    """
+    forecast = np.asarray(forecast, dtype=np.float64)
+    adjusted = np.asarray(adjusted, dtype=np.float64)
+    same: np.ndarray = (forecast == adjusted) | (np.isnan(forecast) & np.isnan(adjusted))
+    return same
 
 
 def _carried_warnings(
