@@ -87,6 +87,11 @@ FORECAST_COLUMNS: tuple[str, ...] = (
     "outcome",
 )
 _NUMBERS = frozenset(("units_change", "value_change", "forecast", "adjusted_forecast"))
+#: A ledger id, written as a whole number in every format (a number cell in xlsx, unquoted in
+#: CSV, a JSON number), empty (null in JSON) where there is none: as text, a CSV reader and a
+#: spreadsheet opening the CSV would read it back as a number while the workbook kept a text
+#: cell, so the two files of one export would disagree on its type (docs/export.md).
+_IDS = frozenset(("group_decision",))
 
 #: How a column is written (``FileTable.kinds``). KEY: text exactly as in the portfolio;
 #: TEXT: free text, neutralised in CSV and xlsx; FIXED: text triage writes in a fixed format
@@ -107,9 +112,8 @@ _KIND_OF: dict[str, str] = {
     LOCATION: KEY,
     "cycle": FIXED,
     "adjusted_in_cycle": FIXED,
-    "group_decision": FIXED,
     "period": DATE,
-    **dict.fromkeys(_NUMBERS, NUMBER),
+    **dict.fromkeys(_NUMBERS | _IDS, NUMBER),
     "adjusted": FLAG,
     "adjusted_periods": COUNT,
 }
@@ -404,13 +408,15 @@ def review_tables(
         made_in.ravel(), categories=["", *made_cycles]
     )
     forecast_cols["outcome"] = np.repeat(outcome_of, n_fwd)
-    # One small code per cell, as adjusted_in_cycle; no sort when no group decision is in.
+    # One small code per cell, as adjusted_in_cycle (code -1: no group decision, a missing
+    # number in every writer); no sort when no group decision is in.
     groups_used, group_codes = np.zeros(1, np.int64), np.zeros(group_in.size, np.int64)
     if group_in.any():
         groups_used, group_codes = np.unique(group_in.ravel(), return_inverse=True)
+    ids = groups_used[groups_used > 0]
     forecast_cols["group_decision"] = pd.Categorical.from_codes(
-        group_codes.astype(np.int32).ravel(),
-        categories=[str(g) if g else "" for g in groups_used.tolist()],
+        (group_codes.ravel() - (len(groups_used) - len(ids))).astype(np.int32),
+        categories=pd.Index(ids, dtype=np.int64),
     )
     # copy=False: the columns are fresh arrays already; at a million series each copy is ~100 MB.
     forecast = pd.DataFrame(
@@ -446,12 +452,12 @@ def review_tables(
             "value_change": value_change,
             "portfolio_name": [d.portfolio_name for d in kept],
             "portfolio_fingerprint": [d.portfolio_fingerprint for d in kept],
-            "group_decision": [str(d.group_id) if d.group_id else "" for d in kept],
+            "group_decision": _floats(d.group_id or None for d in kept),
         }
     )
     decisions = pd.DataFrame(
         {
-            k: pd.Series(v, dtype=np.float64 if k in _NUMBERS else object)
+            k: pd.Series(v, dtype=np.float64 if k in _NUMBERS | _IDS else object)
             for k, v in decision_cols.items()
         }
     )
