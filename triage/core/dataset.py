@@ -603,6 +603,12 @@ def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Po
         dense[:, : span.start] = dense[:, span.start : span.start + 1]
         dense[:, span.stop :] = dense[:, span.stop - 1 : span.stop]
         price = UnitPrices.from_dense(dense)
+    elif plan.priced:
+        # A part read on its own whose prices are all 0 comes without them
+        # (``portfolio.value_or_units`` judges a whole portfolio): in a priced dataset its
+        # series are priced 0, as the file says.
+        n = portfolio.n_series
+        price = UnitPrices(np.zeros(n), np.empty(0, np.int64), np.empty((0, width)))
     keys = portfolio.keys
     fields = added_fields(dataset, part, keys.columns)
     if fields:
@@ -618,6 +624,7 @@ def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Po
         price=price,
         last_actual=plan.grid.last_actual,
         competing={name: placed(values) for name, values in portfolio.competing.items()},
+        units_reason="",
         _text_codes={},
     )
 
