@@ -169,3 +169,20 @@ def test_a_whole_series_part_priced_zero_keeps_its_zeros(tmp_path: Path) -> None
     scored = pd.concat([score_whole_part(dataset, i, plan, cols, 1, None) for i in range(2)])
     values = dict(zip(scored["item"], scored["abs_error_value"], strict=True))
     assert values == {"A": 16.0, "B": 40.0, "C": 0.0, "D": 0.0}
+
+
+def test_a_dataset_priced_zero_everywhere_ranks_in_units(tmp_path: Path) -> None:
+    # The local engine gives the portfolio one file of every part's rows would give.
+    from triage.core.dataset import read_dataset
+
+    folder = tmp_path / "lake"
+    folder.mkdir()
+    data = frame(ZERO)
+    data["demand"] = pd.to_numeric(data["demand"])
+    data["unit_cost"] = pd.to_numeric(data["unit_cost"])
+    data[data["item"].isin(["A", "B"])].to_parquet(folder / "part-0.parquet")
+    data[data["item"].isin(["C", "D"])].to_parquet(folder / "part-1.parquet")
+    portfolio = read_dataset(folder, columns=COLUMNS)
+    assert portfolio.price is None and portfolio.units_reason == REASON
+    card = scorecard(portfolio, 4, 1)
+    assert dict(zip(card["item"], card["abs_error"], strict=True)) == ABS_ERROR

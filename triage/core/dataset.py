@@ -48,6 +48,7 @@ from triage.core.portfolio import (
     build_portfolio,
     calendar_from_uniques,
     calendar_problem,
+    value_or_units,
 )
 from triage.core.ranking import MEASURE_COLUMNS, SeriesMeasures, series_measures
 from triage.core.read.frame import LoadedFrame, load_frame
@@ -716,7 +717,8 @@ def read_dataset(
     plan = plan_dataset(dataset, [summarise(p) for p in parts], lag=lag, smallest_lag=smallest_lag)
     frame = concat_parts([p.frame for p in parts])
     del parts
-    return build_part(frame, plan)
+    # As a single file of every part's rows: no price above 0 anywhere ranks in units.
+    return value_or_units(build_part(frame, plan), (columns or {}).get(schema.PRICE, schema.PRICE))
 
 
 def concat_parts(frames: Sequence[pd.DataFrame]) -> pd.DataFrame:
