@@ -70,6 +70,14 @@ def _cells(tables, column: str) -> dict[str, list]:
     }
 
 
+def _ids(tables) -> dict[str, list]:
+    """The forecast table's ``group_decision`` per item: the ledger id, None where there is none."""
+    return {
+        item: [None if pd.isna(v) else int(v) for v in values]
+        for item, values in _cells(tables, "group_decision").items()
+    }
+
+
 def test_preview_writes_nothing_and_matches_what_is_recorded(weeks: TwoWeeks) -> None:
     with Ledger.open(weeks.week1.parent / FOLDER_LEDGER) as ledger:
         session = _session(weeks.week1, ledger)
@@ -141,15 +149,16 @@ def test_a_later_series_decision_overrides_the_group_for_that_series(weeks: TwoW
             "C": [60, 60, 30, 30],
             "D": [400, 400, 200, 200],
         }
-        g = str(record.id)
-        assert _cells(tables, "group_decision") == {
-            "A": [g, g, "", ""],
-            "B": ["", "", "", ""],
-            "C": [g, g, "", ""],
-            "D": [g, g, "", ""],
+        # The ledger's id as a number, none where the value is the series' own (docs/export.md).
+        g = record.id
+        assert _ids(tables) == {
+            "A": [g, g, None, None],
+            "B": [None, None, None, None],
+            "C": [g, g, None, None],
+            "D": [g, g, None, None],
         }
         decisions = tables.decisions.set_index("item")
-        assert decisions["group_decision"].to_dict() == {"A": g, "B": "", "C": g, "D": g}
+        assert decisions["group_decision"].fillna(0).to_dict() == {"A": g, "B": 0, "C": g, "D": g}
         assert list(tables.decisions.columns)[-1] == "group_decision"
         assert list(tables.forecast.columns)[-1] == "group_decision"
         # adjustment_lines: the group's lines are ordinary lines naming their group.
@@ -222,6 +231,5 @@ def test_group_lines_are_carried_and_valued_like_series_lines(weeks: TwoWeeks, t
     for column in ("adjusted_forecast", "adjusted", "adjusted_in_cycle"):
         assert _cells(t_group, column) == _cells(t_alone, column), column
     assert _cells(t_group, "adjusted_forecast")["D"] == [400, 200, 200, 200]
-    g = str(record.id)
-    assert _cells(t_group, "group_decision")["D"] == [g, "", "", ""]
-    assert _cells(t_alone, "group_decision")["D"] == ["", "", "", ""]
+    assert _ids(t_group)["D"] == [record.id, None, None, None]
+    assert _ids(t_alone)["D"] == [None, None, None, None]

@@ -47,7 +47,7 @@ from triage.core import files
 from triage.core.portfolio import Calendar, Portfolio, UnitPrices
 
 #: Layout of an entry; an entry of another format is never read.
-FORMAT = 1
+FORMAT = 2
 #: How much of each end of the file the lookup key hashes.
 SAMPLE_BYTES = 1 << 20
 META = "meta.json"
@@ -233,6 +233,7 @@ def _portfolio(entry: Path, meta: dict[str, Any], path: Path) -> Portfolio:
         lags=tuple(meta["lags"]),
         rows=int(meta["rows"]),
         notices=tuple(meta["notices"]),
+        units_reason=str(meta["units_reason"]),
         competing={
             name: _array(entry, f"competing_{i}") for i, name in enumerate(meta["competing"])
         },
@@ -347,6 +348,7 @@ def store(
         "notices": list(portfolio.notices),
         "competing": list(portfolio.competing),
         "priced": portfolio.price is not None,
+        "units_reason": portfolio.units_reason,
         "stored_at": time.time(),
     }
     parts: list[tuple[str, Callable[[Path], None]]] = [

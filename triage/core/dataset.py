@@ -48,6 +48,7 @@ from triage.core.portfolio import (
     build_portfolio,
     calendar_from_uniques,
     calendar_problem,
+    value_or_units,
 )
 from triage.core.ranking import MEASURE_COLUMNS, SeriesMeasures, series_measures
 from triage.core.read.frame import LoadedFrame, load_frame
@@ -603,6 +604,12 @@ def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Po
         dense[:, : span.start] = dense[:, span.start : span.start + 1]
         dense[:, span.stop :] = dense[:, span.stop - 1 : span.stop]
         price = UnitPrices.from_dense(dense)
+    elif plan.priced:
+        # A part read on its own whose prices are all 0 comes without them
+        # (``portfolio.value_or_units`` judges a whole portfolio): in a priced dataset its
+        # series are priced 0, as the file says.
+        n = portfolio.n_series
+        price = UnitPrices(np.zeros(n), np.empty(0, np.int64), np.empty((0, width)))
     keys = portfolio.keys
     fields = added_fields(dataset, part, keys.columns)
     if fields:
@@ -618,6 +625,7 @@ def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Po
         price=price,
         last_actual=plan.grid.last_actual,
         competing={name: placed(values) for name, values in portfolio.competing.items()},
+        units_reason="",
         _text_codes={},
     )
 
@@ -709,7 +717,8 @@ def read_dataset(
     plan = plan_dataset(dataset, [summarise(p) for p in parts], lag=lag, smallest_lag=smallest_lag)
     frame = concat_parts([p.frame for p in parts])
     del parts
-    return build_part(frame, plan)
+    # As a single file of every part's rows: no price above 0 anywhere ranks in units.
+    return value_or_units(build_part(frame, plan), (columns or {}).get(schema.PRICE, schema.PRICE))
 
 
 def concat_parts(frames: Sequence[pd.DataFrame]) -> pd.DataFrame:

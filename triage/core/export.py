@@ -87,6 +87,11 @@ FORECAST_COLUMNS: tuple[str, ...] = (
     "outcome",
 )
 _NUMBERS = frozenset(("units_change", "value_change", "forecast", "adjusted_forecast"))
+#: A ledger id, written as a whole number in every format (a number cell in xlsx, unquoted in
+#: CSV, a JSON number), empty (null in JSON) where there is none: as text, a CSV reader and a
+#: spreadsheet opening the CSV would read it back as a number while the workbook kept a text
+#: cell, so the two files of one export would disagree on its type (docs/export.md).
+_IDS = frozenset(("group_decision",))
 
 #: How a column is written (``FileTable.kinds``). KEY: text exactly as in the portfolio;
 #: TEXT: free text, neutralised in CSV and xlsx; FIXED: text triage writes in a fixed format
@@ -107,9 +112,8 @@ _KIND_OF: dict[str, str] = {
     LOCATION: KEY,
     "cycle": FIXED,
     "adjusted_in_cycle": FIXED,
-    "group_decision": FIXED,
     "period": DATE,
-    **dict.fromkeys(_NUMBERS, NUMBER),
+    **dict.fromkeys(_NUMBERS | _IDS, NUMBER),
     "adjusted": FLAG,
     "adjusted_periods": COUNT,
 }
@@ -353,19 +357,39 @@ def review_tables(
     c_cols = carried_lines["column"].to_numpy(dtype=np.int64) - first_fwd
     replaced_now = flag[c_rows, c_cols]
     already = carried_lines["in_forecast"].to_numpy(dtype=bool) & ~replaced_now
+    # Every adjusted value at the export's precision, whichever cycle's decision it comes from;
+    # a carried value that then equals the file's forecast is already in it (nothing applied).
+    carried_values = round_half_away(carried_lines["adjusted"].to_numpy(dtype=np.float64), decimals)
+    already = already | (~replaced_now & unchanged(forward[c_rows, c_cols], carried_values))
     applied_mask = ~replaced_now & ~already
     applied = carried_lines.loc[applied_mask].reset_index(drop=True)
     made_cycles = [cycle, *sorted(set(applied["cycle"].astype(str)))]
     if len(applied):
         a_rows, a_cols = c_rows[applied_mask], c_cols[applied_mask]
-        adjusted_fc[a_rows, a_cols] = applied["adjusted"].to_numpy(dtype=np.float64)
+        adjusted_fc[a_rows, a_cols] = carried_values[applied_mask]
         flag[a_rows, a_cols] = True
         code = {c: i + 1 for i, c in enumerate(made_cycles)}
         made_in[a_rows, a_cols] = applied["cycle"].astype(str).map(code).to_numpy(np.int16)
         group_in[a_rows, a_cols] = applied["group_decision"].to_numpy(dtype=np.int64)
     warnings.extend(_carried_warnings(portfolio, carried_lines, applied, already, replaced_now))
-    # Every adjusted cell at the export's precision, whichever cycle's decision it comes from.
-    adjusted_fc[flag] = round_half_away(adjusted_fc[flag], decimals)
+    # A period is adjusted only where the exported value differs from the file's forecast: a
+    # percentage of 0, "use NAME" where NAME agrees, or "=N" with the forecast's own value
+    # leave it as it was, and an upload must not take it for a change (docs/export.md).
+    same = np.zeros(forward.shape, dtype=bool)
+    same[rows, cols] = True
+    same &= unchanged(forward, adjusted_fc)
+    if same.any():
+        named = np.flatnonzero(same.any(axis=1))
+        first = [describe_series(*portfolio.key(int(s))) for s in named[:_EXAMPLES]]
+        warnings.append(
+            f"{int(same.sum())} adjusted period(s) of this cycle's decisions give the "
+            "forecast's own value at the export's precision, so they are not marked adjusted: "
+            + _examples(first, len(named))
+            + "."
+        )
+        flag &= ~same
+        made_in[same] = 0
+        group_in[same] = 0
 
     outcome_of = np.full(n_series, "", dtype=object)
     if n_dec:
@@ -384,13 +408,15 @@ def review_tables(
         made_in.ravel(), categories=["", *made_cycles]
     )
     forecast_cols["outcome"] = np.repeat(outcome_of, n_fwd)
-    # One small code per cell, as adjusted_in_cycle; no sort when no group decision is in.
+    # One small code per cell, as adjusted_in_cycle (code -1: no group decision, a missing
+    # number in every writer); no sort when no group decision is in.
     groups_used, group_codes = np.zeros(1, np.int64), np.zeros(group_in.size, np.int64)
     if group_in.any():
         groups_used, group_codes = np.unique(group_in.ravel(), return_inverse=True)
+    ids = groups_used[groups_used > 0]
     forecast_cols["group_decision"] = pd.Categorical.from_codes(
-        group_codes.astype(np.int32).ravel(),
-        categories=[str(g) if g else "" for g in groups_used.tolist()],
+        (group_codes.ravel() - (len(groups_used) - len(ids))).astype(np.int32),
+        categories=pd.Index(ids, dtype=np.int64),
     )
     # copy=False: the columns are fresh arrays already; at a million series each copy is ~100 MB.
     forecast = pd.DataFrame(
@@ -426,12 +452,12 @@ def review_tables(
             "value_change": value_change,
             "portfolio_name": [d.portfolio_name for d in kept],
             "portfolio_fingerprint": [d.portfolio_fingerprint for d in kept],
-            "group_decision": [str(d.group_id) if d.group_id else "" for d in kept],
+            "group_decision": _floats(d.group_id or None for d in kept),
         }
     )
     decisions = pd.DataFrame(
         {
-            k: pd.Series(v, dtype=np.float64 if k in _NUMBERS else object)
+            k: pd.Series(v, dtype=np.float64 if k in _NUMBERS | _IDS else object)
             for k, v in decision_cols.items()
         }
     )
@@ -458,6 +484,19 @@ def review_tables(
         decimals=decimals,
         precision=describe(rounding, decimals),
     )
+
+
+def unchanged(forecast: np.ndarray, adjusted: np.ndarray) -> np.ndarray:
+    """Where an exported adjusted value is the forecast's own: equal floats, or both missing.
+
+    The comparison is exact, on the values as the export writes them (the adjusted value
+    rounded by ``triage.core.rounding``, the forecast as in the file), so ``adjusted`` is true
+    exactly where a reader sees two different numbers.
+    """
+    forecast = np.asarray(forecast, dtype=np.float64)
+    adjusted = np.asarray(adjusted, dtype=np.float64)
+    same: np.ndarray = (forecast == adjusted) | (np.isnan(forecast) & np.isnan(adjusted))
+    return same
 
 
 def _carried_warnings(

@@ -25,7 +25,7 @@ whose price changes.
 from __future__ import annotations
 
 import hashlib
-from dataclasses import dataclass, field
+from dataclasses import dataclass, field, replace
 from functools import cached_property
 from pathlib import Path
 from typing import TYPE_CHECKING, Any, NoReturn, Protocol
@@ -151,6 +151,10 @@ class UnitPrices:
         """Series whose price is not the same in every period."""
         return self._rows.copy()
 
+    def any_positive(self) -> bool:
+        """Whether some series has a price above 0 in some period."""
+        return bool((self._base > 0).any() or (self._values > 0).any())
+
     def __len__(self) -> int:
         return self.shape[0]
 
@@ -260,6 +264,9 @@ class Portfolio:
     """Rows read from the file."""
     notices: tuple[str, ...] = field(default=())
     """Things the user should know that did not stop the load."""
+    units_reason: str = ""
+    """Why errors are ranked in units although the file has a price column (``value_or_units``),
+    e.g. ``column 'price' has no price above 0``; empty otherwise."""
     competing: dict[str, np.ndarray] = field(default_factory=dict, repr=False, compare=False)
     """Other forecasts of the same periods (``forecast_<name>`` columns), by ``<name>`` in file
     order: series x periods, float64, NaN where missing, at the same lag as ``forecast``."""
@@ -1005,6 +1012,27 @@ def _refuse_unpriced(
         "so their error cannot be valued.",
         hint="Give every series a price, or leave out the price column to rank in units.",
     )
+
+
+def value_or_units(portfolio: Portfolio, header: str = schema.PRICE) -> Portfolio:
+    """The one rule of ranking in value or in units, applied to a whole portfolio as read.
+
+    Errors are valued (|e| x price) when the file has a price column and some series has a price
+    above 0 there. A column of zeros values every error at 0: shares of 0 / 0, every series tied,
+    "in value" said of nothing. Such a portfolio is given no prices, so every measure, rank,
+    share, report and export works in units, and ``units_reason`` and a notice name the column
+    (``header``: its name in the file). A mix of priced series and series priced 0 keeps its
+    prices: those series' errors are worth 0 in value and they rank last (docs/metrics.md).
+    """
+    price = portfolio.price
+    if price is None or price.any_positive():
+        return portfolio
+    reason = f"column '{header}' has no price above 0"
+    note = (
+        f"{reason}, so errors are ranked in units, not in value (a price of 0 would value "
+        "every error at 0)."
+    )
+    return replace(portfolio, price=None, units_reason=reason, notices=(*portfolio.notices, note))
 
 
 def price_note(missing_rows: int) -> str:

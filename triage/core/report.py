@@ -143,6 +143,9 @@ class ReportData:
     stat_name: str | None = None
     """The competing forecast the overrides are also valued against (``settings.stat_name``),
     None when the file has none: the ``stat`` figures of ``realised`` and ``summaries``."""
+    units_reason: str = ""
+    """Why errors rank in units although the file has a price column
+    (``Portfolio.units_reason``)."""
 
 
 SUMMARY_BY: dict[str, str | tuple[str, ...]] = {
@@ -228,6 +231,7 @@ def build_report(
         comparison=comparison,
         comparison_note=comparison_note,
         stat_name=settings.stat_name if review.stat is not None else None,
+        units_reason=portfolio.units_reason,
     )
 
 

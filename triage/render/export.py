@@ -881,7 +881,8 @@ COLUMN_NOTES: dict[str, str] = {
     "forecast": "the portfolio's forward forecast; empty where it has none",
     "adjusted_forecast": "the adjusted value where a decision (this cycle's, or an earlier one "
     "carried) changed that period, else forecast",
-    "adjusted": "true where adjusted_forecast comes from a decision (this cycle's or carried)",
+    "adjusted": "true where a decision (this cycle's or carried) changed the period: "
+    "adjusted_forecast comes from it and differs from forecast",
     "adjusted_in_cycle": "the review cycle whose decision gave adjusted_forecast: this cycle, "
     "or an earlier cycle whose adjustment is carried; empty where not adjusted",
     "outcome (forecast)": "the series' decision outcome this cycle, empty when not reviewed",

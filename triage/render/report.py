@@ -817,6 +817,15 @@ def _shown(total: int, order: str) -> str:
     return f'<p class="muted">Showing {fmt_int(TABLE_MAX)} of {fmt_int(total)}, {text(order)}.</p>'
 
 
+def _ranked_in(data: ReportData) -> str:
+    """What errors are ranked in, and why units when the file has a price column (HTML)."""
+    if data.priced:
+        return "in value (units × price)"
+    if data.units_reason:
+        return f"in units ({text(data.units_reason)})"
+    return "in units"
+
+
 def render_html(data: ReportData) -> str:
     """The report as one HTML document (inline CSS and SVG, no script, no external resource)."""
     with_location = schema.LOCATION in data.card.columns
@@ -952,7 +961,7 @@ def render_html(data: ReportData) -> str:
     parts += [
         "</section>",
         "<footer><p>Error = forecast − demand (positive = over-forecast). Ranking by absolute "
-        f"error {'in value (units × price)' if data.priced else 'in units'}. Share of error "
+        f"error {_ranked_in(data)}. Share of error "
         "removed = Σ error removed / Σ error of the original forecasts. AvgRelMAE: weighted "
         "geometric mean over decisions of MAE(override) / MAE(original) (Davydenko &amp; "
         "Fildes 2013); below 1 the overrides were more accurate. Forecast value added after "

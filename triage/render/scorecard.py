@@ -303,6 +303,7 @@ def to_json(
         "season": season,
         "error_sign": "forecast - demand (positive = over-forecast)",
         "ranked_by": _ranked_by(by, portfolio.price is not None),
+        **_units_reason(portfolio),
         "fva_steps": dict(
             zip(("previous", "final"), last_step(portfolio, season, steps), strict=True)
         ),
@@ -310,6 +311,21 @@ def to_json(
     }
     # Text exactly as in the file; DEL and C1 escaped as JSON allows (the export's writer).
     return dumps_json(doc, indent=1) + "\n"
+
+
+def ranked_in(portfolio: Portfolio, priced: bool) -> str:
+    """`` in value``, `` in units``, or why in units when the file has a price column
+    (``Portfolio.units_reason``), for the "ranked by" line of a table."""
+    if priced:
+        return " in value"
+    if portfolio.units_reason:
+        return f" in units ({visible(portfolio.units_reason)})"
+    return " in units"
+
+
+def _units_reason(portfolio: Portfolio) -> dict[str, str]:
+    """The JSON key that says why a file with a price column ranks in units (none otherwise)."""
+    return {"units_reason": portfolio.units_reason} if portfolio.units_reason else {}
 
 
 def _ranked_by(by: str, priced: bool) -> str:
@@ -377,7 +393,7 @@ def rank_table(
             if fva
             else "share of absolute error"
         )
-        + (" in value" if priced else " in units"),
+        + ranked_in(portfolio, priced),
         *(
             [f"step loss = |e| of {visible(final)} - |e| of {visible(previous)} (+ = error added)"]
             if fva
@@ -493,7 +509,7 @@ def group_table(
             if by == "bias"
             else "share of the series' absolute error"
         )
-        + (" in value" if priced else " in units"),
+        + ranked_in(portfolio, priced),
         "",
     ]
     err_col = "abs_error_value" if priced else "abs_error"
@@ -557,6 +573,7 @@ def groups_json(
         "error_sign": "forecast - demand (positive = over-forecast)",
         "grouped_by": list(by_columns),
         "ranked_by": "abs_error_value" if portfolio.price is not None else "abs_error",
+        **_units_reason(portfolio),
         "groups": records,
     }
     return dumps_json(doc, indent=1) + "\n"
@@ -703,6 +720,8 @@ def check_text(portfolio: Portfolio, window: int, season: int, *, lag_given: boo
         + (
             "yes: errors are ranked in value"
             if portfolio.price is not None
+            else f"not used: {visible(portfolio.units_reason)}; errors are ranked in units"
+            if portfolio.units_reason
             else "no: errors are ranked in units"
         ),
         f"attributes     {', '.join(portfolio.attributes) if portfolio.attributes else 'none'}",

@@ -890,6 +890,9 @@ class TriageApp(App[None]):
         )
         summary = Text.assemble(
             (fmt.clip(visible(p.path.name), 40), "bold"),
+            # A price column that cannot value errors (portfolio.value_or_units): said up front,
+            # so no one reads the shares as value.
+            (" · in units: no price above 0", "bold") if p.units_reason else "",
             f" · {p.n_series:,} series · cycle {p.cycle}{error}"
             f" · bias {fmt.signed_pct(tot['bias_pct'])[0] or 'n/a'}"
             f" · WAPE {fmt.pct(tot['wape']) or 'n/a'}\n",

@@ -20,8 +20,9 @@ from __future__ import annotations
 
 from pathlib import Path
 
+from triage.core import schema
 from triage.core.dialect import FileOptions
-from triage.core.portfolio import Portfolio, build_portfolio
+from triage.core.portfolio import Portfolio, build_portfolio, value_or_units
 from triage.core.read.cells import LAG_MAX, lookalike_keys, parse_periods
 from triage.core.read.columns import SUFFIXES, parse_column_map
 from triage.core.read.delimited import scan_csv
@@ -76,10 +77,14 @@ def read_portfolio(
     scan = {".parquet": scan_parquet, ".pq": scan_parquet, ".csv": scan_csv}.get(
         Path(path).suffix.lower()
     )
+    header = (columns or {}).get(schema.PRICE, schema.PRICE)
     if sheet is None and scan is not None:
         try:
-            return build_streamed(scan(path, columns=columns, options=options), lag)
+            streamed = build_streamed(scan(path, columns=columns, options=options), lag)
         except FastPathDeclined:
             pass
+        else:
+            return value_or_units(streamed, header)
     loaded = load_frame(path, columns=columns, sheet=sheet, options=options)
-    return build_portfolio(loaded, lag=lag, consume=True, smallest_lag=smallest_lag)
+    built = build_portfolio(loaded, lag=lag, consume=True, smallest_lag=smallest_lag)
+    return value_or_units(built, header)

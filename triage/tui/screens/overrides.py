@@ -3,10 +3,12 @@
 from __future__ import annotations
 
 import math
-from typing import ClassVar
+from collections.abc import Callable
+from typing import Any, ClassVar
 
 import pandas as pd
-from rich.console import Group, RenderableType
+from rich.console import Console, ConsoleOptions, Group, RenderableType, RenderResult
+from rich.measure import Measurement
 from rich.table import Table
 from rich.text import Text
 from textual.app import ComposeResult
@@ -35,47 +37,109 @@ def compared_with_stat(frame: pd.DataFrame) -> bool:
     return "stat_adjustments" in frame and float(frame["stat_adjustments"].fillna(0).sum()) > 0
 
 
+#: The measure columns of a grouping's table: (header, compact header or "" where the compact
+#: table leaves the column out, the cell of a summary row, which tables have it). The compact
+#: headers are for narrow terminals (80 columns): no word longer than 7 characters, so every
+#: word shows whole when the header wraps; the counts of decisions and of periods that helped
+#: are left out there (the sentence above the tables gives them, and "share helped" the rate).
+_MEASURES: tuple[tuple[str, str, Callable[[dict[str, Any]], str], str], ...] = (
+    ("periods", "periods", lambda r: str(int(r["adjustments"])), ""),
+    ("decisions", "", lambda r: str(int(r["decisions"])), ""),
+    ("helped", "", lambda r: str(int(r["helped"])), ""),
+    ("share helped", "share helped", lambda r: percent(r["share_helped"], 0), ""),
+    (
+        "error removed (units)",
+        "removed (units)",
+        lambda r: number(r["value_added"], 1, signed=True),
+        "",
+    ),
+    ("in value", "removed (value)", lambda r: number(r["value_added_value"], signed=True), "$"),
+    (
+        "of original error",
+        "of orig. error",
+        lambda r: percent(r["relative_value_added"], signed=True),
+        "",
+    ),
+    (
+        "beat stat by",
+        "beat stat (units)",
+        lambda r: number(r["value_added_vs_stat"], 1, signed=True),
+        "s",
+    ),
+    (
+        "beat stat (value)",
+        "beat stat (value)",
+        lambda r: number(r["value_added_vs_stat_value"], signed=True),
+        "$s",
+    ),
+)
+
+
 def summary_table(
-    by: str, frame: pd.DataFrame, priced: bool, causes: tuple[Choice, ...] = ()
+    by: str,
+    frame: pd.DataFrame,
+    priced: bool,
+    causes: tuple[Choice, ...] = (),
+    *,
+    compact: bool = False,
 ) -> Table:
     """One grouping of ``history.summarise`` as a Rich table (data as ``Text``, never markup).
 
     Root causes appear as their labels, never as codes. With lines valued against the
-    statistical forecast, two more columns: how much the overrides beat it by.
+    statistical forecast, two more columns: how much the overrides beat it by. Each number
+    column is as wide as its longest header word or cell, so neither is ever cut; the first
+    column takes what is left and wraps. ``compact``: the narrow terminal's table (short
+    headers, fewer columns).
     """
     stat = compared_with_stat(frame)
-    table = Table(title=TITLES.get(by, by), title_justify="left", box=None, header_style="bold")
-    for name, right in [
-        (by.replace("_", " "), False),
-        ("periods", True),
-        ("decisions", True),
-        ("helped", True),
-        ("share helped", True),
-        ("error removed (units)", True),
-        *([("in value", True)] if priced else []),
-        ("of original error", True),
-        *([("beat stat by", True)] if stat else []),
-        *([("beat stat (value)", True)] if stat and priced else []),
-    ]:
-        table.add_column(name, justify="right" if right else "left")
+    kept = [
+        (wide, short, cell)
+        for wide, short, cell, needs in _MEASURES
+        if (priced or "$" not in needs) and (stat or "s" not in needs) and (short or not compact)
+    ]
+    rows: list[list[Text | str]] = []
     for row in frame.itertuples(index=False):
         rec = row._asdict()
         shown = str(rec[by])
         if by == "root_cause":
             shown = fmt.cause_label(shown, causes)
-        table.add_row(
-            Text(fmt.plain(shown)),
-            str(int(rec["adjustments"])),
-            str(int(rec["decisions"])),
-            str(int(rec["helped"])),
-            percent(rec["share_helped"], 0),
-            number(rec["value_added"], 1, signed=True),
-            *([number(rec["value_added_value"], signed=True)] if priced else []),
-            percent(rec["relative_value_added"], signed=True),
-            *([number(rec["value_added_vs_stat"], 1, signed=True)] if stat else []),
-            *([number(rec["value_added_vs_stat_value"], signed=True)] if stat and priced else []),
-        )
+        rows.append([Text(fmt.plain(shown)), *(cell(rec) for _, _, cell in kept)])
+    table = Table(
+        title=TITLES.get(by, by),
+        title_justify="left",
+        box=None,
+        header_style="bold",
+        collapse_padding=compact,
+        pad_edge=not compact,
+    )
+    # Each number column as wide as its longest header word or cell: the header wraps between
+    # words and nothing is cut; the first column takes the rest and wraps its labels.
+    table.add_column(by.replace("_", " "), overflow="fold")
+    for index, (wide, short, _) in enumerate(kept, start=1):
+        header = short if compact else wide
+        longest_word = max(len(word) for word in header.split())
+        width = max([longest_word, *(len(str(r[index])) for r in rows)])
+        table.add_column(header, justify="right", width=width)
+    for cells in rows:
+        table.add_row(*cells)
     return table
+
+
+class SummaryTable:
+    """A grouping's table that fits the width it is drawn at: the full headers where every
+    word and number shows whole (the labels' longest word included), else the compact table
+    (``summary_table``)."""
+
+    def __init__(
+        self, by: str, frame: pd.DataFrame, priced: bool, causes: tuple[Choice, ...] = ()
+    ) -> None:
+        self.wide = summary_table(by, frame, priced, causes)
+        self.compact = summary_table(by, frame, priced, causes, compact=True)
+
+    def __rich_console__(self, console: Console, options: ConsoleOptions) -> RenderResult:
+        # The width below which the full table would cut a word or a number.
+        needed = Measurement.get(console, options.update(max_width=10_000), self.wide).minimum
+        yield self.wide if needed <= options.max_width else self.compact
 
 
 def _net(removed: float, unit: str) -> str:
@@ -141,7 +205,7 @@ class OverridesScreen(Dialog[None]):
                         f"Against the statistical forecast (forecast_{fmt.plain(self._stat_name)}),"
                         f" over the {int(total['stat_adjustments'])} periods it has a value for: "
                         f"the overrides {'beat' if beat >= 0 else 'did worse than'} it by "
-                        f"{abs(beat):,.1f} units ('beat stat by' below; positive = the override "
+                        f"{abs(beat):,.1f} units ('beat stat' below; positive = the override "
                         "was closer to the actual)."
                     )
                 )
@@ -152,7 +216,7 @@ class OverridesScreen(Dialog[None]):
             parts.append(Text(f"AvgRelMAE: {words.MEANINGS['AvgRelMAE']}.", style="dim"))
             for by, frame in self._tables.items():
                 parts.append(Text(""))
-                parts.append(summary_table(by, frame, self._priced, self._causes))
+                parts.append(SummaryTable(by, frame, self._priced, self._causes))
         fva = self._fva
         parts.append(Text(""))
         parts.append(
