@@ -69,3 +69,45 @@ async def test_full_headers_stay_at_200_by_50(scenario) -> None:
     lines = await _dialog_lines((200, 50), scenario)
     assert not [line for line in lines if "…" in line]
     assert set(FULL) <= _words(lines), set(FULL) - _words(lines)
+
+
+async def test_one_override_is_counted_in_the_singular(tmp_path) -> None:
+    # Found in a terminal run: "1 overridden periods from 1 decisions now have actuals".
+    import shutil
+
+    from triage.core.cycle import ReviewCycle
+    from triage.core.ledger import FOLDER_LEDGER, Ledger
+    from triage.core.read import read_portfolio
+    from triage.core.review import ReviewSession
+
+    weeks = build_cycles(tmp_path / "cycles").files
+    folder = tmp_path / "week"
+    folder.mkdir()
+    shutil.copy(weeks[-2], folder)
+    ledger = Ledger.open(folder / FOLDER_LEDGER)
+    cycle = ReviewCycle(read_portfolio(folder / weeks[-2].name), ledger)
+    session = ReviewSession(cycle, reviewer="ana")
+    session.commit_decision(
+        int(session.error_order[0]), outcome="adjusted", root_cause="unknown", adjustment="1: x0.5"
+    )
+    ledger.close()
+    shutil.copy(weeks[-1], folder)
+    app = TriageApp(
+        Options(portfolio=folder / weeks[-1].name, ledger=folder / FOLDER_LEDGER, reviewer="ana")
+    )
+    async with app.run_test(size=(200, 50)) as pilot:
+        await wait_loaded(app, pilot)
+        await pilot.press("v")
+        await wait_for(pilot, lambda: isinstance(app.screen, OverridesScreen), "the screen")
+        await pilot.pause()
+        strips = app.screen._compositor.render_strips()
+        drawn = " ".join("".join(segment.text for segment in strip) for strip in strips)
+        text = " ".join(drawn.replace("█", " ").split())
+        assert "1 overridden period from 1 decision now has actuals" in text
+    # The report says it in the same number.
+    from triage.cli import main
+
+    report = tmp_path / "report.html"
+    week = str(folder / weeks[-1].name)
+    assert main(["report", week, "--ledger", str(folder / FOLDER_LEDGER), "--to", str(report)]) == 0
+    assert "1 overridden period with actuals, from 1 decision;" in report.read_text()

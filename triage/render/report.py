@@ -777,6 +777,11 @@ def _helped(row: pd.Series) -> str:
     )
 
 
+def _s(count: float) -> str:
+    """The plural ending for ``count`` of something."""
+    return "" if count == 1 else "s"
+
+
 def overall_sentence(data: ReportData) -> str:
     """The realised value of every override in one sentence (text, not HTML)."""
     row = data.summaries["direction"].iloc[-1]
@@ -784,8 +789,9 @@ def overall_sentence(data: ReportData) -> str:
     if data.priced:
         value = f" ({fmt_money(row['value_added_value'], signed=True)} in value)"
     sentence = (
-        f"{fmt_int(row['adjustments'])} overridden periods with actuals, from "
-        f"{fmt_int(row['decisions'])} decisions; {_helped(row)}{value}."
+        f"{fmt_int(row['adjustments'])} overridden period{_s(row['adjustments'])} with "
+        f"actuals, from {fmt_int(row['decisions'])} decision{_s(row['decisions'])}; "
+        f"{_helped(row)}{value}."
     )
     # Against the statistical forecast only when there are realised overrides to value.
     if data.stat_name is not None and row["adjustments"] > 0:

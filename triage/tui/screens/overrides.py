@@ -17,6 +17,7 @@ from textual.containers import Vertical, VerticalScroll
 from textual.widgets import Static
 
 from triage.core import words
+from triage.core.read.messages import plural
 from triage.core.text import number, percent
 from triage.core.vocabulary import Choice
 from triage.tui import format as fmt
@@ -191,9 +192,10 @@ class OverridesScreen(Dialog[None]):
             total = overall.iloc[-1]
             parts.append(
                 Text(
-                    f"{int(total['adjustments'])} overridden periods from "
-                    f"{int(total['decisions'])} decisions "
-                    f"now have actuals; {total['share_helped'] * 100:.0f}% of them helped. "
+                    f"{plural(int(total['adjustments']), 'overridden period')} from "
+                    f"{plural(int(total['decisions']), 'decision')} "
+                    f"now {'has' if int(total['adjustments']) == 1 else 'have'} actuals; "
+                    f"{total['share_helped'] * 100:.0f}% of them helped. "
                     + _net(total["value_added"], "units")
                     + (_net(total["value_added_value"], "in value") if self._priced else "")
                 )
