@@ -138,3 +138,38 @@ def _rank(*args: str | Path) -> subprocess.CompletedProcess[bytes]:
         timeout=600,
         check=False,
     )
+
+
+@pytest.mark.parametrize("cut", ["by series", "by period"])
+def test_a_dataset_priced_zero_everywhere_ranks_in_units_on_dask(
+    tmp_path: Path, client: Any, cut: str
+) -> None:
+    # The rule of portfolio.value_or_units, judged over every part as for one file: the Dask
+    # engine's scorecard is the single file's, in units, and says why. Scored by hand in
+    # tests/core/test_zero_prices.py (ABS_ERROR).
+    from tests.core.test_zero_prices import ABS_ERROR, COLUMNS, REASON, ZERO, frame
+
+    data = frame(ZERO)
+    data["demand"] = pd.to_numeric(data["demand"])
+    data["unit_cost"] = pd.to_numeric(data["unit_cost"])
+    single = tmp_path / "week.parquet"
+    data.to_parquet(single)
+    folder = tmp_path / "lake"
+    folder.mkdir()
+    halves = (
+        data["item"].isin(["A", "B"])
+        if cut == "by series"
+        else data["week"].isin(["2026-10-05", "2026-10-12"])
+    )
+    data[halves].to_parquet(folder / "part-0.parquet")
+    data[~halves].to_parquet(folder / "part-1.parquet")
+    reference = scorecard(read_portfolio(single, columns=COLUMNS), 4, 1)
+    assert "abs_error_value" not in reference.columns
+    scored = score_dataset(folder, client, window=4, season=1, columns=COLUMNS)
+    assert scored.plan.whole_series == (cut == "by series")
+    assert scored.plan.units_reason == REASON
+    assert any(REASON in notice for notice in scored.plan.notices)
+    assert scored.described.units_reason == REASON
+    got = ranked(scored.measures, "error")
+    same_scorecard(got, reference)
+    assert dict(zip(got["item"], got["abs_error"], strict=True)) == ABS_ERROR

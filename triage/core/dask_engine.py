@@ -151,7 +151,9 @@ def score_dataset(
     summaries: list[PartSummary] = client.gather(
         client.map(_summary, parts, dataset=dataset, columns=columns, options=options)
     )
-    plan = plan_dataset(dataset, summaries, lag=lag)
+    plan = plan_dataset(
+        dataset, summaries, lag=lag, price_header=(columns or {}).get(schema.PRICE, schema.PRICE)
+    )
     cols = plan.window_cols(window)
     # The first series of the first part, on a worker: it describes the whole (calendar, lag,
     # forecasts, prices) for the steps' check and the output, and gives the rows' shapes.

@@ -48,7 +48,8 @@ from triage.core.portfolio import (
     build_portfolio,
     calendar_from_uniques,
     calendar_problem,
-    value_or_units,
+    units_notice,
+    units_reason,
 )
 from triage.core.ranking import MEASURE_COLUMNS, SeriesMeasures, series_measures
 from triage.core.read.frame import LoadedFrame, load_frame
@@ -185,6 +186,8 @@ class PartSummary:
     notices: tuple[str, ...]
     keys: tuple[tuple[str, ...], tuple[str, ...]] | None = None
     """The part's smallest and largest series key (item, then location), None without rows."""
+    price_above_zero: bool = False
+    """Some row of the part has a price above 0 (``portfolio.value_or_units``)."""
 
 
 def summarise(loaded: LoadedFrame) -> PartSummary:
@@ -206,6 +209,8 @@ def summarise(loaded: LoadedFrame) -> PartSummary:
         rows=len(frame),
         notices=loaded.notices,
         keys=_key_range(frame),
+        price_above_zero=schema.PRICE in frame.columns
+        and bool((frame[schema.PRICE].to_numpy(dtype=np.float64) > 0).any()),
     )
 
 
@@ -229,10 +234,15 @@ def quick_summary(
         source = scan_parquet(dataset.files[part], columns=columns, options=options)
         keys = [c for c in schema.KEY_ORDER if c in source.columns]
         has_lag = schema.LAG in source.columns
+        has_price = schema.PRICE in source.columns
         names = [*keys, schema.PERIOD, schema.DEMAND, *([schema.LAG] if has_lag else [])]
+        names += [schema.PRICE] if has_price else []
         days, actual, lags, pairs = [], [], [], []
+        price_above_zero = False
         for chunk in source.chunks(names):
             got = chunk.columns
+            if has_price and not price_above_zero:
+                price_above_zero = bool((got[schema.PRICE] > 0).any())
             period = got[schema.PERIOD].astype(np.int64)
             days.append(_distinct(period))
             actual.append(_distinct(period[~np.isnan(got[schema.DEMAND])]))
@@ -281,6 +291,7 @@ def quick_summary(
         rows=source.n_rows,
         notices=source.notices,
         keys=key_range,
+        price_above_zero=price_above_zero,
     )
 
 
@@ -340,6 +351,9 @@ class Plan:
     whole_series: bool = False
     """Every series' rows are in one part (the parts' key ranges do not overlap): the parts can
     be scored as they are, without mixing their rows."""
+    units_reason: str = ""
+    """Why the dataset's price column is not used (no part has a price above 0: the rule of
+    ``portfolio.value_or_units``, judged over every part); ``""`` otherwise."""
 
     @property
     def key_columns(self) -> tuple[str, ...]:
@@ -347,7 +361,8 @@ class Plan:
 
     @property
     def priced(self) -> bool:
-        return schema.PRICE in self.columns
+        """Errors are valued: a price column with some price above 0."""
+        return schema.PRICE in self.columns and not self.units_reason
 
     def window_cols(self, window: int) -> np.ndarray:
         """The scoring window's columns: ``metrics.window_columns`` of the whole portfolio."""
@@ -362,6 +377,7 @@ def plan_dataset(
     *,
     lag: int | None = None,
     smallest_lag: bool = False,
+    price_header: str = schema.PRICE,
 ) -> Plan:
     """Combine the parts' summaries into the whole dataset's :class:`Plan`.
 
@@ -426,6 +442,11 @@ def plan_dataset(
             hint="Leave out --lag, or load the dataset that holds the forecast lags.",
         )
     notices = tuple(dict.fromkeys(n for s in summaries for n in s.notices))
+    reason = ""
+    if schema.PRICE in first.columns and not any(s.price_above_zero for s in summaries):
+        # As one file of every part's rows would be read (portfolio.value_or_units).
+        reason = units_reason(price_header)
+        notices = (*notices, units_notice(reason))
     ranges = sorted(s.keys for s in summaries if s.keys is not None)
     whole = all(before[1] < after[0] for before, after in itertools.pairwise(ranges))
     return Plan(
@@ -437,6 +458,7 @@ def plan_dataset(
         rows=rows,
         notices=notices,
         whole_series=whole,
+        units_reason=reason,
     )
 
 
@@ -502,7 +524,10 @@ def build_part(frame: pd.DataFrame, plan: Plan, *, some: bool = False) -> Portfo
         attributes=plan.attributes,
         notices=plan.notices,
     )
-    return build_portfolio(loaded, consume=True, grid=plan.grid)
+    portfolio = build_portfolio(loaded, consume=True, grid=plan.grid)
+    if plan.units_reason:
+        portfolio = dataclasses.replace(portfolio, price=None, units_reason=plan.units_reason)
+    return portfolio
 
 
 def score_part(
@@ -599,7 +624,7 @@ def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Po
         return out
 
     price = None
-    if portfolio.price is not None:
+    if portfolio.price is not None and plan.priced:
         dense = placed(np.asarray(portfolio.price))
         dense[:, : span.start] = dense[:, span.start : span.start + 1]
         dense[:, span.stop :] = dense[:, span.stop - 1 : span.stop]
@@ -625,7 +650,7 @@ def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Po
         price=price,
         last_actual=plan.grid.last_actual,
         competing={name: placed(values) for name, values in portfolio.competing.items()},
-        units_reason="",
+        units_reason=plan.units_reason,
         _text_codes={},
     )
 
@@ -714,11 +739,16 @@ def read_dataset(
     parts = [
         read_part(dataset, i, columns=columns, options=options) for i in range(len(dataset.files))
     ]
-    plan = plan_dataset(dataset, [summarise(p) for p in parts], lag=lag, smallest_lag=smallest_lag)
+    plan = plan_dataset(
+        dataset,
+        [summarise(p) for p in parts],
+        lag=lag,
+        smallest_lag=smallest_lag,
+        price_header=(columns or {}).get(schema.PRICE, schema.PRICE),
+    )
     frame = concat_parts([p.frame for p in parts])
     del parts
-    # As a single file of every part's rows: no price above 0 anywhere ranks in units.
-    return value_or_units(build_part(frame, plan), (columns or {}).get(schema.PRICE, schema.PRICE))
+    return build_part(frame, plan)
 
 
 def concat_parts(frames: Sequence[pd.DataFrame]) -> pd.DataFrame:

@@ -1027,12 +1027,22 @@ def value_or_units(portfolio: Portfolio, header: str = schema.PRICE) -> Portfoli
     price = portfolio.price
     if price is None or price.any_positive():
         return portfolio
-    reason = f"column '{header}' has no price above 0"
-    note = (
+    reason = units_reason(header)
+    notices = (*portfolio.notices, units_notice(reason))
+    return replace(portfolio, price=None, units_reason=reason, notices=notices)
+
+
+def units_reason(header: str) -> str:
+    """Why a portfolio with a price column ranks in units (``header``: the column's name)."""
+    return f"column '{header}' has no price above 0"
+
+
+def units_notice(reason: str) -> str:
+    """The notice that says a price column is not used, and why (see :func:`value_or_units`)."""
+    return (
         f"{reason}, so errors are ranked in units, not in value (a price of 0 would value "
         "every error at 0)."
     )
-    return replace(portfolio, price=None, units_reason=reason, notices=(*portfolio.notices, note))
 
 
 def price_note(missing_rows: int) -> str:
