@@ -775,6 +775,10 @@ class ReviewSession:
             self.outcome[rows] = outcomes
         finally:
             self.outcome.flags.writeable = False
+        if isinstance(outcomes, str):
+            # One code for every row (a reload clears a million): its state, once.
+            self._state[rows] = _states(np.array([outcomes], dtype=object))[0]
+            return
         now = self.outcome[rows]
         states = _states(np.atleast_1d(np.asarray(now, dtype=object)))
         self._state[rows] = states if np.ndim(now) else states[0]
