@@ -173,12 +173,17 @@ def load_config_of(args: argparse.Namespace) -> Config:
 
 
 def load_portfolio(
-    args: argparse.Namespace, *, smallest_lag: bool = False, dataset: bool = False
+    args: argparse.Namespace,
+    *,
+    smallest_lag: bool = False,
+    dataset: bool = False,
+    scored_window: int | None = None,
 ) -> Portfolio:
     """The portfolio named on the command line, read with the options of ``portfolio_args``.
 
     With ``dataset``, a folder is read as a dataset of Parquet parts by the local engine
     (``triage.core.dataset.read_dataset``); otherwise a folder is refused by the loader.
+    ``scored_window``: read to be scored over that window only (``read_portfolio``).
 
     Raises:
         TriageError: The file cannot be read or scored as it is (the loader's message).
@@ -192,7 +197,9 @@ def load_portfolio(
         refuse_sheet(args)
         del options["sheet"]
         return read_dataset(args.portfolio, smallest_lag=smallest_lag, **options)
-    return read_portfolio(args.portfolio, smallest_lag=smallest_lag, **options)
+    return read_portfolio(
+        args.portfolio, smallest_lag=smallest_lag, scored_window=scored_window, **options
+    )
 
 
 def refuse_sheet(args: argparse.Namespace) -> None:

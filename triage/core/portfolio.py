@@ -39,7 +39,7 @@ from triage.core.errors import LoadError, format_rows
 from triage.core.text import visible
 
 if TYPE_CHECKING:
-    from collections.abc import Callable, Sequence
+    from collections.abc import Sequence
 
 
 #: How many example rows an error message shows.
@@ -225,6 +225,84 @@ def _is_int(key: object) -> bool:
     return isinstance(key, int | np.integer) and not isinstance(key, bool)
 
 
+class ColumnSpan:
+    """A ``(n_series, n_periods)`` float64 matrix of which only the columns ``start`` to
+    ``stop - 1`` were loaded: what a scoring run keeps of the forecasts.
+
+    ``triage rank`` scores the forecasts on the window's columns only; reading the file for it
+    (``read_portfolio(..., scored_window=W)``) keeps those columns, a ninth of the matrix on two
+    years of weekly history, instead of every period's. It indexes like the full matrix within
+    the span: ``m[rows]`` (a ``ColumnSpan`` of those rows) and ``m[rows, cols]`` (numpy's
+    result: a view for slices). A column outside the span raises ``IndexError`` rather than
+    give a value that was never read, and it never turns into a full array.
+    """
+
+    __slots__ = ("_values", "shape", "start")
+
+    dtype = np.dtype(np.float64)
+    ndim = 2
+
+    def __init__(self, values: np.ndarray, start: int, n_periods: int) -> None:
+        """
+        Args:
+            values: The loaded columns, ``n_series x width``.
+            start: The calendar column of ``values[:, 0]``.
+            n_periods: Columns of the whole matrix.
+        """
+        if start < 0 or start + values.shape[1] > n_periods:
+            raise ValueError("the span must lie inside the calendar")
+        self._values = values
+        self.start = start
+        self.shape: tuple[int, int] = (int(values.shape[0]), n_periods)
+
+    @property
+    def stop(self) -> int:
+        """One past the last loaded column."""
+        return self.start + int(self._values.shape[1])
+
+    def __len__(self) -> int:
+        return self.shape[0]
+
+    def __repr__(self) -> str:
+        return f"ColumnSpan(shape={self.shape}, columns={self.start}..{self.stop - 1})"
+
+    def __array__(self, dtype: npt.DTypeLike | None = None, copy: bool | None = None) -> NoReturn:
+        raise TypeError(f"only columns {self.start}..{self.stop - 1} of this matrix were loaded")
+
+    def __getitem__(self, key: Any) -> Any:
+        if not isinstance(key, tuple):
+            if _is_int(key):
+                raise IndexError("a ColumnSpan row is only read with its columns: m[row, cols]")
+            return ColumnSpan(self._values[key], self.start, self.shape[1])
+        if len(key) != 2:
+            raise IndexError(f"a ColumnSpan takes [rows] or [rows, cols], not {len(key)} keys")
+        rows, cols = key
+        return self._values[rows, self._local(cols)]
+
+    def _local(self, cols: Any) -> Any:
+        """The key of the loaded columns standing for calendar columns ``cols``."""
+        n = self.shape[1]
+        if isinstance(cols, slice):
+            # A slice stays a slice (basic indexing: a view, and rows index apart from it).
+            taken = range(*cols.indices(n))
+            if not taken:
+                return slice(0, 0)
+            self._check(min(taken), max(taken))
+            stop = taken[-1] - self.start + (1 if taken.step > 0 else -1)
+            return slice(taken[0] - self.start, stop if stop >= 0 else None, taken.step)
+        picked = np.arange(n)[cols]
+        if np.size(picked):
+            self._check(int(np.min(picked)), int(np.max(picked)))
+        return picked - self.start
+
+    def _check(self, low: int, high: int) -> None:
+        if low < self.start or high >= self.stop:
+            raise IndexError(
+                f"columns outside {self.start}..{self.stop - 1} were not loaded "
+                "(the file was read for scoring only)"
+            )
+
+
 @dataclass(frozen=True)
 class Portfolio:
     """A scored-ready portfolio: keys, attributes and dense arrays aligned on series and periods.
@@ -248,7 +326,8 @@ class Portfolio:
     forecast: np.ndarray
     """Forecast at the chosen lag for history periods, the forward forecast after them.
 
-    NaN where missing."""
+    NaN where missing. Read for scoring only (``read_portfolio(..., scored_window=W)``), it is a
+    :class:`ColumnSpan` of the scoring window's columns, as are the ``competing`` forecasts."""
     price: UnitPrices | None
     """Unit value, series x periods, float64, filled along each series; None without a price column.
 
@@ -1106,15 +1185,6 @@ def _latest_rows(
         # repeated indices.
         np.maximum.at(rows, block[hit], hit + lo)
     return rows
-
-
-def rows_marked(marked: np.ndarray, cell: np.ndarray) -> Callable[[int, int], np.ndarray]:
-    """For ``StreamSource.chunks``: positions, in a row group, of the rows whose cell is marked."""
-
-    def select(start: int, size: int) -> np.ndarray:
-        return np.flatnonzero(marked[cell[start : start + size]])
-
-    return select
 
 
 def str_array(values: np.ndarray, codes: np.ndarray) -> pd.api.extensions.ExtensionArray:

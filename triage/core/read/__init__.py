@@ -62,6 +62,7 @@ def read_portfolio(
     lag: int | None = None,
     smallest_lag: bool = False,
     options: FileOptions | None = None,
+    scored_window: int | None = None,
 ) -> Portfolio:
     """Load a portfolio file and build its arrays (see :func:`load_frame` and ``build_portfolio``).
 
@@ -73,6 +74,11 @@ def read_portfolio(
     the long frame. Whenever that reader cannot vouch for the file (a bad or unusual cell,
     several lags, duplicate rows, ...) the file is read the full way, which gives the same
     portfolio or the same error.
+
+    ``scored_window`` (``triage rank``): the portfolio is read to be scored over a window of
+    that many periods and nothing else; the streamed way then keeps the forecasts only over
+    that window (``portfolio.ColumnSpan``), which saves most of their memory. Any other use of
+    the forecasts raises ``IndexError``.
     """
     scan = {".parquet": scan_parquet, ".pq": scan_parquet, ".csv": scan_csv}.get(
         Path(path).suffix.lower()
@@ -80,7 +86,9 @@ def read_portfolio(
     header = (columns or {}).get(schema.PRICE, schema.PRICE)
     if sheet is None and scan is not None:
         try:
-            streamed = build_streamed(scan(path, columns=columns, options=options), lag)
+            streamed = build_streamed(
+                scan(path, columns=columns, options=options), lag, scored_window
+            )
         except FastPathDeclined:
             pass
         else:

@@ -23,15 +23,17 @@ import threading
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass, field
 from pathlib import Path
-from typing import Any
+from typing import Any, cast
 
 import numpy as np
 import pandas as pd
 
 from triage.core import schema
 from triage.core.ledger import TEXT_MAX
+from triage.core.metrics import window_columns
 from triage.core.portfolio import (
     BLOCK_ROWS,
+    ColumnSpan,
     Portfolio,
     UnitPrices,
     calendar_from_uniques,
@@ -41,7 +43,6 @@ from triage.core.portfolio import (
     last_actual_column,
     last_filled,
     price_note,
-    rows_marked,
     str_array,
     text_rank,
 )
@@ -394,13 +395,123 @@ def _text_days(source: StreamSource, chunk: Any) -> np.ndarray:
     return out
 
 
-def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
-    """Build from a Parquet file in two passes over its row groups, without the long frame.
+@dataclass
+class _RowCells:
+    """Each row's cell (``series * n_periods + column``), block by block (row groups).
 
-    Pass 1 reads the keys and periods and numbers every row's cell; pass 2 reads the numbers and
-    attributes and scatters them. Only files with one row per (series, period) and one history
-    lag take this way; for anything else :class:`FastPathDeclined` sends the
-    file to the full loader, which gives the same result or the same error.
+    A block whose rows fill adjacent cells in order (a file sorted by key and period, every
+    period present: the usual case) is kept as its first cell alone and placed by slices; the
+    other blocks keep one cell per row. On a sorted file this frees the 4 bytes per row of the
+    cell array (464 MB at a million series) and turns the scatters into copies.
+    """
+
+    first: dict[int, int]
+    """Block start row -> the cell of its first row, for blocks of adjacent cells."""
+    cells: dict[int, np.ndarray]
+    """Block start row -> each row's cell (int32), for the other blocks."""
+    _recent: tuple[int, np.ndarray] = (-1, np.empty(0, dtype=np.intp))
+    """The last block's cells as intp (numpy converts an int32 index on every use)."""
+
+    @classmethod
+    def of(cls, cell: np.ndarray, blocks: Sequence[tuple[int, int]]) -> _RowCells:
+        """From the whole file's cell array and its blocks' (start row, rows)."""
+        first: dict[int, int] = {}
+        for start, size in blocks:
+            block = cell[start : start + size]
+            if int(block[-1]) - int(block[0]) == size - 1 and (np.diff(block) == 1).all():
+                first[start] = int(block[0])
+        others = [(start, size) for start, size in blocks if start not in first]
+        # Copies only when they free the whole array, views (of the kept array) otherwise.
+        copy = sum(size for _, size in others) * 2 < len(cell)
+        cells = {
+            start: cell[start : start + size].copy() if copy else cell[start : start + size]
+            for start, size in others
+        }
+        return cls(first, cells)
+
+    def _cells(self, start: int) -> np.ndarray:
+        if self._recent[0] != start:
+            self._recent = (start, self.cells[start].astype(np.intp))
+        return self._recent[1]
+
+    def scatter(
+        self,
+        flat: np.ndarray,
+        start: int,
+        values: np.ndarray,
+        n_periods: int = 0,
+        span_start: int = 0,
+        width: int = 0,
+    ) -> None:
+        """Place the values of the block starting at row ``start`` into ``flat``.
+
+        ``flat`` is the series x period matrix, flattened; with ``width`` (and ``n_periods``)
+        it holds only the columns ``span_start`` to ``span_start + width - 1`` of each series,
+        and the values of the other columns are left out.
+        """
+        narrow = bool(width) and width != n_periods
+        head = self.first.get(start)
+        if head is not None and not narrow:
+            flat[head : head + len(values)] = values
+            return
+        if head is not None:
+            # Lay the block out as whole series rows, then copy the kept columns. The rows at
+            # its two ends are shared with the neighbouring blocks: only this block's cells
+            # (not NaN in the layout) are copied. A NaN value skipped is NaN in ``flat`` too:
+            # each cell comes from exactly one row.
+            lo, hi = head // n_periods, (head + len(values) - 1) // n_periods + 1
+            layout = np.full((hi - lo) * n_periods, np.nan)
+            offset = head - lo * n_periods
+            layout[offset : offset + len(values)] = values
+            part = layout.reshape(hi - lo, n_periods)[:, span_start : span_start + width]
+            target = flat.reshape(-1, width)[lo:hi]
+            np.copyto(target, part, where=~np.isnan(part))
+            return
+        cells = self._cells(start)
+        if not narrow:
+            flat[cells] = values
+            return
+        series, column = np.divmod(cells, n_periods)
+        column -= span_start
+        inside = (column >= 0) & (column < width)
+        flat[series[inside] * width + column[inside]] = values[inside]
+
+    def series(self, start: int, positions: np.ndarray, n_periods: int) -> np.ndarray:
+        """The series of the rows at ``positions`` in the block starting at row ``start``."""
+        head = self.first.get(start)
+        cells = head + positions if head is not None else self._cells(start)[positions]
+        out: np.ndarray = cells // n_periods
+        return out
+
+    def rows_at(self, wanted: np.ndarray, n_periods: int) -> Callable[[int, int], np.ndarray]:
+        """For ``StreamSource.chunks``: positions, in a block, of the rows in cells ``wanted``
+        (one per series, in series order: ``wanted[s]`` is a cell of series ``s``)."""
+
+        def select(start: int, size: int) -> np.ndarray:
+            head = self.first.get(start)
+            if head is not None:
+                lo, hi = np.searchsorted(wanted, [head, head + size])
+                return wanted[lo:hi] - head
+            cells = self._cells(start)
+            return np.flatnonzero(cells == wanted[cells // n_periods])
+
+        return select
+
+
+def build_streamed(
+    source: StreamSource, lag: int | None, scored_window: int | None = None
+) -> Portfolio:
+    """Build from a Parquet or CSV file in passes over its blocks, without the long frame.
+
+    Pass 1 reads the keys and periods and numbers every row's cell; the next passes read the
+    prices, the demand and attributes, then the forecasts, and place them in their cells. Only
+    files with one row per (series, period) and one history lag take this way; for anything
+    else :class:`FastPathDeclined` sends the file to the full loader, which gives the same
+    result or the same error.
+
+    With ``scored_window`` (``triage rank``), the forecasts are kept only from the first column
+    of that scoring window to the latest actual (:class:`ColumnSpan`), the only columns scoring
+    reads; the demand stays whole, as the history measures read all of it.
     """
     n_rows = source.n_rows
     has_location = schema.LOCATION in source.columns
@@ -420,8 +531,10 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
     lag_first_day: dict[int, int] = {}
     names = [*key_columns, schema.PERIOD, *([schema.LAG] if has_lag else [])]
     into: dict[str, np.ndarray] = {schema.ITEM: item, schema.LOCATION: loc}
+    blocks: list[tuple[int, int]] = []
     for chunk in source.chunks(names, into=into, last=True):
         start, stop = chunk.start, chunk.start + chunk.size
+        blocks.append((start, chunk.size))
         days = chunk.columns[schema.PERIOD]
         low, high = int(days.min()), int(days.max())
         base = low if base is None else base
@@ -480,12 +593,13 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
     n_periods = len(calendar.periods)
     if n_series * n_periods >= np.iinfo(np.int32).max or n_periods > small.max:
         raise FastPathDeclined("too many cells")
-    # The two dense arrays are allocated and NaN-filled on a worker thread while this one
-    # numbers the cells: first touching a GB of memory is mostly kernel time, which the other
-    # core can take.
+    # The dense arrays are allocated and NaN-filled on a worker thread while this one numbers
+    # the cells: first touching a GB of memory is mostly kernel time, which the other core can
+    # take. Scoring only, the forecasts are allocated once the window is known (much smaller).
+    n_whole = 2 if scored_window is None else 1
     allocating = concurrent.futures.ThreadPoolExecutor(max_workers=1)
     dense_job = allocating.submit(
-        lambda: (np.full(n_series * n_periods, np.nan), np.full(n_series * n_periods, np.nan))
+        lambda: [np.full(n_series * n_periods, np.nan) for _ in range(n_whole)]
     )
     allocating.shutdown(wait=False)
     # Row -> cell in one pass through two lookup tables: pair -> first cell of its series,
@@ -507,56 +621,44 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
     del day, pair, first_cell, pairs
     if np.count_nonzero(filled) != n_rows:
         raise FastPathDeclined("several rows for one series and period")
-    is_latest = None
+    # Attributes come from each series' latest row: its cell, found from the bitmap.
+    latest_cell = None
     if source.attributes:
-        # The bitmap turns into "is the latest cell of its series": attributes come from there.
-        last = last_filled(filled.reshape(n_series, n_periods))
-        filled[:] = False
-        filled[np.arange(n_series, dtype=np.int64) * n_periods + last] = True
-        is_latest = filled
-    else:
-        del filled
+        latest_cell = last_filled(filled.reshape(n_series, n_periods))
+        latest_cell += np.arange(n_series, dtype=np.int64) * n_periods
+    del filled
+    placed = _RowCells.of(cell, blocks)
+    del cell
+    select = placed.rows_at(latest_cell, n_periods) if latest_cell is not None else None
 
-    # Pass 2: prices first, into the buffer that will then hold the forecasts: the dense price
-    # matrix lives only until it is compressed (most series have one price throughout).
-    buffer, demand = dense_job.result()
+    # Pass 2: prices first, into the demand matrix's memory: the dense price matrix lives only
+    # until it is compressed (most series have one price throughout).
+    dense = dense_job.result()
     del dense_job
+    demand = dense[0]
     price = None
     missing_prices = 0
     if has_price:
         for chunk in source.chunks([schema.PRICE], last=True):
             values = chunk.columns[schema.PRICE]
-            # numpy converts an int32 index to intp on every use: convert once per chunk.
-            buffer[cell[chunk.start : chunk.start + chunk.size].astype(np.intp)] = values
+            placed.scatter(demand, chunk.start, values)
             missing_prices += int(np.count_nonzero(np.isnan(values)))
-        dense = buffer.reshape(n_series, n_periods)
-        if fill_prices(dense).size:
+        prices = demand.reshape(n_series, n_periods)
+        if fill_prices(prices).size:
             raise FastPathDeclined("series without a price")
-        price = UnitPrices.from_dense(dense)
-        del dense
-        buffer.fill(np.nan)
+        price = UnitPrices.from_dense(prices)
+        del prices
+        demand.fill(np.nan)
 
-    # Pass 3: demand, forecast and attributes, scattered into their cells.
-    forecast = buffer
+    # Pass 3: demand and attributes.
     attribute_codes = {name: np.full(n_series, -1, dtype=np.int32) for name in source.attributes}
-
-    select = rows_marked(is_latest, cell) if is_latest is not None else None
-    # Competing forecasts (forecast_<name>): one row per cell here, so each row scatters as
-    # ``forecast`` does.
-    rivals = [name for name in source.columns if schema.competing_name(name) is not None]
-    competing = {name: np.full(n_series * n_periods, np.nan) for name in rivals}
-    names = [schema.DEMAND, schema.FORECAST, *rivals]
-    for chunk in source.chunks(names, sparse=source.attributes, select=select, last=True):
-        cells = cell[chunk.start : chunk.start + chunk.size].astype(np.intp)
-        demand[cells] = chunk.columns[schema.DEMAND]
-        forecast[cells] = chunk.columns[schema.FORECAST]
-        for name, flat in competing.items():
-            flat[cells] = chunk.columns[name]
+    for chunk in source.chunks([schema.DEMAND], sparse=source.attributes, select=select, last=True):
+        placed.scatter(demand, chunk.start, chunk.columns[schema.DEMAND])
         if chunk.selected is not None:
-            owners = cells[chunk.selected] // n_periods
+            owners = placed.series(chunk.start, chunk.selected, n_periods)
             for name, codes in attribute_codes.items():
                 codes[owners] = chunk.columns[name]
-    del cell, is_latest, select
+    del select
     demand_grid = demand.reshape(n_series, n_periods)
     last_actual = last_actual_column(demand_grid)
     if last_actual < 0:
@@ -576,6 +678,27 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
             raise FastPathDeclined("lag choice")
         chosen = lags[0]
 
+    # Pass 4: the forecast and competing forecasts (forecast_<name>), over the columns kept.
+    span_start = 0
+    if scored_window is not None:
+        span_start = int(window_columns(demand_grid, last_actual, scored_window)[0])
+    width = n_periods if scored_window is None else last_actual + 1 - span_start
+    forecast = dense[1] if scored_window is None else np.full(n_series * width, np.nan)
+    del dense
+    rivals = [name for name in source.columns if schema.competing_name(name) is not None]
+    competing = {name: np.full(n_series * width, np.nan) for name in rivals}
+    for chunk in source.chunks([schema.FORECAST, *rivals], last=True):
+        for name, flat in ((schema.FORECAST, forecast), *competing.items()):
+            placed.scatter(flat, chunk.start, chunk.columns[name], n_periods, span_start, width)
+    del placed
+
+    def kept(flat: np.ndarray) -> np.ndarray:
+        grid = flat.reshape(n_series, width)
+        if scored_window is None:
+            return grid
+        # Reads like the whole matrix inside the kept columns (see ColumnSpan).
+        return cast(np.ndarray, ColumnSpan(grid, span_start, n_periods))
+
     notices = list(source.notices)
     if missing_prices:
         notices.append(price_note(missing_prices))
@@ -591,7 +714,7 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
         attributes=source.attributes,
         calendar=calendar,
         demand=demand_grid,
-        forecast=forecast.reshape(n_series, n_periods),
+        forecast=kept(forecast),
         price=price,
         last_actual=last_actual,
         lag=chosen,
@@ -599,8 +722,7 @@ def build_streamed(source: StreamSource, lag: int | None) -> Portfolio:
         rows=n_rows,
         notices=tuple(notices),
         competing={
-            name[len(schema.COMPETING_PREFIX) :]: flat.reshape(n_series, n_periods)
-            for name, flat in competing.items()
+            name[len(schema.COMPETING_PREFIX) :]: kept(flat) for name, flat in competing.items()
         },
         _text_codes={
             k: (keys, codes, large_text(values)) for k, (values, codes) in text_codes.items()

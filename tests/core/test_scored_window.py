@@ -1,0 +1,171 @@
+"""Reading a file for scoring only: ``read_portfolio(..., scored_window=W)``.
+
+``triage rank`` reads the forecasts over the scoring window's columns alone
+(``portfolio.ColumnSpan``). Two things are checked here: the span indexes exactly as the whole
+matrix does inside its columns (numpy's own indexing of the full array is the reference) and
+refuses the others; and the scorecard of a file read that way is identical, every column, to
+the scorecard of the file read whole, on sorted, shuffled and unevenly grouped files, with and
+without prices and competing forecasts, ranked by error, bias and FVA. Files are invented (a
+garden-supply wholesaler).
+"""
+
+from __future__ import annotations
+
+from pathlib import Path
+from typing import Any
+
+import numpy as np
+import pandas as pd
+import pytest
+
+from tests.core.test_parquet_streamed import garden_rows, to_parquet
+from triage.core.portfolio import ColumnSpan
+from triage.core.ranking import scorecard
+from triage.core.read import read_portfolio
+
+N_SERIES, N_PERIODS, START, STOP = 7, 12, 4, 10
+
+
+@pytest.fixture
+def whole() -> np.ndarray:
+    values = np.random.default_rng(1).normal(size=(N_SERIES, N_PERIODS))
+    values[2, 5] = np.nan
+    return values
+
+
+@pytest.fixture
+def span(whole: np.ndarray) -> ColumnSpan:
+    return ColumnSpan(whole[:, START:STOP].copy(), START, N_PERIODS)
+
+
+ROWS = [slice(None), slice(1, 5), np.array([6, 0, 3]), np.arange(N_SERIES) % 2 == 0]
+INSIDE = [
+    slice(START, STOP),
+    slice(STOP - 3, STOP),
+    slice(-4, -2),  # counted from the end of the whole calendar, as numpy does
+    slice(START, STOP, 2),
+    slice(STOP - 1, START - 1, -1),
+    np.array([9, 4, 4, 7]),
+    np.array([-3]),
+    5,
+    slice(6, 6),  # empty
+]
+
+
+@pytest.mark.parametrize("cols", INSIDE, ids=repr)
+@pytest.mark.parametrize("rows", ROWS, ids=repr)
+def test_span_indexes_as_the_whole_matrix_inside_its_columns(
+    whole: np.ndarray, span: ColumnSpan, rows: Any, cols: Any
+) -> None:
+    # Reference: numpy's indexing of the full array, including its refusals (a row array and
+    # a column array of other lengths do not broadcast).
+    try:
+        expected = whole[rows, cols]
+    except IndexError:
+        with pytest.raises(IndexError):
+            span[rows, cols]
+    else:
+        np.testing.assert_array_equal(span[rows, cols], expected)
+    np.testing.assert_array_equal(span[rows][:, cols], whole[rows][:, cols])
+    assert span[rows].shape == whole[rows].shape
+
+
+@pytest.mark.parametrize(
+    "cols",
+    [slice(None), slice(0, STOP), slice(START, STOP + 1), np.array([START - 1]), 11, -1],
+    ids=repr,
+)
+def test_columns_never_read_are_refused(span: ColumnSpan, cols: Any) -> None:
+    with pytest.raises(IndexError, match="not loaded"):
+        span[:, cols]
+
+
+def test_span_never_turns_into_a_whole_array(span: ColumnSpan) -> None:
+    assert span.shape == (N_SERIES, N_PERIODS) and len(span) == N_SERIES
+    assert (span.start, span.stop) == (START, STOP)
+    with pytest.raises(TypeError, match=r"only columns 4\.\.9"):
+        np.asarray(span)
+    with pytest.raises(IndexError):
+        span[0]
+    with pytest.raises(ValueError, match="inside the calendar"):
+        ColumnSpan(np.zeros((2, 5)), 8, N_PERIODS)
+
+
+def with_competing(rows: pd.DataFrame, seed: int = 0) -> pd.DataFrame:
+    """Two competing forecasts with gaps: a statistical one and a customer's."""
+    rng = np.random.default_rng(seed)
+    stat = rows["forecast"] + rng.normal(0, 1.5, len(rows))
+    customer = rows["forecast"] * rng.uniform(0.6, 1.4, len(rows))
+    customer[rng.random(len(rows)) < 0.3] = np.nan
+    return rows.assign(forecast_stat=stat, forecast_customer=customer)
+
+
+LAYOUTS = {
+    "sorted": dict(shuffle=False, row_group_size=1000),
+    "groups across series": dict(shuffle=False, row_group_size=97),
+    "shuffled": dict(shuffle=True, row_group_size=31),
+}
+
+
+@pytest.mark.parametrize("priced", [True, False], ids=["priced", "units"])
+@pytest.mark.parametrize("layout", list(LAYOUTS))
+def test_scorecard_is_identical_to_the_whole_read(
+    tmp_path: Path, layout: str, priced: bool
+) -> None:
+    rows = with_competing(garden_rows(seed=9, weeks=30))
+    if not priced:
+        rows = rows.drop(columns="price")
+    if LAYOUTS[layout]["shuffle"]:
+        rows = rows.sample(frac=1.0, random_state=4).reset_index(drop=True)
+    path = to_parquet(
+        rows,
+        tmp_path / "g.parquet",
+        dictionary=True,
+        row_group_size=LAYOUTS[layout]["row_group_size"],
+    )
+    whole = read_portfolio(path)
+    for window in (4, 13, 52):  # 52: longer than the history, so every column is kept
+        scored = read_portfolio(path, scored_window=window)
+        assert isinstance(scored.forecast, ColumnSpan)
+        assert scored.forecast.stop == whole.last_actual + 1
+        assert all(isinstance(values, ColumnSpan) for values in scored.competing.values())
+        np.testing.assert_array_equal(scored.demand, whole.demand)
+        for by, steps in (
+            ("error", None),
+            ("bias", None),
+            ("fva", ("naive", "stat", "forecast")),
+            ("fva", ("customer", "forecast")),
+        ):
+            pd.testing.assert_frame_equal(
+                scorecard(scored, window, by=by, steps=steps),
+                scorecard(whole, window, by=by, steps=steps),
+            )
+
+
+def test_span_is_the_window_and_no_more(tmp_path: Path) -> None:
+    rows = garden_rows(seed=2, weeks=30, forward=6)
+    path = to_parquet(rows, tmp_path / "w.parquet", dictionary=False)
+    whole = read_portfolio(path)
+    scored = read_portfolio(path, scored_window=8)
+    # The window's columns are the latest 8 with any actual demand (every week has some here),
+    # up to the latest actual; the forward weeks are not read.
+    kept = scored.forecast
+    assert isinstance(kept, ColumnSpan)
+    assert (kept.start, kept.stop) == (whole.last_actual - 7, whole.last_actual + 1)
+    np.testing.assert_array_equal(
+        kept[:, kept.start : kept.stop],
+        whole.forecast[:, whole.last_actual - 7 : whole.last_actual + 1],
+    )
+    with pytest.raises(IndexError):
+        scored.forecast[:, whole.last_actual + 1]
+
+
+def test_a_file_the_streamed_way_declines_is_read_whole(tmp_path: Path) -> None:
+    # Several rows for one series and period go to the full loader, which ignores the window
+    # and gives its usual error; a file with several lags gives a whole matrix.
+    rows = garden_rows(seed=6, weeks=12)
+    two_lags = pd.concat([rows.assign(lag=1), rows.assign(lag=2)], ignore_index=True)
+    path = to_parquet(two_lags, tmp_path / "lags.parquet", dictionary=True)
+    scored = read_portfolio(path, scored_window=4, lag=1)
+    assert isinstance(scored.forecast, np.ndarray)
+    pd.testing.assert_frame_equal(scorecard(scored, 4), scorecard(read_portfolio(path, lag=1), 4))
