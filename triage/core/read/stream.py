@@ -131,9 +131,15 @@ class _Dictionary:
         if len(self.values) > np.iinfo(dtype).max:
             raise FastPathDeclined("too many distinct values")
         lut = np.fromiter((self.index[v] for v in local), dtype=dtype, count=len(local))
-        # Every index is in range (Arrow checked the dictionary); "clip" lets numpy write into
-        # ``out`` directly instead of through a buffer, as "raise" does.
-        codes = np.take(lut, indices.to_numpy(zero_copy_only=False), out=out, mode="clip")
+        local_codes = indices.to_numpy(zero_copy_only=False)
+        if len(lut) and int(lut[-1]) - int(lut[0]) == len(lut) - 1 and (np.diff(lut) == 1).all():
+            # The dictionary in the order of the global codes (ids first met in this block, a
+            # file sorted by key): one addition instead of a lookup per row.
+            codes: np.ndarray = np.add(local_codes, lut[0], out=out, dtype=dtype, casting="unsafe")
+        else:
+            # Every index is in range (Arrow checked the dictionary); "clip" lets numpy write
+            # into ``out`` directly instead of through a buffer, as "raise" does.
+            codes = np.take(lut, local_codes, out=out, mode="clip")
         if self.is_id and self.has_blank and np.asarray(self.blank)[codes].any():
             raise FastPathDeclined("blank id")
         return codes
@@ -467,20 +473,28 @@ class _RowCells:
             target = flat.reshape(-1, width)[lo:hi]
             np.copyto(target, part, where=~np.isnan(part))
             return
-        cells = self._cells(start)
         if not narrow:
-            flat[cells] = values
+            flat[self._cells(start)] = values
             return
-        series, column = np.divmod(cells, n_periods)
-        column -= span_start
-        inside = (column >= 0) & (column < width)
-        flat[series[inside] * width + column[inside]] = values[inside]
+        # In int32, as the cells are stored: numpy's int32 division is three times its int64's.
+        cells = self.cells[start]
+        series = cells // np.int32(n_periods)
+        column = cells - series * np.int32(n_periods)
+        column -= np.int32(span_start)
+        # One unsigned comparison keeps 0 <= column < width (a negative column wraps past it).
+        inside = np.flatnonzero(column.view(np.uint32) < width)
+        target = series[inside].astype(np.intp)
+        target *= width
+        target += column[inside]
+        flat[target] = values[inside]
 
     def series(self, start: int, positions: np.ndarray, n_periods: int) -> np.ndarray:
         """The series of the rows at ``positions`` in the block starting at row ``start``."""
         head = self.first.get(start)
-        cells = head + positions if head is not None else self._cells(start)[positions]
-        out: np.ndarray = cells // n_periods
+        if head is not None:
+            found: np.ndarray = (head + positions) // n_periods
+            return found
+        out: np.ndarray = self.cells[start][positions] // np.int32(n_periods)
         return out
 
     def rows_at(self, wanted: np.ndarray, n_periods: int) -> Callable[[int, int], np.ndarray]:
@@ -492,8 +506,8 @@ class _RowCells:
             if head is not None:
                 lo, hi = np.searchsorted(wanted, [head, head + size])
                 return wanted[lo:hi] - head
-            cells = self._cells(start)
-            return np.flatnonzero(cells == wanted[cells // n_periods])
+            cells = self.cells[start]
+            return np.flatnonzero(cells == wanted[cells // np.int32(n_periods)])
 
         return select
 
@@ -624,8 +638,10 @@ def build_streamed(
     # Attributes come from each series' latest row: its cell, found from the bitmap.
     latest_cell = None
     if source.attributes:
-        latest_cell = last_filled(filled.reshape(n_series, n_periods))
-        latest_cell += np.arange(n_series, dtype=np.int64) * n_periods
+        latest = last_filled(filled.reshape(n_series, n_periods))
+        latest += np.arange(n_series, dtype=np.int64) * n_periods
+        latest_cell = latest.astype(np.int32)  # as the cells are (fewer than 2**31 of them)
+        del latest
     del filled
     placed = _RowCells.of(cell, blocks)
     del cell
