@@ -213,7 +213,8 @@ def _write_crash_log(exc: BaseException, argv: list[str], extra: str = "") -> Pa
 
 
 def _cmd_rank(args: argparse.Namespace) -> int:
-    from triage.core.ranking import require_scorable, scorecard
+    from triage.core.metrics import window_columns
+    from triage.core.ranking import ranked, require_scorable, scorecard, series_measures
 
     # --cover is checked here; the configuration's target share does not apply to rank.
     settings = ScoreSettings.from_args(args)
@@ -238,12 +239,18 @@ def _cmd_rank(args: argparse.Namespace) -> int:
     steps = steps_of(args, portfolio, settings.season)
     if args.group is not None:
         return _rank_groups(args, settings, portfolio)
+    if args.format in FILE_FORMATS:
+        # Written from the scorecard alone: the dense arrays (most of the run's memory) are
+        # freed once every series is scored, before the ranked scorecard is built.
+        cols = window_columns(portfolio.demand, portfolio.last_actual, settings.window)
+        measures = series_measures(portfolio, cols, settings.season, steps)
+        del portfolio
+        card = ranked(measures, args.by, limit=_built(args))
+        del measures
+        return _show_rank(args, settings, None, card, steps)
     card = scorecard(
         portfolio, settings.window, settings.season, by=args.by, steps=steps, limit=_built(args)
     )
-    if args.format in FILE_FORMATS:
-        del portfolio
-        return _show_rank(args, settings, None, card, steps)
     return _show_rank(args, settings, portfolio, card, steps)
 
 

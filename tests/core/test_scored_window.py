@@ -169,3 +169,49 @@ def test_a_file_the_streamed_way_declines_is_read_whole(tmp_path: Path) -> None:
     scored = read_portfolio(path, scored_window=4, lag=1)
     assert isinstance(scored.forecast, np.ndarray)
     pd.testing.assert_frame_equal(scorecard(scored, 4), scorecard(read_portfolio(path, lag=1), 4))
+
+
+def test_row_cells_of_every_kind_place_values_as_fancy_indexing_does() -> None:
+    # Four kinds of row groups: adjacent cells (sorted, nothing missing), cells in order with
+    # gaps (sorted, periods missing), each series' periods in order but the series not in key
+    # order, any order (shuffled). Reference: numpy's own assignment ``flat[cells] = values``
+    # of the whole cell array, then the kept columns sliced out.
+    from triage.core.read.stream import _RowCells
+
+    n_series, n_periods, span_start, width = 70, 12, 5, 4
+    rng = np.random.default_rng(3)
+    adjacent = np.arange(0, 240, dtype=np.int32)  # series 0-19, whole
+    gaps = np.sort(rng.choice(np.arange(240, 480), 150, replace=False)).astype(np.int32)
+    series_order = (rng.permutation(20) + 40) * n_periods  # series 40-59, 3 periods missing
+    runs = np.concatenate(
+        [first + np.sort(rng.choice(12, 9, replace=False)) for first in series_order]
+    )
+    shuffled = rng.permutation(np.arange(720, 840)).astype(np.int32)
+    cell = np.concatenate([adjacent, gaps, runs.astype(np.int32), shuffled])
+    blocks = [(0, 240), (240, 150), (390, 180), (570, 120)]
+    placed = _RowCells.of(cell, blocks)
+    assert list(placed.first) == [0] and list(placed.steps) == [240, 390]
+    assert list(placed.cells) == [570]
+    # Steps backwards or past 255 cells (where a series starts) are kept in full.
+    jumps = np.diff(runs)
+    assert len(placed.steps[390][2]) == np.count_nonzero((jumps < 1) | (jumps > 255)) > 0
+    values = rng.normal(size=len(cell))
+
+    whole = np.full(n_series * n_periods, np.nan)
+    narrow = np.full(n_series * width, np.nan)
+    for start, size in blocks:
+        placed.scatter(whole, start, values[start : start + size])
+        placed.scatter(narrow, start, values[start : start + size], n_periods, span_start, width)
+    expected = np.full(n_series * n_periods, np.nan)
+    expected[cell] = values
+    np.testing.assert_array_equal(whole, expected)
+    grid = expected.reshape(n_series, n_periods)[:, span_start : span_start + width]
+    np.testing.assert_array_equal(narrow.reshape(n_series, width), grid)
+
+    # Each series' latest cell, found in every kind of block.
+    latest = np.full(n_series, -1, dtype=np.int32)
+    np.maximum.at(latest, cell // n_periods, cell)
+    present = latest >= 0
+    select = placed.rows_at(np.where(present, latest, 0).astype(np.int32), n_periods)
+    found = np.concatenate([start + select(start, size) for start, size in blocks])
+    np.testing.assert_array_equal(np.sort(cell[found]), np.sort(latest[present]))

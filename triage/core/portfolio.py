@@ -304,6 +304,43 @@ class ColumnSpan:
 
 
 @dataclass(frozen=True)
+class KeyText:
+    """A portfolio's key and attribute columns without its arrays
+    (``Portfolio.key_columns_text``)."""
+
+    keys: pd.DataFrame
+    _text_codes: dict[str, tuple[pd.DataFrame, np.ndarray, Any]]
+    """Shared with the portfolio: codes computed here are kept for it too."""
+
+    def column(self, name: str, order: np.ndarray) -> pd.api.extensions.ExtensionArray:
+        """Key or attribute column ``name`` of the series ``order``, as a ``str`` array.
+
+        Taken through integer codes into the column's distinct values (kept from the build, or
+        computed once): cheaper than moving a million strings.
+        """
+        import pyarrow as pa
+
+        codes, labels = self.codes(name)
+        taken = labels.take(pa.array(codes[order]))
+        return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+
+    def codes(self, name: str) -> tuple[np.ndarray, Any]:
+        """Key or attribute column ``name`` as (int32 code per series, Arrow ``large_string``
+        distinct values): kept from the build, or computed once."""
+        import pyarrow as pa
+
+        coded = self._text_codes.get(name)
+        if coded is None or coded[0] is not self.keys:
+            # Not coded yet, or coded for another keys frame (``dataclasses.replace``).
+            codes, uniques = pd.factorize(self.keys[name], use_na_sentinel=False)
+            labels = pa.array(
+                np.asarray(uniques, dtype=object), type=pa.large_string(), from_pandas=True
+            )
+            coded = self._text_codes[name] = (self.keys, codes.astype(np.int32), labels)
+        return coded[1], coded[2]
+
+
+@dataclass(frozen=True)
 class Portfolio:
     """A scored-ready portfolio: keys, attributes and dense arrays aligned on series and periods.
 
@@ -396,32 +433,19 @@ class Portfolio:
         characters shown as visible symbols)."""
         return " @ ".join(visible(str(self.keys.iloc[index][c])) for c in self.key_columns)
 
+    @property
+    def key_columns_text(self) -> KeyText:
+        """The key and attribute columns alone (sharing this portfolio's codes), for what
+        outlives the dense arrays: a scorecard's text columns."""
+        return KeyText(self.keys, self._text_codes)
+
     def text_column(self, name: str, order: np.ndarray) -> pd.api.extensions.ExtensionArray:
-        """Key or attribute column ``name`` of the series ``order``, as a ``str`` array.
-
-        Taken through integer codes into the column's distinct values (kept from the build, or
-        computed once): cheaper than moving a million strings.
-        """
-        import pyarrow as pa
-
-        codes, labels = self.text_codes(name)
-        taken = labels.take(pa.array(codes[order]))
-        return pd.array(taken, dtype=pd.StringDtype("pyarrow", na_value=np.nan))
+        """Key or attribute column ``name`` of the series ``order`` (:meth:`KeyText.column`)."""
+        return self.key_columns_text.column(name, order)
 
     def text_codes(self, name: str) -> tuple[np.ndarray, Any]:
-        """Key or attribute column ``name`` as (int32 code per series, Arrow ``large_string``
-        distinct values): kept from the build, or computed once."""
-        import pyarrow as pa
-
-        coded = self._text_codes.get(name)
-        if coded is None or coded[0] is not self.keys:
-            # Not coded yet, or coded for another keys frame (``dataclasses.replace``).
-            codes, uniques = pd.factorize(self.keys[name], use_na_sentinel=False)
-            labels = pa.array(
-                np.asarray(uniques, dtype=object), type=pa.large_string(), from_pandas=True
-            )
-            coded = self._text_codes[name] = (self.keys, codes.astype(np.int32), labels)
-        return coded[1], coded[2]
+        """Key or attribute column ``name`` as codes and labels (:meth:`KeyText.codes`)."""
+        return self.key_columns_text.codes(name)
 
 
 class SeriesIndex:

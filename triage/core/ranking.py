@@ -182,7 +182,7 @@ def series_measures(
         pattern=pattern.pattern,
         key_columns=portfolio.key_columns,
         attributes=portfolio.attributes,
-        text=portfolio.text_column,
+        text=portfolio.key_columns_text.column,
     )
 
 

@@ -406,39 +406,75 @@ class _RowCells:
     """Each row's cell (``series * n_periods + column``), block by block (row groups).
 
     A block whose rows fill adjacent cells in order (a file sorted by key and period, every
-    period present: the usual case) is kept as its first cell alone and placed by slices; the
-    other blocks keep one cell per row. On a sorted file this frees the 4 bytes per row of the
-    cell array (464 MB at a million series) and turns the scatters into copies.
+    period present: the usual case) is kept as its first cell alone and placed by slices. A
+    block whose rows mostly step forward by 1 to 255 cells (each series' periods in order, with
+    gaps; the series in any order) keeps one byte per row, that step, plus the other steps in
+    full. Other blocks keep one int32 cell per row. On a file sorted by series and period this
+    frees most of the 4 bytes per row of the cell array (464 MB at a million series).
     """
 
     first: dict[int, int]
     """Block start row -> the cell of its first row, for blocks of adjacent cells."""
+    steps: dict[int, tuple[int, np.ndarray, np.ndarray, np.ndarray]]
+    """Block start row -> (its first row's cell, uint8 step from each row's cell to the next,
+    and where a step does not fit a byte: its int32 positions and steps)."""
     cells: dict[int, np.ndarray]
     """Block start row -> each row's cell (int32), for the other blocks."""
-    _recent: tuple[int, np.ndarray] = (-1, np.empty(0, dtype=np.intp))
+    _recent: tuple[int, np.ndarray] = (-1, np.empty(0, dtype=np.int32))
+    """The last block's cells (int32), rebuilt from its steps or as kept."""
+    _recent_index: tuple[int, np.ndarray] = (-1, np.empty(0, dtype=np.intp))
     """The last block's cells as intp (numpy converts an int32 index on every use)."""
 
     @classmethod
     def of(cls, cell: np.ndarray, blocks: Sequence[tuple[int, int]]) -> _RowCells:
         """From the whole file's cell array and its blocks' (start row, rows)."""
         first: dict[int, int] = {}
+        steps: dict[int, tuple[int, np.ndarray, np.ndarray, np.ndarray]] = {}
+        others: list[tuple[int, int]] = []
         for start, size in blocks:
             block = cell[start : start + size]
-            if int(block[-1]) - int(block[0]) == size - 1 and (np.diff(block) == 1).all():
+            step = np.diff(block)
+            if int(block[-1]) - int(block[0]) == size - 1 and (step == 1).all():
                 first[start] = int(block[0])
-        others = [(start, size) for start, size in blocks if start not in first]
+                continue
+            wide = np.flatnonzero((step < 1) | (step > np.iinfo(np.uint8).max)).astype(np.int32)
+            if len(wide) * 16 <= size:
+                # A byte per row and 8 bytes per wide step: well under 4 bytes per row.
+                narrow = step.astype(np.uint8)
+                narrow[wide] = 0
+                steps[start] = (int(block[0]), narrow, wide, step[wide])
+            else:
+                others.append((start, size))
         # Copies only when they free the whole array, views (of the kept array) otherwise.
         copy = sum(size for _, size in others) * 2 < len(cell)
         cells = {
             start: cell[start : start + size].copy() if copy else cell[start : start + size]
             for start, size in others
         }
-        return cls(first, cells)
+        return cls(first, steps, cells)
+
+    def _cells32(self, start: int) -> np.ndarray:
+        """The cells of the block starting at row ``start`` (int32; not for ``first`` blocks)."""
+        if self._recent[0] != start:
+            stepped = self.steps.get(start)
+            if stepped is None:
+                self._recent = (start, self.cells[start])
+            else:
+                head, narrow, wide, wide_steps = stepped
+                step = narrow.astype(np.int32)
+                step[wide] = wide_steps
+                cells = np.empty(len(step) + 1, dtype=np.int32)
+                cells[0] = head
+                # The running sum stays in int32: it is a cell minus the first one.
+                np.cumsum(step, out=cells[1:])
+                cells[1:] += head
+                self._recent = (start, cells)
+        return self._recent[1]
 
     def _cells(self, start: int) -> np.ndarray:
-        if self._recent[0] != start:
-            self._recent = (start, self.cells[start].astype(np.intp))
-        return self._recent[1]
+        if self._recent_index[0] != start:
+            self._recent_index = (start, self._cells32(start).astype(np.intp))
+        return self._recent_index[1]
 
     def scatter(
         self,
@@ -477,7 +513,7 @@ class _RowCells:
             flat[self._cells(start)] = values
             return
         # In int32, as the cells are stored: numpy's int32 division is three times its int64's.
-        cells = self.cells[start]
+        cells = self._cells32(start)
         series = cells // np.int32(n_periods)
         column = cells - series * np.int32(n_periods)
         column -= np.int32(span_start)
@@ -494,7 +530,7 @@ class _RowCells:
         if head is not None:
             found: np.ndarray = (head + positions) // n_periods
             return found
-        out: np.ndarray = self.cells[start][positions] // np.int32(n_periods)
+        out: np.ndarray = self._cells32(start)[positions] // np.int32(n_periods)
         return out
 
     def rows_at(self, wanted: np.ndarray, n_periods: int) -> Callable[[int, int], np.ndarray]:
@@ -506,7 +542,7 @@ class _RowCells:
             if head is not None:
                 lo, hi = np.searchsorted(wanted, [head, head + size])
                 return wanted[lo:hi] - head
-            cells = self.cells[start]
+            cells = self._cells32(start)
             return np.flatnonzero(cells == wanted[cells // np.int32(n_periods)])
 
         return select
@@ -567,6 +603,7 @@ def build_streamed(
                     lag_first_day.get(value, first[value]), int(first[value])
                 )
     assert base is not None  # the file has rows
+    del into, chunk  # they hold the code arrays, which are freed as soon as they are used
 
     # Series numbers: every (item, location) pair in use, in key order. Only the pairs are
     # sorted; the rows pass twice (pair code, then cell) and are updated in place.
@@ -607,15 +644,6 @@ def build_streamed(
     n_periods = len(calendar.periods)
     if n_series * n_periods >= np.iinfo(np.int32).max or n_periods > small.max:
         raise FastPathDeclined("too many cells")
-    # The dense arrays are allocated and NaN-filled on a worker thread while this one numbers
-    # the cells: first touching a GB of memory is mostly kernel time, which the other core can
-    # take. Scoring only, the forecasts are allocated once the window is known (much smaller).
-    n_whole = 2 if scored_window is None else 1
-    allocating = concurrent.futures.ThreadPoolExecutor(max_workers=1)
-    dense_job = allocating.submit(
-        lambda: [np.full(n_series * n_periods, np.nan) for _ in range(n_whole)]
-    )
-    allocating.shutdown(wait=False)
     # Row -> cell in one pass through two lookup tables: pair -> first cell of its series,
     # day offset -> calendar column. The cells overwrite the pair codes.
     first_cell = np.zeros(len(item_text) * n_loc, dtype=np.int32)
@@ -632,7 +660,7 @@ def build_streamed(
         np.take(first_cell, block, out=block, mode="clip")
         block += column_of_day[offsets]
         filled[block] = True
-    del day, pair, first_cell, pairs
+    del day, pair, first_cell, pairs, block, offsets  # the views too: they hold whole arrays
     if np.count_nonzero(filled) != n_rows:
         raise FastPathDeclined("several rows for one series and period")
     # Attributes come from each series' latest row: its cell, found from the bitmap.
@@ -643,6 +671,16 @@ def build_streamed(
         latest_cell = latest.astype(np.int32)  # as the cells are (fewer than 2**31 of them)
         del latest
     del filled
+    # The dense arrays are allocated and NaN-filled on a worker thread while this one packs the
+    # cells: first touching a GB of memory is mostly kernel time, which the other core can
+    # take. Not earlier: the row arrays of the numbering would be held at the same time.
+    # Scoring only, the forecasts are allocated once the window is known (much smaller).
+    n_whole = 2 if scored_window is None else 1
+    allocating = concurrent.futures.ThreadPoolExecutor(max_workers=1)
+    dense_job = allocating.submit(
+        lambda: [np.full(n_series * n_periods, np.nan) for _ in range(n_whole)]
+    )
+    allocating.shutdown(wait=False)
     placed = _RowCells.of(cell, blocks)
     del cell
     select = placed.rows_at(latest_cell, n_periods) if latest_cell is not None else None
