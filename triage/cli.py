@@ -231,9 +231,8 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         )
     if args.engine == "dask":
         return _rank_dask(args, settings)
-    # Without --group only the window is scored: the forecasts are read over it alone.
-    scored = settings.window if args.group is None else None
-    portfolio = load_portfolio(args, dataset=True, scored_window=scored)
+    # Only the window is scored (series and groups alike): the forecasts are read over it alone.
+    portfolio = load_portfolio(args, dataset=True, scored_window=settings.window)
     _notices(portfolio.notices)
     require_scorable(portfolio, settings.window)
     steps = steps_of(args, portfolio, settings.season)

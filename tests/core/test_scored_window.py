@@ -215,3 +215,20 @@ def test_row_cells_of_every_kind_place_values_as_fancy_indexing_does() -> None:
     select = placed.rows_at(np.where(present, latest, 0).astype(np.int32), n_periods)
     found = np.concatenate([start + select(start, size) for start, size in blocks])
     np.testing.assert_array_equal(np.sort(cell[found]), np.sort(latest[present]))
+
+
+@pytest.mark.parametrize("by", ["error", "bias"])
+def test_group_scorecard_is_identical_to_the_whole_read(tmp_path: Path, by: str) -> None:
+    # ``triage rank --group`` reads the file for scoring only too.
+    from triage.core import groups, metrics
+
+    rows = garden_rows(seed=12, weeks=26).sample(frac=1.0, random_state=1)
+    path = to_parquet(rows, tmp_path / "grp.parquet", dictionary=True, row_group_size=53)
+    tables = []
+    for portfolio in (read_portfolio(path), read_portfolio(path, scored_window=13)):
+        card = scorecard(portfolio, 13)
+        cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, 13)
+        grouping = groups.grouping(portfolio, groups.parse_group_columns(portfolio, "family"))
+        tables.append(groups.group_scorecard(portfolio, card, cols, grouping, by=by))
+    assert len(tables[0]) > 1
+    pd.testing.assert_frame_equal(tables[1], tables[0])
