@@ -232,3 +232,27 @@ def test_group_scorecard_is_identical_to_the_whole_read(tmp_path: Path, by: str)
         tables.append(groups.group_scorecard(portfolio, card, cols, grouping, by=by))
     assert len(tables[0]) > 1
     pd.testing.assert_frame_equal(tables[1], tables[0])
+
+
+@pytest.mark.parametrize(
+    ("suffix", "forward", "n_items"),
+    [(".csv", 4, 30), (".parquet", 0, 30), (".csv", 0, 1), (".parquet", 3, 1)],
+    ids=["csv", "no forward weeks", "csv one item", "one item"],
+)
+def test_csv_single_series_and_no_forward_weeks(
+    tmp_path: Path, suffix: str, forward: int, n_items: int
+) -> None:
+    rows = with_competing(garden_rows(seed=21, n_items=n_items, weeks=18, forward=forward))
+    path = tmp_path / f"edge{suffix}"
+    if suffix == ".csv":
+        rows.to_csv(path, index=False)
+    else:
+        to_parquet(rows, path, dictionary=False, row_group_size=40)
+    whole = read_portfolio(path)
+    scored = read_portfolio(path, scored_window=6)
+    assert isinstance(scored.forecast, ColumnSpan)
+    assert scored.forecast.stop == whole.last_actual + 1
+    for by, steps in (("error", None), ("fva", ("naive", "stat", "forecast"))):
+        pd.testing.assert_frame_equal(
+            scorecard(scored, 6, by=by, steps=steps), scorecard(whole, 6, by=by, steps=steps)
+        )
