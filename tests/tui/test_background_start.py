@@ -234,3 +234,29 @@ async def test_the_complete_session_is_kept_out_of_full_collections(
         await wait_loaded(app, pilot)
         await wait_for(pilot, lambda: gc.get_freeze_count() > 0, "the heap frozen")
     assert gc.get_freeze_count() == 0
+
+
+async def test_background_messages_after_the_screens_are_gone_are_ignored(
+    scenario, gate, tmp_path: Path
+) -> None:
+    # Closing the app removes the main screen's widgets while the background worker may still
+    # post its steps, its result or a note about the reopen cache; they used to crash the app
+    # on its way out (NoMatches for the series list). The removal is done by hand here, so the
+    # messages certainly come after it.
+    ledger = tmp_path / "ledger.sqlite"
+    shutil.copy(scenario.ledger, ledger)
+    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_listed(app, pilot)
+        session = app.session
+        await app.query_one(SeriesList).remove()
+        app.post_message(BackgroundStep(session, 1, 3, "repeat offenders"))
+        app.post_message(BackgroundNote("The reopen cache was not written: disk full"))
+        gate.set()
+        done = UNGATED_BACKGROUND(session)
+        app.post_message(BackgroundDone(session, done))
+        app._show_detail(0)
+        await pilot.pause(0.2)
+        assert app.is_running
+        assert not session.ready  # the result was not applied to a closing screen
+    assert app.return_code in (None, 0)

@@ -575,15 +575,20 @@ class TriageApp(App[None]):
             # The cache only saves time: the next open reads the file, as this one did.
             self.post_message(BackgroundNote(f"The reopen cache was not written: {exc}"))
 
+    def _main_screen_live(self) -> bool:
+        """Whether the main screen's widgets are there to update: not before the first screen
+        and not while the app closes (a worker's last message can come after they are gone)."""
+        return bool(self.screen_stack) and bool(self.screen_stack[0].query(SeriesList))
+
     @on(BackgroundStep)
     def _background_step(self, message: BackgroundStep) -> None:
-        if message.session is self.session and self.screen_stack:
+        if message.session is self.session and self._main_screen_live():
             self._computing = f"{message.label} ({message.step + 1}/{message.total})"
             self._refresh_summary()
 
     @on(BackgroundNote)
     def _background_note(self, message: BackgroundNote) -> None:
-        if self.screen_stack:
+        if self._main_screen_live():
             self._status(message.text)
 
     def on_unmount(self) -> None:
@@ -594,7 +599,7 @@ class TriageApp(App[None]):
     @on(BackgroundDone)
     def _background_done(self, message: BackgroundDone) -> None:
         session = message.session
-        if session is not self.session or not self.screen_stack:
+        if session is not self.session or not self._main_screen_live():
             return  # another session's, or the app is closing
         session.finish(message.done)
         self._computing = ""
@@ -747,7 +752,7 @@ class TriageApp(App[None]):
 
     def _show_detail(self, series: int | None, *, body_later: bool = False) -> None:
         session = self.session
-        if session is None or not self.screen_stack:
+        if session is None or not self._main_screen_live():
             return  # not loaded yet, or closing (a last cursor message arrives after the screens)
         if self.in_groups:
             return  # the pane shows the highlighted group (a late save must not replace it)
@@ -778,7 +783,7 @@ class TriageApp(App[None]):
     def _detail_body_if_current(self, series: int) -> None:
         if (
             self.session is not None
-            and self.screen_stack
+            and self._main_screen_live()
             and not self.in_groups
             and self._q(SeriesList).current == series
         ):
@@ -828,7 +833,7 @@ class TriageApp(App[None]):
         session = self.session
         if (
             session is not None
-            and self.is_running
+            and self._main_screen_live()
             and not self.in_groups
             and self._q(SeriesList).current == series
         ):
