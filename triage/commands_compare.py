@@ -58,7 +58,8 @@ def cmd_compare(args: argparse.Namespace) -> int:
     settings = ScoreSettings.from_args(args)
     if args.output is not None:
         refuse_overwriting([args.output], args.portfolio, force=args.force)
-    portfolio = load_portfolio(args, dataset=True)
+    # Forecasts are compared over the window only: they are read over it alone.
+    portfolio = load_portfolio(args, dataset=True, scored_window=settings.window)
     for notice in portfolio.notices:
         note(notice)
     steps = steps_of(args, portfolio, settings.season)

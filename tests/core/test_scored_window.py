@@ -256,3 +256,62 @@ def test_csv_single_series_and_no_forward_weeks(
         pd.testing.assert_frame_equal(
             scorecard(scored, 6, by=by, steps=steps), scorecard(whole, 6, by=by, steps=steps)
         )
+
+
+@pytest.mark.parametrize("layout", list(LAYOUTS))
+def test_compare_is_identical_to_the_whole_read(tmp_path: Path, layout: str) -> None:
+    # ``triage compare`` reads the forecasts over its window only.
+    from triage.core.compare import compare
+    from triage.render import compare as render
+
+    rows = with_competing(garden_rows(seed=14, weeks=30))
+    if LAYOUTS[layout]["shuffle"]:
+        rows = rows.sample(frac=1.0, random_state=3).reset_index(drop=True)
+    size = LAYOUTS[layout]["row_group_size"]
+    path = to_parquet(rows, tmp_path / "c.parquet", dictionary=True, row_group_size=size)
+    whole, scored = read_portfolio(path), read_portfolio(path, scored_window=13)
+    for by_series in (False, True):
+        a = compare(whole, 13, 4, by_series=by_series)
+        b = compare(scored, 13, 4, by_series=by_series)
+        assert render.to_csv(b) == render.to_csv(a)
+        assert render.to_json(scored, b, 13) == render.to_json(whole, a, 13)
+        assert render.compare_table(scored, b, 13) == render.compare_table(whole, a, 13)
+
+
+@pytest.mark.parametrize(
+    ("where", "expected"),
+    [
+        ("forward", "has values only in the forward periods"),
+        ("nowhere", "is empty"),
+        ("before", "Try a longer --window"),
+    ],
+)
+@pytest.mark.parametrize("shuffle", [False, True], ids=["sorted", "shuffled"])
+def test_compare_hint_for_a_forecast_missing_in_the_window(
+    tmp_path: Path, where: str, expected: str, shuffle: bool
+) -> None:
+    # A competing forecast with no value in the window: the hint says whether it has values
+    # elsewhere, from the values the scoring-only read left out.
+    from triage.core.compare import compare
+    from triage.core.errors import TriageError
+
+    rows = garden_rows(seed=15, weeks=30, forward=4)
+    weeks = pd.to_datetime(rows["period"])
+    last_actual = weeks[rows["demand"].notna()].max()
+    window_start = last_actual - pd.Timedelta(weeks=12)
+    keep = {
+        "forward": weeks > last_actual,
+        "nowhere": pd.Series(False, index=rows.index),
+        "before": weeks < window_start,
+    }[where]
+    rows = rows.assign(forecast_late=rows["forecast"].where(keep))
+    if shuffle:
+        rows = rows.sample(frac=1.0, random_state=5).reset_index(drop=True)
+    path = to_parquet(rows, tmp_path / "h.parquet", dictionary=False, row_group_size=29)
+    messages = []
+    for portfolio in (read_portfolio(path), read_portfolio(path, scored_window=13)):
+        with pytest.raises(TriageError) as raised:
+            compare(portfolio, 13, 1)
+        messages.append((str(raised.value), raised.value.hint))
+    assert messages[1] == messages[0]
+    assert expected in (messages[0][1] or "")

@@ -33,7 +33,7 @@ import pandas as pd
 
 from triage.core import metrics, schema
 from triage.core.errors import TriageError
-from triage.core.portfolio import Portfolio
+from triage.core.portfolio import ColumnSpan, Portfolio
 from triage.core.settings import SEASON, WINDOW
 
 #: The file's own forecast.
@@ -271,10 +271,15 @@ def _no_history_hint(portfolio: Portfolio, name: str, first: int) -> str | None:
     """What to do about a competing forecast missing in every window cell with demand, when a
     longer window cannot help (it has no value before the window either); None when it can."""
     values = portfolio.competing[name]
-    if (~np.isnan(values[:, :first])).any():
+    if isinstance(values, ColumnSpan) and values.start == first:
+        # Read over the window only (``compare`` at scale): the reader noted what lay outside.
+        earlier, forward = values.values_before, values.values_after
+    else:
+        earlier = bool((~np.isnan(values[:, :first])).any())
+        forward = bool((~np.isnan(values[:, portfolio.last_actual + 1 :])).any())
+    if earlier:
         return None
     column = f"{schema.COMPETING_PREFIX}{name}"
-    forward = (~np.isnan(values[:, portfolio.last_actual + 1 :])).any()
     said = "has values only in the forward periods" if forward else "is empty"
     return (
         f"The column {column} {said}: fill in its values for the periods with actual demand, "

@@ -237,22 +237,35 @@ class ColumnSpan:
     give a value that was never read, and it never turns into a full array.
     """
 
-    __slots__ = ("_values", "shape", "start")
+    __slots__ = ("_values", "shape", "start", "values_after", "values_before")
 
     dtype = np.dtype(np.float64)
     ndim = 2
 
-    def __init__(self, values: np.ndarray, start: int, n_periods: int) -> None:
+    def __init__(
+        self,
+        values: np.ndarray,
+        start: int,
+        n_periods: int,
+        *,
+        values_before: bool = False,
+        values_after: bool = False,
+    ) -> None:
         """
         Args:
             values: The loaded columns, ``n_series x width``.
             start: The calendar column of ``values[:, 0]``.
             n_periods: Columns of the whole matrix.
+            values_before: Whether the file had any value (not missing) before ``start``, in
+                any series.
+            values_after: Whether it had any at or after :attr:`stop`.
         """
         if start < 0 or start + values.shape[1] > n_periods:
             raise ValueError("the span must lie inside the calendar")
         self._values = values
         self.start = start
+        self.values_before = values_before
+        self.values_after = values_after
         self.shape: tuple[int, int] = (int(values.shape[0]), n_periods)
 
     @property
@@ -273,6 +286,7 @@ class ColumnSpan:
         if not isinstance(key, tuple):
             if _is_int(key):
                 raise IndexError("a ColumnSpan row is only read with its columns: m[row, cols]")
+            # The two flags describe the whole matrix, not a choice of its rows.
             return ColumnSpan(self._values[key], self.start, self.shape[1])
         if len(key) != 2:
             raise IndexError(f"a ColumnSpan takes [rows] or [rows, cols], not {len(key)} keys")

@@ -484,18 +484,19 @@ class _RowCells:
         n_periods: int = 0,
         span_start: int = 0,
         width: int = 0,
-    ) -> None:
+    ) -> tuple[bool, bool]:
         """Place the values of the block starting at row ``start`` into ``flat``.
 
         ``flat`` is the series x period matrix, flattened; with ``width`` (and ``n_periods``)
         it holds only the columns ``span_start`` to ``span_start + width - 1`` of each series,
-        and the values of the other columns are left out.
+        and the values of the other columns are left out. Returns whether any value left out
+        was not NaN, (before the kept columns, after them).
         """
         narrow = bool(width) and width != n_periods
         head = self.first.get(start)
         if head is not None and not narrow:
             flat[head : head + len(values)] = values
-            return
+            return False, False
         if head is not None:
             # Lay the block out as whole series rows, then copy the kept columns. The rows at
             # its two ends are shared with the neighbouring blocks: only this block's cells
@@ -505,13 +506,17 @@ class _RowCells:
             layout = np.full((hi - lo) * n_periods, np.nan)
             offset = head - lo * n_periods
             layout[offset : offset + len(values)] = values
-            part = layout.reshape(hi - lo, n_periods)[:, span_start : span_start + width]
+            rows = layout.reshape(hi - lo, n_periods)
+            part = rows[:, span_start : span_start + width]
             target = flat.reshape(-1, width)[lo:hi]
             np.copyto(target, part, where=~np.isnan(part))
-            return
+            return (
+                bool((~np.isnan(rows[:, :span_start])).any()),
+                bool((~np.isnan(rows[:, span_start + width :])).any()),
+            )
         if not narrow:
             flat[self._cells(start)] = values
-            return
+            return False, False
         # In int32, as the cells are stored: numpy's int32 division is three times its int64's.
         cells = self._cells32(start)
         series = cells // np.int32(n_periods)
@@ -523,6 +528,8 @@ class _RowCells:
         target *= width
         target += column[inside]
         flat[target] = values[inside]
+        given = ~np.isnan(values)
+        return bool((given & (column < 0)).any()), bool((given & (column >= width)).any())
 
     def series(self, start: int, positions: np.ndarray, n_periods: int) -> np.ndarray:
         """The series of the rows at ``positions`` in the block starting at row ``start``."""
@@ -741,17 +748,25 @@ def build_streamed(
     del dense
     rivals = [name for name in source.columns if schema.competing_name(name) is not None]
     competing = {name: np.full(n_series * width, np.nan) for name in rivals}
+    # Whether each forecast has values before the kept columns and after them (ColumnSpan).
+    outside = {name: [False, False] for name in [schema.FORECAST, *rivals]}
     for chunk in source.chunks([schema.FORECAST, *rivals], last=True):
         for name, flat in ((schema.FORECAST, forecast), *competing.items()):
-            placed.scatter(flat, chunk.start, chunk.columns[name], n_periods, span_start, width)
+            before, after = placed.scatter(
+                flat, chunk.start, chunk.columns[name], n_periods, span_start, width
+            )
+            outside[name][0] |= before
+            outside[name][1] |= after
     del placed
 
-    def kept(flat: np.ndarray) -> np.ndarray:
+    def kept(flat: np.ndarray, name: str) -> np.ndarray:
         grid = flat.reshape(n_series, width)
         if scored_window is None:
             return grid
         # Reads like the whole matrix inside the kept columns (see ColumnSpan).
-        return cast(np.ndarray, ColumnSpan(grid, span_start, n_periods))
+        before, after = outside[name]
+        span = ColumnSpan(grid, span_start, n_periods, values_before=before, values_after=after)
+        return cast(np.ndarray, span)
 
     notices = list(source.notices)
     if missing_prices:
@@ -768,7 +783,7 @@ def build_streamed(
         attributes=source.attributes,
         calendar=calendar,
         demand=demand_grid,
-        forecast=kept(forecast),
+        forecast=kept(forecast, schema.FORECAST),
         price=price,
         last_actual=last_actual,
         lag=chosen,
@@ -776,7 +791,8 @@ def build_streamed(
         rows=n_rows,
         notices=tuple(notices),
         competing={
-            name[len(schema.COMPETING_PREFIX) :]: kept(flat) for name, flat in competing.items()
+            name[len(schema.COMPETING_PREFIX) :]: kept(flat, name)
+            for name, flat in competing.items()
         },
         _text_codes={
             k: (keys, codes, large_text(values)) for k, (values, codes) in text_codes.items()
