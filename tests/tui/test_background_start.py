@@ -50,14 +50,19 @@ def gate(monkeypatch: pytest.MonkeyPatch) -> threading.Event:
     opened.set()
 
 
+def latest_week(scenario, tmp_path: Path) -> TriageApp:
+    """The review screens on the scenario's last weekly file, with a copy of its ledger."""
+    ledger = tmp_path / "ledger.sqlite"
+    shutil.copy(scenario.ledger, ledger)
+    return TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+
+
 def summary(app: TriageApp) -> str:
     return str(app.query_one("#summary").render())
 
 
 async def test_list_first_then_columns_fill_in(scenario, gate, tmp_path: Path) -> None:
-    ledger = tmp_path / "ledger.sqlite"
-    shutil.copy(scenario.ledger, ledger)
-    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+    app = latest_week(scenario, tmp_path)
     async with app.run_test(size=(170, 48)) as pilot:
         await wait_listed(app, pilot)
         session = app.session
@@ -94,9 +99,7 @@ async def test_list_first_then_columns_fill_in(scenario, gate, tmp_path: Path) -
 
 
 async def test_keys_during_the_background_step(scenario, gate, tmp_path: Path) -> None:
-    ledger = tmp_path / "ledger.sqlite"
-    shutil.copy(scenario.ledger, ledger)
-    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+    app = latest_week(scenario, tmp_path)
     async with app.run_test(size=(170, 48)) as pilot:
         await wait_listed(app, pilot)
         session = app.session
@@ -134,9 +137,7 @@ async def test_keys_during_the_background_step(scenario, gate, tmp_path: Path) -
 async def test_a_decision_dialog_opened_early_shows_the_suggestion_when_ready(
     scenario, gate, tmp_path: Path
 ) -> None:
-    ledger = tmp_path / "ledger.sqlite"
-    shutil.copy(scenario.ledger, ledger)
-    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+    app = latest_week(scenario, tmp_path)
     async with app.run_test(size=(170, 48)) as pilot:
         await wait_listed(app, pilot)
         session = app.session
@@ -243,9 +244,7 @@ async def test_background_messages_after_the_screens_are_gone_are_ignored(
     # post its steps, its result or a note about the reopen cache; they used to crash the app
     # on its way out (NoMatches for the series list). The removal is done by hand here, so the
     # messages certainly come after it.
-    ledger = tmp_path / "ledger.sqlite"
-    shutil.copy(scenario.ledger, ledger)
-    app = TriageApp(Options(portfolio=scenario.files[-1], ledger=ledger, reviewer="ana"))
+    app = latest_week(scenario, tmp_path)
     async with app.run_test(size=(120, 40)) as pilot:
         await wait_listed(app, pilot)
         session = app.session
