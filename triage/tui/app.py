@@ -18,6 +18,7 @@ from textual import events, on, work
 from textual.app import App, ComposeResult, SystemCommand
 from textual.binding import Binding, BindingType
 from textual.containers import Container, Vertical
+from textual.css.query import NoMatches
 from textual.timer import Timer
 from textual.widgets import Footer, ProgressBar, Static
 from textual.worker import Worker, WorkerState
@@ -578,7 +579,14 @@ class TriageApp(App[None]):
     def _main_screen_live(self) -> bool:
         """Whether the main screen's widgets are there to update: not before the first screen
         and not while the app closes (a worker's last message can come after they are gone)."""
-        return bool(self.screen_stack) and bool(self.screen_stack[0].query(SeriesList))
+        if not self.screen_stack:
+            return False
+        try:
+            # query_one, not query: Textual caches its answer, and this runs on every cursor move.
+            self.screen_stack[0].query_one(SeriesList)
+        except NoMatches:
+            return False
+        return True
 
     @on(BackgroundStep)
     def _background_step(self, message: BackgroundStep) -> None:

@@ -75,10 +75,10 @@ def read_portfolio(
     several lags, duplicate rows, ...) the file is read the full way, which gives the same
     portfolio or the same error.
 
-    ``scored_window`` (``triage rank``): the portfolio is read to be scored over a window of
-    that many periods and nothing else; the streamed way then keeps the forecasts only over
-    that window (``portfolio.ColumnSpan``), which saves most of their memory. Any other use of
-    the forecasts raises ``IndexError``.
+    ``scored_window`` (``triage rank`` and ``compare``): the portfolio is read to be scored
+    over a window of that many periods and nothing else; the streamed way then keeps the
+    forecasts only over that window (``portfolio.ColumnSpan``), which saves most of their
+    memory. Any other use of the forecasts raises ``IndexError``.
     """
     scan = {".parquet": scan_parquet, ".pq": scan_parquet, ".csv": scan_csv}.get(
         Path(path).suffix.lower()

@@ -566,9 +566,9 @@ def build_streamed(
     else :class:`FastPathDeclined` sends the file to the full loader, which gives the same
     result or the same error.
 
-    With ``scored_window`` (``triage rank``), the forecasts are kept only from the first column
-    of that scoring window to the latest actual (:class:`ColumnSpan`), the only columns scoring
-    reads; the demand stays whole, as the history measures read all of it.
+    With ``scored_window`` (``triage rank`` and ``compare``), the forecasts are kept only from
+    the first column of that scoring window to the latest actual (:class:`ColumnSpan`), the
+    only columns scoring reads; the demand stays whole, as the history measures read all of it.
     """
     n_rows = source.n_rows
     has_location = schema.LOCATION in source.columns
