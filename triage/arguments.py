@@ -178,12 +178,14 @@ def load_portfolio(
     smallest_lag: bool = False,
     dataset: bool = False,
     scored_window: int | None = None,
+    season: int = SEASON.default,
 ) -> Portfolio:
     """The portfolio named on the command line, read with the options of ``portfolio_args``.
 
     With ``dataset``, a folder is read as a dataset of Parquet parts by the local engine
     (``triage.core.dataset.read_dataset``); otherwise a folder is refused by the loader.
-    ``scored_window``: read to be scored over that window only (``read_portfolio``).
+    ``scored_window``, ``season``: read to be scored over that window only, with a naive
+    baseline of that season (``read_portfolio``).
 
     Raises:
         TriageError: The file cannot be read or scored as it is (the loader's message).
@@ -198,7 +200,11 @@ def load_portfolio(
         del options["sheet"]
         return read_dataset(args.portfolio, smallest_lag=smallest_lag, **options)
     return read_portfolio(
-        args.portfolio, smallest_lag=smallest_lag, scored_window=scored_window, **options
+        args.portfolio,
+        smallest_lag=smallest_lag,
+        scored_window=scored_window,
+        season=season,
+        **options,
     )
 
 

@@ -232,7 +232,9 @@ def _cmd_rank(args: argparse.Namespace) -> int:
     if args.engine == "dask":
         return _rank_dask(args, settings)
     # Only the window is scored (series and groups alike): the forecasts are read over it alone.
-    portfolio = load_portfolio(args, dataset=True, scored_window=settings.window)
+    portfolio = load_portfolio(
+        args, dataset=True, scored_window=settings.window, season=settings.season
+    )
     _notices(portfolio.notices)
     require_scorable(portfolio, settings.window)
     steps = steps_of(args, portfolio, settings.season)

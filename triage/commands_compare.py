@@ -59,7 +59,9 @@ def cmd_compare(args: argparse.Namespace) -> int:
     if args.output is not None:
         refuse_overwriting([args.output], args.portfolio, force=args.force)
     # Forecasts are compared over the window only: they are read over it alone.
-    portfolio = load_portfolio(args, dataset=True, scored_window=settings.window)
+    portfolio = load_portfolio(
+        args, dataset=True, scored_window=settings.window, season=settings.season
+    )
     for notice in portfolio.notices:
         note(notice)
     steps = steps_of(args, portfolio, settings.season)

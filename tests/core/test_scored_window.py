@@ -19,7 +19,7 @@ import pandas as pd
 import pytest
 
 from tests.core.test_parquet_streamed import garden_rows, to_parquet
-from triage.core.portfolio import ColumnSpan
+from triage.core.portfolio import ColumnSpan, Portfolio
 from triage.core.ranking import scorecard
 from triage.core.read import read_portfolio
 
@@ -129,7 +129,7 @@ def test_scorecard_is_identical_to_the_whole_read(
         assert isinstance(scored.forecast, ColumnSpan)
         assert scored.forecast.stop == whole.last_actual + 1
         assert all(isinstance(values, ColumnSpan) for values in scored.competing.values())
-        np.testing.assert_array_equal(scored.demand, whole.demand)
+        assert_demand_span(scored, whole, season=1)
         for by, steps in (
             ("error", None),
             ("bias", None),
@@ -140,6 +140,100 @@ def test_scorecard_is_identical_to_the_whole_read(
                 scorecard(scored, window, by=by, steps=steps),
                 scorecard(whole, window, by=by, steps=steps),
             )
+
+
+def assert_demand_span(scored: Portfolio, whole: Portfolio, season: int) -> None:
+    """The scoring read's demand is the whole read's from ``season`` columns before the
+    window on, and its history measures are those of the whole history."""
+    demand = scored.demand
+    assert isinstance(demand, ColumnSpan)
+    start = max(int(scored.forecast.start) - season, 0)
+    assert (demand.start, demand.stop) == (start, whole.last_actual + 1)
+    np.testing.assert_array_equal(
+        demand[:, start : demand.stop], whole.demand[:, start : whole.last_actual + 1]
+    )
+    assert demand.values_before == bool(np.isfinite(whole.demand[:, :start]).any())
+    kept, reference = scored.history, whole.history_measures(season)
+    assert kept is not None and kept.season == season
+    np.testing.assert_array_equal(kept.scale, reference.scale)
+    for name in ("adi", "cv2", "pattern"):
+        np.testing.assert_array_equal(getattr(kept.pattern, name), getattr(reference.pattern, name))
+
+
+@pytest.mark.parametrize("season", [1, 4, 52])
+@pytest.mark.parametrize("exact", [True, False], ids=["float32-exact", "decimal"])
+@pytest.mark.parametrize("layout", list(LAYOUTS))
+def test_demand_is_kept_from_the_naive_baseline_on(
+    tmp_path: Path, layout: str, exact: bool, season: int
+) -> None:
+    # The demand is held as float32 while reading when every value fits exactly, and in
+    # float64 as soon as one does not: here a tenth of a unit turns up in a late row group.
+    rows = with_competing(garden_rows(seed=19, weeks=30))
+    if not exact:
+        late = rows.index[-len(rows) // 5 :]
+        rows.loc[late, "demand"] = rows.loc[late, "demand"] + 0.1
+    if LAYOUTS[layout]["shuffle"]:
+        rows = rows.sample(frac=1.0, random_state=6).reset_index(drop=True)
+    size = LAYOUTS[layout]["row_group_size"]
+    path = to_parquet(rows, tmp_path / "d.parquet", dictionary=True, row_group_size=size)
+    whole = read_portfolio(path)
+    scored = read_portfolio(path, scored_window=8, season=season)
+    assert_demand_span(scored, whole, season)
+    for by in ("error", "bias", "fva"):
+        pd.testing.assert_frame_equal(
+            scorecard(scored, 8, season, by=by), scorecard(whole, 8, season, by=by)
+        )
+    # Another season than the one read for needs demand that was not kept (unless the span
+    # holds the whole history, as with a season longer than it).
+    if scored.demand.start > 0:
+        with pytest.raises(IndexError, match="not loaded"):
+            scorecard(scored, 8, season + 1)
+    else:
+        pd.testing.assert_frame_equal(scorecard(scored, 8, 53), scorecard(whole, 8, 53))
+
+
+def test_window_columns_of_a_demand_span(tmp_path: Path) -> None:
+    from triage.core import metrics
+
+    rows = garden_rows(seed=23, weeks=30)
+    path = to_parquet(rows, tmp_path / "s.parquet", dictionary=False)
+    whole, scored = read_portfolio(path), read_portfolio(path, scored_window=10, season=3)
+    last = whole.last_actual
+    # Any window the span holds (the 10 read for, and the 3 columns of the baseline before
+    # them) is the whole matrix's; a longer one reaches into columns never read.
+    for window in (1, 10, 13):
+        np.testing.assert_array_equal(
+            metrics.window_columns(scored.demand, last, window),
+            metrics.window_columns(whole.demand, last, window),
+        )
+        np.testing.assert_array_equal(
+            metrics.window_columns(scored.demand[np.arange(5)], last, window),
+            metrics.window_columns(whole.demand[np.arange(5)], last, window),
+        )
+    with pytest.raises(IndexError, match="reaches before column"):
+        metrics.window_columns(scored.demand, last, 14)
+
+
+@pytest.mark.parametrize(
+    ("values", "fits"),
+    [
+        ([0.0, -0.0, 3.0, -7.0, 0.5, 2.0**24, np.nan, 1e30 * 0.0], True),
+        ([1.0, 0.1], False),  # 0.1 has no exact float32
+        ([2.0**24 + 1], False),  # past float32's 24-bit significand
+        ([1e39], False),  # past float32's range
+        ([np.inf, -np.inf, 2.0**-149], True),  # infinities and float32's least subnormal
+    ],
+)
+def test_float32_only_when_every_value_comes_back_the_same(values: list[float], fits: bool) -> None:
+    # Reference: IEEE 754 binary32 (24-bit significand, largest finite about 3.4e38).
+    from triage.core.read.stream import _float32_if_exact
+
+    array = np.array(values, dtype=np.float64)
+    narrowed = _float32_if_exact(array)
+    assert (narrowed is not None) == fits
+    if narrowed is not None:
+        assert narrowed.dtype == np.float32
+        np.testing.assert_array_equal(narrowed.astype(np.float64), array)
 
 
 def test_span_is_the_window_and_no_more(tmp_path: Path) -> None:
@@ -269,7 +363,7 @@ def test_compare_is_identical_to_the_whole_read(tmp_path: Path, layout: str) -> 
         rows = rows.sample(frac=1.0, random_state=3).reset_index(drop=True)
     size = LAYOUTS[layout]["row_group_size"]
     path = to_parquet(rows, tmp_path / "c.parquet", dictionary=True, row_group_size=size)
-    whole, scored = read_portfolio(path), read_portfolio(path, scored_window=13)
+    whole, scored = read_portfolio(path), read_portfolio(path, scored_window=13, season=4)
     for by_series in (False, True):
         a = compare(whole, 13, 4, by_series=by_series)
         b = compare(scored, 13, 4, by_series=by_series)

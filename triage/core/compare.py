@@ -247,8 +247,7 @@ def compare(
             f"{sums.window_cells:,} cells with demand.",
             hint=hint,
         )
-    history = portfolio.demand[:, : portfolio.last_actual + 1]
-    scale = metrics.naive_scale(history, season)
+    scale = portfolio.naive_scale(season)
     series = _series_measures(sums, names, scale, chain)
     table = _portfolio_table(portfolio, sums, series, names, chain, lags)
     return Comparison(

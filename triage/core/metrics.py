@@ -21,6 +21,7 @@ from functools import lru_cache
 
 import numpy as np
 
+from triage.core.portfolio import ColumnSpan
 from triage.core.settings import SEASON
 
 #: Sign-test significance below which a series' bias counts as persistent.
@@ -130,16 +131,32 @@ class WindowMeasures:
 
 
 def window_columns(demand: np.ndarray, last_actual: int, window: int) -> np.ndarray:
-    """The ``window`` latest calendar columns up to ``last_actual`` that hold any actual demand."""
+    """The ``window`` latest calendar columns up to ``last_actual`` that hold any actual demand.
+
+    A demand read for scoring only (a :class:`~triage.core.portfolio.ColumnSpan` ending at the
+    latest actual) is searched over its columns: the latest columns with actuals of the whole
+    matrix are those of any span that ends at ``last_actual`` and holds enough of them.
+
+    Raises:
+        IndexError: The span holds fewer than ``window`` such columns and the file had actual
+            demand before it: the window reaches into columns that were not read.
+    """
     if window < 1:
         raise ValueError("window must be at least 1")
-    history = demand[:, : last_actual + 1]
+    start = demand.start if isinstance(demand, ColumnSpan) else 0
+    history = demand[:, start : last_actual + 1]
     has_actual = np.zeros(history.shape[1], dtype=bool)
     for rows in _row_blocks(*history.shape):
         has_actual |= ~np.isnan(history[rows]).all(axis=0)
         if has_actual.all():
             break
-    return np.flatnonzero(has_actual)[-window:]
+    found = np.flatnonzero(has_actual)[-window:] + start
+    if len(found) < window and isinstance(demand, ColumnSpan) and demand.values_before:
+        raise IndexError(
+            f"a window of {window} periods reaches before column {start}, the first one read "
+            "(the file was read for scoring a shorter window)"
+        )
+    return found
 
 
 def window_measures(
@@ -368,13 +385,26 @@ def demand_pattern(demand: np.ndarray) -> DemandPattern:
     return pattern
 
 
-def history_measures(
-    demand: np.ndarray, season: int = SEASON.default
-) -> tuple[np.ndarray, DemandPattern]:
-    """:func:`naive_scale` and :func:`demand_pattern` of the same history, in one pass over it."""
+@dataclass(frozen=True)
+class HistoryMeasures:
+    """The measures of every series' whole actual history, for one season of the naive scale."""
+
+    season: int
+    """Season m of the naive scale."""
+    scale: np.ndarray
+    """:func:`naive_scale`: MASE's denominator."""
+    pattern: DemandPattern
+    """:func:`demand_pattern`."""
+
+
+def history_measures(demand: np.ndarray, season: int = SEASON.default) -> HistoryMeasures:
+    """:func:`naive_scale` and :func:`demand_pattern` of the same history, in one pass over it.
+
+    ``demand`` is the history (columns up to the latest actual); float32 is read as float64.
+    """
     scale, pattern = _scan_history(demand, season, scale=True, pattern=True)
     assert scale is not None and pattern is not None
-    return scale, pattern
+    return HistoryMeasures(season, scale, pattern)
 
 
 def _scan_history(
@@ -393,8 +423,9 @@ def _scan_history(
     cv2 = np.empty(n) if pattern else None
     for rows in _row_blocks(n, width, HISTORY_CELLS):
         # One contiguous copy: elementwise passes over a strided view (the history columns of
-        # the full calendar) run two to three times slower.
-        block = np.ascontiguousarray(demand[rows])
+        # the full calendar) run two to three times slower. A float32 demand (a scoring read
+        # holds it so while every value fits exactly) is measured in float64 all the same.
+        block = np.ascontiguousarray(demand[rows], dtype=np.float64)
         if out_scale is not None:
             # Hyndman & Koehler (2006): in-sample MAE of the (seasonal) naive forecast.
             diff = np.subtract(block[:, season:], block[:, :-season])

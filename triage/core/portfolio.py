@@ -41,6 +41,8 @@ from triage.core.text import visible
 if TYPE_CHECKING:
     from collections.abc import Sequence
 
+    from triage.core.metrics import HistoryMeasures
+
 
 #: How many example rows an error message shows.
 EXAMPLES = 5
@@ -257,7 +259,7 @@ class ColumnSpan:
             start: The calendar column of ``values[:, 0]``.
             n_periods: Columns of the whole matrix.
             values_before: Whether the file had any value (not missing) before ``start``, in
-                any series.
+                any series (of the whole matrix, also on a choice of its rows).
             values_after: Whether it had any at or after :attr:`stop`.
         """
         if start < 0 or start + values.shape[1] > n_periods:
@@ -286,8 +288,15 @@ class ColumnSpan:
         if not isinstance(key, tuple):
             if _is_int(key):
                 raise IndexError("a ColumnSpan row is only read with its columns: m[row, cols]")
-            # The two flags describe the whole matrix, not a choice of its rows.
-            return ColumnSpan(self._values[key], self.start, self.shape[1])
+            # The two flags describe the whole matrix: a choice of its rows keeps them, as
+            # "may have had values there" (:func:`metrics.window_columns` relies on it).
+            return ColumnSpan(
+                self._values[key],
+                self.start,
+                self.shape[1],
+                values_before=self.values_before,
+                values_after=self.values_after,
+            )
         if len(key) != 2:
             raise IndexError(f"a ColumnSpan takes [rows] or [rows, cols], not {len(key)} keys")
         rows, cols = key
@@ -373,7 +382,11 @@ class Portfolio:
     calendar: Calendar
     """The periods the columns of the arrays stand for."""
     demand: np.ndarray
-    """Actual demand, series x periods, float64, NaN where missing (and in forward periods)."""
+    """Actual demand, series x periods, float64, NaN where missing (and in forward periods).
+
+    Read for scoring only with a season (``read_portfolio(..., scored_window=W, season=m)``),
+    it is a :class:`ColumnSpan` from ``m`` columns before the window to the latest actual, and
+    the measures of the whole history are in :attr:`history`."""
     forecast: np.ndarray
     """Forecast at the chosen lag for history periods, the forward forecast after them.
 
@@ -404,6 +417,27 @@ class Portfolio:
         default_factory=dict, repr=False, compare=False
     )
     """Key and attribute columns as (the keys frame they code, int32 codes, Arrow labels)."""
+    history: HistoryMeasures | None = field(default=None, repr=False, compare=False)
+    """The whole history's measures, taken while reading, when the demand was kept over the
+    scored columns only (:attr:`demand`); None otherwise."""
+
+    def history_measures(self, season: int) -> HistoryMeasures:
+        """Naive scale (season ``season``) and demand pattern of every series' whole history:
+        those taken while reading when they are of that season, else computed from
+        :attr:`demand` (which raises ``IndexError`` on a demand read for scoring only)."""
+        from triage.core import metrics
+
+        if self.history is not None and self.history.season == season:
+            return self.history
+        return metrics.history_measures(self.demand[:, : self.last_actual + 1], season)
+
+    def naive_scale(self, season: int) -> np.ndarray:
+        """The naive scale of :meth:`history_measures` alone (MASE's denominator)."""
+        from triage.core import metrics
+
+        if self.history is not None and self.history.season == season:
+            return self.history.scale
+        return metrics.naive_scale(self.demand[:, : self.last_actual + 1], season)
 
     @property
     def n_series(self) -> int:

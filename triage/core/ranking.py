@@ -136,11 +136,10 @@ def series_measures(
         raise ValueError("season must be at least 1")
     # The window is nearly always a run of adjacent columns: slice it (views, no copies).
     picked = as_slice(cols)
-    history = portfolio.demand[:, : portfolio.last_actual + 1]
-    # The history scans run on a worker thread while this one does the window measures (numpy
-    # releases the GIL in its loops).
+    # The history scans (unless the read took them) run on a worker thread while this one
+    # does the window measures (numpy releases the GIL in its loops).
     with concurrent.futures.ThreadPoolExecutor(max_workers=2) as pool:
-        history_job = pool.submit(metrics.history_measures, history, season)
+        history_job = pool.submit(portfolio.history_measures, season)
         fva_job = pool.submit(
             metrics.naive_value_added, portfolio.demand, portfolio.forecast, cols, season
         )
@@ -171,8 +170,9 @@ def series_measures(
         )
         flag = wm.bias_flag
         step = step_job.result()
-        (scale, pattern), fva = history_job.result(), fva_job.result()
-    numbers.update(mase=metrics._ratio(mae, scale), fva=fva, fva_loss=step.loss)
+        history, fva = history_job.result(), fva_job.result()
+    pattern = history.pattern
+    numbers.update(mase=metrics._ratio(mae, history.scale), fva=fva, fva_loss=step.loss)
     if step.loss_value is not None:
         numbers["fva_loss_value"] = step.loss_value
     numbers.update(adi=pattern.adi, cv2=pattern.cv2)

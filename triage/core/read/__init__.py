@@ -31,6 +31,7 @@ from triage.core.read.memory import BYTES_PER_ROW
 from triage.core.read.parquet import scan_parquet
 from triage.core.read.stream import FastPathDeclined, StreamSource, build_streamed
 from triage.core.read.workbook import XLSX_MAX_CELLS, XLSX_MAX_COLUMNS, XLSX_MAX_ROWS, xlsx_rows
+from triage.core.settings import SEASON
 
 __all__ = [
     "BYTES_PER_ROW",
@@ -63,6 +64,7 @@ def read_portfolio(
     smallest_lag: bool = False,
     options: FileOptions | None = None,
     scored_window: int | None = None,
+    season: int = SEASON.default,
 ) -> Portfolio:
     """Load a portfolio file and build its arrays (see :func:`load_frame` and ``build_portfolio``).
 
@@ -76,9 +78,11 @@ def read_portfolio(
     portfolio or the same error.
 
     ``scored_window`` (``triage rank`` and ``compare``): the portfolio is read to be scored
-    over a window of that many periods and nothing else; the streamed way then keeps the
-    forecasts only over that window (``portfolio.ColumnSpan``), which saves most of their
-    memory. Any other use of the forecasts raises ``IndexError``.
+    over a window of that many periods, with a naive baseline of season ``season``, and nothing
+    else. The streamed way then keeps the forecasts only over that window and the demand only
+    from ``season`` periods before it (``portfolio.ColumnSpan``), and takes the measures of the
+    whole history while reading (``Portfolio.history``): most of the arrays' memory is never
+    held. Any other use of those arrays raises ``IndexError``.
     """
     scan = {".parquet": scan_parquet, ".pq": scan_parquet, ".csv": scan_csv}.get(
         Path(path).suffix.lower()
@@ -87,7 +91,7 @@ def read_portfolio(
     if sheet is None and scan is not None:
         try:
             streamed = build_streamed(
-                scan(path, columns=columns, options=options), lag, scored_window
+                scan(path, columns=columns, options=options), lag, scored_window, season
             )
         except FastPathDeclined:
             pass

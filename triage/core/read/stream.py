@@ -30,7 +30,7 @@ import pandas as pd
 
 from triage.core import schema
 from triage.core.ledger import TEXT_MAX
-from triage.core.metrics import window_columns
+from triage.core.metrics import history_measures, window_columns
 from triage.core.portfolio import (
     BLOCK_ROWS,
     ColumnSpan,
@@ -58,6 +58,7 @@ from triage.core.read.cells import (
     lookalike_keys,
     parse_periods,
 )
+from triage.core.settings import SEASON
 
 
 def float_values(array: Any) -> np.ndarray:
@@ -556,7 +557,10 @@ class _RowCells:
 
 
 def build_streamed(
-    source: StreamSource, lag: int | None, scored_window: int | None = None
+    source: StreamSource,
+    lag: int | None,
+    scored_window: int | None = None,
+    season: int = SEASON.default,
 ) -> Portfolio:
     """Build from a Parquet or CSV file in passes over its blocks, without the long frame.
 
@@ -567,8 +571,11 @@ def build_streamed(
     result or the same error.
 
     With ``scored_window`` (``triage rank`` and ``compare``), the forecasts are kept only from
-    the first column of that scoring window to the latest actual (:class:`ColumnSpan`), the
-    only columns scoring reads; the demand stays whole, as the history measures read all of it.
+    the first column of that scoring window to the latest actual, and the demand from
+    ``season`` columns before it (:class:`ColumnSpan`): the only columns scoring reads, with
+    the naive baselines of lag 1 and ``season``. The history measures, which read every
+    period's demand, are taken on a worker thread during the forecast pass
+    (``Portfolio.history``), from a demand held as float32 while every value fits exactly.
     """
     n_rows = source.n_rows
     has_location = schema.LOCATION in source.columns
@@ -682,10 +689,14 @@ def build_streamed(
     # cells: first touching a GB of memory is mostly kernel time, which the other core can
     # take. Not earlier: the row arrays of the numbering would be held at the same time.
     # Scoring only, the forecasts are allocated once the window is known (much smaller).
+    # Scoring only, the demand is held as float32 while every value fits exactly (half the
+    # memory); the prices, when there are any, take float64 memory first.
     n_whole = 2 if scored_window is None else 1
+    held = np.dtype(np.float32 if scored_window is not None else np.float64)
+    allocated = np.dtype(np.float64) if has_price else held
     allocating = concurrent.futures.ThreadPoolExecutor(max_workers=1)
     dense_job = allocating.submit(
-        lambda: [np.full(n_series * n_periods, np.nan) for _ in range(n_whole)]
+        lambda: [np.full(n_series * n_periods, np.nan, dtype=allocated) for _ in range(n_whole)]
     )
     allocating.shutdown(wait=False)
     placed = _RowCells.of(cell, blocks)
@@ -696,7 +707,7 @@ def build_streamed(
     # until it is compressed (most series have one price throughout).
     dense = dense_job.result()
     del dense_job
-    demand = dense[0]
+    demand = dense.pop(0)
     price = None
     missing_prices = 0
     if has_price:
@@ -709,12 +720,23 @@ def build_streamed(
             raise FastPathDeclined("series without a price")
         price = UnitPrices.from_dense(prices)
         del prices
-        demand.fill(np.nan)
+        if demand.dtype == held:
+            demand.fill(np.nan)
+        else:  # the prices' float64 memory goes before the float32 demand's is taken
+            del demand
+            demand = np.full(n_series * n_periods, np.nan, dtype=held)
 
     # Pass 3: demand and attributes.
     attribute_codes = {name: np.full(n_series, -1, dtype=np.int32) for name in source.attributes}
     for chunk in source.chunks([schema.DEMAND], sparse=source.attributes, select=select, last=True):
-        placed.scatter(demand, chunk.start, chunk.columns[schema.DEMAND])
+        values = chunk.columns[schema.DEMAND]
+        if demand.dtype == np.float32:
+            exact = _float32_if_exact(values)
+            if exact is None:
+                demand = demand.astype(np.float64)  # every value placed so far was exact
+            else:
+                values = exact
+        placed.scatter(demand, chunk.start, values)
         if chunk.selected is not None:
             owners = placed.series(chunk.start, chunk.selected, n_periods)
             for name, codes in attribute_codes.items():
@@ -740,11 +762,16 @@ def build_streamed(
         chosen = lags[0]
 
     # Pass 4: the forecast and competing forecasts (forecast_<name>), over the columns kept.
+    # Scoring only, the history measures are taken meanwhile on a worker thread.
     span_start = 0
+    history_job = None
     if scored_window is not None:
         span_start = int(window_columns(demand_grid, last_actual, scored_window)[0])
+        measuring = concurrent.futures.ThreadPoolExecutor(max_workers=1)
+        history_job = measuring.submit(history_measures, demand_grid[:, : last_actual + 1], season)
+        measuring.shutdown(wait=False)
     width = n_periods if scored_window is None else last_actual + 1 - span_start
-    forecast = dense[1] if scored_window is None else np.full(n_series * width, np.nan)
+    forecast = dense.pop() if scored_window is None else np.full(n_series * width, np.nan)
     del dense
     rivals = [name for name in source.columns if schema.competing_name(name) is not None]
     competing = {name: np.full(n_series * width, np.nan) for name in rivals}
@@ -758,6 +785,22 @@ def build_streamed(
             outside[name][0] |= before
             outside[name][1] |= after
     del placed
+    history = None
+    if history_job is not None:
+        history = history_job.result()
+        del history_job
+        # The demand from `season` columns before the window (its naive baselines) on.
+        keep_from = max(span_start - season, 0)
+        demand_grid = cast(
+            np.ndarray,
+            ColumnSpan(
+                demand_grid[:, keep_from : last_actual + 1].astype(np.float64),
+                keep_from,
+                n_periods,
+                values_before=_any_value(demand_grid, keep_from),
+            ),
+        )
+        del demand
 
     def kept(flat: np.ndarray, name: str) -> np.ndarray:
         grid = flat.reshape(n_series, width)
@@ -797,4 +840,27 @@ def build_streamed(
         _text_codes={
             k: (keys, codes, large_text(values)) for k, (values, codes) in text_codes.items()
         },
+        history=history,
     )
+
+
+def _float32_if_exact(values: np.ndarray) -> np.ndarray | None:
+    """``values`` (float64) as float32 when every one converts back to the same bits, else None.
+
+    A sufficient test: a NaN whose payload float32 cannot keep says None, which only costs the
+    narrowing, never a changed value.
+    """
+    with np.errstate(over="ignore"):  # out of float32's range: infinity, which comes back wrong
+        narrow = values.astype(np.float32)
+    back = narrow.astype(np.float64)
+    return narrow if np.array_equal(back.view(np.int64), values.view(np.int64)) else None
+
+
+def _any_value(grid: np.ndarray, stop: int) -> bool:
+    """Whether any cell of ``grid``'s columns before ``stop`` holds a value (not NaN)."""
+    if stop == 0:
+        return False
+    for lo in range(0, grid.shape[0], BLOCK_ROWS):
+        if not np.isnan(grid[lo : lo + BLOCK_ROWS, :stop]).all():
+            return True
+    return False
