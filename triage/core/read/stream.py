@@ -685,11 +685,14 @@ def build_streamed(
         latest_cell = latest.astype(np.int32)  # as the cells are (fewer than 2**31 of them)
         del latest
     del filled
-    # The dense arrays are allocated and NaN-filled on a worker thread while this one packs the
-    # cells: first touching a GB of memory is mostly kernel time, which the other core can
-    # take. Not earlier: the row arrays of the numbering would be held at the same time.
-    # Scoring only, the forecasts are allocated once the window is known (much smaller).
-    # Scoring only, the demand is held as float32 while every value fits exactly (half the
+    placed = _RowCells.of(cell, blocks)
+    del cell
+    select = placed.rows_at(latest_cell, n_periods) if latest_cell is not None else None
+    # The dense arrays are allocated and NaN-filled on a worker thread while this one reads the
+    # next pass's first row groups: first touching a GB of memory is mostly kernel time, which
+    # the other core can take. Not while the cells are packed: the row arrays would be held at
+    # the same time. Scoring only, the forecasts are allocated once the window is known (much
+    # smaller), and the demand is held as float32 while every value fits exactly (half the
     # memory); the prices, when there are any, take float64 memory first.
     n_whole = 2 if scored_window is None else 1
     held = np.dtype(np.float32 if scored_window is not None else np.float64)
@@ -699,19 +702,24 @@ def build_streamed(
         lambda: [np.full(n_series * n_periods, np.nan, dtype=allocated) for _ in range(n_whole)]
     )
     allocating.shutdown(wait=False)
-    placed = _RowCells.of(cell, blocks)
-    del cell
-    select = placed.rows_at(latest_cell, n_periods) if latest_cell is not None else None
+    dense: list[np.ndarray] = []
+    demand = np.empty(0, dtype=allocated)
+
+    def take_dense(chunks: Iterator[_Chunk]) -> Iterator[_Chunk]:
+        """``chunks``, the first few read while the dense arrays are made, then awaited."""
+        nonlocal dense, demand
+        early = list(_read_while(dense_job, chunks))
+        dense = dense_job.result()
+        demand = dense.pop(0)
+        yield from early
+        yield from chunks
 
     # Pass 2: prices first, into the demand matrix's memory: the dense price matrix lives only
     # until it is compressed (most series have one price throughout).
-    dense = dense_job.result()
-    del dense_job
-    demand = dense.pop(0)
     price = None
     missing_prices = 0
     if has_price:
-        for chunk in source.chunks([schema.PRICE], last=True):
+        for chunk in take_dense(source.chunks([schema.PRICE], last=True)):
             values = chunk.columns[schema.PRICE]
             placed.scatter(demand, chunk.start, values)
             missing_prices += int(np.count_nonzero(np.isnan(values)))
@@ -723,12 +731,15 @@ def build_streamed(
         if demand.dtype == held:
             demand.fill(np.nan)
         else:  # the prices' float64 memory goes before the float32 demand's is taken
-            del demand
+            demand = np.empty(0)
             demand = np.full(n_series * n_periods, np.nan, dtype=held)
 
     # Pass 3: demand and attributes.
     attribute_codes = {name: np.full(n_series, -1, dtype=np.int32) for name in source.attributes}
-    for chunk in source.chunks([schema.DEMAND], sparse=source.attributes, select=select, last=True):
+    demand_chunks = source.chunks(
+        [schema.DEMAND], sparse=source.attributes, select=select, last=True
+    )
+    for chunk in demand_chunks if has_price else take_dense(demand_chunks):
         values = chunk.columns[schema.DEMAND]
         if demand.dtype == np.float32:
             exact = _float32_if_exact(values)
@@ -842,6 +853,19 @@ def build_streamed(
         },
         history=history,
     )
+
+
+#: Row groups read at most while the dense arrays are made, before waiting for them.
+READ_WHILE_ALLOCATING = 8
+
+
+def _read_while(job: concurrent.futures.Future[Any], chunks: Iterator[_Chunk]) -> Iterator[_Chunk]:
+    """The first of ``chunks``, read until ``job`` is done (one at least, at most
+    ``READ_WHILE_ALLOCATING``)."""
+    for count, chunk in enumerate(chunks, start=1):
+        yield chunk
+        if job.done() or count == READ_WHILE_ALLOCATING:
+            return
 
 
 def _float32_if_exact(values: np.ndarray) -> np.ndarray | None:
