@@ -8,7 +8,7 @@ from __future__ import annotations
 
 import argparse
 import sys
-from collections.abc import Iterable, Sequence
+from collections.abc import Callable, Iterable, Sequence
 from pathlib import Path
 from typing import TYPE_CHECKING
 
@@ -229,6 +229,8 @@ def _cmd_rank(args: argparse.Namespace) -> int:
             "--format parquet writes a folder of Parquet files and needs --output DIR.",
             hint="Add --output DIR, or choose --format csv for standard output.",
         )
+    if args.group is not None:
+        _check_group_options(args)
     if args.engine == "dask":
         return _rank_dask(args, settings)
     # Only the window is scored (series and groups alike): the forecasts are read over it alone.
@@ -285,11 +287,6 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
             "folder.",
             hint="Leave out --engine dask to rank one file, or give the dataset's folder.",
         )
-    if args.group is not None:
-        raise TriageError(
-            "--group does not run on the Dask engine yet.",
-            hint="Leave out --engine dask: the local engine reads the dataset and groups it.",
-        )
     refuse_sheet(args)
     read = read_args(args)
     cluster = ClusterOptions(
@@ -305,6 +302,8 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
             columns=read["columns"],
             options=read["options"],
             lag=read["lag"],
+            errors=args.group is not None,
+            check=None if args.group is None else _group_columns_of(args),
         )
     _notices(scored.plan.notices)
     cols = scored.plan.window_cols(settings.window)
@@ -314,6 +313,16 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
             hint=SCORABLE_HINT,
         )
     described, steps = scored.described, scored.steps
+    if args.group is not None:
+        from triage.core import groups
+
+        by_columns = groups.parse_group_columns(described, args.group)
+        measures = scored.measures
+        del scored
+        grouping = groups.grouping_of(measures.text, len(measures), by_columns)
+        table = groups.group_scorecard_of(measures, ranked(measures), grouping, by=args.by)
+        del measures
+        return _show_groups(args, settings, described, table, by_columns, cols)
     card = ranked(scored.measures, args.by, limit=_built(args))
     # The measures go before the text is made (the scorecard holds its own copies).
     del scored
@@ -374,12 +383,8 @@ def _show_rank(
     return 0
 
 
-def _rank_groups(args: argparse.Namespace, settings: ScoreSettings, portfolio: Portfolio) -> int:
-    """``triage rank --group``: the group scorecard in the asked format."""
-    from triage.core import groups, metrics
-    from triage.core.ranking import leading_cover, scorecard
-    from triage.render import scorecard as report
-
+def _check_group_options(args: argparse.Namespace) -> None:
+    """Refuse the options ``rank --group`` does not take with it."""
     if args.by not in (BY_ERROR, BY_BIAS):
         raise TriageError(
             f"--by {args.by} ranks series; groups rank by error or bias.",
@@ -390,12 +395,48 @@ def _rank_groups(args: argparse.Namespace, settings: ScoreSettings, portfolio: P
             "--steps chooses the process steps of each series' fva_loss; groups have no step loss.",
             hint="Leave out --steps with --group, or rank series with --steps (and --by fva).",
         )
+    if args.format == "parquet":
+        raise TriageError(
+            "--format parquet writes the series' scorecard; the groups' is a CSV, JSON or table.",
+            hint="Choose --format csv with --group (or leave out --group for Parquet).",
+        )
+
+
+def _group_columns_of(args: argparse.Namespace) -> Callable[[Portfolio], object]:
+    """``--group``'s columns, checked against a portfolio (before a dataset is scored)."""
+    from triage.core.groups import parse_group_columns
+
+    return lambda portfolio: parse_group_columns(portfolio, args.group)
+
+
+def _rank_groups(args: argparse.Namespace, settings: ScoreSettings, portfolio: Portfolio) -> int:
+    """``triage rank --group``: the group scorecard in the asked format."""
+    from triage.core import groups, metrics
+    from triage.core.ranking import scorecard
+
     by_columns = groups.parse_group_columns(portfolio, args.group)
     card = scorecard(portfolio, settings.window, settings.season)
     cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, settings.window)
     grouping = groups.grouping(portfolio, by_columns)
     table = groups.group_scorecard(portfolio, card, cols, grouping, by=args.by)
     del card
+    return _show_groups(args, settings, portfolio, table, by_columns, cols)
+
+
+def _show_groups(
+    args: argparse.Namespace,
+    settings: ScoreSettings,
+    portfolio: Portfolio,
+    table: pd.DataFrame,
+    by_columns: tuple[str, ...],
+    cols: np.ndarray,
+) -> int:
+    """Write the group scorecard ``table`` as ``rank --group``'s options ask. ``portfolio``
+    describes what was scored (a dataset's first series on the Dask engine); ``cols`` are the
+    window's columns."""
+    from triage.core.ranking import leading_cover
+    from triage.render import scorecard as report
+
     shown = table
     if args.cover is not None:
         shown = leading_cover(table, settings.target_share)
@@ -407,9 +448,13 @@ def _rank_groups(args: argparse.Namespace, settings: ScoreSettings, portfolio: P
         _emit_blocks(report.csv_blocks(shown), args.output, force=args.force)
         return 0
     if args.format == "json":
-        text = report.groups_json(portfolio, shown, settings.window, settings.season, by_columns)
+        text = report.groups_json(
+            portfolio, shown, settings.window, settings.season, by_columns, cols=cols
+        )
     else:
-        text = report.group_table(portfolio, table, shown, settings.window, by_columns, by=args.by)
+        text = report.group_table(
+            portfolio, table, shown, settings.window, by_columns, by=args.by, cols=cols
+        )
     _emit(text, args.output, force=args.force)
     return 0
 

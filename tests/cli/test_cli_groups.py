@@ -131,3 +131,16 @@ def test_groups_do_not_take_the_fva_order() -> None:
     result = run("rank", str(SAMPLE), "--group", "family", "--by", "fva")
     assert result.returncode == 2
     assert "groups rank by error or bias" in result.stderr and "Traceback" not in result.stderr
+
+
+def test_groups_are_not_written_as_parquet(tmp_path: Path) -> None:
+    # --format parquet writes a folder of the series' scorecard; with --group it used to write
+    # the groups' table as a plain file under that name. Refused before the file is read.
+    out = tmp_path / "groups"
+    result = run(
+        "rank", str(SAMPLE), "--group", "family", "--format", "parquet", "--output", str(out)
+    )
+    assert result.returncode == 2
+    assert "the groups' is a CSV, JSON or table" in result.stderr
+    assert "Traceback" not in result.stderr
+    assert not out.exists()

@@ -14,6 +14,7 @@ from collections.abc import Iterator
 from pathlib import Path
 from typing import Any
 
+import numpy as np
 import pandas as pd
 import pyarrow as pa
 import pyarrow.parquet as pq
@@ -64,6 +65,37 @@ def test_dask_scores_every_partitioning_as_the_single_file(
     assert scored.plan.whole_series == (layout == "blocks")
 
 
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_dask_groups_every_partitioning_as_the_single_file(
+    source: Path, datasets: dict[str, Path], client: Any, layout: str
+) -> None:
+    # rank --group on the Dask engine: the series' errors per window period travel with their
+    # measures, and the client sums them per group over the same blocks in the same order as
+    # the local engine does (groups.group_scorecard_of against groups.group_scorecard).
+    from triage.core import groups, metrics
+
+    portfolio = read_portfolio(source)
+    cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, 13)
+    card = scorecard(portfolio)
+    scored = score_dataset(datasets[layout], client, window=13, season=1, errors=True)
+    measures = scored.measures
+    assert measures.window_errors is not None
+    assert measures.window_errors.shape == (len(measures), len(cols))
+    for by_columns in (("family",), ("location", "abc_class")):
+        local_groups = groups.grouping(portfolio, by_columns)
+        spread_groups = groups.grouping_of(measures.text, len(measures), by_columns)
+        np.testing.assert_array_equal(spread_groups.codes, local_groups.codes)
+        for by in ("error", "bias"):
+            want = groups.group_scorecard(portfolio, card, cols, local_groups, by=by)
+            got = groups.group_scorecard_of(measures, ranked(measures), spread_groups, by=by)
+            assert len(want) > 1
+            same_scorecard(got, want)
+            # The group totals' sums per period are the same numbers, not just close ones.
+            np.testing.assert_array_equal(
+                got["aggregate_abs_error"].to_numpy(), want["aggregate_abs_error"].to_numpy()
+            )
+
+
 def test_dask_checks_the_steps_and_measures_them(
     source: Path, datasets: dict[str, Path], client: Any
 ) -> None:
@@ -112,6 +144,34 @@ def test_rank_engine_dask_writes_the_single_files_csv(
     assert refused.returncode == 2
     assert b"--engine dask scores a dataset folder" in refused.stderr
     assert b"Traceback" not in refused.stderr
+
+
+def test_rank_group_engine_dask_writes_the_single_files_csv(
+    source: Path, datasets: dict[str, Path], client: Any
+) -> None:
+    address = client.scheduler.address
+    group = ("--group", "family,location")
+    single = _rank(source, *group, "--format", "csv")
+    spread = _rank(
+        datasets["period"], "--engine", "dask", "--scheduler", address, *group, "--format", "csv"
+    )
+    assert spread.returncode == 0, spread.stderr.decode()
+    assert spread.stdout == single.stdout
+    # The table: the same but for the header's name (the folder, not the file).
+    single = _rank(source, *group, "--by", "bias")
+    spread = _rank(
+        datasets["period"], "--engine", "dask", "--scheduler", address, *group, "--by", "bias"
+    )
+    assert spread.returncode == 0, spread.stderr.decode()
+    assert spread.stdout.split(b"\n")[1:] == single.stdout.split(b"\n")[1:]
+    assert spread.stdout.split(b"\n")[0].startswith(b"period: ")
+    # A column the dataset does not have is refused before anything is scored.
+    missing = _rank(
+        datasets["period"], "--engine", "dask", "--scheduler", address, "--group", "colour"
+    )
+    assert missing.returncode == 2
+    assert b"has no column 'colour' to group by" in missing.stderr
+    assert b"Traceback" not in missing.stderr
 
 
 def test_rank_on_an_existing_cluster_leaves_it_running(

@@ -24,7 +24,7 @@ import dataclasses
 import functools
 import logging
 import math
-from collections.abc import Iterator, Sequence
+from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -132,10 +132,16 @@ def score_dataset(
     columns: dict[str, str] | None = None,
     options: FileOptions | None = None,
     lag: int | None = None,
+    errors: bool = False,
+    check: Callable[[Portfolio], object] | None = None,
 ) -> Scored:
     """Read, check and score the dataset ``folder`` on the cluster of ``client``.
 
     ``steps`` are checked against the dataset's forecasts here, before the scoring starts.
+    ``errors``: the measures keep each series' error per window period (``rank --group``:
+    ``groups.group_scorecard_of``), 8 bytes per series and period on the client. ``check`` is
+    called with the portfolio describing the dataset before the scoring starts (an option's
+    check that raises ``TriageError``).
 
     Raises:
         LoadError: A part cannot be read (named with its row), or the parts do not make one
@@ -163,20 +169,22 @@ def score_dataset(
     chain = (
         None if steps is None else parse_steps(",".join(steps), forecast_names(described, season))
     )
+    if check is not None:
+        check(described)
     with _workers_lost():
         if plan.whole_series:
             # Each part holds whole series: each is scored where it is read, nothing is mixed.
             frames = client.gather(
                 client.map(
                     _score_whole_part, parts, plan=plan, cols=cols, season=season, steps=chain,
-                    dataset=dataset, columns=columns, options=options,
+                    dataset=dataset, columns=columns, options=options, errors=errors,
                 )
             )  # fmt: skip
             frame = pd.concat(frames, ignore_index=True)
             del frames
         else:
             assert frame_meta is not None
-            meta = score_part(frame_meta, plan, cols, season, chain)
+            meta = score_part(frame_meta, plan, cols, season, chain, errors)
             # from_map gives a reader that takes ``columns`` the columns it wants (projection):
             # the column map goes by another name.
             reader = functools.partial(
@@ -188,7 +196,7 @@ def score_dataset(
             tasks = max(len(dataset.files), math.ceil(plan.rows / ROWS_PER_TASK))
             rows = rows.shuffle(on=list(plan.key_columns), npartitions=tasks)
             scored = rows.map_partitions(
-                score_part, plan, cols, season, chain, meta=meta, enforce_metadata=False
+                score_part, plan, cols, season, chain, errors, meta=meta, enforce_metadata=False
             )
             frame = scored.compute()
     return Scored(plan=plan, described=described, measures=measures_of(frame, plan), steps=chain)
@@ -252,9 +260,10 @@ def _score_whole_part(
     dataset: Dataset,
     columns: dict[str, str] | None,
     options: FileOptions | None,
+    errors: bool,
 ) -> pd.DataFrame:
     return score_whole_part(
-        dataset, part, plan, cols, season, steps, columns=columns, options=options
+        dataset, part, plan, cols, season, steps, columns=columns, options=options, errors=errors
     )
 
 

@@ -61,6 +61,8 @@ PART_SUFFIXES = (".parquet", ".pq")
 PART, ROW = "_part", "_row"
 #: Columns of a scored part that are codes, not scorecard columns.
 FLAG_CODE, PATTERN_CODE = "_flag", "_pattern"
+#: Columns of each series' error in window period j (``errors=True``: for groups).
+WINDOW_ERROR = "_e{}"
 
 
 @dataclass(frozen=True)
@@ -536,19 +538,21 @@ def score_part(
     cols: np.ndarray,
     season: int,
     steps: Sequence[str] | None,
+    errors: bool = False,
 ) -> pd.DataFrame:
     """The measures of the whole series in ``frame`` over the window ``cols``: one row per
     series, in key order.
 
     Columns: the key columns, the numeric measures (``ranking.MEASURE_COLUMNS``, the value
     ones where priced), the codes :data:`FLAG_CODE` and :data:`PATTERN_CODE`, then the
-    attributes. No rows give no rows, with those columns.
+    attributes; with ``errors``, then each series' error per window period
+    (:data:`WINDOW_ERROR`, ``groups.window_errors``). No rows give no rows, with those columns.
     """
     if frame.empty:
-        return _no_measures(plan)
+        return _no_measures(plan, len(cols) if errors else 0)
     portfolio = build_part(frame, plan, some=True)
     measures = series_measures(portfolio, cols, season, steps)
-    return measures_frame(portfolio, measures)
+    return measures_frame(portfolio, measures, cols if errors else None)
 
 
 #: Measures that are whole numbers; every other one is float64.
@@ -557,8 +561,8 @@ _WHOLE = ("periods", "bias_run")
 _VALUED = ("abs_error_value", "bias_value", "fva_loss_value")
 
 
-def _no_measures(plan: Plan) -> pd.DataFrame:
-    """The columns of :func:`score_part` without a row."""
+def _no_measures(plan: Plan, width: int = 0) -> pd.DataFrame:
+    """The columns of :func:`score_part` without a row (``width`` window errors)."""
     text = pd.StringDtype("pyarrow", na_value=np.nan)
     data: dict[str, Any] = {c: pd.array([], dtype=text) for c in plan.key_columns}
     for name in MEASURE_COLUMNS:
@@ -568,6 +572,7 @@ def _no_measures(plan: Plan) -> pd.DataFrame:
     data[FLAG_CODE] = np.empty(0, dtype=np.int8)
     data[PATTERN_CODE] = np.empty(0, dtype=np.int8)
     data.update({c: pd.array([], dtype=text) for c in plan.attributes})
+    data.update({WINDOW_ERROR.format(j): np.empty(0) for j in range(width)})
     return pd.DataFrame(data)
 
 
@@ -581,6 +586,7 @@ def score_whole_part(
     *,
     columns: dict[str, str] | None = None,
     options: FileOptions | None = None,
+    errors: bool = False,
 ) -> pd.DataFrame:
     """:func:`score_part` of a part that holds whole series (``plan.whole_series``).
 
@@ -597,11 +603,13 @@ def score_whole_part(
             cols,
             season,
             steps,
+            errors,
         )
     portfolio = on_grid(
         read_portfolio(dataset.files[part], columns=columns, options=options), plan, dataset, part
     )
-    return measures_frame(portfolio, series_measures(portfolio, cols, season, steps))
+    measures = series_measures(portfolio, cols, season, steps)
+    return measures_frame(portfolio, measures, cols if errors else None)
 
 
 def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Portfolio:
@@ -655,14 +663,22 @@ def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Po
     )
 
 
-def measures_frame(portfolio: Portfolio, measures: SeriesMeasures) -> pd.DataFrame:
-    """``measures`` of ``portfolio`` as one frame (see :func:`score_part`)."""
+def measures_frame(
+    portfolio: Portfolio, measures: SeriesMeasures, cols: np.ndarray | None = None
+) -> pd.DataFrame:
+    """``measures`` of ``portfolio`` as one frame (see :func:`score_part`); with ``cols``, each
+    series' errors in those window columns too."""
+    from triage.core.groups import window_errors
+
     order = np.arange(portfolio.n_series)
     data: dict[str, Any] = {c: measures.text(c, order) for c in measures.key_columns}
     data.update(measures.numbers)
     data[FLAG_CODE] = measures.flag
     data[PATTERN_CODE] = measures.pattern
     data.update({c: measures.text(c, order) for c in measures.attributes})
+    if cols is not None:
+        errors = window_errors(portfolio, cols)
+        data.update({WINDOW_ERROR.format(j): errors[:, j] for j in range(len(cols))})
     return pd.DataFrame(data, copy=False)
 
 
@@ -686,6 +702,14 @@ def measures_of(frame: pd.DataFrame, plan: Plan) -> SeriesMeasures:
     numbers = {c: frame.pop(c).to_numpy()[at] for c in list(frame.columns) if c in _NUMERIC}
     flag = frame.pop(FLAG_CODE).to_numpy(dtype=np.int8)[at]
     pattern = frame.pop(PATTERN_CODE).to_numpy(dtype=np.int8)[at]
+    width = 0
+    while WINDOW_ERROR.format(width) in frame:
+        width += 1
+    errors = None
+    if width:
+        errors = np.empty((len(at), width))
+        for j in range(width):
+            errors[:, j] = frame.pop(WINDOW_ERROR.format(j)).to_numpy(dtype=np.float64)[at]
 
     def text(name: str, taken: np.ndarray) -> pd.api.extensions.ExtensionArray:
         return pd.array(
@@ -699,6 +723,7 @@ def measures_of(frame: pd.DataFrame, plan: Plan) -> SeriesMeasures:
         key_columns=keys,
         attributes=plan.attributes,
         text=text,
+        window_errors=errors,
     )
 
 

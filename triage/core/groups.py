@@ -21,7 +21,7 @@ mapped to integer group codes once and every sum is a ``np.bincount``.
 
 from __future__ import annotations
 
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 
 import numpy as np
@@ -34,6 +34,7 @@ from triage.core.ranking import (
     BY_BIAS,
     BY_ERROR,
     FLAG_TEXT,
+    SeriesMeasures,
     as_slice,
     bias_ordering,
     descending_order,
@@ -122,6 +123,11 @@ def parse_group_columns(
     return names
 
 
+#: A key or attribute column of the series ``order`` as a ``str`` array
+#: (``Portfolio.text_column``, ``SeriesMeasures.text``).
+TextColumn = Callable[[str, np.ndarray], pd.api.extensions.ExtensionArray]
+
+
 def grouping(portfolio: Portfolio, by: Sequence[str]) -> Grouping:
     """Map every series to its group; groups ordered by their key values, ascending.
 
@@ -129,19 +135,24 @@ def grouping(portfolio: Portfolio, by: Sequence[str]) -> Grouping:
         portfolio: The portfolio.
         by: Grouping columns (``parse_group_columns``).
     """
+    return grouping_of(portfolio.text_column, portfolio.n_series, by)
+
+
+def grouping_of(text: TextColumn, n_series: int, by: Sequence[str]) -> Grouping:
+    """:func:`grouping` of ``n_series`` series whose columns ``text`` gives (a dataset scored
+    on the Dask engine: ``SeriesMeasures.text``)."""
     if not by:
         raise ValueError("group by at least one column")
-    codes = np.zeros(portfolio.n_series, dtype=np.int64)
+    codes = np.zeros(n_series, dtype=np.int64)
     count = 1
+    every = np.arange(n_series)
     for name in by:
-        column_codes, values = pd.factorize(portfolio.keys[name], sort=True)
+        column_codes, values = pd.factorize(text(name, every), sort=True)
         # Renumbered after each column, so codes stay below n_series (no overflow) and stay
         # ascending by the key values so far (each column sorted, the first most significant).
         codes, count = _renumber(codes * len(values) + column_codes, count * len(values))
     first = _first_of_each(codes, count)
-    frame = pd.DataFrame(
-        {name: portfolio.text_column(name, first) for name in by}, index=pd.RangeIndex(len(first))
-    )
+    frame = pd.DataFrame({name: text(name, first) for name in by}, index=pd.RangeIndex(len(first)))
     return Grouping(by=tuple(by), codes=codes, keys=frame)
 
 
@@ -185,6 +196,47 @@ def group_scorecard(
         The grouping columns, then ``GROUP_COLUMNS`` (``abs_error_value``/``bias_value`` only
         when priced); fractions, NaN where undefined. The index is the group number.
     """
+    period_error, period_counted = _period_totals(
+        _cell_errors(portfolio, cols), portfolio.n_series, groups.codes, groups.n_groups
+    )
+    return _group_table(
+        card, period_error, period_counted, groups, portfolio.key_columns, portfolio.text_column, by
+    )
+
+
+def group_scorecard_of(
+    measures: SeriesMeasures, card: pd.DataFrame, groups: Grouping, *, by: str = BY_ERROR
+) -> pd.DataFrame:
+    """:func:`group_scorecard` of series measured apart from their portfolio (a dataset scored
+    on the Dask engine), from each series' errors per window period
+    (``SeriesMeasures.window_errors``). The sums per period are taken over the same blocks of
+    series in the same order as from a portfolio, so they are the same numbers."""
+    errors = measures.window_errors
+    if errors is None:
+        raise ValueError("the measures were taken without their window errors")
+
+    def cells(rows: slice) -> tuple[np.ndarray, np.ndarray]:
+        block = np.ascontiguousarray(errors[rows].T)
+        both = ~np.isnan(block)
+        return np.where(both, block, 0.0), both
+
+    period_error, period_counted = _period_totals(
+        cells, len(measures), groups.codes, groups.n_groups
+    )
+    return _group_table(
+        card, period_error, period_counted, groups, measures.key_columns, measures.text, by
+    )
+
+
+def _group_table(
+    card: pd.DataFrame,
+    period_error: np.ndarray,
+    period_counted: np.ndarray,
+    groups: Grouping,
+    key_columns: tuple[str, ...],
+    text: TextColumn,
+    by: str,
+) -> pd.DataFrame:
     if by not in (BY_ERROR, BY_BIAS):
         raise ValueError(f"by must be {BY_ERROR!r} or {BY_BIAS!r}")
     n_groups = groups.n_groups
@@ -208,7 +260,6 @@ def group_scorecard(
         forecast=total("forecast"),
         abs_error=abs_error,
     )
-    period_error, period_counted = _period_totals(portfolio, cols, codes, n_groups)
     data["aggregate_abs_error"] = np.abs(period_error).sum(axis=1)
     data["bias"] = bias
     data["bias_pct"] = metrics._ratio(bias, demand)
@@ -245,7 +296,7 @@ def group_scorecard(
         flagged_series=np.bincount(codes, weights=series_flagged, minlength=n_groups).astype(
             np.int64
         ),
-        top_series=_top_series(portfolio, codes, n_groups, aligned, priced),
+        top_series=_top_series(key_columns, text, codes, n_groups, aligned, priced),
     )
     frame = pd.DataFrame(data)
     for name in ("bias_flag", "top_series"):
@@ -263,31 +314,58 @@ def column_total(values: np.ndarray) -> np.ndarray:
     return total
 
 
-def _period_totals(
-    portfolio: Portfolio, cols: np.ndarray, codes: np.ndarray, n_groups: int
-) -> tuple[np.ndarray, np.ndarray]:
-    """Σ over each group's series of e per window period (groups x periods), and whether at
-    least one series counts in that period."""
-    width = len(cols)
-    error = np.zeros((n_groups, width))
-    counted = np.zeros((n_groups, width))
+def _cell_errors(
+    portfolio: Portfolio, cols: np.ndarray
+) -> Callable[[slice], tuple[np.ndarray, np.ndarray]]:
+    """For a block of series: e per window period and series (periods x series, 0 where the
+    cell does not count), and whether it counts (demand and forecast both present)."""
     picked = as_slice(cols)  # adjacent columns: views, no copies
-    for lo in range(0, portfolio.n_series, _ROWS):
-        rows = slice(lo, lo + _ROWS)
-        block = codes[rows]
+
+    def cells(rows: slice) -> tuple[np.ndarray, np.ndarray]:
         # Periods x series, one contiguous row per period: one bincount per period.
         d = np.ascontiguousarray(portfolio.demand[rows, picked].T)
         f = np.ascontiguousarray(portfolio.forecast[rows, picked].T)
         both = ~(np.isnan(d) | np.isnan(f))
-        e = np.where(both, f - d, 0.0)
-        for j in range(width):
+        return np.where(both, f - d, 0.0), both
+
+    return cells
+
+
+def window_errors(portfolio: Portfolio, cols: np.ndarray) -> np.ndarray:
+    """Each series' e per window period (series x periods), NaN where the cell does not count:
+    what :func:`group_scorecard_of` sums, taken where the series are scored."""
+    cells = _cell_errors(portfolio, cols)(slice(None))
+    e, both = cells
+    return np.where(both, e, np.nan).T.copy()
+
+
+def _period_totals(
+    cells: Callable[[slice], tuple[np.ndarray, np.ndarray]],
+    n_series: int,
+    codes: np.ndarray,
+    n_groups: int,
+) -> tuple[np.ndarray, np.ndarray]:
+    """Σ over each group's series of e per window period (groups x periods), and whether at
+    least one series counts in that period; ``cells`` gives the errors of a block of series."""
+    error: np.ndarray | None = None
+    counted: np.ndarray | None = None
+    for lo in range(0, max(n_series, 1), _ROWS):
+        rows = slice(lo, lo + _ROWS)
+        block = codes[rows]
+        e, both = cells(rows)
+        if error is None or counted is None:
+            error = np.zeros((n_groups, e.shape[0]))
+            counted = np.zeros((n_groups, e.shape[0]))
+        for j in range(e.shape[0]):
             error[:, j] += np.bincount(block, weights=e[j], minlength=n_groups)
             counted[:, j] += np.bincount(block, weights=both[j], minlength=n_groups)
+    assert error is not None and counted is not None
     return error, counted > 0
 
 
 def _top_series(
-    portfolio: Portfolio,
+    key_columns: tuple[str, ...],
+    text: TextColumn,
     codes: np.ndarray,
     n_groups: int,
     aligned: pd.DataFrame,
@@ -307,9 +385,9 @@ def _top_series(
     at = np.full(n_groups, len(codes), dtype=np.int64)
     np.minimum.at(at, codes[hit], hit)
     first = np.where(at < len(codes), at, first)
-    items = np.asarray(portfolio.text_column(schema.ITEM, first), dtype=object)
-    if schema.LOCATION in portfolio.key_columns:
-        locations = np.asarray(portfolio.text_column(schema.LOCATION, first), dtype=object)
+    items = np.asarray(text(schema.ITEM, first), dtype=object)
+    if schema.LOCATION in key_columns:
+        locations = np.asarray(text(schema.LOCATION, first), dtype=object)
         labels = [f"{i} @ {loc}" for i, loc in zip(items, locations, strict=True)]
     else:
         labels = [str(i) for i in items]

@@ -86,6 +86,9 @@ class SeriesMeasures:
     key_columns: tuple[str, ...]
     attributes: tuple[str, ...]
     text: Callable[[str, np.ndarray], pd.api.extensions.ExtensionArray]
+    window_errors: np.ndarray | None = None
+    """Series x window periods: e where the cell counts, NaN elsewhere; only when measured
+    for groups apart from the portfolio (``groups.group_scorecard_of``)."""
 
     @property
     def priced(self) -> bool:

@@ -484,15 +484,20 @@ def group_table(
     by_columns: tuple[str, ...],
     *,
     by: str = "error",
+    cols: np.ndarray | None = None,
 ) -> str:
-    """The ranked groups as a readable table with a header of portfolio totals."""
+    """The ranked groups as a readable table with a header of portfolio totals.
+
+    ``cols``: the window's columns when ``portfolio`` describes a larger whole (a dataset
+    scored on the Dask engine); the series are counted from ``table``."""
     priced = "abs_error_value" in table
-    win = window_info(portfolio, window)
+    win = window_info(portfolio, window, cols)
+    n_series = int(table["series"].sum())
     abs_total = float(table["abs_error"].sum())
     demand_total = float(table["demand"].sum())
     bias_total = float(table["bias"].sum())
     lines = [
-        f"{visible(portfolio.path.name)}: {portfolio.n_series:,} series in {len(table):,} "
+        f"{visible(portfolio.path.name)}: {n_series:,} series in {len(table):,} "
         f"group{'' if len(table) == 1 else 's'} "
         f"by {', '.join(visible(c) for c in by_columns)}, {portfolio.calendar.freq}, "
         f"window {win['first']} .. {win['last']} "
@@ -554,9 +559,16 @@ def group_table(
 
 
 def groups_json(
-    portfolio: Portfolio, table: pd.DataFrame, window: int, season: int, by_columns: tuple[str, ...]
+    portfolio: Portfolio,
+    table: pd.DataFrame,
+    window: int,
+    season: int,
+    by_columns: tuple[str, ...],
+    *,
+    cols: np.ndarray | None = None,
 ) -> str:
-    """The group scorecard as one JSON document: what was scored, then one object per group."""
+    """The group scorecard as one JSON document: what was scored, then one object per group
+    (``cols`` as for :func:`group_table`)."""
     columns = list(table.columns)
     arrays = [table[c].to_numpy() for c in columns]
     records = [
@@ -568,7 +580,7 @@ def groups_json(
         "cycle": portfolio.cycle,
         "frequency": portfolio.calendar.freq,
         "lag": portfolio.lag,
-        "window": window_info(portfolio, window),
+        "window": window_info(portfolio, window, cols),
         "season": season,
         "error_sign": "forecast - demand (positive = over-forecast)",
         "grouped_by": list(by_columns),
