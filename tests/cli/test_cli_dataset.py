@@ -79,7 +79,8 @@ def test_format_parquet_refusals(tmp_path: Path, lake: Path) -> None:
     assert forced.returncode == 0, forced.stderr
     for refused in (
         run("rank", str(lake), "--sheet", "Week 1"),
-        run("rank", str(lake), "--engine", "dask", "--group", "family"),
+        run("rank", str(lake), "--engine", "dask", "--group", "family", "--by", "fva"),
+        run("rank", str(lake), "--engine", "dask", "--group", "family", "--format", "parquet"),
         run("rank", str(tmp_path / "empty-folder-missing")),
     ):
         assert refused.returncode == 2, refused.stderr
