@@ -409,3 +409,18 @@ def test_compare_hint_for_a_forecast_missing_in_the_window(
         messages.append((str(raised.value), raised.value.hint))
     assert messages[1] == messages[0]
     assert expected in (messages[0][1] or "")
+
+
+def test_kept_history_of_other_series_is_never_used(tmp_path: Path) -> None:
+    # A copy of a scoring read with fewer series (dataclasses.replace) must not take the
+    # history measures of the whole: it recomputes them, which needs demand never kept.
+    import dataclasses
+
+    path = to_parquet(garden_rows(seed=29, weeks=24), tmp_path / "k.parquet", dictionary=True)
+    scored = read_portfolio(path, scored_window=6, season=1)
+    assert scored.history_measures(1) is scored.history
+    fewer = dataclasses.replace(scored, keys=scored.keys.iloc[:5].reset_index(drop=True))
+    with pytest.raises(IndexError, match="not loaded"):
+        fewer.history_measures(1)
+    with pytest.raises(IndexError, match="not loaded"):
+        fewer.naive_scale(1)

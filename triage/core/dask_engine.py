@@ -247,6 +247,7 @@ def first_series(portfolio: Portfolio) -> Portfolio:
         price=None if price is None else UnitPrices.from_dense(price[one]),
         competing={name: values[one].copy() for name, values in portfolio.competing.items()},
         _text_codes={},
+        history=None,
     )
 
 

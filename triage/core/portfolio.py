@@ -419,7 +419,8 @@ class Portfolio:
     """Key and attribute columns as (the keys frame they code, int32 codes, Arrow labels)."""
     history: HistoryMeasures | None = field(default=None, repr=False, compare=False)
     """The whole history's measures, taken while reading, when the demand was kept over the
-    scored columns only (:attr:`demand`); None otherwise."""
+    scored columns only (:attr:`demand`); None otherwise. A copy with other demand must set it
+    to None (``dataclasses.replace``)."""
 
     def history_measures(self, season: int) -> HistoryMeasures:
         """Naive scale (season ``season``) and demand pattern of every series' whole history:
@@ -427,7 +428,8 @@ class Portfolio:
         :attr:`demand` (which raises ``IndexError`` on a demand read for scoring only)."""
         from triage.core import metrics
 
-        if self.history is not None and self.history.season == season:
+        if self._history_of(season):
+            assert self.history is not None
             return self.history
         return metrics.history_measures(self.demand[:, : self.last_actual + 1], season)
 
@@ -435,9 +437,15 @@ class Portfolio:
         """The naive scale of :meth:`history_measures` alone (MASE's denominator)."""
         from triage.core import metrics
 
-        if self.history is not None and self.history.season == season:
+        if self._history_of(season):
+            assert self.history is not None
             return self.history.scale
         return metrics.naive_scale(self.demand[:, : self.last_actual + 1], season)
+
+    def _history_of(self, season: int) -> bool:
+        """Whether :attr:`history` holds the measures of this season, for these series."""
+        kept = self.history
+        return kept is not None and kept.season == season and len(kept.scale) == self.n_series
 
     @property
     def n_series(self) -> int:
