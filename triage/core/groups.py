@@ -197,7 +197,7 @@ def group_scorecard(
         when priced); fractions, NaN where undefined. The index is the group number.
     """
     period_error, period_counted = _period_totals(
-        _cell_errors(portfolio, cols), portfolio.n_series, groups.codes, groups.n_groups
+        _cell_errors(portfolio, cols), len(cols), groups.codes, groups.n_groups
     )
     return _group_table(
         card, period_error, period_counted, groups, portfolio.key_columns, portfolio.text_column, by
@@ -221,7 +221,7 @@ def group_scorecard_of(
         return np.where(both, block, 0.0), both
 
     period_error, period_counted = _period_totals(
-        cells, len(measures), groups.codes, groups.n_groups
+        cells, errors.shape[1], groups.codes, groups.n_groups
     )
     return _group_table(
         card, period_error, period_counted, groups, measures.key_columns, measures.text, by
@@ -341,25 +341,22 @@ def window_errors(portfolio: Portfolio, cols: np.ndarray) -> np.ndarray:
 
 def _period_totals(
     cells: Callable[[slice], tuple[np.ndarray, np.ndarray]],
-    n_series: int,
+    width: int,
     codes: np.ndarray,
     n_groups: int,
 ) -> tuple[np.ndarray, np.ndarray]:
-    """Σ over each group's series of e per window period (groups x periods), and whether at
-    least one series counts in that period; ``cells`` gives the errors of a block of series."""
-    error: np.ndarray | None = None
-    counted: np.ndarray | None = None
-    for lo in range(0, max(n_series, 1), _ROWS):
+    """Σ over each group's series of e per window period (groups x ``width`` periods), and
+    whether at least one series counts in that period; ``cells`` gives the errors of a block of
+    series (``codes``: each series' group)."""
+    error = np.zeros((n_groups, width))
+    counted = np.zeros((n_groups, width))
+    for lo in range(0, len(codes), _ROWS):
         rows = slice(lo, lo + _ROWS)
         block = codes[rows]
         e, both = cells(rows)
-        if error is None or counted is None:
-            error = np.zeros((n_groups, e.shape[0]))
-            counted = np.zeros((n_groups, e.shape[0]))
-        for j in range(e.shape[0]):
+        for j in range(width):
             error[:, j] += np.bincount(block, weights=e[j], minlength=n_groups)
             counted[:, j] += np.bincount(block, weights=both[j], minlength=n_groups)
-    assert error is not None and counted is not None
     return error, counted > 0
 
 
