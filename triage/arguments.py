@@ -3,7 +3,9 @@
 from __future__ import annotations
 
 import argparse
+import contextlib
 import sys
+from collections.abc import Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -247,6 +249,31 @@ def engine_args(parser: argparse.ArgumentParser) -> None:
 
 #: The engines ``--engine`` chooses from; the first is the default.
 ENGINES = ("local", "dask")
+
+
+@contextlib.contextmanager
+def dask_client(args: argparse.Namespace) -> Iterator[Any]:
+    """The Dask client ``--engine dask`` runs on (``engine_args``), once the portfolio is
+    known to be a dataset folder; closed, with its local cluster, on exit.
+
+    Raises:
+        TriageError: The portfolio is not a folder, ``--sheet`` was given, Dask is missing or
+            the scheduler cannot be reached.
+    """
+    from triage.core.dask_engine import ClusterOptions, cluster_client
+
+    if not args.portfolio.is_dir():
+        raise TriageError(
+            f"--engine dask reads a dataset folder of Parquet files; "
+            f"{printable(str(args.portfolio))} is not a folder.",
+            hint="Leave out --engine dask to read one file, or give the dataset's folder.",
+        )
+    refuse_sheet(args)
+    cluster = ClusterOptions(
+        workers=args.workers, memory_limit=args.memory_limit, address=args.scheduler
+    )
+    with cluster_client(cluster) as client:
+        yield client
 
 
 def refuse_overwriting(

@@ -15,6 +15,7 @@ from typing import TYPE_CHECKING
 from triage import __version__
 from triage.arguments import (
     config_arg,
+    dask_client,
     engine_args,
     force_arg,
     format_arg,
@@ -26,7 +27,6 @@ from triage.arguments import (
     read_args,
     refuse_output_folder,
     refuse_overwriting,
-    refuse_sheet,
     review_target,
     reviewer_arg,
     score_args,
@@ -278,21 +278,11 @@ def _notices(notices: Sequence[str]) -> None:
 
 def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
     """``triage rank DATASET --engine dask``: the scorecard made on a Dask cluster."""
-    from triage.core.dask_engine import ClusterOptions, cluster_client, score_dataset
+    from triage.core.dask_engine import score_dataset
     from triage.core.ranking import NOTHING_TO_SCORE, SCORABLE_HINT, ranked
 
-    if not args.portfolio.is_dir():
-        raise TriageError(
-            f"--engine dask scores a dataset folder of Parquet files; {args.portfolio} is not a "
-            "folder.",
-            hint="Leave out --engine dask to rank one file, or give the dataset's folder.",
-        )
-    refuse_sheet(args)
     read = read_args(args)
-    cluster = ClusterOptions(
-        workers=args.workers, memory_limit=args.memory_limit, address=args.scheduler
-    )
-    with cluster_client(cluster) as client:
+    with dask_client(args) as client:
         scored = score_dataset(
             args.portfolio,
             client,

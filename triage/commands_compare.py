@@ -10,19 +10,27 @@ from __future__ import annotations
 import argparse
 import sys
 from pathlib import Path
+from typing import TYPE_CHECKING
 
 from triage.arguments import (
+    dask_client,
+    engine_args,
     force_arg,
     format_arg,
     load_portfolio,
     note,
     portfolio_args,
+    read_args,
     refuse_overwriting,
     score_args,
     steps_arg,
     steps_of,
 )
 from triage.core.settings import ScoreSettings
+
+if TYPE_CHECKING:
+    from triage.core.compare import Comparison
+    from triage.core.portfolio import Portfolio
 
 
 def add_compare_command(sub: argparse._SubParsersAction) -> None:
@@ -35,6 +43,7 @@ def add_compare_command(sub: argparse._SubParsersAction) -> None:
         "snaive. A cell counts when demand and every forecast are present. See docs/metrics.md.",
     )
     portfolio_args(compare)
+    engine_args(compare)
     score_args(compare)
     steps_arg(compare)
     compare.add_argument(
@@ -58,16 +67,19 @@ def cmd_compare(args: argparse.Namespace) -> int:
     settings = ScoreSettings.from_args(args)
     if args.output is not None:
         refuse_overwriting([args.output], args.portfolio, force=args.force)
-    # Forecasts are compared over the window only: they are read over it alone.
-    portfolio = load_portfolio(
-        args, dataset=True, scored_window=settings.window, season=settings.season
-    )
-    for notice in portfolio.notices:
-        note(notice)
-    steps = steps_of(args, portfolio, settings.season)
-    result = compare(
-        portfolio, settings.window, settings.season, steps=steps, by_series=args.by_series
-    )
+    if args.engine == "dask":
+        portfolio, result = _compare_dask(args, settings)
+    else:
+        # Forecasts are compared over the window only: they are read over it alone.
+        portfolio = load_portfolio(
+            args, dataset=True, scored_window=settings.window, season=settings.season
+        )
+        for notice in portfolio.notices:
+            note(notice)
+        steps = steps_of(args, portfolio, settings.season)
+        result = compare(
+            portfolio, settings.window, settings.season, steps=steps, by_series=args.by_series
+        )
     if args.format == "csv":
         text = render.to_csv(result)
     elif args.format == "json":
@@ -86,3 +98,28 @@ def cmd_compare(args: argparse.Namespace) -> int:
     sys.stdout.write(text)
     sys.stdout.flush()
     return 0
+
+
+def _compare_dask(
+    args: argparse.Namespace, settings: ScoreSettings
+) -> tuple[Portfolio, Comparison]:
+    """``triage compare DATASET --engine dask``: the comparison made on a Dask cluster, and the
+    portfolio describing the dataset (its calendar, lag and path) for the output."""
+    from triage.core.dask_engine import compare_dataset
+
+    read = read_args(args)
+    with dask_client(args) as client:
+        compared = compare_dataset(
+            args.portfolio,
+            client,
+            window=settings.window,
+            season=settings.season,
+            steps=None if args.steps is None else (args.steps,),
+            by_series=args.by_series,
+            columns=read["columns"],
+            options=read["options"],
+            lag=read["lag"],
+        )
+    for notice in compared.plan.notices:
+        note(notice)
+    return compared.described, compared.comparison

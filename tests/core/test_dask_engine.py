@@ -142,7 +142,7 @@ def test_rank_engine_dask_writes_the_single_files_csv(
     assert spread.stdout == single.stdout
     refused = _rank(source, "--engine", "dask")
     assert refused.returncode == 2
-    assert b"--engine dask scores a dataset folder" in refused.stderr
+    assert b"--engine dask reads a dataset folder" in refused.stderr
     assert b"Traceback" not in refused.stderr
 
 
@@ -192,12 +192,7 @@ def test_rank_on_an_existing_cluster_leaves_it_running(
 
 
 def _rank(*args: str | Path) -> subprocess.CompletedProcess[bytes]:
-    return subprocess.run(
-        [sys.executable, "-c", RUN, "rank", *map(str, args)],
-        capture_output=True,
-        timeout=600,
-        check=False,
-    )
+    return _run("rank", *args)
 
 
 @pytest.mark.parametrize("cut", ["by series", "by period"])
@@ -233,3 +228,66 @@ def test_a_dataset_priced_zero_everywhere_ranks_in_units_on_dask(
     got = ranked(scored.measures, "error")
     same_scorecard(got, reference)
     assert dict(zip(got["item"], got["abs_error"], strict=True)) == ABS_ERROR
+
+
+@pytest.mark.parametrize(("layout", "season"), [("blocks", 1), ("period", 4), ("random", 1)])
+def test_dask_compares_every_partitioning_as_the_single_file(
+    source: Path, datasets: dict[str, Path], client: Any, layout: str, season: int
+) -> None:
+    # compare on the Dask engine: each task sums its whole series' compared cells, the client
+    # joins the sums in key order and measures them once (compare.Sums.join, compare.compared).
+    from triage.core.compare import compare
+    from triage.core.dask_engine import compare_dataset
+
+    want = compare(read_portfolio(source), 13, season, by_series=True)
+    got = compare_dataset(datasets[layout], client, window=13, season=season, by_series=True)
+    result = got.comparison
+    assert want.by_series is not None and result.by_series is not None
+    assert len(want.by_series) >= 19_000 * len(want.names)
+    # Per series, every sum is the single file's to the bit (each series' cells are added in
+    # the same order wherever it is scored), and the series come in the same order.
+    pd.testing.assert_frame_equal(result.by_series, want.by_series, check_exact=True)
+    # The portfolio's totals: the per-period sums of the test are added in another order.
+    pd.testing.assert_frame_equal(result.table, want.table, check_exact=False, rtol=1e-12)
+    for field in ("names", "steps", "season", "series", "window_cells", "cells", "missing"):
+        assert getattr(result, field) == getattr(want, field), field
+    assert (result.periods, result.test_lags) == (want.periods, want.test_lags)
+    np.testing.assert_array_equal(result.columns, want.columns)
+    assert result.verdict == want.verdict
+    assert got.described.path == datasets[layout]
+
+
+def test_compare_engine_dask_writes_the_single_files_output(
+    source: Path, datasets: dict[str, Path], client: Any
+) -> None:
+    address = client.scheduler.address
+    dask = ("--engine", "dask", "--scheduler", address)
+    steps = ("--steps", "naive,stat,customer,forecast")
+    single = _run("compare", source, *steps, "--by-series", "--format", "csv")
+    spread = _run("compare", datasets["period"], *dask, *steps, "--by-series", "--format", "csv")
+    assert spread.returncode == 0, spread.stderr.decode()
+    assert spread.stdout == single.stdout
+    # The table: the same but for the header's name (the folder, not the file).
+    single = _run("compare", source, "--season", "4")
+    spread = _run("compare", datasets["random"], *dask, "--season", "4")
+    assert spread.returncode == 0, spread.stderr.decode()
+    assert spread.stdout.split(b"\n")[1:] == single.stdout.split(b"\n")[1:]
+    assert spread.stdout.split(b"\n")[0].startswith(b"random: ")
+    # An unknown step is refused before anything is compared; a file is not a dataset.
+    unknown = _run("compare", datasets["blocks"], *dask, "--steps", "naive,nowcast")
+    assert unknown.returncode == 2
+    assert b"unknown forecast 'nowcast'" in unknown.stderr
+    refused = _run("compare", source, *dask)
+    assert refused.returncode == 2
+    assert b"--engine dask reads a dataset folder" in refused.stderr
+    for run in (unknown, refused):
+        assert b"Traceback" not in run.stderr
+
+
+def _run(*args: str | Path) -> subprocess.CompletedProcess[bytes]:
+    return subprocess.run(
+        [sys.executable, "-c", RUN, *map(str, args)],
+        capture_output=True,
+        timeout=600,
+        check=False,
+    )

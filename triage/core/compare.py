@@ -25,8 +25,9 @@ forecasts, steps and period lags only, never over series).
 from __future__ import annotations
 
 import itertools
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
+from pathlib import Path
 
 import numpy as np
 import pandas as pd
@@ -112,6 +113,7 @@ class Comparison:
         steps: The forecast value added chain, in order.
         season: The season m of ``snaive`` and of the MASE scale.
         columns: The window's calendar columns.
+        series: Series of the portfolio.
         window_cells: Window cells with actual demand.
         cells: Compared cells (demand and every forecast present).
         missing: Per forecast, window cells with demand where that forecast is missing.
@@ -127,6 +129,7 @@ class Comparison:
     steps: tuple[str, ...]
     season: int
     columns: np.ndarray
+    series: int
     window_cells: int
     cells: int
     missing: dict[str, int]
@@ -228,33 +231,80 @@ def compare(
     chain = default_steps(names) if steps is None else parse_steps(",".join(steps), names)
     cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
     lags = test_lags(portfolio)
-    sums = _block_sums(portfolio, names, cols, season, chain, lags, by_series=by_series)
+    sums = block_sums(portfolio, names, cols, season, chain, lags, by_series=by_series)
+    return compared(
+        sums,
+        names,
+        chain,
+        season=season,
+        cols=cols,
+        lags=lags,
+        path=portfolio.path,
+        key_columns=portfolio.key_columns,
+        text=portfolio.text_column,
+        by_series=by_series,
+        hint=lambda name: _no_history_hint(portfolio, name, int(cols[0])),
+    )
+
+
+def compared(
+    sums: Sums,
+    names: tuple[str, ...],
+    chain: tuple[str, ...],
+    *,
+    season: int,
+    cols: np.ndarray,
+    lags: int,
+    path: Path,
+    key_columns: tuple[str, ...],
+    text: Callable[[str, np.ndarray], pd.api.extensions.ExtensionArray],
+    by_series: bool,
+    hint: Callable[[str], str | None] | None = None,
+) -> Comparison:
+    """The comparison of every series' sums (:func:`block_sums`, or those of a dataset's
+    parts joined by :meth:`Sums.join`).
+
+    Args:
+        sums: The series' sums, in portfolio order.
+        names: The forecasts (:func:`forecast_names`); chain: the value-added steps.
+        season: Season m of ``snaive`` and of the MASE scale; cols: the window's columns.
+        lags: The test's autocovariance lags (:func:`test_lags`).
+        path: The portfolio's file or folder (named by the refusal).
+        key_columns: The key columns; text: a key column of the series at given rows
+            (``Portfolio.text_column``), for ``by_series``.
+        by_series: Also build one row per series x forecast (``sums`` made with it).
+        hint: What to do about a competing forecast missing in every window cell with
+            demand, when a longer window cannot help (None: the general hint).
+
+    Raises:
+        TriageError: No window cell has demand and every forecast.
+    """
     if sums.cells.sum() == 0:
         worst = names[int(np.argmax(sums.missing))]
-        hint = (
+        advice = (
             "Each forecast must be present in the same periods; naive needs the previous "
             "period's actual"
             + (f", snaive the actual {season} periods back" if season > 1 else "")
             + ". Try a longer --window"
             + (" or a smaller --season." if season > 1 else ".")
         )
-        if worst in portfolio.competing and sums.missing.max() == sums.window_cells:
-            hint = _no_history_hint(portfolio, worst, int(cols[0])) or hint
+        if hint is not None and worst not in BUILT_IN and sums.missing.max() == sums.window_cells:
+            advice = hint(worst) or advice
         raise TriageError(
-            f"{portfolio.path}: no cell of the scoring window ({len(cols)} latest periods with "
+            f"{path}: no cell of the scoring window ({len(cols)} latest periods with "
             f"actual demand) has demand and every compared forecast ({', '.join(names)}); "
             f"{worst} is missing in {int(sums.missing.max()):,} of the "
             f"{sums.window_cells:,} cells with demand.",
-            hint=hint,
+            hint=advice,
         )
-    scale = portfolio.naive_scale(season)
-    series = _series_measures(sums, names, scale, chain)
-    table = _portfolio_table(portfolio, sums, series, names, chain, lags)
+    series = _series_measures(sums, names, sums.scale, chain)
+    table = _portfolio_table(sums, series, names, chain, lags)
     return Comparison(
         names=names,
         steps=chain,
         season=season,
         columns=cols,
+        series=len(sums.cells),
         window_cells=int(sums.window_cells),
         cells=int(sums.cells.sum()),
         missing={n: int(m) for n, m in zip(names, sums.missing, strict=True)},
@@ -262,7 +312,9 @@ def compare(
         test_lags=lags,
         table=table,
         verdict=verdict(table),
-        by_series=_series_table(portfolio, sums, series, names, chain) if by_series else None,
+        by_series=(
+            _series_table(key_columns, text, sums, series, names, chain) if by_series else None
+        ),
     )
 
 
@@ -387,8 +439,13 @@ def last_step_loss(
 
 
 @dataclass
-class _Sums:
-    """Per series (columns: one per forecast) and per period sums over the compared cells."""
+class Sums:
+    """Per series (columns: one per forecast) and per period sums over the compared cells.
+
+    The sums of a portfolio's parts that each hold whole series join into the whole's
+    (:meth:`join`): the per-series rows are the parts' rows, the per-period sums and counts
+    their totals.
+    """
 
     cells: np.ndarray  # n
     demand: np.ndarray  # n
@@ -406,6 +463,42 @@ class _Sums:
     series_stat: np.ndarray | None  # n x S
     window_cells: int
     missing: np.ndarray  # K
+    scale: np.ndarray  # n: the MASE scale (``Portfolio.naive_scale``)
+
+    @classmethod
+    def join(cls, parts: Sequence[Sums], order: np.ndarray) -> Sums:
+        """The sums of several parts' series as one portfolio's.
+
+        Args:
+            parts: Each part's sums (made with the same forecasts, window and options).
+            order: Positions in the parts' series, one after the other, in portfolio order.
+
+        The per-period sums are added part by part: they may differ from a single portfolio's
+        in the last bits (the order of the additions); the per-series ones are the same.
+        """
+        first = parts[0]
+
+        def rows(field: str) -> np.ndarray | None:
+            if getattr(first, field) is None:
+                return None
+            joined: np.ndarray = np.concatenate([getattr(p, field) for p in parts])[order]
+            return joined
+
+        def total(field: str) -> np.ndarray:
+            added: np.ndarray = np.sum([getattr(p, field) for p in parts], axis=0)
+            return added
+
+        per_series = (
+            "cells", "demand", "ape_cells", "abs_error", "bias", "sq_error", "ape", "capped",
+            "abs_value", "bias_value", "series_p", "series_stat", "scale",
+        )  # fmt: skip
+        return cls(
+            **{field: rows(field) for field in per_series},  # type: ignore[arg-type]
+            period_abs=total("period_abs"),
+            period_cells=total("period_cells"),
+            missing=total("missing"),
+            window_cells=sum(p.window_cells for p in parts),
+        )
 
 
 def _source(portfolio: Portfolio, name: str, season: int) -> tuple[np.ndarray, int]:
@@ -502,7 +595,7 @@ def series_scores(
     )
 
 
-def _block_sums(
+def block_sums(
     portfolio: Portfolio,
     names: tuple[str, ...],
     cols: np.ndarray,
@@ -511,7 +604,16 @@ def _block_sums(
     lags: int,
     *,
     by_series: bool,
-) -> _Sums:
+) -> Sums:
+    """Every series' sums over its compared window cells, and their per-period totals.
+
+    Args:
+        portfolio: The portfolio (or a part of a dataset holding whole series, on its calendar).
+        names: The forecasts (:func:`forecast_names`); cols: the window's columns.
+        season: Season m of ``snaive`` and of the MASE scale.
+        chain: The value-added steps; lags: the test's autocovariance lags.
+        by_series: Also each series' test of each step.
+    """
     n, k, w = portfolio.n_series, len(names), len(cols)
     sources = [_source(portfolio, name, season) for name in names]
     priced = portfolio.price is not None
@@ -574,7 +676,7 @@ def _block_sums(
                 stat, p = diebold_mariano(diff.T, both.T, lags)
                 series_stat[rows, s] = stat
                 series_p[rows, s] = p
-    return _Sums(
+    return Sums(
         cells=cells,
         demand=demand_sum,
         ape_cells=ape_cells,
@@ -591,6 +693,7 @@ def _block_sums(
         series_stat=series_stat,
         window_cells=window_cells,
         missing=missing,
+        scale=np.asarray(portfolio.naive_scale(season), dtype=np.float64),
     )
 
 
@@ -659,7 +762,7 @@ class _SeriesMeasures:
 
 
 def _series_measures(
-    sums: _Sums, names: tuple[str, ...], scale: np.ndarray, chain: tuple[str, ...]
+    sums: Sums, names: tuple[str, ...], scale: np.ndarray, chain: tuple[str, ...]
 ) -> _SeriesMeasures:
     cells = sums.cells.astype(np.float64)[:, None]
     mae = metrics._ratio(sums.abs_error, cells)
@@ -703,8 +806,7 @@ def min_rank(values: np.ndarray) -> np.ndarray:
 
 
 def _portfolio_table(
-    portfolio: Portfolio,
-    sums: _Sums,
+    sums: Sums,
     series: _SeriesMeasures,
     names: tuple[str, ...],
     chain: tuple[str, ...],
@@ -807,8 +909,9 @@ def _lowest(values: np.ndarray, allowed: np.ndarray) -> int | None:
 
 
 def _series_table(
-    portfolio: Portfolio,
-    sums: _Sums,
+    key_columns: tuple[str, ...],
+    text: Callable[[str, np.ndarray], pd.api.extensions.ExtensionArray],
+    sums: Sums,
     series: _SeriesMeasures,
     names: tuple[str, ...],
     chain: tuple[str, ...],
@@ -816,7 +919,7 @@ def _series_table(
     """One row per series x forecast: series in portfolio order, forecasts in table order."""
     n, k = sums.abs_error.shape
     order = np.repeat(np.arange(n), k)
-    data: dict[str, object] = {c: portfolio.text_column(c, order) for c in portfolio.key_columns}
+    data: dict[str, object] = {c: text(c, order) for c in key_columns}
 
     def flat(values: np.ndarray) -> np.ndarray:
         flattened: np.ndarray = np.ascontiguousarray(values).reshape(-1)

@@ -33,11 +33,14 @@ import numpy as np
 import pandas as pd
 
 from triage.core import schema
+from triage.core.compare import Comparison, Sums
 from triage.core.dataset import (
     Dataset,
     PartSummary,
     Plan,
+    arrow_text,
     build_part,
+    key_order,
     measures_of,
     on_grid,
     open_dataset,
@@ -46,6 +49,7 @@ from triage.core.dataset import (
     read_part,
     score_part,
     score_whole_part,
+    whole_part,
 )
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
@@ -148,24 +152,12 @@ def score_dataset(
             portfolio (named as the local engine names it).
         TriageError: ``steps`` that the dataset's forecasts do not allow.
     """
-    import dask.dataframe as dd
-
     from triage.core.compare import forecast_names, parse_steps
 
-    dataset = open_dataset(folder)
+    planned = _planned(folder, client, columns=columns, options=options, lag=lag)
+    dataset, plan, described = planned.dataset, planned.plan, planned.described
     parts = range(len(dataset.files))
-    summaries: list[PartSummary] = client.gather(
-        client.map(_summary, parts, dataset=dataset, columns=columns, options=options)
-    )
-    plan = plan_dataset(
-        dataset, summaries, lag=lag, price_header=(columns or {}).get(schema.PRICE, schema.PRICE)
-    )
     cols = plan.window_cols(window)
-    # The first series of the first part, on a worker: it describes the whole (calendar, lag,
-    # forecasts, prices) for the steps' check and the output, and gives the rows' shapes.
-    described, frame_meta = client.submit(
-        _described, plan=plan, dataset=dataset, columns=columns, options=options
-    ).result()
     chain = (
         None if steps is None else parse_steps(",".join(steps), forecast_names(described, season))
     )
@@ -183,23 +175,224 @@ def score_dataset(
             frame = pd.concat(frames, ignore_index=True)
             del frames
         else:
-            assert frame_meta is not None
-            meta = score_part(frame_meta, plan, cols, season, chain, errors)
-            # from_map gives a reader that takes ``columns`` the columns it wants (projection):
-            # the column map goes by another name.
-            reader = functools.partial(
-                _part_rows, dataset=dataset, mapping=columns, options=options
-            )
-            rows = dd.from_map(  # type: ignore[no-untyped-call]
-                reader, parts, meta=frame_meta, enforce_metadata=False
-            )
-            tasks = max(len(dataset.files), math.ceil(plan.rows / ROWS_PER_TASK))
-            rows = rows.shuffle(on=list(plan.key_columns), npartitions=tasks)
+            assert planned.frame_meta is not None
+            meta = score_part(planned.frame_meta, plan, cols, season, chain, errors)
+            rows = _shuffled(planned, columns=columns, options=options)
             scored = rows.map_partitions(
                 score_part, plan, cols, season, chain, errors, meta=meta, enforce_metadata=False
             )
             frame = scored.compute()
     return Scored(plan=plan, described=described, measures=measures_of(frame, plan), steps=chain)
+
+
+@dataclass(frozen=True)
+class _Planned:
+    """A dataset's plan, made from its parts' summaries on the cluster."""
+
+    dataset: Dataset
+    plan: Plan
+    described: Portfolio
+    """The first series of the first part, on the plan (:func:`_described`)."""
+    frame_meta: pd.DataFrame | None
+    """The empty frame of the rows as the shuffle carries them (None: parts hold whole
+    series)."""
+
+
+def _planned(
+    folder: Path,
+    client: Any,
+    *,
+    columns: dict[str, str] | None,
+    options: FileOptions | None,
+    lag: int | None,
+) -> _Planned:
+    """Every part read and checked on a worker for its summary; the plan made from them."""
+    dataset = open_dataset(folder)
+    summaries: list[PartSummary] = client.gather(
+        client.map(
+            _summary, range(len(dataset.files)), dataset=dataset, columns=columns,
+            options=options,
+        )
+    )  # fmt: skip
+    plan = plan_dataset(
+        dataset, summaries, lag=lag, price_header=(columns or {}).get(schema.PRICE, schema.PRICE)
+    )
+    # The first series of the first part, on a worker: it describes the whole (calendar, lag,
+    # forecasts, prices) for the options' checks and the output, and gives the rows' shapes.
+    described, frame_meta = client.submit(
+        _described, plan=plan, dataset=dataset, columns=columns, options=options
+    ).result()
+    return _Planned(dataset, plan, described, frame_meta)
+
+
+def _shuffled(
+    planned: _Planned, *, columns: dict[str, str] | None, options: FileOptions | None
+) -> Any:
+    """The dataset's rows as a Dask frame shuffled by series key: each partition holds whole
+    series, about :data:`ROWS_PER_TASK` rows."""
+    import dask.dataframe as dd
+
+    dataset, plan = planned.dataset, planned.plan
+    # from_map gives a reader that takes ``columns`` the columns it wants (projection): the
+    # column map goes by another name.
+    reader = functools.partial(_part_rows, dataset=dataset, mapping=columns, options=options)
+    rows = dd.from_map(  # type: ignore[no-untyped-call]
+        reader, range(len(dataset.files)), meta=planned.frame_meta, enforce_metadata=False
+    )
+    tasks = max(len(dataset.files), math.ceil(plan.rows / ROWS_PER_TASK))
+    return rows.shuffle(on=list(plan.key_columns), npartitions=tasks)
+
+
+@dataclass(frozen=True)
+class Compared:
+    """A dataset's forecasts compared on the cluster (``triage compare --engine dask``)."""
+
+    plan: Plan
+    described: Portfolio
+    """What the renderers need of the whole (see :attr:`Scored.described`)."""
+    comparison: Comparison
+
+
+def compare_dataset(
+    folder: Path,
+    client: Any,
+    *,
+    window: int,
+    season: int,
+    steps: Sequence[str] | None = None,
+    by_series: bool = False,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+    lag: int | None = None,
+) -> Compared:
+    """Read and check the dataset ``folder`` on the cluster of ``client`` and compare its
+    forecasts as ``compare.compare`` compares a single file's.
+
+    Each task (a part holding whole series, or the shuffled rows of whole series) sums its
+    series' compared cells (``compare.block_sums``); the client joins the sums in key order
+    (``compare.Sums.join``) and measures them once (``compare.compared``). Every per-series
+    sum, and so every portfolio total but the test's, is the single file's to the bit; the
+    test's per-period sums are added in another order (the last bits may differ).
+
+    Raises:
+        LoadError: A part cannot be read, or the parts do not make one portfolio.
+        TriageError: ``steps`` the forecasts do not allow, or no cell to compare.
+    """
+    import dask
+
+    from triage.core import compare as comparing
+
+    planned = _planned(folder, client, columns=columns, options=options, lag=lag)
+    plan, described = planned.plan, planned.described
+    names = comparing.forecast_names(described, season)
+    chain = (
+        comparing.default_steps(names)
+        if steps is None
+        else comparing.parse_steps(",".join(steps), names)
+    )
+    cols = plan.window_cols(window)
+    lags = comparing.test_lags(described)
+    summed = functools.partial(
+        _part_sums, key_columns=plan.key_columns, names=names, cols=cols, season=season,
+        chain=chain, lags=lags, by_series=by_series,
+    )  # fmt: skip
+    with _workers_lost():
+        if plan.whole_series:
+            pieces = client.gather(
+                client.map(
+                    _whole_part_sums, range(len(planned.dataset.files)), plan=plan,
+                    dataset=planned.dataset, columns=columns, options=options, summed=summed,
+                )
+            )  # fmt: skip
+        else:
+            rows = _shuffled(planned, columns=columns, options=options)
+            tasks = [
+                dask.delayed(_rows_sums)(piece, plan=plan, summed=summed)
+                for piece in rows.to_delayed()
+            ]
+            pieces = client.gather(client.compute(tasks))
+    pieces = [piece for piece in pieces if piece is not None]
+    texts = {c: _concat_text([piece.keys[c] for piece in pieces]) for c in plan.key_columns}
+    order = np.asarray(key_order(texts, plan.key_columns))
+    sums = comparing.Sums.join([piece.sums for piece in pieces], order)
+    del pieces
+    comparison = comparing.compared(
+        sums,
+        names,
+        chain,
+        season=season,
+        cols=cols,
+        lags=lags,
+        path=plan.dataset.folder,
+        key_columns=plan.key_columns,
+        text=_text_of({c: values.take(order) for c, values in texts.items()}),
+        by_series=by_series,
+    )
+    return Compared(plan=plan, described=described, comparison=comparison)
+
+
+@dataclass(frozen=True)
+class _PartSums:
+    """What a task gives the comparison: its series' keys (Arrow text) and sums."""
+
+    keys: dict[str, Any]
+    sums: Sums
+
+
+def _part_sums(
+    portfolio: Portfolio,
+    *,
+    key_columns: tuple[str, ...],
+    names: tuple[str, ...],
+    cols: np.ndarray,
+    season: int,
+    chain: tuple[str, ...],
+    lags: int,
+    by_series: bool,
+) -> _PartSums:
+    from triage.core.compare import block_sums
+
+    order = np.arange(portfolio.n_series)
+    keys = {c: arrow_text(pd.Series(portfolio.text_column(c, order))) for c in key_columns}
+    sums = block_sums(portfolio, names, cols, season, chain, lags, by_series=by_series)
+    return _PartSums(keys, sums)
+
+
+def _whole_part_sums(
+    part: int,
+    *,
+    plan: Plan,
+    dataset: Dataset,
+    columns: dict[str, str] | None,
+    options: FileOptions | None,
+    summed: Callable[[Portfolio], _PartSums],
+) -> _PartSums | None:
+    portfolio = whole_part(dataset, part, plan, columns=columns, options=options)
+    return None if portfolio is None else summed(portfolio)
+
+
+def _rows_sums(
+    frame: pd.DataFrame, *, plan: Plan, summed: Callable[[Portfolio], _PartSums]
+) -> _PartSums | None:
+    return None if frame.empty else summed(build_part(frame, plan, some=True))
+
+
+def _concat_text(pieces: list[Any]) -> Any:
+    import pyarrow as pa
+
+    return pa.concat_arrays(pieces) if pieces else pa.array([], type=pa.large_string())
+
+
+def _text_of(texts: dict[str, Any]) -> Callable[[str, np.ndarray], Any]:
+    """Key text of series at given rows, from their Arrow text in portfolio order."""
+    import pyarrow as pa
+
+    def text(name: str, taken: np.ndarray) -> Any:
+        return pd.array(
+            texts[name].take(pa.array(taken)), dtype=pd.StringDtype("pyarrow", na_value=np.nan)
+        )
+
+    return text
 
 
 @contextlib.contextmanager

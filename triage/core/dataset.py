@@ -588,28 +588,38 @@ def score_whole_part(
     options: FileOptions | None = None,
     errors: bool = False,
 ) -> pd.DataFrame:
-    """:func:`score_part` of a part that holds whole series (``plan.whole_series``).
+    """:func:`score_part` of a part that holds whole series (``plan.whole_series``), read by
+    :func:`whole_part`."""
+    portfolio = whole_part(dataset, part, plan, columns=columns, options=options)
+    if portfolio is None:
+        return _no_measures(plan, len(cols) if errors else 0)
+    measures = series_measures(portfolio, cols, season, steps)
+    return measures_frame(portfolio, measures, cols if errors else None)
+
+
+def whole_part(
+    dataset: Dataset,
+    part: int,
+    plan: Plan,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> Portfolio | None:
+    """The portfolio of a part that holds whole series (``plan.whole_series``), on the plan.
 
     The part is read as a single file is (``read_portfolio``: streamed when it can be), then
     placed on the dataset's calendar (:func:`on_grid`). A dataset with forecast lags reads the
-    part the full way: its lag is the dataset's, which the part's own history may not show.
+    part the full way (:func:`read_part`, :func:`build_part`): its lag is the dataset's, which
+    the part's own history may not show. None: a part without rows (read the full way).
     """
     from triage.core.read import read_portfolio
 
     if schema.LAG in plan.columns:
-        return score_part(
-            read_part(dataset, part, columns=columns, options=options).frame,
-            plan,
-            cols,
-            season,
-            steps,
-            errors,
-        )
-    portfolio = on_grid(
+        frame = read_part(dataset, part, columns=columns, options=options).frame
+        return None if frame.empty else build_part(frame, plan, some=True)
+    return on_grid(
         read_portfolio(dataset.files[part], columns=columns, options=options), plan, dataset, part
     )
-    measures = series_measures(portfolio, cols, season, steps)
-    return measures_frame(portfolio, measures, cols if errors else None)
 
 
 def on_grid(portfolio: Portfolio, plan: Plan, dataset: Dataset, part: int) -> Portfolio:
@@ -687,16 +697,14 @@ def measures_of(frame: pd.DataFrame, plan: Plan) -> SeriesMeasures:
 
     The rows are put in key order (item, then location, as the builder orders series: by code
     point, which is the byte order of UTF-8 that Arrow sorts by), so that every ranking breaks
-    ties as a single file's would. The frame's columns are taken out as they are converted.
+    ties as a single file's would (:func:`key_order`). The frame's columns are taken out as
+    they are converted.
     """
     import pyarrow as pa
-    import pyarrow.compute as pc
 
     keys = plan.key_columns
-    texts = {c: _arrow_text(frame.pop(c)) for c in (*keys, *plan.attributes) if c in frame}
-    order_keys = pa.table({c: texts[c] for c in keys})
-    order = pc.sort_indices(order_keys, sort_keys=[(c, "ascending") for c in keys])
-    del order_keys
+    texts = {c: arrow_text(frame.pop(c)) for c in (*keys, *plan.attributes) if c in frame}
+    order = key_order(texts, keys)
     texts = {c: values.take(order) for c, values in texts.items()}
     at = np.asarray(order)
     numbers = {c: frame.pop(c).to_numpy()[at] for c in list(frame.columns) if c in _NUMERIC}
@@ -727,7 +735,18 @@ def measures_of(frame: pd.DataFrame, plan: Plan) -> SeriesMeasures:
     )
 
 
-def _arrow_text(column: pd.Series) -> Any:
+def key_order(texts: dict[str, Any], keys: Sequence[str]) -> Any:
+    """The positions of series, given their key columns' text (Arrow arrays), in key order:
+    item, then location, by code point as the builder orders series (the byte order of UTF-8,
+    which Arrow sorts by)."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    table = pa.table({c: texts[c] for c in keys})
+    return pc.sort_indices(table, sort_keys=[(c, "ascending") for c in keys])
+
+
+def arrow_text(column: pd.Series) -> Any:
     """A text column (Arrow-backed, categorical or object) as one Arrow large_string array."""
     import pyarrow as pa
 

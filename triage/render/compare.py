@@ -72,7 +72,7 @@ def to_json(portfolio: Portfolio, result: Comparison, window: int) -> str:
         "cycle": portfolio.cycle,
         "frequency": portfolio.calendar.freq,
         "lag": portfolio.lag,
-        "window": window_info(portfolio, window),
+        "window": window_info(portfolio, window, result.columns),
         "season": result.season,
         "error_sign": "forecast - demand (positive = over-forecast)",
         "window_cells": result.window_cells,
@@ -174,11 +174,11 @@ def verdict_lines(result: Comparison) -> list[str]:
 
 def compare_table(portfolio: Portfolio, result: Comparison, window: int) -> str:
     """The readable comparison: what was compared, the table, the verdict."""
-    win = window_info(portfolio, window)
+    win = window_info(portfolio, window, result.columns)
     priced = "abs_error_value" in result.table
     missing = [f"{_shown(n)} {count(m)}" for n, m in result.missing.items() if m]
     lines = [
-        f"{visible(portfolio.path.name)}: {portfolio.n_series:,} series, "
+        f"{visible(portfolio.path.name)}: {result.series:,} series, "
         f"{portfolio.calendar.freq}, window {win['first']} .. {win['last']} "
         f"({win['periods']} period{'' if win['periods'] == 1 else 's'})"
         + (f", lag {portfolio.lag}" if portfolio.lag is not None else ""),
