@@ -24,7 +24,10 @@ baseline-series`` times the baseline's: 1.0 is linear scaling.
 into parts that each hold a slice of every series, which the engine shuffles by series key;
 the ratio is then to the local run on the same rows (1.0: as fast as one process on one file).
 
-Results go to stderr and ``OUT/scale-LAYOUT-SERIESs.json``.
+``--command compare`` measures ``triage compare`` the same way (both runs compare the
+generator's two competing forecasts, naive and the file's forecast).
+
+Results go to stderr and ``OUT/scale-LAYOUT-SERIESs.json`` (``scale-compare-…`` for compare).
 """
 
 from __future__ import annotations
@@ -231,6 +234,12 @@ def main(argv: list[str] | None = None) -> int:
         help="blocks: --series series generated in parts of whole series (no shuffle); period "
         "or random: the baseline file cut into parts that spread every series (a shuffle)",
     )
+    parser.add_argument(
+        "--command",
+        choices=("rank", "compare"),
+        default="rank",
+        help="the command measured, on one file and on the dataset (default rank)",
+    )
     parser.add_argument("--make-part", type=int, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
     if args.make_part is not None:
@@ -249,13 +258,16 @@ def main(argv: list[str] | None = None) -> int:
     scratch.mkdir(parents=True, exist_ok=True)
     triage = triage_command()
     local = watched(
-        [*triage, "rank", str(base), "--format", "csv", "--output", str(scratch / "base.csv"),
+        [*triage, args.command, str(base), "--format", "csv", "--output", str(scratch / "base.csv"),
          "--force"],
         args.timeout,
     )  # fmt: skip
-    print(f"local {args.baseline_series:,}: {local['seconds']:.1f} s", file=sys.stderr)
+    print(
+        f"local {args.command} {args.baseline_series:,}: {local['seconds']:.1f} s",
+        file=sys.stderr,
+    )
     spread = watched(
-        [*triage, "rank", str(folder), "--engine", "dask", "--workers", str(args.workers),
+        [*triage, args.command, str(folder), "--engine", "dask", "--workers", str(args.workers),
          "--memory-limit", args.memory_limit, "--format", "csv",
          "--output", str(scratch / "spread.csv"), "--force"],
         args.timeout,
@@ -263,6 +275,7 @@ def main(argv: list[str] | None = None) -> int:
     scale = args.series / args.baseline_series
     result = {
         "series": args.series,
+        "command": args.command,
         "layout": args.layout,
         "part_series": args.part_series,
         "baseline_series": args.baseline_series,
@@ -273,14 +286,17 @@ def main(argv: list[str] | None = None) -> int:
         "dask": spread,
         "linear_ratio": spread["seconds"] / (scale * local["seconds"]),
     }
-    (args.out / f"scale-{args.layout}-{args.series}s.json").write_text(
+    name = "scale" if args.command == "rank" else f"scale-{args.command}"
+    (args.out / f"{name}-{args.layout}-{args.series}s.json").write_text(
         json.dumps(result, indent=1) + "\n"
     )
     gb = 1e9
     print(
-        f"local rank, {args.baseline_series:,} series (one file): {local['seconds']:.1f} s, "
+        f"local {args.command}, {args.baseline_series:,} series (one file): "
+        f"{local['seconds']:.1f} s, "
         f"peak {local['client_peak'] / gb:.2f} GB\n"
-        f"dask rank, {args.series:,} series ({args.workers} workers, {args.memory_limit} each): "
+        f"dask {args.command}, {args.series:,} series "
+        f"({args.workers} workers, {args.memory_limit} each): "
         f"{spread['seconds']:.1f} s, exit {spread['returncode']}; command peak "
         f"{spread['client_peak'] / gb:.2f} GB; worker peaks "
         + ", ".join(f"{w / gb:.2f} GB" for w in spread["worker_peaks"])
