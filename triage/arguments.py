@@ -10,7 +10,7 @@ from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
 from triage.core.errors import TriageError
-from triage.core.settings import LAG, SEASON, WINDOW, Setting
+from triage.core.settings import LAG, SEASON, WINDOW, ScoreSettings, Setting
 from triage.core.text import visible as printable
 
 if TYPE_CHECKING:
@@ -249,6 +249,22 @@ def engine_args(parser: argparse.ArgumentParser) -> None:
 
 #: The engines ``--engine`` chooses from; the first is the default.
 ENGINES = ("local", "dask")
+
+
+def dask_reading(args: argparse.Namespace, settings: ScoreSettings) -> dict[str, Any]:
+    """What a command on the Dask engine passes on about the dataset and its scoring: window,
+    season, steps (``--steps`` as given; checked against the dataset's forecasts there) and
+    the read options (``read_args``, without ``--sheet``)."""
+    read = read_args(args)
+    steps = getattr(args, "steps", None)
+    return {
+        "window": settings.window,
+        "season": settings.season,
+        "steps": None if steps is None else (steps,),
+        "columns": read["columns"],
+        "options": read["options"],
+        "lag": read["lag"],
+    }
 
 
 @contextlib.contextmanager

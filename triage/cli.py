@@ -16,6 +16,7 @@ from triage import __version__
 from triage.arguments import (
     config_arg,
     dask_client,
+    dask_reading,
     engine_args,
     force_arg,
     format_arg,
@@ -281,17 +282,12 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
     from triage.core.dask_engine import score_dataset
     from triage.core.ranking import NOTHING_TO_SCORE, SCORABLE_HINT, ranked
 
-    read = read_args(args)
+    reading = dask_reading(args, settings)
     with dask_client(args) as client:
         scored = score_dataset(
             args.portfolio,
             client,
-            window=settings.window,
-            season=settings.season,
-            steps=None if args.steps is None else (args.steps,),
-            columns=read["columns"],
-            options=read["options"],
-            lag=read["lag"],
+            **reading,
             errors=args.group is not None,
             check=None if args.group is None else _group_columns_of(args),
         )

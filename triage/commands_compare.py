@@ -14,13 +14,13 @@ from typing import TYPE_CHECKING
 
 from triage.arguments import (
     dask_client,
+    dask_reading,
     engine_args,
     force_arg,
     format_arg,
     load_portfolio,
     note,
     portfolio_args,
-    read_args,
     refuse_overwriting,
     score_args,
     steps_arg,
@@ -107,19 +107,9 @@ def _compare_dask(
     portfolio describing the dataset (its calendar, lag and path) for the output."""
     from triage.core.dask_engine import compare_dataset
 
-    read = read_args(args)
+    reading = dask_reading(args, settings)
     with dask_client(args) as client:
-        compared = compare_dataset(
-            args.portfolio,
-            client,
-            window=settings.window,
-            season=settings.season,
-            steps=None if args.steps is None else (args.steps,),
-            by_series=args.by_series,
-            columns=read["columns"],
-            options=read["options"],
-            lag=read["lag"],
-        )
+        compared = compare_dataset(args.portfolio, client, by_series=args.by_series, **reading)
     for notice in compared.plan.notices:
         note(notice)
     return compared.described, compared.comparison

@@ -312,6 +312,8 @@ def compare_dataset(
             ]
             pieces = client.gather(client.compute(tasks))
     pieces = [piece for piece in pieces if piece is not None]
+    if not pieces:
+        raise TriageError(f"{plan.dataset.folder}: the dataset's parts hold no series to compare.")
     texts = {c: _concat_text([piece.keys[c] for piece in pieces]) for c in plan.key_columns}
     order = np.asarray(key_order(texts, plan.key_columns))
     sums = comparing.Sums.join([piece.sums for piece in pieces], order)
