@@ -94,6 +94,7 @@ def build_parser() -> argparse.ArgumentParser:
     check = sub.add_parser("check", help="report on the data quality of a portfolio file")
     portfolio_args(check)
     score_args(check)
+    engine_args(check)
     check.set_defaults(handler=_cmd_check)
 
     review = sub.add_parser(
@@ -446,18 +447,46 @@ def _show_groups(
 
 
 def _cmd_check(args: argparse.Namespace) -> int:
-    from triage.core.ranking import require_scorable
+    from triage.core.metrics import window_columns
+    from triage.core.quality import quality
+    from triage.core.ranking import NOTHING_TO_SCORE, SCORABLE_HINT
     from triage.render import scorecard as report
 
     settings = ScoreSettings.from_args(args)
-    # Several lags are reported (with the --lag choice), not refused.
-    portfolio = load_portfolio(args, smallest_lag=True, dataset=True)
+    if args.engine == "dask":
+        from triage.core.dask_engine import check_dataset
+
+        reading = dask_reading(args, settings)
+        with dask_client(args) as client:
+            checked = check_dataset(
+                args.portfolio,
+                client,
+                window=settings.window,
+                columns=reading["columns"],
+                options=reading["options"],
+                lag=reading["lag"],
+            )
+        portfolio, found = checked.described, checked.found
+        cols = checked.plan.window_cols(settings.window)
+    else:
+        # Several lags are reported (with the --lag choice), not refused.
+        portfolio = load_portfolio(args, smallest_lag=True, dataset=True)
+        cols = window_columns(portfolio.demand, portfolio.last_actual, settings.window)
+        found = quality(portfolio, cols)
     print(
         report.check_text(
-            portfolio, settings.window, settings.season, lag_given=settings.lag is not None
+            portfolio,
+            settings.window,
+            settings.season,
+            lag_given=settings.lag is not None,
+            found=found,
+            cols=cols,
         )
     )
-    require_scorable(portfolio, settings.window)
+    if not found.scorable:
+        raise TriageError(
+            f"{portfolio.path}: {NOTHING_TO_SCORE.format(periods=len(cols))}", hint=SCORABLE_HINT
+        )
     return 0
 
 

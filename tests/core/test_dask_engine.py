@@ -291,3 +291,78 @@ def _run(*args: str | Path) -> subprocess.CompletedProcess[bytes]:
         timeout=600,
         check=False,
     )
+
+
+@pytest.mark.parametrize("layout", LAYOUTS)
+def test_dask_checks_every_partitioning_as_the_single_file(
+    source: Path, datasets: dict[str, Path], client: Any, layout: str
+) -> None:
+    # check on the Dask engine: each task counts its whole series (quality.quality), the
+    # client adds the counts up (Quality.total). Whole numbers: the single file's exactly.
+    from triage.core.dask_engine import check_dataset
+    from triage.core.metrics import window_columns
+    from triage.core.quality import quality
+
+    portfolio = read_portfolio(source)
+    want = quality(portfolio, window_columns(portfolio.demand, portfolio.last_actual, 13))
+    got = check_dataset(datasets[layout], client, window=13)
+    assert got.found == want
+    assert (got.described.rows, got.described.path) == (portfolio.rows, datasets[layout])
+    # The same counts taken straight from the long rows with pandas, not from dense arrays.
+    rows = pq.read_table(source).to_pandas()
+    periods = np.sort(rows.loc[rows["demand"].notna(), "period"].unique())
+    window = rows["period"].isin(periods[-13:])
+    both = rows["demand"].notna() & rows["forecast"].notna()
+    assert got.found.series == len(rows[["item", "location"]].drop_duplicates()) >= 19_000
+    assert got.found.negative == (rows["demand"] < 0).sum()
+    assert got.found.zero == (rows["demand"] == 0).sum() > 0
+    assert got.found.scorable == (window & both).sum() > 0
+    assert (
+        got.found.no_forecast == (window & rows["demand"].notna() & rows["forecast"].isna()).sum()
+    )
+    forward = rows["period"] > periods[-1]
+    assert got.found.forward == (forward & rows["forecast"].notna()).sum() > 0
+    assert sum(got.found.patterns) == got.found.series
+
+
+def test_check_engine_dask_prints_the_single_files_report(
+    tmp_path: Path, source: Path, client: Any
+) -> None:
+    # Two forecast lags, one part each: without --lag both engines report the smallest lag and
+    # say which to choose; the report is the single file's but for the first line (the name).
+    rows = pq.read_table(source).to_pandas()
+    rows = rows[rows["item"].isin(rows["item"].unique()[:40])]
+    both = pd.concat(
+        [rows.assign(lag=1), rows.assign(lag=2, forecast=rows["forecast"] * 1.1)],
+        ignore_index=True,
+    )
+    single = tmp_path / "lags.parquet"
+    pq.write_table(pa.Table.from_pandas(both, preserve_index=False), single)
+    folder = tmp_path / "lags"
+    folder.mkdir()
+    for lag, part in both.groupby("lag"):
+        pq.write_table(pa.Table.from_pandas(part, preserve_index=False), folder / f"{lag}.parquet")
+    dask = ("--engine", "dask", "--scheduler", client.scheduler.address)
+    said = {}
+    for lag in ((), ("--lag", "2")):
+        want = _run("check", single, *lag)
+        got = _run("check", folder, *dask, *lag)
+        assert got.returncode == want.returncode == 0, got.stderr.decode()
+        assert got.stdout.split(b"\n")[1:] == want.stdout.split(b"\n")[1:]
+        assert got.stdout.startswith(f"file           {folder}\n".encode())
+        said[lag] = got.stdout
+    assert b"no --lag given, so this report scores lag 1 (the smallest)" in said[()]
+    assert b"lags           1, 2; scoring lag 2\n" in said[("--lag", "2")]
+    # No window period with both an actual and a forecast: reported, then refused (exit 2).
+    empty = tmp_path / "unscorable"
+    empty.mkdir()
+    late = rows["period"] >= np.sort(rows.loc[rows["demand"].notna(), "period"].unique())[-13]
+    cut = rows.assign(forecast=rows["forecast"].where(~late))
+    half = len(cut) // 2
+    for n, part in enumerate((cut.iloc[:half], cut.iloc[half:])):
+        pq.write_table(pa.Table.from_pandas(part, preserve_index=False), empty / f"{n}.parquet")
+    refused = _run("check", empty, *dask)
+    assert refused.returncode == 2
+    assert b"not ok: no period of the scoring window" in refused.stdout
+    assert b"nothing to score" in refused.stderr
+    assert b"Traceback" not in refused.stderr

@@ -27,7 +27,7 @@ import math
 from collections.abc import Callable, Iterator, Sequence
 from dataclasses import dataclass
 from pathlib import Path
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 import pandas as pd
@@ -54,11 +54,14 @@ from triage.core.dataset import (
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.portfolio import Portfolio, UnitPrices
+from triage.core.quality import Quality, quality
 from triage.core.ranking import SeriesMeasures
 
 #: Rows of the long data per scoring task: a task's dense arrays and rows stay well inside a
 #: worker's memory (about 60 bytes a row and 8 bytes a cell per array).
 ROWS_PER_TASK = 4_000_000
+
+_T = TypeVar("_T")
 
 
 @dataclass(frozen=True)
@@ -205,8 +208,10 @@ def _planned(
     columns: dict[str, str] | None,
     options: FileOptions | None,
     lag: int | None,
+    smallest_lag: bool = False,
 ) -> _Planned:
-    """Every part read and checked on a worker for its summary; the plan made from them."""
+    """Every part read and checked on a worker for its summary; the plan made from them
+    (``smallest_lag``: as ``dataset.plan_dataset``)."""
     dataset = open_dataset(folder)
     summaries: list[PartSummary] = client.gather(
         client.map(
@@ -215,7 +220,11 @@ def _planned(
         )
     )  # fmt: skip
     plan = plan_dataset(
-        dataset, summaries, lag=lag, price_header=(columns or {}).get(schema.PRICE, schema.PRICE)
+        dataset,
+        summaries,
+        lag=lag,
+        smallest_lag=smallest_lag,
+        price_header=(columns or {}).get(schema.PRICE, schema.PRICE),
     )
     # The first series of the first part, on a worker: it describes the whole (calendar, lag,
     # forecasts, prices) for the options' checks and the output, and gives the rows' shapes.
@@ -278,8 +287,6 @@ def compare_dataset(
         LoadError: A part cannot be read, or the parts do not make one portfolio.
         TriageError: ``steps`` the forecasts do not allow, or no cell to compare.
     """
-    import dask
-
     from triage.core import compare as comparing
 
     planned = _planned(folder, client, columns=columns, options=options, lag=lag)
@@ -296,22 +303,7 @@ def compare_dataset(
         _part_sums, key_columns=plan.key_columns, names=names, cols=cols, season=season,
         chain=chain, lags=lags, by_series=by_series,
     )  # fmt: skip
-    with _workers_lost():
-        if plan.whole_series:
-            pieces = client.gather(
-                client.map(
-                    _whole_part_sums, range(len(planned.dataset.files)), plan=plan,
-                    dataset=planned.dataset, columns=columns, options=options, summed=summed,
-                )
-            )  # fmt: skip
-        else:
-            rows = _shuffled(planned, columns=columns, options=options)
-            tasks = [
-                dask.delayed(_rows_sums)(piece, plan=plan, summed=summed)
-                for piece in rows.to_delayed()
-            ]
-            pieces = client.gather(client.compute(tasks))
-    pieces = [piece for piece in pieces if piece is not None]
+    pieces = _each_task(planned, client, summed, columns=columns, options=options)
     if not pieces:
         raise TriageError(f"{plan.dataset.folder}: the dataset's parts hold no series to compare.")
     texts = {c: _concat_text([piece.keys[c] for piece in pieces]) for c in plan.key_columns}
@@ -331,6 +323,47 @@ def compare_dataset(
         by_series=by_series,
     )
     return Compared(plan=plan, described=described, comparison=comparison)
+
+
+@dataclass(frozen=True)
+class Checked:
+    """A dataset's data quality counted on the cluster (``triage check --engine dask``)."""
+
+    plan: Plan
+    described: Portfolio
+    """What the report needs of the whole (see :attr:`Scored.described`), with the dataset's
+    rows."""
+    found: Quality
+    """The counts of every series."""
+
+
+def check_dataset(
+    folder: Path,
+    client: Any,
+    *,
+    window: int,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+    lag: int | None = None,
+) -> Checked:
+    """Read and check the dataset ``folder`` on the cluster of ``client`` and count what its
+    series hold and lack, as ``triage check`` counts a single file's.
+
+    With several forecast lags and no ``lag``, the smallest is counted (as the local engine's
+    ``read_dataset(..., smallest_lag=True)``). Each task counts its whole series
+    (``quality.quality``); the client adds the counts up (``Quality.total``): whole numbers,
+    the single file's exactly.
+
+    Raises:
+        LoadError: A part cannot be read, or the parts do not make one portfolio.
+    """
+    planned = _planned(folder, client, columns=columns, options=options, lag=lag, smallest_lag=True)
+    plan = planned.plan
+    cols = plan.window_cols(window)
+    counted = functools.partial(quality, cols=cols)
+    found = Quality.total(_each_task(planned, client, counted, columns=columns, options=options))
+    described = dataclasses.replace(planned.described, rows=plan.rows, notices=plan.notices)
+    return Checked(plan=plan, described=described, found=found)
 
 
 @dataclass(frozen=True)
@@ -360,23 +393,55 @@ def _part_sums(
     return _PartSums(keys, sums)
 
 
-def _whole_part_sums(
+def _each_task(
+    planned: _Planned,
+    client: Any,
+    measured: Callable[[Portfolio], _T],
+    *,
+    columns: dict[str, str] | None,
+    options: FileOptions | None,
+) -> list[_T]:
+    """``measured`` of every task's portfolio of whole series, on the cluster: a part that holds
+    whole series is measured where it is read, other rows are shuffled by key first. Tasks
+    without a series give nothing."""
+    import dask
+
+    plan = planned.plan
+    with _workers_lost():
+        if plan.whole_series:
+            pieces = client.gather(
+                client.map(
+                    _whole_part_measured, range(len(planned.dataset.files)), plan=plan,
+                    dataset=planned.dataset, columns=columns, options=options, measured=measured,
+                )
+            )  # fmt: skip
+        else:
+            rows = _shuffled(planned, columns=columns, options=options)
+            tasks = [
+                dask.delayed(_rows_measured)(piece, plan=plan, measured=measured)
+                for piece in rows.to_delayed()
+            ]
+            pieces = client.gather(client.compute(tasks))
+    return [piece for piece in pieces if piece is not None]
+
+
+def _whole_part_measured(
     part: int,
     *,
     plan: Plan,
     dataset: Dataset,
     columns: dict[str, str] | None,
     options: FileOptions | None,
-    summed: Callable[[Portfolio], _PartSums],
-) -> _PartSums | None:
+    measured: Callable[[Portfolio], _T],
+) -> _T | None:
     portfolio = whole_part(dataset, part, plan, columns=columns, options=options)
-    return None if portfolio is None else summed(portfolio)
+    return None if portfolio is None else measured(portfolio)
 
 
-def _rows_sums(
-    frame: pd.DataFrame, *, plan: Plan, summed: Callable[[Portfolio], _PartSums]
-) -> _PartSums | None:
-    return None if frame.empty else summed(build_part(frame, plan, some=True))
+def _rows_measured(
+    frame: pd.DataFrame, *, plan: Plan, measured: Callable[[Portfolio], _T]
+) -> _T | None:
+    return None if frame.empty else measured(build_part(frame, plan, some=True))
 
 
 def _concat_text(pieces: list[Any]) -> Any:

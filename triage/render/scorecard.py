@@ -29,6 +29,7 @@ from triage.core import metrics, ranking, schema
 from triage.core.compare import last_step
 from triage.core.output import totals, window_info
 from triage.core.portfolio import Portfolio
+from triage.core.quality import Quality, quality
 from triage.core.text import number, over_under, percent, visible
 from triage.render.export import dumps_json
 
@@ -672,41 +673,42 @@ def _run_text(run: int) -> str:
     return f"{abs(run)} {'over' if run > 0 else 'under'}"
 
 
-def check_text(portfolio: Portfolio, window: int, season: int, *, lag_given: bool = True) -> str:
+def check_text(
+    portfolio: Portfolio,
+    window: int,
+    season: int,
+    *,
+    lag_given: bool = True,
+    found: Quality | None = None,
+    cols: np.ndarray | None = None,
+) -> str:
     """The data-quality report of ``triage check``.
 
     Args:
         portfolio: The portfolio; with several lags and ``lag_given`` false, built scoring the
-            smallest lag (``read_portfolio(..., smallest_lag=True)``).
+            smallest lag (``read_portfolio(..., smallest_lag=True)``). With ``found``, what
+            describes a dataset counted in parts (its calendar, lags, columns, rows).
         window: Latest periods with actual demand to score.
         season: Seasonal period of the naive baseline.
         lag_given: Whether ``--lag`` chose the lag. Without it, a file of several lags is
             reported with its lags and the choice to make, not refused.
+        found: The counts of every series (``quality.Quality.total`` of the parts); by default
+            those of ``portfolio``.
+        cols: The window's columns when ``portfolio`` describes a larger whole; by default those
+            of ``portfolio``.
     """
     choose = len(portfolio.lags) > 1 and not lag_given
-    demand = portfolio.demand
-    hist = demand[:, : portfolio.last_actual + 1]
     cal = portfolio.calendar
-    cols = metrics.window_columns(demand, portfolio.last_actual, window)
-    win = window_info(portfolio, window)
-    actual = ~np.isnan(hist)
-    first_actual = np.where(actual.any(axis=1), actual.argmax(axis=1), hist.shape[1])
-    # A cell before a series' first actual is not missing: the series had not started yet.
-    started = np.arange(hist.shape[1])[None, :] >= first_actual[:, None]
-    missing_hist = int((started & ~actual).sum())
-    window_missing = int((~actual[:, cols] & started[:, cols]).sum())
-    forecast_w = portfolio.forecast[:, cols]
-    no_forecast = int((actual[:, cols] & np.isnan(forecast_w)).sum())
-    fwd = portfolio.forecast[:, portfolio.last_actual + 1 :]
-    no_actual_series = int((~actual.any(axis=1)).sum())
-    zero_only = int((actual.any(axis=1) & ~(np.nan_to_num(hist) > 0).any(axis=1)).sum())
-    pattern = metrics.demand_pattern(hist)
-    counts = np.bincount(pattern.pattern, minlength=len(metrics.PATTERNS))
+    if cols is None:
+        cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+    if found is None:
+        found = quality(portfolio, cols)
+    win = window_info(portfolio, window, cols)
 
     lines = [
         f"file           {visible(str(portfolio.path))}",
         f"rows           {portfolio.rows:,}",
-        f"series         {portfolio.n_series:,} (key: {', '.join(portfolio.key_columns)})",
+        f"series         {found.series:,} (key: {', '.join(portfolio.key_columns)})",
         f"calendar       {cal.freq}, {cal.label(0)} .. {cal.label(len(cal.periods) - 1)} "
         f"({len(cal.periods)} periods)",
         f"latest actual  {cal.label(portfolio.last_actual)} (review cycle {portfolio.cycle})",
@@ -722,7 +724,7 @@ def check_text(portfolio: Portfolio, window: int, season: int, *, lag_given: boo
             else "no lag column (one forecast per period)"
         ),
         f"forward        {portfolio.n_forward} periods, "
-        f"{int((~np.isnan(fwd)).sum()):,} forecast values"
+        f"{found.forward:,} forecast values"
         + (
             f" ({cal.label(portfolio.last_actual + 1)} .. {cal.label(len(cal.periods) - 1)})"
             if portfolio.n_forward
@@ -743,24 +745,25 @@ def check_text(portfolio: Portfolio, window: int, season: int, *, lag_given: boo
             else []
         ),
         "",
-        f"missing actuals   {missing_hist:,} series-periods after each series' first actual "
-        f"({window_missing:,} in the window); missing is never read as zero",
-        f"no forecast       {no_forecast:,} window periods with an actual but no forecast "
+        f"missing actuals   {found.missing:,} series-periods after each series' first actual "
+        f"({found.window_missing:,} in the window); missing is never read as zero",
+        f"no forecast       {found.no_forecast:,} window periods with an actual but no forecast "
         "(not scored)",
-        f"negative demand   {int((hist < 0).sum()):,} periods (returns; counted as demand)",
-        f"zero demand       {int((hist == 0).sum()):,} periods",
-        f"no actual demand  {no_actual_series:,} series (nothing to score)",
-        f"none above zero   {zero_only:,} series (actuals, but every one zero or negative)",
+        f"negative demand   {found.negative:,} periods (returns; counted as demand)",
+        f"zero demand       {found.zero:,} periods",
+        f"no actual demand  {found.no_actual:,} series (nothing to score)",
+        f"none above zero   {found.zero_only:,} series (actuals, but every one zero or negative)",
         "patterns          "
-        + ", ".join(f"{name} {int(c):,}" for name, c in zip(metrics.PATTERNS, counts, strict=True)),
+        + ", ".join(
+            f"{name} {int(c):,}" for name, c in zip(metrics.PATTERNS, found.patterns, strict=True)
+        ),
     ]
     if portfolio.notices:
         lines.append("")
         lines.extend(f"note: {visible(n, multiline=True)}" for n in portfolio.notices)
     lines.append("")
-    problem = ranking.unscorable(portfolio, window)
-    if problem is not None:
-        lines.append(f"not ok: {problem}")
+    if not found.scorable:
+        lines.append(f"not ok: {ranking.NOTHING_TO_SCORE.format(periods=len(cols))}")
     elif choose:
         listed = ", ".join(map(str, portfolio.lags[:-1])) + f" or {portfolio.lags[-1]}"
         lines.append(
