@@ -25,7 +25,8 @@ into parts that each hold a slice of every series, which the engine shuffles by 
 the ratio is then to the local run on the same rows (1.0: as fast as one process on one file).
 
 ``--command compare`` measures ``triage compare`` the same way (both runs compare the
-generator's two competing forecasts, naive and the file's forecast).
+generator's two competing forecasts, naive and the file's forecast); ``--command check`` measures
+``triage check`` (its report goes to a file from standard output).
 
 Results go to stderr and ``OUT/scale-LAYOUT-SERIESs.json`` (``scale-compare-…`` for compare).
 """
@@ -155,12 +156,16 @@ def split_dataset(source: Path, layout: str) -> Path:
     return folder
 
 
-def watched(cmd: list[str], timeout: float) -> dict[str, Any]:
-    """Run ``cmd``; its wall time, exit status and the peak memory of each process in its tree."""
+def watched(cmd: list[str], timeout: float, output: Path | None = None) -> dict[str, Any]:
+    """Run ``cmd``; its wall time, exit status and the peak memory of each process in its tree.
+    ``output``: the file its standard output goes to (a command without ``--output``)."""
     import psutil
 
+    sink = None if output is None else output.open("wb")
     started = time.perf_counter()
-    child = subprocess.Popen(cmd, cwd=ROOT, env=_child_env(), stderr=subprocess.PIPE, text=True)
+    child = subprocess.Popen(
+        cmd, cwd=ROOT, env=_child_env(), stdout=sink, stderr=subprocess.PIPE, text=True
+    )
     peaks: dict[int, tuple[str, int]] = {}
     tree_peak = 0
     done = threading.Event()
@@ -194,6 +199,8 @@ def watched(cmd: list[str], timeout: float) -> dict[str, Any]:
         child.kill()
         _, err = child.communicate()
     seconds = time.perf_counter() - started
+    if sink is not None:
+        sink.close()
     done.set()
     watcher.join()
     workers = sorted((rss for role, rss in peaks.values() if role == "worker"), reverse=True)
@@ -205,6 +212,16 @@ def watched(cmd: list[str], timeout: float) -> dict[str, Any]:
         "tree_peak": tree_peak,
         "stderr_tail": err.strip().splitlines()[-3:],
     }
+
+
+def _written(command: str, target: Path) -> list[str]:
+    """The options that write ``command``'s output to ``target`` (check prints its report)."""
+    return [] if command == "check" else ["--format", "csv", "--output", str(target), "--force"]
+
+
+def _printed(command: str, target: Path) -> Path | None:
+    """Where ``command``'s standard output goes (check's report), or None."""
+    return target if command == "check" else None
 
 
 def _role(proc: Any, command_pid: int) -> str:
@@ -236,7 +253,7 @@ def main(argv: list[str] | None = None) -> int:
     )
     parser.add_argument(
         "--command",
-        choices=("rank", "compare"),
+        choices=("rank", "compare", "check"),
         default="rank",
         help="the command measured, on one file and on the dataset (default rank)",
     )
@@ -258,19 +275,19 @@ def main(argv: list[str] | None = None) -> int:
     scratch.mkdir(parents=True, exist_ok=True)
     triage = triage_command()
     local = watched(
-        [*triage, args.command, str(base), "--format", "csv", "--output", str(scratch / "base.csv"),
-         "--force"],
+        [*triage, args.command, str(base), *_written(args.command, scratch / "base.csv")],
         args.timeout,
-    )  # fmt: skip
+        _printed(args.command, scratch / "base.txt"),
+    )
     print(
         f"local {args.command} {args.baseline_series:,}: {local['seconds']:.1f} s",
         file=sys.stderr,
     )
     spread = watched(
         [*triage, args.command, str(folder), "--engine", "dask", "--workers", str(args.workers),
-         "--memory-limit", args.memory_limit, "--format", "csv",
-         "--output", str(scratch / "spread.csv"), "--force"],
+         "--memory-limit", args.memory_limit, *_written(args.command, scratch / "spread.csv")],
         args.timeout,
+        _printed(args.command, scratch / "spread.txt"),
     )  # fmt: skip
     scale = args.series / args.baseline_series
     result = {
