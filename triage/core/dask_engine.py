@@ -22,6 +22,7 @@ from __future__ import annotations
 import contextlib
 import dataclasses
 import functools
+import itertools
 import logging
 import math
 from collections.abc import Callable, Iterator, Sequence
@@ -41,21 +42,20 @@ from triage.core.dataset import (
     arrow_text,
     build_part,
     key_order,
+    measures_frame,
     measures_of,
     on_grid,
     open_dataset,
     plan_dataset,
     quick_summary,
     read_part,
-    score_part,
-    score_whole_part,
     whole_part,
 )
 from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.portfolio import Portfolio, UnitPrices
 from triage.core.quality import Quality, quality
-from triage.core.ranking import SeriesMeasures
+from triage.core.ranking import SeriesMeasures, series_measures
 
 #: Rows of the long data per scoring task: a task's dense arrays and rows stay well inside a
 #: worker's memory (about 60 bytes a row and 8 bytes a cell per array).
@@ -158,33 +158,21 @@ def score_dataset(
     from triage.core.compare import forecast_names, parse_steps
 
     planned = _planned(folder, client, columns=columns, options=options, lag=lag)
-    dataset, plan, described = planned.dataset, planned.plan, planned.described
-    parts = range(len(dataset.files))
+    plan, described = planned.plan, planned.described
     cols = plan.window_cols(window)
     chain = (
         None if steps is None else parse_steps(",".join(steps), forecast_names(described, season))
     )
     if check is not None:
         check(described)
-    with _workers_lost():
-        if plan.whole_series:
-            # Each part holds whole series: each is scored where it is read, nothing is mixed.
-            frames = client.gather(
-                client.map(
-                    _score_whole_part, parts, plan=plan, cols=cols, season=season, steps=chain,
-                    dataset=dataset, columns=columns, options=options, errors=errors,
-                )
-            )  # fmt: skip
-            frame = pd.concat(frames, ignore_index=True)
-            del frames
-        else:
-            assert planned.frame_meta is not None
-            meta = score_part(planned.frame_meta, plan, cols, season, chain, errors)
-            rows = _shuffled(planned, columns=columns, options=options)
-            scored = rows.map_partitions(
-                score_part, plan, cols, season, chain, errors, meta=meta, enforce_metadata=False
-            )
-            frame = scored.compute()
+    scored = functools.partial(
+        _measures_frame, cols=cols, season=season, steps=chain, errors=errors
+    )
+    frames = _each_task(planned, client, scored, columns=columns, options=options)
+    if not frames:
+        raise TriageError(f"{plan.dataset.folder}: the dataset's parts hold no series to score.")
+    frame = pd.concat(frames, ignore_index=True)
+    del frames
     return Scored(plan=plan, described=described, measures=measures_of(frame, plan), steps=chain)
 
 
@@ -196,9 +184,6 @@ class _Planned:
     plan: Plan
     described: Portfolio
     """The first series of the first part, on the plan (:func:`_described`)."""
-    frame_meta: pd.DataFrame | None
-    """The empty frame of the rows as the shuffle carries them (None: parts hold whole
-    series)."""
 
 
 def _planned(
@@ -228,28 +213,10 @@ def _planned(
     )
     # The first series of the first part, on a worker: it describes the whole (calendar, lag,
     # forecasts, prices) for the options' checks and the output, and gives the rows' shapes.
-    described, frame_meta = client.submit(
+    described = client.submit(
         _described, plan=plan, dataset=dataset, columns=columns, options=options
     ).result()
-    return _Planned(dataset, plan, described, frame_meta)
-
-
-def _shuffled(
-    planned: _Planned, *, columns: dict[str, str] | None, options: FileOptions | None
-) -> Any:
-    """The dataset's rows as a Dask frame shuffled by series key: each partition holds whole
-    series, about :data:`ROWS_PER_TASK` rows."""
-    import dask.dataframe as dd
-
-    dataset, plan = planned.dataset, planned.plan
-    # from_map gives a reader that takes ``columns`` the columns it wants (projection): the
-    # column map goes by another name.
-    reader = functools.partial(_part_rows, dataset=dataset, mapping=columns, options=options)
-    rows = dd.from_map(  # type: ignore[no-untyped-call]
-        reader, range(len(dataset.files)), meta=planned.frame_meta, enforce_metadata=False
-    )
-    tasks = max(len(dataset.files), math.ceil(plan.rows / ROWS_PER_TASK))
-    return rows.shuffle(on=list(plan.key_columns), npartitions=tasks)
+    return _Planned(dataset, plan, described)
 
 
 @dataclass(frozen=True)
@@ -404,8 +371,6 @@ def _each_task(
     """``measured`` of every task's portfolio of whole series, on the cluster: a part that holds
     whole series is measured where it is read, other rows are shuffled by key first. Tasks
     without a series give nothing."""
-    import dask
-
     plan = planned.plan
     with _workers_lost():
         if plan.whole_series:
@@ -416,12 +381,7 @@ def _each_task(
                 )
             )  # fmt: skip
         else:
-            rows = _shuffled(planned, columns=columns, options=options)
-            tasks = [
-                dask.delayed(_rows_measured)(piece, plan=plan, measured=measured)
-                for piece in rows.to_delayed()
-            ]
-            pieces = client.gather(client.compute(tasks))
+            pieces = client.gather(client.compute(_dealt(planned, measured, columns, options)))
     return [piece for piece in pieces if piece is not None]
 
 
@@ -438,10 +398,124 @@ def _whole_part_measured(
     return None if portfolio is None else measured(portfolio)
 
 
-def _rows_measured(
-    frame: pd.DataFrame, *, plan: Plan, measured: Callable[[Portfolio], _T]
+def _dealt(
+    planned: _Planned,
+    measured: Callable[[Portfolio], _T],
+    columns: dict[str, str] | None,
+    options: FileOptions | None,
+) -> list[Any]:
+    """The Dask tasks of the shuffle by series key: one per part deals its rows into buckets
+    (:func:`_deal`), one per bucket gathers its pieces into whole series and measures them
+    (:func:`_gathered`). About :data:`ROWS_PER_TASK` rows a bucket, at least one per part."""
+    import dask
+
+    dataset, plan = planned.dataset, planned.plan
+    buckets = max(len(dataset.files), math.ceil(plan.rows / ROWS_PER_TASK))
+    deal = dask.delayed(_deal, nout=buckets, pure=True)
+    dealt = [
+        deal(part, dataset=dataset, key_columns=plan.key_columns, buckets=buckets,
+             columns=columns, options=options)
+        for part in range(len(dataset.files))
+    ]  # fmt: skip
+    gather = dask.delayed(_gathered, pure=True)
+    return [
+        gather([pieces[bucket] for pieces in dealt], plan=plan, measured=measured)
+        for bucket in range(buckets)
+    ]
+
+
+@dataclass(frozen=True)
+class _Piece:
+    """The rows of one part that fall in one bucket, as they cross between workers: numbers as
+    they are, each text column as codes into the text the piece uses (not a string a row)."""
+
+    numbers: pd.DataFrame
+    text: dict[str, tuple[np.ndarray, np.ndarray]]
+    """Per text column: the rows' codes (-1: empty) and the values they code."""
+    columns: tuple[str, ...]
+    """Every column, in the part's order."""
+
+
+def _deal(
+    part: int,
+    *,
+    dataset: Dataset,
+    key_columns: tuple[str, ...],
+    buckets: int,
+    columns: dict[str, str] | None,
+    options: FileOptions | None,
+) -> tuple[_Piece, ...]:
+    """Part ``part`` read and checked, its rows dealt into ``buckets`` pieces by a hash of their
+    series key: every row of a series, in whatever part, lands in the same bucket."""
+    frame = read_part(dataset, part, columns=columns, options=options).frame
+    coded = {name: _coded(frame[name]) for name in frame.columns if _is_text(frame[name])}
+    bucket = np.zeros(len(frame), dtype=np.uint64)
+    for name in key_columns:
+        codes, values = coded[name]
+        # The hash of the text, not of a part's codes: the same key hashes alike in every part.
+        hashed = pd.util.hash_array(values).take(np.maximum(codes, 0))
+        bucket = bucket * np.uint64(0x9E3779B97F4A7C15) + np.where(codes < 0, 0, hashed)
+    bucket %= np.uint64(buckets)
+    order = np.argsort(bucket, kind="stable")
+    bounds = np.searchsorted(bucket[order], np.arange(buckets + 1))
+    numbers = frame.drop(columns=list(coded))
+    pieces = []
+    for lo, hi in itertools.pairwise(bounds):
+        rows = order[lo:hi]
+        text = {name: _used(codes.take(rows), values) for name, (codes, values) in coded.items()}
+        pieces.append(_Piece(numbers.take(rows).reset_index(drop=True), text, tuple(frame.columns)))
+    return tuple(pieces)
+
+
+def _gathered(
+    pieces: list[_Piece], *, plan: Plan, measured: Callable[[Portfolio], _T]
 ) -> _T | None:
-    return None if frame.empty else measured(build_part(frame, plan, some=True))
+    """The pieces of one bucket (whole series) as a portfolio on the plan, measured; None for
+    a bucket without rows."""
+    pieces = [piece for piece in pieces if len(piece.numbers)]
+    if not pieces:
+        return None
+    frame = pd.concat([piece.numbers for piece in pieces], ignore_index=True)
+    for name in pieces[0].text:
+        inverse, values = pd.factorize(np.concatenate([piece.text[name][1] for piece in pieces]))
+        codes, start = [], 0
+        for piece in pieces:
+            piece_codes, piece_values = piece.text[name]
+            remap = inverse[start : start + len(piece_values)]
+            start += len(piece_values)
+            codes.append(np.where(piece_codes < 0, -1, remap.take(np.maximum(piece_codes, 0))))
+        frame[name] = pd.Categorical.from_codes(
+            np.concatenate(codes), categories=pd.Index(values, dtype=object)
+        )
+    frame = frame[list(pieces[0].columns)]
+    return measured(build_part(frame, plan, some=True))
+
+
+def _is_text(column: pd.Series) -> bool:
+    return isinstance(column.dtype, pd.CategoricalDtype) or not (
+        pd.api.types.is_numeric_dtype(column.dtype)
+        or pd.api.types.is_datetime64_any_dtype(column.dtype)
+    )
+
+
+def _coded(column: pd.Series) -> tuple[np.ndarray, np.ndarray]:
+    """A text column as codes (-1: empty) and the values they code (object array)."""
+    if isinstance(column.dtype, pd.CategoricalDtype):
+        codes = np.asarray(column.array.codes)
+        values = column.cat.categories.to_numpy(dtype=object)
+    else:
+        codes, uniques = pd.factorize(column, use_na_sentinel=True)
+        values = np.asarray(uniques, dtype=object)
+    return codes.astype(np.int64), values
+
+
+def _used(codes: np.ndarray, values: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """``codes`` into only the ``values`` they use: a piece carries its own rows' text."""
+    present = codes >= 0
+    used, inverse = np.unique(codes[present], return_inverse=True)
+    out = np.full(len(codes), -1, dtype=np.int32)
+    out[present] = inverse
+    return out, values.take(used)
 
 
 def _concat_text(pieces: list[Any]) -> Any:
@@ -480,19 +554,17 @@ def _workers_lost() -> Iterator[None]:
 
 def _described(
     *, plan: Plan, dataset: Dataset, columns: dict[str, str] | None, options: FileOptions | None
-) -> tuple[Portfolio, pd.DataFrame | None]:
+) -> Portfolio:
     """A portfolio of one series of the first part, on the dataset's calendar with the folder
-    as its path; and, when the rows are to be shuffled, the empty frame of the rows as the
-    shuffle carries them."""
+    as its path."""
     if plan.whole_series and schema.LAG not in plan.columns:
         from triage.core.read import read_portfolio
 
         alone = read_portfolio(dataset.files[0], columns=columns, options=options)
-        return on_grid(first_series(alone), plan, dataset, 0), None
+        return on_grid(first_series(alone), plan, dataset, 0)
     frame = read_part(dataset, 0, columns=columns, options=options).frame
     first = frame[schema.ITEM] == frame[schema.ITEM].iloc[0]
-    described = dataclasses.replace(build_part(frame.loc[first].copy(), plan), path=dataset.folder)
-    return described, _as_text(frame.iloc[:0].copy())
+    return dataclasses.replace(build_part(frame.loc[first].copy(), plan), path=dataset.folder)
 
 
 def first_series(portfolio: Portfolio) -> Portfolio:
@@ -511,49 +583,20 @@ def first_series(portfolio: Portfolio) -> Portfolio:
     )
 
 
-def _score_whole_part(
-    part: int,
+def _measures_frame(
+    portfolio: Portfolio,
     *,
-    plan: Plan,
     cols: np.ndarray,
     season: int,
     steps: Sequence[str] | None,
-    dataset: Dataset,
-    columns: dict[str, str] | None,
-    options: FileOptions | None,
     errors: bool,
 ) -> pd.DataFrame:
-    return score_whole_part(
-        dataset, part, plan, cols, season, steps, columns=columns, options=options, errors=errors
-    )
+    """The measures of a task's whole series as ``dataset.score_part`` gives them."""
+    measures = series_measures(portfolio, cols, season, steps)
+    return measures_frame(portfolio, measures, cols if errors else None)
 
 
 def _summary(
     part: int, *, dataset: Dataset, columns: dict[str, str] | None, options: FileOptions | None
 ) -> PartSummary:
     return quick_summary(dataset, part, columns=columns, options=options)
-
-
-def _part_rows(
-    part: int, *, dataset: Dataset, mapping: dict[str, str] | None, options: FileOptions | None
-) -> pd.DataFrame:
-    return _as_text(read_part(dataset, part, columns=mapping, options=options).frame)
-
-
-def _as_text(frame: pd.DataFrame) -> pd.DataFrame:
-    """Categorical text columns as Arrow strings: parts code their text differently, and the
-    shuffle joins pieces of many parts."""
-    for name in frame.columns:
-        if isinstance(frame[name].dtype, pd.CategoricalDtype):
-            categories = frame[name].cat.categories.to_numpy(dtype=object)
-            codes = np.asarray(frame[name].array.codes)
-            frame[name] = pd.array(
-                _take_text(categories, codes), dtype=pd.StringDtype("pyarrow", na_value=np.nan)
-            )
-    return frame
-
-
-def _take_text(categories: np.ndarray, codes: np.ndarray) -> Any:
-    import pyarrow as pa
-
-    return pa.array(categories, type=pa.large_string()).take(pa.array(codes))
