@@ -5,10 +5,13 @@ The steps are those of the local engine (``triage.core.dataset``), spread over t
 1. every part is read and checked on a worker, exactly as a single file is read; only a small
    summary comes back (columns, periods, lags), from which the client makes the plan: the
    calendar, the latest actual period, the scoring window and the lag;
-2. the parts' rows are shuffled by series key (``dask.dataframe`` shuffle), so that each task
-   holds whole series — unless the parts' key ranges show that each already does (a dataset
-   split by series) — and every task scores its series with the kernel the local engine uses
-   (``ranking.series_measures``) on the plan's calendar;
+2. the parts' rows are shuffled by series key, so that each task holds whole series — unless
+   the parts' key ranges show that each already does (a dataset split by series) — and every
+   task scores its series with the kernel the local engine uses (``ranking.series_measures``)
+   on the plan's calendar. The shuffle is two rounds of Dask tasks: one per part deals its rows
+   into buckets by a hash of the key text, carrying each text column as codes into the text
+   the piece uses; one per bucket joins its pieces (:func:`_deal`, :func:`_gathered`). Text
+   repeated on every row (keys, attributes) then crosses as 4-byte codes, not as strings;
 3. the measures, one row per series, come back to the client, which ranks them once
    (``ranking.ranked``): ranks, shares and cumulative shares are those of a single file.
 
