@@ -281,7 +281,7 @@ def _notices(notices: Sequence[str]) -> None:
 def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
     """``triage rank DATASET --engine dask``: the scorecard made on a Dask cluster."""
     from triage.core.dask_engine import score_dataset
-    from triage.core.ranking import NOTHING_TO_SCORE, SCORABLE_HINT, ranked
+    from triage.core.ranking import nothing_to_score, ranked
 
     reading = dask_reading(args, settings)
     with dask_client(args) as client:
@@ -295,10 +295,7 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
     _notices(scored.plan.notices)
     cols = scored.plan.window_cols(settings.window)
     if not (scored.measures.numbers["periods"] > 0).any():
-        raise TriageError(
-            f"{args.portfolio}: {NOTHING_TO_SCORE.format(periods=len(cols))}",
-            hint=SCORABLE_HINT,
-        )
+        raise nothing_to_score(args.portfolio, len(cols))
     described, steps = scored.described, scored.steps
     if args.group is not None:
         from triage.core import groups
@@ -449,7 +446,7 @@ def _show_groups(
 def _cmd_check(args: argparse.Namespace) -> int:
     from triage.core.metrics import window_columns
     from triage.core.quality import quality
-    from triage.core.ranking import NOTHING_TO_SCORE, SCORABLE_HINT
+    from triage.core.ranking import nothing_to_score
     from triage.render import scorecard as report
 
     settings = ScoreSettings.from_args(args)
@@ -478,15 +475,13 @@ def _cmd_check(args: argparse.Namespace) -> int:
             portfolio,
             settings.window,
             settings.season,
+            found,
+            cols,
             lag_given=settings.lag is not None,
-            found=found,
-            cols=cols,
         )
     )
     if not found.scorable:
-        raise TriageError(
-            f"{portfolio.path}: {NOTHING_TO_SCORE.format(periods=len(cols))}", hint=SCORABLE_HINT
-        )
+        raise nothing_to_score(portfolio.path, len(cols))
     return 0
 
 

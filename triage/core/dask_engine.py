@@ -215,7 +215,7 @@ def _planned(
         price_header=(columns or {}).get(schema.PRICE, schema.PRICE),
     )
     # The first series of the first part, on a worker: it describes the whole (calendar, lag,
-    # forecasts, prices) for the options' checks and the output, and gives the rows' shapes.
+    # forecasts, prices) for the options' checks and the output.
     described = client.submit(
         _described, plan=plan, dataset=dataset, columns=columns, options=options
     ).result()

@@ -330,9 +330,12 @@ def require_scorable(portfolio: Portfolio, window: int) -> None:
     Raises:
         TriageError: No window period has both an actual and a forecast.
     """
-    problem = unscorable(portfolio, window)
-    if problem is not None:
-        raise TriageError(
-            f"{portfolio.path}: {problem}",
-            hint=SCORABLE_HINT,
-        )
+    if unscorable(portfolio, window) is not None:
+        cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
+        raise nothing_to_score(portfolio.path, len(cols))
+
+
+def nothing_to_score(path: object, periods: int) -> TriageError:
+    """The refusal of a portfolio (or dataset) ``path`` in whose window of ``periods`` periods
+    no period has both an actual and a forecast."""
+    return TriageError(f"{path}: {NOTHING_TO_SCORE.format(periods=periods)}", hint=SCORABLE_HINT)

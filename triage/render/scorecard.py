@@ -29,7 +29,7 @@ from triage.core import metrics, ranking, schema
 from triage.core.compare import last_step
 from triage.core.output import totals, window_info
 from triage.core.portfolio import Portfolio
-from triage.core.quality import Quality, quality
+from triage.core.quality import Quality
 from triage.core.text import number, over_under, percent, visible
 from triage.render.export import dumps_json
 
@@ -677,32 +677,27 @@ def check_text(
     portfolio: Portfolio,
     window: int,
     season: int,
+    found: Quality,
+    cols: np.ndarray,
     *,
     lag_given: bool = True,
-    found: Quality | None = None,
-    cols: np.ndarray | None = None,
 ) -> str:
     """The data-quality report of ``triage check``.
 
     Args:
         portfolio: The portfolio; with several lags and ``lag_given`` false, built scoring the
-            smallest lag (``read_portfolio(..., smallest_lag=True)``). With ``found``, what
-            describes a dataset counted in parts (its calendar, lags, columns, rows).
+            smallest lag (``read_portfolio(..., smallest_lag=True)``); or what describes a
+            dataset counted in parts (its calendar, lags, columns, rows).
         window: Latest periods with actual demand to score.
         season: Seasonal period of the naive baseline.
+        found: The counts of every series (``quality.quality``, or ``Quality.total`` of the
+            parts).
+        cols: The scoring window's columns.
         lag_given: Whether ``--lag`` chose the lag. Without it, a file of several lags is
             reported with its lags and the choice to make, not refused.
-        found: The counts of every series (``quality.Quality.total`` of the parts); by default
-            those of ``portfolio``.
-        cols: The window's columns when ``portfolio`` describes a larger whole; by default those
-            of ``portfolio``.
     """
     choose = len(portfolio.lags) > 1 and not lag_given
     cal = portfolio.calendar
-    if cols is None:
-        cols = metrics.window_columns(portfolio.demand, portfolio.last_actual, window)
-    if found is None:
-        found = quality(portfolio, cols)
     win = window_info(portfolio, window, cols)
 
     lines = [
