@@ -52,7 +52,8 @@ from triage.core.portfolio import (
     units_reason,
 )
 from triage.core.ranking import MEASURE_COLUMNS, SeriesMeasures, series_measures
-from triage.core.read.frame import LoadedFrame, load_frame
+from triage.core.read.columns import SeriesPick
+from triage.core.read.frame import LoadedFrame, load_frame, load_picked
 from triage.core.text import visible
 
 #: File name endings of a dataset's parts.
@@ -131,6 +132,25 @@ def read_part(
             number column the files do not hold.
     """
     loaded = load_frame(dataset.files[part], columns=columns, options=options)
+    return _as_part(dataset, part, loaded)
+
+
+def read_picked(
+    dataset: Dataset,
+    part: int,
+    pick: SeriesPick,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> LoadedFrame | None:
+    """:func:`read_part` of the rows of the series ``pick`` alone (``read.load_picked``: only
+    the row groups that may hold them are read); None when the part holds none of them."""
+    loaded = load_picked(dataset.files[part], pick, columns=columns, options=options)
+    return None if loaded is None else _as_part(dataset, part, loaded)
+
+
+def _as_part(dataset: Dataset, part: int, loaded: LoadedFrame) -> LoadedFrame:
+    """A part's checked rows with its folders' fields, :data:`PART` and :data:`ROW`."""
     frame = loaded.frame
     attributes = list(loaded.attributes)
     for name, value in added_fields(dataset, part, frame.columns):
@@ -793,6 +813,39 @@ def read_dataset(
     frame = concat_parts([p.frame for p in parts])
     del parts
     return build_part(frame, plan)
+
+
+def fetch_series(
+    plan: Plan,
+    keys: Sequence[tuple[str, str]],
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> Portfolio | None:
+    """The whole histories of the series ``keys`` ((item, location), location ``""`` without a
+    location column), read from the dataset of ``plan`` on demand, on its calendar.
+
+    Each part reads only the row groups whose item statistics may hold one of the series
+    (predicate pushdown on the Parquet statistics): a dataset whose parts keep each series'
+    rows together (sorted or split by series) reads a row group or so per part; one whose rows
+    are in no key order reads every row group. The rows are checked as a whole read checks
+    them; the portfolio's series are in key order, like every portfolio's.
+
+    Returns:
+        The portfolio of the series found, or None when no part holds any of them.
+
+    Raises:
+        LoadError: As :func:`read_part` for the rows read, or duplicate rows of a series.
+    """
+    pick = SeriesPick(tuple((str(i), str(loc)) for i, loc in keys))
+    found = []
+    for part in range(len(plan.dataset.files)):
+        loaded = read_picked(plan.dataset, part, pick, columns=columns, options=options)
+        if loaded is not None:
+            found.append(loaded.frame)
+    if not found:
+        return None
+    return build_part(concat_parts(found), plan, some=True)
 
 
 def concat_parts(frames: Sequence[pd.DataFrame]) -> pd.DataFrame:

@@ -115,6 +115,21 @@ class ColumnPlan:
     unnamed: list[int]
 
 
+@dataclass(frozen=True)
+class SeriesPick:
+    """Some series of a file, by key: only their rows are kept (a dataset's histories fetched
+    on demand). A Parquet file reads only the row groups whose item statistics may hold them."""
+
+    keys: tuple[tuple[str, str], ...]
+    """(item, location) of each series; location ``""`` when the file has no location column
+    (the ledger's form of a key)."""
+
+    @property
+    def items(self) -> list[str]:
+        """The distinct items, sorted."""
+        return sorted({item for item, _ in self.keys})
+
+
 @dataclass
 class RawColumns:
     """Columns as read, by file position, before validation."""

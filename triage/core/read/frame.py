@@ -57,6 +57,7 @@ from triage.core.read.cells import (
 from triage.core.read.columns import (
     ColumnPlan,
     RawColumns,
+    SeriesPick,
     checked_mapping,
     checked_options,
     file_kind,
@@ -170,6 +171,70 @@ def load_frame(
             "Check that you may read the file and that no other program has it locked.",
         )
     return _build(file, raw, notices, sheet_used, dialect)
+
+
+def load_picked(
+    path: str | Path,
+    pick: SeriesPick,
+    *,
+    columns: dict[str, str] | None = None,
+    options: FileOptions | None = None,
+) -> LoadedFrame | None:
+    """The rows of the series ``pick`` of a Parquet file, checked as :func:`load_frame` checks
+    a file (every row of the row groups read is checked), with their row numbers in the file.
+
+    Only the row groups whose item statistics may hold the series are read
+    (``read_parquet``): a dataset's histories fetched on demand.
+
+    Returns:
+        The picked series' rows, or None when the file holds none of them.
+
+    Raises:
+        LoadError: As :func:`load_frame`, for the rows read.
+    """
+    file = Path(path)
+    kind = file_kind(file)
+    if kind != "parquet":
+        raise ValueError(f"series are picked from Parquet files only, not {kind}")
+    dialect = checked_options(file, kind, options)
+    mapping = checked_mapping(file, columns)
+    notices: list[str] = []
+    try:
+        raw = read_parquet(file, mapping, notices, pick)
+    except OSError as exc:
+        fail(
+            file,
+            f"the file cannot be read ({exc.strerror or exc}).",
+            "Check that you may read the file and that no other program has it locked.",
+        )
+    if raw.file_rows is not None and not len(raw.file_rows):
+        return None
+    loaded = _build(file, raw, notices, None, dialect)
+    positions = _picked_rows(loaded.frame, pick)
+    if not len(positions):
+        return None
+    rows = np.asarray(loaded.rows(positions), dtype=np.int64)
+    return LoadedFrame(
+        frame=loaded.frame.iloc[positions].reset_index(drop=True),
+        path=file,
+        first_row=int(rows[0]),
+        attributes=loaded.attributes,
+        notices=loaded.notices,
+        _file_rows=rows,
+    )
+
+
+def _picked_rows(frame: pd.DataFrame, pick: SeriesPick) -> np.ndarray:
+    """Positions of the rows of ``frame`` that belong to a series of ``pick``."""
+    item = frame[schema.ITEM]
+    rows = np.flatnonzero(item.isin(pick.items).to_numpy(dtype=bool))
+    if schema.LOCATION not in frame.columns or not len(rows):
+        return rows
+    found = pd.MultiIndex.from_arrays(
+        [item.iloc[rows].astype(str), frame[schema.LOCATION].iloc[rows].astype(str)]
+    )
+    kept: np.ndarray = rows[found.isin(list(pick.keys))]
+    return kept
 
 
 def _positions(index: Any, n: int) -> np.ndarray:

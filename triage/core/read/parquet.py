@@ -7,6 +7,7 @@ exactly as the full reader would send the file to the full reader.
 
 from __future__ import annotations
 
+import bisect
 import re
 from pathlib import Path
 from typing import Any
@@ -20,6 +21,7 @@ from triage.core.portfolio import DAY_NS
 from triage.core.read.cells import FIRST_DAY, LAST_DAY
 from triage.core.read.columns import (
     RawColumns,
+    SeriesPick,
     checked_mapping,
     checked_options,
     column_label,
@@ -31,7 +33,16 @@ from triage.core.read.messages import fail
 from triage.core.read.stream import FastPathDeclined, StreamSource, float_values
 
 
-def read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> RawColumns:
+def read_parquet(
+    path: Path, mapping: dict[str, str], notices: list[str], pick: SeriesPick | None = None
+) -> RawColumns:
+    """The file's columns as read, before the cells are checked.
+
+    ``pick``: read only the row groups whose item statistics may hold those series (every row
+    group when the item column is not text or has no statistics); the rows keep their row
+    numbers in the file (``RawColumns.file_rows``). The caller keeps the picked series' rows
+    once the cells are checked.
+    """
     import pyarrow as pa
     import pyarrow.parquet as pq
 
@@ -44,7 +55,10 @@ def read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> Raw
             f"cannot read this as a Parquet file ({exc}).",
             "Check that the file is Parquet and not damaged; export it again if needed.",
         )
-    check_memory(path, metadata.num_rows, "parquet", competing_columns(arrow_schema.names, mapping))
+    if pick is None:
+        check_memory(
+            path, metadata.num_rows, "parquet", competing_columns(arrow_schema.names, mapping)
+        )
     # pandas stores an unnamed index as '__index_level_N__'; it is not data.
     keep = [
         i for i, f in enumerate(arrow_schema) if not re.fullmatch(r"__index_level_\d+__", f.name)
@@ -67,8 +81,19 @@ def read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> Raw
         if plan.roles[position] in text_roles
         and (pa.types.is_string(fld.type) or pa.types.is_large_string(fld.type))
     ]
+    file_rows: np.ndarray | None = None
     try:
-        table = pq.read_table(path, columns=[f.name for f in fields], read_dictionary=dictionary)
+        if pick is None:
+            table = pq.read_table(
+                path, columns=[f.name for f in fields], read_dictionary=dictionary
+            )
+        else:
+            item = fields[plan.roles.index(schema.ITEM)].name
+            groups = _groups_holding(metadata, item, pick.items)
+            table = pq.ParquetFile(path, read_dictionary=dictionary).read_row_groups(
+                groups, columns=[f.name for f in fields]
+            )
+            file_rows = _group_rows(metadata, groups)
     except (pa.ArrowException, OSError) as exc:
         fail(
             path,
@@ -85,7 +110,44 @@ def read_parquet(path: Path, mapping: dict[str, str], notices: list[str]) -> Raw
         # column twice, not the whole table.
         data[position] = _arrow_to_series(table.column(0))
         table = table.remove_column(0)
-    return RawColumns(plan, data, first_row=1, blank_rows_possible=False)
+    return RawColumns(plan, data, first_row=1, file_rows=file_rows, blank_rows_possible=False)
+
+
+def _groups_holding(metadata: Any, column: str, items: list[str]) -> list[int]:
+    """The row groups whose ``column`` statistics may hold one of ``items``: every row group
+    whose statistics are missing or not text, else those whose [min, max] holds an item.
+
+    Parquet orders text statistics by their UTF-8 bytes, which is Python's order of ``str``; a
+    writer that shortens long statistics keeps the minimum below and the maximum above every
+    value, so no row group holding an item is left out.
+    """
+    names = metadata.schema.names
+    if column not in names:
+        return list(range(metadata.num_row_groups))
+    at = names.index(column)
+    wanted = sorted(items)
+    keep = []
+    for group in range(metadata.num_row_groups):
+        stats = metadata.row_group(group).column(at).statistics
+        low = high = None
+        if stats is not None and stats.has_min_max:
+            low, high = stats.min, stats.max
+        if not isinstance(low, str) or not isinstance(high, str):
+            keep.append(group)
+            continue
+        first = bisect.bisect_left(wanted, low)
+        if first < len(wanted) and wanted[first] <= high:
+            keep.append(group)
+    return keep
+
+
+def _group_rows(metadata: Any, groups: list[int]) -> np.ndarray:
+    """The file row numbers (1 = the first data row) of the rows of ``groups``, in order."""
+    starts = np.cumsum(
+        [0] + [metadata.row_group(g).num_rows for g in range(metadata.num_row_groups)]
+    )
+    pieces = [np.arange(starts[g], starts[g + 1], dtype=np.int64) for g in groups]
+    return (np.concatenate(pieces) if pieces else np.empty(0, dtype=np.int64)) + 1
 
 
 def _arrow_to_series(column: Any) -> pd.Series:
