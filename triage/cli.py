@@ -308,10 +308,27 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
         del measures
         return _show_groups(args, settings, described, table, by_columns, cols)
     card = ranked(scored.measures, args.by, limit=_built(args))
+    plan, series = scored.plan, len(scored.measures)
     # The measures go before the text is made (the scorecard holds its own copies).
     del scored
+
+    def describe(rows: int) -> tuple[str, Callable[[Path], None]]:
+        """The scorecard folder's description, so that the review can open it."""
+        from triage.core import card_folder
+
+        how = card_folder.Scored(
+            window=settings.window,
+            season=settings.season,
+            by=args.by,
+            lag=reading["lag"],
+            columns=reading["columns"],
+            series=series,
+            rows=rows,
+        )
+        return card_folder.description_writer(plan, how)
+
     shown = None if args.format in FILE_FORMATS else described
-    return _show_rank(args, settings, shown, card, steps, cols=cols)
+    return _show_rank(args, settings, shown, card, steps, cols=cols, describe=describe)
 
 
 def _show_rank(
@@ -322,11 +339,13 @@ def _show_rank(
     steps: Sequence[str] | None,
     *,
     cols: np.ndarray | None = None,
+    describe: Callable[[int], tuple[str, Callable[[Path], None]]] | None = None,
 ) -> int:
     """Write the scorecard ``card`` of ``portfolio`` as ``rank``'s options ask.
 
     CSV and Parquet need only the scorecard: callers pass no portfolio for them, so that its
-    dense arrays are gone before the text is made."""
+    dense arrays are gone before the text is made. ``describe``: the Parquet folder's
+    description (``core.card_folder``) given the rows written, written last of the set."""
     from triage.core.ranking import leading_cover
     from triage.render import scorecard as report
 
@@ -341,7 +360,10 @@ def _show_rank(
     if args.format == "parquet":
         from triage.core.files import write_set_atomic
 
-        write_set_atomic(args.output, report.parquet_parts(shown), force=args.force)
+        parts = report.parquet_parts(shown)
+        if describe is not None:
+            parts.append(describe(len(shown)))
+        write_set_atomic(args.output, parts, force=args.force, owned=report.parquet_owned)
         return 0
     if args.format == "csv":
         del card

@@ -64,6 +64,15 @@ def test_format_parquet_writes_the_scorecard_as_parts(
         assert got[name].tolist() == want[name].tolist()
     # The CSV writes 17 significant digits: the numbers round-trip.
     pd.testing.assert_series_equal(got["cum_share"], want["cum_share"].astype(float))
+    # A scorecard of fewer parts replaces it with --force: the older parts were rank's own.
+    top = ["rank", str(lake), "--format", "parquet", "--output", str(out), "--top", "9"]
+    assert cli.main([*top, "--force"]) == 0
+    assert sorted(p.name for p in out.iterdir()) == ["part-00000.parquet"]
+    assert len(pd.read_parquet(out / "part-00000.parquet")) == 9
+    # A file rank did not write is never removed.
+    (out / "notes.txt").write_text("mine")
+    assert run(*top, "--force").returncode == 2
+    assert (out / "notes.txt").read_text() == "mine"
 
 
 def test_format_parquet_refusals(tmp_path: Path, lake: Path) -> None:

@@ -366,3 +366,50 @@ def test_check_engine_dask_prints_the_single_files_report(
     assert b"not ok: no period of the scoring window" in refused.stdout
     assert b"nothing to score" in refused.stderr
     assert b"Traceback" not in refused.stderr
+
+
+def test_a_parquet_scorecard_folder_describes_its_dataset(
+    tmp_path: Path, source: Path, datasets: dict[str, Path], client: Any
+) -> None:
+    import os
+
+    from triage.core.card_folder import DESCRIPTION, open_card_folder
+
+    folder = datasets["period"]
+    out = tmp_path / "card"
+    made = _rank(
+        folder, "--engine", "dask", "--scheduler", client.scheduler.address,
+        "--format", "parquet", "--output", out, "--window", "8",
+    )  # fmt: skip
+    assert made.returncode == 0, made.stderr.decode()
+    assert sorted(p.name for p in out.iterdir()) == ["part-00000.parquet", DESCRIPTION]
+    opened = open_card_folder(out, folder)
+    plan = score_dataset(folder, client, window=8, season=1).plan
+    for name in ("columns", "attributes", "rows", "notices", "whole_series", "units_reason"):
+        assert getattr(opened.plan, name) == getattr(plan, name), name
+    assert opened.plan.grid.calendar.periods.equals(plan.grid.calendar.periods)
+    grid, want_grid = opened.plan.grid, plan.grid
+    assert (grid.calendar.freq, grid.last_actual, grid.lag, grid.lags) == (
+        want_grid.calendar.freq,
+        want_grid.last_actual,
+        want_grid.lag,
+        want_grid.lags,
+    )
+    np.testing.assert_array_equal(opened.plan.window_cols(8), plan.window_cols(8))
+    # The single file's scorecard at the same settings: its rows are the stored ones.
+    want = scorecard(read_portfolio(source), window=8)
+    assert opened.scored.series == opened.scored.rows == len(want)
+    assert (opened.scored.window, opened.scored.by) == (8, "error")
+    got = pd.read_parquet(opened.files[0])
+    assert got["item"].tolist() == want["item"].tolist()
+    # A part rewritten since is named, and the scorecard refused.
+    part = sorted(folder.glob("*.parquet"))[3]
+    stat = part.stat()
+    os.utime(part, ns=(stat.st_atime_ns, stat.st_mtime_ns + 1_000_000_000))
+    try:
+        with pytest.raises(LoadError, match=part.name):
+            open_card_folder(out, folder)
+    finally:
+        os.utime(part, ns=(stat.st_atime_ns, stat.st_mtime_ns))
+    with pytest.raises(LoadError, match=r"no scorecard\.json"):
+        open_card_folder(datasets["blocks"], folder)

@@ -108,7 +108,11 @@ def write_atomic(path: str | Path, write: Callable[[Path], None], *, force: bool
 
 
 def write_set_atomic(
-    folder: str | Path, files: Sequence[tuple[str, Callable[[Path], None]]], *, force: bool
+    folder: str | Path,
+    files: Sequence[tuple[str, Callable[[Path], None]]],
+    *,
+    force: bool,
+    owned: Callable[[str], bool] | None = None,
 ) -> tuple[Path, ...]:
     """Write several files as one set in ``folder``: all old or all new, also under kill -9.
 
@@ -118,6 +122,8 @@ def write_set_atomic(
             to create in the new folder.
         force: Replace an existing set folder. Even then a folder that holds anything but the
             set's files is refused: those files are not ours to delete.
+        owned: Which other names in an existing set folder an earlier set of the same kind
+            wrote (a scorecard of more parts), so that ``force`` replaces them too.
 
     Returns:
         The paths of the files in ``folder``.
@@ -139,7 +145,11 @@ def write_set_atomic(
     refuse_existing([target], force=force)
     if target.exists():
         try:
-            others = sorted(set(os.listdir(target)) - set(names))
+            others = sorted(
+                name
+                for name in set(os.listdir(target)) - set(names)
+                if owned is None or not owned(name)
+            )
         except OSError as exc:
             raise _write_error(target, exc) from exc
         if others:

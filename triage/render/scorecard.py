@@ -245,6 +245,16 @@ def _whole_text(values: np.ndarray, missing: np.ndarray | None) -> object:
 
 #: Rows per file of a scorecard written as Parquet files.
 PARQUET_ROWS = 1_000_000
+#: The names of those files (``part-00000.parquet`` first).
+PARQUET_PART = re.compile(r"part-\d{5,}\.parquet")
+
+
+def parquet_owned(name: str) -> bool:
+    """Whether ``name`` in a scorecard folder is one of the files rank writes there (a part, or
+    the folder's description): what replacing the folder with ``--force`` may remove."""
+    from triage.core.card_folder import DESCRIPTION
+
+    return name == DESCRIPTION or PARQUET_PART.fullmatch(name) is not None
 
 
 def parquet_parts(card: pd.DataFrame) -> list[tuple[str, Callable[[Path], None]]]:
