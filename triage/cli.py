@@ -107,6 +107,14 @@ def build_parser() -> argparse.ArgumentParser:
     portfolio_args(review)
     score_args(review)
     _review_args(review)
+    review.add_argument(
+        "--scorecard",
+        type=Path,
+        metavar="DIR",
+        help="review a dataset folder on its stored scorecard (made by rank DATASET --engine "
+        "dask --format parquet --output DIR): the list opens from the scorecard and each "
+        "series' history is fetched from the dataset when it is shown (docs/scale.md)",
+    )
     review.set_defaults(handler=_cmd_review)
 
     demo = sub.add_parser("demo", help="open the review screens on the bundled sample portfolio")
@@ -541,6 +549,7 @@ def _review_options(
         notices=list(notices),
         group=getattr(args, "group", None),
         cache=not args.no_cache,
+        scorecard=getattr(args, "scorecard", None),
         cache_limit_mb=CACHE_LIMIT_MB.check(
             CACHE_LIMIT_MB.default if args.cache_limit is None else args.cache_limit,
             CACHE_LIMIT_MB.flag,
@@ -557,7 +566,10 @@ def _cmd_review(args: argparse.Namespace) -> int:
         raise TriageError(
             f"{args.portfolio}: no such file.", hint="Check the path of the portfolio file."
         )
-    portfolio, ledger, notices = review_target(args, config)
+    if getattr(args, "scorecard", None) is not None:
+        portfolio, ledger, notices = _scorecard_target(args, config)
+    else:
+        portfolio, ledger, notices = review_target(args, config)
     for text in notices:
         # Also on the terminal, where it stays after the review screens close.
         note(text)
@@ -567,6 +579,39 @@ def _cmd_review(args: argparse.Namespace) -> int:
         args, portfolio, ledger, config=config, settings=settings, notices=notices
     )
     return _run_app(TriageApp(options))
+
+
+def _scorecard_target(
+    args: argparse.Namespace, config: Config
+) -> tuple[Path, Path | None, list[str]]:
+    """The dataset folder a review on a stored scorecard opens, its ledger and what to say.
+
+    The ledger is the dataset folder's (``locate_ledger`` of the folder, as of a review
+    folder), or ``--ledger``; the scorecard folder is replaced by each week's ``rank``, so it
+    holds none."""
+    from triage.core.ledger import locate_ledger
+    from triage.core.text import visible
+
+    if not args.portfolio.is_dir():
+        raise TriageError(
+            f"--scorecard reviews a dataset folder; {visible(str(args.portfolio))} is not a "
+            "folder.",
+            hint="Give the dataset folder the scorecard was made from, then --scorecard DIR.",
+        )
+    if args.group is not None:
+        raise TriageError(
+            "--group opens the group view, which adds up every series' history; a review on a "
+            "stored scorecard fetches only the histories it shows.",
+            hint="Leave out --group, or rank the dataset's groups with triage rank DATASET "
+            "--engine dask --group COLUMNS.",
+        )
+    if args.ledger is not None:
+        return args.portfolio, args.ledger, []
+    try:
+        where = locate_ledger(args.portfolio, name=config.ledger, for_writing=True)
+    except TriageError:
+        return args.portfolio, None, []
+    return args.portfolio, where.path, list(where.notices)
 
 
 def _run_app(app: TriageApp) -> int:

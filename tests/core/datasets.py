@@ -66,3 +66,25 @@ def write_layout(frame: pd.DataFrame, folder: Path, layout: str, *, parts: int =
 
 def _write(rows: pd.DataFrame, path: Path) -> None:
     pq.write_table(pa.Table.from_pandas(rows, preserve_index=False), path)
+
+
+def stored_scorecard(folder: Path, out: Path, *, window: int = 13, season: int = 1) -> Path:
+    """The scorecard folder ``rank DATASET --engine dask --format parquet --output out`` writes
+    (parts and description, ``triage.core.card_folder``), made here with the local engine and
+    the same writers, without a cluster."""
+    from triage.core import card_folder
+    from triage.core.dataset import open_dataset, plan_dataset, quick_summary, read_dataset
+    from triage.core.files import write_set_atomic
+    from triage.core.ranking import scorecard
+    from triage.render.scorecard import parquet_parts
+
+    dataset = open_dataset(folder)
+    plan = plan_dataset(dataset, [quick_summary(dataset, i) for i in range(len(dataset.files))])
+    card = scorecard(read_dataset(folder), window, season)
+    scored = card_folder.Scored(
+        window=window, season=season, by="error", lag=plan.grid.lag, columns=None,
+        series=len(card), rows=len(card),
+    )  # fmt: skip
+    parts = [*parquet_parts(card), card_folder.description_writer(plan, scored)]
+    write_set_atomic(out, parts, force=False)
+    return out

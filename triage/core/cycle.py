@@ -57,7 +57,10 @@ class ReviewCycle:
         name: The review cycle (ISO date); default the portfolio's cycle (its latest actual).
             An export of an earlier cycle names it; adjustment ends count as of this cycle.
         card: The portfolio's scorecard at these settings, when it is at hand (the reopen
-            cache, ``triage.core.cache``); else computed on first use.
+            cache, ``triage.core.cache``; a stored scorecard); else computed on first use.
+        actual_cols: The calendar columns with any actual demand, when the histories are not
+            in memory (a review on a stored scorecard, ``triage.core.on_demand``): the window
+            is taken from them, and repeat offenders count the ledger's stored worst sets only.
     """
 
     def __init__(
@@ -68,11 +71,13 @@ class ReviewCycle:
         *,
         name: str | None = None,
         card: pd.DataFrame | None = None,
+        actual_cols: np.ndarray | None = None,
     ) -> None:
         self.portfolio = portfolio
         self.ledger = ledger
         self.settings = settings or ScoreSettings()
         self.name = portfolio.cycle if name is None else name
+        self.actual_cols = actual_cols
         if card is not None:
             self.__dict__["card"] = card
 
@@ -87,6 +92,8 @@ class ReviewCycle:
     def window_cols(self) -> np.ndarray:
         """Calendar columns of the scoring window."""
         p = self.portfolio
+        if self.actual_cols is not None:
+            return np.asarray(self.actual_cols[-self.settings.window :], dtype=np.int64)
         return metrics.window_columns(p.demand, p.last_actual, self.settings.window)
 
     @property
@@ -199,6 +206,16 @@ class ReviewCycle:
                 reading it back.
         """
         n, m = self.settings.repeat
+        if self.actual_cols is not None:
+            return history.stored_repeat_offenders(
+                self.portfolio,
+                self.actual_cols,
+                self.worst,
+                self.by_position("periods") > 0,
+                n=n,
+                m=m,
+                ledger=self.ledger,
+            )
         return history.repeat_offenders(
             self.portfolio,
             n=n,
@@ -212,7 +229,9 @@ class ReviewCycle:
     def reread(self) -> ReviewCycle:
         """A new cycle on the same portfolio, ledger and settings that reads the ledger afresh
         (for a worker thread: this one's pieces stay as they are); the scoring is shared."""
-        again = ReviewCycle(self.portfolio, self.ledger, self.settings, name=self.name)
+        again = ReviewCycle(
+            self.portfolio, self.ledger, self.settings, name=self.name, actual_cols=self.actual_cols
+        )
         for name, value in self.__dict__.items():
             if name in _SCORING:
                 again.__dict__[name] = value

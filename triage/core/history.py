@@ -659,6 +659,8 @@ def worst_set(
 #: Where a cycle's worst-offender set came from in ``repeat_offenders`` (``attrs["sources"]``).
 SNAPSHOT = "snapshot"
 RESCORED = "rescored"
+#: A cycle whose worst set is not stored and cannot be re-scored (``stored_repeat_offenders``).
+NOT_STORED = "not stored"
 
 
 def repeat_offenders(
@@ -748,13 +750,76 @@ def repeat_offenders(
         error = wm.abs_error_value if wm.abs_error_value is not None else wm.abs_error
         member[:, j] = worst_set(error, target_share) & seen[:, j]
         sources[dates[j]] = RESCORED
+    return _offenders(portfolio, member, seen, dates, sources, n)
+
+
+def stored_repeat_offenders(
+    portfolio: Portfolio,
+    actual_cols: np.ndarray,
+    worst_now: np.ndarray,
+    scored_now: np.ndarray,
+    *,
+    n: int = REPEAT.default[0],
+    m: int = REPEAT.default[1],
+    ledger: Ledger | None = None,
+) -> pd.DataFrame:
+    """:func:`repeat_offenders` when the histories are not in memory (a review on a stored
+    scorecard, ``triage.core.on_demand``): earlier cycles count only where the ledger stored
+    their worst set, since they cannot be re-scored (``attrs["sources"]`` says
+    :data:`NOT_STORED` for the others, and :func:`repeat_notice` words it).
+
+    Args:
+        actual_cols: The calendar columns with any actual demand (the dataset's plan).
+        worst_now: This cycle's worst set by position (the scorecard's).
+        scored_now: Series with a scored period in this cycle's window.
+
+    Returns:
+        As :func:`repeat_offenders`.
+    """
+    if m < 1 or n < 1 or n > m:
+        raise HistoryError(
+            f"repeat offenders need 1 <= N <= M, not N = {n}, M = {m}.",
+            hint="For example 3 of the last 4 cycles.",
+        )
+    ends = np.asarray(actual_cols)[-m:]
+    dates = [portfolio.calendar.periods[int(end)].strftime("%Y-%m-%d") for end in ends]
+    stored = ledger.worst_sets(dates) if ledger is not None else {}
+    member = np.zeros((portfolio.n_series, len(ends)), dtype=bool)
+    seen = np.zeros_like(member)
+    sources: dict[str, str] = {}
+    for j, date in enumerate(dates):
+        snapshot = stored.get(date)
+        if snapshot is not None:
+            found = series_positions(portfolio, snapshot.items, snapshot.locations)
+            member[found[found >= 0], j] = True
+            sources[date] = SNAPSHOT
+        elif j == len(dates) - 1:
+            # This cycle: the set the scorecard gives, as the list shows it.
+            member[:, j] = worst_now
+            seen[:, j] = scored_now
+            sources[date] = SNAPSHOT
+        else:
+            sources[date] = NOT_STORED
+        seen[:, j] |= member[:, j]
+    return _offenders(portfolio, member, seen, dates, sources, n)
+
+
+def _offenders(
+    portfolio: Portfolio,
+    member: np.ndarray,
+    seen: np.ndarray,
+    dates: list[str],
+    sources: dict[str, str],
+    n: int,
+) -> pd.DataFrame:
+    """The repeat offenders' frame of :func:`repeat_offenders` from the cycles' worst sets."""
     data: dict[str, object] = {c: portfolio.keys[c].to_numpy() for c in portfolio.key_columns}
     times = member.sum(axis=1)
     data.update(
         times_in_worst=times,
         windows_seen=seen.sum(axis=1),
         repeat=times >= n,
-        in_worst_now=member[:, -1] if len(ends) else np.zeros(n_series, dtype=bool),
+        in_worst_now=member[:, -1] if dates else np.zeros(portfolio.n_series, dtype=bool),
     )
     for j, date in enumerate(dates):
         data[f"worst_{date}"] = member[:, j]
@@ -766,6 +831,13 @@ def repeat_offenders(
 def repeat_notice(offenders: pd.DataFrame) -> str | None:
     """What to tell the reviewer when some cycles' worst sets had to be re-scored, else None."""
     sources: dict[str, str] = offenders.attrs.get("sources", {})
+    missing = [c for c, how in sources.items() if how == NOT_STORED]
+    if missing:
+        return (
+            f"{len(missing)} of the last {len(sources)} cycles ({', '.join(missing)}) have no "
+            "worst-offender set stored in the ledger, and a review on a stored scorecard cannot "
+            "re-score them, so repeat offenders count only the cycles stored."
+        )
     rescored = [c for c, how in sources.items() if how == RESCORED]
     if not rescored:
         return None

@@ -31,6 +31,7 @@ from triage.core.dialect import FileOptions
 from triage.core.errors import TriageError
 from triage.core.group_review import GroupReview, outcome_words
 from triage.core.ledger import GroupRecord
+from triage.core.on_demand import Histories, NotFetched
 from triage.core.review import FILTER_FIELDS, ActiveAdjustment, ReviewSession, StillComputing
 from triage.core.settings import CACHE_LIMIT_MB, ScoreSettings
 from triage.core.text import visible
@@ -43,6 +44,7 @@ from triage.tui.messages import (
     BackgroundStep,
     Ended,
     Exported,
+    Fetched,
     GroupsReady,
     Loaded,
     LoadStep,
@@ -58,6 +60,8 @@ from triage.tui.widgets.series_list import GroupList, SeriesList
 
 #: Seconds the cursor must rest on a series before its chart is drawn.
 CHART_SETTLE = 0.08
+#: Histories fetched from the dataset in one read (``--scorecard``): about a screen of rows.
+FETCH_BATCH = 64
 
 CAUTION = (
     "Decisions and adjusted forecasts are advisory: check them in the planning system "
@@ -90,6 +94,9 @@ class Options:
     """The reopen cache's bound (``--cache-limit``)."""
     cache_folder: Path | None = None
     """Where the reopen cache is (None: ``cache.default_folder()``)."""
+    scorecard: Path | None = None
+    """``--scorecard DIR``: review the dataset ``portfolio`` on its stored scorecard, the
+    histories fetched on demand (``triage.core.on_demand``)."""
 
 
 #: Actions on one series, unavailable (dimmed) while the group view is shown.
@@ -338,6 +345,18 @@ class TriageApp(App[None]):
         super().__init__()
         self.options = options
         self.session: ReviewSession | None = None
+        self.histories: Histories | None = None
+        """``--scorecard``: the histories fetched from the dataset on demand; None when every
+        history is in memory."""
+        self._wanted: dict[int, None] = {}
+        """Series whose histories the screens asked for and no fetch has taken yet."""
+        self._fetch_running = False
+        self._fetch_scheduled = False
+        self._failed: set[int] = set()
+        """Series whose fetch failed (not asked for again: the message said why)."""
+        self._open_after_fetch: tuple[int, str, str] | None = None
+        """(series, outcome, adjustment) of a decision dialog that opens once the series'
+        history is in."""
         self.by = vocabulary.BY_ERROR
         self.text_filter = ""
         self.field_filters: dict[str, str] = {}
@@ -480,6 +499,9 @@ class TriageApp(App[None]):
 
         opts = self.options
         steps = 4
+        if opts.scorecard is not None:
+            self._load_scorecard(steps)
+            return
         self.post_message(LoadStep(0, steps, f"reading {opts.portfolio.name}"))
         found, hit = self._from_cache()
         portfolio = (
@@ -496,18 +518,7 @@ class TriageApp(App[None]):
         require_scorable(portfolio, opts.settings.window)
         self.post_message(LoadStep(1, steps, "opening the ledger"))
         notices = list(opts.notices) + list(portfolio.notices)
-        ledger = None
-        path = opts.ledger
-        try:
-            if path is None:
-                path, note = ledger_mod.default_ledger_path(opts.portfolio)
-                if note:
-                    notices.append(note)
-            ledger = ledger_mod.Ledger.open(path, root_causes=opts.root_causes)
-            if ledger.notice:
-                notices.append(ledger.notice)
-        except TriageError as exc:
-            notices.append(f"{exc} Decisions cannot be saved in this session.")
+        ledger = self._open_ledger(notices)
         self.post_message(LoadStep(2, steps, "scoring every series"))
         window, season = opts.settings.window, opts.settings.season
         card = cache.load_card(hit.entry, window, season) if hit is not None else None
@@ -535,6 +546,48 @@ class TriageApp(App[None]):
                 cache.store_card(hit.entry, window, season, cycle.card)
 
         self.post_message(Loaded(session, tuple(notices), keep))
+
+    def _open_ledger(self, notices: list[str]) -> ledger_mod.Ledger | None:
+        """The review's ledger (None when it cannot be opened: the notice says why)."""
+        opts = self.options
+        path = opts.ledger
+        try:
+            if path is None:
+                path, note = ledger_mod.default_ledger_path(opts.portfolio)
+                if note:
+                    notices.append(note)
+            ledger = ledger_mod.Ledger.open(path, root_causes=opts.root_causes)
+        except TriageError as exc:
+            notices.append(f"{exc} Decisions cannot be saved in this session.")
+            return None
+        if ledger.notice:
+            notices.append(ledger.notice)
+        return ledger
+
+    def _load_scorecard(self, steps: int) -> None:
+        """``--scorecard``: the list from the stored scorecard; histories fetched later."""
+        from triage.core.on_demand import open_review
+
+        opts = self.options
+        assert opts.scorecard is not None
+        self.post_message(LoadStep(0, steps, f"reading the scorecard {opts.scorecard.name}"))
+        review = open_review(opts.portfolio, opts.scorecard, opts.settings, columns=opts.columns)
+        self.post_message(LoadStep(1, steps, "opening the ledger"))
+        notices = list(opts.notices) + list(review.notices)
+        ledger = self._open_ledger(notices)
+        self.post_message(LoadStep(2, steps, "ordering the list"))
+        cycle = ReviewCycle(
+            review.portfolio,
+            ledger,
+            review.settings,
+            card=review.card,
+            actual_cols=review.histories.plan.actual_cols,
+        )
+        session = ReviewSession(cycle, reviewer=opts.reviewer, defer=True)
+        self.histories = review.histories
+        self.post_message(LoadStep(3, steps, "drawing"))
+        notices.extend(session.notices)
+        self.post_message(Loaded(session, tuple(notices), None))
 
     def _cache_folder(self) -> Path:
         return self.options.cache_folder or cache.default_folder()
@@ -706,7 +759,6 @@ class TriageApp(App[None]):
         flag = int(session.flag[series])
         outcome = session.outcome[series]
         cols = session.window_cols[-fmt.SPARK_PERIODS :]
-        p = session.portfolio
         return {
             "rank": (str(a["rank"][series]), None),
             "item": (fmt.key_text(a["item"][series], 40), None),
@@ -735,8 +787,19 @@ class TriageApp(App[None]):
                 else "",
                 "flag" if session.repeat[series] else "dim",
             ),
-            "spark": (fmt.sparkline(p.demand[series, cols], p.forecast[series, cols]), None),
+            "spark": self._spark(series, cols),
         }
+
+    def _spark(self, series: int, cols: np.ndarray) -> fmt.Cell:
+        """The row's sparkline of demand against forecast over the window's last periods;
+        ``…`` while the history is being fetched (``--scorecard``)."""
+        assert self.session is not None
+        p = self.session.portfolio
+        try:
+            return (fmt.sparkline(p.demand[series, cols], p.forecast[series, cols]), None)
+        except NotFetched:
+            self._want(series)
+            return ("…", "dim")
 
     def _review_cell(self, series: int, outcome: str) -> fmt.Cell:
         """This cycle's outcome, else an earlier adjustment still carried, else a marker of the
@@ -808,6 +871,9 @@ class TriageApp(App[None]):
         # What to act on first (earlier cycles, carried adjustments, the suggestion), then the
         # measures: a short pane at 80x24 still shows the first lines.
         lines = [session.describe(series), *session.across_cycles(series)]
+        if self.histories is not None and not self.histories.has(series):
+            lines.append("history: fetching from the dataset…")
+            self._want(series, first=True)
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
         if not session.ready:
             lines.append("suggested adjustment: still computing…")
@@ -845,7 +911,93 @@ class TriageApp(App[None]):
             and not self.in_groups
             and self._q(SeriesList).current == series
         ):
-            self._q("#chart", SeriesChart).show(session.chart(series))
+            try:
+                shown = session.chart(series)
+            except NotFetched:
+                self._q("#chart", SeriesChart).show(None)
+                self._want(series, first=True)
+                return
+            self._q("#chart", SeriesChart).show(shown)
+
+    # -- histories fetched on demand (--scorecard) ----------------------------------------------
+
+    def _not_on_scorecard(self, what: str, why: str) -> None:
+        """Say that ``what`` is not available in a review on a stored scorecard, and why."""
+        ledger = self.session.ledger if self.session is not None else None
+        where = f" in {ledger.path}" if ledger is not None else ""
+        text = (
+            f"{what} is not available in a review on a stored scorecard: {why}, and only the "
+            f"histories shown are fetched. Your decisions are saved{where}."
+        )
+        self._status(visible(text))
+        fmt.toast(self, visible(text), severity="warning", timeout=10)
+
+    def _want(self, series: int, *, first: bool = False) -> None:
+        """Ask for a series' history (a list row or the detail pane needs it); fetched on a
+        worker, a batch at a time. ``first``: before the rows asked for earlier."""
+        histories = self.histories
+        if histories is None or histories.has(series) or series in self._failed:
+            return
+        if first:
+            self._wanted = {series: None, **self._wanted}
+        else:
+            self._wanted.setdefault(series, None)
+        if not self._fetch_running and not self._fetch_scheduled:
+            self._fetch_scheduled = True
+            self.call_after_refresh(self._start_fetch)
+
+    def _start_fetch(self) -> None:
+        self._fetch_scheduled = False
+        if self._fetch_running or not self._wanted:
+            return
+        batch = list(self._wanted)[:FETCH_BATCH]
+        for series in batch:
+            del self._wanted[series]
+        self._fetch_running = True
+        self._fetch_histories(tuple(batch))
+
+    @work(thread=True, exit_on_error=False, group="fetch", name="fetch")
+    def _fetch_histories(self, batch: tuple[int, ...]) -> None:
+        """Read a batch of histories from the dataset, off the UI thread."""
+        histories = self.histories
+        assert histories is not None
+        try:
+            histories.fetch(batch)
+        except TriageError as exc:
+            self.post_message(Fetched(batch, str(exc)))
+            return
+        except BaseException:
+            self.post_message(Fetched(batch, "the histories could not be read"))
+            raise
+        self.post_message(Fetched(batch))
+
+    @on(Fetched)
+    def _fetched(self, message: Fetched) -> None:
+        self._fetch_running = False
+        if message.error is not None:
+            self._failed |= set(message.series)
+            self._status(f"error: {message.error}")
+            fmt.toast(self, message.error, severity="error", timeout=15)
+        if self._main_screen_live():
+            series_list = self._q(SeriesList)
+            for series in message.series:
+                series_list.invalidate(series)
+            current = series_list.current
+            if current in message.series and not self.in_groups and message.error is None:
+                self._detail_body(current)
+                self._draw_chart(current)
+                pending = self._open_after_fetch
+                if (
+                    pending is not None
+                    and pending[0] == current
+                    and self.screen is self.screen_stack[0]
+                ):
+                    self._open_after_fetch = None
+                    self.call_later(
+                        self._open_dialog, current, outcome=pending[1], adjustment=pending[2]
+                    )
+        if self._wanted:
+            self._start_fetch()
 
     def _history_text(self, series: int) -> Text:
         assert self.session is not None
@@ -1126,6 +1278,15 @@ class TriageApp(App[None]):
         """
         session = self.session
         assert session is not None
+        if self.histories is not None and not self.histories.has(series):
+            # The dialog's chart and preview need the history: it opens once that is in.
+            self._open_after_fetch = (series, outcome, adjustment)
+            self._status(
+                f"fetching the history of {fmt.key_text(session.key(series))} from the "
+                "dataset; the dialog opens when it is in"
+            )
+            self._want(series, first=True)
+            return
         await self._writes_settled()
         try:
             base, version = session.current_decision(series)
@@ -1480,6 +1641,9 @@ class TriageApp(App[None]):
         session = self.session
         if session is None:
             return
+        if self.histories is not None:
+            self._not_on_scorecard("The group view", "groups add up every series' history")
+            return
         if self.in_groups:
             self._leave_groups()
         elif self.drill is not None:
@@ -1780,6 +1944,11 @@ class TriageApp(App[None]):
     def action_export(self) -> None:
         session = self.session
         if session is None:
+            return
+        if self.histories is not None:
+            self._not_on_scorecard(
+                "Exporting", "the export holds every series' adjusted forward forecast"
+            )
             return
         p = session.portfolio
         # Shown in an input field, so no control character (a folder named with an ESC).

@@ -126,3 +126,14 @@ class GroupsReady(Message):
         self.review = review
         """The ranked groups; None when ``error`` says why there are none."""
         self.error = error
+
+
+class Fetched(Message):
+    """Histories fetched from the dataset (a review on a stored scorecard)."""
+
+    def __init__(self, series: tuple[int, ...], error: str | None = None) -> None:
+        super().__init__()
+        self.series = series
+        """The series asked for (their histories are at hand unless ``error``)."""
+        self.error = error
+        """Why the fetch failed, or None."""

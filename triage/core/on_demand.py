@@ -1,0 +1,327 @@
+"""A review on a stored scorecard: the list from the scorecard, histories from the dataset.
+
+A dataset too large for one machine is scored on a cluster
+(``triage rank DATASET --engine dask --format parquet --output DIR``, ``core.card_folder``).
+``triage review DATASET --scorecard DIR`` then opens the review screens on that scorecard
+without reading the dataset's histories: :func:`open_review` gives a :class:`Portfolio` whose
+keys, attributes and calendar are known at once and whose demand, forecasts and prices are
+:class:`FetchedRows`: matrices whose rows come from :class:`Histories`, which reads a few
+series at a time from the dataset (``dataset.fetch_series``: only the row groups that may hold
+them) and keeps the latest ones fetched.
+
+A row that has not been fetched raises :class:`NotFetched`; the screens fetch it on a worker
+first (``Histories.fetch``), so no keystroke waits on the dataset. Whatever needs every series'
+history (the adjusted forecast's export, groups, re-scoring earlier cycles) raises
+:class:`EveryHistoryNeeded`, a ``TriageError`` the screens show as a message.
+"""
+
+from __future__ import annotations
+
+import dataclasses
+import hashlib
+import json
+import threading
+from collections import OrderedDict
+from collections.abc import Callable, Iterable
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any, NoReturn
+
+import numpy as np
+import pandas as pd
+
+from triage.core import schema
+from triage.core.card_folder import CardFolder, open_card_folder
+from triage.core.dataset import Plan, fetch_series
+from triage.core.errors import LoadError, TriageError
+from triage.core.portfolio import Portfolio
+from triage.core.settings import ScoreSettings
+
+#: Series whose histories are kept once fetched (about 4 KB each at 117 weekly periods).
+KEPT = 4096
+
+
+class EveryHistoryNeeded(TriageError):
+    """What was asked needs every series' history, which a scorecard review does not hold."""
+
+    def __init__(self, what: str = "this") -> None:
+        super().__init__(
+            f"{what} needs every series' history, which a review on a stored scorecard does "
+            "not hold (histories are fetched from the dataset a few series at a time).",
+            hint="Run it on the dataset with triage rank/compare/check --engine dask, or review "
+            "a portfolio file that fits in memory.",
+        )
+
+
+class NotFetched(TriageError):
+    """A series' history has not been fetched from the dataset yet (``Histories.fetch``)."""
+
+    def __init__(self, series: int) -> None:
+        self.series = series
+        super().__init__(f"the history of series {series} is still being fetched.")
+
+
+class Histories:
+    """The histories of a dataset's series, fetched on demand and kept for the latest
+    :data:`KEPT` series.
+
+    ``fetch`` does the I/O (a worker thread); ``row`` only looks up what is kept, so the UI
+    thread never reads the dataset.
+    """
+
+    def __init__(
+        self,
+        plan: Plan,
+        key_of: Callable[[int], tuple[str, str]],
+        *,
+        columns: dict[str, str] | None = None,
+        kept: int = KEPT,
+    ) -> None:
+        self.plan = plan
+        self._key_of = key_of
+        self._columns = columns
+        self._kept = kept
+        self._rows: OrderedDict[int, dict[str, np.ndarray]] = OrderedDict()
+        self._lock = threading.Lock()
+        self.n_periods = len(plan.grid.calendar.periods)
+        self.fetches = 0
+        """Reads of the dataset so far (each for one or more series)."""
+
+    def has(self, series: int) -> bool:
+        """Whether the series' history is at hand."""
+        return series in self._rows
+
+    def missing(self, series: Iterable[int]) -> list[int]:
+        """The series of ``series`` whose histories are not at hand, in order, once each."""
+        return [s for s in dict.fromkeys(int(s) for s in series) if s not in self._rows]
+
+    def fetch(self, series: Iterable[int]) -> None:
+        """Read the histories of ``series`` that are not at hand from the dataset (I/O).
+
+        A series the dataset no longer holds is kept as empty (every period missing): the
+        scorecard still shows its row.
+
+        Raises:
+            LoadError: A part cannot be read, or its rows are not as they were when the
+                scorecard was made.
+        """
+        wanted = self.missing(series)
+        if not wanted:
+            return
+        keys = [self._key_of(s) for s in wanted]
+        got = fetch_series(self.plan, keys, columns=self._columns)
+        self.fetches += 1
+        found: dict[tuple[str, str], int] = {}
+        if got is not None:
+            found = {got.key(j): j for j in range(got.n_series)}
+        with self._lock:
+            for s, key in zip(wanted, keys, strict=True):
+                j = found.get(key)
+                self._rows[s] = _rows_of(got, j, self.n_periods)
+                self._rows.move_to_end(s)
+            while len(self._rows) > self._kept:
+                self._rows.popitem(last=False)
+
+    def rows(self, series: np.ndarray) -> list[dict[str, np.ndarray]]:
+        """The kept rows of each of ``series`` (distinct positions), by matrix name.
+
+        Off the main thread (a worker: the screens' load, a command) the histories not at
+        hand are fetched first; on it (the screens' keys) they raise :class:`NotFetched`, so a
+        keystroke never waits on the dataset.
+
+        Raises:
+            NotFetched: On the main thread, a series whose history is not at hand.
+            EveryHistoryNeeded: More series than are kept at once.
+        """
+        if len(series) > self._kept:
+            raise EveryHistoryNeeded(f"reading {len(series):,} series' histories at once")
+        with self._lock:
+            kept = [self._rows.get(int(s)) for s in series]
+        if any(k is None for k in kept):
+            if threading.current_thread() is threading.main_thread():
+                raise NotFetched(int(series[[k is None for k in kept].index(True)]))
+            self.fetch(series)
+            with self._lock:
+                kept = [self._rows.get(int(s)) for s in series]
+        if any(k is None for k in kept):
+            raise EveryHistoryNeeded(f"reading {len(series):,} series' histories at once")
+        return kept  # type: ignore[return-value]
+
+
+def _rows_of(got: Portfolio | None, j: int | None, n_periods: int) -> dict[str, np.ndarray]:
+    """One series' rows of a fetched portfolio by matrix name (NaN rows when not found)."""
+    empty = np.full(n_periods, np.nan)
+    empty.flags.writeable = False
+    if got is None or j is None:
+        return _EmptyRows(empty)
+    rows = {
+        schema.DEMAND: np.array(got.demand[j], dtype=np.float64),
+        schema.FORECAST: np.array(got.forecast[j], dtype=np.float64),
+    }
+    if got.price is not None:
+        rows[schema.PRICE] = np.array(got.price[j], dtype=np.float64)
+    for name, values in got.competing.items():
+        rows[name] = np.array(values[j], dtype=np.float64)
+    for values in rows.values():
+        values.flags.writeable = False
+    return _EmptyRows(empty, rows)
+
+
+class _EmptyRows(dict[str, np.ndarray]):
+    """A series' rows by name; a matrix the series has no row in reads as every period missing."""
+
+    def __init__(self, empty: np.ndarray, rows: dict[str, np.ndarray] | None = None) -> None:
+        super().__init__(rows or {})
+        self._empty = empty
+
+    def __missing__(self, key: str) -> np.ndarray:
+        return self._empty
+
+
+class FetchedRows:
+    """A series x periods matrix whose rows are fetched on demand (:class:`Histories`).
+
+    Indexes like a read-only float64 array for some rows: ``m[i]``, ``m[i, cols]``,
+    ``m[rows, cols]``, ``m[np.ix_(rows, cols)]``. Taking every row (``m[:, cols]``,
+    ``np.asarray(m)``) raises :class:`EveryHistoryNeeded`; a row not fetched yet raises
+    :class:`NotFetched`.
+    """
+
+    def __init__(self, histories: Histories, name: str, n_series: int) -> None:
+        self._histories = histories
+        self._name = name
+        self.shape = (n_series, histories.n_periods)
+        self.ndim = 2
+        self.dtype = np.dtype(np.float64)
+
+    def __len__(self) -> int:
+        return self.shape[0]
+
+    def __repr__(self) -> str:
+        return f"FetchedRows({self._name!r}, shape={self.shape})"
+
+    def __array__(self, dtype: Any = None, copy: bool | None = None) -> NoReturn:
+        raise EveryHistoryNeeded()
+
+    def __getitem__(self, key: Any) -> Any:
+        rows, cols = (key[0], key[1:]) if isinstance(key, tuple) else (key, ())
+        if isinstance(rows, slice):
+            if rows.start is None or rows.stop is None:
+                raise EveryHistoryNeeded()
+            # A slice of rows stays a slice: the rows in order, then the columns as given.
+            taken = np.arange(*rows.indices(self.shape[0]))
+            block = _stacked(self._histories.rows(taken), self._name, self.shape[1])
+            return block[(slice(None), *cols)]
+        picked = np.asarray(rows)
+        if picked.dtype == bool or picked.dtype.kind not in "iu":
+            raise EveryHistoryNeeded()
+        distinct, local = np.unique(picked, return_inverse=True)
+        block = _stacked(self._histories.rows(distinct), self._name, self.shape[1])
+        # The same indexing on the block of distinct rows: numpy's rules for ``m[rows, cols]``
+        # (pointwise, np.ix_, a row and a slice) hold as they would on the whole matrix.
+        return block[(local.reshape(picked.shape), *cols)]
+
+
+def _stacked(kept: list[dict[str, np.ndarray]], name: str, width: int) -> np.ndarray:
+    """Rows ``name`` of the kept series, one under the other."""
+    return np.stack([k[name] for k in kept]) if kept else np.empty((0, width))
+
+
+@dataclass(frozen=True)
+class ScorecardReview:
+    """What :func:`open_review` opens: the portfolio (histories on demand), its scorecard in
+    review order, and the settings it was scored at."""
+
+    portfolio: Portfolio
+    card: pd.DataFrame
+    """The scorecard in error order; index = position (the series' row in the stored files)."""
+    settings: ScoreSettings
+    histories: Histories
+    notices: tuple[str, ...]
+
+
+def fingerprint(folder: CardFolder) -> str:
+    """SHA-256 of the dataset's parts as the scorecard describes them (names, sizes, times):
+    what decisions store as the data they were made on (a file's is its content's hash)."""
+    parts = json.loads((folder.folder / "scorecard.json").read_text(encoding="utf-8"))["parts"]
+    return hashlib.sha256(json.dumps(parts, sort_keys=True).encode("utf-8")).hexdigest()
+
+
+def open_review(
+    dataset: Path,
+    scorecard: Path,
+    settings: ScoreSettings,
+    *,
+    columns: dict[str, str] | None = None,
+) -> ScorecardReview:
+    """The review of ``dataset`` on its stored scorecard folder ``scorecard``.
+
+    The settings' window and season become the scorecard's (a notice says so when they
+    differ); the lag is the one it was scored at.
+
+    Raises:
+        LoadError: The folder is not a complete scorecard of this dataset as it is now
+            (``card_folder.open_card_folder``), or holds only the leading series.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    stored = open_card_folder(scorecard, dataset)
+    scored, plan = stored.scored, stored.plan
+    if scored.rows != scored.series:
+        raise LoadError(
+            scorecard,
+            f"this scorecard holds the leading {scored.rows:,} of {scored.series:,} series "
+            "(--top or --cover); the review needs every series' row for its totals and shares.",
+            hint="Write the whole scorecard: triage rank DATASET --engine dask --format parquet "
+            "--output DIR (without --top or --cover).",
+        )
+    notices = list(plan.notices)
+    if (settings.window, settings.season) != (scored.window, scored.season):
+        notices.append(
+            f"The scorecard was scored over a window of {scored.window} periods with season "
+            f"{scored.season}; the review uses those (not {settings.window} and "
+            f"{settings.season})."
+        )
+    settings = dataclasses.replace(
+        settings, window=scored.window, season=scored.season, lag=plan.grid.lag
+    )
+    stored_card = pa.concat_tables([pq.read_table(f) for f in stored.files]).to_pandas()
+    # Positions are the stored rows; the review's card is in error order (rank 1 first).
+    order = np.argsort(stored_card["rank"].to_numpy(), kind="stable")
+    card = stored_card.iloc[order]
+    keys = stored_card[[*plan.key_columns, *plan.attributes]].reset_index(drop=True)
+    n = len(stored_card)
+    held: list[Portfolio] = []
+    histories = Histories(plan, lambda series: held[0].key(series), columns=columns)
+    competing = {
+        name: FetchedRows(histories, name, n)
+        for name in (schema.competing_name(c) for c in plan.columns)
+        if name is not None
+    }
+    portfolio = Portfolio(
+        path=dataset,
+        keys=keys,
+        key_columns=plan.key_columns,
+        attributes=plan.attributes,
+        calendar=plan.grid.calendar,
+        demand=FetchedRows(histories, schema.DEMAND, n),  # type: ignore[arg-type]
+        forecast=FetchedRows(histories, schema.FORECAST, n),  # type: ignore[arg-type]
+        price=FetchedRows(histories, schema.PRICE, n) if plan.priced else None,  # type: ignore[arg-type]
+        last_actual=plan.grid.last_actual,
+        lag=plan.grid.lag,
+        lags=plan.grid.lags,
+        rows=plan.rows,
+        notices=tuple(notices),
+        units_reason=plan.units_reason,
+        competing=competing,  # type: ignore[arg-type]
+    )
+    portfolio.__dict__["fingerprint"] = fingerprint(stored)
+    held.append(portfolio)
+    return ScorecardReview(
+        portfolio=portfolio,
+        card=card,
+        settings=settings,
+        histories=histories,
+        notices=tuple(notices),
+    )
