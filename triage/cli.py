@@ -589,6 +589,7 @@ def _scorecard_target(
     The ledger is the dataset folder's (``locate_ledger`` of the folder, as of a review
     folder), or ``--ledger``; the scorecard folder is replaced by each week's ``rank``, so it
     holds none."""
+    from triage.core.card_folder import open_card_folder
     from triage.core.ledger import locate_ledger
     from triage.core.text import visible
 
@@ -605,6 +606,8 @@ def _scorecard_target(
             hint="Leave out --group, or rank the dataset's groups with triage rank DATASET "
             "--engine dask --group COLUMNS.",
         )
+    # Refused here, before the screens open: a folder that is not this dataset's scorecard.
+    open_card_folder(args.scorecard, args.portfolio)
     if args.ledger is not None:
         return args.portfolio, args.ledger, []
     try:

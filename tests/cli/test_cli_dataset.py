@@ -103,3 +103,22 @@ def test_top_k_rows_are_the_first_rows_of_the_whole_scorecard(lake: Path, by: st
     top = run("rank", str(lake), "--format", "csv", "--by", by, "--top", "7")
     assert top.returncode == 0, top.stderr
     assert top.stdout.splitlines() == whole.stdout.splitlines()[:8]
+
+
+def test_review_on_a_stored_scorecard_refuses_what_it_cannot_open(
+    tmp_path: Path, single: Path, lake: Path
+) -> None:
+    from tests.core.datasets import stored_scorecard
+
+    card = stored_scorecard(lake, tmp_path / "card")
+    empty = tmp_path / "empty"
+    empty.mkdir()
+    for args, says in (
+        ((single, "--scorecard", card), "is not a folder"),
+        ((lake, "--scorecard", card, "--group", "family"), "--group opens the group view"),
+        ((lake, "--scorecard", empty), "has no _scorecard.json"),
+        ((lake, "--scorecard", tmp_path / "missing"), "no such scorecard folder"),
+    ):
+        refused = run("review", *map(str, args))
+        assert refused.returncode == 2, refused.stderr
+        assert says in refused.stderr and "Traceback" not in refused.stderr

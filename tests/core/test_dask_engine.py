@@ -382,7 +382,7 @@ def test_a_parquet_scorecard_folder_describes_its_dataset(
         "--format", "parquet", "--output", out, "--window", "8",
     )  # fmt: skip
     assert made.returncode == 0, made.stderr.decode()
-    assert sorted(p.name for p in out.iterdir()) == ["part-00000.parquet", DESCRIPTION]
+    assert sorted(p.name for p in out.iterdir()) == [DESCRIPTION, "part-00000.parquet"]
     opened = open_card_folder(out, folder)
     plan = score_dataset(folder, client, window=8, season=1).plan
     for name in ("columns", "attributes", "rows", "notices", "whole_series", "units_reason"):
@@ -400,7 +400,8 @@ def test_a_parquet_scorecard_folder_describes_its_dataset(
     want = scorecard(read_portfolio(source), window=8)
     assert opened.scored.series == opened.scored.rows == len(want)
     assert (opened.scored.window, opened.scored.by) == (8, "error")
-    got = pd.read_parquet(opened.files[0])
+    # The folder reads as a Parquet dataset: the description is skipped.
+    got = pd.read_parquet(out)
     assert got["item"].tolist() == want["item"].tolist()
     # A part rewritten since is named, and the scorecard refused.
     part = sorted(folder.glob("*.parquet"))[3]
@@ -411,5 +412,5 @@ def test_a_parquet_scorecard_folder_describes_its_dataset(
             open_card_folder(out, folder)
     finally:
         os.utime(part, ns=(stat.st_atime_ns, stat.st_mtime_ns))
-    with pytest.raises(LoadError, match=r"no scorecard\.json"):
+    with pytest.raises(LoadError, match=r"no _scorecard\.json"):
         open_card_folder(datasets["blocks"], folder)

@@ -12,7 +12,9 @@ that the review screens can open it without scoring or planning the dataset agai
   dataset changed since (a part rewritten, added or removed) is refused, never shown beside a
   scorecard made of other data.
 
-The file is written last of the set, so a folder with it is complete.
+The file is written last of the set, so a folder with it is complete. Its name starts with
+``_``, which Parquet readers (pyarrow, pandas, Spark) skip: the folder still reads as a Parquet
+dataset of the scorecard's rows.
 """
 
 from __future__ import annotations
@@ -33,7 +35,7 @@ from triage.core.portfolio import Calendar, Grid
 from triage.core.text import visible
 
 #: The description's file name in a scorecard folder.
-DESCRIPTION = "scorecard.json"
+DESCRIPTION = "_scorecard.json"
 #: What kind of file the description is, and its version (raised when its meaning changes).
 KIND, VERSION = "triage scorecard folder", 1
 

@@ -31,7 +31,7 @@ import numpy as np
 import pandas as pd
 
 from triage.core import schema
-from triage.core.card_folder import CardFolder, open_card_folder
+from triage.core.card_folder import DESCRIPTION, CardFolder, open_card_folder
 from triage.core.dataset import Plan, fetch_series
 from triage.core.errors import LoadError, TriageError
 from triage.core.portfolio import Portfolio
@@ -243,7 +243,8 @@ class ScorecardReview:
 def fingerprint(folder: CardFolder) -> str:
     """SHA-256 of the dataset's parts as the scorecard describes them (names, sizes, times):
     what decisions store as the data they were made on (a file's is its content's hash)."""
-    parts = json.loads((folder.folder / "scorecard.json").read_text(encoding="utf-8"))["parts"]
+    described = (folder.folder / DESCRIPTION).read_text(encoding="utf-8")
+    parts = json.loads(described)["parts"]
     return hashlib.sha256(json.dumps(parts, sort_keys=True).encode("utf-8")).hexdigest()
 
 

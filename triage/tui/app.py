@@ -950,7 +950,10 @@ class TriageApp(App[None]):
         self._fetch_scheduled = False
         if self._fetch_running or not self._wanted:
             return
-        batch = list(self._wanted)[:FETCH_BATCH]
+        current = self._q(SeriesList).current if self._main_screen_live() else None
+        # The series under the cursor alone first (the pane, the chart, a dialog wait for it),
+        # then the rows on screen together.
+        batch = [current] if current in self._wanted else list(self._wanted)[:FETCH_BATCH]
         for series in batch:
             del self._wanted[series]
         self._fetch_running = True

@@ -94,6 +94,11 @@ def read_parquet(
                 groups, columns=[f.name for f in fields]
             )
             file_rows = _group_rows(metadata, groups)
+            # Only the rows of the picked items go on to be checked and converted.
+            keep = _item_rows(table.column(item), pick.items)
+            if keep is not None:
+                table = table.filter(keep)
+                file_rows = file_rows[keep.to_numpy(zero_copy_only=False)]
     except (pa.ArrowException, OSError) as exc:
         fail(
             path,
@@ -139,6 +144,36 @@ def _groups_holding(metadata: Any, column: str, items: list[str]) -> list[int]:
         if first < len(wanted) and wanted[first] <= high:
             keep.append(group)
     return keep
+
+
+def _item_rows(column: Any, items: list[str]) -> Any:
+    """A boolean Arrow mask of the rows whose item is one of ``items``, or None when the column
+    is not text (ids stored as numbers are matched once converted, as every read converts them).
+
+    A dictionary column is matched on its dictionary, then taken by its indices."""
+    import pyarrow as pa
+    import pyarrow.compute as pc
+
+    wanted = pa.array(items, type=pa.string())
+    masks = []
+    for chunk in column.chunks:
+        kind = chunk.type
+        if pa.types.is_dictionary(kind) and _is_text(kind.value_type):
+            found = pc.is_in(chunk.dictionary.cast(pa.string()), value_set=wanted)
+            masks.append(pc.fill_null(pc.take(found, chunk.indices), False))
+        elif _is_text(kind):
+            masks.append(pc.fill_null(pc.is_in(chunk.cast(pa.string()), value_set=wanted), False))
+        else:
+            return None
+    if not masks:
+        return pa.array([], type=pa.bool_())
+    return pa.concat_arrays(masks)
+
+
+def _is_text(kind: Any) -> bool:
+    import pyarrow as pa
+
+    return bool(pa.types.is_string(kind) or pa.types.is_large_string(kind))
 
 
 def _group_rows(metadata: Any, groups: list[int]) -> np.ndarray:

@@ -1,0 +1,160 @@
+"""Benchmark: the review screens opening on a dataset's stored scorecard (``--scorecard``).
+
+    python -m tests.benchmarks.bench_scorecard_review \
+        --dataset bench-out/dataset-10000000s-100000p-seed7 --scorecard bench-out/card-10000000s
+
+Make the dataset with ``bench_scale`` and its scorecard with ``triage rank DATASET --engine dask
+--format parquet --output DIR``. In one run, alternately, each in its own process from the
+interpreter's start:
+
+* the baseline: a bare ``pyarrow.parquet.read_table(DIR).to_pandas()`` of the scorecard, the
+  least any list of every series needs;
+* ``review DATASET --scorecard DIR`` to its first frame with the list, and to the moment the
+  first series' history is in (detail pane and chart).
+
+Then, in this process, the time to fetch one series' history and a screen of 40 random series
+(``on_demand.Histories.fetch``), against reading one whole part of the dataset. Target (issue
+14): the 10M scorecard opens to an interactive frame in at most 5 s.
+"""
+
+from __future__ import annotations
+
+import argparse
+import asyncio
+import json
+import statistics
+import sys
+import tempfile
+import time
+from pathlib import Path
+
+from tests.benchmarks.bench_rank import measure as run
+
+BARE_READ = (
+    "import sys, pyarrow.parquet as pq; frame = pq.read_table(sys.argv[1]).to_pandas(); "
+    "print(len(frame))"
+)
+
+
+async def first_frame_child(dataset: Path, scorecard: Path) -> None:
+    """Child process: open the review on the scorecard; print when the list was first drawn
+    and when the first series' history was in (``time.time()``, as JSON)."""
+    from triage.tui.app import Options, TriageApp
+    from triage.tui.widgets.series_list import SeriesList
+
+    ledger = Path(tempfile.mkdtemp()) / "bench.ledger.sqlite"
+    app = TriageApp(
+        Options(portfolio=dataset, scorecard=scorecard, ledger=ledger, reviewer="bench")
+    )
+    drawn: list[float] = []
+    original = app._display
+
+    def display(screen, renderable):
+        if app.session is not None and not drawn:
+            try:
+                shown = len(app.query_one(SeriesList).order)
+            except Exception:  # no screen yet, or closing
+                shown = 0
+            if shown:
+                drawn.append(time.time())
+        return original(screen, renderable)
+
+    app._display = display  # type: ignore[method-assign]
+    async with app.run_test(size=(160, 48)):
+        while not drawn:
+            await asyncio.sleep(0.005)
+        top = int(app.query_one(SeriesList).order[0])
+        assert app.histories is not None
+        while not app.histories.has(top):
+            await asyncio.sleep(0.005)
+        history_at = time.time()
+        series = app.session.portfolio.n_series
+    print(json.dumps({"first_frame_at": drawn[0], "history_at": history_at, "series": series}))
+
+
+def fetch_figures(dataset: Path, scorecard: Path, repeats: int) -> dict[str, float]:
+    """Median seconds to fetch 1 and 40 random series, and to read one whole part."""
+    import numpy as np
+    import pyarrow.parquet as pq
+
+    from triage.core.on_demand import open_review
+    from triage.core.settings import ScoreSettings
+
+    review = open_review(dataset, scorecard, ScoreSettings())
+    histories, n = review.histories, review.portfolio.n_series
+    rng = np.random.default_rng(20261205)
+    one, screen, part = [], [], []
+    for _ in range(repeats):
+        started = time.perf_counter()
+        histories.fetch([int(rng.integers(n))])
+        one.append(time.perf_counter() - started)
+        started = time.perf_counter()
+        histories.fetch(rng.choice(n, 40, replace=False).tolist())
+        screen.append(time.perf_counter() - started)
+        started = time.perf_counter()
+        pq.read_table(
+            histories.plan.dataset.files[int(rng.integers(len(histories.plan.dataset.files)))]
+        )
+        part.append(time.perf_counter() - started)
+    return {
+        "fetch_1_s": statistics.median(one),
+        "fetch_40_s": statistics.median(screen),
+        "read_part_s": statistics.median(part),
+    }
+
+
+def main(argv: list[str] | None = None) -> int:
+    parser = argparse.ArgumentParser(description=__doc__.splitlines()[0])
+    parser.add_argument("--dataset", type=Path, required=True)
+    parser.add_argument("--scorecard", type=Path, required=True)
+    parser.add_argument("--repeats", type=int, default=2)
+    parser.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
+    args = parser.parse_args(argv)
+    if args.child:
+        asyncio.run(first_frame_child(args.dataset, args.scorecard))
+        return 0
+    child = [
+        sys.executable, str(Path(__file__).resolve()), "--child",
+        "--dataset", str(args.dataset), "--scorecard", str(args.scorecard),
+    ]  # fmt: skip
+    runs: dict[str, list[float]] = {"read": [], "frame": [], "history": []}
+    peaks: dict[str, int] = {}
+    series = 0
+    for _ in range(args.repeats):
+        done = run([sys.executable, "-c", BARE_READ, str(args.scorecard)])
+        if done.returncode != 0:
+            raise SystemExit(f"bare read: {done.error}")
+        runs["read"].append(done.seconds)
+        peaks["read"] = max(peaks.get("read", 0), done.peak_bytes or 0)
+        launched = time.time()
+        done = run(child)
+        if done.returncode != 0:
+            raise SystemExit(f"review: {done.error}")
+        runs["frame"].append(done.report["first_frame_at"] - launched)
+        runs["history"].append(done.report["history_at"] - launched)
+        peaks["review"] = max(peaks.get("review", 0), done.peak_bytes or 0)
+        series = done.report["series"]
+    med = {k: statistics.median(v) for k, v in runs.items()}
+    fetched = fetch_figures(args.dataset, args.scorecard, max(3, args.repeats))
+    result = {"series": series, "runs_s": runs, "median_s": med, "peak_bytes": peaks, **fetched}
+    print(
+        f"{series:,} series, median of {args.repeats} alternating rounds, each its own process:\n"
+        f"  bare read of the scorecard   {med['read']:6.2f} s   1.00x   "
+        f"peak {peaks['read'] / 2**20:,.0f} MB\n"
+        f"  review: first frame          {med['frame']:6.2f} s   "
+        f"{med['frame'] / med['read']:.2f}x   peak {peaks['review'] / 2**20:,.0f} MB "
+        "(target <= 5 s at 10M)\n"
+        f"  review: first history in     {med['history']:6.2f} s   "
+        f"{med['history'] / med['read']:.2f}x\n"
+        f"in process (median of {max(3, args.repeats)}): fetch 1 series "
+        f"{fetched['fetch_1_s']:.3f} s, 40 series {fetched['fetch_40_s']:.3f} s, "
+        f"one whole part read {fetched['read_part_s']:.3f} s "
+        f"({fetched['fetch_1_s'] / fetched['read_part_s']:.2f}x of it for one series)"
+    )
+    out = args.scorecard.parent / f"scorecard-review-{series}s.json"
+    out.write_text(json.dumps(result, indent=1))
+    return 0
+
+
+if __name__ == "__main__":
+    raise SystemExit(main())

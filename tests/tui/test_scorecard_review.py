@@ -1,0 +1,139 @@
+"""The review screens on a dataset's stored scorecard (``triage review DATASET --scorecard DIR``).
+
+The list opens from the scorecard; each series' history is fetched from the dataset on a worker
+when a row, the detail pane or the decision dialog needs it. The fetch is held back by a gate
+here, so the screens are certainly seen before a history is in: keys never wait for it.
+"""
+
+from __future__ import annotations
+
+import threading
+from pathlib import Path
+
+import pyarrow.parquet as pq
+import pytest
+
+from tests.core.datasets import generated, stored_scorecard, write_layout
+from tests.tui.conftest import burst, wait_for, wait_listed
+from triage.core import card_folder, on_demand, vocabulary
+from triage.core.ledger import Ledger
+from triage.tui.app import Options, TriageApp
+from triage.tui.screens.decision import DecisionScreen
+from triage.tui.widgets.series_list import SeriesList
+
+
+@pytest.fixture(scope="module")
+def lake(tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, Path]:
+    base = tmp_path_factory.mktemp("scorecard-review")
+    rows = pq.read_table(generated(base, 60)).to_pandas()
+    folder = write_layout(rows, base / "by-month", "period")
+    return folder, stored_scorecard(folder, base / "card")
+
+
+@pytest.fixture
+def gate(monkeypatch: pytest.MonkeyPatch) -> threading.Event:
+    """Holds ``Histories.fetch`` until set (set at the end in any case)."""
+    opened = threading.Event()
+    original = on_demand.Histories.fetch
+
+    def held(self, series):
+        opened.wait(timeout=60)
+        return original(self, series)
+
+    monkeypatch.setattr(on_demand.Histories, "fetch", held)
+    yield opened
+    opened.set()
+
+
+def app_on(lake: tuple[Path, Path], tmp_path: Path) -> TriageApp:
+    folder, card = lake
+    return TriageApp(
+        Options(portfolio=folder, scorecard=card, ledger=tmp_path / "ledger.sqlite", reviewer="ana")
+    )
+
+
+def detail(app: TriageApp) -> str:
+    return str(app.query_one("#detail-text").render())
+
+
+async def test_the_list_comes_first_and_histories_fill_in(
+    lake: tuple[Path, Path], gate: threading.Event, tmp_path: Path
+) -> None:
+    app = app_on(lake, tmp_path)
+    async with app.run_test(size=(170, 48)) as pilot:
+        await wait_listed(app, pilot)
+        session = app.session
+        series_list = app.query_one(SeriesList)
+        assert len(series_list.order) == session.portfolio.n_series
+        top = int(series_list.order[0])
+        await wait_for(pilot, lambda: "fetching from the dataset" in detail(app), "the pane")
+        assert app._format_row(top)["spark"] == ("…", "dim")
+        # A decision dialog asked for before the history is in opens once it is.
+        burst(app, ["a"])
+        await wait_for(pilot, lambda: "dialog opens when" in app.status_text, "the wait")
+        assert not isinstance(app.screen, DecisionScreen)
+        # A quick decision needs no history: it is saved at once.
+        gate.set()
+        await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the dialog")
+        burst(app, ["escape"])
+        await wait_for(pilot, lambda: not isinstance(app.screen, DecisionScreen), "closing")
+        assert app._format_row(top)["spark"][0] != "…"
+        assert "fetching" not in detail(app)
+        assert "forecasts on the same" in detail(app)
+
+
+async def test_decisions_at_full_speed_are_saved_with_the_dataset(
+    lake: tuple[Path, Path], tmp_path: Path
+) -> None:
+    app = app_on(lake, tmp_path)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_listed(app, pilot)
+        session = app.session
+        series_list = app.query_one(SeriesList)
+        first, second = (int(s) for s in series_list.order[:2])
+        burst(app, ["c", "down", "h"])
+        await wait_for(
+            pilot,
+            lambda: (
+                session.outcome[first] == vocabulary.NO_CHANGE
+                and session.outcome[second] == vocabulary.HANDED_OFF
+            ),
+            "both decisions",
+        )
+        for key, words in (("x", "Exporting is not available"), ("G", "group view is not")):
+            burst(app, [key])
+            await wait_for(pilot, lambda w=words: w in app.status_text, f"the answer to {key}")
+    ledger = Ledger.open(tmp_path / "ledger.sqlite")
+    events = ledger.history()
+    stored = card_folder.open_card_folder(lake[1], lake[0])
+    assert [(e.item, e.location) for e in events] == [session.key(first), session.key(second)]
+    assert {e.portfolio_fingerprint for e in events} == {on_demand.fingerprint(stored)}
+
+
+async def test_a_part_that_cannot_be_read_is_reported_and_keys_go_on(
+    lake: tuple[Path, Path], tmp_path: Path
+) -> None:
+    import shutil
+
+    folder = tmp_path / "lake"
+    shutil.copytree(lake[0], folder)
+    card = stored_scorecard(folder, tmp_path / "card")
+    app = TriageApp(
+        Options(portfolio=folder, scorecard=card, ledger=tmp_path / "l.sqlite", reviewer="ana")
+    )
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_listed(app, pilot)
+        session = app.session
+        series_list = app.query_one(SeriesList)
+        # A part damaged after the review opened: the rows shown wait, the next fetch fails.
+        await wait_for(pilot, lambda: not app._fetch_running and not app._wanted, "first rows")
+        part = sorted(folder.glob("*.parquet"))[2]
+        part.write_bytes(b"not parquet any more")
+        burst(app, ["end"])
+        await wait_for(pilot, lambda: "error:" in app.status_text, "the error")
+        assert "cannot read" in app.status_text
+        last = int(series_list.order[-1])
+        burst(app, ["c"])
+        await wait_for(
+            pilot, lambda: session.outcome[last] == vocabulary.NO_CHANGE, "a decision after it"
+        )
