@@ -19,6 +19,8 @@ from triage.core import card_folder, on_demand, vocabulary
 from triage.core.ledger import Ledger
 from triage.tui.app import Options, TriageApp
 from triage.tui.screens.decision import DecisionScreen
+from triage.tui.screens.dialogs import WaitScreen
+from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.series_list import SeriesList
 
 
@@ -68,15 +70,21 @@ async def test_the_list_comes_first_and_histories_fill_in(
         top = int(series_list.order[0])
         await wait_for(pilot, lambda: "fetching from the dataset" in detail(app), "the pane")
         assert app._format_row(top)["spark"] == ("…", "dim")
-        # A decision dialog asked for before the history is in opens once it is.
-        burst(app, ["a"])
-        await wait_for(pilot, lambda: "dialog opens when" in app.status_text, "the wait")
-        assert not isinstance(app.screen, DecisionScreen)
-        # A quick decision needs no history: it is saved at once.
+        # A decision dialog asked for before the history is in opens once it is, with what
+        # was typed meanwhile; no key typed meanwhile acts on the list (digits pick a cause).
+        cause = app.cause
+        burst(app, ["a", "=", "7", "5", "ctrl+s"])
+        await wait_for(pilot, lambda: isinstance(app.screen, WaitScreen), "the wait")
+        await pilot.pause(0.2)
+        assert app.cause == cause and session.outcome[top] == ""
         gate.set()
-        await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the dialog")
-        burst(app, ["escape"])
-        await wait_for(pilot, lambda: not isinstance(app.screen, DecisionScreen), "closing")
+        await wait_for(
+            pilot, lambda: session.outcome[top] == vocabulary.ADJUSTED, "the adjustment saved"
+        )
+        decision = Ledger.open(tmp_path / "ledger.sqlite").history()[-1]
+        assert (decision.item, decision.location) == session.key(top)
+        assert decision.adjustment == "=75"
+        assert not isinstance(app.screen, (WaitScreen, DecisionScreen))
         assert app._format_row(top)["spark"][0] != "…"
         assert "fetching" not in detail(app)
         assert "forecasts on the same" in detail(app)
@@ -103,6 +111,13 @@ async def test_decisions_at_full_speed_are_saved_with_the_dataset(
         for key, words in (("x", "Exporting is not available"), ("G", "group view is not")):
             burst(app, [key])
             await wait_for(pilot, lambda w=words: w in app.status_text, f"the answer to {key}")
+        # The value of past overrides opens (fetching what it needs on its worker), without
+        # the portfolio's FVA, which needs every history.
+        burst(app, ["v"])
+        await wait_for(pilot, lambda: isinstance(app.screen, OverridesScreen), "the overrides")
+        await pilot.pause(0.2)
+        shown = " ".join(str(p) for p in app.screen.parts())
+        assert "not shown in a review on a stored scorecard" in shown
     ledger = Ledger.open(tmp_path / "ledger.sqlite")
     events = ledger.history()
     stored = card_folder.open_card_folder(lake[1], lake[0])

@@ -1221,11 +1221,14 @@ class ReviewSession:
 
         Returns:
             ``{grouping: history.summarise(...)}`` for every grouping in ``history.GROUPINGS``
-            (empty frames without a ledger or realised lines), and ``history.portfolio_fva``.
+            (empty frames without a ledger or realised lines), and ``history.portfolio_fva``
+            (empty on a stored scorecard: it needs every series' history).
         """
         # Read afresh (this runs on a worker thread): the decisions saved until now count.
         fresh = self.review_cycle.reread()
         tables = {by: history.summarise(fresh.realised, by) for by in history.GROUPINGS}
+        if fresh.actual_cols is not None:
+            return tables, {}
         return tables, fresh.fva
 
     def across_cycles(self, series: int) -> list[str]:

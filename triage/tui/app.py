@@ -52,7 +52,13 @@ from triage.tui.messages import (
     SaveFailed,
 )
 from triage.tui.screens.decision import UNCHANGED, DecisionScreen, Draft, draft_of
-from triage.tui.screens.dialogs import ChooseScreen, ConfirmScreen, HelpScreen, PromptScreen
+from triage.tui.screens.dialogs import (
+    ChooseScreen,
+    ConfirmScreen,
+    HelpScreen,
+    PromptScreen,
+    WaitScreen,
+)
 from triage.tui.screens.group_decision import GroupDecisionScreen, GroupDraft
 from triage.tui.screens.overrides import OverridesScreen
 from triage.tui.widgets.chart import SeriesChart
@@ -354,9 +360,9 @@ class TriageApp(App[None]):
         self._fetch_scheduled = False
         self._failed: set[int] = set()
         """Series whose fetch failed (not asked for again: the message said why)."""
-        self._open_after_fetch: tuple[int, str, str] | None = None
-        """(series, outcome, adjustment) of a decision dialog that opens once the series'
-        history is in."""
+        self._open_after_fetch: tuple[int, str, str, WaitScreen] | None = None
+        """(series, outcome, adjustment, the wait screen) of a decision dialog that opens once
+        the series' history is in."""
         self.by = vocabulary.BY_ERROR
         self.text_filter = ""
         self.field_filters: dict[str, str] = {}
@@ -979,6 +985,9 @@ class TriageApp(App[None]):
         self._fetch_running = False
         if message.error is not None:
             self._failed |= set(message.series)
+        if not self._main_screen_live():
+            return  # closing: a last fetch can end after the screens are gone
+        if message.error is not None:
             self._status(f"error: {message.error}")
             fmt.toast(self, message.error, severity="error", timeout=15)
         if self._main_screen_live():
@@ -989,18 +998,36 @@ class TriageApp(App[None]):
             if current in message.series and not self.in_groups and message.error is None:
                 self._detail_body(current)
                 self._draw_chart(current)
-                pending = self._open_after_fetch
-                if (
-                    pending is not None
-                    and pending[0] == current
-                    and self.screen is self.screen_stack[0]
-                ):
-                    self._open_after_fetch = None
-                    self.call_later(
-                        self._open_dialog, current, outcome=pending[1], adjustment=pending[2]
-                    )
+
+        pending = self._open_after_fetch
+        if pending is not None and pending[0] in message.series and pending[3].is_attached:
+            if message.error is None:
+                pending[3].ready()
+            else:
+                pending[3].action_cancel()
         if self._wanted:
             self._start_fetch()
+
+    def _waited(self, ready: bool | None) -> None:
+        """The wait for a decision dialog's history ended: open it and give it what was typed."""
+        pending, self._open_after_fetch = self._open_after_fetch, None
+        if not ready or pending is None:
+            return
+        series, outcome, adjustment, wait = pending
+        self.call_later(self._open_and_type, series, outcome, adjustment, wait.typed)
+
+    async def _open_and_type(
+        self, series: int, outcome: str, adjustment: str, typed: list[events.Event]
+    ) -> None:
+        await self._open_dialog(series, outcome=outcome, adjustment=adjustment)
+        self._status("")
+
+        def replay() -> None:
+            for event in typed:
+                event.set_sender(self)
+                self.post_message(event)
+
+        self.call_after_refresh(replay)
 
     def _history_text(self, series: int) -> Text:
         assert self.session is not None
@@ -1282,12 +1309,16 @@ class TriageApp(App[None]):
         session = self.session
         assert session is not None
         if self.histories is not None and not self.histories.has(series):
-            # The dialog's chart and preview need the history: it opens once that is in.
-            self._open_after_fetch = (series, outcome, adjustment)
-            self._status(
+            # The dialog's chart and preview need the history: it opens once that is in, with
+            # what was typed meanwhile (the wait screen keeps it from the list below).
+            text = (
                 f"fetching the history of {fmt.key_text(session.key(series))} from the "
                 "dataset; the dialog opens when it is in"
             )
+            wait = WaitScreen(text)
+            self._open_after_fetch = (series, outcome, adjustment, wait)
+            self._status(text)
+            self.push_screen(wait, self._waited)
             self._want(series, first=True)
             return
         await self._writes_settled()

@@ -7,7 +7,7 @@ from typing import ClassVar
 
 from rich.table import Table
 from rich.text import Text
-from textual import on
+from textual import events, on
 from textual.app import ComposeResult
 from textual.binding import Binding, BindingType
 from textual.containers import Vertical, VerticalScroll
@@ -140,3 +140,45 @@ class ConfirmScreen(Dialog[bool]):
 
     def action_answer(self, yes: bool) -> None:
         self.dismiss(yes)
+
+
+class WaitScreen(Dialog[bool]):
+    """Shown while what the next dialog needs is fetched: the keys typed meanwhile are kept for
+    that dialog (``typed``), so none of them acts on the screen below. Dismissed with True when
+    the dialog can open (``ready``), False on ``escape`` or when the fetch failed."""
+
+    BINDINGS: ClassVar[list[BindingType]] = [
+        Binding("escape", "cancel", "Cancel", id="wait.cancel")
+    ]
+
+    def __init__(self, text: str) -> None:
+        super().__init__()
+        self._text = text
+        self.typed: list[events.Event] = []
+        """Keys and pastes typed while waiting, in order."""
+
+    def compose(self) -> ComposeResult:
+        with Vertical(classes="dialog"):
+            yield Static(Text(self._text, style="bold"), classes="dialog-title")
+            yield Static(
+                Text("what you type now goes to the dialog   escape: cancel"),
+                classes="dialog-keys",
+            )
+
+    def on_key(self, event: events.Key) -> None:
+        if event.key == "escape":
+            return
+        self.typed.append(events.Key(event.key, event.character))
+        event.stop()
+        event.prevent_default()
+
+    def on_paste(self, event: events.Paste) -> None:
+        self.typed.append(events.Paste(event.text))
+        event.stop()
+        event.prevent_default()
+
+    def ready(self) -> None:
+        self.dismiss(True)
+
+    def action_cancel(self) -> None:
+        self.dismiss(False)

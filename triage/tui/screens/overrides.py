@@ -221,6 +221,15 @@ class OverridesScreen(Dialog[None]):
                 parts.append(SummaryTable(by, frame, self._priced, self._causes))
         fva = self._fva
         parts.append(Text(""))
+        if not fva:
+            parts.append(
+                Text(
+                    "This cycle's forecast against the naive forecast is not shown in a review "
+                    "on a stored scorecard (it adds up every series' history): triage compare "
+                    "DATASET --engine dask gives it."
+                )
+            )
+            return parts
         parts.append(
             Text(
                 "For context, this cycle's forecast against the naive forecast: "
