@@ -68,7 +68,9 @@ def _write(rows: pd.DataFrame, path: Path) -> None:
     pq.write_table(pa.Table.from_pandas(rows, preserve_index=False), path)
 
 
-def stored_scorecard(folder: Path, out: Path, *, window: int = 13, season: int = 1) -> Path:
+def stored_scorecard(
+    folder: Path, out: Path, *, window: int = 13, season: int = 1, by: str = "error"
+) -> Path:
     """The scorecard folder ``rank DATASET --engine dask --format parquet --output out`` writes
     (parts and description, ``triage.core.card_folder``), made here with the local engine and
     the same writers, without a cluster."""
@@ -80,9 +82,9 @@ def stored_scorecard(folder: Path, out: Path, *, window: int = 13, season: int =
 
     dataset = open_dataset(folder)
     plan = plan_dataset(dataset, [quick_summary(dataset, i) for i in range(len(dataset.files))])
-    card = scorecard(read_dataset(folder), window, season)
+    card = scorecard(read_dataset(folder), window, season, by=by)
     scored = card_folder.Scored(
-        window=window, season=season, by="error", lag=plan.grid.lag, columns=None,
+        window=window, season=season, by=by, lag=plan.grid.lag, columns=None,
         series=len(card), rows=len(card),
     )  # fmt: skip
     parts = [*parquet_parts(card), card_folder.description_writer(plan, scored)]

@@ -201,3 +201,13 @@ def test_other_settings_take_the_scorecards_window(lake: tuple[Path, Path]) -> N
     assert (review.settings.window, review.settings.season) == (13, 1)
     assert any("window of 13 periods" in note for note in review.notices)
     assert isinstance(review.card, pd.DataFrame)
+
+
+def test_a_scorecard_stored_in_bias_order_gives_the_same_review(
+    tmp_path: Path, lake: tuple[Path, Path]
+) -> None:
+    by_error = stored_session(lake)
+    by_bias = stored_session((lake[0], stored_scorecard(lake[0], tmp_path / "bias", by="bias")))
+    for order in ("error", "bias"):
+        want = [by_error.key(int(s)) for s in by_error.order(order)]
+        assert [by_bias.key(int(s)) for s in by_bias.order(order)] == want
