@@ -589,8 +589,8 @@ def _scorecard_target(
     The ledger is the dataset folder's (``locate_ledger`` of the folder, as of a review
     folder), or ``--ledger``; the scorecard folder is replaced by each week's ``rank``, so it
     holds none."""
-    from triage.core.card_folder import open_card_folder
     from triage.core.ledger import locate_ledger
+    from triage.core.on_demand import reviewable
     from triage.core.text import visible
 
     if not args.portfolio.is_dir():
@@ -606,8 +606,9 @@ def _scorecard_target(
             hint="Leave out --group, or rank the dataset's groups with triage rank DATASET "
             "--engine dask --group COLUMNS.",
         )
-    # Refused here, before the screens open: a folder that is not this dataset's scorecard.
-    open_card_folder(args.scorecard, args.portfolio)
+    # Refused here, before the screens open: a folder that is not a reviewable scorecard of
+    # this dataset as it is.
+    reviewable(args.portfolio, args.scorecard, columns=read_args(args)["columns"])
     if args.ledger is not None:
         return args.portfolio, args.ledger, []
     try:

@@ -110,14 +110,24 @@ def test_review_on_a_stored_scorecard_refuses_what_it_cannot_open(
 ) -> None:
     from tests.core.datasets import stored_scorecard
 
+    import json
+    import shutil
+
     card = stored_scorecard(lake, tmp_path / "card")
     empty = tmp_path / "empty"
     empty.mkdir()
+    damaged = tmp_path / "damaged"
+    shutil.copytree(card, damaged)
+    described = json.loads((damaged / "_scorecard.json").read_text())
+    del described["plan"]["periods"]
+    (damaged / "_scorecard.json").write_text(json.dumps(described))
     for args, says in (
         ((single, "--scorecard", card), "is not a folder"),
         ((lake, "--scorecard", card, "--group", "family"), "--group opens the group view"),
         ((lake, "--scorecard", empty), "has no _scorecard.json"),
         ((lake, "--scorecard", tmp_path / "missing"), "no such scorecard folder"),
+        ((lake, "--scorecard", damaged), "description is damaged"),
+        ((lake, "--scorecard", card, "--columns", "demand=forecast"), "--columns differs"),
     ):
         refused = run("review", *map(str, args))
         assert refused.returncode == 2, refused.stderr

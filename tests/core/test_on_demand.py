@@ -119,12 +119,52 @@ def test_fetched_rows_index_as_numpy_does(lake: tuple[Path, Path], source: Path)
         (np.int64(5), 12),
     ):
         np.testing.assert_array_equal(matrix[key], reference[key], err_msg=repr(key))
-    with pytest.raises(on_demand.EveryHistoryNeeded):
+    # Slices and negative positions as numpy takes them, once those rows are at hand.
+    last = stored.portfolio.n_series - 1
+    fetch(stored, [last])
+    for key in ((slice(None, 3), cols), slice(2, 5), -1, (np.array([-1, 0]), 7)):
+        np.testing.assert_array_equal(matrix[key], reference[key], err_msg=repr(key))
+    assert matrix[np.array([], dtype=np.int64)].shape == (0, matrix.shape[1])
+    with pytest.raises(IndexError):
+        matrix[last + 1]
+    # On the screens' thread a row not at hand is never read there.
+    with pytest.raises(on_demand.NotFetched):
         matrix[:, cols]
-    with pytest.raises(on_demand.EveryHistoryNeeded):
-        np.asarray(matrix)
     with pytest.raises(on_demand.NotFetched):
         matrix[50]
+    with pytest.raises(on_demand.EveryHistoryNeeded):
+        np.asarray(matrix)
+
+
+def test_asking_for_every_history_is_refused(
+    lake: tuple[Path, Path], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    stored = stored_session(lake)
+    monkeypatch.setattr(on_demand, "AT_ONCE", 10)
+    failed: list[BaseException] = []
+
+    def whole() -> None:
+        try:
+            stored.portfolio.demand[:, 5]
+        except on_demand.EveryHistoryNeeded as exc:
+            failed.append(exc)
+
+    worker = threading.Thread(target=whole)
+    worker.start()
+    worker.join(60)
+    assert failed and "needs every series' history" in str(failed[0])
+
+
+def test_more_histories_than_are_kept_are_read_in_chunks(lake: tuple[Path, Path]) -> None:
+    review = on_demand.open_review(*lake, ScoreSettings())
+    histories = on_demand.Histories(review.histories.plan, review.portfolio.key, kept=3)
+    got = histories.fetch(range(8))
+    assert sorted(got) == list(range(8)) and histories.fetches == 3
+    # Those kept are the latest used; one read again moves to the end.
+    assert [histories.has(s) for s in range(8)] == [False] * 5 + [True] * 3
+    histories.fetch([5])
+    histories.fetch([0])
+    assert histories.has(5) and histories.has(0) and not histories.has(6)
 
 
 def test_off_the_screens_thread_a_history_is_fetched_when_read(lake: tuple[Path, Path]) -> None:
@@ -183,6 +223,9 @@ def test_a_partial_or_outdated_scorecard_is_refused(
     partial.mkdir()
     for path in card.iterdir():
         partial.joinpath(path.name).write_bytes(path.read_bytes())
+    # The leading ten rows, as --top 10 writes them.
+    first = partial / "part-00000.parquet"
+    pq.write_table(pq.read_table(first).slice(0, 10), first)
     described = json.loads((partial / card_folder.DESCRIPTION).read_text())
     described["scored"]["rows"] = 10
     (partial / card_folder.DESCRIPTION).write_text(json.dumps(described))
@@ -211,3 +254,77 @@ def test_a_scorecard_stored_in_bias_order_gives_the_same_review(
     for order in ("error", "bias"):
         want = [by_error.key(int(s)) for s in by_error.order(order)]
         assert [by_bias.key(int(s)) for s in by_bias.order(order)] == want
+
+
+def _damaged(card: Path, tmp_path: Path, change) -> Path:
+    """A copy of the scorecard folder with its description changed by ``change``."""
+    import json
+    import shutil
+
+    copy = tmp_path / f"damaged-{len(list(tmp_path.iterdir()))}"
+    shutil.copytree(card, copy)
+    path = copy / card_folder.DESCRIPTION
+    described = json.loads(path.read_text())
+    change(described)
+    path.write_text(json.dumps(described))
+    return copy
+
+
+@pytest.mark.parametrize(
+    "change",
+    [
+        lambda d: d.pop("parts"),
+        lambda d: d["scored"].update(extra=1),
+        lambda d: d["scored"].update(window="13"),
+        lambda d: d["plan"].update(actual_cols=[]),
+        lambda d: d["plan"].update(actual_cols=[10**6]),
+        lambda d: d["plan"].update(columns=["nope"]),
+        lambda d: d["plan"].update(periods=["2026-13-45"]),
+        lambda d: d["plan"].update(lags=None),
+        lambda d: d.update(parts="x"),
+    ],
+)
+def test_a_damaged_description_is_refused_by_name(
+    tmp_path: Path, lake: tuple[Path, Path], change
+) -> None:
+    damaged = _damaged(lake[1], tmp_path, change)
+    with pytest.raises(LoadError, match="description is damaged"):
+        on_demand.open_review(lake[0], damaged, ScoreSettings())
+
+
+def test_scorecard_files_are_checked_against_the_description(
+    tmp_path: Path, lake: tuple[Path, Path]
+) -> None:
+    import shutil
+
+    copy = tmp_path / "card"
+    shutil.copytree(lake[1], copy)
+    shutil.copy(copy / "part-00000.parquet", copy / "part-00001.parquet")
+    with pytest.raises(LoadError, match="files hold"):
+        on_demand.open_review(lake[0], copy, ScoreSettings())
+    (copy / "part-00001.parquet").write_bytes(b"not parquet")
+    with pytest.raises(LoadError, match="cannot read this scorecard file"):
+        on_demand.open_review(lake[0], copy, ScoreSettings())
+
+
+def test_another_columns_mapping_is_refused(lake: tuple[Path, Path]) -> None:
+    with pytest.raises(LoadError, match="--columns differs"):
+        on_demand.open_review(*lake, ScoreSettings(), columns={"demand": "other"})
+
+
+def test_a_dataset_changed_after_opening_is_not_read(
+    tmp_path: Path, lake: tuple[Path, Path]
+) -> None:
+    import os
+    import shutil
+
+    folder = tmp_path / "lake"
+    shutil.copytree(lake[0], folder)
+    card = stored_scorecard(folder, tmp_path / "card")
+    review = on_demand.open_review(folder, card, ScoreSettings())
+    part = sorted(folder.glob("*.parquet"))[1]
+    stat = part.stat()
+    os.utime(part, ns=(stat.st_atime_ns, stat.st_mtime_ns + 10**9))
+    with pytest.raises(LoadError, match="has changed since"):
+        review.histories.fetch([0])
+    assert not review.histories.has(0)

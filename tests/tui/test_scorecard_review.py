@@ -125,7 +125,7 @@ async def test_decisions_at_full_speed_are_saved_with_the_dataset(
     assert {e.portfolio_fingerprint for e in events} == {on_demand.fingerprint(stored)}
 
 
-async def test_a_part_that_cannot_be_read_is_reported_and_keys_go_on(
+async def test_a_part_rewritten_after_opening_is_reported_and_keys_go_on(
     lake: tuple[Path, Path], tmp_path: Path
 ) -> None:
     import shutil
@@ -140,15 +140,47 @@ async def test_a_part_that_cannot_be_read_is_reported_and_keys_go_on(
         await wait_listed(app, pilot)
         session = app.session
         series_list = app.query_one(SeriesList)
-        # A part damaged after the review opened: the rows shown wait, the next fetch fails.
+        # A part rewritten after the review opened: its histories would not be those scored,
+        # so the next fetch refuses to read it, and says to make the scorecard again.
         await wait_for(pilot, lambda: not app._fetch_running and not app._wanted, "first rows")
         part = sorted(folder.glob("*.parquet"))[2]
         part.write_bytes(b"not parquet any more")
         burst(app, ["end"])
         await wait_for(pilot, lambda: "error:" in app.status_text, "the error")
-        assert "cannot read" in app.status_text
+        assert "has changed since this scorecard was made" in app.status_text
         last = int(series_list.order[-1])
         burst(app, ["c"])
         await wait_for(
             pilot, lambda: session.outcome[last] == vocabulary.NO_CHANGE, "a decision after it"
         )
+
+
+async def test_a_failed_fetch_ends_the_wait_and_enter_tries_again(
+    lake: tuple[Path, Path], tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from triage.core.errors import LoadError
+
+    original = on_demand.Histories.fetch
+    failing = threading.Event()
+    failing.set()
+
+    def flaky(self, series):
+        if failing.is_set():
+            raise LoadError(lake[0], "the share is [bold]gone\x1b[2J for now.")
+        return original(self, series)
+
+    monkeypatch.setattr(on_demand.Histories, "fetch", flaky)
+    app = app_on(lake, tmp_path)
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_listed(app, pilot)
+        top = int(app.query_one(SeriesList).order[0])
+        await wait_for(pilot, lambda: "could not be read" in detail(app), "the pane to say so")
+        burst(app, ["enter"])
+        await wait_for(pilot, lambda: "error:" in app.status_text, "the error")
+        await wait_for(pilot, lambda: not isinstance(app.screen, WaitScreen), "the wait to end")
+        # Shown as text: no markup parsed, no terminal escape.
+        assert "[bold]gone" in app.status_text and "\x1b" not in app.status_text
+        failing.clear()
+        burst(app, ["enter"])
+        await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the dialog")
+        assert app.histories is not None and app.histories.has(top)

@@ -29,10 +29,12 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from triage.core import schema
 from triage.core.dataset import Dataset, Plan, open_dataset
 from triage.core.errors import LoadError
 from triage.core.portfolio import Calendar, Grid
 from triage.core.text import visible
+from triage.core.vocabulary import ORDERS
 
 #: The description's file name in a scorecard folder.
 DESCRIPTION = "_scorecard.json"
@@ -64,6 +66,8 @@ class CardFolder:
     scored: Scored
     files: tuple[Path, ...]
     """The scorecard's Parquet files, in review order."""
+    parts: tuple[tuple[str, int, int], ...] = ()
+    """The dataset's parts it was made from: (path below the folder, size, mtime in ns)."""
 
 
 def _parts(dataset: Dataset) -> list[dict[str, Any]]:
@@ -147,45 +151,175 @@ def open_card_folder(folder: Path, dataset_folder: Path) -> CardFolder:
             f"version {VERSION}.",
             hint=how,
         )
+    try:
+        parts, plan_fields, scored = _described(data)
+    except (KeyError, TypeError, ValueError, AttributeError, IndexError) as exc:
+        what = f"{type(exc).__name__}: {exc}" if not isinstance(exc, _Damaged) else str(exc)
+        raise LoadError(
+            path, f"the scorecard's description is damaged ({visible(what)}).", hint=how
+        ) from None
     dataset = open_dataset(dataset_folder)
-    _same_parts(folder, dataset, data["parts"], how)
-    files = tuple(sorted(folder.glob("part-*.parquet")))
-    if not files:
-        raise LoadError(folder, "this scorecard folder holds no part-*.parquet file.", hint=how)
+    stored = CardFolder(
+        folder=folder,
+        plan=Plan(dataset=dataset, **plan_fields),
+        scored=scored,
+        files=tuple(sorted(folder.glob("part-*.parquet"))),
+        parts=parts,
+    )
+    check_unchanged(stored)
+    _check_files(stored, how)
+    return stored
+
+
+class _Damaged(ValueError):
+    """What is wrong with a description's content."""
+
+
+def _need(ok: bool, what: str) -> None:
+    if not ok:
+        raise _Damaged(what)
+
+
+def _described(
+    data: dict[str, Any],
+) -> tuple[tuple[tuple[str, int, int], ...], dict[str, Any], Scored]:
+    """The parts, the plan's fields (without its dataset) and how it was scored, each value
+    checked for its type and range.
+
+    Raises:
+        KeyError, TypeError, ValueError, AttributeError, IndexError: The content is damaged.
+    """
+    parts = tuple((str(p["name"]), int(p["size"]), int(p["mtime_ns"])) for p in data["parts"])
     raw = data["plan"]
-    periods = pd.DatetimeIndex(pd.to_datetime(raw["periods"], format="%Y-%m-%d"))
-    grid = Grid(
-        calendar=Calendar(freq=raw["freq"], periods=periods),
-        last_actual=int(raw["last_actual"]),
-        lag=raw["lag"],
-        lags=tuple(raw["lags"]),
+    freq = raw["freq"]
+    _need(freq in (schema.WEEKLY, schema.MONTHLY), f"frequency {freq!r}")
+    periods = pd.DatetimeIndex(pd.to_datetime(list(raw["periods"]), format="%Y-%m-%d"))
+    _need(len(periods) > 0 and periods.is_monotonic_increasing, "the calendar")
+    last_actual = raw["last_actual"]
+    _need(isinstance(last_actual, int) and 0 <= last_actual < len(periods), "the latest actual")
+    actual_cols = np.asarray(raw["actual_cols"], dtype=np.int64)
+    _need(
+        actual_cols.ndim == 1
+        and len(actual_cols) > 0
+        and bool((np.diff(actual_cols) > 0).all())
+        and actual_cols[0] >= 0
+        and actual_cols[-1] == last_actual,
+        "the periods with actual demand",
     )
-    plan = Plan(
-        dataset=dataset,
-        grid=grid,
-        actual_cols=np.asarray(raw["actual_cols"], dtype=np.int64),
-        columns=tuple(raw["columns"]),
-        attributes=tuple(raw["attributes"]),
-        rows=int(raw["rows"]),
-        notices=tuple(raw["notices"]),
-        whole_series=bool(raw["whole_series"]),
-        units_reason=str(raw["units_reason"]),
+    lag = raw["lag"]
+    _need(lag is None or isinstance(lag, int), "the lag")
+    columns = tuple(str(c) for c in raw["columns"])
+    required = (schema.ITEM, schema.PERIOD, schema.DEMAND, schema.FORECAST)
+    _need(all(c in columns for c in required), "the columns")
+    attributes = tuple(str(c) for c in raw["attributes"])
+    _need(all(a in columns for a in attributes), "the attributes")
+    fields = {
+        "grid": Grid(
+            calendar=Calendar(freq=freq, periods=periods),
+            last_actual=last_actual,
+            lag=lag,
+            lags=tuple(int(v) for v in raw["lags"]),
+        ),
+        "actual_cols": actual_cols,
+        "columns": columns,
+        "attributes": attributes,
+        "rows": int(raw["rows"]),
+        "notices": tuple(str(n) for n in raw["notices"]),
+        "whole_series": bool(raw["whole_series"]),
+        "units_reason": str(raw["units_reason"]),
+    }
+    how = data["scored"]
+    _need(set(how) == {f.name for f in dataclasses.fields(Scored)}, "how it was scored")
+    mapping = how["columns"]
+    _need(
+        mapping is None
+        or (isinstance(mapping, dict) and all(isinstance(v, str) for v in mapping.values())),
+        "the --columns it was read with",
     )
-    return CardFolder(folder=folder, plan=plan, scored=Scored(**data["scored"]), files=files)
+    scored = Scored(
+        window=how["window"],
+        season=how["season"],
+        by=how["by"],
+        lag=how["lag"],
+        columns=mapping,
+        series=how["series"],
+        rows=how["rows"],
+    )
+    for name in ("window", "season", "series", "rows"):
+        value = getattr(scored, name)
+        _need(isinstance(value, int) and value >= (1 if name in ("window", "season") else 0), name)
+    _need(scored.by in ORDERS and scored.rows <= scored.series, "the order or the rows")
+    return parts, fields, scored
 
 
-def _same_parts(folder: Path, dataset: Dataset, stored: list[dict[str, Any]], how: str) -> None:
+#: The scorecard columns the review reads, besides the keys and attributes.
+REVIEWED = (
+    "rank", "bias_rank", "fva_rank", "periods", "demand", "forecast", "abs_error", "bias",
+    "bias_pct", "error_share", "cum_share", "tracking_signal", "bias_run", "bias_flag",
+    "pattern", "fva_loss",
+)  # fmt: skip
+
+
+def _check_files(stored: CardFolder, how: str) -> None:
+    """Refuse scorecard files that cannot be read, lack a column the review reads, or hold
+    another number of rows than the description says."""
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    if not stored.files:
+        raise LoadError(
+            stored.folder, "this scorecard folder holds no part-*.parquet file.", hint=how
+        )
+    plan = stored.plan
+    needed = [*plan.key_columns, *plan.attributes, *REVIEWED]
+    rows = 0
+    for path in stored.files:
+        try:
+            metadata = pq.read_metadata(path)
+        except (pa.ArrowException, OSError) as exc:
+            raise LoadError(
+                path, f"cannot read this scorecard file ({visible(str(exc))}).", hint=how
+            ) from None
+        missing = [c for c in needed if c not in metadata.schema.names]
+        if missing:
+            raise LoadError(
+                path,
+                f"this scorecard file lacks the column(s) {visible(', '.join(missing))}.",
+                hint=how,
+            )
+        rows += metadata.num_rows
+    if rows != stored.scored.rows:
+        raise LoadError(
+            stored.folder,
+            f"its files hold {rows:,} rows, but its description says {stored.scored.rows:,}: "
+            "files were added to or removed from the folder.",
+            hint=how,
+        )
+
+
+def check_unchanged(stored: CardFolder) -> None:
+    """Refuse a dataset whose parts are not those the scorecard was made from (paths, sizes,
+    modification times): before the scorecard is opened, and before and after each history
+    is read from the dataset.
+
+    Raises:
+        LoadError: A part was added, removed or rewritten since.
+    """
+    dataset = stored.plan.dataset
+    how = (
+        f"Make it again: triage rank {visible(str(dataset.folder))} --engine dask --format "
+        f"parquet --output {visible(str(stored.folder))} --force"
+    )
+    _same_parts(stored.folder, open_dataset(dataset.folder), stored.parts, how)
+
+
+def _same_parts(
+    folder: Path, dataset: Dataset, stored: tuple[tuple[str, int, int], ...], how: str
+) -> None:
     """Refuse a dataset whose parts are not those the scorecard was made from."""
-    now = {p["name"]: p for p in _parts(dataset)}
-    then = {p["name"]: p for p in stored}
-    changed = sorted(
-        name
-        for name in now.keys() | then.keys()
-        if name not in now
-        or name not in then
-        or (now[name]["size"], now[name]["mtime_ns"])
-        != (then[name]["size"], then[name]["mtime_ns"])
-    )
+    now = {p["name"]: (p["size"], p["mtime_ns"]) for p in _parts(dataset)}
+    then = {name: (size, mtime) for name, size, mtime in stored}
+    changed = sorted(name for name in now.keys() | then.keys() if now.get(name) != then.get(name))
     if changed:
         shown = ", ".join(visible(name) for name in changed[:5])
         more = f" and {len(changed) - 5} more" if len(changed) > 5 else ""

@@ -31,14 +31,18 @@ import numpy as np
 import pandas as pd
 
 from triage.core import schema
-from triage.core.card_folder import DESCRIPTION, CardFolder, open_card_folder
+from triage.core.card_folder import CardFolder, check_unchanged, open_card_folder
 from triage.core.dataset import Plan, fetch_series
 from triage.core.errors import LoadError, TriageError
 from triage.core.portfolio import Portfolio
 from triage.core.settings import ScoreSettings
+from triage.core.text import visible
 
 #: Series whose histories are kept once fetched (about 4 KB each at 117 weekly periods).
 KEPT = 4096
+#: The most series' histories read for one request (the series with earlier adjustments, when
+#: a review opens); more needs every history (:class:`EveryHistoryNeeded`).
+AT_ONCE = 200_000
 
 
 class EveryHistoryNeeded(TriageError):
@@ -63,10 +67,12 @@ class NotFetched(TriageError):
 
 class Histories:
     """The histories of a dataset's series, fetched on demand and kept for the latest
-    :data:`KEPT` series.
+    :data:`KEPT` series used.
 
-    ``fetch`` does the I/O (a worker thread); ``row`` only looks up what is kept, so the UI
-    thread never reads the dataset.
+    ``fetch`` does the I/O (a worker thread); on the main thread ``rows`` only looks up what is
+    kept, so the screens' keys never read the dataset. Before and after each read the dataset's
+    parts are compared with those the scorecard was made from (``unchanged``): a history read
+    from a dataset changed since is never shown beside the scorecard.
     """
 
     def __init__(
@@ -75,11 +81,13 @@ class Histories:
         key_of: Callable[[int], tuple[str, str]],
         *,
         columns: dict[str, str] | None = None,
+        unchanged: Callable[[], None] | None = None,
         kept: int = KEPT,
     ) -> None:
         self.plan = plan
         self._key_of = key_of
         self._columns = columns
+        self._unchanged = unchanged or (lambda: None)
         self._kept = kept
         self._rows: OrderedDict[int, dict[str, np.ndarray]] = OrderedDict()
         self._lock = threading.Lock()
@@ -95,57 +103,73 @@ class Histories:
         """The series of ``series`` whose histories are not at hand, in order, once each."""
         return [s for s in dict.fromkeys(int(s) for s in series) if s not in self._rows]
 
-    def fetch(self, series: Iterable[int]) -> None:
-        """Read the histories of ``series`` that are not at hand from the dataset (I/O).
+    def fetch(self, series: Iterable[int]) -> dict[int, dict[str, np.ndarray]]:
+        """Read the histories of ``series`` that are not at hand from the dataset (I/O), a
+        chunk of at most :data:`KEPT` series at a time, and keep the latest ones.
 
-        A series the dataset no longer holds is kept as empty (every period missing): the
+        A series the dataset no longer holds reads as empty (every period missing): the
         scorecard still shows its row.
 
+        Returns:
+            Each series' rows by matrix name (those read now and those already kept).
+
         Raises:
-            LoadError: A part cannot be read, or its rows are not as they were when the
-                scorecard was made.
+            LoadError: A part cannot be read, or the dataset changed since the scorecard was
+                made.
         """
-        wanted = self.missing(series)
-        if not wanted:
-            return
-        keys = [self._key_of(s) for s in wanted]
-        got = fetch_series(self.plan, keys, columns=self._columns)
-        self.fetches += 1
-        found: dict[tuple[str, str], int] = {}
-        if got is not None:
-            found = {got.key(j): j for j in range(got.n_series)}
+        asked = list(dict.fromkeys(int(s) for s in series))
+        got: dict[int, dict[str, np.ndarray]] = {}
         with self._lock:
-            for s, key in zip(wanted, keys, strict=True):
-                j = found.get(key)
-                self._rows[s] = _rows_of(got, j, self.n_periods)
-                self._rows.move_to_end(s)
-            while len(self._rows) > self._kept:
-                self._rows.popitem(last=False)
+            for s in asked:
+                kept = self._rows.get(s)
+                if kept is not None:
+                    self._rows.move_to_end(s)
+                    got[s] = kept
+        wanted = [s for s in asked if s not in got]
+        for start in range(0, len(wanted), self._kept):
+            chunk = wanted[start : start + self._kept]
+            keys = [self._key_of(s) for s in chunk]
+            self._unchanged()
+            read = fetch_series(self.plan, keys, columns=self._columns)
+            self._unchanged()
+            self.fetches += 1
+            found: dict[tuple[str, str], int] = {}
+            if read is not None:
+                found = {read.key(j): j for j in range(read.n_series)}
+            with self._lock:
+                for s, key in zip(chunk, keys, strict=True):
+                    got[s] = self._rows[s] = _rows_of(read, found.get(key), self.n_periods)
+                    self._rows.move_to_end(s)
+                while len(self._rows) > self._kept:
+                    self._rows.popitem(last=False)
+        return got
 
     def rows(self, series: np.ndarray) -> list[dict[str, np.ndarray]]:
-        """The kept rows of each of ``series`` (distinct positions), by matrix name.
+        """The rows of each of ``series`` (distinct positions), by matrix name.
 
         Off the main thread (a worker: the screens' load, a command) the histories not at
-        hand are fetched first; on it (the screens' keys) they raise :class:`NotFetched`, so a
+        hand are fetched; on it (the screens' keys) they raise :class:`NotFetched`, so a
         keystroke never waits on the dataset.
 
         Raises:
             NotFetched: On the main thread, a series whose history is not at hand.
-            EveryHistoryNeeded: More series than are kept at once.
+            EveryHistoryNeeded: More than :data:`AT_ONCE` series asked for at once.
         """
-        if len(series) > self._kept:
+        if len(series) > AT_ONCE:
             raise EveryHistoryNeeded(f"reading {len(series):,} series' histories at once")
+        positions = [int(s) for s in series]
         with self._lock:
-            kept = [self._rows.get(int(s)) for s in series]
-        if any(k is None for k in kept):
-            if threading.current_thread() is threading.main_thread():
-                raise NotFetched(int(series[[k is None for k in kept].index(True)]))
-            self.fetch(series)
-            with self._lock:
-                kept = [self._rows.get(int(s)) for s in series]
-        if any(k is None for k in kept):
-            raise EveryHistoryNeeded(f"reading {len(series):,} series' histories at once")
-        return kept  # type: ignore[return-value]
+            kept = [self._rows.get(s) for s in positions]
+            missing = [s for s, k in zip(positions, kept, strict=True) if k is None]
+            for s in positions:
+                if s in self._rows:
+                    self._rows.move_to_end(s)
+        if not missing:
+            return kept  # type: ignore[return-value]
+        if threading.current_thread() is threading.main_thread():
+            raise NotFetched(missing[0])
+        got = self.fetch(positions)
+        return [got[s] for s in positions]
 
 
 def _rows_of(got: Portfolio | None, j: int | None, n_periods: int) -> dict[str, np.ndarray]:
@@ -205,16 +229,19 @@ class FetchedRows:
 
     def __getitem__(self, key: Any) -> Any:
         rows, cols = (key[0], key[1:]) if isinstance(key, tuple) else (key, ())
+        n = self.shape[0]
         if isinstance(rows, slice):
-            if rows.start is None or rows.stop is None:
-                raise EveryHistoryNeeded()
             # A slice of rows stays a slice: the rows in order, then the columns as given.
-            taken = np.arange(*rows.indices(self.shape[0]))
+            taken = np.arange(*rows.indices(n))
             block = _stacked(self._histories.rows(taken), self._name, self.shape[1])
             return block[(slice(None), *cols)]
         picked = np.asarray(rows)
-        if picked.dtype == bool or picked.dtype.kind not in "iu":
+        if picked.dtype == bool or (picked.size and picked.dtype.kind not in "iu"):
             raise EveryHistoryNeeded()
+        picked = picked.astype(np.int64)
+        if picked.size and (picked.min() < -n or picked.max() >= n):
+            raise IndexError(f"series index out of range for {n} series")
+        picked = np.where(picked < 0, picked + n, picked)
         distinct, local = np.unique(picked, return_inverse=True)
         block = _stacked(self._histories.rows(distinct), self._name, self.shape[1])
         # The same indexing on the block of distinct rows: numpy's rules for ``m[rows, cols]``
@@ -243,9 +270,44 @@ class ScorecardReview:
 def fingerprint(folder: CardFolder) -> str:
     """SHA-256 of the dataset's parts as the scorecard describes them (names, sizes, times):
     what decisions store as the data they were made on (a file's is its content's hash)."""
-    described = (folder.folder / DESCRIPTION).read_text(encoding="utf-8")
-    parts = json.loads(described)["parts"]
-    return hashlib.sha256(json.dumps(parts, sort_keys=True).encode("utf-8")).hexdigest()
+    parts = [list(part) for part in folder.parts]
+    return hashlib.sha256(json.dumps(parts).encode("utf-8")).hexdigest()
+
+
+def reviewable(
+    dataset: Path, scorecard: Path, *, columns: dict[str, str] | None = None
+) -> CardFolder:
+    """The scorecard folder ``scorecard`` of ``dataset``, checked for a review: complete, of
+    the dataset as it is (``card_folder.open_card_folder``), of every series, and read with
+    the ``--columns`` given, if any.
+
+    Raises:
+        LoadError: The folder cannot be reviewed; the message says why and what to do.
+    """
+    stored = open_card_folder(scorecard, dataset)
+    scored = stored.scored
+    if scored.rows != scored.series:
+        raise LoadError(
+            scorecard,
+            f"this scorecard holds the leading {scored.rows:,} of {scored.series:,} series "
+            "(--top or --cover); the review needs every series' row for its totals and shares.",
+            hint="Write the whole scorecard: triage rank DATASET --engine dask --format parquet "
+            "--output DIR (without --top or --cover).",
+        )
+    if columns is not None and columns != (scored.columns or {}):
+        raise LoadError(
+            scorecard,
+            "--columns differs from the mapping the scorecard was made with "
+            f"({_mapping(scored.columns)}); the histories must be read as the scores were.",
+            hint="Leave out --columns: the review reads the dataset with the scorecard's.",
+        )
+    return stored
+
+
+def _mapping(columns: dict[str, str] | None) -> str:
+    if not columns:
+        return "none"
+    return visible(", ".join(f"{k}={v}" for k, v in columns.items()))
 
 
 def open_review(
@@ -267,16 +329,8 @@ def open_review(
     import pyarrow as pa
     import pyarrow.parquet as pq
 
-    stored = open_card_folder(scorecard, dataset)
+    stored = reviewable(dataset, scorecard, columns=columns)
     scored, plan = stored.scored, stored.plan
-    if scored.rows != scored.series:
-        raise LoadError(
-            scorecard,
-            f"this scorecard holds the leading {scored.rows:,} of {scored.series:,} series "
-            "(--top or --cover); the review needs every series' row for its totals and shares.",
-            hint="Write the whole scorecard: triage rank DATASET --engine dask --format parquet "
-            "--output DIR (without --top or --cover).",
-        )
     notices = list(plan.notices)
     if (settings.window, settings.season) != (scored.window, scored.season):
         notices.append(
@@ -301,7 +355,12 @@ def open_review(
     keys = stored_card[[*plan.key_columns, *plan.attributes]].reset_index(drop=True)
     n = len(stored_card)
     held: list[Portfolio] = []
-    histories = Histories(plan, lambda series: held[0].key(series), columns=columns)
+    histories = Histories(
+        plan,
+        lambda series: held[0].key(series),
+        columns=scored.columns,
+        unchanged=lambda: check_unchanged(stored),
+    )
     competing = {
         name: FetchedRows(histories, name, n)
         for name in (schema.competing_name(c) for c in plan.columns)

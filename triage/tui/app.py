@@ -804,6 +804,8 @@ class TriageApp(App[None]):
         try:
             return (fmt.sparkline(p.demand[series, cols], p.forecast[series, cols]), None)
         except NotFetched:
+            if series in self._failed:
+                return ("not read", "dim")
             self._want(series)
             return ("…", "dim")
 
@@ -878,8 +880,14 @@ class TriageApp(App[None]):
         # measures: a short pane at 80x24 still shows the first lines.
         lines = [session.describe(series), *session.across_cycles(series)]
         if self.histories is not None and not self.histories.has(series):
-            lines.append("history: fetching from the dataset…")
-            self._want(series, first=True)
+            if series in self._failed:
+                lines.append(
+                    "history: could not be read from the dataset (the status line says why); "
+                    "enter tries again"
+                )
+            else:
+                lines.append("history: fetching from the dataset…")
+                self._want(series, first=True)
         spec, reason = session.suggest_spec[series], session.suggest_reason[series]
         if not session.ready:
             lines.append("suggested adjustment: still computing…")
@@ -975,8 +983,10 @@ class TriageApp(App[None]):
         except TriageError as exc:
             self.post_message(Fetched(batch, str(exc)))
             return
-        except BaseException:
-            self.post_message(Fetched(batch, "the histories could not be read"))
+        except BaseException as exc:
+            folder = visible(str(histories.plan.dataset.folder))
+            what = f"{type(exc).__name__}: {exc}"
+            self.post_message(Fetched(batch, f"{folder}: the histories could not be read ({what})"))
             raise
         self.post_message(Fetched(batch))
 
@@ -995,9 +1005,10 @@ class TriageApp(App[None]):
             for series in message.series:
                 series_list.invalidate(series)
             current = series_list.current
-            if current in message.series and not self.in_groups and message.error is None:
+            if current in message.series and not self.in_groups:
                 self._detail_body(current)
-                self._draw_chart(current)
+                if message.error is None:
+                    self._draw_chart(current)
 
         pending = self._open_after_fetch
         if pending is not None and pending[0] in message.series and pending[3].is_attached:
@@ -1319,6 +1330,8 @@ class TriageApp(App[None]):
             self._open_after_fetch = (series, outcome, adjustment, wait)
             self._status(text)
             self.push_screen(wait, self._waited)
+            # Asked for again after a failed fetch: try once more.
+            self._failed.discard(series)
             self._want(series, first=True)
             return
         await self._writes_settled()

@@ -133,10 +133,13 @@ def _groups_holding(metadata: Any, column: str, items: list[str]) -> list[int]:
     wanted = sorted(items)
     keep = []
     for group in range(metadata.num_row_groups):
-        stats = metadata.row_group(group).column(at).statistics
         low = high = None
-        if stats is not None and stats.has_min_max:
-            low, high = stats.min, stats.max
+        try:
+            stats = metadata.row_group(group).column(at).statistics
+            if stats is not None and stats.has_min_max:
+                low, high = stats.min, stats.max
+        except (UnicodeDecodeError, ValueError, TypeError):
+            pass  # statistics that are not text as written: the row group is read
         if not isinstance(low, str) or not isinstance(high, str):
             keep.append(group)
             continue
