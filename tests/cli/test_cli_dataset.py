@@ -108,10 +108,10 @@ def test_top_k_rows_are_the_first_rows_of_the_whole_scorecard(lake: Path, by: st
 def test_review_on_a_stored_scorecard_refuses_what_it_cannot_open(
     tmp_path: Path, single: Path, lake: Path
 ) -> None:
-    from tests.core.datasets import stored_scorecard
-
     import json
     import shutil
+
+    from tests.core.datasets import stored_scorecard
 
     card = stored_scorecard(lake, tmp_path / "card")
     empty = tmp_path / "empty"
