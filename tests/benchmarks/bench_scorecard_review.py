@@ -29,6 +29,7 @@ import time
 from pathlib import Path
 
 from tests.benchmarks.bench_rank import measure as run
+from tests.benchmarks.bench_tui import first_list_frame
 
 BARE_READ = (
     "import sys, pyarrow.parquet as pq; frame = pq.read_table(sys.argv[1]).to_pandas(); "
@@ -46,20 +47,7 @@ async def first_frame_child(dataset: Path, scorecard: Path) -> None:
     app = TriageApp(
         Options(portfolio=dataset, scorecard=scorecard, ledger=ledger, reviewer="bench")
     )
-    drawn: list[float] = []
-    original = app._display
-
-    def display(screen, renderable):
-        if app.session is not None and not drawn:
-            try:
-                shown = len(app.query_one(SeriesList).order)
-            except Exception:  # no screen yet, or closing
-                shown = 0
-            if shown:
-                drawn.append(time.time())
-        return original(screen, renderable)
-
-    app._display = display  # type: ignore[method-assign]
+    drawn = first_list_frame(app)
     async with app.run_test(size=(160, 48)):
         while not drawn:
             await asyncio.sleep(0.005)

@@ -192,20 +192,11 @@ async def datatable_baseline(path: Path) -> float:
         return next(f for f in frames if f > start) - start
 
 
-async def first_frame_child(path: Path, folder: Path, *, cache: bool, fill: bool) -> None:
-    """Child process: open the review screens and print when the first frame with the list was
-    drawn (``time.time()``, as JSON); with ``fill``, wait until the reopen cache holds the file."""
-    import dataclasses
-
-    from triage.tui.app import Options, TriageApp
+def first_list_frame(app) -> list[float]:
+    """Watch ``app``'s frames: the list returned gets the ``time.time()`` of the first frame
+    written with the ranked list on screen."""
     from triage.tui.widgets.series_list import SeriesList
 
-    ledger = Path(tempfile.mkdtemp()) / "bench.ledger.sqlite"
-    extra: dict[str, object] = {"cache": cache, "cache_folder": folder}
-    # An older tree (--baseline-ref) has no reopen cache.
-    known = {f.name for f in dataclasses.fields(Options)}
-    kept = {k: v for k, v in extra.items() if k in known}
-    app = TriageApp(Options(portfolio=path, ledger=ledger, reviewer="bench", **kept))  # type: ignore[arg-type]
     drawn: list[float] = []
     original = app._display
 
@@ -219,7 +210,24 @@ async def first_frame_child(path: Path, folder: Path, *, cache: bool, fill: bool
                 drawn.append(time.time())
         return original(screen, renderable)
 
-    app._display = display  # type: ignore[method-assign]
+    app._display = display
+    return drawn
+
+
+async def first_frame_child(path: Path, folder: Path, *, cache: bool, fill: bool) -> None:
+    """Child process: open the review screens and print when the first frame with the list was
+    drawn (``time.time()``, as JSON); with ``fill``, wait until the reopen cache holds the file."""
+    import dataclasses
+
+    from triage.tui.app import Options, TriageApp
+
+    ledger = Path(tempfile.mkdtemp()) / "bench.ledger.sqlite"
+    extra: dict[str, object] = {"cache": cache, "cache_folder": folder}
+    # An older tree (--baseline-ref) has no reopen cache.
+    known = {f.name for f in dataclasses.fields(Options)}
+    kept = {k: v for k, v in extra.items() if k in known}
+    app = TriageApp(Options(portfolio=path, ledger=ledger, reviewer="bench", **kept))  # type: ignore[arg-type]
+    drawn = first_list_frame(app)
     async with app.run_test(size=(160, 48)):
         while not drawn:
             await asyncio.sleep(0.005)

@@ -45,14 +45,7 @@ def lake(source: Path, tmp_path_factory: pytest.TempPathFactory) -> tuple[Path, 
 
 def stored_session(lake: tuple[Path, Path], ledger: Ledger | None = None) -> ReviewSession:
     review = on_demand.open_review(*lake, ScoreSettings())
-    cycle = ReviewCycle(
-        review.portfolio,
-        ledger,
-        review.settings,
-        card=review.card,
-        actual_cols=review.histories.plan.actual_cols,
-    )
-    session = ReviewSession(cycle, reviewer="ana", defer=True)
+    session = ReviewSession(ReviewCycle.on_scorecard(review, ledger), reviewer="ana", defer=True)
     session.finish(session.background())
     return session
 

@@ -20,6 +20,7 @@ what depends on the ledger after decisions were written.
 from __future__ import annotations
 
 from functools import cached_property
+from typing import TYPE_CHECKING
 
 import numpy as np
 import pandas as pd
@@ -29,6 +30,9 @@ from triage.core.ledger import Decision, Ledger
 from triage.core.portfolio import Portfolio
 from triage.core.ranking import scorecard
 from triage.core.settings import ScoreSettings
+
+if TYPE_CHECKING:
+    from triage.core.on_demand import ScorecardReview
 
 #: The cached pieces computed from the portfolio and settings alone.
 _SCORING = ("card", "window_cols", "error", "error_order", "worst", "fva")
@@ -80,6 +84,19 @@ class ReviewCycle:
         self.actual_cols = actual_cols
         if card is not None:
             self.__dict__["card"] = card
+
+    @classmethod
+    def on_scorecard(cls, review: ScorecardReview, ledger: Ledger | None) -> ReviewCycle:
+        """The cycle of a dataset reviewed on its stored scorecard (``on_demand.open_review``):
+        its window from the dataset's periods with actuals, its repeat offenders from the
+        ledger's stored worst sets, the histories fetched on demand."""
+        return cls(
+            review.portfolio,
+            ledger,
+            review.settings,
+            card=review.card,
+            actual_cols=review.histories.plan.actual_cols,
+        )
 
     # -- scoring ------------------------------------------------------------------------------
 

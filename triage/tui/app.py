@@ -582,13 +582,7 @@ class TriageApp(App[None]):
         notices = list(opts.notices) + list(review.notices)
         ledger = self._open_ledger(notices)
         self.post_message(LoadStep(2, steps, "ordering the list"))
-        cycle = ReviewCycle(
-            review.portfolio,
-            ledger,
-            review.settings,
-            card=review.card,
-            actual_cols=review.histories.plan.actual_cols,
-        )
+        cycle = ReviewCycle.on_scorecard(review, ledger)
         session = ReviewSession(cycle, reviewer=opts.reviewer, defer=True)
         self.histories = review.histories
         self.post_message(LoadStep(3, steps, "drawing"))
