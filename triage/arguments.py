@@ -5,7 +5,7 @@ from __future__ import annotations
 import argparse
 import contextlib
 import sys
-from collections.abc import Iterator
+from collections.abc import Callable, Iterator
 from pathlib import Path
 from typing import TYPE_CHECKING, Any
 
@@ -15,6 +15,7 @@ from triage.core.text import visible as printable
 
 if TYPE_CHECKING:
     from triage.core.config import Config
+    from triage.core.dataset import Plan
     from triage.core.ledger import Ledger
     from triage.core.portfolio import Portfolio
 
@@ -181,11 +182,13 @@ def load_portfolio(
     dataset: bool = False,
     scored_window: int | None = None,
     season: int = SEASON.default,
+    on_plan: Callable[[Plan], None] | None = None,
 ) -> Portfolio:
     """The portfolio named on the command line, read with the options of ``portfolio_args``.
 
     With ``dataset``, a folder is read as a dataset of Parquet parts by the local engine
-    (``triage.core.dataset.read_dataset``); otherwise a folder is refused by the loader.
+    (``triage.core.dataset.read_dataset``, which gives ``on_plan`` the dataset's plan);
+    otherwise a folder is refused by the loader.
     ``scored_window``, ``season``: read to be scored over that window only, with a naive
     baseline of that season (``read_portfolio``).
 
@@ -200,7 +203,7 @@ def load_portfolio(
 
         refuse_sheet(args)
         del options["sheet"]
-        return read_dataset(args.portfolio, smallest_lag=smallest_lag, **options)
+        return read_dataset(args.portfolio, smallest_lag=smallest_lag, on_plan=on_plan, **options)
     return read_portfolio(
         args.portfolio,
         smallest_lag=smallest_lag,

@@ -48,6 +48,7 @@ if TYPE_CHECKING:
     import pandas as pd
 
     from triage.core.config import Config
+    from triage.core.dataset import Plan
     from triage.core.portfolio import Portfolio
     from triage.tui.app import TriageApp
 
@@ -244,8 +245,13 @@ def _cmd_rank(args: argparse.Namespace) -> int:
     if args.engine == "dask":
         return _rank_dask(args, settings)
     # Only the window is scored (series and groups alike): the forecasts are read over it alone.
+    planned: list[Plan] = []
     portfolio = load_portfolio(
-        args, dataset=True, scored_window=settings.window, season=settings.season
+        args,
+        dataset=True,
+        scored_window=settings.window,
+        season=settings.season,
+        on_plan=planned.append,
     )
     _notices(portfolio.notices)
     require_scorable(portfolio, settings.window)
@@ -259,8 +265,9 @@ def _cmd_rank(args: argparse.Namespace) -> int:
         measures = series_measures(portfolio, cols, settings.season, steps)
         del portfolio
         card = ranked(measures, args.by, limit=_built(args))
+        describe = _describer(args, settings, planned[0] if planned else None, len(measures))
         del measures
-        return _show_rank(args, settings, None, card, steps)
+        return _show_rank(args, settings, None, card, steps, describe=describe)
     card = scorecard(
         portfolio, settings.window, settings.season, by=args.by, steps=steps, limit=_built(args)
     )
@@ -316,14 +323,26 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
         del measures
         return _show_groups(args, settings, described, table, by_columns, cols)
     card = ranked(scored.measures, args.by, limit=_built(args))
-    plan, series = scored.plan, len(scored.measures)
+    describe = _describer(args, settings, scored.plan, len(scored.measures))
     # The measures go before the text is made (the scorecard holds its own copies).
     del scored
+    shown = None if args.format in FILE_FORMATS else described
+    return _show_rank(args, settings, shown, card, steps, cols=cols, describe=describe)
+
+
+def _describer(
+    args: argparse.Namespace, settings: ScoreSettings, plan: Plan | None, series: int
+) -> Callable[[int], tuple[str, Callable[[Path], None]]] | None:
+    """The description a scorecard folder of a dataset gets (``core.card_folder``), given the
+    rows written, so that the review can open it (``review DATASET --scorecard DIR``); None
+    for a file's scorecard."""
+    if plan is None:
+        return None
 
     def describe(rows: int) -> tuple[str, Callable[[Path], None]]:
-        """The scorecard folder's description, so that the review can open it."""
         from triage.core import card_folder
 
+        reading = read_args(args)
         how = card_folder.Scored(
             window=settings.window,
             season=settings.season,
@@ -335,8 +354,7 @@ def _rank_dask(args: argparse.Namespace, settings: ScoreSettings) -> int:
         )
         return card_folder.description_writer(plan, how)
 
-    shown = None if args.format in FILE_FORMATS else described
-    return _show_rank(args, settings, shown, card, steps, cols=cols, describe=describe)
+    return describe
 
 
 def _show_rank(

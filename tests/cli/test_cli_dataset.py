@@ -54,8 +54,15 @@ def test_format_parquet_writes_the_scorecard_as_parts(
     monkeypatch.setattr(report, "PARQUET_ROWS", 500)
     out = tmp_path / "card"
     assert cli.main(["rank", str(lake), "--format", "parquet", "--output", str(out)]) == 0
-    parts = sorted(p.name for p in out.iterdir())
+    parts = sorted(p.name for p in out.iterdir() if p.suffix == ".parquet")
     assert parts == [f"part-{k:05d}.parquet" for k in range(-(-len(want) // 500))]
+    # The description beside them: the review opens the folder (docs/scale.md).
+    from triage.core.on_demand import open_review
+    from triage.core.settings import ScoreSettings
+
+    review = open_review(lake, out, ScoreSettings())
+    assert review.portfolio.n_series == len(want)
+    assert review.card["item"].astype(str).tolist() == want["item"].astype(str).tolist()
     got = pd.concat([pd.read_parquet(out / name) for name in parts], ignore_index=True)
     assert list(got.columns) == list(want.columns)
     for name in ("item", "location", "bias_flag", "pattern"):
@@ -67,7 +74,7 @@ def test_format_parquet_writes_the_scorecard_as_parts(
     # A scorecard of fewer parts replaces it with --force: the older parts were rank's own.
     top = ["rank", str(lake), "--format", "parquet", "--output", str(out), "--top", "9"]
     assert cli.main([*top, "--force"]) == 0
-    assert sorted(p.name for p in out.iterdir()) == ["part-00000.parquet"]
+    assert sorted(p.name for p in out.iterdir()) == ["_scorecard.json", "part-00000.parquet"]
     assert len(pd.read_parquet(out / "part-00000.parquet")) == 9
     # A file rank did not write is never removed.
     (out / "notes.txt").write_text("mine")

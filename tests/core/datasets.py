@@ -71,22 +71,17 @@ def _write(rows: pd.DataFrame, path: Path) -> None:
 def stored_scorecard(
     folder: Path, out: Path, *, window: int = 13, season: int = 1, by: str = "error"
 ) -> Path:
-    """The scorecard folder ``rank DATASET --engine dask --format parquet --output out`` writes
-    (parts and description, ``triage.core.card_folder``), made here with the local engine and
-    the same writers, without a cluster."""
-    from triage.core import card_folder
-    from triage.core.dataset import open_dataset, plan_dataset, quick_summary, read_dataset
-    from triage.core.files import write_set_atomic
-    from triage.core.ranking import scorecard
-    from triage.render.scorecard import parquet_parts
+    """The scorecard folder of the dataset ``folder`` (parts and description,
+    ``triage.core.card_folder``), as ``triage rank DATASET --format parquet --output out``
+    writes it with the local engine (the Dask engine writes the same: test_dask_engine.py)."""
+    from triage import cli
 
-    dataset = open_dataset(folder)
-    plan = plan_dataset(dataset, [quick_summary(dataset, i) for i in range(len(dataset.files))])
-    card = scorecard(read_dataset(folder), window, season, by=by)
-    scored = card_folder.Scored(
-        window=window, season=season, by=by, lag=plan.grid.lag, columns=None,
-        series=len(card), rows=len(card),
+    done = cli.main(
+        [
+            "rank", str(folder), "--format", "parquet", "--output", str(out),
+            "--window", str(window), "--season", str(season), "--by", by,
+        ]
     )  # fmt: skip
-    parts = [*parquet_parts(card), card_folder.description_writer(plan, scored)]
-    write_set_atomic(out, parts, force=False)
+    if done != 0:
+        raise RuntimeError(f"rank of {folder} exited {done}")
     return out

@@ -1,6 +1,6 @@
 """A scorecard folder: a dataset's scorecard as Parquet files, with what it was made from.
 
-``triage rank DATASET --engine dask --format parquet --output DIR`` writes the scorecard as
+``triage rank DATASET --format parquet --output DIR`` (either engine) writes the scorecard as
 ``part-NNNNN.parquet`` files in review order (``render.scorecard.parquet_parts``) and, in the
 same all-or-nothing set, :data:`DESCRIPTION`: a JSON file saying what the scorecard is of, so
 that the review screens can open it without scoring or planning the dataset again:

@@ -28,7 +28,7 @@ from __future__ import annotations
 import dataclasses
 import itertools
 import urllib.parse
-from collections.abc import Sequence
+from collections.abc import Callable, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -789,11 +789,13 @@ def read_dataset(
     options: FileOptions | None = None,
     lag: int | None = None,
     smallest_lag: bool = False,
+    on_plan: Callable[[Plan], None] | None = None,
 ) -> Portfolio:
     """The local engine: every part of the dataset ``folder`` read here into one portfolio.
 
     The portfolio is the one a single file holding every part's rows would give (same series,
-    calendar, arrays and measures); its ``path`` is the folder.
+    calendar, arrays and measures); its ``path`` is the folder. ``on_plan`` is given the
+    dataset's plan (a stored scorecard's description, ``triage.core.card_folder``).
 
     Raises:
         LoadError: A part cannot be read (named with its row), or the parts do not make one
@@ -810,6 +812,8 @@ def read_dataset(
         smallest_lag=smallest_lag,
         price_header=(columns or {}).get(schema.PRICE, schema.PRICE),
     )
+    if on_plan is not None:
+        on_plan(plan)
     frame = concat_parts([p.frame for p in parts])
     del parts
     return build_part(frame, plan)
