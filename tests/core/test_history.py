@@ -622,3 +622,18 @@ def test_a_monthly_portfolio_without_locations(tmp_path: Path) -> None:
     assert realised["location"].tolist() == [""]
     assert realised["period"].tolist() == ["2026-04-01"]
     assert history.series_positions(later, ["P-1", "P-1"], ["", "Lyon"]).tolist() == [0, -1]
+
+
+@pytest.mark.parametrize("target", [0.3, 0.8, 1.0])
+def test_the_worst_set_cut_on_the_scorecards_cum_share_is_the_worst_set(target: float) -> None:
+    # history.worst_set forms the running shares again; the scorecard already holds them.
+    path = Path(__file__).resolve().parents[2] / "sample" / "portfolio.csv"
+    portfolio = read_portfolio(path)
+    card = scorecard(portfolio)
+    error = ReviewCycle(portfolio).error
+    want = history.worst_set(error, target)
+    assert want.any()
+    np.testing.assert_array_equal(history.worst_set_of_card(card, error, target), want)
+    # No error at all: no worst set (the shares are undefined).
+    zero = card.assign(cum_share=np.nan)
+    assert not history.worst_set_of_card(zero, np.zeros(len(card)), target).any()

@@ -142,7 +142,7 @@ class ReviewCycle:
     @cached_property
     def worst(self) -> np.ndarray:
         """The worst-offender set as a mask by position (leading set covering the target)."""
-        return history.worst_set(self.error, self.settings.target_share, self.error_order)
+        return history.worst_set_of_card(self.card, self.error, self.settings.target_share)
 
     @cached_property
     def fva(self) -> dict[str, float]:

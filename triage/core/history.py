@@ -656,6 +656,19 @@ def worst_set(
     return mask
 
 
+def worst_set_of_card(card: pd.DataFrame, error: np.ndarray, target_share: float) -> np.ndarray:
+    """:func:`worst_set` of a scorecard in error order (index = position), cut on the
+    scorecard's own ``cum_share``: the running shares ``ranking.error_shares`` gave it, so the
+    set is the same without forming them again (a second of ten million scatters)."""
+    mask = np.zeros(len(card), dtype=bool)
+    if not len(card) or float(np.asarray(error, dtype=np.float64).sum()) <= 0:
+        return mask
+    cum = card["cum_share"].to_numpy(dtype=np.float64)
+    order = card.index.to_numpy(dtype=np.int64)
+    mask[order[: ranking.cover_count(cum, target_share)]] = True
+    return mask
+
+
 #: Where a cycle's worst-offender set came from in ``repeat_offenders`` (``attrs["sources"]``).
 SNAPSHOT = "snapshot"
 RESCORED = "rescored"
