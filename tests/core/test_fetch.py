@@ -170,3 +170,28 @@ def test_a_bad_cell_in_a_fetched_row_group_is_named_by_its_row_in_the_file(
     text = str(raised.value)
     # Parquet rows count from 1: frame row 1234 is row 1235 of the file.
     assert "12 kg" in text and f"row {at + 1}" in text and "p.parquet" in text
+
+
+def test_with_the_parts_item_ranges_only_the_parts_that_may_hold_the_series_are_read(
+    tmp_path: Path, rows: pd.DataFrame, whole: Portfolio, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    from triage.core import dataset as dataset_mod
+
+    folder = write_layout(rows, tmp_path / "blocks", "blocks")
+    plan = planned(folder)
+    ranges = dataset_mod.part_ranges(plan.dataset)
+    assert len(ranges) == len(plan.dataset.files)
+    opened: list[int] = []
+    original = dataset_mod.read_picked
+
+    def counted(dataset, part, pick, **kwargs):
+        opened.append(part)
+        return original(dataset, part, pick, **kwargs)
+
+    monkeypatch.setattr(dataset_mod, "read_picked", counted)
+    keys = [whole.key(0), whole.key(whole.n_series - 1)]
+    got = fetch_series(plan, keys, ranges=ranges)
+    assert got is not None and sorted(got.key(j) for j in range(got.n_series)) == sorted(keys)
+    same_series(got, whole)
+    # The blocks layout cuts by item range: the first and the last series are in two parts.
+    assert sorted(opened) == [0, len(plan.dataset.files) - 1]

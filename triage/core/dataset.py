@@ -52,8 +52,9 @@ from triage.core.portfolio import (
     units_reason,
 )
 from triage.core.ranking import MEASURE_COLUMNS, SeriesMeasures, series_measures
-from triage.core.read.columns import SeriesPick
+from triage.core.read.columns import SeriesPick, checked_mapping
 from triage.core.read.frame import LoadedFrame, load_frame, load_picked
+from triage.core.read.parquet import groups_holding, item_ranges
 from triage.core.text import visible
 
 #: File name endings of a dataset's parts.
@@ -825,9 +826,13 @@ def fetch_series(
     *,
     columns: dict[str, str] | None = None,
     options: FileOptions | None = None,
+    ranges: Sequence[Sequence[tuple[str, str] | None]] | None = None,
 ) -> Portfolio | None:
     """The whole histories of the series ``keys`` ((item, location), location ``""`` without a
     location column), read from the dataset of ``plan`` on demand, on its calendar.
+
+    ``ranges``: each part's row groups' item (min, max) (:func:`part_ranges`), when the caller
+    keeps them: the parts none of whose row groups may hold the series are then not opened.
 
     Each part reads only the row groups whose item statistics may hold one of the series
     (predicate pushdown on the Parquet statistics): a dataset whose parts keep each series'
@@ -844,12 +849,27 @@ def fetch_series(
     pick = SeriesPick(tuple((str(i), str(loc)) for i, loc in keys))
     found = []
     for part in range(len(plan.dataset.files)):
+        if ranges is not None and not groups_holding(ranges[part], pick.items):
+            continue
         loaded = read_picked(plan.dataset, part, pick, columns=columns, options=options)
         if loaded is not None:
             found.append(loaded.frame)
     if not found:
         return None
     return build_part(concat_parts(found), plan, some=True)
+
+
+def part_ranges(
+    dataset: Dataset, columns: dict[str, str] | None = None
+) -> list[tuple[tuple[str, str] | None, ...]]:
+    """Each part's row groups' item (min, max), from the footers alone
+    (``read.parquet.item_ranges``), for :func:`fetch_series`.
+
+    Raises:
+        LoadError: A part is not Parquet, or its columns are not a portfolio's.
+    """
+    mapping = checked_mapping(dataset.folder, columns)
+    return [item_ranges(path, mapping) for path in dataset.files]
 
 
 def concat_parts(frames: Sequence[pd.DataFrame]) -> pd.DataFrame:

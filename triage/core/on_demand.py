@@ -32,7 +32,7 @@ import pandas as pd
 
 from triage.core import schema
 from triage.core.card_folder import CardFolder, check_unchanged, open_card_folder
-from triage.core.dataset import Plan, fetch_series
+from triage.core.dataset import Plan, fetch_series, part_ranges
 from triage.core.errors import LoadError, TriageError
 from triage.core.portfolio import Portfolio
 from triage.core.settings import ScoreSettings
@@ -91,6 +91,9 @@ class Histories:
         self._kept = kept
         self._rows: OrderedDict[int, dict[str, np.ndarray]] = OrderedDict()
         self._lock = threading.Lock()
+        self._ranges: list[tuple[tuple[str, str] | None, ...]] | None = None
+        """Each part's row groups' item (min, max), read from the footers on the first fetch:
+        a fetch opens only the parts that may hold its series."""
         self.n_periods = len(plan.grid.calendar.periods)
         self.fetches = 0
         """Reads of the dataset so far (each for one or more series)."""
@@ -130,7 +133,9 @@ class Histories:
             chunk = wanted[start : start + self._kept]
             keys = [self._key_of(s) for s in chunk]
             self._unchanged()
-            read = fetch_series(self.plan, keys, columns=self._columns)
+            if self._ranges is None:
+                self._ranges = part_ranges(self.plan.dataset, self._columns)
+            read = fetch_series(self.plan, keys, columns=self._columns, ranges=self._ranges)
             self._unchanged()
             self.fetches += 1
             found: dict[tuple[str, str], int] = {}

@@ -9,6 +9,7 @@ from __future__ import annotations
 
 import bisect
 import re
+from collections.abc import Sequence
 from pathlib import Path
 from typing import Any
 
@@ -119,19 +120,39 @@ def read_parquet(
 
 
 def _groups_holding(metadata: Any, column: str, items: list[str]) -> list[int]:
-    """The row groups whose ``column`` statistics may hold one of ``items``: every row group
-    whose statistics are missing or not text, else those whose [min, max] holds an item.
+    """The row groups whose ``column`` statistics may hold one of ``items``
+    (:func:`groups_holding` of :func:`_item_ranges`)."""
+    return groups_holding(_item_ranges(metadata, column), items)
+
+
+def groups_holding(ranges: Sequence[tuple[str, str] | None], items: Sequence[str]) -> list[int]:
+    """The row groups that may hold one of ``items``, given each group's item (min, max):
+    every group without text statistics (None), else those whose [min, max] holds an item.
 
     Parquet orders text statistics by their UTF-8 bytes, which is Python's order of ``str``; a
     writer that shortens long statistics keeps the minimum below and the maximum above every
     value, so no row group holding an item is left out.
     """
-    names = metadata.schema.names
-    if column not in names:
-        return list(range(metadata.num_row_groups))
-    at = names.index(column)
     wanted = sorted(items)
     keep = []
+    for group, bounds in enumerate(ranges):
+        if bounds is None:
+            keep.append(group)
+            continue
+        first = bisect.bisect_left(wanted, bounds[0])
+        if first < len(wanted) and wanted[first] <= bounds[1]:
+            keep.append(group)
+    return keep
+
+
+def _item_ranges(metadata: Any, column: str) -> tuple[tuple[str, str] | None, ...]:
+    """Each row group's (min, max) of ``column`` as written, None where the statistics are
+    missing or not text (every group when the file has no such column)."""
+    names = metadata.schema.names
+    if column not in names:
+        return tuple(None for _ in range(int(metadata.num_row_groups)))
+    at = names.index(column)
+    found: list[tuple[str, str] | None] = []
     for group in range(metadata.num_row_groups):
         low = high = None
         try:
@@ -140,13 +161,35 @@ def _groups_holding(metadata: Any, column: str, items: list[str]) -> list[int]:
                 low, high = stats.min, stats.max
         except (UnicodeDecodeError, ValueError, TypeError):
             pass  # statistics that are not text as written: the row group is read
-        if not isinstance(low, str) or not isinstance(high, str):
-            keep.append(group)
-            continue
-        first = bisect.bisect_left(wanted, low)
-        if first < len(wanted) and wanted[first] <= high:
-            keep.append(group)
-    return keep
+        text = isinstance(low, str) and isinstance(high, str)
+        found.append((low, high) if text else None)  # type: ignore[arg-type]
+    return tuple(found)
+
+
+def item_ranges(path: Path, mapping: dict[str, str]) -> tuple[tuple[str, str] | None, ...]:
+    """Each row group's item (min, max) from the file's footer alone (``mapping``: the
+    ``--columns`` map): what a dataset's parts are chosen by before any is opened to fetch a
+    few series (``dataset.fetch_series``).
+
+    Raises:
+        LoadError: The file is not Parquet, or its columns cannot be read as a portfolio's.
+    """
+    import pyarrow as pa
+    import pyarrow.parquet as pq
+
+    try:
+        metadata = pq.read_metadata(path)
+        names = metadata.schema.to_arrow_schema().names
+    except (pa.ArrowException, OSError) as exc:
+        fail(
+            path,
+            f"cannot read this as a Parquet file ({exc}).",
+            "Check that the file is Parquet and not damaged; export it again if needed.",
+        )
+    # As read_parquet reads them: pandas' unnamed index columns are not data.
+    data = [n for n in names if not re.fullmatch(r"__index_level_\d+__", n)]
+    plan = plan_columns(path, data, mapping, [])
+    return _item_ranges(metadata, data[plan.roles.index(schema.ITEM)])
 
 
 def _item_rows(column: Any, items: list[str]) -> Any:
