@@ -322,3 +322,42 @@ def test_a_dataset_changed_after_opening_is_not_read(
     with pytest.raises(LoadError, match="has changed since"):
         review.histories.fetch([0])
     assert not review.histories.has(0)
+
+
+def test_the_reopen_cache_keeps_the_scorecard_and_gives_it_back(
+    tmp_path: Path, lake: tuple[Path, Path]
+) -> None:
+    import os
+    import shutil
+
+    folder = tmp_path / "cache"
+    card = tmp_path / "card"
+    shutil.copytree(lake[1], card)
+    first = on_demand.open_review(lake[0], card, ScoreSettings(), cache_folder=folder)
+    assert not first.cached and first.keep is not None
+    first.keep(lambda: False)
+    again = on_demand.open_review(lake[0], card, ScoreSettings(), cache_folder=folder)
+    assert again.cached and again.keep is None
+    pd.testing.assert_frame_equal(again.card, first.card)
+    assert again.portfolio.keys.equals(first.portfolio.keys)
+    # A scorecard made again (a file of it rewritten) is read from its files, and its older
+    # entry goes when the new one is kept.
+    part = card / "part-00000.parquet"
+    stat = part.stat()
+    os.utime(part, ns=(stat.st_atime_ns, stat.st_mtime_ns + 10**9))
+    third = on_demand.open_review(lake[0], card, ScoreSettings(), cache_folder=folder)
+    assert not third.cached and third.keep is not None
+    third.keep(lambda: False)
+    assert len([p for p in folder.iterdir() if not p.name.startswith(".")]) == 1
+    # A limit smaller than the table keeps nothing.
+    small = on_demand.open_review(lake[0], card, ScoreSettings(), cache_folder=tmp_path / "s")
+    assert small.keep is not None
+    small.keep(lambda: False)
+    tiny = on_demand.open_review(
+        lake[0], card, ScoreSettings(), cache_folder=tmp_path / "t", cache_limit=10
+    )
+    assert tiny.keep is not None
+    tiny.keep(lambda: False)
+    assert not on_demand.open_review(
+        lake[0], card, ScoreSettings(), cache_folder=tmp_path / "t", cache_limit=10
+    ).cached

@@ -184,3 +184,41 @@ async def test_a_failed_fetch_ends_the_wait_and_enter_tries_again(
         burst(app, ["enter"])
         await wait_for(pilot, lambda: isinstance(app.screen, DecisionScreen), "the dialog")
         assert app.histories is not None and app.histories.has(top)
+
+
+async def test_a_reopen_maps_the_scorecard_from_the_reopen_cache(
+    lake: tuple[Path, Path], tmp_path: Path, monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import pyarrow.parquet
+
+    folder, card = lake
+    cache = tmp_path / "cache"
+
+    def opened() -> TriageApp:
+        return TriageApp(
+            Options(
+                portfolio=folder,
+                scorecard=card,
+                ledger=tmp_path / "ledger.sqlite",
+                reviewer="ana",
+                cache_folder=cache,
+            )
+        )
+
+    app = opened()
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_listed(app, pilot)
+        await wait_for(pilot, lambda: any(cache.glob("*/scorecard.arrow")), "the scorecard kept")
+        first = app.session.ranked.copy()
+
+    # The second open does not read the scorecard's files: it maps the kept table.
+    def refused(*args, **kwargs):
+        raise AssertionError("the scorecard's files were read again")
+
+    monkeypatch.setattr(pyarrow.parquet, "read_table", refused)
+    app = opened()
+    async with app.run_test(size=(120, 40)) as pilot:
+        await wait_listed(app, pilot)
+        import pandas as pd
+
+        pd.testing.assert_frame_equal(app.session.ranked, first)

@@ -35,7 +35,7 @@ import json
 import os
 import shutil
 import time
-from collections.abc import Callable, Mapping
+from collections.abc import Callable, Mapping, Sequence
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -385,6 +385,82 @@ def store(
 def store_card(entry: Path, window: int, season: int, card: pd.DataFrame) -> None:
     """Add one scorecard to an entry (all or nothing)."""
     files.write_atomic(entry / card_name(window, season), _arrow(card), force=True)
+
+
+# --------------------------------------------------------------------------------------------
+# Stored scorecards of datasets (``review DATASET --scorecard DIR``)
+
+#: The file of a stored scorecard's entry: its table as Arrow IPC, opened memory-mapped.
+SCORECARD = "scorecard.arrow"
+
+
+def scorecard_key(folder: Path, files_of: Sequence[Path], description: bytes) -> str:
+    """The lookup key of a stored scorecard: the SHA-256 of the cache format, the folder's
+    resolved path, its description's bytes, and each scorecard file's name, size and
+    ``st_mtime_ns``. A scorecard made again (or a file of it touched) gets another key."""
+    digest = hashlib.sha256()
+    digest.update(f"scorecard {FORMAT} {folder.resolve()}".encode())
+    digest.update(description)
+    for path in files_of:
+        stat = path.stat()
+        digest.update(f"{path.name} {stat.st_size} {stat.st_mtime_ns}".encode())
+    return digest.hexdigest()
+
+
+def load_scorecard(key: str, folder: Path) -> Any | None:
+    """The stored scorecard's Arrow table of entry ``key``, memory-mapped, or None when the
+    cache has no complete entry of it."""
+    import pyarrow as pa
+
+    entry = folder / key
+    if _meta_of(entry).get("format") != FORMAT:
+        return None
+    try:
+        table = pa.ipc.open_file(pa.memory_map(str(entry / SCORECARD))).read_all()
+    except (OSError, pa.ArrowException):
+        drop(entry, "unreadable")
+        return None
+    _touch(entry)
+    return table
+
+
+def store_scorecard(
+    key: str,
+    card: pd.DataFrame,
+    source: Path,
+    folder: Path,
+    limit_bytes: int,
+    *,
+    cancelled: Callable[[], bool] = lambda: False,
+) -> Path | None:
+    """Keep a stored scorecard's table (``card``, as read) in entry ``key``, all or nothing,
+    then bound the folder as portfolio entries are bounded (the same limit for both).
+
+    Returns:
+        The entry, or None when the table alone is larger than the limit.
+    """
+    import pyarrow as pa
+
+    table = pa.Table.from_pandas(card, preserve_index=False)
+    if table.nbytes > limit_bytes:
+        return None
+
+    def write(target: Path) -> None:
+        with pa.OSFile(str(target), "wb") as sink, pa.ipc.new_file(sink, table.schema) as out:
+            out.write_table(table)
+
+    meta = {"format": FORMAT, "kind": "scorecard", "path": str(source), "stored_at": time.time()}
+    parts = [(SCORECARD, _unless(cancelled, write)), (META, _unless(cancelled, _meta(meta)))]
+    folder.mkdir(parents=True, exist_ok=True)
+    entry = folder / key
+    if entry.exists():
+        drop(entry, "rewritten")
+    files.write_set_atomic(entry, parts, force=False)
+    for other in _entries(folder):
+        if other.name != key and _meta_of(other).get("path") == str(source):
+            drop(other, "the scorecard was made again")
+    evict(folder, limit_bytes, keep=entry)
+    return entry
 
 
 # --------------------------------------------------------------------------------------------

@@ -35,7 +35,7 @@ from triage.core.card_folder import CardFolder, check_unchanged, open_card_folde
 from triage.core.dataset import Plan, fetch_series, part_ranges
 from triage.core.errors import LoadError, TriageError
 from triage.core.portfolio import Portfolio
-from triage.core.settings import ScoreSettings
+from triage.core.settings import CACHE_LIMIT_MB, ScoreSettings
 from triage.core.text import visible
 
 #: Series whose histories are kept once fetched (about 4 KB each at 117 weekly periods).
@@ -270,6 +270,11 @@ class ScorecardReview:
     settings: ScoreSettings
     histories: Histories
     notices: tuple[str, ...]
+    cached: bool = False
+    """The scorecard came from the reopen cache (``triage.core.cache``)."""
+    keep: Callable[[Callable[[], bool]], None] | None = None
+    """Store the scorecard in the reopen cache (given a "stop now" check), when it was read
+    from its files and a cache folder was given; None otherwise."""
 
 
 def fingerprint(folder: CardFolder) -> str:
@@ -321,11 +326,16 @@ def open_review(
     settings: ScoreSettings,
     *,
     columns: dict[str, str] | None = None,
+    cache_folder: Path | None = None,
+    cache_limit: int | None = None,
 ) -> ScorecardReview:
     """The review of ``dataset`` on its stored scorecard folder ``scorecard``.
 
     The settings' window and season become the scorecard's (a notice says so when they
-    differ); the lag is the one it was scored at.
+    differ); the lag is the one it was scored at. With ``cache_folder``, the scorecard is
+    opened memory-mapped from the reopen cache when it is there (``cache.load_scorecard``),
+    else read from its files, and ``keep`` stores it there (the folder kept under
+    ``cache_limit`` bytes; default ``--cache-limit``'s, ``settings.CACHE_LIMIT_MB``).
 
     Raises:
         LoadError: The folder is not a complete scorecard of this dataset as it is now
@@ -346,10 +356,20 @@ def open_review(
     settings = dataclasses.replace(
         settings, window=scored.window, season=scored.season, lag=plan.grid.lag
     )
-    table = pa.concat_tables([pq.read_table(f) for f in stored.files])
+    key = table = None
+    if cache_folder is not None:
+        from triage.core import cache
+        from triage.core.card_folder import DESCRIPTION
+
+        described = (scorecard / DESCRIPTION).read_bytes()
+        key = cache.scorecard_key(scorecard, stored.files, described)
+        table = cache.load_scorecard(key, cache_folder)
+    cached = table is not None
+    if table is None:
+        table = pa.concat_tables([pq.read_table(f) for f in stored.files])
     # One block per column: no copy of the numbers into one 2-D block (a third of the open
     # at ten million series).
-    stored_card = table.to_pandas(split_blocks=True, self_destruct=True)
+    stored_card = table.to_pandas(split_blocks=True, self_destruct=not cached)
     del table
     # Positions are the stored rows; the review's card is in error order (rank 1 first): as
     # stored, unless the scorecard was written in another order (--by bias, --by fva).
@@ -390,10 +410,24 @@ def open_review(
     )
     portfolio.__dict__["fingerprint"] = fingerprint(stored)
     held.append(portfolio)
+    keep = None
+    if cache_folder is not None and key is not None and not cached:
+        found_key, folder = key, cache_folder
+        limit = CACHE_LIMIT_MB.default << 20 if cache_limit is None else cache_limit
+
+        def keep(cancelled: Callable[[], bool]) -> None:
+            from triage.core import cache
+
+            cache.store_scorecard(
+                found_key, stored_card, scorecard, folder, limit, cancelled=cancelled
+            )
+
     return ScorecardReview(
         portfolio=portfolio,
         card=card,
         settings=settings,
         histories=histories,
         notices=tuple(notices),
+        cached=cached,
+        keep=keep,
     )

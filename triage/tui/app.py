@@ -577,7 +577,15 @@ class TriageApp(App[None]):
         opts = self.options
         assert opts.scorecard is not None
         self.post_message(LoadStep(0, steps, f"reading the scorecard {opts.scorecard.name}"))
-        review = open_review(opts.portfolio, opts.scorecard, opts.settings, columns=opts.columns)
+        use_cache = opts.cache and opts.cache_limit_mb > 0
+        review = open_review(
+            opts.portfolio,
+            opts.scorecard,
+            opts.settings,
+            columns=opts.columns,
+            cache_folder=self._cache_folder() if use_cache else None,
+            cache_limit=opts.cache_limit_mb << 20,
+        )
         self.post_message(LoadStep(1, steps, "opening the ledger"))
         notices = list(opts.notices) + list(review.notices)
         ledger = self._open_ledger(notices)
@@ -587,7 +595,14 @@ class TriageApp(App[None]):
         self.histories = review.histories
         self.post_message(LoadStep(3, steps, "drawing"))
         notices.extend(session.notices)
-        self.post_message(Loaded(session, tuple(notices), None))
+        keep = None
+        if review.keep is not None:
+            stored = review.keep
+
+            def keep() -> None:
+                stored(self._stop_cache.is_set)
+
+        self.post_message(Loaded(session, tuple(notices), keep))
 
     def _cache_folder(self) -> Path:
         return self.options.cache_folder or cache.default_folder()
