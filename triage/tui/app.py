@@ -1009,15 +1009,14 @@ class TriageApp(App[None]):
         if message.error is not None:
             self._status(f"error: {message.error}")
             fmt.toast(self, message.error, severity="error", timeout=15)
-        if self._main_screen_live():
-            series_list = self._q(SeriesList)
-            for series in message.series:
-                series_list.invalidate(series)
-            current = series_list.current
-            if current in message.series and not self.in_groups:
-                self._detail_body(current)
-                if message.error is None:
-                    self._draw_chart(current)
+        series_list = self._q(SeriesList)
+        for series in message.series:
+            series_list.invalidate(series)
+        current = series_list.current
+        if current in message.series and not self.in_groups:
+            self._detail_body(current)
+            if message.error is None:
+                self._draw_chart(current)
 
         pending = self._open_after_fetch
         if pending is not None and pending[0] in message.series and pending[3].is_attached:
@@ -1040,6 +1039,10 @@ class TriageApp(App[None]):
         self, series: int, outcome: str, adjustment: str, typed: list[events.Event]
     ) -> None:
         await self._open_dialog(series, outcome=outcome, adjustment=adjustment)
+        if not isinstance(self.screen, DecisionScreen):
+            # The dialog did not open (the ledger could not be read: the status says why):
+            # what was typed for it must not act on the list.
+            return
         self._status("")
 
         def replay() -> None:
