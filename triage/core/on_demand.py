@@ -102,10 +102,6 @@ class Histories:
         """Whether the series' history is at hand."""
         return series in self._rows
 
-    def missing(self, series: Iterable[int]) -> list[int]:
-        """The series of ``series`` whose histories are not at hand, in order, once each."""
-        return [s for s in dict.fromkeys(int(s) for s in series) if s not in self._rows]
-
     def fetch(self, series: Iterable[int]) -> dict[int, dict[str, np.ndarray]]:
         """Read the histories of ``series`` that are not at hand from the dataset (I/O), a
         chunk of at most :data:`KEPT` series at a time, and keep the latest ones.
