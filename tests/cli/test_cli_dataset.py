@@ -71,6 +71,18 @@ def test_format_parquet_writes_the_scorecard_as_parts(
         assert got[name].tolist() == want[name].tolist()
     # The CSV writes 17 significant digits: the numbers round-trip.
     pd.testing.assert_series_equal(got["cum_share"], want["cum_share"].astype(float))
+    # Measures stored plain (no codec, no dictionary: what makes the review's read fast), keys
+    # and text with Parquet's default codec (render.scorecard.parquet_encoding).
+    import pyarrow.parquet as pq
+
+    stored = pq.ParquetFile(out / parts[0]).metadata.row_group(0)
+    how = {
+        stored.column(i).path_in_schema: (stored.column(i).compression, stored.column(i).encodings)
+        for i in range(stored.num_columns)
+    }
+    assert how["cum_share"][0] == "UNCOMPRESSED"
+    assert "RLE_DICTIONARY" not in how["cum_share"][1]
+    assert how["item"][0] == how["rank"][0] == "SNAPPY"
     # A scorecard of fewer parts replaces it with --force: the older parts were rank's own.
     top = ["rank", str(lake), "--format", "parquet", "--output", str(out), "--top", "9"]
     assert cli.main([*top, "--force"]) == 0
