@@ -248,6 +248,47 @@ def test_a_scorecard_stored_in_bias_order_gives_the_same_review(
     for order in ("error", "bias"):
         want = [by_error.key(int(s)) for s in by_error.order(order)]
         assert [by_bias.key(int(s)) for s in by_bias.order(order)] == want
+    # Stored in error order, the rows are the positions and nothing is scattered; stored in
+    # bias order they are scattered: the same values by series either way.
+    assert by_error.review_cycle.in_position_order
+    assert not by_bias.review_cycle.in_position_order
+    to_bias = np.array([by_bias.find(*by_error.key(s)) for s in range(len(by_error.flag))])
+    for name in ("flag", "bias_size", "bias_share", "fva_loss", "error"):
+        np.testing.assert_array_equal(
+            getattr(by_error, name), getattr(by_bias, name)[to_bias], err_msg=name
+        )
+    np.testing.assert_array_equal(
+        by_error.ranked.iloc[by_error.position]["item"].to_numpy(),
+        by_error.portfolio.keys["item"].to_numpy(),
+    )
+    # Not copied, so read-only: a write would change the scorecard itself.
+    with pytest.raises(ValueError):
+        by_error.fva_loss[0] = 0.0
+
+
+def test_a_reload_gives_the_state_a_fresh_session_reads(
+    tmp_path: Path, lake: tuple[Path, Path]
+) -> None:
+    ledger = Ledger.open(tmp_path / "ledger.sqlite")
+    first = stored_session(lake, ledger)
+    picked = [int(s) for s in first.order("error")[:3]]
+    fetch(first, picked)
+    for series, outcome in zip(picked, ("adjusted", "no_change", "handed_off"), strict=True):
+        event = first.commit_decision(
+            series,
+            outcome=outcome,
+            root_cause="unknown",
+            adjustment="x0.8" if outcome == "adjusted" else None,
+        )
+        first.apply_event(event)
+    fresh = stored_session(lake, ledger)
+    # What the ledger no longer says (as after another reviewer's undo) goes on a reload.
+    spare = int(first.order("error")[-1])
+    first.decided_by[spare], first.past_outcome[spare], first.carried[spare] = "x", "x", True
+    first.reload()
+    for name in ("outcome", "version", "decided_by", "group_of", "past_outcome", "carried"):
+        np.testing.assert_array_equal(getattr(first, name), getattr(fresh, name), err_msg=name)
+    assert first.progress() == fresh.progress()
 
 
 def _damaged(card: Path, tmp_path: Path, change) -> Path:

@@ -241,9 +241,12 @@ class ReviewSession:
         """The scorecard in review order (``cycle.card``; index = position)."""
         self.error_order = cycle.error_order
         n = portfolio.n_series
-        self.position = np.empty(n, dtype=np.int64)
+        if cycle.in_position_order:
+            self.position = self.error_order
+        else:
+            self.position = np.empty(n, dtype=np.int64)
+            self.position[self.error_order] = np.arange(n)
         """Row of each series in ``ranked`` (the inverse of ``error_order``)."""
-        self.position[self.error_order] = np.arange(n)
         self.priced = "abs_error_value" in ranked
         self.error = cycle.error
         flags = ranked["bias_flag"]
@@ -269,9 +272,11 @@ class ReviewSession:
         """Whether the background pieces are in (``finish``): suggestions, repeat offenders,
         the search index and the stored worst set. Until then ``suggest_spec`` is empty and
         ``repeat`` all False, and whatever needs them raises ``StillComputing``."""
+        # Until ``finish``: one read-only blank array for both (ten million series: 80 MB each).
         self.suggest_spec = np.full(n, "", dtype=object)
         """Suggested adjustment per series (``adjust.suggest``), ``""`` when none."""
-        self.suggest_reason = np.full(n, "", dtype=object)
+        self.suggest_spec.flags.writeable = False
+        self.suggest_reason = self.suggest_spec
         self.outcome = np.full(n, "", dtype=object)
         """Effective outcome code per series in this cycle, ``""`` when unreviewed (changed
         only by ``_set_outcome``)."""
@@ -324,7 +329,7 @@ class ReviewSession:
             for i in range(portfolio.last_actual + 1, len(portfolio.calendar.periods))
         )
         if self.ledger is not None:
-            self.reload()
+            self._read_ledger()
         if not defer:
             self.finish(self.background())
 
@@ -385,10 +390,9 @@ class ReviewSession:
             )
 
     def _aligned(self, values: np.ndarray) -> np.ndarray:
-        """Values in review order (as in ``ranked``) aligned on portfolio position."""
-        out = np.empty_like(values)
-        out[self.error_order] = values
-        return out
+        """Values in review order (as in ``ranked``) aligned on portfolio position
+        (``ReviewCycle.aligned``: read-only, not copied, when already in that order)."""
+        return self.review_cycle.aligned(values)
 
     @cached_property
     def card(self) -> pd.DataFrame:
@@ -435,6 +439,15 @@ class ReviewSession:
         self.version[:] = 0
         self.decided_by[:] = ""
         self.group_of[:] = 0
+        self.past_outcome[:] = ""
+        self.past_cycle[:] = ""
+        self.carried[:] = False
+        self._read_ledger()
+
+    def _read_ledger(self) -> None:
+        """The ledger's decisions onto blank per-series state, as ``__init__`` makes it (at
+        ten million series each clearing pass is another 80 MB written) or ``reload`` clears
+        it."""
         if self.ledger is None:
             return
         versions = self.ledger.versions(self.cycle)
@@ -457,10 +470,8 @@ class ReviewSession:
         self._reload_earlier_cycles()
 
     def _reload_earlier_cycles(self) -> None:
-        """Earlier cycles' outcomes, carried-over series and still-active adjustments."""
-        self.past_outcome[:] = ""
-        self.past_cycle[:] = ""
-        self.carried[:] = False
+        """Earlier cycles' outcomes, carried-over series and still-active adjustments (onto
+        blank state: see ``_read_ledger``)."""
         earlier = self.review_cycle.log.before(self.cycle)
         if earlier:
             # Oldest cycle first, so the latest decision per series is written last.
