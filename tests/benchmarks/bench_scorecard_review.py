@@ -108,6 +108,13 @@ def main(argv: list[str] | None = None) -> int:
     parser.add_argument("--dataset", type=Path, required=True)
     parser.add_argument("--scorecard", type=Path, required=True)
     parser.add_argument("--repeats", type=int, default=2)
+    parser.add_argument(
+        "--also-read",
+        type=Path,
+        metavar="DIR",
+        help="another scorecard folder of the same dataset (e.g. written by an older revision): "
+        "its bare read is timed in the same rounds, for the ratio of the two encodings",
+    )
     parser.add_argument("--child", action="store_true", help=argparse.SUPPRESS)
     parser.add_argument("--cache-folder", type=Path, help=argparse.SUPPRESS)
     args = parser.parse_args(argv)
@@ -123,6 +130,8 @@ def main(argv: list[str] | None = None) -> int:
         "--cache-folder", str(cache),
     ]  # fmt: skip
     runs: dict[str, list[float]] = {"read": [], "frame": [], "history": [], "warm": []}
+    if args.also_read is not None:
+        runs["also_read"] = []
     peaks: dict[str, int] = {}
     series = 0
     for _ in range(args.repeats):
@@ -131,6 +140,11 @@ def main(argv: list[str] | None = None) -> int:
             raise SystemExit(f"bare read: {done.error}")
         runs["read"].append(done.seconds)
         peaks["read"] = max(peaks.get("read", 0), done.peak_bytes or 0)
+        if args.also_read is not None:
+            done = run([sys.executable, "-c", BARE_READ, str(args.also_read)])
+            if done.returncode != 0:
+                raise SystemExit(f"bare read of {args.also_read}: {done.error}")
+            runs["also_read"].append(done.seconds)
         shutil.rmtree(cache, ignore_errors=True)
         launched = time.time()
         done = run(child)
@@ -167,6 +181,12 @@ def main(argv: list[str] | None = None) -> int:
         f"one whole part read {fetched['read_part_s']:.3f} s "
         f"({fetched['fetch_1_s'] / fetched['read_part_s']:.2f}x of it for one series)"
     )
+    if args.also_read is not None:
+        print(
+            f"  bare read of {args.also_read.name}: {med['also_read']:6.2f} s; this scorecard's "
+            f"read is {med['read'] / med['also_read']:.2f}x of it, the review's first frame "
+            f"{med['frame'] / med['also_read']:.2f}x"
+        )
     out = args.scorecard.parent / f"scorecard-review-{series}s.json"
     out.write_text(json.dumps(result, indent=1))
     return 0
